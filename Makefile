@@ -1,0 +1,35 @@
+# Two commands a new user needs: `make demo` and `make test`. Both create .venv when missing.
+PYTHON ?= python3.11
+VENV := .venv
+PY := $(VENV)/bin/python
+STAMP := $(VENV)/.installed
+
+.PHONY: demo test bench install clean
+
+$(PY):
+	@command -v $(PYTHON) >/dev/null 2>&1 || { echo "Python 3.11 not found as '$(PYTHON)'; run: make PYTHON=/path/to/python3.11 $(MAKECMDGOALS)"; exit 2; }
+	$(PYTHON) -m venv $(VENV)
+	$(PY) -m pip install --quiet --upgrade pip
+
+$(STAMP): $(PY) pyproject.toml
+	$(PY) -m pip install --quiet -e ".[test]"
+	@# torch is optional; use the local CPU wheel when the machine has one (never pull a multi-GB GPU build)
+	@w=$$(ls /opt/wheels/torch-*+cpu-cp311-*.whl 2>/dev/null | head -n 1); \
+	  if [ -n "$$w" ]; then $(PY) -m pip install --quiet "$$w"; \
+	  else echo "torch CPU wheel not found: the optional DataLoader tests will be skipped"; fi
+	$(PY) -m ipykernel install --user --name tilewright-venv >/dev/null 2>&1 || true
+	touch $(STAMP)
+
+install: $(STAMP)
+
+demo: $(STAMP)
+	$(VENV)/bin/tilewright demo demo-out
+
+test: $(STAMP)
+	$(PY) -m pytest -q
+
+bench: $(STAMP)
+	$(PY) benchmarks/run_all.py
+
+clean:
+	rm -rf $(VENV) demo-out .pytest_cache
