@@ -1,1 +1,1 @@
-
+"""Synthetic slides and the demo cohort (an invented scenario; no real patients or sites)."""
