@@ -1,1 +1,1 @@
-
+"""Command-line entry points: ``tile-out`` and the ``tilewright`` umbrella command."""

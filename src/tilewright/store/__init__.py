@@ -1,1 +1,1 @@
-
+"""The zarr v3 tile store (one group a slide) and the cohort manifest."""

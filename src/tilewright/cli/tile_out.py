@@ -1,0 +1,163 @@
+"""``tile-out SOURCE OUT``: tile a slide, a folder of slides or a list of slides.
+
+Exit codes: 0 all slides succeeded (or were skipped), 3 some slides failed (each failure is a
+manifest row with a one-line reason), 2 bad arguments, 4 the output folder is in use by another
+run, 130 interrupted (a later run resumes).
+"""
+
+from __future__ import annotations
+
+import argparse
+import logging
+import sys
+from pathlib import Path
+
+from tilewright.errors import ConfigError, OutputLockedError
+
+__all__ = ["main", "build_parser"]
+
+log = logging.getLogger("tilewright")
+
+EXIT_OK, EXIT_BAD_ARGS, EXIT_SOME_FAILED, EXIT_LOCKED, EXIT_INTERRUPTED = 0, 2, 3, 4, 130
+
+
+def build_parser() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(
+        prog="tile-out",
+        description="Cut harmonized, tissue-only (optionally stain-normalized) tiles from H&E slides "
+                    "into one zarr store a slide. Research use only; not for diagnosis.",
+        epilog="Exit codes: 0 all done, 3 some slides failed (see manifest.csv), 2 bad arguments, "
+               "4 output folder in use, 130 interrupted (run again to resume).")
+    p.add_argument("source", metavar="SOURCE", nargs="?",
+                   help="a slide file, a folder (searched recursively) or a .txt/.csv list of paths")
+    p.add_argument("out", metavar="OUT", nargs="?", help="output folder")
+    g = p.add_argument_group("tiling")
+    g.add_argument("--mpp", type=float, help="target resolution in µm/px (default 0.5)")
+    g.add_argument("--tile", type=int, help="tile side in pixels (default 256)")
+    g.add_argument("--stride", type=int, help="grid step in pixels (default: the tile side, no overlap)")
+    g.add_argument("--min-tissue", type=float, help="minimum tissue fraction of a tile (default 0.5)")
+    g.add_argument("--max-tiles", type=int, help="keep at most this many tiles a slide, spread over it")
+    g.add_argument("--seed", type=int, help="seed for tile sampling (default 0)")
+    g.add_argument("--mask-mpp", type=float, help="tissue-mask resolution in µm/px (default 8)")
+    g.add_argument("--min-sharpness", type=float, help="drop tiles blurrier than this variance of the Laplacian")
+    g = p.add_argument_group("stain")
+    g.add_argument("--normalize", choices=["macenko", "reinhard", "none"],
+                   help="stain normalization (default none)")
+    g.add_argument("--reference", help="reference image (PNG/JPEG/TIFF) or fitted-normalizer JSON; without it "
+                                       "the cohort's own median stain is the target, saved as OUT/stain_target.json")
+    g = p.add_argument_group("regions")
+    g.add_argument("--regions", help="region annotations: a GeoJSON/tile-table file, or a folder with one file a slide id")
+    g.add_argument("--keep", help="region classes to keep, comma separated")
+    g.add_argument("--min-region", type=float, help="minimum kept-class fraction of a tile (default 0.5)")
+    g = p.add_argument_group("input resolution")
+    g.add_argument("--source-mpp", type=float, help="level-0 µm/px for slides that lack or misstate it")
+    g.add_argument("--mpp-table", help="CSV with slide_id (or path) and mpp columns: per-slide level-0 µm/px")
+    g = p.add_argument_group("running")
+    g.add_argument("--workers", type=int, default=1, help="local worker processes (default 1)")
+    g.add_argument("--threads", type=int, help="reader threads in each worker (default 2)")
+    g.add_argument("--scheduler", help="dask.distributed scheduler address, e.g. tcp://10.0.0.5:8786")
+    g.add_argument("--config", help="TOML file with tiling settings (options given here override it)")
+    g.add_argument("--print-config", action="store_true", help="print the settings as TOML and exit")
+    g.add_argument("--overwrite", action="store_true", help="re-tile slides whose store is already complete")
+    g.add_argument("--compression", choices=["zstd", "lz4", "zlib", "none"], help="tile compression (default zstd)")
+    g.add_argument("--quiet", action="store_true", help="no progress output (the log file is still written)")
+    return p
+
+
+_FIELDS = {"mpp": "mpp", "tile": "tile", "stride": "stride", "min_tissue": "min_tissue",
+           "max_tiles": "max_tiles", "seed": "seed", "mask_mpp": "mask_mpp", "min_sharpness": "min_sharpness",
+           "reference": "reference", "regions": "regions", "min_region": "min_region",
+           "threads": "threads", "compression": "compression"}
+
+
+def config_from_args(args):
+    """A TilingConfig from ``--config`` plus the options given on the command line."""
+    from tilewright.run.config import TilingConfig
+
+    base = TilingConfig.from_toml(args.config) if args.config else TilingConfig()
+    changes = {field: getattr(args, opt) for opt, field in _FIELDS.items() if getattr(args, opt) is not None}
+    if args.normalize is not None:
+        changes["normalizer"] = None if args.normalize == "none" else args.normalize
+    if args.keep is not None:
+        changes["keep"] = [k.strip() for k in args.keep.split(",") if k.strip()]
+    if isinstance(changes.get("reference"), str) and changes["reference"].lower().endswith(".json"):
+        import json
+
+        ref = Path(changes["reference"])
+        try:
+            changes["reference"] = json.loads(ref.read_text())
+        except (OSError, ValueError) as exc:
+            raise ConfigError(f"cannot read the fitted normalizer JSON ({exc})", ref) from None
+    return base.replace(**changes).validate()
+
+
+def main(argv=None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        config = config_from_args(args)
+        if args.print_config:
+            sys.stdout.write(config.to_toml())
+            return EXIT_OK
+        if not args.source or not args.out:
+            parser.error("SOURCE and OUT are required (or use --print-config)")
+        if args.workers < 1:
+            raise ConfigError("--workers must be at least 1")
+        return run(args, config)
+    except ConfigError as exc:
+        print(f"tile-out: error: {exc}", file=sys.stderr)
+        return EXIT_BAD_ARGS
+    except OutputLockedError as exc:
+        print(f"tile-out: {exc}", file=sys.stderr)
+        return EXIT_LOCKED
+    except KeyboardInterrupt:
+        print("\ntile-out: interrupted; finished stores are kept, run the same command again to resume",
+              file=sys.stderr)
+        return EXIT_INTERRUPTED
+
+
+def run(args, config) -> int:
+    from tilewright.cli.progress import SlideProgress, setup_logging
+    from tilewright.cli.summary import print_summary
+    from tilewright.run.cohort import tile_cohort
+    from tilewright.run.sources import find_slides, read_mpp_table
+
+    paths = find_slides(args.source)
+    if not paths:
+        raise ConfigError("no slide files found (looked for .svs .tif .tiff .ndpi .mrxs .scn .bif .dcm ...)",
+                          args.source)
+    mpp = args.source_mpp
+    if args.mpp_table:
+        table = read_mpp_table(args.mpp_table)
+        mpp = {k: v for k, v in table.items()}
+        if args.source_mpp is not None:
+            from tilewright.store.layout import slide_ids
+
+            for sid, p in zip(slide_ids(paths), paths):
+                mpp.setdefault(sid, args.source_mpp)
+    out = Path(args.out)
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+        probe = out / ".write-test"
+        probe.write_text("")
+        probe.unlink()
+    except OSError as exc:
+        raise ConfigError(f"cannot write to the output folder ({exc.strerror or exc}); choose a writable folder",
+                          out) from None
+    setup_logging(out / "tile-out.log", quiet=args.quiet)
+    log.info("tile-out: %d slide(s) from %s into %s (target %.3g µm/px, tile %d, normalize %s)",
+             len(paths), args.source, out, config.mpp, config.tile, config.normalizer or "none")
+    progress = SlideProgress(len(paths), enabled=not args.quiet)
+    results = tile_cohort(paths, out, config, scheduler=args.scheduler, workers=args.workers,
+                          overwrite=args.overwrite, mpp=mpp, on_result=progress)
+    rows = [r.to_row() for r in results]
+    if not args.quiet:
+        print_summary(rows, out)
+    failed = sum(r["status"] == "failed" for r in rows)
+    log.info("done: %d ok, %d skipped, %d failed", sum(r["status"] == "ok" for r in rows),
+             sum(r["status"] == "skipped" for r in rows), failed)
+    return EXIT_SOME_FAILED if failed else EXIT_OK
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

@@ -1,0 +1,112 @@
+"""The demo cohort: an invented two-site scenario written as real pyramidal TIFF files.
+
+Scenario (fictional): a colorectal subtype study pools slides from "site-north", scanned at
+0.25 µm/px ("40x", common practice) on "scanner-A" with a standard H&E, and "site-south",
+scanned at 0.5 µm/px ("20x") on "scanner-B" whose hematoxylin is bluer and eosin stronger. The
+label ("subtype-1"/"subtype-2") is independent of site. One slide carries marker-pen strokes and
+one slide is blank glass. Patient ids are invented.
+"""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from tilewright.demo.synth import RUIFROK_E, RUIFROK_H, random_layout
+
+__all__ = ["DemoSlide", "SITES", "demo_slides", "write_demo_cohort"]
+
+
+def _rotate_towards(v, w, degrees):
+    """Rotate unit vector ``v`` by ``degrees`` in the plane of ``v`` and ``w``."""
+    v = np.asarray(v, float)
+    w = np.asarray(w, float) - np.dot(w, v) * v
+    w /= np.linalg.norm(w)
+    a = np.deg2rad(degrees)
+    return np.cos(a) * v + np.sin(a) * w
+
+
+#: Per-site scanning and staining (all invented).
+SITES = {
+    "site-north": dict(mpp=0.25, objective=40.0, scanner="scanner-A", layout="svs",
+                       stains=np.stack([RUIFROK_H, RUIFROK_E]), concentration=(1.0, 1.0),
+                       background=(238.0, 236.0, 240.0)),
+    "site-south": dict(mpp=0.5, objective=20.0, scanner="scanner-B", layout="ome",
+                       stains=np.stack([_rotate_towards(RUIFROK_H, (0.9, 0.3, 0.1), 12.0),
+                                        _rotate_towards(RUIFROK_E, (0.05, 0.6, 0.8), -10.0)]),
+                       concentration=(1.25, 1.35), background=(232.0, 234.0, 226.0)),
+}
+
+
+@dataclass(frozen=True)
+class DemoSlide:
+    slide_id: str
+    site: str
+    label: str
+    patient_id: str
+    seed: int
+    pens: int = 0
+    blank: bool = False
+
+
+def demo_slides(n_per_site: int = 4) -> list[DemoSlide]:
+    """The slides of the scenario: ``n_per_site`` a site, labels alternating within each site."""
+    out = []
+    k = 0
+    for s, site in enumerate(SITES):
+        for i in range(n_per_site):
+            k += 1
+            out.append(DemoSlide(
+                slide_id=f"{site.split('-')[1][0].upper()}{i + 1:02d}", site=site,
+                label=("subtype-1", "subtype-2")[(i + s) % 2], patient_id=f"P-{1000 + 7 * k}",
+                seed=100 + k, pens=2 if (s == 0 and i == 1) else 0, blank=(s == 1 and i == n_per_site - 1)))
+    return out
+
+
+def write_demo_cohort(out_dir: str | os.PathLike, *, n_per_site: int = 4, size_um=(2400.0, 3000.0),
+                      log=print) -> tuple[Path, Path]:
+    """Write the demo slides and ``metadata.csv``.
+
+    Parameters
+    ----------
+    out_dir : path
+        Folder to create; slides go to ``out_dir/slides/<site>/``.
+    n_per_site : int
+        Slides a site.
+    size_um : (float, float)
+        Physical height and width of each slide.
+
+    Returns
+    -------
+    (slides_dir, metadata_csv)
+    """
+    import pandas as pd
+
+    from tilewright.demo.pyramid import write_pyramid
+
+    out_dir = Path(out_dir)
+    rows = []
+    for d in demo_slides(n_per_site):
+        site = SITES[d.site]
+        folder = out_dir / "slides" / d.site
+        folder.mkdir(parents=True, exist_ok=True)
+        suffix = ".svs" if site["layout"] == "svs" else ".ome.tif"
+        path = folder / f"{d.slide_id}{suffix}"
+        layout = random_layout(*size_um, seed=d.seed, n_islands=0 if d.blank else 2, pens=d.pens,
+                               tumour=not d.blank, stains=site["stains"], concentration=site["concentration"],
+                               background=site["background"])
+        shape = layout.shape_at(site["mpp"])
+        if not path.exists():
+            log(f"  writing {path.relative_to(out_dir)} ({shape[1]} x {shape[0]} px at {site['mpp']} µm/px)")
+            tmp = path.with_name(".tmp-" + path.name)
+            write_pyramid(tmp, layout.renderer(site["mpp"]), shape=shape, mpp=site["mpp"], tile=256,
+                          compression="jpeg", quality=90, layout=site["layout"], objective=site["objective"])
+            os.replace(tmp, path)
+        rows.append(dict(slide_id=d.slide_id, patient_id=d.patient_id, site=d.site, scanner=site["scanner"],
+                         label=d.label, pen_marks=d.pens > 0, blank=d.blank))
+    meta = out_dir / "metadata.csv"
+    pd.DataFrame(rows).to_csv(meta, index=False)
+    return out_dir / "slides", meta

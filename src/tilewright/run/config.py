@@ -1,0 +1,186 @@
+"""The tiling configuration: one dataclass, loadable from and printable as TOML."""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+import os
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from tilewright.errors import ConfigError
+
+__all__ = ["TilingConfig"]
+
+_NORMALIZERS = (None, "macenko", "reinhard")
+_COMPRESSIONS = ("zstd", "lz4", "zlib", "none")
+
+
+@dataclass
+class TilingConfig:
+    """Everything that decides what a tile store contains.
+
+    Parameters
+    ----------
+    mpp : float
+        Target resolution in µm/px (0.5 ≈ "20x", common practice).
+    tile : int
+        Tile side in target pixels.
+    stride : int or None
+        Grid step in target pixels; None means ``tile`` (no overlap).
+    min_tissue : float
+        Minimum tissue fraction of a tile's footprint.
+    normalizer : {None, "macenko", "reinhard"}
+        Stain normalization method.
+    reference : str, dict or None
+        Reference image path, or a fitted normalizer dictionary. None with a normalizer means
+        the cohort's own median target (computed once per output folder).
+    max_tiles : int or None
+        Keep at most this many tiles a slide, sampled reproducibly and spread over the slide.
+    seed : int
+        Seed for tile sampling and the stain estimation sample.
+    mask_mpp : float
+        Resolution of the tissue mask, thumbnail and QC overlay.
+    tolerance : float
+        Relative tolerance to use a pyramid level as is.
+    min_sharpness : float or None
+        Drop tiles whose variance of the Laplacian is lower (blur).
+    exclude_ink, exclude_dark : bool
+        Tissue-mask artifact filters.
+    keep : list of str or None
+        Region classes to keep (requires regions).
+    regions : str or None
+        Region file, or folder with one file per slide id.
+    min_region : float
+        Minimum kept-class fraction of a tile's footprint.
+    compression : {"zstd", "lz4", "zlib", "none"}
+        Lossless compression of stored tiles.
+    shard_tiles : int
+        Tiles a shard file holds.
+    block : int
+        Side of the blocks read from the slide, in target pixels.
+    stain_sample : int
+        Tiles sampled to estimate a slide's own stain once.
+    per_tile_stain : bool
+        Estimate the source stain per tile instead of once per slide.
+    threads : int
+        Reader threads inside one slide.
+    """
+
+    mpp: float = 0.5
+    tile: int = 256
+    stride: int | None = None
+    min_tissue: float = 0.5
+    normalizer: str | None = None
+    reference: str | dict | None = None
+    max_tiles: int | None = None
+    seed: int = 0
+    mask_mpp: float = 8.0
+    tolerance: float = 0.05
+    min_sharpness: float | None = None
+    exclude_ink: bool = True
+    exclude_dark: bool = False
+    keep: list | None = None
+    regions: str | None = None
+    min_region: float = 0.5
+    compression: str = "zstd"
+    shard_tiles: int = 64
+    block: int = 2048
+    stain_sample: int = 64
+    per_tile_stain: bool = False
+    threads: int = 2
+    extra: dict = field(default_factory=dict, repr=False)
+
+    def __post_init__(self):
+        self.validate()
+
+    def validate(self) -> "TilingConfig":
+        """Raise :class:`ConfigError` for any invalid value."""
+        def positive(name, value, kind=float):
+            if not isinstance(value, (int, float)) or isinstance(value, bool) or not math.isfinite(value) or value <= 0:
+                raise ConfigError(f"{name} must be a positive number, got {value!r}")
+            if kind is int and int(value) != value:
+                raise ConfigError(f"{name} must be a whole number, got {value!r}")
+
+        positive("mpp", self.mpp)
+        positive("mask_mpp", self.mask_mpp)
+        positive("tile", self.tile, int)
+        positive("shard_tiles", self.shard_tiles, int)
+        positive("block", self.block, int)
+        positive("threads", self.threads, int)
+        positive("stain_sample", self.stain_sample, int)
+        if self.stride is not None:
+            positive("stride", self.stride, int)
+        if self.max_tiles is not None:
+            positive("max_tiles", self.max_tiles, int)
+        for name in ("min_tissue", "min_region"):
+            v = getattr(self, name)
+            if not isinstance(v, (int, float)) or not 0 <= v <= 1:
+                raise ConfigError(f"{name} must lie between 0 and 1, got {v!r}")
+        if not 0 <= self.tolerance < 1:
+            raise ConfigError(f"tolerance must lie in [0, 1), got {self.tolerance!r}")
+        if isinstance(self.normalizer, str):
+            self.normalizer = self.normalizer.lower()
+            if self.normalizer in ("", "none"):
+                self.normalizer = None
+        if self.normalizer not in _NORMALIZERS:
+            raise ConfigError(f"normalizer must be macenko, reinhard or none, got {self.normalizer!r}")
+        if self.compression not in _COMPRESSIONS:
+            raise ConfigError(f"compression must be one of {', '.join(_COMPRESSIONS)}, got {self.compression!r}")
+        if isinstance(self.keep, str):
+            self.keep = [k.strip() for k in self.keep.split(",") if k.strip()]
+        if self.keep and not self.regions:
+            raise ConfigError("keep= needs regions= (a region file or folder)")
+        if self.reference is not None and not isinstance(self.reference, (str, dict, os.PathLike)):
+            raise ConfigError(f"reference must be an image path or a fitted normalizer dict, got {type(self.reference).__name__}")
+        if isinstance(self.reference, os.PathLike):
+            self.reference = os.fspath(self.reference)
+        return self
+
+    @property
+    def step(self) -> int:
+        """The grid step (stride, or tile when no stride is set)."""
+        return int(self.stride or self.tile)
+
+    def to_dict(self) -> dict:
+        """JSON/TOML-safe dictionary of every field (None values kept)."""
+        d = dataclasses.asdict(self)
+        d.pop("extra")
+        return d
+
+    @classmethod
+    def from_dict(cls, d: dict) -> "TilingConfig":
+        names = {f.name for f in dataclasses.fields(cls)} - {"extra"}
+        unknown = sorted(set(d) - names)
+        if unknown:
+            raise ConfigError(f"unknown configuration keys: {', '.join(unknown)}; known: {', '.join(sorted(names))}")
+        return cls(**d)
+
+    def replace(self, **changes) -> "TilingConfig":
+        return dataclasses.replace(self, **changes)
+
+    @classmethod
+    def from_toml(cls, path: str | os.PathLike) -> "TilingConfig":
+        """Load from a TOML file (keys as the field names; a ``[tiling]`` table is also accepted)."""
+        path = Path(path)
+        try:
+            data = tomllib.loads(path.read_text(encoding="utf-8"))
+        except FileNotFoundError:
+            raise ConfigError("configuration file not found", path) from None
+        except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
+            raise ConfigError(f"not valid TOML ({exc})", path) from None
+        data = data.get("tiling", data)
+        try:
+            return cls.from_dict(data)
+        except ConfigError as exc:
+            raise ConfigError(exc.reason, path) from None
+
+    def to_toml(self) -> str:
+        """The configuration as TOML (fields that are None are written as comments)."""
+        import tomli_w
+
+        d = self.to_dict()
+        body = tomli_w.dumps({k: v for k, v in d.items() if v is not None})
+        unset = "".join(f"# {k} = (unset)\n" for k, v in d.items() if v is None)
+        return "# tilewright tiling configuration\n" + body + unset

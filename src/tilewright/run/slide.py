@@ -1,0 +1,225 @@
+"""``tile_slide``: one slide in, one complete tile store out."""
+
+from __future__ import annotations
+
+import os
+import time
+from dataclasses import asdict, dataclass
+from pathlib import Path
+
+import numpy as np
+
+from tilewright.errors import StainEstimationError, TilewrightError
+from tilewright.run.config import TilingConfig
+from tilewright.store.layout import slide_ids
+from tilewright.store.writer import StoreWriter, remove_partials
+
+__all__ = ["SlideResult", "tile_slide"]
+
+
+@dataclass
+class SlideResult:
+    """What happened to one slide (one manifest row)."""
+
+    slide_id: str
+    source: str
+    status: str  # "ok" | "failed" | "skipped"
+    error: str = ""
+    n_tiles: int = 0
+    mpp_source: float | None = None
+    objective: float | None = None
+    source_level: int | None = None
+    seconds: float = 0.0
+    store: str = ""
+
+    def to_row(self) -> dict:
+        return asdict(self)
+
+
+def _tile_arrays(view, plan, config, bound, writer, progress):
+    """Read planned tiles block by block, normalize, score and append whole shards."""
+    from tilewright.run.blocks import block_order, iter_tile_blocks
+    from tilewright.tissue.sharpness import sharpness
+
+    order, _ = block_order(plan.yx, config.tile, config.block)
+    yx = plan.yx[order]
+    tissue = plan.tissue[order]
+    region = plan.region[order] if getattr(plan, "region", None) is not None else None
+    buf: list = []
+    shard = config.shard_tiles
+
+    def flush(final=False):
+        if not buf:
+            return
+        tiles = np.concatenate([b[0] for b in buf])
+        pos = np.concatenate([b[1] for b in buf])
+        n = len(tiles) if final else (len(tiles) // shard) * shard
+        if n == 0:
+            return
+        sharp = sharpness(tiles[:n])
+        keep = np.ones(n, bool) if config.min_sharpness is None else sharp >= config.min_sharpness
+        p = pos[:n][keep]
+        writer.append(tiles[:n][keep], yx[p], np.rint(yx[p] * view.scale).astype(np.int64), tissue[p],
+                      sharp[keep], None if region is None else region[p])
+        rest_t, rest_p = tiles[n:], pos[n:]
+        buf.clear()
+        if len(rest_t):
+            buf.append((rest_t, rest_p))
+
+    for positions, tiles in iter_tile_blocks(view, yx, config.tile, block=config.block, threads=config.threads):
+        if bound is not None:
+            tiles = bound.transform(tiles)
+        buf.append((tiles, positions))
+        if sum(len(b[0]) for b in buf) >= shard:
+            flush()
+        if progress is not None:
+            progress(len(positions))
+    flush(final=True)
+
+
+def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str | None = None,
+               mpp: float | None = None, target=None, regions=None, overwrite: bool = True,
+               progress=None) -> SlideResult:
+    """Tile one slide into a complete zarr store.
+
+    Open → tissue mask → tile plan → read in large blocks → normalize with one slide-level stain
+    estimate → write whole shards. The store is written under a temporary name and renamed when
+    complete, with its ``complete`` attribute written last; on any error nothing is left behind.
+
+    Parameters
+    ----------
+    path : path
+        Slide file.
+    out : path
+        Store path (``*.zarr``) or a folder, in which ``<slide_id>.zarr`` is written.
+    config : TilingConfig
+    slide_id : str, optional
+        Defaults to the file name without extension(s).
+    mpp : float, optional
+        Level-0 µm/px override for files that lack or misstate it.
+    target : normalizer, optional
+        A fitted stain normalizer (the cohort's target). Default: from ``config.reference``; when
+        that is unset too, the slide's own stain estimate (normalization then standardizes only
+        the stain intensity range).
+    regions : RegionMap, optional
+        Tissue-type regions; tiles are kept where ``config.keep`` classes cover ``min_region``.
+    overwrite : bool
+        Replace an existing store.
+    progress : callable, optional
+        Called with the number of tiles done after each block.
+
+    Returns
+    -------
+    SlideResult
+        Raises on failure (a :class:`TilewrightError` for expected problems).
+    """
+    from tilewright.slide.open import open_wsi
+    from tilewright.tissue.mask import tissue_mask
+    from tilewright.tissue.plan import plan_tiles
+    import tilewright
+
+    config = config or TilingConfig()
+    t0 = time.perf_counter()
+    path = Path(path)
+    slide_id = slide_id or slide_ids([path])[0]
+    out = Path(out)
+    final = out if out.suffix == ".zarr" else out / f"{slide_id}.zarr"
+    remove_partials(final)
+    with open_wsi(path, mpp=mpp) as slide:
+        view = slide.at_mpp(config.mpp, tolerance=config.tolerance)
+        mask = tissue_mask(slide, mpp=config.mask_mpp, exclude_ink=config.exclude_ink,
+                           exclude_dark=config.exclude_dark)
+        if config.keep:
+            regions = _regions_for(regions, config, slide_id, slide.mpp, path)
+        plan = plan_tiles(view, mask, tile=config.tile, stride=config.stride, min_tissue=config.min_tissue,
+                          regions=regions if config.keep else None, keep=config.keep,
+                          min_region=config.min_region, max_tiles=config.max_tiles, seed=config.seed)
+        bound = None
+        if config.normalizer:
+            bound = _bind_normalizer(view, plan, config, target, path)
+        thumbnail = slide.thumbnail(config.mask_mpp)
+        attrs = {
+            "slide_id": slide_id,
+            "source": {"path": str(path.resolve()), "size": os.path.getsize(path),
+                       "digest": _digest(path), "backend": slide.backend},
+            "mpp": float(view.mpp), "mpp_source": float(slide.mpp), "objective": slide.objective,
+            "source_level": int(view.source_level), "scale": float(view.scale),
+            "dimensions": list(slide.dimensions), "shape": list(view.shape),
+            "tile": int(config.tile), "stride": int(config.step), "mask_mpp": float(config.mask_mpp),
+            "tissue_fraction": float(np.asarray(mask.array).mean()) if np.asarray(mask.array).size else 0.0,
+            "normalizer": None if bound is None else bound.to_dict(),
+            "regions": None if (regions is None or not config.keep) else _region_info(regions, config),
+            "order": "blocks of config.block target px, row-major; row-major inside a block",
+            "config": _jsonable(config.to_dict()),
+            "library_version": tilewright.__version__,
+        }
+        with StoreWriter(final, len(plan), config.tile, shard_tiles=config.shard_tiles,
+                         compression=config.compression, with_region=attrs["regions"] is not None) as writer:
+            _tile_arrays(view, plan, config, bound, writer, progress)
+            mask_arr = np.asarray(mask.array, dtype=bool)
+            writer.commit(attrs, thumbnail[: mask_arr.shape[0], : mask_arr.shape[1]], mask_arr,
+                          overwrite=overwrite)
+            n = writer.n
+        return SlideResult(slide_id=slide_id, source=str(path), status="ok", n_tiles=int(n),
+                           mpp_source=float(slide.mpp), objective=slide.objective,
+                           source_level=int(view.source_level), seconds=round(time.perf_counter() - t0, 3),
+                           store=str(final))
+
+
+def _bind_normalizer(view, plan, config, target, path):
+    """Fit the target (if needed) and bind the slide's own stain estimate from a tile sample."""
+    from tilewright.run.reference import make_target, sample_tiles
+
+    sample = sample_tiles(view, plan.yx, config.tile, config.stain_sample, config.seed)
+    if len(sample) == 0:
+        return None  # nothing will be stored; no estimate needed
+    if target is None:
+        target = (make_target(config.normalizer, config.reference) if config.reference is not None
+                  else make_target(config.normalizer, sample))
+    if config.per_tile_stain:
+        return target
+    try:
+        return target.fit_source(sample)
+    except StainEstimationError as exc:
+        raise StainEstimationError(f"cannot estimate this slide's stain from {len(sample)} tissue tiles "
+                                   f"({exc.reason}); lower --min-tissue or run without --normalize", path) from None
+
+
+def _regions_for(regions, config, slide_id, level0_mpp, path):
+    """The slide's RegionMap: given, or loaded from ``config.regions`` (a file or a folder)."""
+    from tilewright.errors import RegionError
+
+    if regions is None:
+        from tilewright.regions.load import load_regions
+
+        regions = load_regions(config.regions, slide_id, level0_mpp)
+        if regions is None:
+            raise RegionError(f"no region file for slide {slide_id!r} in {config.regions}; add "
+                              f"{slide_id}.geojson there or run without --keep", path)
+    return regions.with_mpp(level0_mpp) if hasattr(regions, "with_mpp") else regions
+
+
+def _digest(path):
+    from tilewright.store.provenance import source_digest
+
+    return source_digest(path)
+
+
+def _region_info(regions, config):
+    info = regions.to_dict() if hasattr(regions, "to_dict") else {"kind": type(regions).__name__}
+    info.update(keep=list(config.keep), min_region=float(config.min_region))
+    return _jsonable(info)
+
+
+def _jsonable(obj):
+    if isinstance(obj, dict):
+        return {str(k): _jsonable(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_jsonable(v) for v in obj]
+    if isinstance(obj, np.generic):
+        return obj.item()
+    if isinstance(obj, np.ndarray):
+        return obj.tolist()
+    if isinstance(obj, os.PathLike):
+        return os.fspath(obj)
+    return obj

@@ -1,0 +1,82 @@
+"""Turning a ``tile-out`` SOURCE (a slide, a folder, or a list file) into slide paths."""
+
+from __future__ import annotations
+
+import csv
+import os
+from pathlib import Path
+
+from tilewright.errors import ConfigError
+from tilewright.store.layout import SLIDE_SUFFIXES
+
+__all__ = ["find_slides", "read_mpp_table", "is_slide_name"]
+
+_LIST_SUFFIXES = (".txt", ".csv", ".lst", ".list", ".tsv")
+
+
+def is_slide_name(path: str | os.PathLike) -> bool:
+    """True when the file name ends with a suffix one of the backends reads."""
+    return Path(path).name.lower().endswith(SLIDE_SUFFIXES)
+
+
+def find_slides(source: str | os.PathLike) -> list[Path]:
+    """Slide paths from a slide file, a folder (recursive), or a text/CSV list of paths.
+
+    A list file holds one path a line (``#`` starts a comment), or a CSV with a ``path`` column
+    (``source`` and ``slide`` also accepted); relative paths are relative to the list file.
+    Folder searches skip hidden folders and ``*.zarr`` outputs and return paths sorted.
+    """
+    source = Path(source)
+    if not source.exists():
+        raise ConfigError("SOURCE does not exist; give a slide file, a folder of slides or a list file", source)
+    if source.is_dir():
+        found = []
+        for root, dirs, files in os.walk(source):
+            dirs[:] = sorted(d for d in dirs if not d.startswith(".") and not d.endswith(".zarr"))
+            found.extend(Path(root) / f for f in files if is_slide_name(f) and not f.startswith("."))
+        return sorted(found)
+    if source.suffix.lower() in _LIST_SUFFIXES and not is_slide_name(source):
+        return _read_list(source)
+    return [source]
+
+
+def _read_list(path: Path) -> list[Path]:
+    text = path.read_text(encoding="utf-8-sig")
+    lines = [ln.strip() for ln in text.splitlines() if ln.strip() and not ln.strip().startswith("#")]
+    if not lines:
+        raise ConfigError("the list file names no slides", path)
+    header = [h.strip().lower() for h in next(csv.reader([lines[0]]))]
+    column = next((c for c in ("path", "source", "slide") if c in header), None)
+    if column is not None:
+        rows = list(csv.DictReader(lines, fieldnames=header))[1:]
+        entries = [r[column].strip() for r in rows if r.get(column)]
+    else:
+        entries = lines
+    return [p if p.is_absolute() else (path.parent / p) for p in map(Path, entries)]
+
+
+def read_mpp_table(path: str | os.PathLike) -> dict[str, float]:
+    """Per-slide level-0 µm/px overrides from a CSV with columns ``slide_id`` (or ``path``) and ``mpp``."""
+    import pandas as pd
+
+    path = Path(path)
+    try:
+        df = pd.read_csv(path)
+    except FileNotFoundError:
+        raise ConfigError("mpp table not found", path) from None
+    except Exception as exc:
+        raise ConfigError(f"cannot read the mpp table as CSV ({exc})", path) from None
+    cols = {c.lower().strip(): c for c in df.columns}
+    key = cols.get("slide_id") or cols.get("path") or cols.get("source")
+    if key is None or "mpp" not in cols:
+        raise ConfigError("the mpp table needs a 'slide_id' (or 'path') column and an 'mpp' column", path)
+    out = {}
+    for k, v in zip(df[key], df[cols["mpp"]]):
+        try:
+            v = float(v)
+        except (TypeError, ValueError):
+            raise ConfigError(f"mpp for {k!r} is not a number: {v!r}", path) from None
+        if not (0.05 <= v <= 20):
+            raise ConfigError(f"mpp for {k!r} is implausible ({v}); expected 0.05-20 µm/px", path)
+        out[str(k)] = v
+    return out

@@ -1,0 +1,53 @@
+"""The cohort's default stain target: the median of its slides' own stain estimates."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from tilewright.errors import TilewrightError
+from tilewright.run.config import TilingConfig
+
+__all__ = ["cohort_target", "slide_estimate"]
+
+#: Slides sampled (evenly over the sorted list) to build the cohort target.
+MAX_SLIDES = 24
+
+
+def slide_estimate(path: str, config: dict, mpp: float | None) -> dict | None:
+    """A normalizer fitted to one slide's sample of tissue tiles (None when impossible)."""
+    from tilewright.run.reference import sample_tiles
+    from tilewright.slide.open import open_wsi
+    from tilewright.stain.registry import make_normalizer
+    from tilewright.tissue.mask import tissue_mask
+    from tilewright.tissue.plan import plan_tiles
+
+    cfg = TilingConfig.from_dict(config)
+    try:
+        with open_wsi(path, mpp=mpp) as slide:
+            view = slide.at_mpp(cfg.mpp, tolerance=cfg.tolerance)
+            mask = tissue_mask(slide, mpp=cfg.mask_mpp, exclude_ink=cfg.exclude_ink, exclude_dark=cfg.exclude_dark)
+            plan = plan_tiles(view, mask, tile=cfg.tile, stride=cfg.stride, min_tissue=cfg.min_tissue,
+                              max_tiles=cfg.stain_sample, seed=cfg.seed)
+            sample = sample_tiles(view, plan.yx, cfg.tile, cfg.stain_sample, cfg.seed)
+        if len(sample) == 0:
+            return None
+        return make_normalizer(cfg.normalizer).fit(sample).to_dict()
+    except TilewrightError:
+        return None  # the slide's own run will report why
+
+
+def cohort_target(paths, config: TilingConfig, mpps, compute) -> dict | None:
+    """Median target over up to :data:`MAX_SLIDES` slides, or None if no slide could be estimated.
+
+    ``compute(fn, args_list)`` runs the estimates (in this process or on the cluster).
+    """
+    from tilewright.stain.registry import normalizer_from_dict
+
+    order = np.argsort(paths)
+    if len(order) > MAX_SLIDES:
+        order = order[np.linspace(0, len(order) - 1, MAX_SLIDES).round().astype(int)]
+    args = [(paths[i], config.to_dict(), mpps[i]) for i in order]
+    fitted = [normalizer_from_dict(d) for d in compute(slide_estimate, args) if d is not None]
+    if not fitted:
+        return None
+    return type(fitted[0]).from_median(fitted).to_dict()

@@ -1,0 +1,124 @@
+"""A cohort folder: one store a slide, the manifest, and lazy access to every tile."""
+
+from __future__ import annotations
+
+import os
+from pathlib import Path
+
+import numpy as np
+
+from tilewright.errors import StoreError
+
+__all__ = ["MANIFEST_COLUMNS", "write_manifest", "read_manifest", "Cohort", "open_cohort"]
+
+MANIFEST_COLUMNS = ["slide_id", "source", "status", "error", "n_tiles", "mpp_source", "objective",
+                    "source_level", "seconds"]
+
+
+def write_manifest(out_dir: str | os.PathLike, rows: list[dict]) -> "object":
+    """Write ``manifest.csv`` and ``manifest.parquet`` atomically (temp file + rename)."""
+    import pandas as pd
+
+    out_dir = Path(out_dir)
+    df = pd.DataFrame(rows)
+    for col in MANIFEST_COLUMNS:
+        if col not in df.columns:
+            df[col] = None
+    df = df[MANIFEST_COLUMNS].copy()
+    df["error"] = df["error"].fillna("").astype(str)
+    df["n_tiles"] = df["n_tiles"].fillna(0).astype("int64")
+    for col in ("mpp_source", "objective", "seconds"):
+        df[col] = pd.to_numeric(df[col], errors="coerce").astype("float64")
+    df["source_level"] = pd.to_numeric(df["source_level"], errors="coerce").astype("Int64")
+    df = df.sort_values("slide_id", kind="stable").reset_index(drop=True)
+    tmp_csv = out_dir / ".manifest.csv.tmp"
+    tmp_pq = out_dir / ".manifest.parquet.tmp"
+    df.to_csv(tmp_csv, index=False)
+    df.to_parquet(tmp_pq, index=False)
+    os.replace(tmp_csv, out_dir / "manifest.csv")
+    os.replace(tmp_pq, out_dir / "manifest.parquet")
+    return df
+
+
+def read_manifest(out_dir: str | os.PathLike):
+    """The manifest of a cohort folder as a DataFrame (Parquet preferred, CSV as fallback)."""
+    import pandas as pd
+
+    out_dir = Path(out_dir)
+    pq = out_dir / "manifest.parquet"
+    csv = out_dir / "manifest.csv"
+    if pq.exists():
+        return pd.read_parquet(pq)
+    if csv.exists():
+        return pd.read_csv(csv, keep_default_na=False, na_values=[""])
+    raise StoreError("no manifest.csv or manifest.parquet; is this a tile-out output folder?", out_dir)
+
+
+class Cohort:
+    """Every complete store of a cohort folder, read lazily.
+
+    Attributes
+    ----------
+    path : Path
+    manifest : DataFrame
+        One row a slide (see :data:`MANIFEST_COLUMNS`).
+    stores : dict[str, TileStore]
+        Complete stores of the slides whose status is ``ok``, by slide id.
+    """
+
+    def __init__(self, path: str | os.PathLike):
+        from tilewright.store.layout import store_path
+        from tilewright.store.reader import TileStore, is_complete
+
+        self.path = Path(path)
+        self.manifest = read_manifest(self.path)
+        self.stores = {}
+        for sid, status in zip(self.manifest["slide_id"], self.manifest["status"]):
+            p = store_path(self.path, str(sid))
+            if status == "ok" and is_complete(p):
+                self.stores[str(sid)] = TileStore(p)
+
+    @property
+    def slide_ids(self) -> list[str]:
+        return list(self.stores)
+
+    def __len__(self) -> int:
+        return sum(len(s) for s in self.stores.values())
+
+    @property
+    def tiles(self):
+        """A dask array (N_total, T, T, 3) over every slide's tiles, in :attr:`index` order."""
+        import dask.array as da
+
+        parts = [s.to_dask() for s in self.stores.values() if len(s)]
+        if not parts:
+            raise StoreError("the cohort has no tiles", self.path)
+        sizes = {p.shape[1:] for p in parts}
+        if len(sizes) > 1:
+            raise StoreError(f"stores have different tile shapes {sorted(sizes)}; tile them with one config",
+                             self.path)
+        return da.concatenate(parts, axis=0)
+
+    @property
+    def index(self):
+        """DataFrame with one row a tile: slide, tile (index in its store), y, x, tissue."""
+        import pandas as pd
+
+        frames = []
+        for sid, s in self.stores.items():
+            n = len(s)
+            frames.append(pd.DataFrame({"slide": sid, "tile": np.arange(n, dtype=np.int64),
+                                        "y": s.yx[:, 0] if n else np.zeros(0, np.int64),
+                                        "x": s.yx[:, 1] if n else np.zeros(0, np.int64),
+                                        "tissue": s.tissue}))
+        if not frames:
+            return pd.DataFrame(columns=["slide", "tile", "y", "x", "tissue"])
+        return pd.concat(frames, ignore_index=True)
+
+    def __repr__(self) -> str:
+        return f"Cohort({str(self.path)!r}, slides={len(self.stores)}, tiles={len(self)})"
+
+
+def open_cohort(out_dir: str | os.PathLike) -> Cohort:
+    """Open a ``tile-out`` output folder."""
+    return Cohort(out_dir)

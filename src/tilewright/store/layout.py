@@ -1,0 +1,105 @@
+"""On-disk layout of a tile store: names, version, and slide ids.
+
+A store is one zarr v3 group a slide, ``<slide_id>.zarr``::
+
+    tiles       (N, T, T, 3) uint8   one tile a chunk, ``shard_tiles`` tiles a shard file
+    yx          (N, 2) int64         top-left corner of each tile, target pixels (at ``mpp``)
+    yx_level0   (N, 2) int64         the same corner in level-0 pixels of the source
+    tissue      (N,) float32         tissue fraction of each tile footprint
+    sharpness   (N,) float32         variance of the Laplacian of each stored tile
+    region      (N,) float32         kept-class fraction (only when regions were used)
+    thumbnail   (h, w, 3) uint8      raw slide colour at ``mask_mpp``
+    mask        (h, w) bool          tissue mask at ``mask_mpp``
+
+Group attributes carry the provenance (see :data:`REQUIRED_ATTRS`); ``complete`` is written last.
+Any zarr v3 reader can open a store; tilewright is not needed to read it.
+"""
+
+from __future__ import annotations
+
+import os
+import re
+from collections import Counter
+from pathlib import Path
+
+__all__ = [
+    "FORMAT_NAME",
+    "FORMAT_VERSION",
+    "REQUIRED_ATTRS",
+    "SLIDE_SUFFIXES",
+    "slide_stem",
+    "slide_ids",
+    "store_path",
+]
+
+FORMAT_NAME = "tilewright.tiles"
+FORMAT_VERSION = 1
+
+#: Attributes every complete store carries.
+REQUIRED_ATTRS = (
+    "format", "format_version", "complete", "slide_id", "source", "mpp", "mpp_source",
+    "objective", "source_level", "scale", "tile", "stride", "mask_mpp", "n_tiles", "normalizer",
+    "config", "library_version", "created",
+)
+
+#: File suffixes searched for in a folder (lower case; compound suffixes first).
+SLIDE_SUFFIXES = (
+    ".ome.tiff", ".ome.tif", ".tiff", ".tif", ".svs", ".ndpi", ".scn", ".mrxs", ".vms", ".vmu",
+    ".bif", ".svslide", ".qptiff", ".dcm",
+)
+
+_COMPOUND = (".ome.tiff", ".ome.tif", ".ome.zarr")
+
+
+def slide_stem(path: str | os.PathLike) -> str:
+    """File name without its extension(s): ``b.ome.tif`` → ``b``, ``a.svs`` → ``a``."""
+    name = Path(path).name
+    lower = name.lower()
+    for suffix in _COMPOUND:
+        if lower.endswith(suffix):
+            return name[: -len(suffix)]
+    stem = Path(name).stem
+    return stem or name
+
+
+def _safe(text: str) -> str:
+    """A file-system safe id (keeps unicode letters; replaces separators and control chars)."""
+    text = re.sub(r"[\\/:*?\"<>|\x00-\x1f]", "_", text).strip()
+    return text or "slide"
+
+
+def slide_ids(paths) -> list[str]:
+    """Unique slide ids for a list of paths.
+
+    The id is the file name without extension(s). When several files share one, each gets its
+    parent folder's name as a prefix (``sub_b``); if that still collides, more parent folders are
+    added, then a counter.
+    """
+    paths = [Path(p) for p in paths]
+    ids = [_safe(slide_stem(p)) for p in paths]
+    counts = Counter(ids)
+    out = []
+    for p, sid in zip(paths, ids):
+        if counts[sid] > 1:
+            parts = [_safe(x) for x in p.parent.parts[-1:]]
+            sid = "_".join(parts + [sid]) if parts else sid
+        out.append(sid)
+    depth = 2
+    while len(set(out)) < len(out) and depth < 6:
+        counts = Counter(out)
+        out = [
+            "_".join([_safe(x) for x in p.parent.parts[-depth:]] + [_safe(slide_stem(p))]) if counts[o] > 1 else o
+            for p, o in zip(paths, out)
+        ]
+        depth += 1
+    seen: Counter = Counter()
+    final = []
+    for o in out:
+        seen[o] += 1
+        final.append(o if seen[o] == 1 else f"{o}_{seen[o]}")
+    return final
+
+
+def store_path(out_dir: str | os.PathLike, slide_id: str) -> Path:
+    """Path of a slide's store inside a cohort folder."""
+    return Path(out_dir) / f"{slide_id}.zarr"

@@ -1,0 +1,140 @@
+"""Reading a tile store: random access to tiles, coordinates and provenance, lazily."""
+
+from __future__ import annotations
+
+import os
+from pathlib import Path
+
+import numpy as np
+
+from tilewright.errors import IncompleteStoreError, StoreError
+from tilewright.store.layout import FORMAT_NAME
+
+__all__ = ["TileStore", "open_store", "is_complete"]
+
+
+def is_complete(path: str | os.PathLike) -> bool:
+    """True when ``path`` is a tile store whose ``complete`` attribute is set."""
+    import zarr
+
+    path = Path(path)
+    if not (path / "zarr.json").exists():
+        return False
+    try:
+        attrs = zarr.open_group(str(path), mode="r").attrs
+        return bool(attrs.get("complete")) and attrs.get("format") == FORMAT_NAME
+    except Exception:  # unreadable metadata means "not complete", never a crash
+        return False
+
+
+class TileStore:
+    """One slide's tiles, read lazily from a zarr v3 group.
+
+    ``len(store)`` tiles; ``store[i]`` is a (T, T, 3) uint8 tile (slices give (k, T, T, 3));
+    ``.tiles`` is the zarr array; ``.yx``, ``.yx_level0``, ``.tissue``, ``.sharpness`` are small
+    ndarrays; ``.attrs`` the provenance dictionary. Picklable (re-opens from its path), so it
+    can be handed to dask or DataLoader workers.
+    """
+
+    def __init__(self, path: str | os.PathLike):
+        import zarr
+
+        self.path = Path(path)
+        if not self.path.exists():
+            raise StoreError("no such tile store; run tile-out first", self.path)
+        try:
+            self._group = zarr.open_group(str(self.path), mode="r")
+            attrs = dict(self._group.attrs)
+        except Exception as exc:
+            raise StoreError(f"not a readable zarr v3 tile store ({exc})", self.path) from exc
+        if attrs.get("format") != FORMAT_NAME:
+            raise StoreError(f"not a tilewright tile store (format {attrs.get('format')!r})", self.path)
+        if not attrs.get("complete"):
+            raise IncompleteStoreError("the store was never completed (an interrupted write); "
+                                       "re-run tile-out to rebuild it", self.path)
+        self.attrs = attrs
+        self.tiles = self._group["tiles"]
+        self._cache: dict[str, np.ndarray] = {}
+
+    def _small(self, name: str) -> np.ndarray:
+        if name not in self._cache:
+            self._cache[name] = self._group[name][...]
+        return self._cache[name]
+
+    @property
+    def slide_id(self) -> str:
+        return self.attrs["slide_id"]
+
+    @property
+    def yx(self) -> np.ndarray:
+        return self._small("yx")
+
+    @property
+    def yx_level0(self) -> np.ndarray:
+        return self._small("yx_level0")
+
+    @property
+    def tissue(self) -> np.ndarray:
+        return self._small("tissue")
+
+    @property
+    def sharpness(self) -> np.ndarray:
+        return self._small("sharpness")
+
+    @property
+    def region(self) -> np.ndarray | None:
+        return self._small("region") if "region" in self._group else None
+
+    @property
+    def thumbnail(self) -> np.ndarray:
+        return self._small("thumbnail")
+
+    @property
+    def mask(self) -> np.ndarray:
+        return self._small("mask")
+
+    @property
+    def tile_size(self) -> int:
+        return int(self.tiles.shape[1])
+
+    def __len__(self) -> int:
+        return int(self.tiles.shape[0])
+
+    def __getitem__(self, index):
+        if isinstance(index, (int, np.integer)):
+            n = len(self)
+            if not -n <= index < n:
+                raise IndexError(f"tile {index} out of range for a store of {n} tiles")
+            return self.tiles[int(index) % n]
+        return self.tiles[index]
+
+    def to_dask(self, chunk: int | None = None):
+        """The tiles as a dask array (chunks of ``chunk`` tiles, default one shard)."""
+        import dask.array as da
+
+        shards = self.tiles.shards or self.tiles.chunks
+        k = int(chunk or shards[0])
+        return da.from_zarr(self.tiles, chunks=(k,) + tuple(self.tiles.shape[1:]))
+
+    def __getstate__(self):
+        return {"path": str(self.path)}
+
+    def __setstate__(self, state):
+        self.__init__(state["path"])
+
+    def __repr__(self) -> str:
+        return (f"TileStore({str(self.path)!r}, tiles={len(self)}, tile={self.tile_size}, "
+                f"mpp={self.attrs.get('mpp')})")
+
+
+def open_store(path: str | os.PathLike) -> TileStore:
+    """Open a complete tile store.
+
+    Raises
+    ------
+    StoreError
+        The path is not a tilewright store.
+    IncompleteStoreError
+        The store was never completed.
+    """
+    return TileStore(path)

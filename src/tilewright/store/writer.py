@@ -1,0 +1,164 @@
+"""Writing a tile store atomically: a temporary folder, renamed into place when complete.
+
+Nothing that is not finished ever carries the final name, and the ``complete`` attribute is the
+last thing written, so a reader (or a resumed run) can never mistake a partial store for a
+finished one.
+"""
+
+from __future__ import annotations
+
+import os
+import shutil
+import uuid
+from datetime import datetime, timezone
+from pathlib import Path
+
+import numpy as np
+
+from tilewright.errors import StoreError
+from tilewright.store.layout import FORMAT_NAME, FORMAT_VERSION
+
+__all__ = ["StoreWriter", "remove_partials", "compressor"]
+
+_PARTIAL = ".partial-"
+
+
+def compressor(name: str):
+    """zarr v3 bytes-to-bytes codec for a compression name ("zstd", "lz4", "zlib", "none")."""
+    from zarr.codecs import BloscCodec, GzipCodec
+
+    name = (name or "none").lower()
+    if name == "zstd":
+        return BloscCodec(cname="zstd", clevel=3, shuffle="noshuffle")
+    if name == "lz4":
+        return BloscCodec(cname="lz4", clevel=5, shuffle="noshuffle")
+    if name == "zlib":
+        return GzipCodec(level=5)
+    if name == "none":
+        return None
+    raise StoreError(f"unknown compression {name!r}; use zstd, lz4, zlib or none")
+
+
+def remove_partials(final: str | os.PathLike) -> None:
+    """Delete temporary folders left by interrupted writes of ``final``."""
+    final = Path(final)
+    if not final.parent.exists():
+        return
+    for p in final.parent.glob(final.name + _PARTIAL + "*"):
+        shutil.rmtree(p, ignore_errors=True)
+
+
+class StoreWriter:
+    """Create one slide's store under a temporary name; :meth:`commit` renames it into place.
+
+    Parameters
+    ----------
+    final : path
+        Where the complete store will live (``<out>/<slide_id>.zarr``).
+    capacity : int
+        Upper bound on the number of tiles (the plan's length); trimmed at commit.
+    tile : int
+        Tile side in pixels.
+    shard_tiles : int
+        Tiles a shard file holds.
+    compression : str
+        See :func:`compressor`.
+    with_region : bool
+        Whether to keep a per-tile ``region`` array.
+    """
+
+    def __init__(self, final, capacity: int, tile: int, *, shard_tiles: int = 64,
+                 compression: str = "zstd", with_region: bool = False):
+        import zarr
+
+        self.final = Path(final)
+        self.tmp = self.final.with_name(self.final.name + _PARTIAL + uuid.uuid4().hex[:8])
+        self.tile = int(tile)
+        self.n = 0
+        cap = max(int(capacity), 1)
+        try:
+            self.final.parent.mkdir(parents=True, exist_ok=True)
+            self.group = zarr.open_group(str(self.tmp), mode="w", zarr_format=3)
+            shard = max(1, min(int(shard_tiles), cap))
+            self.tiles = self.group.create_array(
+                "tiles", shape=(cap, tile, tile, 3), chunks=(1, tile, tile, 3),
+                shards=(shard, tile, tile, 3), dtype="uint8", compressors=compressor(compression),
+                fill_value=255, dimension_names=("tile", "y", "x", "rgb"))
+        except OSError as exc:
+            self.abort()
+            raise StoreError(f"cannot create the store ({exc.strerror or exc}); check that the output "
+                             "folder is writable and has free space", self.final) from exc
+        self._meta = {"yx": [], "yx_level0": [], "tissue": [], "sharpness": [], "region": []}
+        self.with_region = with_region
+
+    def append(self, tiles: np.ndarray, yx, yx_level0, tissue, sharpness, region=None) -> None:
+        """Append a batch of tiles (best a whole shard) and their per-tile values."""
+        k = len(tiles)
+        if k == 0:
+            return
+        if self.n + k > self.tiles.shape[0]:
+            raise StoreError(f"more tiles than planned ({self.n + k} > {self.tiles.shape[0]})", self.final)
+        try:
+            self.tiles[self.n:self.n + k] = tiles
+        except OSError as exc:
+            raise StoreError(f"writing tiles failed ({exc.strerror or exc}); check free space", self.final) from exc
+        self._meta["yx"].append(np.asarray(yx, dtype=np.int64).reshape(k, 2))
+        self._meta["yx_level0"].append(np.asarray(yx_level0, dtype=np.int64).reshape(k, 2))
+        self._meta["tissue"].append(np.asarray(tissue, dtype=np.float32).reshape(k))
+        self._meta["sharpness"].append(np.asarray(sharpness, dtype=np.float32).reshape(k))
+        if self.with_region:
+            self._meta["region"].append(np.asarray(region, dtype=np.float32).reshape(k))
+        self.n += k
+
+    def _small(self, name, data, **kw) -> None:
+        data = np.asarray(data)
+        arr = self.group.create_array(name, shape=data.shape, dtype=data.dtype,
+                                      chunks=data.shape if data.size else None, **kw)
+        if data.size:
+            arr[...] = data
+
+    def commit(self, attrs: dict, thumbnail: np.ndarray, mask: np.ndarray, *, overwrite: bool = True) -> Path:
+        """Write coordinates and pictures, mark complete, and rename into place."""
+        try:
+            if self.n < self.tiles.shape[0]:
+                self.tiles.resize((self.n, self.tile, self.tile, 3))
+            for name, width in (("yx", 2), ("yx_level0", 2)):
+                parts = self._meta[name]
+                self._small(name, np.concatenate(parts) if parts else np.zeros((0, width), np.int64))
+            for name in ("tissue", "sharpness") + (("region",) if self.with_region else ()):
+                parts = self._meta[name]
+                self._small(name, np.concatenate(parts) if parts else np.zeros((0,), np.float32))
+            self._small("thumbnail", np.ascontiguousarray(thumbnail, dtype=np.uint8))
+            self._small("mask", np.ascontiguousarray(mask, dtype=bool))
+            full = dict(attrs)
+            full.update(format=FORMAT_NAME, format_version=FORMAT_VERSION, n_tiles=int(self.n),
+                        created=datetime.now(timezone.utc).isoformat(timespec="seconds"))
+            full["complete"] = False
+            self.group.attrs.update(full)
+            self.group.attrs.update({"complete": True})  # the last thing written
+            if self.final.exists():
+                if not overwrite:
+                    raise StoreError("a store already exists; pass overwrite to replace it", self.final)
+                old = self.final.with_name(self.final.name + _PARTIAL + "old-" + uuid.uuid4().hex[:8])
+                os.replace(self.final, old)
+                os.replace(self.tmp, self.final)
+                shutil.rmtree(old, ignore_errors=True)
+            else:
+                os.replace(self.tmp, self.final)
+        except OSError as exc:
+            self.abort()
+            raise StoreError(f"finishing the store failed ({exc.strerror or exc}); check free space "
+                             "and permissions", self.final) from exc
+        return self.final
+
+    def abort(self) -> None:
+        """Remove the temporary folder (used on any failure)."""
+        shutil.rmtree(self.tmp, ignore_errors=True)
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, exc_type, exc, tb):
+        if exc_type is not None:
+            self.abort()
+        return False
