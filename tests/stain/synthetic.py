@@ -41,3 +41,25 @@ def synthetic_tissue(rng, stains, *, shape=(128, 128), scale=(1.0, 1.0), backgro
     conc[kind > 1.0 - background] = 0.0  # glass
     return render(unit(stains), conc.reshape(h, w, 2))
 
+
+
+# Two invented sites: "site-north" stains close to Ruifrok & Johnston; "site-south" has a bluer
+# hematoxylin, a more orange eosin and different staining intensities.
+NORTH_STAINS = unit(np.stack([RJ_H, RJ_E]))
+SOUTH_STAINS = unit(np.stack([[0.55, 0.75, 0.38], [0.02, 0.90, 0.30]]))
+NORTH_SCALE = (1.0, 1.0)
+SOUTH_SCALE = (0.6, 1.5)
+
+
+def site_image(seed, site, shape=(128, 128)):
+    """Synthetic tissue of one invented site (ground truth: its stains and scales above)."""
+    stains, scale = {"north": (NORTH_STAINS, NORTH_SCALE), "south": (SOUTH_STAINS, SOUTH_SCALE)}[site]
+    return synthetic_tissue(np.random.default_rng(seed), stains, shape=shape, scale=scale)
+
+
+def mean_lab(rgb, mask=None):
+    """Mean CIELAB colour of the masked pixels (reference: skimage.color.rgb2lab)."""
+    from skimage.color import rgb2lab
+
+    lab = rgb2lab(rgb)
+    return lab[mask].mean(axis=0) if mask is not None else lab.reshape(-1, 3).mean(axis=0)

@@ -27,7 +27,7 @@ FORMAT_VERSION = 1
 
 
 def as_float_list(values, shape, key):
-    """Validate a JSON list against ``shape`` and return a float32 array (ConfigError if bad)."""
+    """Validate a JSON list against ``shape`` and return a float64 array (ConfigError if bad)."""
     try:
         arr = np.asarray(values, dtype=np.float64)
     except (TypeError, ValueError):
@@ -37,7 +37,7 @@ def as_float_list(values, shape, key):
             f"normalizer dictionary: {key!r} must be finite numbers of shape {shape}, "
             f"got {arr.shape}"
         )
-    return arr.astype(np.float32)
+    return arr
 
 
 class StainNormalizer:
