@@ -137,3 +137,15 @@ def test_errors():
         MacenkoNormalizer.from_median([])
     with pytest.raises(ValueError):
         MacenkoNormalizer(alpha=70)
+
+
+def test_strided_input_and_in_place_output():
+    norm = MacenkoNormalizer().fit(site_image(90, "north")).fit_source(site_image(91, "south"))
+    img = site_image(92, "south", (64, 128))
+    view = img[:, ::2]  # non-contiguous input
+    expected = norm.transform(np.ascontiguousarray(view))
+    np.testing.assert_array_equal(norm.transform(view), expected)  # constructed above
+    buf = img.copy()
+    result = norm.transform(buf, out=buf)
+    assert result is buf
+    np.testing.assert_array_equal(buf, norm.transform(img))

@@ -25,7 +25,7 @@ __all__ = ["DEFAULT_BETA", "MAX_STAT_PIXELS", "tissue_od", "tissue_mask"]
 #: OD threshold of Macenko et al. (2009).
 DEFAULT_BETA = 0.15
 #: Above this many pixels, statistics use an evenly strided subset (deterministic).
-MAX_STAT_PIXELS = 4_000_000
+MAX_STAT_PIXELS = 1_000_000
 
 
 def _od_norm_sq(rgb_flat: np.ndarray) -> np.ndarray:
