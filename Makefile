@@ -17,7 +17,6 @@ $(STAMP): $(PY) pyproject.toml
 	@w=$$(ls /opt/wheels/torch-*+cpu-cp311-*.whl 2>/dev/null | head -n 1); \
 	  if [ -n "$$w" ]; then $(PY) -m pip install --quiet "$$w"; \
 	  else echo "torch CPU wheel not found: the optional DataLoader tests will be skipped"; fi
-	$(PY) -m ipykernel install --user --name tilewright-venv >/dev/null 2>&1 || true
 	touch $(STAMP)
 
 install: $(STAMP)
