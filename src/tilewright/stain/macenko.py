@@ -1,0 +1,191 @@
+"""Macenko stain normalization for H&E images.
+
+References
+----------
+Macenko M, Niethammer M, Marron JS, Borland D, Woosley JT, Guan X, Schmitt C, Thomas NE (2009).
+A method for normalizing histology slides for quantitative analysis. IEEE International
+Symposium on Biomedical Imaging (ISBI), 1107-1110.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..errors import ConfigError
+from .estimate import StainProfile, estimate_stain_profile, estimate_stains
+from .normalizer import StainNormalizer, as_float_list
+from .od_transform import apply_od_affine
+from .tissue_pixels import DEFAULT_BETA
+
+__all__ = ["MacenkoNormalizer", "estimate_stains", "estimate_stain_profile", "StainProfile"]
+
+
+def _unit_rows(matrix: np.ndarray) -> np.ndarray:
+    return matrix / np.linalg.norm(matrix, axis=1, keepdims=True)
+
+
+class MacenkoNormalizer(StainNormalizer):
+    """Map an image's stain vectors and concentration range onto a target's (Macenko 2009).
+
+    Each pixel's optical density is unmixed with the source stain matrix into hematoxylin and
+    eosin concentrations, each concentration is scaled by the ratio of the target's to the
+    source's 99th-percentile maximum, and the result is remixed with the target stain matrix.
+    The whole map is linear in optical density, so it is applied as one 3x3 matrix; glass
+    (optical density 0) stays exactly white.
+
+    Parameters
+    ----------
+    per_tile : bool, default False
+        Estimate the source separately for every image of a batch. An image with too little
+        tissue for its own estimate uses the bound estimate from :meth:`fit_source`, or is
+        returned unchanged when there is none. By default one source estimate is taken from all
+        the pixels given to ``transform`` (or from the bound sample).
+    beta : float, default 0.15
+        OD threshold for tissue pixels (Macenko et al. 2009).
+    alpha : float, default 1.0
+        Angle percentile of the extreme stain directions (Macenko et al. 2009).
+
+    Attributes
+    ----------
+    stain_matrix : ndarray (2, 3) or None
+        Target unit OD rows, hematoxylin first.
+    max_concentrations : ndarray (2,) or None
+        Target 99th-percentile concentrations.
+    source : StainProfile or None
+        The bound source estimate (set by :meth:`fit_source`).
+
+    References
+    ----------
+    Macenko M, Niethammer M, Marron JS, Borland D, Woosley JT, Guan X, Schmitt C, Thomas NE
+    (2009). A method for normalizing histology slides for quantitative analysis. IEEE
+    International Symposium on Biomedical Imaging (ISBI), 1107-1110.
+
+    Examples
+    --------
+    >>> from skimage import data
+    >>> img = data.immunohistochemistry()
+    >>> norm = MacenkoNormalizer().fit(img)
+    >>> norm.transform(img).shape
+    (512, 512, 3)
+    """
+
+    method = "macenko"
+
+    def __init__(self, *, per_tile: bool = False, beta: float = DEFAULT_BETA, alpha: float = 1.0):
+        super().__init__(per_tile=per_tile)
+        beta, alpha = float(beta), float(alpha)
+        if not (np.isfinite(beta) and beta >= 0):
+            raise ValueError(f"beta must be a finite OD threshold >= 0, got {beta}")
+        if not (0 <= alpha < 50):
+            raise ValueError(f"alpha must be a percentile in [0, 50), got {alpha}")
+        self.beta = beta
+        self.alpha = alpha
+        self.stain_matrix = None
+        self.max_concentrations = None
+
+    @property
+    def is_fitted(self) -> bool:
+        return self.stain_matrix is not None
+
+    def _estimate(self, rgb):
+        return estimate_stain_profile(rgb, beta=self.beta, alpha=self.alpha)
+
+    def _set_target(self, stats: StainProfile) -> None:
+        self.stain_matrix = np.asarray(stats.stain_matrix, np.float32)
+        self.max_concentrations = np.asarray(stats.max_concentrations, np.float32)
+
+    def od_matrix(self, source: StainProfile | None = None) -> np.ndarray:
+        """The 3x3 optical-density map ``OD_out = OD_in @ A`` from a source to the target.
+
+        Parameters
+        ----------
+        source : StainProfile, optional
+            Defaults to the bound source estimate.
+
+        Returns
+        -------
+        ndarray, float64, shape (3, 3)
+            ``pinv(S_src) @ diag(max_tgt / max_src) @ S_tgt``.
+        """
+        self._require_fitted()
+        source = self.source if source is None else source
+        if source is None:
+            raise ConfigError("no source estimate: pass one or call fit_source(sample) first")
+        unmix = np.linalg.pinv(np.asarray(source.stain_matrix, np.float64))  # (3, 2)
+        scale = np.asarray(self.max_concentrations, np.float64) / np.asarray(
+            source.max_concentrations, np.float64
+        )
+        return (unmix * scale) @ np.asarray(self.stain_matrix, np.float64)
+
+    def _apply(self, rgb, source, out) -> None:
+        apply_od_affine(rgb, self.od_matrix(source), out=out)
+
+    def _params(self) -> dict:
+        return {"per_tile": self.per_tile, "beta": self.beta, "alpha": self.alpha}
+
+    @classmethod
+    def _param_names(cls) -> tuple:
+        return ("per_tile", "beta", "alpha")
+
+    def _target_dict(self) -> dict:
+        return self._stats_to_dict(StainProfile(self.stain_matrix, self.max_concentrations, 0))
+
+    @classmethod
+    def _stats_to_dict(cls, stats: StainProfile) -> dict:
+        return {
+            "stain_matrix": np.asarray(stats.stain_matrix, np.float64).tolist(),
+            "max_concentrations": np.asarray(stats.max_concentrations, np.float64).tolist(),
+        }
+
+    @classmethod
+    def _stats_from_dict(cls, d) -> StainProfile:
+        if not isinstance(d, dict) or "stain_matrix" not in d or "max_concentrations" not in d:
+            raise ConfigError("macenko dictionary needs 'stain_matrix' and 'max_concentrations'")
+        matrix = as_float_list(d["stain_matrix"], (2, 3), "stain_matrix")
+        maxima = as_float_list(d["max_concentrations"], (2,), "max_concentrations")
+        if np.any(np.linalg.norm(matrix, axis=1) == 0) or np.any(maxima <= 0):
+            raise ConfigError("macenko dictionary: stain rows must be non-zero, maxima positive")
+        return StainProfile(_unit_rows(matrix).astype(np.float32), maxima, 0)
+
+    @classmethod
+    def from_median(cls, fitted, **params) -> MacenkoNormalizer:
+        """Target = elementwise median of several fitted normalizers (a cohort's own centre).
+
+        Parameters
+        ----------
+        fitted : sequence of MacenkoNormalizer, StainProfile or dict
+            Fitted normalizers (for example one fitted on a sample of each slide), their
+            profiles, or their ``to_dict()`` output.
+        **params
+            ``per_tile``, ``beta``, ``alpha`` of the result (defaults: those of the first
+            normalizer given, else the class defaults).
+
+        Returns
+        -------
+        MacenkoNormalizer
+            Unbound; stain rows are renormalized to unit length after the median.
+
+        Raises
+        ------
+        ConfigError
+            When ``fitted`` is empty or holds an unfitted normalizer.
+        """
+        profiles, first = [], None
+        for item in fitted:
+            if isinstance(item, MacenkoNormalizer):
+                item._require_fitted()
+                first = first or item
+                profiles.append(StainProfile(item.stain_matrix, item.max_concentrations, 0))
+            elif isinstance(item, dict):
+                profiles.append(cls._stats_from_dict(item))
+            else:
+                profiles.append(item)
+        if not profiles:
+            raise ConfigError("from_median needs at least one fitted normalizer")
+        if first is not None:
+            params = {**first._params(), **params}
+        matrix = np.median(np.stack([np.asarray(p.stain_matrix, np.float64) for p in profiles]), 0)
+        maxima = np.median(np.stack([np.asarray(p.max_concentrations, np.float64) for p in profiles]), 0)
+        obj = cls(**params)
+        obj._set_target(StainProfile(_unit_rows(matrix), maxima, 0))
+        return obj

@@ -1,0 +1,222 @@
+"""Behaviour shared by the stain normalizers: fitting, source binding, batches, dictionaries.
+
+A normalizer has a *target* (fitted once on a reference image, or the median of several) and a
+*source* estimate (the colour statistics of the images being normalized). The source estimate
+comes, in order of precedence:
+
+1. per image, when ``per_tile=True`` (an image whose own estimate fails falls back to the bound
+   estimate below, or is returned unchanged when there is none);
+2. from a bound sample, after ``fit_source(sample)`` (the whole-slide mode: one estimate from a
+   reproducible sample of a slide's tissue tiles, reused for every tile batch of that slide);
+3. otherwise from all the pixels passed to ``transform`` at once.
+"""
+
+from __future__ import annotations
+
+import copy
+
+import numpy as np
+
+from ..errors import ConfigError, StainEstimationError
+from .density import check_rgb
+
+__all__ = ["StainNormalizer", "FORMAT_VERSION"]
+
+#: Version of the dictionary layout written by ``to_dict``.
+FORMAT_VERSION = 1
+
+
+def as_float_list(values, shape, key):
+    """Validate a JSON list against ``shape`` and return a float32 array (ConfigError if bad)."""
+    try:
+        arr = np.asarray(values, dtype=np.float64)
+    except (TypeError, ValueError):
+        raise ConfigError(f"normalizer dictionary: {key!r} is not numeric: {values!r}") from None
+    if arr.shape != shape or not np.all(np.isfinite(arr)):
+        raise ConfigError(
+            f"normalizer dictionary: {key!r} must be finite numbers of shape {shape}, "
+            f"got {arr.shape}"
+        )
+    return arr.astype(np.float32)
+
+
+class StainNormalizer:
+    """Base class; see :class:`~tilewright.stain.macenko.MacenkoNormalizer` and
+    :class:`~tilewright.stain.reinhard.ReinhardNormalizer`."""
+
+    method = ""
+
+    def __init__(self, *, per_tile: bool = False):
+        self.per_tile = bool(per_tile)
+        self.source = None
+
+    # -- hooks for subclasses ------------------------------------------------------------------
+    def _estimate(self, rgb: np.ndarray):  # pragma: no cover - abstract
+        """Source/target statistics of ``rgb``; raise StainEstimationError when impossible."""
+        raise NotImplementedError
+
+    def _set_target(self, stats) -> None:  # pragma: no cover - abstract
+        raise NotImplementedError
+
+    def _apply(self, rgb: np.ndarray, source, out: np.ndarray) -> None:  # pragma: no cover
+        raise NotImplementedError
+
+    def _params(self) -> dict:  # pragma: no cover - abstract
+        raise NotImplementedError
+
+    def _target_dict(self) -> dict:  # pragma: no cover - abstract
+        raise NotImplementedError
+
+    @classmethod
+    def _stats_to_dict(cls, stats) -> dict:  # pragma: no cover - abstract
+        raise NotImplementedError
+
+    @classmethod
+    def _stats_from_dict(cls, d) -> object:  # pragma: no cover - abstract
+        raise NotImplementedError
+
+    @property
+    def is_fitted(self) -> bool:  # pragma: no cover - abstract
+        raise NotImplementedError
+
+    # -- public API ----------------------------------------------------------------------------
+    @property
+    def is_bound(self) -> bool:
+        """True when ``fit_source`` fixed the source estimate."""
+        return self.source is not None
+
+    def fit(self, reference_rgb):
+        """Fit the target to a reference image (or batch); returns ``self``.
+
+        Raises
+        ------
+        StainEstimationError
+            When the reference has too little tissue or degenerate colour.
+        """
+        self._set_target(self._estimate(check_rgb(reference_rgb, "reference_rgb")))
+        return self
+
+    def fit_source(self, sample_rgb):
+        """Return a copy whose ``transform`` reuses one source estimate taken from ``sample_rgb``.
+
+        Parameters
+        ----------
+        sample_rgb : array_like, uint8, shape (..., 3)
+            A reproducible sample of the slide's tissue (for example a batch of tissue tiles).
+
+        Returns
+        -------
+        same type as ``self``
+            A bound copy; ``self`` is not modified.
+
+        Raises
+        ------
+        StainEstimationError
+            When the sample has too little tissue.
+        ConfigError
+            When the normalizer has no target yet.
+        """
+        self._require_fitted()
+        bound = copy.deepcopy(self)
+        bound.source = self._estimate(check_rgb(sample_rgb, "sample_rgb"))
+        return bound
+
+    def transform(self, rgb, *, out=None) -> np.ndarray:
+        """Normalize an image or a batch of images.
+
+        Parameters
+        ----------
+        rgb : array_like, uint8, shape (H, W, 3) or (..., H, W, 3)
+            Image(s) to normalize.
+        out : ndarray, uint8, optional
+            Destination of the same shape (may be ``rgb``).
+
+        Returns
+        -------
+        ndarray, uint8, same shape as ``rgb``
+
+        Raises
+        ------
+        ConfigError
+            When the normalizer has no target (call ``fit`` or ``from_dict`` first).
+        StainEstimationError
+            Only when neither ``per_tile`` nor a bound source is set and the pixels given have
+            too little tissue for a source estimate.
+        """
+        self._require_fitted()
+        arr = check_rgb(rgb)
+        if out is None:
+            out = np.empty_like(arr)
+        if not self.per_tile:
+            source = self.source if self.is_bound else self._estimate(arr)
+            self._apply(arr, source, out)
+            return out
+        if arr.ndim < 3:
+            raise ValueError(f"per-tile mode needs images of shape (..., H, W, 3), got {arr.shape}")
+        images = arr.reshape((-1,) + arr.shape[-3:])
+        dest = out.reshape(images.shape)
+        for i, image in enumerate(images):
+            try:
+                source = self._estimate(image)
+            except StainEstimationError:
+                source = self.source  # bound slide estimate, or None: leave the tile unchanged
+            if source is None:
+                dest[i] = image
+            else:
+                self._apply(image, source, dest[i])
+        if not np.shares_memory(dest, out):
+            out[...] = dest.reshape(out.shape)
+        return out
+
+    __call__ = transform
+
+    def to_dict(self) -> dict:
+        """JSON-safe description (method, parameters, target, bound source estimate or None)."""
+        self._require_fitted()
+        d = {"method": self.method, "version": FORMAT_VERSION, **self._params()}
+        d.update(self._target_dict())
+        d["source"] = None if self.source is None else self._stats_to_dict(self.source)
+        return d
+
+    @classmethod
+    def from_dict(cls, d):
+        """Rebuild a normalizer written by :meth:`to_dict`.
+
+        Raises
+        ------
+        ConfigError
+            When the dictionary is for another method, another format version, or malformed.
+        """
+        if not isinstance(d, dict):
+            raise ConfigError(f"normalizer description must be a dict, got {type(d).__name__}")
+        if d.get("method") != cls.method:
+            raise ConfigError(f"expected method {cls.method!r}, got {d.get('method')!r}")
+        if d.get("version", FORMAT_VERSION) != FORMAT_VERSION:
+            raise ConfigError(
+                f"normalizer dictionary version {d.get('version')!r} is not supported "
+                f"(this library writes version {FORMAT_VERSION}); refit the normalizer"
+            )
+        try:
+            obj = cls(**{k: d[k] for k in cls._param_names() if k in d})
+        except (TypeError, ValueError) as exc:
+            raise ConfigError(f"invalid {cls.method} parameters: {exc}") from None
+        obj._set_target(cls._stats_from_dict(d))
+        if d.get("source") is not None:
+            obj.source = cls._stats_from_dict(d["source"])
+        return obj
+
+    @classmethod
+    def _param_names(cls) -> tuple:  # pragma: no cover - abstract
+        raise NotImplementedError
+
+    def _require_fitted(self) -> None:
+        if not self.is_fitted:
+            raise ConfigError(
+                f"{type(self).__name__} has no target yet: call .fit(reference_rgb), "
+                f".from_dict(d) or .from_median([...]) first"
+            )
+
+    def __repr__(self) -> str:
+        params = ", ".join(f"{k}={v!r}" for k, v in self._params().items())
+        state = "bound" if self.is_bound else ("fitted" if self.is_fitted else "unfitted")
+        return f"{type(self).__name__}({params}) [{state}]"
