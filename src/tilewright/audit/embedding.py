@@ -3,7 +3,8 @@
 Steps: drop metrics that are missing for every slide or constant; fill remaining gaps with the
 metric's median; standardize each metric (z-score); principal component analysis keeping the
 components that explain 90 % of the variance (at least two); k-means on those coordinates for
-every k in 2..min(8, n - 1), keeping the k with the highest mean silhouette. t-SNE coordinates
+every k in 2..min(8, n - 1, n // 5), keeping the k with the highest mean silhouette (the n // 5
+cap keeps about five slides a cluster, see :func:`max_clusters`). t-SNE coordinates
 are computed for the plots only; clusters never depend on them.
 
 References
@@ -28,6 +29,7 @@ import pandas as pd
 __all__ = ["Embedding", "embed_slides", "standardize"]
 
 MAX_CLUSTERS = 8
+SLIDES_PER_CLUSTER = 5
 VARIANCE_KEPT = 0.90
 
 
@@ -135,7 +137,7 @@ def embed_slides(metrics: pd.DataFrame, *, seed: int = 0, tsne: bool = True) -> 
         coords["pc2"] = 0.0
     silhouette, labels = {}, {}
     distinct = len(np.unique(np.round(pcs, 9), axis=0))
-    for k in range(2, min(MAX_CLUSTERS, n - 1, distinct) + 1):
+    for k in range(2, max_clusters(n, distinct) + 1):
         fit = KMeans(n_clusters=k, n_init=10, random_state=seed).fit(pcs)
         if len(np.unique(fit.labels_)) < 2:
             continue
@@ -149,6 +151,20 @@ def embed_slides(metrics: pd.DataFrame, *, seed: int = 0, tsne: bool = True) -> 
         coords["cluster"] = 0
     coords["tsne1"], coords["tsne2"] = _tsne(pcs, seed) if tsne else (pcs[:, 0], pcs[:, 1])
     return Embedding(coords, list(z.columns), pca.explained_variance_ratio_[:kept], silhouette, best)
+
+
+def max_clusters(n: int, distinct: int | None = None) -> int:
+    """Largest k tried for ``n`` slides: at most 8, at most ``n - 1``, and about five slides per
+    cluster or more, so that cluster × factor tables keep expected counts near the five the
+    chi-square approximation needs (Cochran 1954); never below 2.
+
+    References
+    ----------
+    Cochran WG (1954). Some methods for strengthening the common chi-square tests. Biometrics
+    10(4):417-451.
+    """
+    limit = min(MAX_CLUSTERS, n - 1, max(2, n // SLIDES_PER_CLUSTER))
+    return limit if distinct is None else min(limit, distinct)
 
 
 def _relabel(labels: np.ndarray) -> np.ndarray:

@@ -109,17 +109,15 @@ def _colour(tissue: np.ndarray) -> dict:
 def _stain(tissue: np.ndarray) -> dict:
     from tilewright.errors import StainEstimationError
     from tilewright.stain.density import rgb_to_od
-    from tilewright.stain.macenko import estimate_stains
+    from tilewright.stain.macenko import estimate_stain_profile
 
-    od = rgb_to_od(tissue).astype(np.float64)
-    out = {"od_mean": float(od.mean())}
+    out = {"od_mean": float(rgb_to_od(tissue).mean(dtype=np.float64))}
     try:
-        stains = np.asarray(estimate_stains(tissue[:, None, :]), dtype=np.float64)
+        profile = estimate_stain_profile(tissue[:, None, :])
     except StainEstimationError:
         return out
-    out.update(stain_angles(stains))
-    concentrations = od @ np.linalg.pinv(stains)
-    out["h_max_conc"], out["e_max_conc"] = (float(v) for v in np.percentile(concentrations, 99, axis=0))
+    out.update(stain_angles(profile.stain_matrix))
+    out["h_max_conc"], out["e_max_conc"] = (float(v) for v in profile.max_concentrations)
     return out
 
 
