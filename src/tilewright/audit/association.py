@@ -218,7 +218,7 @@ def kruskal_table(metrics: pd.DataFrame, factors: pd.DataFrame) -> pd.DataFrame:
             groups = [g.to_numpy() for _, g in values[keep].groupby(levels[keep], observed=True)]
             groups = [g for g in groups if g.size]
             h = p = float("nan")
-            if len(groups) >= 2:
+            if len(groups) >= 2 and np.ptp(np.concatenate(groups)) > 0:
                 try:
                     h, p = (float(x) for x in stats.kruskal(*groups))
                 except ValueError:  # every value identical

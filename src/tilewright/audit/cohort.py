@@ -89,7 +89,7 @@ class CohortAudit:
 
         return compare_audits(self, other)
 
-    def write_report(self, folder, *, compare_to: "CohortAudit | None" = None, names=None) -> Path:
+    def write_report(self, folder, *, before: "CohortAudit | None" = None, names=None) -> Path:
         """Write ``audit.parquet``, ``associations.csv``, ``kruskal.csv``, PNG plots and
         ``report.html`` (a static page that works offline) into ``folder``.
 
@@ -97,12 +97,13 @@ class CohortAudit:
         ----------
         folder : str or os.PathLike
             Report folder; created when missing, files in it replaced.
-        compare_to : CohortAudit, optional
-            A second audit of the same cohort (for example normalized tiles when this one is the
-            raw thumbnails, or the other way round) shown as a before/after section.
+        before : CohortAudit, optional
+            An audit of the same cohort before normalization (for example
+            ``audit_cohort(out, source="thumbnail")`` when this one audits normalized tiles),
+            shown as a before/after section with this audit as "after"; its table is also
+            written as ``before_after.csv``.
         names : (str, str), optional
-            Names of this audit and ``compare_to`` in the before/after section; default from
-            their sources.
+            Names of ``before`` and this audit in that section; default from their sources.
 
         Returns
         -------
@@ -111,7 +112,7 @@ class CohortAudit:
         """
         from tilewright.audit.report import write_report
 
-        return write_report(self, folder, compare_to=compare_to, names=names)
+        return write_report(self, folder, before=before, names=names)
 
     def comparison_findings(self, other: "CohortAudit", names=None) -> list[str]:
         """Sentences on how associations changed from this audit to ``other``."""

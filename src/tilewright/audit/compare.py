@@ -21,7 +21,7 @@ def compare_audits(before, after) -> pd.DataFrame:
     -------
     DataFrame
         Columns ``factor, cramers_v_before, cramers_v_after, p_value_before, p_value_after,
-        ratio`` (after / before), one row per factor present in either audit, ordered as in
+        ratio`` (after / before; NaN when before is 0), one row per factor present in either audit, ordered as in
         ``before``.
 
     Examples
@@ -36,6 +36,7 @@ def compare_audits(before, after) -> pd.DataFrame:
     order = {name: i for i, name in enumerate(left["factor"])}
     table["_order"] = table["factor"].map(lambda f: order.get(f, len(order)))
     table = table.sort_values("_order", kind="stable").drop(columns="_order").reset_index(drop=True)
-    table["ratio"] = table["cramers_v_after"] / table["cramers_v_before"]
+    before_v = table["cramers_v_before"].where(table["cramers_v_before"] > 0)
+    table["ratio"] = table["cramers_v_after"] / before_v
     columns = ["factor", "cramers_v_before", "cramers_v_after", "p_value_before", "p_value_after", "ratio"]
     return table[columns]

@@ -50,6 +50,10 @@ def _v(value: float) -> str:
     return "n/a" if value is None or math.isnan(value) else f"{value:.2f}"
 
 
+def _label(name: str) -> str:
+    return "the label" if str(name).lower() == "label" else f"the label '{name}'"
+
+
 def _strength(row) -> str:
     v, p = row["cramers_v"], row["p_value"]
     if math.isnan(v) or p >= ALPHA:
@@ -96,22 +100,22 @@ def audit_findings(audit) -> list[str]:
         if len(strong) and _strength(lv) in ("none", "weak"):
             out.append(
                 f"Colour clusters follow {top['factor']} (V = {_v(top['cramers_v'])}, {format_p(top['p_value'])}) "
-                f"and not the label '{label}' (V = {_v(lv['cramers_v'])})."
+                f"and not {_label(label)} (V = {_v(lv['cramers_v'])})."
             )
         elif len(strong):
             out.append(
-                f"Colour clusters follow both {top['factor']} (V = {_v(top['cramers_v'])}) and the label "
-                f"'{label}' (V = {_v(lv['cramers_v'])}); check whether {top['factor']} and the label are confounded."
+                f"Colour clusters follow both {top['factor']} (V = {_v(top['cramers_v'])}) and "
+                f"{_label(label)} (V = {_v(lv['cramers_v'])}); check whether {top['factor']} and the label are confounded."
             )
         elif _strength(lv) in ("strong", "moderate"):
             out.append(
-                f"Colour clusters follow the label '{label}' (V = {_v(lv['cramers_v'])}) and no batch factor "
+                f"Colour clusters follow {_label(label)} (V = {_v(lv['cramers_v'])}) and no batch factor "
                 f"(largest: {top['factor']}, V = {_v(top['cramers_v'])})."
             )
         else:
             out.append(
                 f"Colour clusters follow neither a batch factor (largest: {top['factor']}, V = "
-                f"{_v(top['cramers_v'])}) nor the label '{label}' (V = {_v(lv['cramers_v'])})."
+                f"{_v(top['cramers_v'])}) nor {_label(label)} (V = {_v(lv['cramers_v'])})."
             )
     elif top is not None:
         if len(strong):
@@ -127,7 +131,7 @@ def audit_findings(audit) -> list[str]:
             confound = chi_square(contingency_table(audit.factors[row["factor"]], audit.factors[label]).to_numpy())
             if not math.isnan(confound.cramers_v) and confound.cramers_v >= MODERATE_V:
                 out.append(
-                    f"{row['factor']} and the label '{label}' are themselves associated "
+                    f"{row['factor']} and {_label(label)} are themselves associated "
                     f"(V = {confound.cramers_v:.2f}): a model can use {row['factor']} colour as a shortcut to the label."
                 )
     if len(strong):

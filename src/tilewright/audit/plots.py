@@ -97,7 +97,9 @@ def plot_associations(associations: pd.DataFrame, path: Path, label: str | None)
                zip(table["factor"], table["cramers_v"])]  # fmt: skip
     ax.barh(table["factor"].astype(str), table["cramers_v"], color=colours, height=0.6)
     for y, (v, p) in enumerate(zip(table["cramers_v"], table["p_value"])):
-        ax.text(min(v + 0.02, 0.88), y, f"V = {v:.2f}, p = {p:.2g}", va="center", fontsize=8)
+        inside = v > 0.7
+        ax.text(v - 0.02 if inside else v + 0.02, y, f"V = {v:.2f}, p = {p:.2g}", va="center", fontsize=8,
+                ha="right" if inside else "left", color=PAPER if inside else INK)  # fmt: skip
     for x, style in ((0.3, ":"), (0.5, "--")):
         ax.axvline(x, color=INK, linewidth=0.7, linestyle=style)
     ax.set_xlim(0, 1.05)
