@@ -241,6 +241,11 @@ def audit_cohort(
         notes=notes,
     )
     audit.findings = audit_findings(audit)
+    if metadata is None:
+        audit.findings.append(
+            "Only the manifest's source µm/px was tested: give metadata with site, scanner and label "
+            "columns (--metadata meta.csv) to see whether colour follows them."
+        )
     if notes.get("_unmatched"):
         audit.findings.append(
             f"{len(notes['_unmatched'])} metadata rows match no audited slide "
