@@ -1,0 +1,186 @@
+"""Embed slides by their metrics and group them into colour clusters.
+
+Steps: drop metrics that are missing for every slide or constant; fill remaining gaps with the
+metric's median; standardize each metric (z-score); principal component analysis keeping the
+components that explain 90 % of the variance (at least two); k-means on those coordinates for
+every k in 2..min(8, n - 1, n // 5), keeping the k with the highest mean silhouette (the n // 5
+cap keeps about five slides a cluster, see :func:`max_clusters`). t-SNE coordinates
+are computed for the plots only; clusters never depend on them.
+
+References
+----------
+Pearson K (1901). On lines and planes of closest fit to systems of points in space.
+Philosophical Magazine 2(11):559-572.
+Lloyd SP (1982). Least squares quantization in PCM. IEEE Transactions on Information Theory
+28(2):129-137.
+Rousseeuw PJ (1987). Silhouettes: a graphical aid to the interpretation and validation of
+cluster analysis. Journal of Computational and Applied Mathematics 20:53-65.
+van der Maaten L, Hinton G (2008). Visualizing data using t-SNE. Journal of Machine Learning
+Research 9:2579-2605.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+__all__ = ["Embedding", "embed_slides", "standardize"]
+
+MAX_CLUSTERS = 8
+SLIDES_PER_CLUSTER = 5
+VARIANCE_KEPT = 0.90
+
+
+@dataclass
+class Embedding:
+    """Coordinates and clusters of the slides.
+
+    Attributes
+    ----------
+    coords : DataFrame
+        Indexed by slide id: ``pc1, pc2, ...`` (the kept components), ``tsne1, tsne2`` and
+        ``cluster`` (int).
+    features : list of str
+        Metrics that entered the embedding.
+    explained : ndarray
+        Share of variance explained by each kept component.
+    silhouette : dict
+        k -> mean silhouette of the k-means solution with k clusters.
+    n_clusters : int
+        The chosen k (1 when there are fewer than three slides).
+    """
+
+    coords: pd.DataFrame
+    features: list
+    explained: np.ndarray
+    silhouette: dict
+    n_clusters: int
+
+    @property
+    def clusters(self) -> pd.Series:
+        """Cluster of every slide."""
+        return self.coords["cluster"]
+
+    @property
+    def best_silhouette(self) -> float:
+        """Mean silhouette of the chosen clustering (NaN when not clustered)."""
+        return float(self.silhouette.get(self.n_clusters, float("nan")))
+
+
+def standardize(metrics: pd.DataFrame) -> pd.DataFrame:
+    """Median-filled, z-scored metrics without all-missing or constant columns.
+
+    Parameters
+    ----------
+    metrics : DataFrame
+        Numeric metrics, one row per slide.
+
+    Returns
+    -------
+    DataFrame
+        Same index; each kept column has mean 0 and (population) standard deviation 1.
+    """
+    numeric = metrics.apply(pd.to_numeric, errors="coerce").astype(np.float64)
+    numeric = numeric.loc[:, numeric.notna().any()]
+    numeric = numeric.fillna(numeric.median())
+    spread = numeric.std(ddof=0)
+    numeric = numeric.loc[:, spread > 1e-12 * (numeric.abs().max() + 1.0)]
+    return (numeric - numeric.mean()) / numeric.std(ddof=0)
+
+
+def embed_slides(metrics: pd.DataFrame, *, seed: int = 0, tsne: bool = True) -> Embedding:
+    """PCA coordinates, k-means clusters (k by silhouette) and t-SNE coordinates of slides.
+
+    Parameters
+    ----------
+    metrics : DataFrame
+        Per-slide metrics indexed by slide id.
+    seed : int
+        Seed of k-means and t-SNE (results are reproducible).
+    tsne : bool
+        Compute t-SNE coordinates (for plots); otherwise they repeat the first two components.
+
+    Returns
+    -------
+    Embedding
+
+    References
+    ----------
+    Rousseeuw PJ (1987). Journal of Computational and Applied Mathematics 20:53-65.
+    van der Maaten L, Hinton G (2008). Journal of Machine Learning Research 9:2579-2605.
+    """
+    from sklearn.cluster import KMeans
+    from sklearn.decomposition import PCA
+    from sklearn.metrics import silhouette_score
+
+    z = standardize(metrics)
+    n = len(z)
+    coords = pd.DataFrame(index=metrics.index)
+    if n < 3 or z.shape[1] == 0:
+        pcs = np.zeros((n, 2))
+        if n >= 2 and z.shape[1] >= 1:
+            pcs[:, : min(2, z.shape[1], n)] = PCA(n_components=min(2, z.shape[1], n)).fit_transform(z.to_numpy())
+        coords["pc1"], coords["pc2"] = pcs[:, 0], pcs[:, 1]
+        coords["tsne1"], coords["tsne2"] = pcs[:, 0], pcs[:, 1]
+        coords["cluster"] = 0
+        return Embedding(coords, list(z.columns), np.zeros(0), {}, 1 if n else 0)
+    pca = PCA(n_components=min(n, z.shape[1])).fit(z.to_numpy())
+    cumulative = np.cumsum(pca.explained_variance_ratio_)
+    kept = max(2, int(np.searchsorted(cumulative, VARIANCE_KEPT) + 1))
+    kept = min(kept, pca.n_components_)
+    pcs = pca.transform(z.to_numpy())[:, :kept]
+    for i in range(kept):
+        coords[f"pc{i + 1}"] = pcs[:, i]
+    if kept < 2:
+        coords["pc2"] = 0.0
+    silhouette, labels = {}, {}
+    distinct = len(np.unique(np.round(pcs, 9), axis=0))
+    for k in range(2, max_clusters(n, distinct) + 1):
+        fit = KMeans(n_clusters=k, n_init=10, random_state=seed).fit(pcs)
+        if len(np.unique(fit.labels_)) < 2:
+            continue
+        silhouette[k] = float(silhouette_score(pcs, fit.labels_))
+        labels[k] = fit.labels_
+    if silhouette:
+        best = max(silhouette, key=lambda k: (round(silhouette[k], 6), -k))
+        coords["cluster"] = _relabel(labels[best])
+    else:
+        best = 1
+        coords["cluster"] = 0
+    coords["tsne1"], coords["tsne2"] = _tsne(pcs, seed) if tsne else (pcs[:, 0], pcs[:, 1])
+    return Embedding(coords, list(z.columns), pca.explained_variance_ratio_[:kept], silhouette, best)
+
+
+def max_clusters(n: int, distinct: int | None = None) -> int:
+    """Largest k tried for ``n`` slides: at most 8, at most ``n - 1``, and about five slides per
+    cluster or more, so that cluster × factor tables keep expected counts near the five the
+    chi-square approximation needs (Cochran 1954); never below 2.
+
+    References
+    ----------
+    Cochran WG (1954). Some methods for strengthening the common chi-square tests. Biometrics
+    10(4):417-451.
+    """
+    limit = min(MAX_CLUSTERS, n - 1, max(2, n // SLIDES_PER_CLUSTER))
+    return limit if distinct is None else min(limit, distinct)
+
+
+def _relabel(labels: np.ndarray) -> np.ndarray:
+    """Number clusters 0, 1, ... by decreasing size (ties by first appearance)."""
+    values, first, counts = np.unique(labels, return_index=True, return_counts=True)
+    order = sorted(range(len(values)), key=lambda i: (-counts[i], first[i]))
+    mapping = {values[i]: rank for rank, i in enumerate(order)}
+    return np.array([mapping[v] for v in labels], dtype=np.int64)
+
+
+def _tsne(pcs: np.ndarray, seed: int) -> tuple[np.ndarray, np.ndarray]:
+    from sklearn.manifold import TSNE
+
+    n = pcs.shape[0]
+    if n < 5:
+        return pcs[:, 0], pcs[:, 1]
+    perplexity = float(min(30.0, max(2.0, (n - 1) / 3.0)))
+    xy = TSNE(n_components=2, perplexity=perplexity, init="pca", random_state=seed).fit_transform(pcs)
+    return xy[:, 0], xy[:, 1]

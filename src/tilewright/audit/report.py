@@ -1,0 +1,190 @@
+"""Report folder of a cohort audit: tables, PNG plots and a static offline ``report.html``.
+
+Every file is first written into a private temporary folder inside the report folder and then
+moved into place (``report.html`` last), so a failure never leaves a half-written file.
+"""
+
+from __future__ import annotations
+
+import html
+import os
+import shutil
+import tempfile
+from datetime import datetime, timezone
+from pathlib import Path
+
+import pandas as pd
+
+from tilewright.audit import plots
+from tilewright.audit.compare import compare_audits
+from tilewright.audit.findings import comparison_findings
+from tilewright.errors import StoreError
+
+__all__ = ["write_report", "CAUTION"]
+
+CAUTION = (
+    "Research use only: not for diagnosis or clinical decisions; results need validation under "
+    "local regulations and licensed pathology practice."
+)
+
+STYLE = """
+body{margin:0;background:#f3f1ec;color:#22252b;font:15px/1.5 system-ui,-apple-system,"Segoe UI",sans-serif}
+header{background:#1f3b40;color:#f3f1ec;padding:22px 32px 18px}
+header h1{margin:0;font-size:22px;font-weight:600;letter-spacing:.02em}
+header p{margin:4px 0 0;color:#b9d3cf;font-size:13px}
+main{max-width:1100px;margin:0 auto;padding:12px 32px 40px}
+section{background:#fbfaf7;border:1px solid #ddd8cc;border-radius:6px;margin:18px 0;padding:14px 20px}
+h2{font-size:17px;margin:4px 0 10px;color:#1f3b40;border-bottom:2px solid #d9822b;display:inline-block}
+.caution{background:#fff4e0;border-left:5px solid #d9822b;padding:10px 16px;margin:18px 0;border-radius:4px}
+ol.findings li{margin:4px 0}
+table{border-collapse:collapse;font-size:13px;margin:6px 0}
+th,td{padding:4px 10px;border-bottom:1px solid #e4e0d6;text-align:right}
+th{background:#ece8de;color:#1f3b40}td:first-child,th:first-child{text-align:left}
+img{max-width:100%;height:auto;display:block;margin:8px 0;border-radius:4px}
+.muted{color:#6b6f78;font-size:13px}
+"""
+
+
+def _table(frame: pd.DataFrame, digits: int = 3) -> str:
+    if frame.empty:
+        return '<p class="muted">(none)</p>'
+    return frame.to_html(index=False, border=0, float_format=lambda v: f"{v:.{digits}g}", na_rep="–", escape=True)
+
+
+def _img(name: str, alt: str) -> str:
+    return f'<img src="{html.escape(name)}" alt="{html.escape(alt)}">'
+
+
+def _draw(audit, tmp: Path) -> dict:
+    """Draw every figure into ``tmp``; return section -> list of (file name, alt text)."""
+    figures: dict[str, list] = {"associations": [], "embedding": [], "metrics": [], "clusters": []}
+    if not audit.associations.dropna(subset=["cramers_v"]).empty:
+        plots.plot_associations(audit.associations, tmp / "associations.png", audit.label)
+        figures["associations"].append(("associations.png", "Cramér's V per factor"))
+    coords = audit.embedding.coords
+    clusters = audit.clusters.map(lambda c: f"cluster {c}")
+    plots.plot_embedding(coords, clusters, "cluster", tmp / "embedding_cluster.png")
+    figures["embedding"].append(("embedding_cluster.png", "embedding coloured by cluster"))
+    for factor in audit.factors.columns:
+        name = plots.file_name("embedding", factor)
+        plots.plot_embedding(coords, audit.factors[factor], factor, tmp / name)
+        figures["embedding"].append((name, f"embedding coloured by {factor}"))
+        ranked = audit.kruskal[audit.kruskal["factor"] == factor].dropna(subset=["p_value"])["metric"].tolist()
+        if ranked:
+            name = plots.file_name("metrics", factor)
+            plots.plot_metric_levels(audit.metrics, audit.factors[factor], ranked, factor, tmp / name)
+            figures["metrics"].append((name, f"metric distributions by {factor}"))
+    if audit.previews:
+        plots.plot_cluster_grid(audit.clusters, audit.previews, tmp / "clusters.png")
+        figures["clusters"].append(("clusters.png", "slide previews per cluster"))
+    return figures
+
+
+def _html(audit, figures: dict, before, names) -> str:
+    from tilewright import __version__
+
+    when = datetime.now(timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+    source = "stored tiles (after any stain normalization)" if audit.source == "tiles" else (
+        "slide thumbnails under the tissue mask (raw colour)"
+    )  # fmt: skip
+    parts = [
+        "<!DOCTYPE html>",
+        '<html lang="en"><head><meta charset="utf-8">',
+        '<meta name="viewport" content="width=device-width, initial-scale=1">',
+        f"<title>Cohort colour audit – {html.escape(audit.folder.name)}</title>",
+        f"<style>{STYLE}</style></head><body>",
+        "<header><h1>Cohort colour audit</h1>",
+        f"<p>{html.escape(str(audit.folder))} · {len(audit.metrics)} slides · from {html.escape(source)} · "
+        f"tilewright {html.escape(__version__)} · {when}</p></header><main>",
+        f'<div class="caution"><strong>Caution.</strong> {html.escape(CAUTION)}</div>',
+        '<section id="findings"><h2>Findings</h2><ol class="findings">',
+        *[f"<li>{html.escape(s)}</li>" for s in audit.findings],
+        "</ol></section>",
+    ]
+    if before is not None:
+        table = compare_audits(before, audit)
+        parts += [
+            f'<section id="before-after"><h2>Before / after: {html.escape(names[0])} → {html.escape(names[1])}</h2>',
+            "<ol class=\"findings\">",
+            *[f"<li>{html.escape(s)}</li>" for s in comparison_findings(table, names)],
+            "</ol>",
+            _table(table.rename(columns={"cramers_v_before": f"V {names[0]}", "cramers_v_after": f"V {names[1]}",
+                                         "p_value_before": f"p {names[0]}", "p_value_after": f"p {names[1]}"})),
+            "</section>",
+        ]  # fmt: skip
+    parts += ['<section id="associations"><h2>Colour clusters × factors</h2>']
+    parts += [_img(n, a) for n, a in figures["associations"]]
+    parts += [
+        _table(audit.associations),
+        '<p class="muted">Cramér\'s V of the colour-cluster × factor table (Cramér 1946) and the Pearson '
+        "chi-square p-value; clusters are k-means on principal components of the standardized metrics, "
+        "k chosen by mean silhouette.</p></section>",
+        '<section id="embedding"><h2>Embedding</h2>',
+        *[_img(n, a) for n, a in figures["embedding"]],
+        "</section>",
+        '<section id="metrics"><h2>Metric distributions by factor</h2>',
+        *[_img(n, a) for n, a in figures["metrics"]],
+        "<p class=\"muted\">Strongest Kruskal–Wallis differences (all in kruskal.csv):</p>",
+        _table(audit.kruskal.dropna(subset=["p_value"]).groupby("factor", sort=False).head(5)),
+        "</section>",
+        '<section id="clusters"><h2>Slides in each cluster</h2>',
+        *[_img(n, a) for n, a in figures["clusters"]],
+        "</section>",
+        '<section id="skipped"><h2>Skipped slides</h2>',
+        _table(audit.skipped),
+        "</section>",
+        '<p class="muted">Files: audit.parquet (metrics, cluster, coordinates), associations.csv, kruskal.csv, '
+        "findings.txt and the PNG figures beside this page.</p>",
+        "</main></body></html>",
+    ]
+    return "\n".join(parts)
+
+
+def write_report(audit, folder, *, before=None, names=None) -> Path:
+    """Write the report folder of ``audit`` (see :meth:`CohortAudit.write_report`).
+
+    Parameters
+    ----------
+    audit : CohortAudit
+    folder : str or os.PathLike
+    before : CohortAudit, optional
+        An audit of the same cohort before normalization; adds a before/after section with this
+        audit as "after".
+    names : (str, str), optional
+        Names of ``before`` and ``audit`` in that section.
+
+    Raises
+    ------
+    StoreError
+        When the folder cannot be created or written.
+    """
+    folder = Path(folder)
+    if before is not None and names is None:
+        from tilewright.audit.cohort import _source_name
+
+        names = (_source_name(before), _source_name(audit))
+        if names[0] == names[1]:
+            names = ("before", "after")
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+        tmp = Path(tempfile.mkdtemp(prefix=".report-", dir=folder))
+    except OSError as exc:
+        raise StoreError(f"cannot create the report folder ({exc}); choose another with --report", folder) from exc
+    try:
+        table = audit.metrics.join(audit.embedding.coords).join(audit.factors)
+        table.reset_index().to_parquet(tmp / "audit.parquet", index=False)
+        audit.associations.to_csv(tmp / "associations.csv", index=False)
+        audit.kruskal.to_csv(tmp / "kruskal.csv", index=False)
+        (tmp / "findings.txt").write_text("\n".join(audit.findings) + "\n", encoding="utf-8")
+        figures = _draw(audit, tmp)
+        (tmp / "report.html").write_text(_html(audit, figures, before, names), encoding="utf-8")
+        if before is not None:
+            compare_audits(before, audit).to_csv(tmp / "before_after.csv", index=False)
+        written = sorted(tmp.iterdir(), key=lambda p: p.name == "report.html")
+        for path in written:
+            os.replace(path, folder / path.name)
+    except OSError as exc:
+        raise StoreError(f"cannot write the report ({exc}); check free space and permissions", folder) from exc
+    finally:
+        shutil.rmtree(tmp, ignore_errors=True)
+    return folder / "report.html"

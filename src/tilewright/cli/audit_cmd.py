@@ -1,0 +1,127 @@
+"""``tilewright audit OUT``: audit a tiled cohort for colour batch effects and write a report.
+
+Exit codes: 0 report written; 2 bad arguments (missing folder, unreadable metadata, unknown
+label); 1 any other failure.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+
+__all__ = ["register", "run", "build_parser"]
+
+DESCRIPTION = (
+    "Audit a tile-out output folder for colour batch effects: per-slide colour, stain and "
+    "quality metrics, colour clusters, and how strongly they follow each metadata column "
+    "(site, scanner, label, ...). Writes audit.parquet, associations.csv, PNG plots and an "
+    "offline report.html. Research use only: not for diagnosis or clinical decisions."
+)
+
+
+def _add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("out", metavar="OUT", help="output folder written by tile-out (holds manifest.csv)")
+    parser.add_argument("--metadata", metavar="CSV", help="per-slide table with a slide_id column; every other column is a factor")
+    parser.add_argument("--report", metavar="DIR", help="report folder (default: OUT/audit)")
+    parser.add_argument(
+        "--source", choices=("tiles", "thumbnail"), default="tiles",
+        help="tiles: a sample of stored (normalized) tiles; thumbnail: raw colour at mask resolution (default: tiles)",
+    )  # fmt: skip
+    parser.add_argument("--label", metavar="COLUMN", help="metadata column holding the training label (default: a column named label/class/target/...)")
+    parser.add_argument("--max-tiles", type=int, default=64, metavar="N", help="tiles sampled per slide (default: 64)")
+    parser.add_argument("--seed", type=int, default=0, help="seed of the tile sample, clustering and t-SNE (default: 0)")
+    parser.add_argument(
+        "--no-compare", action="store_true",
+        help="with --source tiles on a normalized run, skip the before/after comparison with the raw thumbnails",
+    )  # fmt: skip
+
+
+def register(subparsers) -> argparse.ArgumentParser:
+    """Add the ``audit`` sub-command to an ``argparse`` sub-parser collection.
+
+    Parameters
+    ----------
+    subparsers : argparse._SubParsersAction
+        From ``parser.add_subparsers()``.
+
+    Returns
+    -------
+    argparse.ArgumentParser
+        The ``audit`` parser (its ``func`` default is :func:`run`).
+    """
+    parser = subparsers.add_parser("audit", help="audit a tiled cohort for colour batch effects", description=DESCRIPTION)
+    _add_arguments(parser)
+    parser.set_defaults(func=run)
+    return parser
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """A stand-alone parser with the ``audit`` sub-command (used by tests and ``main``)."""
+    parser = argparse.ArgumentParser(prog="tilewright")
+    register(parser.add_subparsers(dest="command", required=True))
+    return parser
+
+
+def _fail(message: str, code: int) -> int:
+    print(f"tilewright audit: error: {message}", file=sys.stderr)
+    return code
+
+
+def run(args: argparse.Namespace) -> int:
+    """Run the audit described by parsed arguments and write the report.
+
+    Parameters
+    ----------
+    args : argparse.Namespace
+        From the ``audit`` parser.
+
+    Returns
+    -------
+    int
+        0 on success, 2 for bad arguments, 1 for other failures.
+    """
+    from tilewright.audit.cohort import audit_cohort
+    from tilewright.errors import ConfigError, StoreError, TilewrightError
+
+    out = Path(args.out)
+    if not out.is_dir():
+        return _fail(f"{out}: output folder not found; give the folder tile-out wrote", 2)
+    if args.metadata is not None and not Path(args.metadata).is_file():
+        return _fail(f"{args.metadata}: metadata file not found; give a CSV with a slide_id column", 2)
+    if args.max_tiles < 1:
+        return _fail(f"--max-tiles must be at least 1, got {args.max_tiles}", 2)
+    report = Path(args.report) if args.report else out / "audit"
+    options = {"metadata": args.metadata, "label": args.label, "max_tiles": args.max_tiles, "seed": args.seed}
+    try:
+        audit = audit_cohort(out, source=args.source, **options)
+        before = None
+        normalized = any(bool(a.get("normalizer")) for a in audit.notes.get("_attrs", {}).values())
+        if args.source == "tiles" and normalized and not args.no_compare:
+            before = audit_cohort(out, source="thumbnail", **options)
+        path = audit.write_report(report, before=before)
+    except ConfigError as exc:
+        return _fail(exc.one_line(), 2)
+    except StoreError as exc:
+        code = 2 if not (out / "manifest.csv").is_file() and not (out / "manifest.parquet").is_file() else 1
+        return _fail(exc.one_line(), code)
+    except TilewrightError as exc:
+        return _fail(exc.one_line(), 1)
+    for line in audit.findings:
+        print(f"  - {line}")
+    if before is not None:
+        for line in before.comparison_findings(audit):
+            print(f"  - {line}")
+    print(f"report: {path}")
+    return 0
+
+
+def main(argv=None) -> int:
+    """Entry point for ``python -m tilewright.cli.audit_cmd OUT ...``."""
+    parser = argparse.ArgumentParser(prog="tilewright audit", description=DESCRIPTION)
+    _add_arguments(parser)
+    return run(parser.parse_args(argv))
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

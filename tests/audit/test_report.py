@@ -1,0 +1,116 @@
+import re
+import shutil
+import subprocess
+from html.parser import HTMLParser
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from tilewright.cli.audit_cmd import build_parser, run
+
+CHROMIUM = next((shutil.which(n) for n in ("chromium", "chromium-browser") if shutil.which(n)), None)
+
+
+class _Images(HTMLParser):
+    def __init__(self):
+        super().__init__()
+        self.srcs, self.scripts, self.links = [], [], []
+
+    def handle_starttag(self, tag, attrs):
+        attrs = dict(attrs)
+        if tag == "img":
+            self.srcs.append(attrs.get("src", ""))
+        elif tag == "script":
+            self.scripts.append(attrs)
+        elif tag == "link":
+            self.links.append(attrs)
+
+
+@pytest.fixture(scope="module")
+def report(audits, tmp_path_factory):
+    before, after = audits
+    folder = tmp_path_factory.mktemp("report")
+    path = after.write_report(folder, before=before)
+    return folder, path
+
+
+def test_report_files_and_tables(report, audits):
+    folder, path = report
+    _, after = audits
+    for name in ("audit.parquet", "associations.csv", "kruskal.csv", "findings.txt", "before_after.csv",
+                 "embedding_site.png", "embedding_label.png", "metrics_site.png", "clusters.png", "associations.png"):
+        assert (folder / name).is_file(), name
+    table = pd.read_parquet(folder / "audit.parquet")
+    assert table["slide_id"].tolist() == after.metrics.index.tolist()
+    np.testing.assert_allclose(table["lab_l_mean"], after.metrics["lab_l_mean"])  # round trip of what was computed
+    assert pd.read_csv(folder / "associations.csv")["factor"].tolist() == after.associations["factor"].tolist()
+    assert not list(folder.glob(".report-*"))  # temporary folder removed
+
+
+def test_report_html_is_offline_with_caution(report):
+    folder, path = report
+    text = path.read_text(encoding="utf-8")
+    parser = _Images()
+    parser.feed(text)
+    assert len(parser.srcs) >= 6
+    for src in parser.srcs:  # every image resolves to a file beside the page or a data URI
+        assert src.startswith("data:") or (folder / src).is_file(), src
+    assert not parser.scripts and not parser.links  # no external scripts or fonts
+    assert not re.search(r"https?://", text)
+    assert "not for diagnosis or clinical decisions" in text  # CONVENTIONS.md safety wording
+    assert "licensed pathology practice" in text
+    assert "Before / after" in text
+
+
+@pytest.mark.skipif(CHROMIUM is None, reason="chromium not installed (apt-get install -y chromium)")
+def test_report_renders_in_headless_chromium(report, tmp_path):
+    folder, path = report
+    shot = tmp_path / "shot.png"
+    cmd = [CHROMIUM, "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
+           "--disable-background-networking", "--disable-component-update", "--disable-sync",
+           f"--user-data-dir={tmp_path / 'profile'}", f"--screenshot={shot}", "--window-size=1200,2400",
+           "--virtual-time-budget=5000", path.resolve().as_uri()]  # fmt: skip
+    done = subprocess.run(cmd, capture_output=True, text=True, timeout=60)
+    assert done.returncode == 0, done.stderr[-2000:]
+    from skimage import io
+
+    image = io.imread(shot)[..., :3]
+    assert image.shape[:2] == (2400, 1200)
+    # not blank: many distinct colours and real variance (plots and thumbnails drawn)
+    colours = np.unique(image.reshape(-1, 3), axis=0)
+    assert len(colours) > 500 and image.std() > 20
+    # the header band is drawn in its own dark teal (#1f3b40) and the plots' palette appears
+    assert np.abs(image[20, 600].astype(int) - [0x1F, 0x3B, 0x40]).max() < 8
+    palette_teal = np.all(np.abs(image.astype(int) - [0x1F, 0x6F, 0x78]) < 6, axis=-1).sum()
+    assert palette_teal > 200
+
+
+def test_cli_writes_report_and_compares(normalized_cohort, tmp_path, capsys):
+    out, meta = normalized_cohort
+    meta_csv = tmp_path / "meta.csv"
+    meta.to_csv(meta_csv, index=False)
+    args = build_parser().parse_args(["audit", str(out), "--metadata", str(meta_csv), "--report", str(tmp_path / "rep")])
+    assert args.func is run
+    assert run(args) == 0
+    printed = capsys.readouterr().out
+    assert "site fell" in printed and "report:" in printed
+    assert (tmp_path / "rep" / "report.html").is_file() and (tmp_path / "rep" / "before_after.csv").is_file()
+
+
+def test_cli_default_folder_and_bad_arguments(raw_cohort, tmp_path, capsys):
+    out, meta = raw_cohort
+    parser = build_parser()
+    assert run(parser.parse_args(["audit", str(out), "--source", "thumbnail"])) == 0
+    assert (out / "audit" / "report.html").is_file()
+    assert run(parser.parse_args(["audit", str(tmp_path / "nope")])) == 2
+    assert run(parser.parse_args(["audit", str(out), "--metadata", str(tmp_path / "missing.csv")])) == 2
+    bad = tmp_path / "bad.csv"
+    bad.write_text("case,site\na,b\n")
+    assert run(parser.parse_args(["audit", str(out), "--metadata", str(bad)])) == 2
+    assert run(parser.parse_args(["audit", str(tmp_path)])) == 2  # not an output folder
+    assert "slide_id" in capsys.readouterr().err
+    with pytest.raises(SystemExit) as exit_info:
+        parser.parse_args(["audit", str(out), "--source", "pixels"])
+    assert exit_info.value.code == 2
