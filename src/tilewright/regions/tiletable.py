@@ -17,7 +17,7 @@ import numpy as np
 
 from tilewright.errors import RegionError
 
-__all__ = ["TileTable", "read_tile_table", "RESERVED_COLUMNS"]
+__all__ = ["TileTable", "read_tile_table", "read_table_file", "RESERVED_COLUMNS"]
 
 #: Columns that describe tiles rather than classes.
 RESERVED_COLUMNS = ("y", "x", "tile", "mpp", "tissue", "slide_id", "slide", "class")
@@ -40,16 +40,18 @@ class TileTable:
     path: str | None = None
 
     def frame(self):
-        """The table as a pandas DataFrame (y, x, tile, mpp, class, and probabilities if soft)."""
+        """The table as a pandas DataFrame: y, x, tile, mpp, then ``class`` (hard) or one
+        probability column per class (soft), so that it reads back the same way."""
         import pandas as pd
 
-        data = {"y": self.yx[:, 0], "x": self.yx[:, 1], "tile": self.tile, "mpp": self.mpp}
-        best = np.argmax(self.scores, axis=1) if len(self.scores) else np.zeros(0, int)
-        data["class"] = np.asarray(self.classes, dtype=object)[best] if self.classes else []
-        frame = pd.DataFrame(data)
+        frame = pd.DataFrame({"y": self.yx[:, 0], "x": self.yx[:, 1], "tile": self.tile, "mpp": self.mpp})
         if self.soft:
             for k, name in enumerate(self.classes):
                 frame[name] = self.scores[:, k]
+        else:
+            names = np.asarray(self.classes + (None,), dtype=object)
+            best = np.where(self.scores.any(axis=1), np.argmax(self.scores, axis=1), len(self.classes))
+            frame["class"] = names[best]
         return frame
 
     def coverage(self):
@@ -115,7 +117,7 @@ def read_tile_table(table, tile=None, mpp=None, *, classes=None, soft=False) -> 
     frame = table
     if isinstance(table, (str, os.PathLike)):
         path = os.fspath(table)
-        frame = _read_frame(path)
+        frame = read_table_file(path)
     try:
         return _check(frame, tile, mpp, classes, soft, path)
     except RegionError as exc:
@@ -124,7 +126,8 @@ def read_tile_table(table, tile=None, mpp=None, *, classes=None, soft=False) -> 
         raise
 
 
-def _read_frame(path):
+def read_table_file(path):
+    """Read a ``.csv`` or ``.parquet``/``.pq`` table; RegionError when missing, damaged or unknown."""
     import pandas as pd
 
     ext = os.path.splitext(path)[1].lower()
