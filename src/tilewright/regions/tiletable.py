@@ -221,8 +221,10 @@ def _probabilities(frame, classes, soft):
         if missing:
             raise RegionError(f"tile table lacks probability column(s) {missing}")
     else:
-        names = [str(c) for c in frame.columns
-                 if str(c) not in RESERVED_COLUMNS and np.issubdtype(frame[c].dtype, np.number)]
+        from pandas.api.types import is_bool_dtype, is_numeric_dtype
+
+        names = [str(c) for c in frame.columns if str(c) not in RESERVED_COLUMNS
+                 and is_numeric_dtype(frame[c].dtype) and not is_bool_dtype(frame[c].dtype)]
     if not names:
         raise RegionError("tile table has neither a 'class' column nor probability columns; add a "
                           "'class' column or one numeric column per class")
