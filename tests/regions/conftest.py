@@ -60,11 +60,13 @@ class TruthMask:
         return box_fractions(self._sat, self.mpp, yx, h, w, mpp)
 
 
-@pytest.fixture
+@pytest.fixture(scope="session")
 def fake_slide_cls():
+    """The FakeSlide class (a fixture, so tests need not import this conftest by name)."""
     return FakeSlide
 
 
-@pytest.fixture
+@pytest.fixture(scope="session")
 def truth_mask_cls():
+    """The TruthMask class."""
     return TruthMask

@@ -58,11 +58,9 @@ def test_single_file_and_multi_slide_table(tmp_path):
 
 
 @pytest.fixture(scope="module")
-def small_slide():
-    from conftest import FakeSlide, TruthMask
-
+def small_slide(fake_slide_cls, truth_mask_cls):
     layout = random_layout(600, 600, seed=1, n_islands=1)
-    return FakeSlide(layout), TruthMask(layout)
+    return fake_slide_cls(layout), truth_mask_cls(layout)
 
 
 @pytest.mark.parametrize("fn,match", [

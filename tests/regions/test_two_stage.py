@@ -53,10 +53,8 @@ def dense_probability(tiles):
 
 
 @pytest.fixture(scope="module", params=["class ids", "soft probabilities"])
-def first_pass(request):
-    from conftest import FakeSlide, TruthMask
-
-    slide = FakeSlide(LAYOUT, level0_mpp=0.25)
+def first_pass(request, fake_slide_cls, truth_mask_cls):
+    slide = fake_slide_cls(LAYOUT, level0_mpp=0.25)
     calls = []
     soft = request.param == "soft probabilities"
 
@@ -65,7 +63,7 @@ def first_pass(request):
         return dense_probability(tiles) if soft else dense_class(tiles)
 
     regions = classify_regions(slide, fn, mpp=0.5, tile=128, batch=48, min_tissue=0.5,
-                               mask=TruthMask(LAYOUT), classes=["normal", "tumour"], soft=soft)
+                               mask=truth_mask_cls(LAYOUT), classes=["normal", "tumour"], soft=soft)
     return slide, regions, calls
 
 
@@ -86,19 +84,17 @@ def test_two_stage_precision_and_recall(first_pass, stride):
     assert precision >= 0.95 and recall >= 0.95  # issue 7 acceptance threshold
 
 
-def test_first_pass_reads_only_tissue_in_bounded_batches(first_pass):
+def test_first_pass_reads_only_tissue_in_bounded_batches(first_pass, truth_mask_cls):
     slide, regions, calls = first_pass
     table = regions.table
     assert set(table.columns) >= {"y", "x", "tile", "mpp"}
     assert all(c[0] <= 48 and tuple(c[1:]) == (128, 128, 3) for c in calls)
     assert sum(c[0] for c in calls) == len(table)
     # reference: the true tissue mask — every classified tile has >= 0.5 tissue, and no other does
-    from conftest import TruthMask
-
     h, w = LAYOUT.shape_at(0.5)
     gy, gx = np.meshgrid(np.arange(0, h, 128), np.arange(0, w, 128), indexing="ij")
     grid = np.c_[gy.ravel(), gx.ravel()]
-    tissue = TruthMask(LAYOUT).fractions(grid, 128, 128, 0.5) >= 0.5
+    tissue = truth_mask_cls(LAYOUT).fractions(grid, 128, 128, 0.5) >= 0.5
     assert {tuple(p) for p in grid[tissue]} == set(zip(table["y"], table["x"]))
     # the normal island is classified normal almost everywhere (ground truth: no tumour there)
     normal_island = (table["x"] * 0.5 > 2800).to_numpy()
