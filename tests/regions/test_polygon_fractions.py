@@ -119,3 +119,19 @@ def test_unknown_keep_and_unbound_mpp_are_clear_errors():
     both = bound.fractions("tumour,stroma", [[1400, 1400]], 100, 100, 0.5)
     assert both[0] == pytest.approx(1.0)
     assert bound.to_dict()["kind"] == "geojson" and bound.to_dict()["classes"] == ["tumour", "stroma", "necrosis"]
+
+
+def test_pickled_and_threaded_use_agree():
+    """Maps travel to worker processes (pickle) and are queried from threads."""
+    import pickle
+    from concurrent.futures import ThreadPoolExecutor
+
+    regions = RegionMap.from_geojson(_collection(), mpp=LEVEL0_MPP)
+    yx = np.random.default_rng(5).uniform(0, 5000, size=(300, 2))
+    expected = regions.fractions("tumour", yx, 256, 256, 0.5)
+    again = pickle.loads(pickle.dumps(regions))
+    np.testing.assert_array_equal(again.fractions("tumour", yx, 256, 256, 0.5), expected)
+    fresh = RegionMap.from_geojson(_collection(), mpp=LEVEL0_MPP)
+    with ThreadPoolExecutor(4) as pool:
+        results = list(pool.map(lambda part: fresh.fractions("tumour", part, 256, 256, 0.5), np.array_split(yx, 8)))
+    np.testing.assert_array_equal(np.concatenate(results), expected)  # reference: the serial answer

@@ -15,6 +15,8 @@ References
 
 from __future__ import annotations
 
+import threading
+
 import numpy as np
 
 __all__ = ["PolygonCoverage"]
@@ -43,6 +45,17 @@ class PolygonCoverage:
         self._tree = shapely.STRtree(self._pieces) if pieces else None
         if pieces:
             shapely.prepare(self._pieces)
+        # GEOS builds parts of prepared geometries lazily on first use; queries from several
+        # threads (a threaded cohort run) therefore go through one lock per coverage object.
+        self._lock = threading.Lock()
+
+    def __getstate__(self):
+        return {"pieces": list(self._pieces)}
+
+    def __setstate__(self, state):
+        import shapely
+
+        self.__init__(shapely.MultiPolygon(state["pieces"]) if state["pieces"] else None)
 
     @property
     def area(self) -> float:
@@ -76,15 +89,16 @@ class PolygonCoverage:
             return out
         box_area = (x1 - x0) * (y1 - y0)
         boxes = shapely.box(x0, y0, x1, y1)
-        box_idx, piece_idx = self._tree.query(boxes, predicate="intersects")
-        if box_idx.size == 0:
-            return out
-        pieces = self._pieces[piece_idx]
-        whole = shapely.contains_properly(pieces, boxes[box_idx])
-        covered = np.where(whole, box_area[box_idx], 0.0)
-        cut = ~whole
-        if cut.any():
-            covered[cut] = shapely.area(shapely.intersection(boxes[box_idx[cut]], pieces[cut]))
+        with self._lock:
+            box_idx, piece_idx = self._tree.query(boxes, predicate="intersects")
+            if box_idx.size == 0:
+                return out
+            pieces = self._pieces[piece_idx]
+            whole = shapely.contains_properly(pieces, boxes[box_idx])
+            covered = np.where(whole, box_area[box_idx], 0.0)
+            cut = ~whole
+            if cut.any():
+                covered[cut] = shapely.area(shapely.intersection(boxes[box_idx[cut]], pieces[cut]))
         np.add.at(out, box_idx, covered)
         return np.clip(out / box_area, 0.0, 1.0)
 

@@ -166,7 +166,10 @@ class RegionMap:
             raise RegionError(f"labels must hold integers (class ids), got dtype {labels.dtype}")
         mpp = _positive(mpp, "mpp")
         if isinstance(classes, dict):
-            pairs = [(int(v), str(n)) for v, n in classes.items()]
+            try:
+                pairs = [(int(v), str(n)) for v, n in classes.items()]
+            except (TypeError, ValueError):
+                raise RegionError("classes dict keys must be integer label values") from None
         elif isinstance(classes, (list, tuple)):
             pairs = [(v, str(n)) for v, n in enumerate(classes)]
         else:
@@ -239,8 +242,7 @@ class RegionMap:
             return self
         clone = RegionMap(self._classes, kind=self._kind, provenance=self._provenance, shapes=self._shapes,
                           level0_mpp=level0_mpp)
-        if self._level0_mpp == clone._level0_mpp:
-            clone._cache = self._cache
+        clone._cache = self._cache  # coverage objects live in level-0 pixels: valid at any binding
         return clone
 
     # queries --------------------------------------------------------------------------------
@@ -335,6 +337,11 @@ class RegionMap:
     def __repr__(self):
         where = self._provenance.get("path") or "in memory"
         return f"RegionMap({self._kind}, classes={list(self._classes)}, source={where})"
+
+    def __getstate__(self):
+        state = dict(self.__dict__)
+        state["_cache"] = {}  # rebuilt lazily where the map is used (for example a worker process)
+        return state
 
     # internals ------------------------------------------------------------------------------
     def _polygon_fractions(self, names, yx, h, w, mpp):
