@@ -80,7 +80,7 @@ def area_weights(start: int, n: int, scale: float, src_lo: int, src_n: int):
 
 
 def area_downsample(src: np.ndarray, y: int, x: int, h: int, w: int, scale: float,
-                    src_y: int, src_x: int) -> np.ndarray:
+                    src_y: int, src_x: int, out: np.ndarray | None = None) -> np.ndarray:
     """Target pixels ``[y, y+h) x [x, x+w)`` from a source block, by area averaging.
 
     Parameters
@@ -93,6 +93,8 @@ def area_downsample(src: np.ndarray, y: int, x: int, h: int, w: int, scale: floa
         Source pixels per target pixel (>= 1).
     src_y, src_x : int
         Global source coordinates of ``src[0, 0]``.
+    out : ndarray, optional
+        uint8 (h, w, C) array (may be a view) to write the result into.
 
     Returns
     -------
@@ -106,16 +108,31 @@ def area_downsample(src: np.ndarray, y: int, x: int, h: int, w: int, scale: floa
     """
     import cv2
 
-    hs, ws, c = src.shape
     k = integer_factor(scale)
     if k == 1:
-        return np.ascontiguousarray(src[y - src_y : y - src_y + h, x - src_x : x - src_x + w])
-    if k is not None:
+        res = src[y - src_y : y - src_y + h, x - src_x : x - src_x + w]
+    elif k is not None:
         oy, ox = y * k - src_y, x * k - src_x
         block = src[oy : oy + h * k, ox : ox + w * k]
         if block.shape[:2] != (h * k, w * k):
             raise ValueError("source block does not cover the requested targets")
-        return cv2.resize(block, (w, h), interpolation=cv2.INTER_AREA)
+        if out is not None and out.flags.c_contiguous:
+            res = cv2.resize(block, (w, h), dst=out, interpolation=cv2.INTER_AREA)
+            if res is out or np.shares_memory(res, out):
+                return out
+        else:
+            res = cv2.resize(block, (w, h), interpolation=cv2.INTER_AREA)
+    else:
+        res = _fractional(src, y, x, h, w, scale, src_y, src_x)
+    if out is None:
+        return np.ascontiguousarray(res)
+    out[...] = res
+    return out
+
+
+def _fractional(src, y, x, h, w, scale, src_y, src_x):
+    """Separable exact-overlap weights as sparse matrices, float32, rounded."""
+    hs, ws, c = src.shape
     wy = area_weights(y, h, scale, src_y, hs)
     wx = area_weights(x, w, scale, src_x, ws)
     rows = wy @ src.reshape(hs, ws * c).astype(np.float32)  # (h, ws*c)

@@ -14,6 +14,8 @@ __all__ = ["ResampledView"]
 # Source pixels decoded per internal step of a read (bounds memory of huge reads).
 _STEP_SOURCE_PX = 1 << 24
 _STEP_SOURCE_PX_FRACTIONAL = 1 << 22  # the float32 path holds ~4 float copies
+# Source rows per strip of a read (one or two rows of stored tiles).
+_STRIP_SOURCE_ROWS = 256
 
 
 class ResampledView:
@@ -94,18 +96,27 @@ class ResampledView:
         if s == 1.0:
             return self.slide.read_level(level, y, x, h, w)
         out = np.empty((h, w, 3), np.uint8)
-        limit = _STEP_SOURCE_PX if integer_factor(s) else _STEP_SOURCE_PX_FRACTIONAL
-        cols = min(w, max(1, int(limit // (s * s)))) if w else 0
-        rows = max(1, int(limit // (max(cols, 1) * s * s)))
-        for by in range(0, h, rows):
-            bh = min(rows, h - by)
+        if h == 0 or w == 0:
+            return out
+        k = integer_factor(s)
+        limit = _STEP_SOURCE_PX if k else _STEP_SOURCE_PX_FRACTIONAL
+        # Work in strips of view rows whose source rows start on stored tile rows: the
+        # decoded strip stays in cache while it is resampled (and each tile is decoded once).
+        tile_h = self.slide.tile_shape(level)[0]
+        unit = tile_h // math.gcd(tile_h, k) if k else max(1, round(tile_h / s))
+        rows = unit * max(1, round(_STRIP_SOURCE_ROWS / (unit * s)))
+        cols = w if w * s * rows * s <= limit else max(1, int(limit // (rows * s * s)))
+        by = 0
+        while by < h:
+            bh = min(h - by, rows - (y + by) % rows)
             sy0, sy1 = source_span(y + by, bh, s)
             for bx in range(0, w, cols):
                 bw = min(cols, w - bx)
                 sx0, sx1 = source_span(x + bx, bw, s)
                 src = self.slide.read_level(level, sy0, sx0, sy1 - sy0, sx1 - sx0)
-                out[by : by + bh, bx : bx + bw] = area_downsample(
-                    src, y + by, x + bx, bh, bw, s, sy0, sx0)
+                dst = out[by : by + bh, bx : bx + bw]
+                area_downsample(src, y + by, x + bx, bh, bw, s, sy0, sx0, out=dst)
+            by += bh
         return out
 
     def block_size(self, target: int = 2048) -> int:
