@@ -63,12 +63,12 @@ def area_weights(start: int, n: int, scale: float, src_lo: int, src_n: int):
 
     j = np.arange(start, start + n, dtype=np.float64)
     a = j * scale
-    b = a + scale
+    b = (j + 1.0) * scale  # same expression as source_span, so spans and weights agree
     i0 = np.floor(a).astype(np.int64)
     kmax = int(math.ceil(scale)) + 1
     idx = i0[:, None] + np.arange(kmax)[None, :]
     w = np.minimum(b[:, None], idx + 1) - np.maximum(a[:, None], idx)
-    w = np.clip(w, 0.0, None) / scale
+    w = np.where(w > 1e-9, w, 0.0) / scale
     idx = idx - src_lo
     used = idx[w > 0]
     if used.size and (used.min() < 0 or used.max() >= src_n):
