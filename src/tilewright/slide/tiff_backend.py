@@ -14,7 +14,7 @@ import threading
 
 import numpy as np
 
-from tilewright.errors import DamagedSlideError, UnsupportedSlideError
+from tilewright.errors import DamagedSlideError, SlideTooLargeError, UnsupportedSlideError
 from tilewright.slide.resolution import (
     Resolution,
     mpp_from_aperio,
@@ -22,6 +22,7 @@ from tilewright.slide.resolution import (
     mpp_from_tiff_tags,
     objective_from_ome,
 )
+from tilewright.slide.sniff import MAX_PIXELS, MAX_SIDE
 
 __all__ = ["TiffBackend"]
 
@@ -82,7 +83,7 @@ class TiffBackend:
         self.path = path
         try:
             tf = tifffile.TiffFile(path)
-        except (tifffile.TiffFileError, ValueError, OSError, IndexError, KeyError) as exc:
+        except Exception as exc:  # the header said TIFF: any parse failure means damage
             raise DamagedSlideError(f"the TIFF structure cannot be parsed ({exc})", path) from exc
         try:
             self._levels, self.resolution, self.flavour = self._inspect(tf, path)
@@ -93,7 +94,18 @@ class TiffBackend:
             tf.close()
             raise DamagedSlideError(f"the TIFF structure cannot be parsed ({exc})", path) from exc
         tf.close()
+        h0, w0 = self._levels[0].height, self._levels[0].width
+        if max(h0, w0) > MAX_SIDE or h0 * w0 > MAX_PIXELS:
+            raise SlideTooLargeError(
+                f"declares {w0} x {h0} px at level 0, beyond the supported {MAX_SIDE} px a "
+                f"side / {MAX_PIXELS:.0e} px; the header is likely corrupt", path)
         size = os.path.getsize(path)
+        for i, lv in enumerate(self._levels):
+            expected = -(-lv.height // lv.tile_h) * lv.grid_w
+            if len(lv.offsets) != expected:
+                raise DamagedSlideError(
+                    f"level {i} lists {len(lv.offsets)} tiles where its size needs {expected}; "
+                    "the file is damaged", path)
         for lv in self._levels:
             ends = lv.offsets + lv.counts
             if len(ends) and int(ends.max()) > size:
