@@ -56,10 +56,7 @@ def _area_reduce(block: np.ndarray, factor: int) -> np.ndarray:
     ph, pw = oh * factor, ow * factor
     if (ph, pw) == (h, w):
         return cv2.resize(block, (ow, oh), interpolation=cv2.INTER_AREA)
-    # Edge cells: average only the pixels that exist (pad by edge replication of the mean
-    # is not exact, so compute with explicit counts).
-    acc = np.zeros((oh, ow, block.shape[2]), np.float32)
-    cnt = np.zeros((oh, ow, 1), np.float32)
+    # Edge cells: average only the pixels that exist (explicit counts).
     padded = np.zeros((ph, pw, block.shape[2]), np.float32)
     padded[:h, :w] = block
     ones = np.zeros((ph, pw, 1), np.float32)
@@ -214,10 +211,7 @@ def write_pyramid(
             return level0_tiles()
         return _tiles_of(levels[k], tile)
 
-    levels: dict[int, np.ndarray] = {}
-    if level1 is not None:
-        # filled lazily: level 1 exists only once level 0 has been consumed
-        pass
+    levels: dict[int, np.ndarray] = {}  # filled once level 0 has been streamed out
 
     def ensure_levels():
         levels[1] = level1

@@ -80,7 +80,8 @@ def area_weights(start: int, n: int, scale: float, src_lo: int, src_n: int):
 
 
 def area_downsample(src: np.ndarray, y: int, x: int, h: int, w: int, scale: float,
-                    src_y: int, src_x: int, out: np.ndarray | None = None) -> np.ndarray:
+                    src_y: int, src_x: int, out: np.ndarray | None = None,
+                    weights: dict | None = None) -> np.ndarray:
     """Target pixels ``[y, y+h) x [x, x+w)`` from a source block, by area averaging.
 
     Parameters
@@ -95,6 +96,9 @@ def area_downsample(src: np.ndarray, y: int, x: int, h: int, w: int, scale: floa
         Global source coordinates of ``src[0, 0]``.
     out : ndarray, optional
         uint8 (h, w, C) array (may be a view) to write the result into.
+    weights : dict, optional
+        Cache of column weight matrices, reused across calls with the same columns
+        (a read made of several row strips computes them once).
 
     Returns
     -------
@@ -123,19 +127,28 @@ def area_downsample(src: np.ndarray, y: int, x: int, h: int, w: int, scale: floa
         else:
             res = cv2.resize(block, (w, h), interpolation=cv2.INTER_AREA)
     else:
-        res = _fractional(src, y, x, h, w, scale, src_y, src_x)
+        return _fractional(src, y, x, h, w, scale, src_y, src_x, out, weights)
     if out is None:
         return np.ascontiguousarray(res)
     out[...] = res
     return out
 
 
-def _fractional(src, y, x, h, w, scale, src_y, src_x):
+def _fractional(src, y, x, h, w, scale, src_y, src_x, out, weights):
     """Separable exact-overlap weights as sparse matrices, float32, rounded."""
     hs, ws, c = src.shape
     wy = area_weights(y, h, scale, src_y, hs)
-    wx = area_weights(x, w, scale, src_x, ws)
+    key = (x, w, src_x, ws)
+    wx = weights.get(key) if weights is not None else None
+    if wx is None:
+        wx = area_weights(x, w, scale, src_x, ws)
+        if weights is not None:
+            weights[key] = wx
     rows = wy @ src.reshape(hs, ws * c).astype(np.float32)  # (h, ws*c)
     cols = rows.reshape(h, ws, c).transpose(1, 0, 2).reshape(ws, h * c)
-    out = (wx @ cols).reshape(w, h, c).transpose(1, 0, 2)  # (h, w, c)
-    return np.clip(np.rint(out), 0, 255).astype(np.uint8)
+    res = wx @ cols  # (w, h*c)
+    np.rint(res, out=res)  # a convex combination of 0..255 stays within 0..255
+    if out is None:
+        out = np.empty((h, w, c), np.uint8)
+    np.copyto(out, res.reshape(w, h, c).transpose(1, 0, 2), casting="unsafe")
+    return out

@@ -106,6 +106,7 @@ class ResampledView:
         unit = tile_h // math.gcd(tile_h, k) if k else max(1, round(tile_h / s))
         rows = unit * max(1, round(_STRIP_SOURCE_ROWS / (unit * s)))
         cols = w if w * s * rows * s <= limit else max(1, int(limit // (rows * s * s)))
+        weights: dict = {}
         by = 0
         while by < h:
             bh = min(h - by, rows - (y + by) % rows)
@@ -115,7 +116,8 @@ class ResampledView:
                 sx0, sx1 = source_span(x + bx, bw, s)
                 src = self.slide.read_level(level, sy0, sx0, sy1 - sy0, sx1 - sx0)
                 dst = out[by : by + bh, bx : bx + bw]
-                area_downsample(src, y + by, x + bx, bh, bw, s, sy0, sx0, out=dst)
+                area_downsample(src, y + by, x + bx, bh, bw, s, sy0, sx0, out=dst,
+                                weights=weights)
             by += bh
         return out
 
