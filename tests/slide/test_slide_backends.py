@@ -123,3 +123,26 @@ def test_tiff_backend_never_imports_openslide(write):
             f"s = tw.open_wsi({str(path)!r}); s.at_mpp(0.5).read(0, 0, 64, 64); s.close()\n"
             "assert 'openslide' not in sys.modules, 'openslide imported'\n")
     subprocess.run([sys.executable, "-c", code], check=True)
+
+
+def test_ome_series_pyramid(tmp_path):
+    """OME-TIFF storing each resolution as its own Image series."""
+    import cv2
+    import tifffile
+
+    from .conftest import make_image
+
+    img = make_image(600, 800)
+    small = cv2.resize(img, (400, 300), interpolation=cv2.INTER_AREA)
+    path = tmp_path / "series.ome.tif"
+    with tifffile.TiffWriter(path, ome=True) as t:
+        for arr, mpp in ((img, 0.25), (small, 0.5)):
+            t.write(arr, tile=(128, 128), photometric="rgb", compression="zlib",
+                    metadata={"axes": "YXS", "PhysicalSizeX": mpp, "PhysicalSizeY": mpp})
+    with tw.open_wsi(path) as s:
+        assert s.backend == "tiff" and s.mpp == 0.25
+        assert [(lv.height, lv.width, lv.downsample) for lv in s.levels] == \
+            [(600, 800, 1.0), (300, 400, 2.0)]  # ground truth written above
+        np.testing.assert_array_equal(s.read_level(1, 0, 0, 300, 400), small)
+        np.testing.assert_array_equal(s.read_level(0, 100, 200, 50, 60),
+                                      img[100:150, 200:260])

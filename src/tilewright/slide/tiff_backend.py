@@ -131,8 +131,9 @@ class TiffBackend:
                 raise UnsupportedSlideError(
                     "multi-plane series (channels, z or time) are not RGB slides", path)
             pages.append(lv.keyframe)
-        if not tf.is_ome and not tf.is_svs and len(tf.pages) > 1:
-            # generic IFD chain: tifffile may leave further tiled RGB levels in other series
+        if not tf.is_svs and len(tf.pages) > 1:
+            # IFD chains and OME "one Image per resolution" files: further tiled RGB levels
+            # may sit in other series (reduced copies are recognized by their aspect below)
             shapes = {(p.imagelength, p.imagewidth) for p in pages}
             for extra in tf.series[1:]:
                 kf = extra.keyframe
