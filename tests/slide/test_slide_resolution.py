@@ -69,10 +69,11 @@ def test_ome_physical_size(tmp_path):
     from tilewright.demo.pyramid import write_pyramid
 
     path = tmp_path / "s.ome.tif"
-    write_pyramid(path, SMALL, mpp=0.2465, layout="ome", compression="zlib", n_levels=2)
+    write_pyramid(path, SMALL, mpp=0.2465, layout="ome", compression="zlib", n_levels=2,
+                  objective=40)
     with tw.open_wsi(path) as s:
         assert s.mpp == pytest.approx(0.2465) and s.mpp_source == "ome"  # written above
-        assert len(s.levels) == 2
+        assert s.objective == 40.0 and len(s.levels) == 2
 
 
 def test_ome_units_and_objective():

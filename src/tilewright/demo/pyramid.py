@@ -229,8 +229,6 @@ def write_pyramid(
             if mpp is not None:
                 meta.update(PhysicalSizeX=mpp, PhysicalSizeXUnit="µm",
                             PhysicalSizeY=mpp, PhysicalSizeYUnit="µm")
-            if objective is not None:
-                meta["Objective"] = {"NominalMagnification": float(objective)}
         elif layout == "svs":
             desc = _svs_description(W, H, tile, comp, quality, mpp, objective)
         extra = {}
@@ -239,10 +237,9 @@ def write_pyramid(
         sub = len(shapes) - 1 if layout in ("subifd", "ome") else 0
         tw.write(level_data(0), shape=(H, W, 3), subifds=sub or None, metadata=meta,
                  description=desc, **extra, **common)
-        if len(shapes) == 1:
-            return shapes
-        ensure_levels()
-        if layout == "svs":
+        if len(shapes) > 1:
+            ensure_levels()
+        if layout == "svs" and len(shapes) > 1:
             thumb = levels[len(shapes) - 1]
             tw.write(thumb, photometric="rgb", compression=comp,
                      compressionargs=compressionargs,
@@ -260,7 +257,22 @@ def write_pyramid(
                 tw.write(level_data(k), description=d, **kw)
             else:
                 tw.write(level_data(k), subfiletype=1, **kw)
+    if ome and objective is not None:
+        _add_ome_objective(path, float(objective))
     return shapes
+
+
+def _add_ome_objective(path: str, objective: float) -> None:
+    """Insert an OME ``Instrument/Objective`` with ``NominalMagnification`` and refer to it."""
+    import tifffile
+
+    xml = tifffile.tiffcomment(path)
+    inst = (f'<Instrument ID="Instrument:0"><Objective ID="Objective:0" '
+            f'NominalMagnification="{objective:g}"/></Instrument>')
+    xml = xml.replace("<Image ", inst + "<Image ", 1)
+    xml = xml.replace("<Pixels ", '<InstrumentRef ID="Instrument:0"/>'
+                      '<ObjectiveSettings ID="Objective:0"/><Pixels ', 1)
+    tifffile.tiffcomment(path, comment=xml.encode("utf-8"))
 
 
 def _svs_description(W, H, tile, comp, quality, mpp, objective, level=None) -> str:
