@@ -5,8 +5,8 @@ from __future__ import annotations
 import os
 
 from tilewright.errors import (
-    DamagedSlideError,
     NotAnImageError,
+    SlideError,
     SlideTooLargeError,
     UnsupportedSlideError,
 )
@@ -104,7 +104,7 @@ def _open_reader(path: str, kind: str, backend: str, mpp: float | None):
             # no resolution in what tifffile sees: OpenSlide may know the vendor's fields
             try:
                 other = OpenSlideBackend(path)
-            except (UnsupportedSlideError, DamagedSlideError):
+            except SlideError:
                 return reader
             if other.resolution.mpp is not None:
                 reader.close()
