@@ -1,1 +1,19 @@
+"""Reading whole-slide images at one physical resolution.
 
+Modules
+-------
+open               ``open_wsi``: sniff the file, pick a backend, check the resolution.
+wholeslide         ``WholeSlide`` (levels, µm/px, ``read_level``, ``at_mpp``, ``thumbnail``)
+                   and ``Level``.
+view               ``ResampledView``: the slide at a target µm/px (``read``, ``iter_blocks``,
+                   ``block_size``, ``to_dask``).
+downsample         area averaging with weights fixed by global coordinates (seam-free).
+tiff_backend       tifffile structure + positional reads decoding only the touched tiles.
+openslide_backend  every format OpenSlide reads.
+resolution         µm/px and objective from TIFF tags, OME-XML, Aperio descriptions,
+                   OpenSlide properties; plausibility checks.
+sniff              missing / empty / not-an-image checks before any decoder runs.
+
+Nothing here is imported by ``import tilewright``; openslide is imported only when the
+OpenSlide backend is used.
+"""

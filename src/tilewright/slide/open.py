@@ -1,0 +1,128 @@
+"""open_wsi: open a whole-slide image with the backend that serves it correctly."""
+
+from __future__ import annotations
+
+import os
+
+from tilewright.errors import (
+    NotAnImageError,
+    SlideError,
+    SlideTooLargeError,
+    UnsupportedSlideError,
+)
+from tilewright.slide.resolution import checked_mpp
+from tilewright.slide.sniff import MAX_PIXELS, MAX_SIDE, sniff
+from tilewright.slide.wholeslide import WholeSlide
+
+__all__ = ["open_wsi"]
+
+_BACKENDS = ("auto", "tiff", "openslide")
+
+
+def open_wsi(path: str | os.PathLike, *, mpp: float | None = None,
+             backend: str = "auto") -> WholeSlide:
+    """Open a whole-slide image.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The slide file.
+    mpp : float, optional
+        Level-0 µm/px to use instead of what the file records (for files that lack or
+        misstate it).
+    backend : {"auto", "tiff", "openslide"}
+        ``"tiff"`` decodes TIFF-family pyramids (tiled TIFF, OME-TIFF, Aperio-style SVS)
+        directly, touching only the tiles a read needs; ``"openslide"`` serves every format
+        OpenSlide reads. ``"auto"`` uses ``"tiff"`` when it serves the file with its levels
+        and a resolution, else ``"openslide"``.
+
+    Returns
+    -------
+    WholeSlide
+        Also a context manager.
+
+    Raises
+    ------
+    SlideNotFoundError, EmptyFileError, NotAnImageError
+        Missing path, zero-byte file, or a file that is not an image.
+    DamagedSlideError
+        Truncated or unparsable file.
+    UnsupportedSlideError
+        No backend can serve it.
+    MissingResolutionError, ImplausibleResolutionError
+        No µm/px recorded and none given, or a value outside 0.05-20 µm/px.
+    SlideTooLargeError
+        Declared dimensions are absurd (refused before any allocation).
+
+    Examples
+    --------
+    >>> import tilewright as tw                                  # doctest: +SKIP
+    >>> with tw.open_wsi("slide.svs") as slide:                  # doctest: +SKIP
+    ...     view = slide.at_mpp(0.5)
+    ...     block = view.read(0, 0, 2048, 2048)
+    """
+    if backend not in _BACKENDS:
+        raise ValueError(f"backend must be one of {_BACKENDS}, got {backend!r}")
+    path = os.fspath(path)
+    kind = sniff(path)
+    reader = _open_reader(path, kind, backend, mpp)
+    try:
+        h0, w0 = reader.level_shapes[0]
+        if max(h0, w0) > MAX_SIDE or h0 * w0 > MAX_PIXELS or h0 < 1 or w0 < 1:
+            raise SlideTooLargeError(
+                f"declares {w0} x {h0} px at level 0, beyond the supported "
+                f"{MAX_SIDE} px a side / {MAX_PIXELS:.0e} px; the header is likely corrupt",
+                path)
+        resolution = checked_mpp(reader.resolution, mpp, path)
+    except BaseException:
+        reader.close()
+        raise
+    return WholeSlide(path, reader, resolution, mpp_override=mpp, requested_backend=backend)
+
+
+def _open_reader(path: str, kind: str, backend: str, mpp: float | None):
+    from tilewright.slide.openslide_backend import OpenSlideBackend
+    from tilewright.slide.tiff_backend import TiffBackend
+
+    if backend == "tiff":
+        if kind != "tiff":
+            raise UnsupportedSlideError(
+                f"the tiff backend reads TIFF files only (this is {kind}); use backend='auto'",
+                path)
+        return TiffBackend(path)
+    if backend == "openslide":
+        return OpenSlideBackend(path)
+    tiff_error = None
+    if kind == "tiff":
+        try:
+            reader = TiffBackend(path)
+        except UnsupportedSlideError as exc:
+            tiff_error = exc
+        else:
+            if reader.resolution.mpp is not None or mpp is not None:
+                return reader
+            # no resolution in what tifffile sees: OpenSlide may know the vendor's fields
+            try:
+                other = OpenSlideBackend(path)
+            except SlideError:
+                return reader
+            if other.resolution.mpp is not None:
+                reader.close()
+                return other
+            other.close()
+            return reader
+    try:
+        return OpenSlideBackend(path)
+    except UnsupportedSlideError as exc:
+        if kind == "other":
+            raise NotAnImageError(
+                "no backend recognizes this file as an image (tiff or OpenSlide formats)",
+                path) from exc
+        reason = f" ({tiff_error.reason})" if tiff_error is not None else ""
+        raise UnsupportedSlideError(
+            f"neither the tiff backend nor OpenSlide can read it as a whole-slide "
+            f"pyramid{reason}; convert it to pyramidal tiled TIFF or OME-TIFF", path) from exc
+
+
+def _reopen(path, mpp, backend):
+    return open_wsi(path, mpp=mpp, backend=backend)

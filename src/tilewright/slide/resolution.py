@@ -1,0 +1,236 @@
+"""Level-0 resolution (µm/px) and objective power from slide metadata.
+
+Sources, each parsed by one function here:
+
+- TIFF ``XResolution``/``YResolution`` with ``ResolutionUnit`` (2 = inch, 3 = centimetre;
+  1 = NONE means the values carry no physical unit, so the resolution is unknown);
+- OME-XML ``Pixels/@PhysicalSizeX`` and ``@PhysicalSizeY`` with their unit attributes
+  (default µm, as the OME schema says) and ``Objective/@NominalMagnification``;
+- the Aperio-style ImageDescription (``MPP = 0.2500|AppMag = 40``);
+- OpenSlide properties (``openslide.mpp-x``/``-y``, ``openslide.objective-power``, or
+  ``tiff.XResolution`` with ``tiff.ResolutionUnit``).
+
+References
+----------
+.. [1] Adobe Developers Association (1992). TIFF Revision 6.0, section 8 "Baseline Fields":
+   ResolutionUnit.
+.. [2] Open Microscopy Environment. OME Data Model and File Formats, schema 2016-06:
+   ``Pixels`` attributes ``PhysicalSizeX``, ``PhysicalSizeXUnit``.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+import xml.etree.ElementTree as ET
+from collections.abc import Mapping
+from typing import NamedTuple
+
+from tilewright.errors import ImplausibleResolutionError, MissingResolutionError
+
+__all__ = [
+    "Resolution",
+    "MPP_RANGE",
+    "mpp_from_tiff_tags",
+    "mpp_from_ome",
+    "objective_from_ome",
+    "mpp_from_aperio",
+    "mpp_from_openslide",
+    "checked_mpp",
+]
+
+#: Plausible level-0 µm/px (inclusive). 0.05 is beyond any optical scanner; 20 is a macro photo.
+MPP_RANGE = (0.05, 20.0)
+
+_UM_PER_UNIT = {
+    "pm": 1e-6, "Å": 1e-4, "nm": 1e-3, "µm": 1.0, "um": 1.0, "μm": 1.0, "mm": 1e3,
+    "cm": 1e4, "dm": 1e5, "m": 1e6, "in": 25400.0, "inch": 25400.0,
+}
+
+
+class Resolution(NamedTuple):
+    """Level-0 µm/px, objective power and where each came from."""
+
+    mpp: float | None
+    objective: float | None
+    source: str | None
+
+
+def _rational(value) -> float | None:
+    try:
+        if isinstance(value, tuple):
+            num, den = value
+            return float(num) / float(den) if den else None
+        return float(value)
+    except (TypeError, ValueError):
+        return None
+
+
+def _mean_xy(x: float | None, y: float | None) -> float | None:
+    vals = [v for v in (x, y) if v is not None]
+    return sum(vals) / len(vals) if vals else None
+
+
+def mpp_from_tiff_tags(xres, yres, unit) -> float | None:
+    """µm/px from TIFF resolution tags.
+
+    Parameters
+    ----------
+    xres, yres : tuple of int, float or None
+        ``XResolution``/``YResolution``: pixels per unit (rational ``(num, den)`` or number).
+    unit : int, str or None
+        ``ResolutionUnit``: 2 or "INCH", 3 or "CENTIMETER"; 1/"NONE" means unknown.
+        A missing tag (None) is treated as inch, the TIFF 6.0 default.
+
+    Returns
+    -------
+    float or None
+        µm per pixel (mean of x and y), or None when unknown.
+    """
+    name = getattr(unit, "name", unit)
+    name = {1: "NONE", 2: "INCH", 3: "CENTIMETER", None: "INCH"}.get(name, name)
+    per_unit = {"INCH": 25400.0, "CENTIMETER": 1e4}.get(str(name).upper())
+    if per_unit is None:
+        return None
+    out = []
+    for r in (xres, yres):
+        v = _rational(r) if r is not None else None
+        if v is not None and v > 0 and math.isfinite(v):
+            out.append(per_unit / v)
+        elif v is not None:
+            out.append(float("nan"))
+    return _mean_xy(*out) if len(out) == 2 else (out[0] if out else None)
+
+
+def _ome_ns(root) -> str:
+    return root.tag[: root.tag.index("}") + 1] if root.tag.startswith("{") else ""
+
+
+def mpp_from_ome(xml: str, image_index: int = 0) -> float | None:
+    """µm/px of one OME ``Image`` (``PhysicalSizeX``/``Y`` converted from their units).
+
+    Returns None when the image records no physical size. An unknown unit is None too.
+    """
+    try:
+        root = ET.fromstring(xml)
+    except ET.ParseError:
+        return None
+    ns = _ome_ns(root)
+    images = root.findall(f"{ns}Image")
+    if not images or image_index >= len(images):
+        return None
+    pixels = images[image_index].find(f"{ns}Pixels")
+    if pixels is None:
+        return None
+    sizes = []
+    for axis in ("X", "Y"):
+        raw = pixels.get(f"PhysicalSize{axis}")
+        if raw is None:
+            continue
+        unit = pixels.get(f"PhysicalSize{axis}Unit", "µm")
+        factor = _UM_PER_UNIT.get(unit)
+        value = _rational(raw)
+        if factor is None or value is None:
+            return None
+        sizes.append(value * factor)
+    return _mean_xy(*sizes) if len(sizes) == 2 else (sizes[0] if sizes else None)
+
+
+def objective_from_ome(xml: str, image_index: int = 0) -> float | None:
+    """Nominal magnification of the objective used by one OME ``Image`` (or the only one)."""
+    try:
+        root = ET.fromstring(xml)
+    except ET.ParseError:
+        return None
+    ns = _ome_ns(root)
+    objectives = {o.get("ID"): o for o in root.iter(f"{ns}Objective")}
+    images = root.findall(f"{ns}Image")
+    chosen = None
+    if images and image_index < len(images):
+        ref = images[image_index].find(f"{ns}ObjectiveSettings")
+        if ref is not None:
+            chosen = objectives.get(ref.get("ID"))
+    if chosen is None and len(objectives) == 1:
+        chosen = next(iter(objectives.values()))
+    if chosen is None:
+        return None
+    return _rational(chosen.get("NominalMagnification"))
+
+
+_APERIO_FIELD = re.compile(r"^\s*([A-Za-z][\w .-]*?)\s*=\s*(.*?)\s*$")
+
+
+def mpp_from_aperio(description: str) -> tuple[float | None, float | None]:
+    """(µm/px, objective) from an Aperio-style ImageDescription (``|MPP = x|AppMag = y``)."""
+    if not description or not description.startswith("Aperio"):
+        return None, None
+    fields = {}
+    for part in description.split("|")[1:]:
+        m = _APERIO_FIELD.match(part)
+        if m:
+            fields[m.group(1)] = m.group(2)
+    return _rational(fields.get("MPP")), _rational(fields.get("AppMag"))
+
+
+def mpp_from_openslide(props: Mapping[str, str]) -> Resolution:
+    """Resolution from OpenSlide properties (``openslide.mpp-x/-y``, then the TIFF tags)."""
+    objective = _rational(props.get("openslide.objective-power"))
+    mx = _rational(props.get("openslide.mpp-x"))
+    my = _rational(props.get("openslide.mpp-y"))
+    mpp = _mean_xy(mx, my)
+    if mpp is not None:
+        return Resolution(mpp, objective, "openslide")
+    unit = props.get("tiff.ResolutionUnit")
+    if unit is not None:
+        unit = {"inch": "INCH", "centimeter": "CENTIMETER", "none": "NONE"}.get(
+            unit.strip().lower(), unit)
+        mpp = mpp_from_tiff_tags(props.get("tiff.XResolution"), props.get("tiff.YResolution"),
+                                 unit)
+        if mpp is not None:
+            return Resolution(mpp, objective, "tiff-tags")
+    return Resolution(None, objective, None)
+
+
+def checked_mpp(found: Resolution, override: float | None, path) -> Resolution:
+    """Apply an override and refuse unknown or implausible µm/px.
+
+    Parameters
+    ----------
+    found : Resolution
+        What the file records.
+    override : float or None
+        The ``mpp=`` given by the user; wins over the file.
+    path : str
+        The slide, named in errors.
+
+    Returns
+    -------
+    Resolution
+
+    Raises
+    ------
+    MissingResolutionError
+        Neither the file nor ``override`` gives a µm/px.
+    ImplausibleResolutionError
+        The value is NaN, not positive, or outside :data:`MPP_RANGE`.
+    """
+    if override is not None:
+        found = Resolution(_rational(override), found.objective, "override")
+        hint = "check the mpp= value you passed"
+    else:
+        hint = ("the file misstates its resolution; pass the true level-0 µm/px with mpp= "
+                "(tile-out: --mpp, or a per-slide --mpp-table CSV)")
+    if found.mpp is None:
+        raise MissingResolutionError(
+            "the file records no physical resolution (µm per pixel); pass it with mpp= "
+            "(tile-out: --mpp for all slides, or --mpp-table CSV with slide_id,mpp columns)",
+            path)
+    lo, hi = MPP_RANGE
+    if not (math.isfinite(found.mpp) and lo <= found.mpp <= hi):
+        raise ImplausibleResolutionError(
+            f"level-0 resolution {found.mpp!r} µm/px (from {found.source}) is outside the "
+            f"plausible {lo}-{hi} µm/px; {hint}", path)
+    objective = found.objective
+    if objective is not None and not (math.isfinite(objective) and objective > 0):
+        objective = None
+    return Resolution(float(found.mpp), objective, found.source)

@@ -1,0 +1,269 @@
+"""Direct TIFF-family backend: tifffile for the structure, positional reads for the tiles.
+
+tifffile parses the IFDs once (levels of an IFD chain, SubIFD or OME series pyramids,
+Aperio-style SVS). A read then fetches only the tiles the region touches with ``os.pread``
+on a private file descriptor (no shared file position, so concurrent reads from several
+threads need no lock) and decodes them with the page's own decoder (imagecodecs:
+libjpeg-turbo for JPEG), copying each decoded tile straight into the output array.
+"""
+
+from __future__ import annotations
+
+import os
+import threading
+
+import numpy as np
+
+from tilewright.errors import DamagedSlideError, SlideTooLargeError, UnsupportedSlideError
+from tilewright.slide.resolution import (
+    Resolution,
+    mpp_from_aperio,
+    mpp_from_ome,
+    mpp_from_tiff_tags,
+    objective_from_ome,
+)
+from tilewright.slide.sniff import MAX_PIXELS, MAX_SIDE
+
+__all__ = ["TiffBackend"]
+
+# Vendor flavours whose tile grids tifffile exposes but whose geometry needs a vendor
+# reader (overlapping tiles, multiple images, JPEG restart-marker "tiles"): OpenSlide serves them.
+_VENDOR_FLAGS = ("is_ndpi", "is_philips", "is_scn", "is_qpi", "is_bif", "is_mdgel", "is_lsm")
+
+
+class _Level:
+    """One pyramid level: a TIFF page and what is needed to decode its segments."""
+
+    __slots__ = ("height", "width", "tile_h", "tile_w", "grid_w", "offsets", "counts",
+                 "decode", "jpegtables", "page_index")
+
+    def __init__(self, page, index):
+        self.height, self.width = int(page.imagelength), int(page.imagewidth)
+        chunks = page.chunks
+        self.tile_h, self.tile_w = int(chunks[-3]), int(chunks[-2])
+        self.grid_w = -(-self.width // self.tile_w)
+        self.offsets = np.asarray(page.dataoffsets, np.int64)
+        self.counts = np.asarray(page.databytecounts, np.int64)
+        self.decode = page.decode
+        self.jpegtables = page.jpegtables
+        self.page_index = index
+
+
+def _check_page(page, path) -> None:
+    if page.dtype != np.uint8 or page.samplesperpixel not in (3, 4):
+        raise UnsupportedSlideError(
+            f"not an 8-bit RGB image (dtype {page.dtype}, {page.samplesperpixel} samples)", path)
+    if page.planarconfig != 1 and page.samplesperpixel > 1:  # CONTIG
+        raise UnsupportedSlideError("planar (separate) colour planes are not supported", path)
+    if page.imagedepth > 1:
+        raise UnsupportedSlideError("volumetric TIFF pages are not supported", path)
+
+
+class TiffBackend:
+    """Serve a TIFF-family pyramid by decoding only the tiles a read touches.
+
+    Parameters
+    ----------
+    path : str
+        The slide file (already sniffed as TIFF).
+
+    Raises
+    ------
+    UnsupportedSlideError
+        A TIFF this backend does not serve (vendor layout, non-RGB, no levels).
+    DamagedSlideError
+        The file is truncated (tile data past the end of the file) or its IFDs are unreadable.
+    """
+
+    name = "tiff"
+
+    def __init__(self, path: str):
+        import tifffile
+
+        self.path = path
+        try:
+            tf = tifffile.TiffFile(path)
+        except Exception as exc:  # the header said TIFF: any parse failure means damage
+            raise DamagedSlideError(f"the TIFF structure cannot be parsed ({exc})", path) from exc
+        try:
+            self._levels, self.resolution, self.flavour = self._inspect(tf, path)
+        except (UnsupportedSlideError, DamagedSlideError):
+            tf.close()
+            raise
+        except Exception as exc:  # tifffile raises many types on malformed IFDs
+            tf.close()
+            raise DamagedSlideError(f"the TIFF structure cannot be parsed ({exc})", path) from exc
+        tf.close()
+        h0, w0 = self._levels[0].height, self._levels[0].width
+        if max(h0, w0) > MAX_SIDE or h0 * w0 > MAX_PIXELS:
+            raise SlideTooLargeError(
+                f"declares {w0} x {h0} px at level 0, beyond the supported {MAX_SIDE} px a "
+                f"side / {MAX_PIXELS:.0e} px; the header is likely corrupt", path)
+        size = os.path.getsize(path)
+        for i, lv in enumerate(self._levels):
+            expected = -(-lv.height // lv.tile_h) * lv.grid_w
+            if len(lv.offsets) != expected:
+                raise DamagedSlideError(
+                    f"level {i} lists {len(lv.offsets)} tiles where its size needs {expected}; "
+                    "the file is damaged", path)
+        for lv in self._levels:
+            ends = lv.offsets + lv.counts
+            if len(ends) and int(ends.max()) > size:
+                raise DamagedSlideError(
+                    f"truncated: tile data of level {self._levels.index(lv)} extends past the "
+                    f"end of the file ({size} bytes); copy the slide again", path)
+        self._fd = os.open(path, os.O_RDONLY | getattr(os, "O_BINARY", 0))
+        self._lock = threading.Lock()  # only used where os.pread is unavailable
+
+    # -- structure ---------------------------------------------------------------------
+    @staticmethod
+    def _inspect(tf, path):
+        for flag in _VENDOR_FLAGS:
+            if getattr(tf, flag, False):
+                raise UnsupportedSlideError(
+                    f"{flag[3:].upper()} layout needs the OpenSlide backend", path)
+        if not tf.series:
+            raise UnsupportedSlideError("the TIFF holds no image series", path)
+        series = tf.series[0]
+        pages = []
+        for lv in series.levels:
+            if len(lv.pages) != 1 or lv.keyframe is None:
+                raise UnsupportedSlideError(
+                    "multi-plane series (channels, z or time) are not RGB slides", path)
+            pages.append(lv.keyframe)
+        if not tf.is_svs and len(tf.pages) > 1:
+            # IFD chains and OME "one Image per resolution" files: further tiled RGB levels
+            # may sit in other series (reduced copies are recognized by their aspect below)
+            shapes = {(p.imagelength, p.imagewidth) for p in pages}
+            for extra in tf.series[1:]:
+                kf = extra.keyframe
+                if (kf is not None and kf.is_tiled and len(extra.pages) == 1
+                        and (kf.imagelength, kf.imagewidth) not in shapes):
+                    pages.append(kf)
+                    shapes.add((kf.imagelength, kf.imagewidth))
+        page0 = pages[0]
+        for p in pages:
+            _check_page(p, path)
+        pages.sort(key=lambda p: -p.imagewidth * p.imagelength)
+        levels = []
+        h0, w0 = page0.imagelength, page0.imagewidth
+        for i, p in enumerate(pages):
+            if i and abs(p.imagewidth / w0 - p.imagelength / h0) > 0.02:
+                continue  # not a reduced copy of level 0 (a label, a macro photo)
+            levels.append(_Level(p, i))
+        resolution = _resolution(tf, page0)
+        flavour = "ome" if tf.is_ome else "svs" if tf.is_svs else "tiff"
+        return levels, resolution, flavour
+
+    @property
+    def level_shapes(self) -> list[tuple[int, int]]:
+        """(height, width) of every level, finest first."""
+        return [(lv.height, lv.width) for lv in self._levels]
+
+    def tile_shape(self, level: int) -> tuple[int, int]:
+        """(height, width) of the stored tiles (or strips) of a level."""
+        lv = self._levels[level]
+        return lv.tile_h, lv.tile_w
+
+    # -- pixels ------------------------------------------------------------------------
+    def _pread(self, n: int, offset: int) -> bytes:
+        if hasattr(os, "pread"):
+            return os.pread(self._fd, n, offset)
+        with self._lock:  # pragma: no cover - platforms without pread
+            os.lseek(self._fd, offset, 0)
+            return os.read(self._fd, n)
+
+    def read(self, level: int, y: int, x: int, h: int, w: int, out: np.ndarray) -> None:
+        """Decode the region ``[y, y+h) x [x, x+w)`` of a level into ``out`` (h, w, 3).
+
+        The region must lie inside the level. Only the tiles it touches are read.
+
+        Raises
+        ------
+        DamagedSlideError
+            A tile cannot be read or decoded (names the file, level and region).
+        """
+        if self._fd is None:
+            raise ValueError("the slide is closed")
+        lv = self._levels[level]
+        th, tw = lv.tile_h, lv.tile_w
+        r0, r1 = y // th, (y + h - 1) // th
+        c0, c1 = x // tw, (x + w - 1) // tw
+        for r in range(r0, r1 + 1):
+            first, last = r * lv.grid_w + c0, r * lv.grid_w + c1
+            offs = lv.offsets[first : last + 1]
+            cnts = lv.counts[first : last + 1]
+            chunks = self._fetch_row(offs, cnts)
+            ty = r * th
+            ya, yb = max(y, ty), min(y + h, ty + th)
+            for k, data in enumerate(chunks):
+                c = c0 + k
+                tx = c * tw
+                xa, xb = max(x, tx), min(x + w, tx + tw)
+                dst = out[ya - y : yb - y, xa - x : xb - x]
+                if not data:
+                    dst[...] = 255  # sparse file: missing tile is background
+                    continue
+                try:
+                    seg = lv.decode(data, first + k, jpegtables=lv.jpegtables)[0]
+                except Exception as exc:
+                    raise DamagedSlideError(
+                        f"tile ({r}, {c}) of level {level} cannot be decoded while reading "
+                        f"region y={y}, x={x}, h={h}, w={w} ({type(exc).__name__}: {exc}); "
+                        "the file is damaged", self.path) from exc
+                if seg is None:
+                    dst[...] = 255
+                    continue
+                seg = seg.reshape(seg.shape[-3:])
+                dst[...] = seg[ya - ty : yb - ty, xa - tx : xb - tx, :3]
+
+    def _fetch_row(self, offs: np.ndarray, cnts: np.ndarray) -> list[bytes]:
+        """Read a run of tiles, in one positional read when they lie together in the file."""
+        if len(offs) == 0:
+            return []
+        lo = int(offs.min())
+        hi = int((offs + cnts).max())
+        total = int(cnts.sum())
+        if len(offs) > 1 and hi - lo <= total + 65536:
+            buf = memoryview(self._pread(hi - lo, lo))
+            if len(buf) < hi - lo:
+                raise DamagedSlideError("truncated tile data", self.path)
+            return [buf[o - lo : o - lo + n] if n else b""
+                    for o, n in zip(offs.tolist(), cnts.tolist())]
+        out = []
+        for o, n in zip(offs.tolist(), cnts.tolist()):
+            data = self._pread(n, o) if n else b""
+            if len(data) < n:
+                raise DamagedSlideError("truncated tile data", self.path)
+            out.append(data)
+        return out
+
+    def close(self) -> None:
+        """Release the file descriptor (idempotent)."""
+        fd, self._fd = self._fd, None
+        if fd is not None:
+            os.close(fd)
+
+
+def _resolution(tf, page0) -> Resolution:
+    """µm/px and objective: OME physical size, then Aperio MPP, then TIFF tags."""
+    objective = None
+    if tf.is_ome and tf.ome_metadata:
+        objective = objective_from_ome(tf.ome_metadata)
+        mpp = mpp_from_ome(tf.ome_metadata)
+        if mpp is not None:
+            return Resolution(mpp, objective, "ome")
+    if tf.is_svs or (page0.description or "").startswith("Aperio"):
+        mpp, mag = mpp_from_aperio(page0.description)
+        objective = objective or mag
+        if mpp is not None:
+            return Resolution(mpp, objective, "aperio")
+    tags = page0.tags
+    xres, yres = tags.get("XResolution"), tags.get("YResolution")
+    unit = tags.get("ResolutionUnit")
+    if xres is not None:
+        mpp = mpp_from_tiff_tags(xres.value, yres.value if yres is not None else None,
+                                 unit.value if unit is not None else None)
+        if mpp is not None:
+            return Resolution(mpp, objective, "tiff-tags")
+    return Resolution(None, objective, None)

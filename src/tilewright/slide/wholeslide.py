@@ -1,0 +1,210 @@
+"""WholeSlide: one open slide, its pyramid levels and its physical resolution."""
+
+from __future__ import annotations
+
+import math
+import threading
+from typing import NamedTuple
+
+import numpy as np
+
+from tilewright.errors import SlideError
+from tilewright.slide.resolution import Resolution
+
+__all__ = ["WholeSlide", "Level", "ResolutionUnavailableError"]
+
+
+class ResolutionUnavailableError(SlideError, ValueError):
+    """The requested µm/px is finer than the slide's finest level (it would need upsampling)."""
+
+
+class Level(NamedTuple):
+    """One pyramid level: size in pixels, downsample from level 0 and µm/px."""
+
+    height: int
+    width: int
+    downsample: float
+    mpp: float
+
+
+def _downsample(h0: int, w0: int, h: int, w: int) -> float:
+    """Level downsample; snapped to the integer whose ceil/floor division gives the level size."""
+    ratio = (w0 / w + h0 / h) / 2.0
+    k = round(ratio)
+    if k >= 1 and w in (w0 // k, -(-w0 // k)) and h in (h0 // k, -(-h0 // k)):
+        return float(k)
+    return ratio
+
+
+class WholeSlide:
+    """An open whole-slide image. Create it with :func:`tilewright.open_wsi`.
+
+    Attributes
+    ----------
+    path : str
+        The slide file.
+    backend : {"tiff", "openslide"}
+        The reader serving it.
+    mpp : float
+        Level-0 µm/px.
+    mpp_source : str
+        Where ``mpp`` came from: "override", "ome", "aperio", "tiff-tags" or "openslide".
+    objective : float or None
+        Objective power recorded by the scanner.
+    dimensions : (int, int)
+        (height, width) of level 0.
+    levels : tuple of Level
+        Every pyramid level, finest first.
+
+    Notes
+    -----
+    Reads are safe from several threads at once. A WholeSlide pickles as "re-open this path
+    with the same options", so views and dask graphs can be sent to worker processes.
+    It is a context manager; :meth:`close` releases the file.
+    """
+
+    def __init__(self, path: str, reader, resolution: Resolution, *,
+                 mpp_override: float | None = None, requested_backend: str = "auto"):
+        self.path = path
+        self._reader = reader
+        self.backend = reader.name
+        self.mpp = float(resolution.mpp)
+        self.objective = resolution.objective
+        self.mpp_source = resolution.source
+        self._open_args = (mpp_override, requested_backend)
+        h0, w0 = reader.level_shapes[0]
+        self.dimensions = (h0, w0)
+        levels = []
+        for h, w in reader.level_shapes:
+            ds = _downsample(h0, w0, h, w)
+            levels.append(Level(h, w, ds, self.mpp * ds))
+        self.levels = tuple(levels)
+        self._closed = False
+        self._lock = threading.Lock()
+
+    # -- life cycle ---------------------------------------------------------------------
+    def close(self) -> None:
+        """Release the file (idempotent)."""
+        with self._lock:
+            if not self._closed:
+                self._closed = True
+                self._reader.close()
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self.close()
+
+    def __reduce__(self):
+        from tilewright.slide.open import _reopen
+
+        return _reopen, (self.path, *self._open_args)
+
+    def __repr__(self) -> str:
+        h, w = self.dimensions
+        return (f"WholeSlide({self.path!r}, backend={self.backend!r}, mpp={self.mpp:.4g}, "
+                f"objective={self.objective}, dimensions=({h}, {w}), levels={len(self.levels)})")
+
+    # -- pixels -------------------------------------------------------------------------
+    def tile_shape(self, level: int = 0) -> tuple[int, int]:
+        """(height, width) of the tiles stored in a level (the natural read granule)."""
+        return self._reader.tile_shape(level)
+
+    def read_level(self, level: int, y: int, x: int, h: int, w: int,
+                   out: np.ndarray | None = None) -> np.ndarray:
+        """Pixels ``[y, y+h) x [x, x+w)`` of one level, white outside the level.
+
+        Parameters
+        ----------
+        level : int
+            Index into :attr:`levels`.
+        y, x, h, w : int
+            Box in that level's pixels; may extend past the edges.
+        out : ndarray, optional
+            uint8 (h, w, 3) array to fill (may be a view).
+
+        Returns
+        -------
+        ndarray
+            uint8 (h, w, 3).
+
+        Raises
+        ------
+        DamagedSlideError
+            Tile data in the box cannot be decoded.
+        """
+        if self._closed:
+            raise ValueError(f"{self.path}: the slide is closed")
+        y, x, h, w = int(y), int(x), int(h), int(w)
+        if h < 0 or w < 0:
+            raise ValueError("h and w must be >= 0")
+        lh, lw = self.levels[level].height, self.levels[level].width
+        ya, yb = max(y, 0), min(y + h, lh)
+        xa, xb = max(x, 0), min(x + w, lw)
+        inside = ya == y and xa == x and yb == y + h and xb == x + w
+        if out is None:
+            out = np.empty((h, w, 3), np.uint8) if inside else np.full((h, w, 3), 255, np.uint8)
+        elif not inside:
+            out[...] = 255
+        if ya < yb and xa < xb:
+            self._reader.read(level, ya, xa, yb - ya, xb - xa,
+                              out[ya - y : yb - y, xa - x : xb - x])
+        return out
+
+    # -- resolution ---------------------------------------------------------------------
+    def choose_level(self, mpp: float, tolerance: float = 0.05) -> int:
+        """Level a view at ``mpp`` reads from.
+
+        A level whose µm/px lies within ``tolerance`` (relative) of ``mpp`` is used as is
+        (the closest such level); otherwise the coarsest level finer than ``mpp``.
+
+        Raises
+        ------
+        ResolutionUnavailableError
+            ``mpp`` is finer than level 0 beyond the tolerance.
+        """
+        mpp = float(mpp)
+        if not (math.isfinite(mpp) and mpp > 0):
+            raise ValueError(f"target mpp must be a positive number, got {mpp!r}")
+        near = [(abs(lv.mpp / mpp - 1.0), i) for i, lv in enumerate(self.levels)
+                if abs(lv.mpp / mpp - 1.0) <= tolerance]
+        if near:
+            return min(near)[1]
+        finer = [i for i, lv in enumerate(self.levels) if lv.mpp <= mpp]
+        if not finer:
+            raise ResolutionUnavailableError(
+                f"asked for {mpp:g} µm/px but the finest level is {self.mpp:g} µm/px; "
+                "choose a coarser target mpp (no upsampling is done)", self.path)
+        return max(finer, key=lambda i: self.levels[i].mpp)
+
+    def at_mpp(self, mpp: float, *, tolerance: float = 0.05):
+        """A lazy view of the whole slide at ``mpp`` µm/px.
+
+        Parameters
+        ----------
+        mpp : float
+            Target µm/px.
+        tolerance : float
+            Relative difference under which a pyramid level is used as is.
+
+        Returns
+        -------
+        ResampledView
+
+        Raises
+        ------
+        ResolutionUnavailableError
+            The target is finer than level 0.
+        """
+        from tilewright.slide.view import ResampledView
+
+        return ResampledView(self, float(mpp), tolerance=tolerance)
+
+    def thumbnail(self, mpp: float = 8.0, *, tolerance: float = 0.05) -> np.ndarray:
+        """The whole slide at ``mpp`` µm/px, read from the coarsest adequate level.
+
+        Same pixels and shape as ``at_mpp(mpp, tolerance=tolerance)`` read in full.
+        """
+        view = self.at_mpp(mpp, tolerance=tolerance)
+        return view.read(0, 0, *view.shape)
