@@ -6,7 +6,7 @@ import zarr
 
 import tilewright as tw
 
-pytest.importorskip("tilewright.slide.open")  # TEMP until the reader lands
+pytest.importorskip("tilewright.tissue.mask")  # TEMP until the masker lands
 from helpers import write_slide
 from tilewright.errors import TilewrightError
 
