@@ -38,10 +38,11 @@ def hne_plane_normal(od: np.ndarray, *, min_od: float = 0.15, keep: float = 0.8,
     """Unit normal of the H&E plane of a slide, fitted to its own stained pixels.
 
     Only pixels that absorb green the most (true of hematoxylin, eosin and their mixtures, not
-    of blue or green marker on glass) and that are not black ink are used. The plane is the span
-    of the two leading right singular vectors of their optical densities (as in Macenko et al.
-    2009), refitted a few times on the ``keep`` fraction of pixels closest to it (trimmed least
-    squares) so ink lying on tissue does not pull it.
+    of blue or green marker on glass) and that are not black ink are used. Starting from the
+    Ruifrok & Johnston plane, the ``keep`` fraction of pixels closest to the current plane is
+    refitted with the two leading right singular vectors of their optical densities (as in
+    Macenko et al. 2009), a few times (trimmed least squares), so ink lying on tissue does not
+    pull the plane towards itself.
 
     Parameters
     ----------
@@ -78,15 +79,14 @@ def hne_plane_normal(od: np.ndarray, *, min_od: float = 0.15, keep: float = 0.8,
         return RUIFROK_PLANE_NORMAL.copy()
     if x.shape[0] > 200_000:  # a deterministic subsample is plenty for a 3x3 fit
         x = x[:: x.shape[0] // 200_000 + 1]
-    normal = None
-    sub = x
-    for _ in range(iterations + 1):
-        _, _, vt = np.linalg.svd(sub, full_matrices=False)
-        normal = vt[2] if vt[2] @ RUIFROK_PLANE_NORMAL >= 0 else -vt[2]
+    normal = RUIFROK_PLANE_NORMAL.copy()
+    for _ in range(iterations):
         res = np.abs(x @ normal)
         sub = x[res <= np.quantile(res, keep)]
         if sub.shape[0] < min_pixels:
             break
+        _, _, vt = np.linalg.svd(sub, full_matrices=False)
+        normal = vt[2] if vt[2] @ RUIFROK_PLANE_NORMAL >= 0 else -vt[2]
     if np.degrees(np.arccos(min(1.0, abs(float(normal @ RUIFROK_PLANE_NORMAL))))) > max_tilt_deg:
         return RUIFROK_PLANE_NORMAL.copy()
     return normal
