@@ -104,8 +104,10 @@ def render_overlay(slide, mask, plan, path, *, mpp: float | None = None, title: 
         line += f"  ·  {n_tiles} tiles of {plan.tile} px at {plan.mpp:g} µm/px"
     fig.text(0.01, 0.5 * 70 / (max(w, 400) * h / w + 90) + 0.02, line, fontsize=8, va="bottom")
     handles = [Line2D([0], [0], color=OVERLAY_COLOURS["tissue"], lw=2, label="tissue outline"),
-               Patch(facecolor="#555555", edgecolor=OVERLAY_COLOURS["ink"], hatch="////", label="ink (excluded)"),
-               Patch(facecolor=OVERLAY_COLOURS["tile"] + "22", edgecolor=OVERLAY_COLOURS["tile"], label="planned tile")]
+               Patch(facecolor="#555555", edgecolor=OVERLAY_COLOURS["ink"], hatch="////", label="ink (excluded)")]
+    if plan is not None:
+        handles.append(Patch(facecolor=OVERLAY_COLOURS["tile"] + "22", edgecolor=OVERLAY_COLOURS["tile"],
+                             label="planned tile"))
     if dark.any():
         handles.append(Patch(facecolor=OVERLAY_COLOURS["dark"], alpha=0.45, label="dark debris (excluded)"))
     fig.legend(handles=handles, loc="lower left", ncol=len(handles), fontsize=7, frameon=False,
