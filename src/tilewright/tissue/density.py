@@ -15,10 +15,25 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["glass_colour", "optical_density"]
+__all__ = ["glass_colour", "optical_density", "channel_mean", "channel_max", "channel_min"]
 
 #: Glass colours darker than this (mean of RGB) are not trusted; the slide is probably all tissue.
 _MIN_GLASS_LEVEL = 180.0
+
+
+def channel_mean(a: np.ndarray) -> np.ndarray:
+    """Mean over the last axis of size 3 (explicit sums: much faster than a reduction over 3)."""
+    return (a[..., 0] + a[..., 1] + a[..., 2]) / np.asarray(3, dtype=a.dtype)
+
+
+def channel_max(a: np.ndarray) -> np.ndarray:
+    """Maximum over the last axis of size 3."""
+    return np.maximum(np.maximum(a[..., 0], a[..., 1]), a[..., 2])
+
+
+def channel_min(a: np.ndarray) -> np.ndarray:
+    """Minimum over the last axis of size 3."""
+    return np.minimum(np.minimum(a[..., 0], a[..., 1]), a[..., 2])
 
 
 def glass_colour(rgb: np.ndarray, *, top: float = 0.02) -> np.ndarray:
@@ -40,7 +55,7 @@ def glass_colour(rgb: np.ndarray, *, top: float = 0.02) -> np.ndarray:
     px = np.asarray(rgb).reshape(-1, 3)
     if px.shape[0] == 0:
         return np.full(3, 255.0)
-    total = px.astype(np.int32).sum(axis=1)
+    total = px[:, 0].astype(np.int32) + px[:, 1] + px[:, 2]
     k = max(1, int(round(px.shape[0] * top)))
     idx = np.argpartition(total, px.shape[0] - k)[px.shape[0] - k:]
     colour = np.median(px[idx].astype(np.float64), axis=0)

@@ -21,6 +21,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from .density import channel_max, channel_mean, channel_min
+
 __all__ = ["RUIFROK_PLANE_NORMAL", "hne_plane_normal", "ink_residual", "black_ink", "dark_debris"]
 
 
@@ -72,7 +74,8 @@ def hne_plane_normal(od: np.ndarray, *, min_od: float = 0.15, keep: float = 0.8,
     .. [2] M. Macenko et al., ISBI 2009, 1107-1110.
     """
     x = np.asarray(od, dtype=np.float64).reshape(-1, 3)
-    stained = (np.linalg.norm(x, axis=1) > min_od) & (x[:, 1] >= x.max(axis=1) - 1e-9)
+    norm2 = x[:, 0] * x[:, 0] + x[:, 1] * x[:, 1] + x[:, 2] * x[:, 2]
+    stained = (norm2 > min_od * min_od) & (x[:, 1] >= x[:, 0]) & (x[:, 1] >= x[:, 2])
     stained &= ~black_ink(x)
     x = x[stained]
     if x.shape[0] < min_pixels:
@@ -130,11 +133,11 @@ def black_ink(od: np.ndarray, *, min_od: float = 0.6, max_spread: float = 0.3) -
     ndarray (...) bool
     """
     od = np.asarray(od, dtype=np.float32)
-    mean = od.mean(axis=-1)
-    spread = od.max(axis=-1) - od.min(axis=-1)
+    mean = channel_mean(od)
+    spread = channel_max(od) - channel_min(od)
     return (mean > min_od) & (spread < max_spread * mean)
 
 
 def dark_debris(od: np.ndarray, *, min_od: float = 0.9) -> np.ndarray:
     """Very dense pixels of any colour (folds, debris, bubbles' edges), mean OD above ``min_od``."""
-    return np.asarray(od, dtype=np.float32).mean(axis=-1) > min_od
+    return channel_mean(np.asarray(od, dtype=np.float32)) > min_od

@@ -17,7 +17,7 @@ import os
 import numpy as np
 
 from . import ink as _ink
-from .density import glass_colour, optical_density
+from .density import channel_max, channel_mean, channel_min, glass_colour, optical_density
 from .otsu import otsu_threshold
 from .raster import box_fractions, summed_area_table
 
@@ -207,11 +207,11 @@ def tissue_feature(rgb: np.ndarray, mpp: float, *, method: str = "od-otsu", smoo
     ndarray (H, W) float32
     """
     if method == "od-otsu":
-        feature = optical_density(rgb, glass).mean(axis=-1)
+        feature = channel_mean(optical_density(rgb, glass))
     elif method == "saturation-otsu":
         f = rgb.astype(np.float32)
-        top = f.max(axis=-1)
-        feature = (top - f.min(axis=-1)) / np.maximum(top, 1.0)
+        top = channel_max(f)
+        feature = (top - channel_min(f)) / np.maximum(top, 1.0)
     else:
         raise ValueError(f"unknown tissue method {method!r}; choose one of {METHODS}")
     return _smooth(np.ascontiguousarray(feature, dtype=np.float32), smooth_um / mpp)

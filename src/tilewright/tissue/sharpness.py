@@ -57,13 +57,11 @@ def sharpness(tiles) -> np.ndarray:
     a = np.asarray(tiles)
     if a.ndim == 3 and a.shape[-1] == 3:
         a = a[None]
-    if a.ndim == 4 and a.shape[-1] == 3:
-        grey = a.astype(np.float32) @ GRAY_WEIGHTS
-    elif a.ndim == 3:
-        grey = a.astype(np.float32)
-    else:
+    rgb = a.ndim == 4 and a.shape[-1] == 3
+    if not rgb and a.ndim != 3:
         raise ValueError(f"expected tiles (N, T, T, 3), (T, T, 3) or (N, T, T), got shape {a.shape}")
-    out = np.empty(grey.shape[0], dtype=np.float32)
-    for i, g in enumerate(grey):
-        out[i] = cv2.Laplacian(np.ascontiguousarray(g), cv2.CV_32F, ksize=1).var(dtype=np.float64)
+    out = np.empty(a.shape[0], dtype=np.float32)
+    for i, tile in enumerate(a):  # one tile at a time: no float copy of the whole batch
+        grey = tile.astype(np.float32) @ GRAY_WEIGHTS if rgb else tile.astype(np.float32)
+        out[i] = cv2.Laplacian(np.ascontiguousarray(grey), cv2.CV_32F, ksize=1).var(dtype=np.float64)
     return out
