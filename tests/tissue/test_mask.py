@@ -52,6 +52,16 @@ def test_blank_slide_has_almost_no_tissue():
     assert tissue_mask(noisy.render(8.0, 0, 0, 750, 1000), mpp=8.0).tissue_fraction < 0.005
 
 
+def test_view_covered_by_tissue_is_not_split(he_layout):
+    isl = he_layout.islands[0]
+    y, x = int(isl.cy / 8.0) - 20, int(isl.cx / 8.0) - 20
+    crop = he_layout.render(8.0, y, x, 40, 40)
+    truth = he_layout.tissue_truth(8.0, (y, x, 40, 40)) & ~he_layout.pen_truth(8.0, (y, x, 40, 40))
+    assert truth.mean() > 0.95  # ground truth: the crop lies inside an island
+    mask = tissue_mask(crop, mpp=8.0, min_component_um2=0)
+    assert dice(mask.array, truth) >= 0.95
+
+
 def test_faint_island_found(he_layout):
     faint = SlideLayout(6000, 8000, he_layout.islands[-1:])  # the pale island alone ...
     assert he_layout.islands[-1].strength == pytest.approx(0.35)

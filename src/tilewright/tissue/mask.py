@@ -218,6 +218,7 @@ def tissue_feature(rgb: np.ndarray, mpp: float, *, method: str = "od-otsu", smoo
 
 
 def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-otsu", min_od_floor: float = 0.04,
+                max_od_ceiling: float = 0.15,
                 min_saturation: float = 0.08, smooth_um: float = 8.0, close_um: float = 24.0,
                 open_um: float = 16.0, fill_holes_um2: float = 20_000.0,
                 min_component_um2: float = 25_000.0, exclude_ink: bool = True,
@@ -229,7 +230,8 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-otsu", min_od_floo
     density relative to the glass colour, Gaussian-smoothed); (3) Otsu's threshold on the
     log10 of that density (glass is a narrow peak near zero OD while pale and dense tissue
     span a decade, so the log scale keeps pale tissue with the tissue class), never below
-    ``min_od_floor`` so blank glass is not split into noise; (4) closing then opening with
+    ``min_od_floor`` so blank glass is not split into noise and never above ``max_od_ceiling``
+    so a view covered by tissue edge to edge is not split in two; (4) closing then opening with
     discs of ``close_um`` and ``open_um``; (5) holes smaller than ``fill_holes_um2`` filled;
     (6) marker ink (blue and green by their OD residual from the H&E plane, black by being dense
     and grey), grown by ``ink_margin_um``, and optionally very dense debris removed; (7)
@@ -247,6 +249,9 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-otsu", min_od_floo
         ``min_saturation``) without the log scale.
     min_od_floor : float
         Smallest mean optical density (above glass) counted as tissue.
+    max_od_ceiling : float
+        Largest threshold Otsu may choose: anything denser than this over glass is tissue (blank
+        glass stays below an OD of about 0.15, common practice).
     min_saturation : float
         Floor of the saturation method.
     smooth_um : float
@@ -307,7 +312,7 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-otsu", min_od_floo
     feature = tissue_feature(rgb, mpp, method=method, smooth_um=smooth_um, glass=glass)
     if method == "od-otsu":
         otsu = 10.0 ** otsu_threshold(np.log10(np.maximum(feature, _LOG_FLOOR)))
-        threshold = max(otsu, min_od_floor)
+        threshold = min(max(otsu, min_od_floor), max(max_od_ceiling, min_od_floor))
     else:
         otsu = otsu_threshold(feature)
         threshold = max(otsu, min_saturation)
@@ -329,6 +334,7 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-otsu", min_od_floo
     tissue = _drop_small(tissue & ~ink & ~dark, min_component_um2 / area)
 
     params = {"method": method, "source": path, "otsu": float(otsu), "min_od_floor": min_od_floor,
+              "max_od_ceiling": max_od_ceiling,
               "min_saturation": min_saturation, "smooth_um": smooth_um, "close_um": close_um,
               "open_um": open_um, "fill_holes_um2": fill_holes_um2,
               "min_component_um2": min_component_um2, "exclude_ink": exclude_ink,
