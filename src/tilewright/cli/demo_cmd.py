@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import sys
 from pathlib import Path
 
 __all__ = ["register", "run"]
@@ -27,35 +26,18 @@ def run(args) -> int:
                      "--workers", str(args.workers)])
     if code not in (0, 3):
         return code
-    _overlays(tiles, out / "qc")
     report = _audit(tiles, meta, out)
     print("\nWhat was made:")
     print(f"  slides (pyramidal TIFF)     {slides}/")
     print(f"  metadata (site, label)      {meta}")
     print(f"  tile stores + manifest      {tiles}/  (manifest.csv, one <slide>.zarr a slide)")
-    print(f"  QC overlays                 {out / 'qc'}/  (tissue outline, ink, kept tiles)")
+    print(f"  QC overlays                 {tiles / 'qc'}/  (tissue outline, ink, kept tiles)")
     if report:
         print(f"  colour audit                {report}")
     print("\nRead the tiles lazily:  python -c \"import tilewright as tw; c = tw.open_cohort('%s'); "
           "print(c, c.tiles)\"" % tiles)
     print("Research use only: not for diagnosis or clinical decisions.")
     return 0
-
-
-def _overlays(tiles_dir: Path, qc: Path) -> None:
-    from tilewright.errors import TilewrightError
-    from tilewright.store.cohort import read_manifest
-    from tilewright.store.reader import open_store
-    from tilewright.tissue.overlay import render_overlay_from_store
-
-    qc.mkdir(parents=True, exist_ok=True)
-    for sid, status in zip(*[read_manifest(tiles_dir)[c] for c in ("slide_id", "status")]):
-        if status == "failed":
-            continue
-        try:
-            render_overlay_from_store(open_store(tiles_dir / f"{sid}.zarr"), qc / f"{sid}.png")
-        except TilewrightError as exc:
-            print(f"  no overlay for {sid}: {exc}", file=sys.stderr)
 
 
 def _audit(tiles_dir: Path, meta: Path, out: Path):
@@ -67,8 +49,9 @@ def _audit(tiles_dir: Path, meta: Path, out: Path):
     after = audit_cohort(tiles_dir, metadata=meta, source="tiles")
     folder = out / "audit"
     after.write_report(folder, before=before)
-    for line in list(before.findings)[:2]:
-        print(f"  before normalization: {line}")
-    for line in list(after.findings)[:2]:
-        print(f"  after normalization:  {line}")
+    print("\nColour audit (site and scanner should not explain the colour clusters):")
+    for name, audit in (("raw slide colour ", before), ("normalized tiles ", after)):
+        for line in audit.findings:
+            if line.startswith("Colour clusters"):
+                print(f"  {name} {line}")
     return folder / "report.html"

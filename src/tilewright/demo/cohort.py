@@ -52,7 +52,7 @@ class DemoSlide:
     blank: bool = False
 
 
-def demo_slides(n_per_site: int = 4) -> list[DemoSlide]:
+def demo_slides(n_per_site: int = 6) -> list[DemoSlide]:
     """The slides of the scenario: ``n_per_site`` a site, labels alternating within each site."""
     out = []
     k = 0
@@ -66,7 +66,17 @@ def demo_slides(n_per_site: int = 4) -> list[DemoSlide]:
     return out
 
 
-def write_demo_cohort(out_dir: str | os.PathLike, *, n_per_site: int = 4, size_um=(2400.0, 3000.0),
+def _slide_variation(site: dict, seed: int) -> dict:
+    """Slide-to-slide variation inside a site (staining batches): stain angle, amount, glass colour."""
+    rng = np.random.default_rng(seed)
+    stains = np.stack([_rotate_towards(v, rng.normal(size=3) ** 2 + 0.1, rng.uniform(-3.0, 3.0))
+                       for v in site["stains"]])
+    conc = tuple(float(c * rng.uniform(0.85, 1.15)) for c in site["concentration"])
+    background = tuple(float(np.clip(b + rng.uniform(-3, 3), 0, 255)) for b in site["background"])
+    return dict(stains=stains, concentration=conc, background=background)
+
+
+def write_demo_cohort(out_dir: str | os.PathLike, *, n_per_site: int = 6, size_um=(2400.0, 3000.0),
                       log=print) -> tuple[Path, Path]:
     """Write the demo slides and ``metadata.csv``.
 
@@ -96,8 +106,7 @@ def write_demo_cohort(out_dir: str | os.PathLike, *, n_per_site: int = 4, size_u
         suffix = ".svs" if site["layout"] == "svs" else ".ome.tif"
         path = folder / f"{d.slide_id}{suffix}"
         layout = random_layout(*size_um, seed=d.seed, n_islands=0 if d.blank else 2, pens=d.pens,
-                               tumour=not d.blank, stains=site["stains"], concentration=site["concentration"],
-                               background=site["background"])
+                               tumour=not d.blank, **_slide_variation(site, d.seed))
         shape = layout.shape_at(site["mpp"])
         if not path.exists():
             log(f"  writing {path.relative_to(out_dir)} ({shape[1]} x {shape[0]} px at {site['mpp']} µm/px)")

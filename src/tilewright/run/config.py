@@ -66,6 +66,8 @@ class TilingConfig:
         Estimate the source stain per tile instead of once per slide.
     threads : int
         Reader threads inside one slide.
+    qc_overlay : bool
+        Write a QC picture (tissue outline, ink, kept tiles) to ``qc/<slide_id>.png`` beside the store.
     """
 
     mpp: float = 0.5
@@ -90,6 +92,7 @@ class TilingConfig:
     stain_sample: int = 64
     per_tile_stain: bool = False
     threads: int = 2
+    qc_overlay: bool = True
     extra: dict = field(default_factory=dict, repr=False)
 
     def __post_init__(self):

@@ -149,6 +149,8 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
             "tissue_fraction": float(np.asarray(mask.array).mean()) if np.asarray(mask.array).size else 0.0,
             "normalizer": None if bound is None else bound.to_dict(),
             "regions": None if (regions is None or not config.keep) else _region_info(regions, config),
+            "tissue_mask": _jsonable(mask.to_dict()),
+            "plan": _jsonable(getattr(plan, "params", {})),
             "order": "blocks of config.block target px, row-major; row-major inside a block",
             "config": _jsonable(config.to_dict()),
             "library_version": tilewright.__version__,
@@ -158,8 +160,10 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
             _tile_arrays(view, plan, config, bound, writer, progress)
             mask_arr = np.asarray(mask.array, dtype=bool)
             writer.commit(attrs, thumbnail[: mask_arr.shape[0], : mask_arr.shape[1]], mask_arr,
-                          overwrite=overwrite)
+                          overwrite=overwrite, extra={"ink": np.asarray(mask.ink, dtype=bool)})
             n = writer.n
+        if config.qc_overlay:
+            _write_overlay(thumbnail, mask, plan, final.parent / "qc" / f"{slide_id}.png", slide_id)
         return SlideResult(slide_id=slide_id, source=str(path), status="ok", n_tiles=int(n),
                            mpp_source=float(slide.mpp), objective=slide.objective,
                            source_level=int(view.source_level), seconds=round(time.perf_counter() - t0, 3),
@@ -197,6 +201,19 @@ def _regions_for(regions, config, slide_id, level0_mpp, path):
             raise RegionError(f"no region file for slide {slide_id!r} in {config.regions}; add "
                               f"{slide_id}.geojson there or run without --keep", path)
     return regions.with_mpp(level0_mpp) if hasattr(regions, "with_mpp") else regions
+
+
+def _write_overlay(thumbnail, mask, plan, png, slide_id):
+    """QC picture beside the store; a failure here is logged, never fails the slide."""
+    import logging
+
+    from tilewright.tissue.overlay import render_overlay
+
+    try:
+        png.parent.mkdir(parents=True, exist_ok=True)
+        render_overlay(thumbnail, mask, plan, png, mpp=mask.mpp, title=slide_id)
+    except Exception as exc:  # noqa: BLE001 - a picture must not cost the tiles
+        logging.getLogger("tilewright").warning("%s: QC overlay not written (%s)", slide_id, exc)
 
 
 def _digest(path):

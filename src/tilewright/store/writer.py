@@ -113,12 +113,13 @@ class StoreWriter:
     def _small(self, name, data, **kw) -> None:
         data = np.asarray(data)
         arr = self.group.create_array(name, shape=data.shape, dtype=data.dtype,
-                                      chunks=data.shape if data.size else None, **kw)
+                                      chunks=tuple(max(1, d) for d in data.shape), **kw)
         if data.size:
             arr[...] = data
 
-    def commit(self, attrs: dict, thumbnail: np.ndarray, mask: np.ndarray, *, overwrite: bool = True) -> Path:
-        """Write coordinates and pictures, mark complete, and rename into place."""
+    def commit(self, attrs: dict, thumbnail: np.ndarray, mask: np.ndarray, *, overwrite: bool = True,
+               extra: dict | None = None) -> Path:
+        """Write coordinates and pictures (and ``extra`` small arrays), mark complete, rename into place."""
         try:
             if self.n < self.tiles.shape[0]:
                 self.tiles.resize((self.n, self.tile, self.tile, 3))
@@ -130,6 +131,8 @@ class StoreWriter:
                 self._small(name, np.concatenate(parts) if parts else np.zeros((0,), np.float32))
             self._small("thumbnail", np.ascontiguousarray(thumbnail, dtype=np.uint8))
             self._small("mask", np.ascontiguousarray(mask, dtype=bool))
+            for name, data in (extra or {}).items():
+                self._small(name, np.ascontiguousarray(data))
             full = dict(attrs)
             full.update(format=FORMAT_NAME, format_version=FORMAT_VERSION, n_tiles=int(self.n),
                         created=datetime.now(timezone.utc).isoformat(timespec="seconds"))
