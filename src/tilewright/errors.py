@@ -20,6 +20,7 @@ __all__ = [
     "MissingResolutionError",
     "ImplausibleResolutionError",
     "SlideTooLargeError",
+    "ResolutionUnavailableError",
     "StainEstimationError",
     "RegionError",
     "StoreError",
@@ -84,6 +85,10 @@ class ImplausibleResolutionError(SlideError):
 
 class SlideTooLargeError(SlideError):
     """The declared dimensions are absurd; refused before allocating memory."""
+
+
+class ResolutionUnavailableError(SlideError, ValueError):
+    """The requested µm/px is finer than the slide's finest level (it would need upsampling)."""
 
 
 class StainEstimationError(TilewrightError):

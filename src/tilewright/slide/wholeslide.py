@@ -8,14 +8,10 @@ from typing import NamedTuple
 
 import numpy as np
 
-from tilewright.errors import SlideError
+from tilewright.errors import ResolutionUnavailableError, SlideError  # noqa: F401 (re-exported)
 from tilewright.slide.resolution import Resolution
 
 __all__ = ["WholeSlide", "Level", "ResolutionUnavailableError"]
-
-
-class ResolutionUnavailableError(SlideError, ValueError):
-    """The requested µm/px is finer than the slide's finest level (it would need upsampling)."""
 
 
 class Level(NamedTuple):
