@@ -12,8 +12,8 @@ from tilewright.errors import TilewrightError
 
 @pytest.fixture(scope="module")
 def slide40(tmp_path_factory):
-    path, lay = write_slide(tmp_path_factory.mktemp("s") / "a40.tif", mpp=0.25, size_um=(1400.0, 1800.0),
-                            seed=3, compression="zlib")
+    path, lay = write_slide(tmp_path_factory.mktemp("s") / "a40.tif", mpp=0.25, size_um=(1000.0, 1300.0),
+                            seed=3)
     return path
 
 
