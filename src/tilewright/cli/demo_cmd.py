@@ -11,6 +11,7 @@ def register(sub) -> None:
     p = sub.add_parser("demo", help="build a small invented two-site cohort, tile it with Macenko and audit it")
     p.add_argument("out", nargs="?", default="demo-out", help="output folder (default demo-out)")
     p.add_argument("--workers", type=int, default=1, help="worker processes for tile-out (default 1)")
+    p.add_argument("--per-site", type=int, default=6, help="slides a site (default 6)")
     p.set_defaults(func=run)
 
 
@@ -20,7 +21,7 @@ def run(args) -> int:
 
     out = Path(args.out)
     print(f"tilewright demo: an invented cohort (site-north 0.25 µm/px, site-south 0.5 µm/px) in {out}/")
-    slides, meta = write_demo_cohort(out)
+    slides, meta = write_demo_cohort(out, n_per_site=args.per_site)
     tiles = out / "tiles"
     code = tile_out([str(slides), str(tiles), "--mpp", "0.5", "--tile", "256", "--normalize", "macenko",
                      "--workers", str(args.workers)])
