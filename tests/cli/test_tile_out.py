@@ -168,3 +168,15 @@ def test_list_file_source(tmp_path):
     out = tmp_path / "out"
     assert tile_out([str(lst), str(out), *FAST]) == 0
     assert sorted(pd.read_csv(out / "manifest.csv").slide_id) == ["s0", "s1"]
+
+
+def test_rerun_with_other_settings_is_not_silently_mixed(tmp_path):
+    src = _good(tmp_path, 1)
+    out = tmp_path / "out"
+    assert tile_out([str(src), str(out), *FAST]) == 0
+    assert tile_out([str(src), str(out), "--tile", "64", "--quiet"]) == 3  # ground truth: settings differ
+    m = pd.read_csv(out / "manifest.csv", keep_default_na=False)
+    assert "--overwrite" in m.error[0] and "tile 128 -> 64" in m.error[0]
+    assert tw.open_store(out / "s0.zarr").tile_size == 128  # the finished store is untouched
+    assert tile_out([str(src), str(out), "--tile", "64", "--overwrite", "--quiet"]) == 0
+    assert tw.open_store(out / "s0.zarr").tile_size == 64

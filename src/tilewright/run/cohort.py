@@ -30,8 +30,8 @@ def run_one(path: str, out_dir: str, config: dict, slide_id: str, mpp: float | N
     cfg = TilingConfig.from_dict(config)
     final = store_path(out_dir, slide_id)
     try:
-        done = _complete_row(final, path, slide_id)
-        if done is not None and not overwrite:
+        done = None if overwrite else _complete_row(final, path, slide_id, cfg)
+        if done is not None:
             return done
         normalizer = None
         if target is not None:
@@ -60,13 +60,28 @@ def tile_slide_row(path, final, cfg, slide_id, mpp, normalizer) -> SlideResult:
     return res
 
 
-def _complete_row(final: Path, path: str, slide_id: str) -> dict | None:
-    """Manifest row of an already complete store, or None."""
+#: Settings that do not change what a store contains.
+_RUN_ONLY = ("threads",)
+
+
+def _complete_row(final: Path, path: str, slide_id: str, cfg: TilingConfig) -> dict | None:
+    """Manifest row of an already complete store made with the same settings, or None.
+
+    A complete store made with other settings is not silently kept or replaced: the slide fails
+    with a reason saying how to proceed.
+    """
+    from tilewright.errors import ConfigError
     from tilewright.store.reader import is_complete, open_store
 
     if not is_complete(final):
         return None
     a = open_store(final).attrs
+    old, new = dict(a.get("config") or {}), cfg.to_dict()
+    changed = sorted(k for k in set(old) | set(new) if k not in _RUN_ONLY and old.get(k) != new.get(k))
+    if changed:
+        detail = ", ".join(f"{k} {old.get(k)!r} -> {new.get(k)!r}" for k in changed[:4])
+        raise ConfigError(f"a complete store made with other settings exists ({detail}); pass --overwrite "
+                          "to re-tile or choose another output folder", final)
     n = int(a.get("n_tiles", 0))
     return SlideResult(slide_id, path, "ok" if n else "skipped",
                        "" if n else "no tile met the tissue criteria (blank slide or too little tissue)",
