@@ -180,3 +180,24 @@ def test_rerun_with_other_settings_is_not_silently_mixed(tmp_path):
     assert tw.open_store(out / "s0.zarr").tile_size == 128  # the finished store is untouched
     assert tile_out([str(src), str(out), "--tile", "64", "--overwrite", "--quiet"]) == 0
     assert tw.open_store(out / "s0.zarr").tile_size == 64
+
+
+def test_ctrl_c_stops_cleanly_and_resumes(tmp_path):
+    src = _good(tmp_path, 4)
+    out = tmp_path / "out"
+    cmd = [sys.executable, "-m", "tilewright.cli.tile_out", str(src), str(out), *FAST]
+    proc = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
+    deadline = time.time() + 120
+    while time.time() < deadline and not list(out.glob("*.zarr")):
+        time.sleep(0.02)
+    proc.send_signal(signal.SIGINT)  # what Ctrl-C sends
+    _, err = proc.communicate(timeout=120)
+    if proc.returncode == 0:
+        pytest.skip("the run finished before the interrupt arrived")
+    assert proc.returncode == 130 and "resume" in err  # ground truth: the documented exit code
+    m = pd.read_csv(out / "manifest.csv", keep_default_na=False)
+    assert len(m) == 4 and set(m.status) <= {"ok", "failed"}
+    assert all("interrupted" in e for e in m[m.status == "failed"].error)
+    assert not [p for p in out.iterdir() if ".partial-" in p.name]  # no half-written store left
+    assert subprocess.run(cmd).returncode == 0
+    assert len(tw.open_cohort(out).stores) == 4
