@@ -35,7 +35,7 @@ class _Level:
     """One pyramid level: a TIFF page and what is needed to decode its segments."""
 
     __slots__ = ("height", "width", "tile_h", "tile_w", "grid_w", "offsets", "counts",
-                 "decode", "jpegtables", "page_index")
+                 "decode", "jpegtables", "page_index", "is_jpeg")
 
     def __init__(self, page, index):
         self.height, self.width = int(page.imagelength), int(page.imagewidth)
@@ -47,6 +47,7 @@ class _Level:
         self.decode = page.decode
         self.jpegtables = page.jpegtables
         self.page_index = index
+        self.is_jpeg = int(page.compression) == 7  # new-style JPEG (TIFF Technical Note 2)
 
 
 def _check_page(page, path) -> None:
@@ -152,6 +153,13 @@ class TiffBackend:
                 continue  # not a reduced copy of level 0 (a label, a macro photo)
             levels.append(_Level(p, i))
         resolution = _resolution(tf, page0)
+        top = levels[0].page_index
+        if pages[top] is not page0 and resolution.source == "tiff-tags":
+            # IFDs out of size order: the tags read belong to a reduced page, not level 0
+            own = _resolution(tf, pages[top])
+            scaled = resolution.mpp * page0.imagewidth / pages[top].imagewidth
+            resolution = own if own.mpp is not None else Resolution(scaled, resolution.objective,
+                                                                    "tiff-tags")
         flavour = "ome" if tf.is_ome else "svs" if tf.is_svs else "tiff"
         return levels, resolution, flavour
 
@@ -211,6 +219,13 @@ class TiffBackend:
                         f"tile ({r}, {c}) of level {level} cannot be decoded while reading "
                         f"region y={y}, x={x}, h={h}, w={w} ({type(exc).__name__}: {exc}); "
                         "the file is damaged", self.path) from exc
+                if lv.is_jpeg and seg is not None and not _jpeg_intact(lv, first + k, data, seg):
+                    ty0, tx0 = r * th, c * tw
+                    raise DamagedSlideError(
+                        f"tile ({r}, {c}) of level {level} (pixels y={ty0}-{ty0 + th}, "
+                        f"x={tx0}-{tx0 + tw} of that level) holds corrupt JPEG data (the decoder "
+                        f"lost sync) while reading region y={y}, x={x}, h={h}, w={w}; "
+                        "the file is damaged, copy the slide again", self.path)
                 if seg is None:
                     dst[...] = 255
                     continue
@@ -243,6 +258,16 @@ class TiffBackend:
         fd, self._fd = self._fd, None
         if fd is not None:
             os.close(fd)
+
+
+def _jpeg_intact(lv: _Level, index: int, data, seg) -> bool:
+    """Whether a decoded JPEG tile came from an intact entropy-coded stream (see jpeg_check)."""
+    from tilewright.slide.jpeg_check import jpeg_in_sync
+
+    def decode(buf):
+        return lv.decode(buf, index, jpegtables=lv.jpegtables)[0]
+
+    return jpeg_in_sync(bytes(data), seg, decode)
 
 
 def _resolution(tf, page0) -> Resolution:
