@@ -92,3 +92,12 @@ def test_macenko_normalized_store_records_normalizer(slide40, tmp_path):
     norm = tw.MacenkoNormalizer.from_dict(store.attrs["normalizer"])
     assert norm.stain_matrix.shape == (2, 3)
     assert len(store) == 16
+
+
+def test_cohort_output_path_that_is_a_file_is_a_typed_error(slide40, tmp_path):
+    from tilewright.errors import StoreError
+
+    f = tmp_path / "out"
+    f.write_text("")
+    with pytest.raises(StoreError, match="output folder"):
+        tw.tile_cohort([slide40], f, progress=False)

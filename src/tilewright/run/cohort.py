@@ -156,7 +156,13 @@ def tile_cohort(paths, out_dir, config: TilingConfig | None = None, *, scheduler
 
         on_result = SlideProgress(len(paths))
     out_dir = Path(out_dir)
-    out_dir.mkdir(parents=True, exist_ok=True)
+    try:
+        out_dir.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        from tilewright.errors import StoreError
+
+        raise StoreError(f"cannot create the output folder ({exc.strerror or exc}); choose a writable "
+                         "folder path", out_dir) from None
     paths = [str(p) for p in paths]
     ids = slide_ids(paths)
     mpps = [_mpp_for(mpp, p, i) for p, i in zip(paths, ids)]
