@@ -19,19 +19,18 @@ def angle_deg(u, v) -> float:
     return float(np.degrees(np.arccos(np.clip(np.dot(unit(u), unit(v)), -1.0, 1.0))))
 
 
-def render(stains, conc, *, quantize=True):
-    """RGB of concentrations ``conc`` (..., 2) under unit stains (2, 3): I = 255*10^(-C S)."""
+def render(stains, conc, *, quantize=True, glass=255.0):
+    """RGB of concentrations ``conc`` (..., 2) under unit stains (2, 3): I = I0*10^(-C S).
+
+    ``glass`` is the incident light I0 (scalar or per channel), Beer–Lambert law.
+    """
     od = np.asarray(conc, np.float64) @ np.asarray(stains, np.float64)
-    rgb = 255.0 * 10.0 ** (-od)
+    rgb = np.asarray(glass, np.float64) * 10.0 ** (-od)
     return np.clip(np.rint(rgb), 0, 255).astype(np.uint8) if quantize else rgb
 
 
-def synthetic_tissue(rng, stains, *, shape=(128, 128), scale=(1.0, 1.0), background=0.3,
-                     pure=0.1):
-    """A tissue-like image: smooth random H and E concentrations, some glass, some pure stains.
-
-    Ground truth: every tissue pixel is a Beer–Lambert mixture of ``stains`` (2, 3).
-    """
+def synthetic_concentrations(rng, *, shape=(128, 128), scale=(1.0, 1.0), background=0.3, pure=0.1):
+    """Random H and E concentrations (H, W, 2): some glass (both 0), some pure-stain pixels."""
     h, w = shape
     n = h * w
     conc = rng.gamma(shape=2.0, scale=0.35, size=(n, 2)) * np.asarray(scale)
@@ -39,8 +38,17 @@ def synthetic_tissue(rng, stains, *, shape=(128, 128), scale=(1.0, 1.0), backgro
     conc[kind < pure, 1] = 0.0  # pure hematoxylin
     conc[(kind >= pure) & (kind < 2 * pure), 0] = 0.0  # pure eosin
     conc[kind > 1.0 - background] = 0.0  # glass
-    return render(unit(stains), conc.reshape(h, w, 2))
+    return conc.reshape(h, w, 2)
 
+
+def synthetic_tissue(rng, stains, *, shape=(128, 128), scale=(1.0, 1.0), background=0.3,
+                     pure=0.1):
+    """A tissue-like image: random H and E concentrations, some glass, some pure stains.
+
+    Ground truth: every tissue pixel is a Beer–Lambert mixture of ``stains`` (2, 3).
+    """
+    conc = synthetic_concentrations(rng, shape=shape, scale=scale, background=background, pure=pure)
+    return render(unit(stains), conc)
 
 
 # Two invented sites: "site-north" stains close to Ruifrok & Johnston; "site-south" has a bluer
@@ -55,6 +63,11 @@ def site_image(seed, site, shape=(128, 128)):
     """Synthetic tissue of one invented site (ground truth: its stains and scales above)."""
     stains, scale = {"north": (NORTH_STAINS, NORTH_SCALE), "south": (SOUTH_STAINS, SOUTH_SCALE)}[site]
     return synthetic_tissue(np.random.default_rng(seed), stains, shape=shape, scale=scale)
+
+
+# Glass colours of the demo's two invented sites (RGB of blank glass, the incident light I0).
+NORTH_GLASS = np.array([238.0, 236.0, 240.0])
+SOUTH_GLASS = np.array([232.0, 234.0, 226.0])
 
 
 def mean_lab(rgb, mask=None):

@@ -14,7 +14,7 @@ import pandas as pd
 
 from tilewright.audit.association import association_table, kruskal_table
 from tilewright.audit.embedding import Embedding, embed_slides
-from tilewright.audit.factors import cohort_factors
+from tilewright.audit.factors import alias_groups, cohort_factors
 from tilewright.audit.findings import audit_findings, comparison_findings, guess_label
 from tilewright.audit.metrics import METRICS, slide_metrics
 from tilewright.audit.source import SOURCES, read_manifest, read_slide, resolve_folder
@@ -53,6 +53,11 @@ class CohortAudit:
         The cohort output folder.
     previews : dict
         slide id -> small uint8 RGB picture for the cluster grid.
+    notes : dict
+        How each factor was treated (column -> ``"categories"`` / ``"quartile bins"``) and
+        ``"_identifiers"`` (columns with one value a slide, not tested), ``"_aliases"`` (first
+        factor -> factors splitting the slides exactly like it), ``"_dropped"`` (one level),
+        ``"_unmatched"``, ``"_missing"`` and ``"_attrs"`` (store attributes by slide).
     """
 
     metrics: pd.DataFrame
@@ -117,7 +122,7 @@ class CohortAudit:
     def comparison_findings(self, other: "CohortAudit", names=None) -> list[str]:
         """Sentences on how associations changed from this audit to ``other``."""
         names = names or (_source_name(self), _source_name(other))
-        return comparison_findings(self.compare(other), tuple(names))
+        return comparison_findings(self.compare(other), tuple(names), self.notes.get("_aliases"))
 
 
 def _source_name(audit: CohortAudit) -> str:
@@ -216,11 +221,14 @@ def audit_cohort(
     metrics.index.name = "slide_id"
     factors, notes = cohort_factors(ok.loc[metrics.index], metadata)
     if label is not None and label not in factors.columns:
+        why = (" (it holds one value a slide, like an identifier)" if label in notes.get("_identifiers", [])
+               else "")
         raise ConfigError(
-            f"label {label!r} is not a metadata factor with two or more levels "
+            f"label {label!r} is not a metadata factor with two or more levels{why} "
             f"(factors: {', '.join(factors.columns) or 'none'})"
         )
     label = label if label is not None else guess_label(factors.columns)
+    notes["_aliases"] = alias_groups(factors, exclude=[label])
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", category=FutureWarning)
         embedding = embed_slides(metrics, seed=seed, tsne=tsne)

@@ -2,13 +2,27 @@
 
 Every metadata column other than ``slide_id`` is a factor. Text columns are taken as they are;
 numeric columns with at most ``max_levels`` distinct values (for example the source µm/px, 0.25
-and 0.5) are categories too; numeric columns with more values are cut into quartile bins so that
-a contingency table against the colour clusters still makes sense.
+and 0.5) are categories too; numeric columns with more values, or with a different value on
+every slide, are cut into quartile bins so that a contingency table against the colour clusters
+still makes sense.
+
+Two kinds of column are not tested as they are:
+
+- *identifiers* (a patient or case id: a different value on every slide) are dropped. Every
+  slide forms its own level, so any clustering "follows" them perfectly (Cramér's V = 1) and
+  the test says nothing. A text column is an identifier when its values are all distinct over
+  more than two slides; a numeric one only when its name also says so (``patient_id``,
+  ``case``, ...) and its values are whole numbers, so that measurements such as age stay
+  factors (cut into quartile bins).
+- *aliases* (columns that split the slides exactly like another one, such as a site that always
+  uses one scanner) are kept, but :func:`alias_groups` names them together so that findings
+  say it once: "site (= scanner)".
 """
 
 from __future__ import annotations
 
 import os
+import re
 from pathlib import Path
 
 import numpy as np
@@ -16,10 +30,13 @@ import pandas as pd
 
 from tilewright.errors import ConfigError
 
-__all__ = ["read_metadata", "as_factors", "cohort_factors"]
+__all__ = ["read_metadata", "as_factors", "cohort_factors", "identifier_columns", "alias_groups"]
 
 #: Numeric columns with at most this many distinct values are treated as categories.
 MAX_NUMERIC_LEVELS = 10
+#: Words in a column name that mark a numeric column with one value a slide as an identifier.
+ID_WORDS = frozenset({"id", "ids", "identifier", "patient", "case", "subject", "specimen",
+                      "accession", "barcode", "uuid", "mrn", "slide"})
 
 
 def read_metadata(metadata) -> pd.DataFrame:
@@ -83,8 +100,9 @@ def as_factors(table: pd.DataFrame, max_levels: int = MAX_NUMERIC_LEVELS) -> tup
     table : DataFrame
         Columns to use as factors.
     max_levels : int
-        Numeric columns with at most this many distinct values stay as their values; others are
-        cut into quartile bins.
+        Numeric columns with at most this many distinct values stay as their values; others,
+        and those with a different value on every one of more than two slides (one level a
+        slide would make any clustering "follow" them), are cut into quartile bins.
 
     Returns
     -------
@@ -102,7 +120,10 @@ def as_factors(table: pd.DataFrame, max_levels: int = MAX_NUMERIC_LEVELS) -> tup
             notes[str(name)] = "categories"
             continue
         values = pd.to_numeric(column, errors="coerce")
-        if values.dropna().nunique() <= max_levels:
+        present = values.dropna()
+        # one distinct value a slide is a measurement, not a grouping: bin it even when few
+        distinct = present.nunique() == len(present) and len(present) > 2
+        if present.nunique() <= max_levels and not distinct:
             factors[str(name)] = values.map(_number_label).astype(object)
             notes[str(name)] = "categories"
         else:
@@ -112,6 +133,81 @@ def as_factors(table: pd.DataFrame, max_levels: int = MAX_NUMERIC_LEVELS) -> tup
             )
             notes[str(name)] = "quartile bins"
     return pd.DataFrame(factors, index=table.index), notes
+
+
+def _id_like_name(name) -> bool:
+    text = str(name)
+    words = re.split(r"[^a-z0-9]+", re.sub(r"([a-z0-9])([A-Z])", r"\1_\2", text).lower())
+    return any(w in ID_WORDS for w in words)
+
+
+def identifier_columns(table: pd.DataFrame) -> list[str]:
+    """Columns that hold a different value on every slide (patient or case identifiers).
+
+    Parameters
+    ----------
+    table : DataFrame
+        Metadata of the audited slides, one row a slide.
+
+    Returns
+    -------
+    list of str
+        Columns whose present values are all distinct over more than two slides: every text
+        column like that, and numeric ones whose values are whole numbers and whose name marks
+        an identifier (a word such as ``id``, ``patient``, ``case``; see :data:`ID_WORDS`).
+    """
+    out = []
+    for name in table.columns:
+        column = table[name]
+        present = column.dropna()
+        if len(present) <= 2 or present.nunique() != len(present):
+            continue
+        if pd.api.types.is_bool_dtype(column) or not pd.api.types.is_numeric_dtype(column):
+            out.append(str(name))
+            continue
+        values = pd.to_numeric(present, errors="coerce")
+        if _id_like_name(name) and bool(np.all(np.isfinite(values) & (values == np.round(values)))):
+            out.append(str(name))
+    return out
+
+
+def alias_groups(factors: pd.DataFrame, exclude=()) -> dict[str, list[str]]:
+    """Factors that split the slides in exactly the same way, grouped.
+
+    Two factors are aliases when their levels correspond one to one on every slide (a missing
+    value counts as a level of its own), for example a site that always used one scanner.
+
+    Parameters
+    ----------
+    factors : DataFrame
+        Categorical factors, one row a slide; column order decides which name leads a group.
+    exclude : iterable of str
+        Factors never grouped (for example the training label, which must stay visible).
+
+    Returns
+    -------
+    dict
+        First factor of each group of two or more -> the other factors of the group, in column
+        order. Factors without an alias do not appear.
+    """
+    skip = {str(e) for e in exclude if e is not None}
+    names = [str(c) for c in factors.columns if str(c) not in skip]
+    codes = {n: pd.factorize(factors[n].astype(object).where(factors[n].notna(), "\0missing"))[0]
+             for n in names}
+    groups: dict[str, list[str]] = {}
+    taken: set[str] = set()
+    for i, lead in enumerate(names):
+        if lead in taken:
+            continue
+        for other in names[i + 1:]:
+            if other in taken:
+                continue
+            a, b = codes[lead], codes[other]
+            pairs = len(set(zip(a.tolist(), b.tolist())))
+            if pairs == len(set(a.tolist())) == len(set(b.tolist())):
+                groups.setdefault(lead, []).append(other)
+                taken.add(other)
+    return groups
 
 
 def _number_label(value) -> object:
@@ -134,11 +230,14 @@ def cohort_factors(manifest: pd.DataFrame, metadata=None) -> tuple[pd.DataFrame,
     Returns
     -------
     factors : DataFrame
-        Indexed like ``manifest``; columns with a single level among these slides are dropped.
+        Indexed like ``manifest``; metadata columns first, then the manifest's. Columns with a
+        single level among these slides, and identifiers (:func:`identifier_columns`), are
+        dropped.
     notes : dict
         Column -> how it was treated, plus ``"_unmatched"``: metadata slide ids not in the cohort,
-        ``"_missing"``: cohort slides without a metadata row, and ``"_dropped"``: factor names
-        left out because they have one level.
+        ``"_missing"``: cohort slides without a metadata row, ``"_dropped"``: factor names
+        left out because they have one level, and ``"_identifiers"``: columns left out because
+        they hold one value a slide.
     """
     parts = []
     if "mpp_source" in manifest.columns:
@@ -152,13 +251,15 @@ def cohort_factors(manifest: pd.DataFrame, metadata=None) -> tuple[pd.DataFrame,
         missing = sorted(set(manifest.index) - set(meta.index))
         meta = meta.reindex(manifest.index)
         parts = [p.drop(columns=[c for c in p.columns if c in meta.columns]) for p in parts]
-        parts.append(meta)
+        parts.insert(0, meta)
     table = pd.concat(parts, axis=1) if parts else pd.DataFrame(index=manifest.index)
-    factors, notes = as_factors(table)
+    identifiers = identifier_columns(table)
+    factors, notes = as_factors(table.drop(columns=identifiers))
     dropped = [c for c in factors.columns if factors[c].dropna().nunique() < 2]
     factors = factors.drop(columns=dropped)
     notes = {k: v for k, v in notes.items() if k not in dropped}
     notes["_unmatched"] = unmatched
     notes["_dropped"] = dropped
+    notes["_identifiers"] = identifiers
     notes["_missing"] = missing
     return factors, notes

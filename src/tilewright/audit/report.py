@@ -106,7 +106,7 @@ def _html(audit, figures: dict, before, names) -> str:
         parts += [
             f'<section id="before-after"><h2>Before / after: {html.escape(names[0])} → {html.escape(names[1])}</h2>',
             "<ol class=\"findings\">",
-            *[f"<li>{html.escape(s)}</li>" for s in comparison_findings(table, names)],
+            *[f"<li>{html.escape(s)}</li>" for s in comparison_findings(table, names, before.notes.get("_aliases"))],
             "</ol>",
             _table(table.rename(columns={"cramers_v_before": f"V {names[0]}", "cramers_v_after": f"V {names[1]}",
                                          "p_value_before": f"p {names[0]}", "p_value_after": f"p {names[1]}"})),

@@ -134,10 +134,10 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
         plan = plan_tiles(view, mask, tile=config.tile, stride=config.stride, min_tissue=config.min_tissue,
                           regions=regions if config.keep else None, keep=config.keep,
                           min_region=config.min_region, max_tiles=config.max_tiles, seed=config.seed)
+        thumbnail = slide.thumbnail(config.mask_mpp)
         bound = None
         if config.normalizer:
-            bound = _bind_normalizer(view, plan, config, target, path)
-        thumbnail = slide.thumbnail(config.mask_mpp)
+            bound = _bind_normalizer(view, plan, config, target, path, _glass(thumbnail, mask))
         attrs = {
             "slide_id": slide_id,
             "source": {"path": str(path.resolve()), "size": os.path.getsize(path),
@@ -170,20 +170,28 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
                            store=str(final))
 
 
-def _bind_normalizer(view, plan, config, target, path):
-    """Fit the target (if needed) and bind the slide's own stain estimate from a tile sample."""
+def _glass(thumbnail, mask):
+    from tilewright.run.target import slide_glass
+
+    return slide_glass(thumbnail, mask)
+
+
+def _bind_normalizer(view, plan, config, target, path, glass=None):
+    """Fit the target (if needed) and bind the slide's own stain estimate from a tile sample,
+    optical density measured against the slide's glass colour ``glass``."""
     from tilewright.run.reference import make_target, sample_tiles
+    from tilewright.stain.registry import make_normalizer
 
     sample = sample_tiles(view, plan.yx, config.tile, config.stain_sample, config.seed)
     if len(sample) == 0:
         return None  # nothing will be stored; no estimate needed
     if target is None:
         target = (make_target(config.normalizer, config.reference) if config.reference is not None
-                  else make_target(config.normalizer, sample))
+                  else make_normalizer(config.normalizer).fit(sample, glass=glass))
     if config.per_tile_stain:
-        return target
+        return target.with_glass(glass)
     try:
-        return target.fit_source(sample)
+        return target.fit_source(sample, glass=glass)
     except StainEstimationError as exc:
         raise StainEstimationError(f"cannot estimate this slide's stain from {len(sample)} tissue tiles "
                                    f"({exc.reason}); lower --min-tissue or run without --normalize", path) from None

@@ -7,14 +7,29 @@ import numpy as np
 from tilewright.errors import TilewrightError
 from tilewright.run.config import TilingConfig
 
-__all__ = ["cohort_target", "slide_estimate"]
+__all__ = ["cohort_target", "slide_estimate", "slide_glass"]
 
 #: Slides sampled (evenly over the sorted list) to build the cohort target.
 MAX_SLIDES = 24
 
 
+def slide_glass(thumbnail, mask) -> list[float] | None:
+    """RGB of the slide's blank glass (the incident light of the Beer–Lambert law), or None
+    for white: the median colour of the thumbnail's background away from tissue
+    (:func:`tilewright.stain.density.estimate_glass`; common practice)."""
+    from tilewright.stain.density import estimate_glass
+
+    background = ~np.asarray(mask.array, bool)
+    for extra in ("ink", "dark"):
+        if getattr(mask, extra, None) is not None:
+            background &= ~np.asarray(getattr(mask, extra), bool)
+    glass = estimate_glass(thumbnail, background)
+    return None if glass is None else [float(v) for v in glass]
+
+
 def slide_estimate(path: str, config: dict, mpp: float | None) -> dict | None:
-    """A normalizer fitted to one slide's sample of tissue tiles (None when impossible)."""
+    """A normalizer fitted to one slide's sample of tissue tiles, its optical density measured
+    against the slide's own glass colour (None when impossible)."""
     from tilewright.run.reference import sample_tiles
     from tilewright.slide.open import open_wsi
     from tilewright.stain.registry import make_normalizer
@@ -29,9 +44,10 @@ def slide_estimate(path: str, config: dict, mpp: float | None) -> dict | None:
             plan = plan_tiles(view, mask, tile=cfg.tile, stride=cfg.stride, min_tissue=cfg.min_tissue,
                               max_tiles=cfg.stain_sample, seed=cfg.seed)
             sample = sample_tiles(view, plan.yx, cfg.tile, cfg.stain_sample, cfg.seed)
+            glass = slide_glass(slide.thumbnail(cfg.mask_mpp), mask)
         if len(sample) == 0:
             return None
-        return make_normalizer(cfg.normalizer).fit(sample).to_dict()
+        return make_normalizer(cfg.normalizer).fit(sample, glass=glass).to_dict()
     except TilewrightError:
         return None  # the slide's own run will report why
 

@@ -1,5 +1,10 @@
 """Macenko stain-vector estimation for H&E (and hematoxylin-DAB) images.
 
+Optical density is taken relative to the glass colour when one is given (``glass=``): with a
+tinted glass every pixel's OD against pure white carries the glass's own OD, which shifts the
+tissue's OD cloud away from the origin and tilts the stain plane and its extreme angles. The
+Beer–Lambert law with the glass as incident light removes that offset exactly.
+
 References
 ----------
 Macenko M, Niethammer M, Marron JS, Borland D, Woosley JT, Guan X, Schmitt C, Thomas NE (2009).
@@ -96,8 +101,8 @@ def _validate(beta: float, alpha: float) -> None:
         raise ValueError(f"alpha must be a percentile in [0, 50), got {alpha}")
 
 
-def _tissue_for_estimate(rgb, beta, max_pixels, min_pixels):
-    od, _ = tissue_od(rgb, beta=beta, max_pixels=max_pixels)
+def _tissue_for_estimate(rgb, beta, max_pixels, min_pixels, glass=None):
+    od, _ = tissue_od(rgb, beta=beta, max_pixels=max_pixels, glass=glass)
     if od.shape[0] < min_pixels:
         raise StainEstimationError(
             f"only {od.shape[0]} tissue pixels (optical density >= {beta}); at least "
@@ -128,6 +133,7 @@ def estimate_stains(
     alpha: float = 1.0,
     min_tissue_pixels: int = MIN_TISSUE_PIXELS,
     max_pixels: int = MAX_STAT_PIXELS,
+    glass=None,
 ) -> np.ndarray:
     """Estimate the two stain vectors of an H&E (or H-DAB) image by Macenko's method.
 
@@ -147,6 +153,11 @@ def estimate_stains(
         Fewer tissue pixels raise :class:`~tilewright.errors.StainEstimationError`.
     max_pixels : int
         Larger inputs are examined on an evenly strided subset of this many pixels.
+    glass : array_like (3,), optional
+        RGB of the slide's blank glass, the incident light ``I0`` of the Beer–Lambert law
+        (``OD = max(0, log10(I0 / I))``). Default pure white (255, 255, 255). Estimating it from
+        the brightest background of the slide is common practice, e.g. with
+        :func:`tilewright.tissue.density.glass_colour` on a thumbnail.
 
     Returns
     -------
@@ -160,7 +171,8 @@ def estimate_stains(
     StainEstimationError
         Too few tissue pixels, or a single stain colour (vectors under 2 degrees apart).
     TypeError, ValueError
-        For a non-uint8 / non-RGB image, or out-of-range ``beta`` / ``alpha``.
+        For a non-uint8 / non-RGB image, out-of-range ``beta`` / ``alpha``, or an invalid
+        glass colour.
 
     References
     ----------
@@ -179,7 +191,7 @@ def estimate_stains(
     (2, 3)
     """
     _validate(beta, alpha)
-    od = _tissue_for_estimate(rgb, beta, max_pixels, min_tissue_pixels)
+    od = _tissue_for_estimate(rgb, beta, max_pixels, min_tissue_pixels, glass)
     return _checked_vectors(od, alpha)
 
 
@@ -212,6 +224,7 @@ def estimate_stain_profile(
     percentile: float = 99.0,
     min_tissue_pixels: int = MIN_TISSUE_PIXELS,
     max_pixels: int = MAX_STAT_PIXELS,
+    glass=None,
 ) -> StainProfile:
     """Stain vectors and 99th-percentile stain concentrations of an image.
 
@@ -224,8 +237,9 @@ def estimate_stain_profile(
     ----------
     rgb : array_like, uint8, shape (..., 3)
         Image or batch of images; all pixels are pooled.
-    beta, alpha, min_tissue_pixels, max_pixels
-        As in :func:`estimate_stains`.
+    beta, alpha, min_tissue_pixels, max_pixels, glass
+        As in :func:`estimate_stains`; the concentrations are unmixed from OD relative to
+        ``glass`` too.
     percentile : float, default 99
         Percentile of each stain's concentration used as its maximum (Macenko et al. 2009).
 
@@ -245,7 +259,7 @@ def estimate_stain_profile(
     International Symposium on Biomedical Imaging (ISBI), 1107-1110.
     """
     _validate(beta, alpha)
-    od = _tissue_for_estimate(rgb, beta, max_pixels, min_tissue_pixels)
+    od = _tissue_for_estimate(rgb, beta, max_pixels, min_tissue_pixels, glass)
     stains = _checked_vectors(od, alpha)
     maxima = max_concentrations(od, stains, percentile)
     if not np.all(np.isfinite(maxima)) or np.any(maxima <= 0):

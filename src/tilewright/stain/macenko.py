@@ -13,7 +13,8 @@ import numpy as np
 
 from ..errors import ConfigError
 from .estimate import StainProfile, estimate_stain_profile, estimate_stains
-from .normalizer import StainNormalizer, as_float_list
+from .density import glass_od
+from .normalizer import StainNormalizer, as_float_list, glass_list
 from .od_transform import apply_od_affine
 from .tissue_pixels import DEFAULT_BETA
 
@@ -31,7 +32,15 @@ class MacenkoNormalizer(StainNormalizer):
     eosin concentrations, each concentration is scaled by the ratio of the target's to the
     source's 99th-percentile maximum, and the result is remixed with the target stain matrix.
     The whole map is linear in optical density, so it is applied as one 3x3 matrix; glass
-    (optical density 0) stays exactly white.
+    (optical density 0) becomes exactly white.
+
+    Optical density follows the Beer–Lambert law with the glass as incident light:
+    ``OD = max(0, log10(I0 / I))`` where ``I0`` is the source slide's glass colour
+    (:meth:`fit_source` / :meth:`with_glass`, default pure white) for the source and the
+    reference's glass (``fit(..., glass=)``) for the target. The output is rendered as
+    ``I = I0_out * 10**(-OD')`` with ``I0_out = output_glass`` (default white), which the affine
+    kernel absorbs as the offset ``log10(255 / I0_out)``. A slide scanned through tinted glass
+    thus loses its tint in both glass and tissue, instead of keeping it as a site signature.
 
     Parameters
     ----------
@@ -44,6 +53,8 @@ class MacenkoNormalizer(StainNormalizer):
         OD threshold for tissue pixels (Macenko et al. 2009).
     alpha : float, default 1.0
         Angle percentile of the extreme stain directions (Macenko et al. 2009).
+    output_glass : array_like (3,), optional
+        RGB of the glass the output is rendered with; default pure white (255, 255, 255).
 
     Attributes
     ----------
@@ -53,12 +64,19 @@ class MacenkoNormalizer(StainNormalizer):
         Target 99th-percentile concentrations.
     source : StainProfile or None
         The bound source estimate (set by :meth:`fit_source`).
+    glass : ndarray (3,) or None
+        Glass colour of the images transformed (None: white).
+    reference_glass : ndarray (3,) or None
+        Glass colour of the reference the target was fitted on (None: white).
 
     References
     ----------
     Macenko M, Niethammer M, Marron JS, Borland D, Woosley JT, Guan X, Schmitt C, Thomas NE
     (2009). A method for normalizing histology slides for quantitative analysis. IEEE
     International Symposium on Biomedical Imaging (ISBI), 1107-1110.
+
+    Ruifrok AC, Johnston DA (2001). Quantification of histochemical staining by color
+    deconvolution. Analytical and Quantitative Cytology and Histology 23(4):291-299.
 
     Examples
     --------
@@ -71,8 +89,9 @@ class MacenkoNormalizer(StainNormalizer):
 
     method = "macenko"
 
-    def __init__(self, *, per_tile: bool = False, beta: float = DEFAULT_BETA, alpha: float = 1.0):
-        super().__init__(per_tile=per_tile)
+    def __init__(self, *, per_tile: bool = False, beta: float = DEFAULT_BETA, alpha: float = 1.0,
+                 output_glass=None):
+        super().__init__(per_tile=per_tile, output_glass=output_glass)
         beta, alpha = float(beta), float(alpha)
         if not (np.isfinite(beta) and beta >= 0):
             raise ValueError(f"beta must be a finite OD threshold >= 0, got {beta}")
@@ -87,8 +106,8 @@ class MacenkoNormalizer(StainNormalizer):
     def is_fitted(self) -> bool:
         return self.stain_matrix is not None
 
-    def _estimate(self, rgb):
-        return estimate_stain_profile(rgb, beta=self.beta, alpha=self.alpha)
+    def _estimate(self, rgb, glass=None):
+        return estimate_stain_profile(rgb, beta=self.beta, alpha=self.alpha, glass=glass)
 
     def _set_target(self, stats: StainProfile) -> None:
         self.stain_matrix = np.asarray(stats.stain_matrix, np.float32)
@@ -118,14 +137,16 @@ class MacenkoNormalizer(StainNormalizer):
         return (unmix * scale) @ np.asarray(self.stain_matrix, np.float64)
 
     def _apply(self, rgb, source, out) -> None:
-        apply_od_affine(rgb, self.od_matrix(source), out=out)
+        offset = None if self.output_glass is None else glass_od(self.output_glass)
+        apply_od_affine(rgb, self.od_matrix(source), offset, out=out, glass=self.glass)
 
     def _params(self) -> dict:
-        return {"per_tile": self.per_tile, "beta": self.beta, "alpha": self.alpha}
+        return {"per_tile": self.per_tile, "beta": self.beta, "alpha": self.alpha,
+                "output_glass": glass_list(self.output_glass)}
 
     @classmethod
     def _param_names(cls) -> tuple:
-        return ("per_tile", "beta", "alpha")
+        return ("per_tile", "beta", "alpha", "output_glass")
 
     def _target_dict(self) -> dict:
         return self._stats_to_dict(StainProfile(self.stain_matrix, self.max_concentrations, 0))
@@ -157,13 +178,15 @@ class MacenkoNormalizer(StainNormalizer):
             Fitted normalizers (for example one fitted on a sample of each slide), their
             profiles, or their ``to_dict()`` output.
         **params
-            ``per_tile``, ``beta``, ``alpha`` of the result (defaults: those of the first
+            ``per_tile``, ``beta``, ``alpha``, ``output_glass`` of the result (defaults: those of the first
             normalizer given, else the class defaults).
 
         Returns
         -------
         MacenkoNormalizer
-            Unbound; stain rows are renormalized to unit length after the median.
+            Unbound, with white input glass; stain rows are renormalized to unit length after
+            the median. Each fit's stains are relative to its own reference glass, so a median
+            over slides with different glass colours is not biased by them.
 
         Raises
         ------

@@ -9,6 +9,17 @@ comes, in order of precedence:
 2. from a bound sample, after ``fit_source(sample)`` (the whole-slide mode: one estimate from a
    reproducible sample of a slide's tissue tiles, reused for every tile batch of that slide);
 3. otherwise from all the pixels passed to ``transform`` at once.
+
+Glass colour. Optical density is ``log10(I0 / I)`` with ``I0`` the light that reaches the camera
+through blank glass (Beer–Lambert law). Slides are not all scanned on pure white glass, so each
+side can have its own ``I0``: ``fit(reference, glass=...)`` estimates the target relative to the
+reference's glass (recorded as ``reference_glass``), and ``fit_source(sample, glass=...)`` or
+``with_glass(glass)`` sets the glass of the images to be transformed (``glass``), used both for
+their estimate and for every pixel transformed. The output is rendered on white glass (or on
+``output_glass`` when one is given), so a slide's tinted background becomes white and its tissue
+colour loses the tint. Estimating ``I0``
+from the brightest background of the slide is common practice (see
+:func:`tilewright.tissue.density.glass_colour`).
 """
 
 from __future__ import annotations
@@ -18,12 +29,31 @@ import copy
 import numpy as np
 
 from ..errors import ConfigError, StainEstimationError
-from .density import check_rgb
+from .density import check_glass, check_rgb
 
 __all__ = ["StainNormalizer", "FORMAT_VERSION"]
 
-#: Version of the dictionary layout written by ``to_dict``.
-FORMAT_VERSION = 1
+#: Version of the dictionary layout written by ``to_dict`` (2 added the glass colours).
+FORMAT_VERSION = 2
+#: Versions ``from_dict`` reads (version 1 has no glass colours: pure white).
+READABLE_VERSIONS = (1, 2)
+
+
+def glass_list(glass) -> list | None:
+    """JSON form of a glass colour: three floats, or None for pure white."""
+    arr = check_glass(glass)
+    return None if arr is None else [float(v) for v in arr]
+
+
+def glass_from_dict(d: dict, key: str):
+    """Read an optional glass colour from a normalizer dictionary (ConfigError if malformed)."""
+    value = d.get(key)
+    if value is None:
+        return None
+    try:
+        return check_glass(value)
+    except ValueError as exc:
+        raise ConfigError(f"normalizer dictionary: {key!r}: {exc}") from None
 
 
 def as_float_list(values, shape, key):
@@ -46,13 +76,19 @@ class StainNormalizer:
 
     method = ""
 
-    def __init__(self, *, per_tile: bool = False):
+    def __init__(self, *, per_tile: bool = False, output_glass=None):
         self.per_tile = bool(per_tile)
+        #: Glass colour the output is rendered with (None: pure white, the default).
+        self.output_glass = check_glass(output_glass)
         self.source = None
+        #: Glass colour (RGB ``I0``) of the images to transform; None is pure white.
+        self.glass = None
+        #: Glass colour of the reference the target was fitted on (provenance); None is white.
+        self.reference_glass = None
 
     # -- hooks for subclasses ------------------------------------------------------------------
-    def _estimate(self, rgb: np.ndarray):  # pragma: no cover - abstract
-        """Source/target statistics of ``rgb``; raise StainEstimationError when impossible."""
+    def _estimate(self, rgb: np.ndarray, glass=None):  # pragma: no cover - abstract
+        """Statistics of ``rgb`` with OD relative to ``glass``; StainEstimationError if impossible."""
         raise NotImplementedError
 
     def _set_target(self, stats) -> None:  # pragma: no cover - abstract
@@ -85,24 +121,66 @@ class StainNormalizer:
         """True when ``fit_source`` fixed the source estimate."""
         return self.source is not None
 
-    def fit(self, reference_rgb):
+    def fit(self, reference_rgb, *, glass=None):
         """Fit the target to a reference image (or batch); returns ``self``.
+
+        Parameters
+        ----------
+        reference_rgb : array_like, uint8, shape (..., 3)
+            Reference image(s).
+        glass : array_like (3,), optional
+            RGB of the reference's blank glass (the incident light ``I0`` its optical density
+            is measured against); default pure white. Recorded as ``reference_glass``.
 
         Raises
         ------
         StainEstimationError
             When the reference has too little tissue or degenerate colour.
+        ValueError
+            For an invalid glass colour.
         """
-        self._set_target(self._estimate(check_rgb(reference_rgb, "reference_rgb")))
+        glass = check_glass(glass)
+        self._set_target(self._estimate(check_rgb(reference_rgb, "reference_rgb"), glass))
+        self.reference_glass = glass
         return self
 
-    def fit_source(self, sample_rgb):
+    def with_glass(self, glass):
+        """Return a copy that treats ``glass`` as the blank-glass colour of the images it transforms.
+
+        Use it when the source estimate comes per tile or per ``transform`` call;
+        :meth:`fit_source` sets the glass and binds an estimate in one step.
+
+        Parameters
+        ----------
+        glass : array_like (3,) or None
+            RGB of blank glass (0..255); None is pure white.
+
+        Returns
+        -------
+        same type as ``self``
+            A copy; ``self`` is not modified. A bound estimate is kept as it is.
+
+        Raises
+        ------
+        ValueError
+            For an invalid glass colour.
+        """
+        other = copy.deepcopy(self)
+        other.glass = check_glass(glass)
+        return other
+
+    def fit_source(self, sample_rgb, *, glass=None):
         """Return a copy whose ``transform`` reuses one source estimate taken from ``sample_rgb``.
 
         Parameters
         ----------
         sample_rgb : array_like, uint8, shape (..., 3)
             A reproducible sample of the slide's tissue (for example a batch of tissue tiles).
+        glass : array_like (3,), optional
+            RGB of the slide's blank glass (the incident light ``I0``), used for the estimate
+            and for every pixel the copy transforms. Default: this normalizer's ``glass`` (pure
+            white unless :meth:`with_glass` set one). Estimate it from the brightest background
+            of the slide (common practice), e.g. :func:`tilewright.tissue.density.glass_colour`.
 
         Returns
         -------
@@ -115,10 +193,12 @@ class StainNormalizer:
             When the sample has too little tissue.
         ConfigError
             When the normalizer has no target yet.
+        ValueError
+            For an invalid glass colour.
         """
         self._require_fitted()
-        bound = copy.deepcopy(self)
-        bound.source = self._estimate(check_rgb(sample_rgb, "sample_rgb"))
+        bound = self.with_glass(glass) if glass is not None else copy.deepcopy(self)
+        bound.source = bound._estimate(check_rgb(sample_rgb, "sample_rgb"), bound.glass)
         return bound
 
     def transform(self, rgb, *, out=None) -> np.ndarray:
@@ -148,7 +228,7 @@ class StainNormalizer:
         if out is None:
             out = np.empty_like(arr)
         if not self.per_tile:
-            source = self.source if self.is_bound else self._estimate(arr)
+            source = self.source if self.is_bound else self._estimate(arr, self.glass)
             self._apply(arr, source, out)
             return out
         if arr.ndim < 3:
@@ -157,7 +237,7 @@ class StainNormalizer:
         dest = out.reshape(images.shape)
         for i, image in enumerate(images):
             try:
-                source = self._estimate(image)
+                source = self._estimate(image, self.glass)
             except StainEstimationError:
                 source = self.source  # bound slide estimate, or None: leave the tile unchanged
             if source is None:
@@ -171,10 +251,14 @@ class StainNormalizer:
     __call__ = transform
 
     def to_dict(self) -> dict:
-        """JSON-safe description (method, parameters, target, bound source estimate or None)."""
+        """JSON-safe description: method, parameters, target, bound source estimate or None, and
+        the glass colours (``glass`` of the images transformed, ``reference_glass`` of the
+        target's reference; None for pure white)."""
         self._require_fitted()
         d = {"method": self.method, "version": FORMAT_VERSION, **self._params()}
         d.update(self._target_dict())
+        d["reference_glass"] = glass_list(self.reference_glass)
+        d["glass"] = glass_list(self.glass)
         d["source"] = None if self.source is None else self._stats_to_dict(self.source)
         return d
 
@@ -191,7 +275,7 @@ class StainNormalizer:
             raise ConfigError(f"normalizer description must be a dict, got {type(d).__name__}")
         if d.get("method") != cls.method:
             raise ConfigError(f"expected method {cls.method!r}, got {d.get('method')!r}")
-        if d.get("version", FORMAT_VERSION) != FORMAT_VERSION:
+        if d.get("version", FORMAT_VERSION) not in READABLE_VERSIONS:
             raise ConfigError(
                 f"normalizer dictionary version {d.get('version')!r} is not supported "
                 f"(this library writes version {FORMAT_VERSION}); refit the normalizer"
@@ -201,6 +285,8 @@ class StainNormalizer:
         except (TypeError, ValueError) as exc:
             raise ConfigError(f"invalid {cls.method} parameters: {exc}") from None
         obj._set_target(cls._stats_from_dict(d))
+        obj.glass = glass_from_dict(d, "glass")
+        obj.reference_glass = glass_from_dict(d, "reference_glass")
         if d.get("source") is not None:
             obj.source = cls._stats_from_dict(d["source"])
         return obj
@@ -218,5 +304,7 @@ class StainNormalizer:
 
     def __repr__(self) -> str:
         params = ", ".join(f"{k}={v!r}" for k, v in self._params().items())
+        if self.glass is not None:
+            params += f", glass={tuple(round(float(v), 1) for v in self.glass)}"
         state = "bound" if self.is_bound else ("fitted" if self.is_fitted else "unfitted")
         return f"{type(self).__name__}({params}) [{state}]"

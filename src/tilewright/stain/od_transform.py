@@ -6,13 +6,18 @@ inverse Beer–Lambert law ``I' = 255 * 10**(-OD')``. This module applies such a
 OpenCV kernels: a uint8 -> float32 lookup table for the optical density, ``cv2.transform`` for
 the 3x3 (or 3x4) matrix, ``cv2.exp`` and a saturating conversion back to uint8. Pixels are
 processed in blocks so that no full-image float temporary is ever allocated.
+
+When the input's glass is tinted, the lookup table gives OD relative to that glass (one column
+per channel, clipped at 0), so measuring against the slide's own incident light costs nothing
+extra. Rendering with an incident light ``I0_out`` other than white is the offset
+``log10(255 / I0_out)``.
 """
 
 from __future__ import annotations
 
 import numpy as np
 
-from .density import LN10, WHITE, check_rgb, od_lut
+from .density import LN10, WHITE, check_glass, check_rgb, glass_od_lut, od_lut
 
 __all__ = ["apply_od_affine", "BLOCK_PIXELS"]
 
@@ -20,7 +25,7 @@ __all__ = ["apply_od_affine", "BLOCK_PIXELS"]
 BLOCK_PIXELS = 1 << 18
 
 
-def apply_od_affine(rgb, matrix, offset=None, *, out=None) -> np.ndarray:
+def apply_od_affine(rgb, matrix, offset=None, *, out=None, glass=None) -> np.ndarray:
     """Apply ``OD' = OD @ matrix + offset`` to every pixel and return uint8 RGB.
 
     Parameters
@@ -33,6 +38,9 @@ def apply_od_affine(rgb, matrix, offset=None, *, out=None) -> np.ndarray:
         Added OD after the matrix.
     out : ndarray, uint8, optional
         Destination with the same shape as ``rgb`` (may be ``rgb`` itself).
+    glass : array_like (3,), optional
+        RGB of the input's blank glass: ``OD = max(0, log10(glass / I))`` per channel. Default
+        pure white (``OD = log10(255 / I)``).
 
     Returns
     -------
@@ -59,7 +67,7 @@ def apply_od_affine(rgb, matrix, offset=None, *, out=None) -> np.ndarray:
     m[:, :3] = np.asarray(matrix, np.float64).T * -LN10
     if offset is not None:
         m[:, 3] = np.asarray(offset, np.float64).reshape(3) * -LN10
-    lut = od_lut()
+    lut = od_lut() if check_glass(glass) is None else np.ascontiguousarray(glass_od_lut(glass)).reshape(256, 1, 3)
     n = src.shape[0]
     block = min(BLOCK_PIXELS, max(n, 1))
     od = np.empty((block, 1, 3), np.float32)

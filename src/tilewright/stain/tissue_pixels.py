@@ -7,6 +7,10 @@ less than beta" with beta = 0.15; reading "intensity" as the OD magnitude (rathe
 every channel to exceed beta) keeps faint eosin, which absorbs little red light. Blank glass has
 an OD below about 0.15 (common practice).
 
+Optical density is measured against the glass colour when one is given (``glass=``, the
+incident light ``I0`` of the Beer–Lambert law; see :mod:`tilewright.stain.density`), so that a
+tinted glass is OD 0 and the tissue's OD is its stains' alone.
+
 References
 ----------
 Macenko M, Niethammer M, Marron JS, Borland D, Woosley JT, Guan X, Schmitt C, Thomas NE (2009).
@@ -18,7 +22,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .density import check_rgb, od_lut
+from .density import check_glass, check_rgb, glass_od_lut, od_lut
 
 __all__ = ["DEFAULT_BETA", "MAX_STAT_PIXELS", "tissue_od", "tissue_mask"]
 
@@ -28,15 +32,23 @@ DEFAULT_BETA = 0.15
 MAX_STAT_PIXELS = 1_000_000
 
 
-def _od_norm_sq(rgb_flat: np.ndarray) -> np.ndarray:
-    lut = od_lut()
-    sq = lut[rgb_flat[:, 0]] ** 2
-    sq += lut[rgb_flat[:, 1]] ** 2
-    sq += lut[rgb_flat[:, 2]] ** 2
+def _channel_luts(glass):
+    if check_glass(glass) is None:
+        lut = od_lut()
+        return lut, lut, lut
+    lut3 = glass_od_lut(glass)
+    return lut3[:, 0], lut3[:, 1], lut3[:, 2]
+
+
+def _od_norm_sq(rgb_flat: np.ndarray, glass=None) -> np.ndarray:
+    r, g, b = _channel_luts(glass)
+    sq = r[rgb_flat[:, 0]] ** 2
+    sq += g[rgb_flat[:, 1]] ** 2
+    sq += b[rgb_flat[:, 2]] ** 2
     return sq
 
 
-def tissue_mask(rgb, *, beta: float = DEFAULT_BETA) -> np.ndarray:
+def tissue_mask(rgb, *, beta: float = DEFAULT_BETA, glass=None) -> np.ndarray:
     """Boolean mask of pixels whose OD vector has norm ``>= beta``.
 
     Parameters
@@ -45,6 +57,8 @@ def tissue_mask(rgb, *, beta: float = DEFAULT_BETA) -> np.ndarray:
         Image or batch of images.
     beta : float
         OD threshold (Macenko et al. 2009 use 0.15).
+    glass : array_like (3,), optional
+        RGB of blank glass, the ``I0`` the OD is measured against (default pure white).
 
     Returns
     -------
@@ -52,10 +66,10 @@ def tissue_mask(rgb, *, beta: float = DEFAULT_BETA) -> np.ndarray:
     """
     arr = check_rgb(rgb)
     flat = arr.reshape(-1, 3)
-    return (_od_norm_sq(flat) >= np.float32(beta) ** 2).reshape(arr.shape[:-1])
+    return (_od_norm_sq(flat, glass) >= np.float32(beta) ** 2).reshape(arr.shape[:-1])
 
 
-def tissue_od(rgb, *, beta: float = DEFAULT_BETA, max_pixels: int = MAX_STAT_PIXELS):
+def tissue_od(rgb, *, beta: float = DEFAULT_BETA, max_pixels: int = MAX_STAT_PIXELS, glass=None):
     """Optical densities and RGB values of the tissue pixels of an image.
 
     Parameters
@@ -67,11 +81,13 @@ def tissue_od(rgb, *, beta: float = DEFAULT_BETA, max_pixels: int = MAX_STAT_PIX
     max_pixels : int
         When the image has more pixels than this, every ``k``-th pixel is used so that at most
         ``max_pixels`` are examined (deterministic; no random state).
+    glass : array_like (3,), optional
+        RGB of blank glass, the ``I0`` the OD is measured against (default pure white).
 
     Returns
     -------
     od : ndarray, float32, shape (K, 3)
-        Optical densities of the K tissue pixels.
+        Optical densities of the K tissue pixels (relative to ``glass``).
     rgb : ndarray, uint8, shape (K, 3)
         Their RGB values.
     """
@@ -82,6 +98,8 @@ def tissue_od(rgb, *, beta: float = DEFAULT_BETA, max_pixels: int = MAX_STAT_PIX
     if max_pixels and flat.shape[0] > max_pixels:
         step = -(-flat.shape[0] // int(max_pixels))
         flat = flat[::step]
-    keep = _od_norm_sq(flat) >= np.float32(beta) ** 2
+    keep = _od_norm_sq(flat, glass) >= np.float32(beta) ** 2
     pixels = flat[keep]
-    return od_lut()[pixels], pixels
+    if check_glass(glass) is None:
+        return od_lut()[pixels], pixels
+    return glass_od_lut(glass)[pixels, np.arange(3)], pixels
