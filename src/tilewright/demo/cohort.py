@@ -37,7 +37,7 @@ SITES = {
     "site-south": dict(mpp=0.5, objective=20.0, scanner="scanner-B", layout="ome",
                        stains=np.stack([_rotate_towards(RUIFROK_H, (0.9, 0.3, 0.1), 12.0),
                                         _rotate_towards(RUIFROK_E, (0.05, 0.6, 0.8), -10.0)]),
-                       concentration=(1.25, 1.35), background=(232.0, 234.0, 226.0)),
+                       concentration=(1.15, 1.2), background=(232.0, 234.0, 226.0)),
 }
 
 

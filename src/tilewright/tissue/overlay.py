@@ -68,9 +68,9 @@ def render_overlay(slide, mask, plan, path, *, mpp: float | None = None, title: 
     dark = _resize_nearest(mask.dark, (h, w))
 
     dpi = 100
-    fig = Figure(figsize=(max(w, 400) / dpi, (max(w, 400) * h / w + 90) / dpi), dpi=dpi)
+    fig = Figure(figsize=(max(w, 640) / dpi, (max(w, 640) * h / w + 90) / dpi), dpi=dpi)
     FigureCanvasAgg(fig)
-    ax = fig.add_axes((0, 70 / (max(w, 400) * h / w + 90), 1, (max(w, 400) * h / w) / (max(w, 400) * h / w + 90)))
+    ax = fig.add_axes((0, 70 / (max(w, 640) * h / w + 90), 1, (max(w, 640) * h / w) / (max(w, 640) * h / w + 90)))
     ax.imshow(rgb, interpolation="nearest", extent=(0, w, h, 0))
     cy, cx = np.arange(h) + 0.5, np.arange(w) + 0.5
     layer = np.zeros((h, w, 4), dtype=np.float32)
@@ -99,10 +99,10 @@ def render_overlay(slide, mask, plan, path, *, mpp: float | None = None, title: 
     ax.set_axis_off()
 
     label = title or (os.path.basename(os.fspath(name)) if name is not None else "slide")
-    line = f"{label}  ·  tissue {mask.tissue_fraction:.1%} of slide  ·  ink {mask.ink.mean():.1%}"
+    line = f"{label}\ntissue {mask.tissue_fraction:.1%} of slide  ·  ink {mask.ink.mean():.1%}"
     if plan is not None:
         line += f"  ·  {n_tiles} tiles of {plan.tile} px at {plan.mpp:g} µm/px"
-    fig.text(0.01, 0.5 * 70 / (max(w, 400) * h / w + 90) + 0.02, line, fontsize=8, va="bottom")
+    fig.text(0.01, 0.5 * 70 / (max(w, 640) * h / w + 90) + 0.02, line, fontsize=8, va="bottom")
     handles = [Line2D([0], [0], color=OVERLAY_COLOURS["tissue"], lw=2, label="tissue outline"),
                Patch(facecolor="#555555", edgecolor=OVERLAY_COLOURS["ink"], hatch="////", label="ink (excluded)")]
     if plan is not None:
