@@ -8,6 +8,7 @@ flat whatever the slide size.
 
 from __future__ import annotations
 
+import threading
 from collections import deque
 from concurrent.futures import ThreadPoolExecutor
 
@@ -64,7 +65,17 @@ def _row_runs(yx: np.ndarray, tile: int) -> list[tuple[int, int, int, np.ndarray
     return runs
 
 
-def _read_block(view, yx: np.ndarray, tile: int) -> np.ndarray:
+def _work(scratch, h: int, w: int) -> np.ndarray:
+    """A (h, w, 3) uint8 array of this thread, reused from block to block."""
+    need = h * w * 3
+    buf = getattr(scratch, "buf", None)
+    if buf is None or buf.size < need:
+        buf = np.empty(need, np.uint8)
+        scratch.buf = buf
+    return buf[:need].reshape(h, w, 3)
+
+
+def _read_block(view, yx: np.ndarray, tile: int, scratch=None) -> np.ndarray:
     """The tiles at ``yx`` (one block), read in as few source pixels as possible.
 
     Either one read of the bounding box, or one read per horizontal run of tiles (when the tiles
@@ -77,19 +88,19 @@ def _read_block(view, yx: np.ndarray, tile: int) -> np.ndarray:
     runs = _row_runs(yx, tile)
     if sum(w for _, _, w, _ in runs) * tile < (y1 - y0) * (x1 - x0):
         for y, x, w, members in runs:
-            strip = view.read(y, x, tile, w)
+            strip = view.read(y, x, tile, w, out=_work(scratch, tile, w))
             for i in members:
                 dx = int(yx[i, 1]) - x
                 out[i] = strip[:, dx:dx + tile]
         return out
-    region = view.read(y0, x0, y1 - y0, x1 - x0)
+    region = view.read(y0, x0, y1 - y0, x1 - x0, out=_work(scratch, y1 - y0, x1 - x0))
     for i, (y, x) in enumerate(yx - (y0, x0)):
         out[i] = region[y:y + tile, x:x + tile]
     return out
 
 
-def _job(view, yx, tile, process):
-    tiles = _read_block(view, yx, tile)
+def _job(view, yx, tile, process, scratch):
+    tiles = _read_block(view, yx, tile, scratch)
     return tiles if process is None else process(tiles)
 
 
@@ -115,16 +126,17 @@ def iter_tile_blocks(view, yx: np.ndarray, tile: int, *, block: int = 2048, thre
         reading and with the caller's writing.
     """
     _, groups = block_order(yx, tile, block)
+    scratch = threading.local()  # per reader thread: the strip buffer reused from block to block
     # yx is expected in block order already, so groups index yx directly
     if threads <= 1:
         for g in groups:
-            yield g, _job(view, yx[g], tile, process)
+            yield g, _job(view, yx[g], tile, process, scratch)
         return
     with ThreadPoolExecutor(max_workers=threads, thread_name_prefix="tilewright-read") as pool:
         pending: deque = deque()
         it = iter(groups)
         for g in it:
-            pending.append((g, pool.submit(_job, view, yx[g], tile, process)))
+            pending.append((g, pool.submit(_job, view, yx[g], tile, process, scratch)))
             if len(pending) >= threads * ahead:
                 break
         while pending:
@@ -132,5 +144,5 @@ def iter_tile_blocks(view, yx: np.ndarray, tile: int, *, block: int = 2048, thre
             tiles = fut.result()
             nxt = next(it, None)
             if nxt is not None:
-                pending.append((nxt, pool.submit(_job, view, yx[nxt], tile, process)))
+                pending.append((nxt, pool.submit(_job, view, yx[nxt], tile, process, scratch)))
             yield g, tiles

@@ -99,8 +99,8 @@ class ShardEncoder:
             return [t.tobytes() for t in tiles]
         return [bytes(self.codec.encode(t)) for t in tiles]
 
-    def shard_bytes(self, chunks: list) -> bytes:
-        """One shard file: the chunks, then the index and its CRC-32C."""
+    def shard_parts(self, chunks: list) -> list:
+        """One shard file as buffers: the chunks, then the index and its CRC-32C."""
         import google_crc32c
 
         if len(chunks) > self.shard:
@@ -111,18 +111,29 @@ class ShardEncoder:
         index[: len(chunks), 1] = sizes
         raw = index.tobytes()
         crc = np.uint32(google_crc32c.value(raw)).astype("<u4").tobytes()
-        return b"".join([*chunks, raw, crc])
+        return [*chunks, raw, crc]
 
     def write_chunks(self, shard_index: int, chunks: list) -> None:
         """Write encoded chunks (at most ``shard``) as shard ``shard_index``, replacing any earlier file."""
-        view = memoryview(self.shard_bytes(chunks))
+        parts = self.shard_parts(chunks)
         path = self.folder / self.key((int(shard_index), 0, 0, 0))
         path.parent.mkdir(parents=True, exist_ok=True)
         fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_TRUNC | getattr(os, "O_BINARY", 0), 0o666)
         try:
-            done = 0
-            while done < len(view):
-                done += os.write(fd, view[done:])
+            if hasattr(os, "writev"):  # gather write: no joined copy of the shard in memory
+                views = [memoryview(p) for p in parts]
+                while views:
+                    done = os.writev(fd, views[:1024])
+                    while views and done >= len(views[0]):
+                        done -= len(views[0])
+                        views.pop(0)
+                    if views and done:
+                        views[0] = views[0][done:]
+            else:  # pragma: no cover - platforms without writev
+                view = memoryview(b"".join(parts))
+                done = 0
+                while done < len(view):
+                    done += os.write(fd, view[done:])
         finally:
             os.close(fd)
 
