@@ -53,7 +53,8 @@ def test_output_is_a_file_exit_2(slide, tmp_path, capsys):
 
 
 def _failing_put(monkeypatch, when, err):
-    """Make zarr's local-store writes raise ``OSError(err)`` for keys matching ``when(path)``."""
+    """Make zarr's local-store writes and direct shard writes raise ``OSError(err)`` for keys
+    matching ``when(path)``."""
     import zarr.storage._local as local
 
     real = local._put
@@ -64,6 +65,18 @@ def _failing_put(monkeypatch, when, err):
         return real(path, value, exclusive=exclusive)
 
     monkeypatch.setattr(local, "_put", put)
+    # tile shards are written directly (store/shards.py), not through zarr's store
+    from tilewright.store.shards import ShardEncoder
+
+    real_write = ShardEncoder.write_chunks
+
+    def write_chunks(self, shard_index, chunks):
+        path = self.folder / self.key((int(shard_index), 0, 0, 0))
+        if when(str(path)):
+            raise OSError(err, __import__("os").strerror(err), str(path))
+        return real_write(self, shard_index, chunks)
+
+    monkeypatch.setattr(ShardEncoder, "write_chunks", write_chunks)
 
 
 def test_unwritable_output_fails_each_slide_cleanly(slide, tmp_path, fast_config, monkeypatch):

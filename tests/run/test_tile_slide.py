@@ -59,7 +59,7 @@ def test_same_inputs_same_tiles(slide40, tmp_path):
 def test_failure_mid_write_leaves_no_complete_store(slide40, tmp_path, monkeypatch):
     from tilewright.store import writer as writer_mod
 
-    cfg = tw.TilingConfig(mpp=0.5, tile=128, shard_tiles=8)
+    cfg = tw.TilingConfig(mpp=0.5, tile=128, shard_tiles=8, block=256)  # many blocks, many appends
     calls = {"n": 0}
     real = writer_mod.StoreWriter.append
 
@@ -72,6 +72,7 @@ def test_failure_mid_write_leaves_no_complete_store(slide40, tmp_path, monkeypat
     monkeypatch.setattr(writer_mod.StoreWriter, "append", failing)
     with pytest.raises((OSError, TilewrightError)):
         tw.tile_slide(slide40, tmp_path, cfg)
+    assert calls["n"] == 2  # the failure did happen mid-write
     assert list(tmp_path.iterdir()) == []  # nothing that looks like a store
     monkeypatch.setattr(writer_mod.StoreWriter, "append", real)
     res = tw.tile_slide(slide40, tmp_path, cfg)

@@ -40,6 +40,8 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--seed", type=int, help="seed for tile sampling (default 0)")
     g.add_argument("--mask-mpp", type=float, help="tissue-mask resolution in µm/px (default 8)")
     g.add_argument("--min-sharpness", type=float, help="drop tiles blurrier than this variance of the Laplacian")
+    g.add_argument("--verify-jpeg", action="store_true", default=None,
+                   help="check every JPEG source tile for silent damage (slower); damaged slides fail")
     g = p.add_argument_group("stain")
     g.add_argument("--normalize", choices=["macenko", "reinhard", "none"],
                    help="stain normalization (default none)")
@@ -67,7 +69,7 @@ def build_parser() -> argparse.ArgumentParser:
 _FIELDS = {"mpp": "mpp", "tile": "tile", "stride": "stride", "min_tissue": "min_tissue",
            "max_tiles": "max_tiles", "seed": "seed", "mask_mpp": "mask_mpp", "min_sharpness": "min_sharpness",
            "reference": "reference", "regions": "regions", "min_region": "min_region",
-           "threads": "threads", "compression": "compression"}
+           "threads": "threads", "compression": "compression", "verify_jpeg": "verify_jpeg"}
 
 
 def config_from_args(args):

@@ -8,6 +8,7 @@ flat whatever the slide size.
 
 from __future__ import annotations
 
+import threading
 from collections import deque
 from concurrent.futures import ThreadPoolExecutor
 
@@ -48,17 +49,63 @@ def block_order(yx: np.ndarray, tile: int, block: int) -> tuple[np.ndarray, list
     return order, groups
 
 
-def _read_block(view, yx: np.ndarray, tile: int) -> np.ndarray:
-    y0, x0 = yx.min(axis=0)
-    y1, x1 = yx.max(axis=0) + tile
-    region = view.read(int(y0), int(x0), int(y1 - y0), int(x1 - x0))
+def _row_runs(yx: np.ndarray, tile: int) -> list[tuple[int, int, int, np.ndarray]]:
+    """Boxes ``(y, x, width, members)`` covering the tiles of a block row by row.
+
+    Tiles sharing a top edge are merged while they touch or overlap along x, so a run is one
+    read of exactly the tiles it holds (no glass between tissue tiles is decoded).
+    """
+    runs = []
+    order = np.lexsort((yx[:, 1], yx[:, 0]))
+    ys, xs = yx[order, 0], yx[order, 1]
+    cut = np.flatnonzero((np.diff(ys) != 0) | (np.diff(xs) > tile)) + 1
+    for part in np.split(np.arange(len(order)), cut):
+        x0, x1 = int(xs[part[0]]), int(xs[part[-1]]) + tile
+        runs.append((int(ys[part[0]]), x0, x1 - x0, order[part]))
+    return runs
+
+
+def _work(scratch, h: int, w: int) -> np.ndarray:
+    """A (h, w, 3) uint8 array of this thread, reused from block to block."""
+    need = h * w * 3
+    buf = getattr(scratch, "buf", None)
+    if buf is None or buf.size < need:
+        buf = np.empty(need, np.uint8)
+        scratch.buf = buf
+    return buf[:need].reshape(h, w, 3)
+
+
+def _read_block(view, yx: np.ndarray, tile: int, scratch=None) -> np.ndarray:
+    """The tiles at ``yx`` (one block), read in as few source pixels as possible.
+
+    Either one read of the bounding box, or one read per horizontal run of tiles (when the tiles
+    cover the box sparsely, e.g. at tissue borders), whichever touches fewer pixels; overlapping
+    tiles (stride < tile) make the box the cheaper choice.
+    """
+    y0, x0 = (int(v) for v in yx.min(axis=0))
+    y1, x1 = (int(v) for v in yx.max(axis=0) + tile)
     out = np.empty((len(yx), tile, tile, 3), dtype=np.uint8)
+    runs = _row_runs(yx, tile)
+    if sum(w for _, _, w, _ in runs) * tile < (y1 - y0) * (x1 - x0):
+        for y, x, w, members in runs:
+            strip = view.read(y, x, tile, w, out=_work(scratch, tile, w))
+            for i in members:
+                dx = int(yx[i, 1]) - x
+                out[i] = strip[:, dx:dx + tile]
+        return out
+    region = view.read(y0, x0, y1 - y0, x1 - x0, out=_work(scratch, y1 - y0, x1 - x0))
     for i, (y, x) in enumerate(yx - (y0, x0)):
         out[i] = region[y:y + tile, x:x + tile]
     return out
 
 
-def iter_tile_blocks(view, yx: np.ndarray, tile: int, *, block: int = 2048, threads: int = 2, ahead: int = 2):
+def _job(view, yx, tile, process, scratch):
+    tiles = _read_block(view, yx, tile, scratch)
+    return tiles if process is None else process(tiles)
+
+
+def iter_tile_blocks(view, yx: np.ndarray, tile: int, *, block: int = 2048, threads: int = 2, ahead: int = 2,
+                     process=None):
     """Yield ``(positions, tiles)`` for each block, in :func:`block_order`.
 
     Parameters
@@ -73,18 +120,23 @@ def iter_tile_blocks(view, yx: np.ndarray, tile: int, *, block: int = 2048, thre
         Reader threads (1 reads in the calling thread).
     ahead : int
         Blocks read ahead per thread; bounds memory.
+    process : callable, optional
+        Applied to each block's tiles in the reader thread (normalization, scores); its result is
+        yielded instead of the tiles. OpenCV and numpy release the GIL, so this overlaps with
+        reading and with the caller's writing.
     """
     _, groups = block_order(yx, tile, block)
+    scratch = threading.local()  # per reader thread: the strip buffer reused from block to block
     # yx is expected in block order already, so groups index yx directly
     if threads <= 1:
         for g in groups:
-            yield g, _read_block(view, yx[g], tile)
+            yield g, _job(view, yx[g], tile, process, scratch)
         return
     with ThreadPoolExecutor(max_workers=threads, thread_name_prefix="tilewright-read") as pool:
         pending: deque = deque()
         it = iter(groups)
         for g in it:
-            pending.append((g, pool.submit(_read_block, view, yx[g], tile)))
+            pending.append((g, pool.submit(_job, view, yx[g], tile, process, scratch)))
             if len(pending) >= threads * ahead:
                 break
         while pending:
@@ -92,5 +144,5 @@ def iter_tile_blocks(view, yx: np.ndarray, tile: int, *, block: int = 2048, thre
             tiles = fut.result()
             nxt = next(it, None)
             if nxt is not None:
-                pending.append((nxt, pool.submit(_read_block, view, yx[nxt], tile)))
+                pending.append((nxt, pool.submit(_job, view, yx[nxt], tile, process, scratch)))
             yield g, tiles

@@ -68,6 +68,9 @@ class TilingConfig:
         Reader threads inside one slide.
     qc_overlay : bool
         Write a QC picture (tissue outline, ink, kept tiles) to ``qc/<slide_id>.png`` beside the store.
+    verify_jpeg : bool
+        Check every decoded JPEG source tile for damage decoders pass silently (slower reads);
+        a damaged slide then fails with the tile named instead of storing garbage pixels.
     """
 
     mpp: float = 0.5
@@ -93,6 +96,7 @@ class TilingConfig:
     per_tile_stain: bool = False
     threads: int = 2
     qc_overlay: bool = True
+    verify_jpeg: bool = False
     extra: dict = field(default_factory=dict, repr=False)
 
     def __post_init__(self):

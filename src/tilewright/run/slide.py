@@ -37,7 +37,12 @@ class SlideResult:
 
 
 def _tile_arrays(view, plan, config, bound, writer, progress):
-    """Read planned tiles block by block, normalize, score and append whole shards."""
+    """Read planned tiles block by block, normalize, score, compress and append whole shards.
+
+    Reader threads read, normalize, score and compress each block (OpenCV, numpy and the codecs
+    release the GIL); this thread only gathers blocks into shards and writes the files, so on
+    several cores the work on the next blocks overlaps the writing of the previous ones.
+    """
     from tilewright.run.blocks import block_order, iter_tile_blocks
     from tilewright.tissue.sharpness import sharpness
 
@@ -45,36 +50,26 @@ def _tile_arrays(view, plan, config, bound, writer, progress):
     yx = plan.yx[order]
     tissue = plan.tissue[order]
     region = plan.region[order] if getattr(plan, "region", None) is not None else None
-    buf: list = []
-    shard = config.shard_tiles
+    scale = view.scale
+    min_sharp = config.min_sharpness
 
-    def flush(final=False):
-        if not buf:
-            return
-        tiles = np.concatenate([b[0] for b in buf])
-        pos = np.concatenate([b[1] for b in buf])
-        n = len(tiles) if final else (len(tiles) // shard) * shard
-        if n == 0:
-            return
-        sharp = sharpness(tiles[:n])
-        keep = np.ones(n, bool) if config.min_sharpness is None else sharp >= config.min_sharpness
-        p = pos[:n][keep]
-        writer.append(tiles[:n][keep], yx[p], np.rint(yx[p] * view.scale).astype(np.int64), tissue[p],
-                      sharp[keep], None if region is None else region[p])
-        rest_t, rest_p = tiles[n:], pos[n:]
-        buf.clear()
-        if len(rest_t):
-            buf.append((rest_t, rest_p))
-
-    for positions, tiles in iter_tile_blocks(view, yx, config.tile, block=config.block, threads=config.threads):
+    def prepare(tiles):
         if bound is not None:
-            tiles = bound.transform(tiles)
-        buf.append((tiles, positions))
-        if sum(len(b[0]) for b in buf) >= shard:
-            flush()
+            tiles = bound.transform(tiles, out=tiles)
+        sharp = sharpness(tiles)
+        keep = None if min_sharp is None else np.flatnonzero(sharp >= min_sharp)
+        if keep is not None and len(keep) < len(tiles):
+            tiles, sharp = tiles[keep], sharp[keep]
+        return tiles, sharp, keep, writer.encode(tiles)
+
+    for positions, (tiles, sharp, keep, encoded) in iter_tile_blocks(
+            view, yx, config.tile, block=config.block, threads=config.threads, process=prepare):
+        pos = positions if keep is None else positions[keep]
+        if len(pos):
+            writer.append(tiles, yx[pos], np.rint(yx[pos] * scale).astype(np.int64), tissue[pos], sharp,
+                          None if region is None else region[pos], encoded=encoded)
         if progress is not None:
             progress(len(positions))
-    flush(final=True)
 
 
 def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str | None = None,
@@ -125,7 +120,7 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
     out = Path(out)
     final = out if out.suffix == ".zarr" else out / f"{slide_id}.zarr"
     remove_partials(final)
-    with open_wsi(path, mpp=mpp) as slide:
+    with open_wsi(path, mpp=mpp, verify=config.verify_jpeg) as slide:
         view = slide.at_mpp(config.mpp, tolerance=config.tolerance)
         mask = tissue_mask(slide, mpp=config.mask_mpp, exclude_ink=config.exclude_ink,
                            exclude_dark=config.exclude_dark)

@@ -38,7 +38,7 @@ def slide_estimate(path: str, config: dict, mpp: float | None) -> dict | None:
 
     cfg = TilingConfig.from_dict(config)
     try:
-        with open_wsi(path, mpp=mpp) as slide:
+        with open_wsi(path, mpp=mpp, verify=cfg.verify_jpeg) as slide:
             view = slide.at_mpp(cfg.mpp, tolerance=cfg.tolerance)
             mask = tissue_mask(slide, mpp=cfg.mask_mpp, exclude_ink=cfg.exclude_ink, exclude_dark=cfg.exclude_dark)
             plan = plan_tiles(view, mask, tile=cfg.tile, stride=cfg.stride, min_tissue=cfg.min_tissue,

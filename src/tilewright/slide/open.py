@@ -20,7 +20,7 @@ _BACKENDS = ("auto", "tiff", "openslide")
 
 
 def open_wsi(path: str | os.PathLike, *, mpp: float | None = None,
-             backend: str = "auto") -> WholeSlide:
+             backend: str = "auto", verify: bool = False) -> WholeSlide:
     """Open a whole-slide image.
 
     Parameters
@@ -35,6 +35,12 @@ def open_wsi(path: str | os.PathLike, *, mpp: float | None = None,
         directly, touching only the tiles a read needs; ``"openslide"`` serves every format
         OpenSlide reads. ``"auto"`` uses ``"tiff"`` when it serves the file with its levels
         and a resolution, else ``"openslide"``.
+    verify : bool
+        Check every JPEG tile the tiff backend decodes for a desynchronized entropy-coded stream
+        (damage that decoders pass silently as garbage pixels, see
+        :mod:`tilewright.slide.jpeg_check`); a damaged tile raises DamagedSlideError naming it.
+        Costs two extra probe decodes a tile (JPEG decoding about 3x slower). OpenSlide applies
+        its own strict checks regardless.
 
     Returns
     -------
@@ -65,7 +71,7 @@ def open_wsi(path: str | os.PathLike, *, mpp: float | None = None,
         raise ValueError(f"backend must be one of {_BACKENDS}, got {backend!r}")
     path = os.fspath(path)
     kind = sniff(path)
-    reader = _open_reader(path, kind, backend, mpp)
+    reader = _open_reader(path, kind, backend, mpp, verify)
     try:
         h0, w0 = reader.level_shapes[0]
         if max(h0, w0) > MAX_SIDE or h0 * w0 > MAX_PIXELS or h0 < 1 or w0 < 1:
@@ -77,10 +83,10 @@ def open_wsi(path: str | os.PathLike, *, mpp: float | None = None,
     except BaseException:
         reader.close()
         raise
-    return WholeSlide(path, reader, resolution, mpp_override=mpp, requested_backend=backend)
+    return WholeSlide(path, reader, resolution, mpp_override=mpp, requested_backend=backend, verify=verify)
 
 
-def _open_reader(path: str, kind: str, backend: str, mpp: float | None):
+def _open_reader(path: str, kind: str, backend: str, mpp: float | None, verify: bool = False):
     from tilewright.slide.openslide_backend import OpenSlideBackend
     from tilewright.slide.tiff_backend import TiffBackend
 
@@ -89,13 +95,13 @@ def _open_reader(path: str, kind: str, backend: str, mpp: float | None):
             raise UnsupportedSlideError(
                 f"the tiff backend reads TIFF files only (this is {kind}); use backend='auto'",
                 path)
-        return TiffBackend(path)
+        return TiffBackend(path, verify_jpeg=verify)
     if backend == "openslide":
         return OpenSlideBackend(path)
     tiff_error = None
     if kind == "tiff":
         try:
-            reader = TiffBackend(path)
+            reader = TiffBackend(path, verify_jpeg=verify)
         except UnsupportedSlideError as exc:
             tiff_error = exc
         else:
@@ -124,5 +130,5 @@ def _open_reader(path: str, kind: str, backend: str, mpp: float | None):
             f"pyramid{reason}; convert it to pyramidal tiled TIFF or OME-TIFF", path) from exc
 
 
-def _reopen(path, mpp, backend):
-    return open_wsi(path, mpp=mpp, backend=backend)
+def _reopen(path, mpp, backend, verify=False):
+    return open_wsi(path, mpp=mpp, backend=backend, verify=verify)

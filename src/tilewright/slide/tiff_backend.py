@@ -5,6 +5,12 @@ Aperio-style SVS). A read then fetches only the tiles the region touches with ``
 on a private file descriptor (no shared file position, so concurrent reads from several
 threads need no lock) and decodes them with the page's own decoder (imagecodecs:
 libjpeg-turbo for JPEG), copying each decoded tile straight into the output array.
+
+8-bit RGB JPEG tiles are decoded by imagecodecs directly into a scratch tile kept per thread,
+with the colour-space arguments tifffile would pass (checked against tifffile's own decoder on
+the first tile of each level when the slide is opened). This avoids a fresh array per tile:
+allocating and freeing them costs page faults, many under allocators told to return memory
+eagerly (dask.distributed workers set ``MALLOC_TRIM_THRESHOLD_``).
 """
 
 from __future__ import annotations
@@ -35,7 +41,7 @@ class _Level:
     """One pyramid level: a TIFF page and what is needed to decode its segments."""
 
     __slots__ = ("height", "width", "tile_h", "tile_w", "grid_w", "offsets", "counts",
-                 "decode", "jpegtables", "page_index", "is_jpeg")
+                 "decode", "jpegtables", "page_index", "is_jpeg", "jpeg")
 
     def __init__(self, page, index):
         self.height, self.width = int(page.imagelength), int(page.imagewidth)
@@ -48,6 +54,19 @@ class _Level:
         self.jpegtables = page.jpegtables
         self.page_index = index
         self.is_jpeg = int(page.compression) == 7  # new-style JPEG (TIFF Technical Note 2)
+        self.jpeg = _jpeg_args(page)  # (colorspace, outcolorspace) for the direct JPEG path, or None
+
+
+def _jpeg_args(page):
+    """Colour-space arguments of imagecodecs.jpeg_decode for an 8-bit RGB JPEG page, else None."""
+    if page.compression != 7 or page.bitspersample != 8 or page.samplesperpixel != 3 or page.extrasamples:
+        return None
+    try:
+        from tifffile.tifffile import jpeg_decode_colorspace
+
+        return jpeg_decode_colorspace(page.photometric, page.planarconfig, page.extrasamples, page.is_jfif)
+    except Exception:  # noqa: BLE001 - any surprise: use tifffile's decoder
+        return None
 
 
 def _check_page(page, path) -> None:
@@ -78,10 +97,11 @@ class TiffBackend:
 
     name = "tiff"
 
-    def __init__(self, path: str):
+    def __init__(self, path: str, *, verify_jpeg: bool = False):
         import tifffile
 
         self.path = path
+        self.verify_jpeg = bool(verify_jpeg)
         try:
             tf = tifffile.TiffFile(path)
         except Exception as exc:  # the header said TIFF: any parse failure means damage
@@ -115,6 +135,10 @@ class TiffBackend:
                     f"end of the file ({size} bytes); copy the slide again", path)
         self._fd = os.open(path, os.O_RDONLY | getattr(os, "O_BINARY", 0))
         self._lock = threading.Lock()  # only used where os.pread is unavailable
+        self._scratch = threading.local()  # one decoded-tile buffer per thread and tile shape
+        for lv in self._levels:
+            if lv.jpeg is not None and not self._direct_jpeg_agrees(lv):
+                lv.jpeg = None
 
     # -- structure ---------------------------------------------------------------------
     @staticmethod
@@ -213,13 +237,14 @@ class TiffBackend:
                     dst[...] = 255  # sparse file: missing tile is background
                     continue
                 try:
-                    seg = lv.decode(data, first + k, jpegtables=lv.jpegtables)[0]
+                    seg = self._decode(lv, data, first + k)
                 except Exception as exc:
                     raise DamagedSlideError(
                         f"tile ({r}, {c}) of level {level} cannot be decoded while reading "
                         f"region y={y}, x={x}, h={h}, w={w} ({type(exc).__name__}: {exc}); "
                         "the file is damaged", self.path) from exc
-                if lv.is_jpeg and seg is not None and not _jpeg_intact(lv, first + k, data, seg):
+                if (self.verify_jpeg and lv.is_jpeg and seg is not None
+                        and not _jpeg_intact(lv, first + k, data, seg)):
                     ty0, tx0 = r * th, c * tw
                     raise DamagedSlideError(
                         f"tile ({r}, {c}) of level {level} (pixels y={ty0}-{ty0 + th}, "
@@ -229,8 +254,36 @@ class TiffBackend:
                 if seg is None:
                     dst[...] = 255
                     continue
-                seg = seg.reshape(seg.shape[-3:])
                 dst[...] = seg[ya - ty : yb - ty, xa - tx : xb - tx, :3]
+
+    def _decode(self, lv: _Level, data, index: int) -> np.ndarray:
+        """One tile as (tile_h, tile_w, samples) pixels (a per-thread buffer on the JPEG path)."""
+        if lv.jpeg is not None:
+            import imagecodecs
+
+            key = (lv.tile_h, lv.tile_w)
+            buf = getattr(self._scratch, "tiles", {}).get(key)
+            if buf is None:
+                buf = np.empty(key + (3,), np.uint8)
+                self._scratch.tiles = {**getattr(self._scratch, "tiles", {}), key: buf}
+            return imagecodecs.jpeg_decode(data, tables=lv.jpegtables, colorspace=lv.jpeg[0],
+                                           outcolorspace=lv.jpeg[1], shape=key, bitspersample=8, out=buf)
+        seg = lv.decode(data, index, jpegtables=lv.jpegtables)[0]
+        return None if seg is None else seg.reshape(seg.shape[-3:])
+
+    def _direct_jpeg_agrees(self, lv: _Level) -> bool:
+        """Whether the direct JPEG path decodes the level's first stored tile as tifffile does."""
+        nonzero = np.flatnonzero(lv.counts)
+        if not len(nonzero):
+            return True
+        i = int(nonzero[0])
+        try:
+            data = self._pread(int(lv.counts[i]), int(lv.offsets[i]))
+            want = lv.decode(data, i, jpegtables=lv.jpegtables)[0]
+            got = self._decode(lv, data, i)
+            return want is not None and np.array_equal(want.reshape(want.shape[-3:])[..., :3], got)
+        except Exception:  # noqa: BLE001 - damaged first tile: leave it to the general path
+            return False
 
     def _fetch_row(self, offs: np.ndarray, cnts: np.ndarray) -> list[bytes]:
         """Read a run of tiles, in one positional read when they lie together in the file."""
@@ -265,9 +318,10 @@ def _jpeg_intact(lv: _Level, index: int, data, seg) -> bool:
     from tilewright.slide.jpeg_check import jpeg_in_sync
 
     def decode(buf):
-        return lv.decode(buf, index, jpegtables=lv.jpegtables)[0]
+        out = lv.decode(buf, index, jpegtables=lv.jpegtables)[0]
+        return None if out is None else out.reshape(out.shape[-3:])[..., :3]
 
-    return jpeg_in_sync(bytes(data), seg, decode)
+    return jpeg_in_sync(bytes(data), seg[..., :3], decode)
 
 
 def _resolution(tf, page0) -> Resolution:

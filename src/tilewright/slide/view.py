@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+import threading
 from collections.abc import Iterator
 
 import numpy as np
@@ -16,6 +17,8 @@ _STEP_SOURCE_PX = 1 << 24
 _STEP_SOURCE_PX_FRACTIONAL = 1 << 22  # the float32 path holds ~4 float copies
 # Source rows per strip of a read (one or two rows of stored tiles).
 _STRIP_SOURCE_ROWS = 256
+# Largest source strip kept for reuse by a reading thread.
+_SCRATCH_BYTES = 16 << 20
 
 
 class ResampledView:
@@ -61,6 +64,7 @@ class ResampledView:
         h0, w0 = slide.dimensions
         self.shape = (max(1, math.floor(h0 / self.scale + 0.5)),
                       max(1, math.floor(w0 / self.scale + 0.5)))
+        self._scratch = threading.local()  # per-thread source strip buffer, reused across reads
 
     def __repr__(self) -> str:
         return (f"ResampledView(mpp={self.mpp:.4g}, shape={self.shape}, "
@@ -70,13 +74,16 @@ class ResampledView:
         return _view_from, (self.slide, self.mpp, self.tolerance)
 
     # -- reading ------------------------------------------------------------------------
-    def read(self, y: int, x: int, h: int, w: int) -> np.ndarray:
+    def read(self, y: int, x: int, h: int, w: int, *, out: np.ndarray | None = None) -> np.ndarray:
         """View pixels ``[y, y+h) x [x, x+w)``; white outside the slide.
 
         Parameters
         ----------
         y, x, h, w : int
             Box in view pixels (may extend past the edges or start below zero).
+        out : ndarray, optional
+            C-contiguous uint8 (h, w, 3) array to fill and return (saves an allocation when
+            many boxes are read in a loop).
 
         Returns
         -------
@@ -93,9 +100,12 @@ class ResampledView:
             raise ValueError("h and w must be >= 0")
         s = self.level_scale
         level = self.source_level
+        if out is not None and (out.shape != (h, w, 3) or out.dtype != np.uint8 or not out.flags.c_contiguous):
+            raise ValueError(f"out must be C-contiguous uint8 of shape {(h, w, 3)}")
         if s == 1.0:
-            return self.slide.read_level(level, y, x, h, w)
-        out = np.empty((h, w, 3), np.uint8)
+            return self.slide.read_level(level, y, x, h, w, out=out)
+        if out is None:
+            out = np.empty((h, w, 3), np.uint8)
         if h == 0 or w == 0:
             return out
         k = integer_factor(s)
@@ -114,12 +124,24 @@ class ResampledView:
             for bx in range(0, w, cols):
                 bw = min(cols, w - bx)
                 sx0, sx1 = source_span(x + bx, bw, s)
-                src = self.slide.read_level(level, sy0, sx0, sy1 - sy0, sx1 - sx0)
+                src = self.slide.read_level(level, sy0, sx0, sy1 - sy0, sx1 - sx0,
+                                            out=self._strip(sy1 - sy0, sx1 - sx0))
                 dst = out[by : by + bh, bx : bx + bw]
                 area_downsample(src, y + by, x + bx, bh, bw, s, sy0, sx0, out=dst,
                                 weights=weights)
             by += bh
         return out
+
+    def _strip(self, h: int, w: int) -> np.ndarray:
+        """A (h, w, 3) uint8 work array of this thread, reused from read to read."""
+        need = h * w * 3
+        if need > _SCRATCH_BYTES:  # a rare huge read: do not keep its memory for the view's life
+            return np.empty((h, w, 3), np.uint8)
+        buf = getattr(self._scratch, "buf", None)
+        if buf is None or buf.size < need:
+            buf = np.empty(need, np.uint8)
+            self._scratch.buf = buf
+        return buf[:need].reshape(h, w, 3)
 
     def block_size(self, target: int = 2048) -> int:
         """A block side near ``target`` whose source footprint starts on stored tile edges.

@@ -60,14 +60,14 @@ class WholeSlide:
     """
 
     def __init__(self, path: str, reader, resolution: Resolution, *,
-                 mpp_override: float | None = None, requested_backend: str = "auto"):
+                 mpp_override: float | None = None, requested_backend: str = "auto", verify: bool = False):
         self.path = path
         self._reader = reader
         self.backend = reader.name
         self.mpp = float(resolution.mpp)
         self.objective = resolution.objective
         self.mpp_source = resolution.source
-        self._open_args = (mpp_override, requested_backend)
+        self._open_args = (mpp_override, requested_backend, verify)
         h0, w0 = reader.level_shapes[0]
         self.dimensions = (h0, w0)
         levels = []
