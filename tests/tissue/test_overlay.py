@@ -37,7 +37,14 @@ def test_overlay_at_another_resolution(tmp_path, he_slide):
     out = render_overlay(he_slide, mask, None, tmp_path / "big.png", mpp=4.0)
     import matplotlib.image as mpimg
 
-    assert mpimg.imread(out).shape[1] == 2 * mask.shape[1]  # mask resized to the picture
+    from math import ceil
+
+    from tilewright.tissue.overlay import MAX_SIDE
+
+    h, w = 2 * mask.shape[0], 2 * mask.shape[1]  # the thumbnail at 4 µm/px
+    shrink = max(1, ceil(max(h, w) / MAX_SIDE))  # documented cap on the picture size
+    assert mpimg.imread(out).shape[1] == max(w // shrink, 640)  # mask resized to the picture
+    assert mpimg.imread(out).shape[1] <= max(MAX_SIDE, 640)
 
 
 def test_failed_write_leaves_nothing(tmp_path, he_slide):

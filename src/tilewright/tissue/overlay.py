@@ -26,6 +26,9 @@ def _rgb(hex_colour: str) -> tuple[float, float, float]:
     return tuple(int(hex_colour[i:i + 2], 16) / 255.0 for i in (1, 3, 5))
 
 
+#: Longest side of the QC picture in pixels (larger thumbnails are area-averaged down).
+MAX_SIDE = 1200
+
 def render_overlay(slide, mask, plan, path, *, mpp: float | None = None, title: str | None = None) -> str:
     """Write a PNG showing what was cut from a slide.
 
@@ -63,6 +66,14 @@ def render_overlay(slide, mask, plan, path, *, mpp: float | None = None, title: 
     else:
         rgb, name = np.asarray(slide.thumbnail(mpp=mpp))[..., :3], getattr(slide, "path", None)
     h, w = rgb.shape[:2]
+    shrink = int(np.ceil(max(h, w) / MAX_SIDE))
+    if shrink > 1:  # a bounded picture (and bounded memory) whatever the slide size
+        import cv2
+
+        rgb = cv2.resize(np.ascontiguousarray(rgb), (max(1, w // shrink), max(1, h // shrink)),
+                         interpolation=cv2.INTER_AREA)
+        h, w = rgb.shape[:2]
+        mpp *= shrink
     tissue = _resize_nearest(mask.array, (h, w))
     ink = _resize_nearest(mask.ink, (h, w))
     dark = _resize_nearest(mask.dark, (h, w))
@@ -73,10 +84,10 @@ def render_overlay(slide, mask, plan, path, *, mpp: float | None = None, title: 
     ax = fig.add_axes((0, 70 / (max(w, 640) * h / w + 90), 1, (max(w, 640) * h / w) / (max(w, 640) * h / w + 90)))
     ax.imshow(rgb, interpolation="nearest", extent=(0, w, h, 0))
     cy, cx = np.arange(h) + 0.5, np.arange(w) + 0.5
-    layer = np.zeros((h, w, 4), dtype=np.float32)
+    layer = np.zeros((h, w, 4), dtype=np.uint8)
     stripes = ((np.arange(h)[:, None] + np.arange(w)[None, :]) // 3) % 2 == 0
-    layer[ink & stripes] = (*_rgb(OVERLAY_COLOURS["ink"]), 0.8)
-    layer[dark] = (*_rgb(OVERLAY_COLOURS["dark"]), 0.45)
+    layer[ink & stripes] = np.round(np.array((*_rgb(OVERLAY_COLOURS["ink"]), 0.8)) * 255).astype(np.uint8)
+    layer[dark] = np.round(np.array((*_rgb(OVERLAY_COLOURS["dark"]), 0.45)) * 255).astype(np.uint8)
     if layer[..., 3].any():
         ax.imshow(layer, interpolation="nearest", extent=(0, w, h, 0))
     if ink.any():
