@@ -140,9 +140,10 @@ def run(args, config) -> int:
     out = Path(args.out)
     try:
         out.mkdir(parents=True, exist_ok=True)
-        probe = out / ".write-test"
-        probe.write_text("")
-        probe.unlink()
+        import tempfile
+
+        with tempfile.NamedTemporaryFile(dir=out, prefix=".write-test-"):  # unique: runs may race
+            pass
     except OSError as exc:
         raise ConfigError(f"cannot write to the output folder ({exc.strerror or exc}); choose a writable folder",
                           out) from None
