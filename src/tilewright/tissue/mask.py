@@ -17,7 +17,7 @@ import os
 import numpy as np
 
 from . import ink as _ink
-from .density import channel_max, channel_mean, channel_min, glass_colour, optical_density
+from .density import channel_max, channel_min, glass_colour, od_tables
 from .otsu import otsu_threshold
 from .raster import box_fractions, summed_area_table
 
@@ -25,6 +25,7 @@ __all__ = ["TissueMask", "tissue_mask", "tissue_feature", "METHODS"]
 
 METHODS = ("od-otsu", "saturation-otsu")
 _LOG_FLOOR = 1e-3  # OD below this is glass noise; keeps log10 finite
+_BAND_ROWS = 256  # whole-slide work runs in bands of rows: float temporaries stay a few MB
 
 
 class TissueMask:
@@ -206,15 +207,72 @@ def tissue_feature(rgb: np.ndarray, mpp: float, *, method: str = "od-otsu", smoo
     -------
     ndarray (H, W) float32
     """
-    if method == "od-otsu":
-        feature = channel_mean(optical_density(rgb, glass))
-    elif method == "saturation-otsu":
-        f = rgb.astype(np.float32)
-        top = channel_max(f)
-        feature = (top - channel_min(f)) / np.maximum(top, 1.0)
-    else:
+    if method not in METHODS:
         raise ValueError(f"unknown tissue method {method!r}; choose one of {METHODS}")
-    return _smooth(np.ascontiguousarray(feature, dtype=np.float32), smooth_um / mpp)
+    sigma = smooth_um / mpp
+    h, w = rgb.shape[:2]
+    feature = np.empty((h, w), np.float32)
+    if method == "od-otsu":
+        tables = od_tables(glass_colour(rgb) if glass is None else glass)
+    for r0, r1, a0, a1 in _bands(h, sigma):
+        band = rgb[a0:a1]
+        if method == "od-otsu":  # mean optical density over R, G, B, from 256-entry tables
+            f = tables[0][band[..., 0]]
+            f += tables[1][band[..., 1]]
+            f += tables[2][band[..., 2]]
+            f /= np.float32(3)
+        else:
+            top = channel_max(band).astype(np.float32)
+            f = top - channel_min(band)
+            f /= np.maximum(top, np.float32(1.0))
+        feature[r0:r1] = _smooth(f, sigma)[r0 - a0:r1 - a0]
+    return feature
+
+
+def _bands(h: int, sigma_px: float):
+    """Row bands ``(r0, r1, a0, a1)``: rows ``[r0, r1)`` are produced from rows ``[a0, a1)``,
+    which add a halo wide enough for a Gaussian of ``sigma_px`` (OpenCV's kernel reaches about
+    4 sigma), so a band's result equals the whole image's in its own rows."""
+    halo = int(math.ceil(4.0 * sigma_px)) + 2 if sigma_px > 0 else 0
+    for r0 in range(0, h, _BAND_ROWS):
+        r1 = min(h, r0 + _BAND_ROWS)
+        yield r0, r1, max(0, r0 - halo), min(h, r1 + halo)
+
+
+def _smoothed_od(band: np.ndarray, tables: np.ndarray, sigma_px: float) -> np.ndarray:
+    """Per-channel optical density of an RGB band (table look-ups), Gaussian-smoothed."""
+    od = np.empty(band.shape, np.float32)
+    for c in range(3):
+        np.take(tables[c], band[..., c], out=od[..., c])
+    return _smooth(od, sigma_px)
+
+
+def _ink_and_dark(rgb, glass, sigma_px, *, exclude_ink, ink_residual, exclude_dark, dark_od):
+    """Marker ink and dark debris masks from the smoothed OD, band by band (two passes: the
+    H&E plane is fitted to a strided sample of the whole slide first). Returns (ink, dark, normal)."""
+    h, w = rgb.shape[:2]
+    tables = od_tables(glass)
+    ink = np.zeros((h, w), bool)
+    dark = np.zeros((h, w), bool)
+    normal = None
+    if exclude_ink:
+        # the same strided sample of the flattened OD that hne_plane_normal takes of a whole image
+        step = (h * w) // 1_000_000 + 1 if h * w > 1_000_000 else 1
+        parts = []
+        for r0, r1, a0, a1 in _bands(h, sigma_px):
+            od = _smoothed_od(rgb[a0:a1], tables, sigma_px)[r0 - a0:r1 - a0].reshape(-1, 3)
+            parts.append(od[(-r0 * w) % step::step].copy())
+            del od
+        normal = _ink.hne_plane_normal(np.concatenate(parts))
+        del parts
+        n32 = np.asarray(normal, dtype=np.float32)
+    for r0, r1, a0, a1 in _bands(h, sigma_px):
+        od = _smoothed_od(rgb[a0:a1], tables, sigma_px)[r0 - a0:r1 - a0]
+        if exclude_ink:
+            ink[r0:r1] = (np.abs(od @ n32) > ink_residual) | _ink.black_ink(od)
+        if exclude_dark:
+            dark[r0:r1] = _ink.dark_debris(od, min_od=dark_od)
+    return ink, dark, normal
 
 
 def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-otsu", min_od_floor: float = 0.04,
@@ -311,26 +369,26 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-otsu", min_od_floo
     glass = glass_colour(rgb) if glass is None else np.asarray(glass, dtype=np.float64)
     feature = tissue_feature(rgb, mpp, method=method, smooth_um=smooth_um, glass=glass)
     if method == "od-otsu":
-        otsu = 10.0 ** otsu_threshold(np.log10(np.maximum(feature, _LOG_FLOOR)))
+        logs = np.maximum(feature, _LOG_FLOOR)
+        otsu = 10.0 ** otsu_threshold(np.log10(logs, out=logs))
+        del logs
         threshold = min(max(otsu, min_od_floor), max(max_od_ceiling, min_od_floor))
     else:
         otsu = otsu_threshold(feature)
         threshold = max(otsu, min_saturation)
     raw = feature > threshold
+    del feature
     raw = _morph(raw, "close", _px(close_um, mpp))
     raw = _morph(raw, "open", _px(open_um, mpp))
     area = mpp * mpp
     tissue = _fill_holes(raw, fill_holes_um2 / area)
+    del raw
 
-    need_od = exclude_ink or exclude_dark
-    od = _smooth(optical_density(rgb, glass), smooth_um / mpp) if need_od else None
-    ink = np.zeros_like(tissue)
-    normal = None
+    ink, dark, normal = _ink_and_dark(rgb, glass, smooth_um / mpp, exclude_ink=exclude_ink,
+                                      ink_residual=ink_residual, exclude_dark=exclude_dark,
+                                      dark_od=dark_od)
     if exclude_ink:
-        normal = _ink.hne_plane_normal(od)
-        ink = (np.abs(_ink.ink_residual(od, normal)) > ink_residual) | _ink.black_ink(od)
         ink = _morph(_morph(ink, "open", 1), "dilate", _px(ink_margin_um, mpp))
-    dark = _ink.dark_debris(od, min_od=dark_od) if exclude_dark else np.zeros_like(tissue)
     tissue = _drop_small(tissue & ~ink & ~dark, min_component_um2 / area)
 
     params = {"method": method, "source": path, "otsu": float(otsu), "min_od_floor": min_od_floor,
