@@ -62,7 +62,10 @@ def glass_colour(rgb: np.ndarray, *, top: float = 0.02) -> np.ndarray:
     total += px[:, 1]
     total += px[:, 2]
     k = max(1, int(round(n * top)))
-    above = np.cumsum(np.bincount(total, minlength=766)[::-1])[::-1]  # above[t]: pixels >= t
+    counts = np.zeros(766, np.int64)
+    for start in range(0, n, 1 << 18):  # bincount in chunks: it makes an int64 copy of its input
+        counts += np.bincount(total[start:start + (1 << 18)], minlength=766)
+    above = np.cumsum(counts[::-1])[::-1]  # above[t]: pixels at least as bright as t
     level = int(np.flatnonzero(above >= k)[-1])  # the k-th brightest pixel has this brightness
     chosen = total > level
     need = k - int(chosen.sum())  # ties at ``level``: the first ones in raster order

@@ -76,15 +76,18 @@ def hne_plane_normal(od: np.ndarray, *, min_od: float = 0.15, keep: float = 0.8,
     x = np.asarray(od).reshape(-1, 3)
     if x.shape[0] > 1_000_000:  # bounded memory whatever the slide size: a strided subsample first
         x = x[:: x.shape[0] // 1_000_000 + 1]
-    x = x.astype(np.float64)
-    norm2 = x[:, 0] * x[:, 0] + x[:, 1] * x[:, 1] + x[:, 2] * x[:, 2]
-    stained = (norm2 > min_od * min_od) & (x[:, 1] >= x[:, 0]) & (x[:, 1] >= x[:, 2])
-    stained &= ~black_ink(x)
-    x = x[stained]
-    if x.shape[0] < min_pixels:
+    stained = np.empty(x.shape[0], bool)
+    for start in range(0, x.shape[0], 1 << 16):  # float64 only a chunk at a time
+        c = x[start:start + (1 << 16)].astype(np.float64)
+        norm2 = c[:, 0] * c[:, 0] + c[:, 1] * c[:, 1] + c[:, 2] * c[:, 2]
+        stained[start:start + len(c)] = ((norm2 > min_od * min_od) & (c[:, 1] >= c[:, 0])
+                                         & (c[:, 1] >= c[:, 2]) & ~black_ink(c))
+    idx = np.flatnonzero(stained)
+    if idx.size < min_pixels:
         return RUIFROK_PLANE_NORMAL.copy()
-    if x.shape[0] > 200_000:  # a deterministic subsample is plenty for a 3x3 fit
-        x = x[:: x.shape[0] // 200_000 + 1]
+    if idx.size > 200_000:  # a deterministic subsample is plenty for a 3x3 fit
+        idx = idx[:: idx.size // 200_000 + 1]
+    x = x[idx].astype(np.float64)
     normal = RUIFROK_PLANE_NORMAL.copy()
     for _ in range(iterations):
         res = np.abs(x @ normal)

@@ -172,11 +172,12 @@ def _drop_small(mask: np.ndarray, min_px: float) -> np.ndarray:
     """Remove 8-connected components smaller than ``min_px`` pixels."""
     if min_px <= 1 or not mask.any():
         return mask
-    from scipy import ndimage
+    import cv2
 
-    labels, n = ndimage.label(mask, structure=np.ones((3, 3), bool))
-    sizes = np.bincount(labels.ravel(), minlength=n + 1)
-    small = sizes < min_px
+    # OpenCV labels with int32 and counts areas itself (no int64 copy of the labels)
+    n, labels, stats, _ = cv2.connectedComponentsWithStats(np.ascontiguousarray(mask).view(np.uint8), connectivity=8,
+                                                           ltype=cv2.CV_32S)
+    small = stats[:, cv2.CC_STAT_AREA] < min_px
     small[0] = False
     return mask & ~small[labels]
 
@@ -185,13 +186,15 @@ def _fill_holes(mask: np.ndarray, max_px: float) -> np.ndarray:
     """Fill 4-connected background regions smaller than ``max_px`` that do not touch the border."""
     if max_px <= 0 or mask.all():
         return mask
-    from scipy import ndimage
+    import cv2
 
-    labels, n = ndimage.label(~mask)
-    sizes = np.bincount(labels.ravel(), minlength=n + 1)
+    background = ~mask
+    n, labels, stats, _ = cv2.connectedComponentsWithStats(background.view(np.uint8), connectivity=4,
+                                                           ltype=cv2.CV_32S)
+    del background
     border = np.unique(np.r_[labels[0], labels[-1], labels[:, 0], labels[:, -1]])
-    fill = sizes < max_px
-    fill[0] = False
+    fill = stats[:, cv2.CC_STAT_AREA] < max_px
+    fill[0] = False  # label 0 is the tissue itself
     fill[border] = False
     return mask | fill[labels]
 
@@ -258,13 +261,16 @@ def _ink_and_dark(rgb, glass, sigma_px, *, exclude_ink, ink_residual, exclude_da
     if exclude_ink:
         # the same strided sample of the flattened OD that hne_plane_normal takes of a whole image
         step = (h * w) // 1_000_000 + 1 if h * w > 1_000_000 else 1
-        parts = []
+        sample = np.empty(((h * w + step - 1) // step, 3), np.float32)
+        at = 0
         for r0, r1, a0, a1 in _bands(h, sigma_px):
             od = _smoothed_od(rgb[a0:a1], tables, sigma_px)[r0 - a0:r1 - a0].reshape(-1, 3)
-            parts.append(od[(-r0 * w) % step::step].copy())
-            del od
-        normal = _ink.hne_plane_normal(np.concatenate(parts))
-        del parts
+            part = od[(-r0 * w) % step::step]
+            sample[at:at + len(part)] = part
+            at += len(part)
+            del od, part
+        normal = _ink.hne_plane_normal(sample)
+        del sample
         n32 = np.asarray(normal, dtype=np.float32)
     for r0, r1, a0, a1 in _bands(h, sigma_px):
         od = _smoothed_od(rgb[a0:a1], tables, sigma_px)[r0 - a0:r1 - a0]
