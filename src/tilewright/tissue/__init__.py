@@ -5,7 +5,7 @@
 - :mod:`.plan` — ``plan_tiles`` / ``TilePlan`` (grid anchored at the origin, edge rule, regions,
   reproducible spread ``max_tiles`` sampling)
 - :mod:`.sharpness` — ``sharpness`` (variance of the Laplacian per tile)
-- :mod:`.overlay` — ``render_overlay`` (QC picture; imports matplotlib when called)
+- :mod:`.overlay` — ``render_overlay`` (QC picture drawn with OpenCV)
 - :mod:`.density`, :mod:`.ink`, :mod:`.otsu`, :mod:`.raster` — the pieces they are built from
 
 Nothing is imported here, so importing the package does no work.

@@ -49,14 +49,22 @@ def otsu_threshold(values, nbins: int = 256) -> float:
     >>> bool(0.0 <= otsu_threshold(values) < 1.0)
     True
     """
-    v = np.asarray(values, dtype=np.float64).ravel()
-    v = v[np.isfinite(v)]
-    if v.size == 0:
+    flat = np.asarray(values).reshape(-1)
+    lo, hi, any_finite = np.inf, -np.inf, False
+    for chunk in _chunks(flat):  # bounded memory: never a float64 copy of the whole input
+        c = chunk[np.isfinite(chunk)]
+        if c.size:
+            any_finite = True
+            lo, hi = min(lo, float(c.min())), max(hi, float(c.max()))
+    if not any_finite:
         raise ValueError("otsu_threshold needs at least one finite value")
-    lo, hi = float(v.min()), float(v.max())
     if lo == hi:
         return lo
-    counts, edges = np.histogram(v, bins=nbins, range=(lo, hi))
+    counts = np.zeros(nbins, dtype=np.int64)
+    for chunk in _chunks(flat):
+        c = chunk[np.isfinite(chunk)]
+        counts += np.histogram(c, bins=nbins, range=(lo, hi))[0]
+    edges = np.histogram_bin_edges(np.array([lo, hi]), bins=nbins, range=(lo, hi))
     centres = (edges[:-1] + edges[1:]) / 2.0
     counts = counts.astype(np.float64)
     w1 = np.cumsum(counts)
@@ -66,3 +74,9 @@ def otsu_threshold(values, nbins: int = 256) -> float:
         m2 = (np.cumsum((counts * centres)[::-1]) / w2[::-1])[::-1]
     between = w1[:-1] * w2[1:] * (m1[:-1] - m2[1:]) ** 2
     return float(centres[int(np.nanargmax(between))])
+
+
+def _chunks(flat: np.ndarray, size: int = 1 << 18):
+    """Float64 pieces of a flat array (histogram bin edges are computed in float64 either way)."""
+    for i in range(0, flat.size, size):
+        yield flat[i:i + size].astype(np.float64, copy=False)
