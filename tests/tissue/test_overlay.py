@@ -41,6 +41,20 @@ def _rect_mask(shape=(300, 800), box=(50, 250, 100, 700), ink_box=None):
     return TissueMask(a, 8.0, ink=ink)
 
 
+def _picture_size(h, w):
+    """Documented size rule: shrink past MAX_SIDE, enlarge small pictures to MIN_WIDTH."""
+    from math import ceil
+
+    from tilewright.tissue.overlay import MAX_SIDE
+
+    shrink = max(1, ceil(max(h, w) / MAX_SIDE))
+    h, w = (max(1, h // shrink), max(1, w // shrink)) if shrink > 1 else (h, w)
+    grow = min(MIN_WIDTH / w, MAX_SIDE / max(h, w))
+    if grow > 1:
+        h, w = int(round(h * grow)), int(round(w * grow))
+    return h + CAPTION_HEIGHT, max(w, MIN_WIDTH)
+
+
 def test_overlay_png(tmp_path, he_slide, he_layout):
     mask = tissue_mask(he_slide, mpp=8.0)
     plan = plan_tiles(FakeView(he_layout.shape_at(0.5), 0.5), mask, tile=256, max_tiles=200)
@@ -48,7 +62,7 @@ def test_overlay_png(tmp_path, he_slide, he_layout):
     assert out.endswith("qc.png") and not list(tmp_path.glob("*.part"))
     img = _read(out)
     h, w = mask.shape
-    assert img.shape[:2] == (h + CAPTION_HEIGHT, max(w, MIN_WIDTH))  # the slide plus a caption strip
+    assert img.shape[:2] == _picture_size(h, w)  # the slide plus a caption strip
     # each layer is drawn: amber outline, teal tiles (absent from the H&E + pen palette)
     assert _count_colour(img, OVERLAY_COLOURS["tissue"]) > 500
     assert _count_colour(img, OVERLAY_COLOURS["tile"], tol=30) > 500
@@ -109,7 +123,8 @@ def test_ink_stripes_and_rim(tmp_path):
 def test_narrow_slide_gets_a_wide_enough_caption(tmp_path):
     mask = _rect_mask(shape=(100, 200), box=(20, 80, 20, 180))
     img = _read(render_overlay(np.full((100, 200, 3), 230, np.uint8), mask, None, tmp_path / "n.png"))
-    assert img.shape[:2] == (100 + CAPTION_HEIGHT, MIN_WIDTH)
+    assert img.shape[:2] == (320 + CAPTION_HEIGHT, MIN_WIDTH)  # enlarged x3.2 to the minimum width
+    assert _picture_size(100, 200) == (320 + CAPTION_HEIGHT, MIN_WIDTH)
 
 
 def test_overlay_at_another_resolution(tmp_path, he_slide):
@@ -122,7 +137,7 @@ def test_overlay_at_another_resolution(tmp_path, he_slide):
 
     h, w = 2 * mask.shape[0], 2 * mask.shape[1]  # the thumbnail at 4 µm/px
     shrink = max(1, ceil(max(h, w) / MAX_SIDE))  # documented cap on the picture size
-    assert _read(out).shape[1] == max(w // shrink, MIN_WIDTH)  # mask resized to the picture
+    assert _read(out).shape[:2] == _picture_size(h, w)  # mask resized to the picture
     assert _read(out).shape[1] <= max(MAX_SIDE, MIN_WIDTH)
 
 

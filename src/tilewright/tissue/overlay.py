@@ -167,6 +167,12 @@ def render_overlay(slide, mask, plan, path, *, mpp: float | None = None, title: 
                          interpolation=cv2.INTER_AREA)
         h, w = rgb.shape[:2]
         mpp *= shrink
+    grow = min(MIN_WIDTH / max(w, 1), MAX_SIDE / max(h, w, 1))
+    if grow > 1:  # small thumbnails are enlarged to fill the picture width
+        rgb = cv2.resize(np.ascontiguousarray(rgb), (int(round(w * grow)), int(round(h * grow))),
+                         interpolation=cv2.INTER_LINEAR)
+        mpp *= w / rgb.shape[1]
+        h, w = rgb.shape[:2]
     tissue = _resize_nearest(mask.array, (h, w))
     ink = _resize_nearest(mask.ink, (h, w))
     dark = _resize_nearest(mask.dark, (h, w))
