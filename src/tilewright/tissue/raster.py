@@ -28,12 +28,17 @@ def summed_area_table(raster: np.ndarray) -> np.ndarray:
 
     Returns
     -------
-    ndarray (H + 1, W + 1) float64
-        ``sat[i, j]`` is the sum of ``raster[:i, :j]``.
+    ndarray (H + 1, W + 1)
+        ``sat[i, j]`` is the sum of ``raster[:i, :j]``: int32 counts for a boolean raster (int64
+        past 2**31 pixels), float64 otherwise.
     """
-    raster = np.asarray(raster, dtype=np.float64)
-    sat = np.zeros((raster.shape[0] + 1, raster.shape[1] + 1), dtype=np.float64)
-    np.cumsum(np.cumsum(raster, axis=0), axis=1, out=sat[1:, 1:])
+    raster = np.asarray(raster)
+    if raster.dtype == bool:  # exact integer counts at half the memory of float64
+        dtype = np.int32 if raster.size < 2**31 else np.int64
+    else:
+        dtype = np.float64
+    sat = np.zeros((raster.shape[0] + 1, raster.shape[1] + 1), dtype=dtype)
+    np.cumsum(np.cumsum(raster, axis=0, dtype=dtype), axis=1, out=sat[1:, 1:])
     return sat
 
 
