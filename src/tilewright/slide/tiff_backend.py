@@ -41,7 +41,7 @@ class _Level:
     """One pyramid level: a TIFF page and what is needed to decode its segments."""
 
     __slots__ = ("height", "width", "tile_h", "tile_w", "grid_w", "offsets", "counts",
-                 "decode", "jpegtables", "page_index", "is_jpeg", "jpeg")
+                 "decode", "jpegtables", "page_index", "is_jpeg", "jpeg", "sentinels")
 
     def __init__(self, page, index):
         self.height, self.width = int(page.imagelength), int(page.imagewidth)
@@ -55,6 +55,7 @@ class _Level:
         self.page_index = index
         self.is_jpeg = int(page.compression) == 7  # new-style JPEG (TIFF Technical Note 2)
         self.jpeg = _jpeg_args(page)  # (colorspace, outcolorspace) for the direct JPEG path, or None
+        self.sentinels = {}  # JPEG header bytes -> SentinelPlan or None (see jpeg_check)
 
 
 def _jpeg_args(page):
@@ -86,6 +87,9 @@ class TiffBackend:
     ----------
     path : str
         The slide file (already sniffed as TIFF).
+    verify_jpeg : bool
+        Check every decoded JPEG tile for a desynchronized entropy-coded stream (see
+        :mod:`tilewright.slide.jpeg_check`); a damaged tile raises DamagedSlideError.
 
     Raises
     ------
@@ -97,7 +101,7 @@ class TiffBackend:
 
     name = "tiff"
 
-    def __init__(self, path: str, *, verify_jpeg: bool = False):
+    def __init__(self, path: str, *, verify_jpeg: bool = True):
         import tifffile
 
         self.path = path
@@ -237,14 +241,16 @@ class TiffBackend:
                     dst[...] = 255  # sparse file: missing tile is background
                     continue
                 try:
-                    seg = self._decode(lv, data, first + k)
+                    if self.verify_jpeg and lv.is_jpeg:
+                        seg, intact = self._decode_verified(lv, data, first + k)
+                    else:
+                        seg, intact = self._decode(lv, data, first + k), True
                 except Exception as exc:
                     raise DamagedSlideError(
                         f"tile ({r}, {c}) of level {level} cannot be decoded while reading "
                         f"region y={y}, x={x}, h={h}, w={w} ({type(exc).__name__}: {exc}); "
                         "the file is damaged", self.path) from exc
-                if (self.verify_jpeg and lv.is_jpeg and seg is not None
-                        and not _jpeg_intact(lv, first + k, data, seg)):
+                if not intact:
                     ty0, tx0 = r * th, c * tw
                     raise DamagedSlideError(
                         f"tile ({r}, {c}) of level {level} (pixels y={ty0}-{ty0 + th}, "
@@ -270,6 +276,64 @@ class TiffBackend:
                                            outcolorspace=lv.jpeg[1], shape=key, bitspersample=8, out=buf)
         seg = lv.decode(data, index, jpegtables=lv.jpegtables)[0]
         return None if seg is None else seg.reshape(seg.shape[-3:])
+
+    def _decode_verified(self, lv: _Level, data, index: int):
+        """One JPEG tile and whether its entropy-coded stream is intact (see jpeg_check).
+
+        Without vertical chroma subsampling the pixels come from the single decode of the
+        sentinel-extended stream; with it (4:2:0) a plain decode gives the pixels and a
+        1/8-scale grey decode of the extended stream checks it. A failed sentinel is settled
+        by the probe check, which is also used where no sentinel can be built.
+        """
+        from tilewright.slide.jpeg_check import (
+            entropy_bounds,
+            reduced_sentinel_intact,
+            sentinel_plan,
+            sentinel_stream,
+        )
+
+        plan = None
+        data = bytes(data)  # a memoryview into a row read; the stream helpers search bytes
+        bounds = entropy_bounds(data) if lv.jpeg is not None else None
+        if bounds is not None:
+            header = bytes(data[:bounds[0]])
+            try:
+                plan = lv.sentinels[header]
+            except KeyError:
+                plan = lv.sentinels[header] = sentinel_plan(header, lv.jpegtables)
+        ext = None if plan is None or plan.height != lv.tile_h or plan.width != lv.tile_w \
+            else sentinel_stream(data, plan)
+        if ext is not None:
+            if not plan.vertical:
+                seg = self._decode_extended(lv, ext, plan)
+                if seg is not None:
+                    return seg, True
+            else:
+                seg = self._decode(lv, data, index)
+                if reduced_sentinel_intact(ext, lv.jpegtables, plan):
+                    return seg, True
+        seg = self._decode(lv, data, index)
+        return seg, seg is None or _jpeg_intact(lv, index, data, seg)
+
+    def _decode_extended(self, lv: _Level, ext: bytes, plan):
+        """Decode a sentinel-extended tile; the real rows if its sentinel is intact, else None."""
+        import imagecodecs
+
+        from tilewright.slide.jpeg_check import sentinel_intact
+
+        key = (plan.ext_height, lv.tile_w)
+        buf = getattr(self._scratch, "tiles", {}).get(key)
+        if buf is None:
+            buf = np.empty(key + (3,), np.uint8)
+            self._scratch.tiles = {**getattr(self._scratch, "tiles", {}), key: buf}
+        try:
+            out = imagecodecs.jpeg_decode(ext, tables=lv.jpegtables, colorspace=lv.jpeg[0],
+                                          outcolorspace=lv.jpeg[1], shape=key, bitspersample=8, out=buf)
+        except Exception:  # noqa: BLE001 - settled by the probe check on the stored stream
+            return None
+        if not sentinel_intact(out[plan.real_rows:], 8):
+            return None
+        return out[:plan.height]
 
     def _direct_jpeg_agrees(self, lv: _Level) -> bool:
         """Whether the direct JPEG path decodes the level's first stored tile as tifffile does."""
