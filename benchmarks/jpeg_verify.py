@@ -40,14 +40,24 @@ def _slides(folder: Path):
     return {"YCbCr 4:2:0": sub420, "YCbCr 4:4:4": sub444}
 
 
-def _time(fn, tiles, repeats=3):
-    best = float("inf")
-    for _ in range(repeats):
-        t0 = time.perf_counter()
-        for i, data in tiles:
-            fn(i, data)
-        best = min(best, time.perf_counter() - t0)
-    return best
+def _times(fns, tiles, rounds=9):
+    """Per method: best time, and the median over interleaved rounds of its time / plain's time
+    in the same round (robust to the load of a shared machine drifting between rounds)."""
+    import statistics
+
+    best = {name: float("inf") for name in fns}
+    ratios = {name: [] for name in fns}
+    for _ in range(rounds):
+        this = {}
+        for name, fn in fns.items():
+            t0 = time.perf_counter()
+            for i, data in tiles:
+                fn(i, data)
+            this[name] = time.perf_counter() - t0
+            best[name] = min(best[name], this[name])
+        for name in fns:
+            ratios[name].append(this[name] / this["plain"])
+    return {name: (best[name], statistics.median(ratios[name])) for name in fns}
 
 
 def main() -> int:
@@ -73,10 +83,9 @@ def main() -> int:
             def sentinel(i, data):
                 assert backend._decode_verified(lv, data, i)[1]
 
-            base = _time(plain, tiles)
-            for name, fn in (("plain", plain), ("probes", probes), ("sentinel", sentinel)):
-                t = base if name == "plain" else _time(fn, tiles)
-                print(f"{label:<14}{name:<10}{mp / t:8.1f}{(t / base - 1) * 100:+14.1f}%")
+            best = _times({"plain": plain, "probes": probes, "sentinel": sentinel}, tiles)
+            for name, (t, ratio) in best.items():
+                print(f"{label:<14}{name:<10}{mp / t:8.1f}{(ratio - 1) * 100:+14.1f}%")
             backend.close()
     return 0
 

@@ -51,7 +51,7 @@ from collections.abc import Callable
 
 import numpy as np
 
-__all__ = ["SentinelPlan", "entropy_bounds", "jpeg_in_sync", "reduced_sentinel_intact", "sentinel_intact",
+__all__ = ["SentinelPlan", "entropy_bounds", "jpeg_in_sync", "header_length", "reduced_sentinel_intact", "sentinel_intact",
            "sentinel_plan",            "sentinel_stream"]
 
 _PROBE_TAIL = 2          # bytes of entropy data inverted by the "used to the end" probe
@@ -159,16 +159,20 @@ class SentinelPlan:
         must take the pixels from a plain decode and check the extension separately).
     """
 
-    __slots__ = ("height", "width", "real_rows", "ext_height", "vertical", "sof_height_at", "bits", "nbits")
+    __slots__ = ("height", "width", "real_rows", "ext_height", "vertical", "sof_height_at", "bits", "nbits",
+                 "eob_ones")
 
-    def __init__(self, height, width, real_rows, ext_height, vertical, sof_height_at, bits, nbits):
+    def __init__(self, height, width, real_rows, ext_height, vertical, sof_height_at, bits, nbits, eob_ones):
         self.height, self.width, self.real_rows, self.ext_height = height, width, real_rows, ext_height
         self.vertical, self.sof_height_at, self.bits, self.nbits = vertical, sof_height_at, bits, nbits
+        self.eob_ones = eob_ones  # trailing 1-bits of the end-of-block code of the last block
 
 
 def _segments(data: bytes):
     """(marker, payload start, payload end) of the marker segments before the entropy data."""
     n, i = len(data), 2
+    if n < 4 or data[0] != 0xFF or data[1] != 0xD8:
+        return
     while i + 4 <= n:
         if data[i] != 0xFF:
             return
@@ -293,15 +297,21 @@ def sentinel_plan(header: bytes, tables: bytes | None = None) -> SentinelPlan | 
     if real_rows + mcu_h > 65535:
         return None
     vertical = any(v != vmax for _, v, _ in comps.values())
-    return SentinelPlan(height, width, real_rows, real_rows + mcu_h, vertical, height_at, bits, nbits)
+    code, length = dht[0x10 | sos[-1][2]][0]  # EOB of the last block of an MCU
+    eob_ones = 0
+    while eob_ones < length and (code >> eob_ones) & 1:
+        eob_ones += 1
+    return SentinelPlan(height, width, real_rows, real_rows + mcu_h, vertical, height_at, bits, nbits, eob_ones)
 
 
 def sentinel_stream(data, plan: SentinelPlan) -> bytes | None:
     """The tile's JPEG stream extended by the sentinel MCU row of ``plan``.
 
-    The sentinel's bits replace the padding 1-bits of the last byte of entropy-coded data (all
-    its trailing 1-bits are taken for padding; if the real data ended in 1-bits the sentinel is
-    misread and the check fails, to be settled by :func:`jpeg_in_sync`).
+    The sentinel's bits replace the padding 1-bits of the last byte of entropy-coded data. Where
+    the padding starts is not marked: the real data is taken to end with an end-of-block code
+    (its last block's highest-frequency coefficient is zero, as in nearly every block of a
+    natural image), so the padding is the last byte's trailing 1-bits less those ending that
+    code. Otherwise the sentinel is misread and fails, to be settled by :func:`jpeg_in_sync`.
 
     Parameters
     ----------
@@ -319,12 +329,14 @@ def sentinel_stream(data, plan: SentinelPlan) -> bytes | None:
         return None
     last = data[end - 1]
     cut = end - 1
-    if last == 0x00 and data[end - 2] == 0xFF:  # stuffed 0xFF: at most 7 of its bits are padding
-        last, cut, pad = 0xFF, end - 2, 7
-    else:
-        pad = 0
-        while pad < 8 and (last >> pad) & 1:
-            pad += 1
+    if last == 0x00 and data[end - 2] == 0xFF:  # a stuffed 0xFF
+        last, cut = 0xFF, end - 2
+    ones = 0
+    while ones < 8 and (last >> ones) & 1:
+        ones += 1
+    pad = ones - plan.eob_ones if ones < 8 else 7 - plan.eob_ones
+    if pad < 0:
+        return None
     keep = 8 - pad
     nbits = keep + plan.nbits
     fill = -nbits % 8
@@ -350,20 +362,28 @@ def sentinel_intact(rows: np.ndarray, stripe: int) -> bool:
         True when every row is equal, columns of even stripes share one colour, odd stripes
         another, and the two differ.
     """
-    if rows.shape[0] == 0 or rows.shape[1] == 0:
+    n, width = rows.shape[0], rows.shape[1]
+    if n == 0 or width == 0:
         return False
-    first = rows[0]
-    if not (rows == first).all():
-        return False
-    width = first.shape[0]
-    a = first[0]
+    raw = np.ascontiguousarray(rows).tobytes()  # comparing bytes: a few µs, numpy ops cost more
+    c = len(raw) // (n * width)
+    a = raw[:c]
     if width <= stripe:
-        return bool((first == a).all())
-    b = first[stripe]
-    if np.array_equal(a, b):
+        return raw == a * (n * width)
+    b = raw[stripe * c:(stripe + 1) * c]
+    if a == b:
         return False
-    odd = (np.arange(width) // stripe) % 2 == 1
-    return bool((first[~odd] == a).all() and (first[odd] == b).all())
+    row = ((a * stripe + b * stripe) * (width // (2 * stripe) + 1))[:width * c]
+    return raw == row * n
+
+
+def header_length(data) -> int | None:
+    """Length of a JPEG stream's header (SOI up to the end of its first SOS segment), or None."""
+    end = None
+    for marker, _, stop in _segments(data):
+        if marker == 0xDA:
+            end = stop
+    return end if end is not None and end <= len(data) else None
 
 
 def reduced_sentinel_intact(ext: bytes, tables, plan: SentinelPlan) -> bool:

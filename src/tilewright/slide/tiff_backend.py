@@ -286,7 +286,7 @@ class TiffBackend:
         by the probe check, which is also used where no sentinel can be built.
         """
         from tilewright.slide.jpeg_check import (
-            entropy_bounds,
+            header_length,
             reduced_sentinel_intact,
             sentinel_plan,
             sentinel_stream,
@@ -294,9 +294,9 @@ class TiffBackend:
 
         plan = None
         data = bytes(data)  # a memoryview into a row read; the stream helpers search bytes
-        bounds = entropy_bounds(data) if lv.jpeg is not None else None
-        if bounds is not None:
-            header = bytes(data[:bounds[0]])
+        start = header_length(data) if lv.jpeg is not None else None
+        if start is not None:
+            header = data[:start]
             try:
                 plan = lv.sentinels[header]
             except KeyError:
