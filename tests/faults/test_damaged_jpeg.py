@@ -258,7 +258,7 @@ def _sentinel_ok(ext, plan, decode):
         out = decode(ext)
     except Exception:  # noqa: BLE001
         return False
-    return sentinel_intact(out[plan.real_rows:], 8)
+    return sentinel_intact(out[plan.real_rows:], 8, plan.grey_step)
 
 
 def test_noisy_tiles_settled_by_probes(tmp_path, monkeypatch):

@@ -13,8 +13,8 @@ The check used by default costs one slightly taller decode (:func:`sentinel_plan
 one more MCU row, and entropy-coded data for that row, written with the tile's own Huffman
 tables, is appended after the last real bits. The extra row is a *sentinel* of flat 8 x 8
 blocks whose DC differences draw vertical stripes 8 px wide in the first component (levels
-``p - a`` and ``p`` where ``p`` is whatever DC value the decoder reached: the check is
-relative). A decoder in sync reads the sentinel exactly and draws the stripes; one that ran
+``p - 2a`` for the first stripe, then ``p - a`` and ``p`` alternately, where ``p`` is whatever
+DC value the decoder reached; decoded, the levels differ by an exact number of grey levels). A decoder in sync reads the sentinel exactly and draws the stripes; one that ran
 out of data reads sentinel bits as real blocks and then zero-fills the end of the row; one
 that finished with bytes to spare decodes the sentinel from misaligned bits. Either way the
 stripes break. A failed sentinel is then confirmed with the exact probe check below (the
@@ -139,7 +139,7 @@ def jpeg_in_sync(data: bytes, decoded: np.ndarray, decode: Callable[[bytes], np.
 
 # -- single-decode sentinel ---------------------------------------------------------------
 
-_STEP = 128  # dequantized DC step of the stripes (x 1/8 px): 16 grey levels
+_STEP = 128  # least dequantized DC step between stripe levels (x 1/8 px): 16 grey levels
 
 
 class SentinelPlan:
@@ -157,15 +157,19 @@ class SentinelPlan:
         A component is subsampled vertically: decoders smooth chroma across MCU rows, so the
         last real pixel row of the extended decode differs from a plain decode (the caller
         must take the pixels from a plain decode and check the extension separately).
+    grey_step : int
+        Decoded levels (of the first component) between the sentinel's stripe levels.
     """
 
     __slots__ = ("height", "width", "real_rows", "ext_height", "vertical", "sof_height_at", "bits", "nbits",
-                 "eob_ones")
+                 "eob_ones", "grey_step")
 
-    def __init__(self, height, width, real_rows, ext_height, vertical, sof_height_at, bits, nbits, eob_ones):
+    def __init__(self, height, width, real_rows, ext_height, vertical, sof_height_at, bits, nbits, eob_ones,
+                 grey_step):
         self.height, self.width, self.real_rows, self.ext_height = height, width, real_rows, ext_height
         self.vertical, self.sof_height_at, self.bits, self.nbits = vertical, sof_height_at, bits, nbits
         self.eob_ones = eob_ones  # trailing 1-bits of the end-of-block code of the last block
+        self.grey_step = grey_step  # decoded grey levels between adjacent stripe levels
 
 
 def _segments(data: bytes):
@@ -269,7 +273,11 @@ def sentinel_plan(header: bytes, tables: bytes | None = None) -> SentinelPlan | 
     q0 = dqt.get(comps[first][2], 0)  # DC quantizer of the first component
     if not q0:
         return None
-    step = min(-(-_STEP // q0), 2047)
+    step = -(-_STEP // q0)
+    while step * q0 % 8:  # a whole number of grey levels: decoded levels then differ exactly
+        step += 1
+    if 2 * step > 2047:
+        return None
     bits = nbits = 0
     level = 0
     for m in range(-(-width // mcu_w)):
@@ -281,7 +289,8 @@ def sentinel_plan(header: bytes, tables: bytes | None = None) -> SentinelPlan | 
             for blk in range(h * v):
                 diff = 0
                 if cid == first:
-                    target = -step if (m * h + blk % h) % 2 == 0 else 0
+                    column = m * h + blk % h  # 8-px stripe of this block
+                    target = -2 * step if column == 0 else -step if column % 2 else 0
                     diff, level = target - level, target
                 cat = abs(diff).bit_length()
                 if cat not in dc:
@@ -301,7 +310,8 @@ def sentinel_plan(header: bytes, tables: bytes | None = None) -> SentinelPlan | 
     eob_ones = 0
     while eob_ones < length and (code >> eob_ones) & 1:
         eob_ones += 1
-    return SentinelPlan(height, width, real_rows, real_rows + mcu_h, vertical, height_at, bits, nbits, eob_ones)
+    return SentinelPlan(height, width, real_rows, real_rows + mcu_h, vertical, height_at, bits, nbits, eob_ones,
+                        step * q0 // 8)
 
 
 def sentinel_stream(data, plan: SentinelPlan) -> bytes | None:
@@ -346,8 +356,15 @@ def sentinel_stream(data, plan: SentinelPlan) -> bytes | None:
     return b"".join((data[:at], plan.ext_height.to_bytes(2, "big"), data[at + 2:cut], tail, b"\xff\xd9"))
 
 
-def sentinel_intact(rows: np.ndarray, stripe: int) -> bool:
+def sentinel_intact(rows: np.ndarray, stripe: int, grey_step: int) -> bool:
     """Whether decoded sentinel rows show the stripes an in-sync decoder draws.
+
+    The sentinel's first component steps through levels ``p - 2s`` (first stripe only), then
+    ``p - s`` and ``p`` alternately, ``p`` being the DC value the decoder had reached. Decoded,
+    the stripes differ by exactly ``grey_step`` levels in each channel that carries the first
+    component (all three for YCbCr output, the red one for RGB-coded JPEG) and not at all in
+    the others (channels clamped at 0 or 255 excepted). The unique first stripe and the exact steps reject a sentinel decoded from a
+    shifted position (whole blocks of real data taken for sentinel blocks, or the reverse).
 
     Parameters
     ----------
@@ -355,25 +372,32 @@ def sentinel_intact(rows: np.ndarray, stripe: int) -> bool:
         The decoded rows of the sentinel MCU row, (rows, width) or (rows, width, channels).
     stripe : int
         Stripe width in pixels: 8 at full scale, 1 for a decode at 1/8 scale.
+    grey_step : int
+        :attr:`SentinelPlan.grey_step`.
 
     Returns
     -------
     bool
-        True when every row is equal, columns of even stripes share one colour, odd stripes
-        another, and the two differ.
+        False also where clamping hides the steps in every channel (the caller then uses the
+        probes); a channel clamped at white or black need only be ordered.
     """
     n, width = rows.shape[0], rows.shape[1]
-    if n == 0 or width == 0:
+    if n == 0 or width < 3 * stripe:
         return False
     raw = np.ascontiguousarray(rows).tobytes()  # comparing bytes: a few µs, numpy ops cost more
     c = len(raw) // (n * width)
-    a = raw[:c]
-    if width <= stripe:
-        return raw == a * (n * width)
-    b = raw[stripe * c:(stripe + 1) * c]
-    if a == b:
+    first, odd, even = raw[:c], raw[stripe * c:(stripe + 1) * c], raw[2 * stripe * c:(2 * stripe + 1) * c]
+    exact = False
+    for p, q, r in zip(first, odd, even):
+        if q - p == r - q == grey_step:
+            exact = True
+        elif p == q == r:
+            continue  # a channel without the first component (RGB-coded JPEG)
+        elif not ((r == 255 or p == 0) and p <= q <= r):  # clamped at white or black
+            return False
+    if not exact:
         return False
-    row = ((a * stripe + b * stripe) * (width // (2 * stripe) + 1))[:width * c]
+    row = (first * stripe + (odd * stripe + even * stripe) * (width // (2 * stripe) + 1))[:width * c]
     return raw == row * n
 
 
@@ -409,4 +433,4 @@ def reduced_sentinel_intact(ext: bytes, tables, plan: SentinelPlan) -> bool:
 
     stream = ext if not tables else b"".join((bytes(tables)[:-2], ext[2:]))
     small = cv2.imdecode(np.frombuffer(stream, np.uint8), cv2.IMREAD_REDUCED_GRAYSCALE_8)
-    return small is not None and sentinel_intact(small[plan.real_rows // 8:], 1)
+    return small is not None and sentinel_intact(small[plan.real_rows // 8:], 1, plan.grey_step)

@@ -331,7 +331,7 @@ class TiffBackend:
                                           outcolorspace=lv.jpeg[1], shape=key, bitspersample=8, out=buf)
         except Exception:  # noqa: BLE001 - settled by the probe check on the stored stream
             return None
-        if not sentinel_intact(out[plan.real_rows:], 8):
+        if not sentinel_intact(out[plan.real_rows:], 8, plan.grey_step):
             return None
         return out[:plan.height]
 
