@@ -270,7 +270,7 @@ class TiffBackend:
             key = (lv.tile_h, lv.tile_w)
             buf = getattr(self._scratch, "tiles", {}).get(key)
             if buf is None:
-                buf = np.empty(key + (3,), np.uint8)
+                buf = _scratch_tile(key)
                 self._scratch.tiles = {**getattr(self._scratch, "tiles", {}), key: buf}
             return imagecodecs.jpeg_decode(data, tables=lv.jpegtables, colorspace=lv.jpeg[0],
                                            outcolorspace=lv.jpeg[1], shape=key, bitspersample=8, out=buf)
