@@ -40,7 +40,7 @@ def open_wsi(path: str | os.PathLike, *, mpp: float | None = None,
         (damage that decoders pass silently as garbage pixels, see
         :mod:`tilewright.slide.jpeg_check`); a damaged tile raises DamagedSlideError naming it.
         On by default. Costs about 7 % of JPEG decoding for tiles without vertical chroma
-        subsampling (4:4:4, RGB) and about 60 % for YCbCr 4:2:0 tiles (``benchmarks/jpeg_verify.py``);
+        subsampling (4:4:4, RGB) and about 65 % for YCbCr 4:2:0 tiles (``benchmarks/jpeg_verify.py``);
         ``False`` returns damaged tiles as the decoder makes them (garbage, no error).
         OpenSlide applies its own strict checks regardless.
 
