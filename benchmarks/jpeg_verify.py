@@ -115,7 +115,7 @@ def _sentinel_only(backend, lv, tile) -> bool:
     """The sentinel's own verdict (without the probe check that settles its failures)."""
     import imagecodecs
 
-    from tilewright.slide.jpeg_check import (
+    from tilewright.slide.jpeg_sentinel import (
         header_length,
         reduced_sentinel_intact,
         sentinel_intact,

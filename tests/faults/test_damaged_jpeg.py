@@ -19,10 +19,9 @@ import tifffile
 import tilewright as tw
 from tilewright.errors import DamagedSlideError
 from tilewright.run.cohort import run_one
-from tilewright.slide.jpeg_check import (
-    entropy_bounds,
+from tilewright.slide.jpeg_check import entropy_bounds, jpeg_in_sync
+from tilewright.slide.jpeg_sentinel import (
     header_length,
-    jpeg_in_sync,
     reduced_sentinel_intact,
     sentinel_intact,
     sentinel_plan,

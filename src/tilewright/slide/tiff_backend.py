@@ -55,7 +55,7 @@ class _Level:
         self.page_index = index
         self.is_jpeg = int(page.compression) == 7  # new-style JPEG (TIFF Technical Note 2)
         self.jpeg = _jpeg_args(page)  # (colorspace, outcolorspace) for the direct JPEG path, or None
-        self.sentinels = {}  # JPEG header bytes -> SentinelPlan or None (see jpeg_check)
+        self.sentinels = {}  # JPEG header bytes -> SentinelPlan or None (see jpeg_sentinel)
 
 
 def _jpeg_args(page):
@@ -268,72 +268,48 @@ class TiffBackend:
             import imagecodecs
 
             key = (lv.tile_h, lv.tile_w)
-            buf = getattr(self._scratch, "tiles", {}).get(key)
-            if buf is None:
-                buf = _scratch_tile(key)
-                self._scratch.tiles = {**getattr(self._scratch, "tiles", {}), key: buf}
-            return imagecodecs.jpeg_decode(data, tables=lv.jpegtables, colorspace=lv.jpeg[0],
-                                           outcolorspace=lv.jpeg[1], shape=key, bitspersample=8, out=buf)
+            return imagecodecs.jpeg_decode(data, tables=lv.jpegtables, colorspace=lv.jpeg[0], outcolorspace=lv.jpeg[1],
+                                           shape=key, bitspersample=8, out=self._scratch_tile(key))
         seg = lv.decode(data, index, jpegtables=lv.jpegtables)[0]
         return None if seg is None else seg.reshape(seg.shape[-3:])
 
     def _decode_verified(self, lv: _Level, data, index: int):
-        """One JPEG tile and whether its entropy-coded stream is intact (see jpeg_check).
+        """One JPEG tile and whether its entropy-coded stream is intact (see jpeg_sentinel).
 
-        Without vertical chroma subsampling the pixels come from the single decode of the
-        sentinel-extended stream; with it (4:2:0) a plain decode gives the pixels and a
-        1/8-scale grey decode of the extended stream checks it. A failed sentinel is settled
-        by the probe check, which is also used where no sentinel can be built.
+        Without vertical chroma subsampling the pixels come from the one decode of the
+        sentinel-extended stream; with it, from a plain decode, the extension being checked at
+        1/8 scale. A failed sentinel is settled by the probe check (jpeg_check), which also
+        serves streams that get no sentinel.
         """
-        from tilewright.slide.jpeg_check import (
-            header_length,
-            reduced_sentinel_intact,
-            sentinel_plan,
-            sentinel_stream,
-        )
+        from tilewright.slide import jpeg_sentinel as js
 
-        plan = None
-        data = bytes(data)  # a memoryview into a row read; the stream helpers search bytes
-        start = header_length(data) if lv.jpeg is not None else None
+        data, plan = bytes(data), None  # a memoryview into a row read: the helpers search bytes
+        start = js.header_length(data) if lv.jpeg is not None else None
         if start is not None:
             header = data[:start]
-            try:
-                plan = lv.sentinels[header]
-            except KeyError:
-                plan = lv.sentinels[header] = sentinel_plan(header, lv.jpegtables)
-        ext = None if plan is None or plan.height != lv.tile_h or plan.width != lv.tile_w \
-            else sentinel_stream(data, plan)
-        if ext is not None:
-            if not plan.vertical:
-                seg = self._decode_extended(lv, ext, plan)
-                if seg is not None:
-                    return seg, True
-            else:
-                seg = self._decode(lv, data, index)
-                if reduced_sentinel_intact(ext, lv.jpegtables, plan):
-                    return seg, True
+            plan = lv.sentinels.get(header, False)
+            if plan is False:
+                plan = lv.sentinels[header] = js.sentinel_plan(header, lv.jpegtables)
+        fits = plan is not None and (plan.height, plan.width) == (lv.tile_h, lv.tile_w)
+        ext = js.sentinel_stream(data, plan) if fits else None
+        if ext is not None and not plan.vertical:
+            seg = js.decode_with_sentinel(ext, plan, self._scratch_tile((plan.ext_height, lv.tile_w)),
+                                          tables=lv.jpegtables, colorspace=lv.jpeg[0], outcolorspace=lv.jpeg[1])
+            if seg is not None:
+                return seg, True
         seg = self._decode(lv, data, index)
+        if ext is not None and plan.vertical and js.reduced_sentinel_intact(ext, lv.jpegtables, plan):
+            return seg, True
         return seg, seg is None or _jpeg_intact(lv, index, data, seg)
 
-    def _decode_extended(self, lv: _Level, ext: bytes, plan):
-        """Decode a sentinel-extended tile; the real rows if its sentinel is intact, else None."""
-        import imagecodecs
-
-        from tilewright.slide.jpeg_check import sentinel_intact
-
-        key = (plan.ext_height, lv.tile_w)
-        buf = getattr(self._scratch, "tiles", {}).get(key)
+    def _scratch_tile(self, key) -> np.ndarray:
+        """This thread's (h, w, 3) decode buffer of that size (see :func:`_offset_tile_buffer`)."""
+        tiles = getattr(self._scratch, "tiles", {})
+        buf = tiles.get(key)
         if buf is None:
-            buf = _scratch_tile(key)
-            self._scratch.tiles = {**getattr(self._scratch, "tiles", {}), key: buf}
-        try:
-            out = imagecodecs.jpeg_decode(ext, tables=lv.jpegtables, colorspace=lv.jpeg[0],
-                                          outcolorspace=lv.jpeg[1], shape=key, bitspersample=8, out=buf)
-        except Exception:  # noqa: BLE001 - settled by the probe check on the stored stream
-            return None
-        if not sentinel_intact(out[plan.real_rows:], 8, plan.grey_step):
-            return None
-        return out[:plan.height]
+            buf = _offset_tile_buffer(key)
+            self._scratch.tiles = {**tiles, key: buf}
+        return buf
 
     def _direct_jpeg_agrees(self, lv: _Level) -> bool:
         """Whether the direct JPEG path decodes the level's first stored tile as tifffile does."""
@@ -377,7 +353,7 @@ class TiffBackend:
             os.close(fd)
 
 
-def _scratch_tile(shape) -> np.ndarray:
+def _offset_tile_buffer(shape) -> np.ndarray:
     """An empty (h, w, 3) uint8 tile buffer whose start is 16 bytes off a 32-byte boundary.
 
     libjpeg-turbo's SIMD colour conversion writes 32-byte-aligned output with non-temporal
