@@ -4,8 +4,9 @@ Policy (see RELIABILITY.md): the slide fails; the reason names the damaged tile 
 column, pixel box) and the region being read; no store is written. JPEG has no checksum and the
 decoders we use (imagecodecs, like Pillow) return garbage pixels without an error for most byte
 flips, so the tiff backend checks every JPEG tile's entropy-coded stream for loss of sync
-(tilewright.slide.jpeg_check). Reference verdict: OpenSlide, which turns libjpeg's "corrupt
-data" warnings into errors.
+(tilewright.slide.jpeg_check), by default: a sentinel MCU row decoded with the tile, confirmed by
+the two probe decodes when it fails. Reference verdicts: OpenSlide, which turns libjpeg's
+"corrupt data" warnings into errors, and the probe check itself.
 """
 
 from __future__ import annotations
@@ -19,6 +20,13 @@ import tilewright as tw
 from tilewright.errors import DamagedSlideError
 from tilewright.run.cohort import run_one
 from tilewright.slide.jpeg_check import entropy_bounds, jpeg_in_sync
+from tilewright.slide.jpeg_sentinel import (
+    header_length,
+    reduced_sentinel_intact,
+    sentinel_intact,
+    sentinel_plan,
+    sentinel_stream,
+)
 
 pytestmark = pytest.mark.timeout(120)
 
@@ -72,7 +80,7 @@ def _openslide_refuses(path, level, index, gw, th):
 
 def test_flipped_bytes_fail_the_slide_and_name_the_tile(slide, tmp_path, fast_config):
     good = slide("good.tif")
-    cfg = fast_config.replace(mpp=0.5, verify_jpeg=True)
+    cfg = fast_config.replace(mpp=0.5)  # the default configuration checks JPEG tiles
     with tw.open_wsi(good) as s:
         level = s.at_mpp(cfg.mpp).source_level
     idx = _busiest_tile(good, level)
@@ -93,19 +101,19 @@ def test_flipped_bytes_fail_the_slide_and_name_the_tile(slide, tmp_path, fast_co
         pytest.fail("no flip position broke the stream")
     # ground truth: the damaged tile decodes "successfully" (no error) to garbage
     assert np.abs(dec.astype(int) - truth[box]).max() > 50
-    # the direct reader refuses the tile, naming level, row and column
-    with tw.open_wsi(bad, backend="tiff", verify=True) as s:
+    # the direct reader refuses the tile by default, naming level, row and column
+    with tw.open_wsi(bad, backend="tiff") as s:
         lv = s.levels[level]
         with pytest.raises(DamagedSlideError) as e:
             s.read_level(level, 0, 0, lv.height, lv.width)
-    # without verification (the fast default) the garbage decodes like the decoders return it
-    with tw.open_wsi(bad, backend="tiff") as s:
+    # with the check switched off the garbage decodes like the decoders return it
+    with tw.open_wsi(bad, backend="tiff", verify=False) as s:
         assert np.array_equal(s.read_level(level, r * th, c * th, th, th), dec[..., :3])
     assert f"tile ({r}, {c}) of level {level}" in str(e.value)
     assert f"y={r * th}-{(r + 1) * th}" in str(e.value)
     assert str(bad) in str(e.value)
     # the same read of the good file works and equals tifffile's decode (reference)
-    with tw.open_wsi(good, backend="tiff", verify=True) as s:
+    with tw.open_wsi(good, backend="tiff") as s:
         lv = s.levels[level]
         assert np.array_equal(s.read_level(level, 0, 0, lv.height, lv.width), truth)
     # a cohort run records the slide as failed with the tile named and writes no store
@@ -139,7 +147,7 @@ def test_detection_agrees_with_openslide(slide, tmp_path):
         r, c = divmod(idx, gw)
         box = (slice(r * th, (r + 1) * th), slice(c * th, (c + 1) * th))
         ref_refuses = _openslide_refuses(bad, level, idx, gw, th)
-        with tw.open_wsi(bad, backend="tiff", verify=True) as s:
+        with tw.open_wsi(bad, backend="tiff") as s:  # default: sentinel check, probes confirm
             lv = s.levels[level]
             y0, x0 = r * th, c * th
             h, w = min(th, lv.height - y0), min(th, lv.width - x0)
@@ -161,12 +169,131 @@ def test_detection_agrees_with_openslide(slide, tmp_path):
     assert outcomes["both"] >= 10, outcomes  # the damage model does break streams
 
 
-@pytest.mark.parametrize("layout", ["ifd", "svs", "ome"])
-def test_intact_jpeg_slides_never_flagged(slide, layout):
-    """No false alarm: every tile of every level of intact JPEG slides reads, equal to tifffile."""
-    path = slide(f"ok_{layout}.tif", layout=layout, seed=7)
-    with tw.open_wsi(path, backend="tiff", verify=True) as s, tifffile.TiffFile(path) as tf:
+def _noise(seed=5):
+    """Strong independent noise in every channel: chroma full of high frequencies, so the last
+    block of a tile often does not end with an end-of-block code."""
+    rng = np.random.default_rng(seed)
+    ramp = np.linspace(60, 230, 640)[None, :, None] + np.linspace(0, 20, 3)[None, None, :]
+    return np.clip(ramp + rng.normal(0, 25, (512, 640, 3)), 0, 255).astype(np.uint8)
+
+
+def _tifffile_slide(path, img, **kw):
+    """A 2-level JPEG TIFF of ``img`` written by tifffile directly (other colour layouts)."""
+    with tifffile.TiffWriter(path) as tw_:
+        for k, im in enumerate((img, img[::2, ::2])):
+            tw_.write(im, tile=(256, 256), photometric="rgb", compression="jpeg",
+                      resolution=(40000.0 / (k + 1), 40000.0 / (k + 1)), resolutionunit="CENTIMETER",
+                      subfiletype=1 if k else 0, **kw)
+    return path
+
+
+@pytest.mark.parametrize("layout", ["ifd", "svs", "ome", "ycbcr444", "ycbcr422", "rgb"])
+def test_intact_jpeg_slides_never_flagged(slide, tmp_path, layout, monkeypatch):
+    """No false alarm: every tile of every level of intact JPEG slides reads, equal to tifffile,
+    and the sentinel alone accepts every tile (the probe fallback is never needed)."""
+    if layout in ("ifd", "svs", "ome"):  # the demo writer: YCbCr 4:2:0
+        path = slide(f"ok_{layout}.tif", layout=layout, seed=7)
+    else:  # the demo's pixels stored in other JPEG colour layouts
+        kw = {"ycbcr444": {"subsampling": (1, 1)}, "ycbcr422": {"subsampling": (2, 1)},
+              "rgb": {"compressionargs": {"level": 90, "outcolorspace": "rgb"}}}[layout]
+        with tifffile.TiffFile(slide("demo.tif", seed=7)) as tf:
+            pixels = tf.series[0].levels[0].asarray()
+        path = _tifffile_slide(tmp_path / f"ok_{layout}.tif", pixels, **kw)
+
+    def no_fallback(*args):
+        raise AssertionError("the sentinel rejected an intact tile")
+
+    monkeypatch.setattr("tilewright.slide.tiff_backend._jpeg_intact", no_fallback)
+    with tw.open_wsi(path, backend="tiff", mpp=0.25) as s, tifffile.TiffFile(path) as tf:
         for i, lv in enumerate(s.levels):
             got = s.read_level(i, 0, 0, lv.height, lv.width)
-            ref = tf.series[0].levels[i].asarray()  # reference decoder: tifffile
-            assert np.array_equal(got, ref[..., :3])
+            ref = tf.series[0].levels[i].asarray() if len(tf.series[0].levels) > 1 else tf.pages[i].asarray()
+            assert np.array_equal(got, ref[..., :3])  # reference decoder: tifffile
+
+
+@pytest.mark.parametrize("subsampling", [(2, 2), (1, 1)])
+def test_sentinel_agrees_with_probes(slide, tmp_path, subsampling):
+    """Seeded single-byte damage in the tiles of a slide: whenever the probe check (the reference,
+    two extra decodes) finds the stream out of sync, the sentinel fails too; an intact stream's
+    sentinel always passes (ground truth: the undamaged tile)."""
+    with tifffile.TiffFile(slide("demo.tif", seed=9)) as tf:
+        pixels = tf.series[0].levels[0].asarray()
+    path = _tifffile_slide(tmp_path / "s.tif", pixels, subsampling=subsampling)
+    with tifffile.TiffFile(path) as tf:
+        page = tf.pages[0]
+        tiles = [tf.filehandle.read_segments([o], [n]).__next__()[0]
+                 for o, n in zip(page.dataoffsets, page.databytecounts)]
+    decode = imagecodecs.jpeg8_decode
+    rng = np.random.default_rng(11)
+    counts = {"both": 0, "sentinel_only": 0, "neither": 0}
+    for trial in range(150):
+        raw = tiles[trial % len(tiles)]
+        start, end = entropy_bounds(raw)
+        plan = sentinel_plan(raw[:header_length(raw)])
+        assert plan is not None and plan.vertical == (subsampling == (2, 2))
+        if trial < len(tiles):  # intact tiles: the sentinel passes
+            assert _sentinel_ok(sentinel_stream(raw, plan), plan, decode)
+        data = bytearray(raw)
+        k = start + int(rng.integers(end - start))
+        data[k] ^= [0xFF, 1 << int(rng.integers(8)), int(rng.integers(1, 255))][trial % 3]
+        data = bytes(data)
+        try:
+            plain = decode(data)
+        except Exception:  # noqa: BLE001 - an error is a refusal by the decoder itself
+            continue
+        probes_ok = jpeg_in_sync(data, plain, decode)
+        ext = sentinel_stream(data, plan)
+        ours_ok = ext is not None and _sentinel_ok(ext, plan, decode)
+        if not probes_ok:
+            assert not ours_ok, f"trial {trial}: the probes find a desync the sentinel passed"
+        counts["both" if not ours_ok and not probes_ok else "sentinel_only" if not ours_ok else "neither"] += 1
+    assert counts["both"] >= 20, counts  # the damage model does break streams
+
+
+def _sentinel_ok(ext, plan, decode):
+    if plan.vertical:
+        return reduced_sentinel_intact(ext, None, plan)
+    try:
+        out = decode(ext)
+    except Exception:  # noqa: BLE001
+        return False
+    return sentinel_intact(out[plan.real_rows:], 8, plan.grey_step)
+
+
+def test_noisy_tiles_settled_by_probes(tmp_path, monkeypatch):
+    """Tiles whose last block ends with a coefficient instead of an end-of-block code (strong
+    chroma noise, constructed): the sentinel cannot place its bits and fails; the probe check
+    then accepts the intact tiles and the read equals tifffile's decode (reference)."""
+    import tilewright.slide.tiff_backend as backend
+
+    path = _tifffile_slide(tmp_path / "noisy.tif", _noise(), subsampling=(1, 1))
+    settled = []
+    probe = backend._jpeg_intact
+    monkeypatch.setattr(backend, "_jpeg_intact", lambda *a: settled.append(1) or probe(*a))
+    with tw.open_wsi(path, backend="tiff", mpp=0.25) as s, tifffile.TiffFile(path) as tf:
+        got = s.read_level(0, 0, 0, s.levels[0].height, s.levels[0].width)
+        assert np.array_equal(got, tf.pages[0].asarray())  # reference decoder: tifffile
+    assert settled  # the fallback did run
+
+
+def test_sentinel_not_planned_for_restart_intervals(slide):
+    """Restart markers resynchronize the decoder, which would hide a desync from the sentinel:
+    such streams get no plan (the probe check serves them). Constructed: a DRI segment added."""
+    path = slide("dri.tif")
+    with tifffile.TiffFile(path) as tf:
+        page = tf.series[0].levels[0].keyframe
+        raw = next(tf.filehandle.read_segments([page.dataoffsets[0]], [page.databytecounts[0]]))[0]
+    n = header_length(raw)
+    assert sentinel_plan(raw[:n]) is not None
+    with_dri = raw[:2] + b"\xff\xdd\x00\x04\x00\x10" + raw[2:n]
+    assert sentinel_plan(with_dri) is None
+
+
+def test_cli_switch(tmp_path):
+    """``tile-out`` checks by default; ``--no-verify-jpeg`` switches the check off."""
+    from tilewright.cli.tile_out import build_parser, config_from_args
+
+    parser = build_parser()
+    assert config_from_args(parser.parse_args(["a", "b"])).verify_jpeg is True
+    assert config_from_args(parser.parse_args(["a", "b", "--no-verify-jpeg"])).verify_jpeg is False
+    assert tw.TilingConfig().verify_jpeg is True

@@ -40,8 +40,9 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--seed", type=int, help="seed for tile sampling (default 0)")
     g.add_argument("--mask-mpp", type=float, help="tissue-mask resolution in µm/px (default 8)")
     g.add_argument("--min-sharpness", type=float, help="drop tiles blurrier than this variance of the Laplacian")
-    g.add_argument("--verify-jpeg", action="store_true", default=None,
-                   help="check every JPEG source tile for silent damage (slower); damaged slides fail")
+    g.add_argument("--verify-jpeg", action=argparse.BooleanOptionalAction, default=None,
+                   help="check every JPEG source tile for damage decoders pass silently; a damaged "
+                        "slide fails (default on; --no-verify-jpeg decodes faster and keeps garbage)")
     g = p.add_argument_group("stain")
     g.add_argument("--normalize", choices=["macenko", "reinhard", "none"],
                    help="stain normalization (default none)")

@@ -69,8 +69,9 @@ class TilingConfig:
     qc_overlay : bool
         Write a QC picture (tissue outline, ink, kept tiles) to ``qc/<slide_id>.png`` beside the store.
     verify_jpeg : bool
-        Check every decoded JPEG source tile for damage decoders pass silently (slower reads);
-        a damaged slide then fails with the tile named instead of storing garbage pixels.
+        Check every decoded JPEG source tile for damage decoders pass silently (on by default;
+        see :func:`tilewright.open_wsi`): a damaged slide fails with the tile named instead of
+        storing garbage pixels. ``False`` skips the check (faster JPEG decoding, garbage kept).
     """
 
     mpp: float = 0.5
@@ -96,7 +97,7 @@ class TilingConfig:
     per_tile_stain: bool = False
     threads: int = 2
     qc_overlay: bool = True
-    verify_jpeg: bool = False
+    verify_jpeg: bool = True
     extra: dict = field(default_factory=dict, repr=False)
 
     def __post_init__(self):

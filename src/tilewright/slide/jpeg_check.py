@@ -6,7 +6,12 @@ either runs out of data before the last block ("premature end of data segment": 
 the tile is filled with grey) or finishes the last block with bytes to spare ("extraneous
 bytes before marker"). Both return an image of garbage without an error through imagecodecs
 (and Pillow). OpenSlide turns these warnings into errors; this module gives the direct TIFF
-path the same strictness without a second JPEG library, with two probe decodes:
+path the same strictness without a second JPEG library.
+
+The check used by default is cheaper: a sentinel MCU row decoded with the tile (see
+:mod:`tilewright.slide.jpeg_sentinel`); when the sentinel fails, the probe check below settles.
+
+The probe check, the reference (about 3x the decoding cost), uses two probe decodes:
 
 - *used to the end*: inverting every bit of the last bytes of the entropy-coded data must
   change the decoded pixels (an in-sync decoder needs every byte; a decoder that finished
@@ -35,7 +40,8 @@ from collections.abc import Callable
 
 import numpy as np
 
-__all__ = ["entropy_bounds", "jpeg_in_sync"]
+__all__ = ["SentinelPlan", "entropy_bounds", "jpeg_in_sync", "header_length", "reduced_sentinel_intact", "sentinel_intact",
+           "sentinel_plan",            "sentinel_stream"]
 
 _PROBE_TAIL = 2          # bytes of entropy data inverted by the "used to the end" probe
 _PROBE_PAD = b"\x55\xaa" * 8  # appended by the "not past the end" probe (never 0xFF)
@@ -80,7 +86,7 @@ def entropy_bounds(data: bytes) -> tuple[int, int] | None:
 
 
 def jpeg_in_sync(data: bytes, decoded: np.ndarray, decode: Callable[[bytes], np.ndarray]) -> bool:
-    """Whether the Huffman decoder consumed exactly the entropy-coded data of ``data``.
+    """Whether the Huffman decoder consumed exactly the entropy-coded data of ``data`` (probes).
 
     Parameters
     ----------

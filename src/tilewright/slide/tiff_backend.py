@@ -41,7 +41,7 @@ class _Level:
     """One pyramid level: a TIFF page and what is needed to decode its segments."""
 
     __slots__ = ("height", "width", "tile_h", "tile_w", "grid_w", "offsets", "counts",
-                 "decode", "jpegtables", "page_index", "is_jpeg", "jpeg")
+                 "decode", "jpegtables", "page_index", "is_jpeg", "jpeg", "sentinels")
 
     def __init__(self, page, index):
         self.height, self.width = int(page.imagelength), int(page.imagewidth)
@@ -55,6 +55,7 @@ class _Level:
         self.page_index = index
         self.is_jpeg = int(page.compression) == 7  # new-style JPEG (TIFF Technical Note 2)
         self.jpeg = _jpeg_args(page)  # (colorspace, outcolorspace) for the direct JPEG path, or None
+        self.sentinels = {}  # JPEG header bytes -> SentinelPlan or None (see jpeg_sentinel)
 
 
 def _jpeg_args(page):
@@ -86,6 +87,9 @@ class TiffBackend:
     ----------
     path : str
         The slide file (already sniffed as TIFF).
+    verify_jpeg : bool
+        Check every decoded JPEG tile for a desynchronized entropy-coded stream (see
+        :mod:`tilewright.slide.jpeg_check`); a damaged tile raises DamagedSlideError.
 
     Raises
     ------
@@ -97,7 +101,7 @@ class TiffBackend:
 
     name = "tiff"
 
-    def __init__(self, path: str, *, verify_jpeg: bool = False):
+    def __init__(self, path: str, *, verify_jpeg: bool = True):
         import tifffile
 
         self.path = path
@@ -237,14 +241,16 @@ class TiffBackend:
                     dst[...] = 255  # sparse file: missing tile is background
                     continue
                 try:
-                    seg = self._decode(lv, data, first + k)
+                    if self.verify_jpeg and lv.is_jpeg:
+                        seg, intact = self._decode_verified(lv, data, first + k)
+                    else:
+                        seg, intact = self._decode(lv, data, first + k), True
                 except Exception as exc:
                     raise DamagedSlideError(
                         f"tile ({r}, {c}) of level {level} cannot be decoded while reading "
                         f"region y={y}, x={x}, h={h}, w={w} ({type(exc).__name__}: {exc}); "
                         "the file is damaged", self.path) from exc
-                if (self.verify_jpeg and lv.is_jpeg and seg is not None
-                        and not _jpeg_intact(lv, first + k, data, seg)):
+                if not intact:
                     ty0, tx0 = r * th, c * tw
                     raise DamagedSlideError(
                         f"tile ({r}, {c}) of level {level} (pixels y={ty0}-{ty0 + th}, "
@@ -262,14 +268,48 @@ class TiffBackend:
             import imagecodecs
 
             key = (lv.tile_h, lv.tile_w)
-            buf = getattr(self._scratch, "tiles", {}).get(key)
-            if buf is None:
-                buf = np.empty(key + (3,), np.uint8)
-                self._scratch.tiles = {**getattr(self._scratch, "tiles", {}), key: buf}
-            return imagecodecs.jpeg_decode(data, tables=lv.jpegtables, colorspace=lv.jpeg[0],
-                                           outcolorspace=lv.jpeg[1], shape=key, bitspersample=8, out=buf)
+            return imagecodecs.jpeg_decode(data, tables=lv.jpegtables, colorspace=lv.jpeg[0], outcolorspace=lv.jpeg[1],
+                                           shape=key, bitspersample=8, out=self._scratch_tile(key))
         seg = lv.decode(data, index, jpegtables=lv.jpegtables)[0]
         return None if seg is None else seg.reshape(seg.shape[-3:])
+
+    def _decode_verified(self, lv: _Level, data, index: int):
+        """One JPEG tile and whether its entropy-coded stream is intact (see jpeg_sentinel).
+
+        Without vertical chroma subsampling the pixels come from the one decode of the
+        sentinel-extended stream; with it, from a plain decode, the extension being checked at
+        1/8 scale. A failed sentinel is settled by the probe check (jpeg_check), which also
+        serves streams that get no sentinel.
+        """
+        from tilewright.slide import jpeg_sentinel as js
+
+        data, plan = bytes(data), None  # a memoryview into a row read: the helpers search bytes
+        start = js.header_length(data) if lv.jpeg is not None else None
+        if start is not None:
+            header = data[:start]
+            plan = lv.sentinels.get(header, False)
+            if plan is False:
+                plan = lv.sentinels[header] = js.sentinel_plan(header, lv.jpegtables)
+        fits = plan is not None and (plan.height, plan.width) == (lv.tile_h, lv.tile_w)
+        ext = js.sentinel_stream(data, plan) if fits else None
+        if ext is not None and not plan.vertical:
+            seg = js.decode_with_sentinel(ext, plan, self._scratch_tile((plan.ext_height, lv.tile_w)),
+                                          tables=lv.jpegtables, colorspace=lv.jpeg[0], outcolorspace=lv.jpeg[1])
+            if seg is not None:
+                return seg, True
+        seg = self._decode(lv, data, index)
+        if ext is not None and plan.vertical and js.reduced_sentinel_intact(ext, lv.jpegtables, plan):
+            return seg, True
+        return seg, seg is None or _jpeg_intact(lv, index, data, seg)
+
+    def _scratch_tile(self, key) -> np.ndarray:
+        """This thread's (h, w, 3) decode buffer of that size (see :func:`_offset_tile_buffer`)."""
+        tiles = getattr(self._scratch, "tiles", {})
+        buf = tiles.get(key)
+        if buf is None:
+            buf = _offset_tile_buffer(key)
+            self._scratch.tiles = {**tiles, key: buf}
+        return buf
 
     def _direct_jpeg_agrees(self, lv: _Level) -> bool:
         """Whether the direct JPEG path decodes the level's first stored tile as tifffile does."""
@@ -311,6 +351,20 @@ class TiffBackend:
         fd, self._fd = self._fd, None
         if fd is not None:
             os.close(fd)
+
+
+def _offset_tile_buffer(shape) -> np.ndarray:
+    """An empty (h, w, 3) uint8 tile buffer whose start is 16 bytes off a 32-byte boundary.
+
+    libjpeg-turbo's SIMD colour conversion writes 32-byte-aligned output with non-temporal
+    stores, which bypass the cache: decoding a tile into an aligned buffer measured about 30 %
+    slower than into one 16 bytes off alignment (``benchmarks/jpeg_verify.py`` decodes into
+    these buffers on both paths, so its comparison does not depend on where malloc put them).
+    """
+    n = shape[0] * shape[1] * 3
+    raw = np.empty(n + 48, np.uint8)
+    start = (16 - raw.ctypes.data) % 32
+    return raw[start:start + n].reshape(shape[0], shape[1], 3)
 
 
 def _jpeg_intact(lv: _Level, index: int, data, seg) -> bool:
