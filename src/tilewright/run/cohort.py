@@ -61,7 +61,7 @@ def tile_slide_row(path, final, cfg, slide_id, mpp, normalizer) -> SlideResult:
 
 
 #: Settings that do not change what a store contains.
-_RUN_ONLY = ("threads",)
+_RUN_ONLY = ("threads", "verify_jpeg", "qc_overlay")
 
 
 def _complete_row(final: Path, path: str, slide_id: str, cfg: TilingConfig) -> dict | None:

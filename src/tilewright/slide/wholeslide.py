@@ -60,7 +60,7 @@ class WholeSlide:
     """
 
     def __init__(self, path: str, reader, resolution: Resolution, *,
-                 mpp_override: float | None = None, requested_backend: str = "auto", verify: bool = False):
+                 mpp_override: float | None = None, requested_backend: str = "auto", verify: bool = True):
         self.path = path
         self._reader = reader
         self.backend = reader.name
