@@ -32,7 +32,6 @@ from __future__ import annotations
 import json
 import math
 import numbers
-import os
 import warnings
 from dataclasses import dataclass, field
 
@@ -97,17 +96,10 @@ def read_geojson(source, *, class_property=None, classes=None, default_class=Non
     ----------
     .. [1] H. Butler et al., "The GeoJSON Format", IETF RFC 7946, 2016.
     """
-    path = None
-    data = source
-    if isinstance(source, (str, os.PathLike)):
-        path = os.fspath(source)
-        data = _load_json(path)
-    try:
-        return _parse(data, path, class_property, classes, default_class, slide_shape)
-    except RegionError as exc:
-        if exc.path is None and path is not None:
-            raise RegionError(exc.reason, path) from None
-        raise
+    from tilewright.regions.source import parse_source
+
+    return parse_source(source, _load_json,
+                        lambda data, path: _parse(data, path, class_property, classes, default_class, slide_shape))
 
 
 def _parse(data, path, class_property, classes, default_class, slide_shape):

@@ -113,17 +113,9 @@ def read_tile_table(table, tile=None, mpp=None, *, classes=None, soft=False) -> 
         Unreadable file, missing columns, negative or non-integer corners, bad probabilities,
         classes not among ``classes``.
     """
-    path = None
-    frame = table
-    if isinstance(table, (str, os.PathLike)):
-        path = os.fspath(table)
-        frame = read_table_file(path)
-    try:
-        return _check(frame, tile, mpp, classes, soft, path)
-    except RegionError as exc:
-        if exc.path is None and path is not None:
-            raise RegionError(exc.reason, path) from None
-        raise
+    from tilewright.regions.source import parse_source
+
+    return parse_source(table, read_table_file, lambda frame, path: _check(frame, tile, mpp, classes, soft, path))
 
 
 def read_table_file(path):
