@@ -5,6 +5,7 @@ from __future__ import annotations
 import os
 import time
 from dataclasses import asdict, dataclass
+from types import SimpleNamespace
 from pathlib import Path
 
 import numpy as np
@@ -122,14 +123,14 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
     remove_partials(final)
     with open_wsi(path, mpp=mpp, verify=config.verify_jpeg) as slide:
         view = slide.at_mpp(config.mpp, tolerance=config.tolerance)
-        mask = tissue_mask(slide, mpp=config.mask_mpp, exclude_ink=config.exclude_ink,
-                           exclude_dark=config.exclude_dark)
+        thumbnail = slide.thumbnail(config.mask_mpp)  # read once: the mask, the glass and the store use it
+        mask = tissue_mask(SimpleNamespace(thumbnail=lambda mpp: thumbnail, path=slide.path), mpp=config.mask_mpp,
+                           exclude_ink=config.exclude_ink, exclude_dark=config.exclude_dark)
         if config.keep:
             regions = _regions_for(regions, config, slide_id, slide.mpp, path)
         plan = plan_tiles(view, mask, tile=config.tile, stride=config.stride, min_tissue=config.min_tissue,
                           regions=regions if config.keep else None, keep=config.keep,
                           min_region=config.min_region, max_tiles=config.max_tiles, seed=config.seed)
-        thumbnail = slide.thumbnail(config.mask_mpp)
         bound = None
         if config.normalizer:
             bound = _bind_normalizer(view, plan, config, target, path, _glass(thumbnail, mask))
