@@ -36,6 +36,9 @@ def test_stored_tiles_equal_view_reads(slide40, tmp_path):
         assert view.scale == pytest.approx(2.0, rel=1e-6)
         assert np.abs(store.yx_level0 - store.yx * view.scale).max() <= 1
     a = store.attrs
+    from tilewright.store.layout import REQUIRED_ATTRS
+
+    assert set(REQUIRED_ATTRS) <= set(a)  # the documented provenance is all there
     assert a["complete"] and a["mpp"] == 0.5 and a["mpp_source"] == pytest.approx(0.25)
     assert tw.TilingConfig.from_dict(a["config"]) == cfg  # attributes round-trip the config
     assert a["source"]["size"] == slide40.stat().st_size and a["source"]["digest"].startswith("sha256")

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import json
-import logging
 import os
 import time
 from pathlib import Path
@@ -15,7 +14,6 @@ from tilewright.store.layout import slide_ids, store_path
 
 __all__ = ["tile_cohort", "run_one", "STAIN_TARGET_FILE"]
 
-log = logging.getLogger("tilewright")
 
 STAIN_TARGET_FILE = "stain_target.json"
 

@@ -13,7 +13,6 @@ import logging
 
 __all__ = ["execute"]
 
-log = logging.getLogger("tilewright")
 
 
 def execute(fn, args_list, *, scheduler=None, workers=None):
