@@ -84,3 +84,25 @@ def test_store_pickles_for_workers(tmp_path):
     _write(tmp_path / "s.zarr", tiles)
     s2 = pickle.loads(pickle.dumps(open_store(tmp_path / "s.zarr")))
     np.testing.assert_array_equal(s2[1], tiles[1])
+
+
+def test_maps_written_early_in_bands_and_encoded_appends(tmp_path):
+    # ground truth: a thumbnail and masks whose sides are not multiples of the 512 px band
+    rng = np.random.default_rng(3)
+    thumb = rng.integers(0, 256, (700, 1100, 3), dtype=np.uint8)
+    mask = rng.random((700, 1100)) > 0.5
+    ink = rng.random((700, 1100)) > 0.9
+    tiles = _tiles(6)
+    with StoreWriter(tmp_path / "m.zarr", 6, 32, shard_tiles=4) as w:
+        w.write_maps(thumb, mask, {"ink": ink})  # before any tile, as tile_slide does
+        w.append(None, np.zeros((6, 2)), np.zeros((6, 2)), np.ones(6), np.ones(6), encoded=w.encode(tiles))
+        with pytest.raises(ValueError, match="tiles or their encoded"):
+            w.append(None, np.zeros((1, 2)), np.zeros((1, 2)), [1.0], [1.0])
+        w.commit({"slide_id": "m"})
+    store = open_store(tmp_path / "m.zarr")
+    np.testing.assert_array_equal(store.thumbnail, thumb)
+    np.testing.assert_array_equal(store.mask, mask)
+    np.testing.assert_array_equal(store[...], tiles)
+    g = zarr.open_group(str(tmp_path / "m.zarr"), mode="r")
+    np.testing.assert_array_equal(g["ink"][...], ink)
+    assert g["thumbnail"].chunks == (512, 512, 3)  # banded: zarr never holds the whole picture at once

@@ -14,7 +14,6 @@ import logging
 __all__ = ["execute"]
 
 
-
 def execute(fn, args_list, *, scheduler=None, workers=None):
     """Yield ``(index, fn(*args))`` for every ``args`` in ``args_list``, in completion order."""
     args_list = list(args_list)
@@ -35,9 +34,11 @@ def execute(fn, args_list, *, scheduler=None, workers=None):
         import dask
 
         # dask's default worker environment trims malloc aggressively (MALLOC_TRIM_THRESHOLD_=64 KiB),
-        # which costs ~20% in page faults on block-sized buffers; large thresholds keep memory flat
-        # here because the pipeline reuses its buffers.
-        env = {"MALLOC_TRIM_THRESHOLD_": str(64 << 20), "MALLOC_MMAP_THRESHOLD_": str(32 << 20)}
+        # which costs ~20% in page faults on block-sized buffers; tile_slide's thresholds instead
+        # (see tilewright.run.allocator) keep the heap flat at full speed.
+        from tilewright.run.allocator import ENV
+
+        env = {**dask.config.get("distributed.nanny.pre-spawn-environ", {}), **ENV}  # keeps OMP_NUM_THREADS=1 etc.
         with dask.config.set({"distributed.nanny.pre-spawn-environ": env}):
             own_cluster = LocalCluster(n_workers=int(workers), threads_per_worker=1, processes=True,
                                        dashboard_address=None, silence_logs=logging.ERROR)

@@ -61,7 +61,8 @@ def _tile_arrays(view, plan, config, bound, writer, progress):
         keep = None if min_sharp is None else np.flatnonzero(sharp >= min_sharp)
         if keep is not None and len(keep) < len(tiles):
             tiles, sharp = tiles[keep], sharp[keep]
-        return tiles, sharp, keep, writer.encode(tiles)
+        encoded = writer.encode(tiles)
+        return (None if encoded is not None else tiles), sharp, keep, encoded  # pixels freed once encoded
 
     for positions, (tiles, sharp, keep, encoded) in iter_tile_blocks(
             view, yx, config.tile, block=config.block, threads=config.threads, process=prepare):
@@ -109,11 +110,10 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
     SlideResult
         Raises on failure (a :class:`TilewrightError` for expected problems).
     """
+    from tilewright.run.allocator import release_free, steady_heap
     from tilewright.slide.open import open_wsi
-    from tilewright.tissue.mask import tissue_mask
-    from tilewright.tissue.plan import plan_tiles
-    import tilewright
 
+    steady_heap()  # memory that does not grow with the slide (see tilewright.run.allocator)
     config = config or TilingConfig()
     t0 = time.perf_counter()
     path = Path(path)
@@ -123,47 +123,70 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
     remove_partials(final)
     with open_wsi(path, mpp=mpp, verify=config.verify_jpeg) as slide:
         view = slide.at_mpp(config.mpp, tolerance=config.tolerance)
-        thumbnail = slide.thumbnail(config.mask_mpp)  # read once: the mask, the glass and the store use it
-        mask = tissue_mask(SimpleNamespace(thumbnail=lambda mpp: thumbnail, path=slide.path), mpp=config.mask_mpp,
-                           exclude_ink=config.exclude_ink, exclude_dark=config.exclude_dark)
-        if config.keep:
-            regions = _regions_for(regions, config, slide_id, slide.mpp, path)
-        plan = plan_tiles(view, mask, tile=config.tile, stride=config.stride, min_tissue=config.min_tissue,
-                          regions=regions if config.keep else None, keep=config.keep,
-                          min_region=config.min_region, max_tiles=config.max_tiles, seed=config.seed)
-        bound = None
-        if config.normalizer:
-            bound = _bind_normalizer(view, plan, config, target, path, _glass(thumbnail, mask))
-        attrs = {
-            "slide_id": slide_id,
-            "source": {"path": str(path.resolve()), "size": os.path.getsize(path),
-                       "digest": _digest(path), "backend": slide.backend},
-            "mpp": float(view.mpp), "mpp_source": float(slide.mpp), "objective": slide.objective,
-            "source_level": int(view.source_level), "scale": float(view.scale),
-            "dimensions": list(slide.dimensions), "shape": list(view.shape),
-            "tile": int(config.tile), "stride": int(config.step), "mask_mpp": float(config.mask_mpp),
-            "tissue_fraction": float(np.asarray(mask.array).mean()) if np.asarray(mask.array).size else 0.0,
-            "normalizer": None if bound is None else bound.to_dict(),
-            "regions": None if (regions is None or not config.keep) else _region_info(regions, config),
-            "tissue_mask": _jsonable(mask.to_dict()),
-            "plan": _jsonable(getattr(plan, "params", {})),
-            "order": "blocks of config.block target px, row-major; row-major inside a block",
-            "config": _jsonable(config.to_dict()),
-            "library_version": tilewright.__version__,
-        }
+        survey = _survey(slide, view, config, slide_id, path, regions, target)
+        plan, attrs = survey.plan, survey.attrs
         with StoreWriter(final, len(plan), config.tile, shard_tiles=config.shard_tiles,
                          compression=config.compression, with_region=attrs["regions"] is not None) as writer:
-            _tile_arrays(view, plan, config, bound, writer, progress)
-            mask_arr = np.asarray(mask.array, dtype=bool)
-            writer.commit(attrs, thumbnail[: mask_arr.shape[0], : mask_arr.shape[1]], mask_arr,
-                          overwrite=overwrite, extra={"ink": np.asarray(mask.ink, dtype=bool)})
+            # the slide-sized pictures go to disk before the tiles are read, and are freed
+            writer.write_maps(*survey.maps)
+            survey.maps = None
+            release_free()
+            _tile_arrays(view, plan, config, survey.bound, writer, progress)
+            writer.commit(attrs, overwrite=overwrite)
             n = writer.n
-        if config.qc_overlay:
-            _write_overlay(thumbnail, mask, plan, final.parent / "qc" / f"{slide_id}.png", slide_id)
+        if survey.png is not None:
+            _write_png(survey.png, final.parent / "qc" / f"{slide_id}.png", slide_id)
         return SlideResult(slide_id=slide_id, source=str(path), status="ok", n_tiles=int(n),
                            mpp_source=float(slide.mpp), objective=slide.objective,
                            source_level=int(view.source_level), seconds=round(time.perf_counter() - t0, 3),
                            store=str(final))
+
+
+def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNamespace:
+    """Everything decided at thumbnail resolution, before any tile is read.
+
+    Reads the thumbnail once (mask, glass colour, store pictures and QC picture share it), masks
+    tissue, plans tiles, binds the stain normalizer and draws the QC picture. Returns the plan,
+    the bound normalizer, the store attributes, the pictures the store keeps (``maps``) and the QC
+    PNG bytes; the thumbnail, the mask and its caches are left behind here, so memory while tiles
+    are read does not grow with the slide.
+    """
+    from tilewright.tissue.mask import tissue_mask
+    from tilewright.tissue.plan import plan_tiles
+    import tilewright
+
+    thumbnail = slide.thumbnail(config.mask_mpp)
+    mask = tissue_mask(SimpleNamespace(thumbnail=lambda mpp: thumbnail, path=slide.path), mpp=config.mask_mpp,
+                       exclude_ink=config.exclude_ink, exclude_dark=config.exclude_dark)
+    if config.keep:
+        regions = _regions_for(regions, config, slide_id, slide.mpp, path)
+    plan = plan_tiles(view, mask, tile=config.tile, stride=config.stride, min_tissue=config.min_tissue,
+                      regions=regions if config.keep else None, keep=config.keep,
+                      min_region=config.min_region, max_tiles=config.max_tiles, seed=config.seed)
+    bound = None
+    if config.normalizer:
+        bound = _bind_normalizer(view, plan, config, target, path, _glass(thumbnail, mask))
+    mask_arr = np.asarray(mask.array, dtype=bool)
+    attrs = {
+        "slide_id": slide_id,
+        "source": {"path": str(path.resolve()), "size": os.path.getsize(path),
+                   "digest": _digest(path), "backend": slide.backend},
+        "mpp": float(view.mpp), "mpp_source": float(slide.mpp), "objective": slide.objective,
+        "source_level": int(view.source_level), "scale": float(view.scale),
+        "dimensions": list(slide.dimensions), "shape": list(view.shape),
+        "tile": int(config.tile), "stride": int(config.step), "mask_mpp": float(config.mask_mpp),
+        "tissue_fraction": float(mask_arr.mean()) if mask_arr.size else 0.0,
+        "normalizer": None if bound is None else bound.to_dict(),
+        "regions": None if (regions is None or not config.keep) else _region_info(regions, config),
+        "tissue_mask": _jsonable(mask.to_dict()),
+        "plan": _jsonable(getattr(plan, "params", {})),
+        "order": "blocks of config.block target px, row-major; row-major inside a block",
+        "config": _jsonable(config.to_dict()),
+        "library_version": tilewright.__version__,
+    }
+    png = _overlay(thumbnail, mask, plan, slide_id) if config.qc_overlay else None
+    maps = (thumbnail[: mask_arr.shape[0], : mask_arr.shape[1]], mask_arr, {"ink": np.asarray(mask.ink, dtype=bool)})
+    return SimpleNamespace(plan=plan, bound=bound, attrs=attrs, maps=maps, png=png)
 
 
 def _glass(thumbnail, mask):
@@ -207,17 +230,33 @@ def _regions_for(regions, config, slide_id, level0_mpp, path):
     return regions.with_mpp(level0_mpp) if hasattr(regions, "with_mpp") else regions
 
 
-def _write_overlay(thumbnail, mask, plan, png, slide_id):
-    """QC picture beside the store; a failure here is logged, never fails the slide."""
-    import logging
-
-    from tilewright.tissue.overlay import render_overlay
+def _overlay(thumbnail, mask, plan, slide_id):
+    """QC picture PNG bytes, or None when drawing fails (logged; a picture never fails the slide)."""
+    from tilewright.tissue.overlay import overlay_png
 
     try:
-        png.parent.mkdir(parents=True, exist_ok=True)
-        render_overlay(thumbnail, mask, plan, png, mpp=mask.mpp, title=slide_id)
+        return overlay_png(thumbnail, mask, plan, mpp=mask.mpp, title=slide_id)
     except Exception as exc:  # noqa: BLE001 - a picture must not cost the tiles
-        logging.getLogger("tilewright").warning("%s: QC overlay not written (%s)", slide_id, exc)
+        _warn_png(slide_id, exc)
+        return None
+
+
+def _write_png(png: bytes, path: Path, slide_id: str) -> None:
+    """Write the QC picture beside the store (temporary name, then rename); failures are logged."""
+    tmp = path.with_name(path.name + ".part")
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        tmp.write_bytes(png)
+        os.replace(tmp, path)
+    except OSError as exc:
+        tmp.unlink(missing_ok=True)
+        _warn_png(slide_id, exc)
+
+
+def _warn_png(slide_id, exc):
+    import logging
+
+    logging.getLogger("tilewright").warning("%s: QC overlay not written (%s)", slide_id, exc)
 
 
 def _digest(path):

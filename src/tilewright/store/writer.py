@@ -26,6 +26,7 @@ from tilewright.store.shards import ShardEncoder
 __all__ = ["StoreWriter", "remove_partials", "compressor"]
 
 _PARTIAL = ".partial-"
+_MAP_CHUNK = 512  # chunk side of the slide-level pictures (thumbnail, masks)
 
 
 def compressor(name: str):
@@ -121,19 +122,22 @@ class StoreWriter:
 
         Parameters
         ----------
-        tiles : ndarray (k, T, T, 3) uint8
+        tiles : ndarray (k, T, T, 3) uint8, or None
+            The pixels; may be None when ``encoded`` is given (the caller need not keep them).
         yx, yx_level0 : array_like (k, 2)
         tissue, sharpness, region : array_like (k,)
         encoded : list, optional
             ``self.encode(tiles)``, when the caller compressed the tiles already.
         """
-        k = len(tiles)
+        if tiles is None and encoded is None:
+            raise ValueError("append needs the tiles or their encoded chunks")
+        k = len(tiles) if tiles is not None else len(encoded)
         if k == 0:
             return
         if self.n + k > self.tiles.shape[0]:
             raise StoreError(f"more tiles than planned ({self.n + k} > {self.tiles.shape[0]})", self.final)
         try:
-            self._write_tiles(np.asarray(tiles, dtype=np.uint8), encoded)
+            self._write_tiles(None if tiles is None else np.asarray(tiles, dtype=np.uint8), encoded)
         except OSError as exc:
             raise StoreError(f"writing tiles failed ({exc.strerror or exc}); check free space", self.final) from exc
         self._meta["yx"].append(np.asarray(yx, dtype=np.int64).reshape(k, 2))
@@ -149,7 +153,7 @@ class StoreWriter:
         if self._encoder is None:
             self.tiles[self.n:self.n + len(tiles)] = tiles
             return
-        if encoded is None or len(encoded) != len(tiles):
+        if encoded is None or (tiles is not None and len(encoded) != len(tiles)):
             encoded = self._encoder.encode_chunks(tiles)
         start = self.n - len(self._pending)  # first tile not yet on disk (a shard boundary)
         chunks = self._pending + list(encoded)
@@ -163,16 +167,42 @@ class StoreWriter:
             self._encoder.write_chunks((self.n - len(self._pending)) // self.shard, self._pending)
             self._pending = []
 
-    def _small(self, name, data, **kw) -> None:
+    def _small(self, name, data, *, band: int | None = None, **kw) -> None:
+        """Write ``data`` as one chunk, or (``band``) in chunks of ``band`` x ``band`` pixels
+        written one row of chunks at a time (bounds the copies zarr makes of a large picture)."""
         data = np.asarray(data)
-        arr = self.group.create_array(name, shape=data.shape, dtype=data.dtype,
-                                      chunks=tuple(max(1, d) for d in data.shape), **kw)
-        if data.size:
+        if band is None or data.ndim < 2:
+            chunks = tuple(max(1, d) for d in data.shape)
+        else:
+            chunks = (max(1, min(band, data.shape[0])), max(1, min(band, data.shape[1]))) + data.shape[2:]
+        arr = self.group.create_array(name, shape=data.shape, dtype=data.dtype, chunks=chunks, **kw)
+        if data.size == 0:
+            return
+        if data.ndim == 0:
             arr[...] = data
+            return
+        for r in range(0, data.shape[0], chunks[0]):
+            arr[r:r + chunks[0]] = data[r:r + chunks[0]]
 
-    def commit(self, attrs: dict, thumbnail: np.ndarray, mask: np.ndarray, *, overwrite: bool = True,
-               extra: dict | None = None) -> Path:
-        """Write coordinates and pictures (and ``extra`` small arrays), mark complete, rename into place."""
+    def write_maps(self, thumbnail: np.ndarray, mask: np.ndarray, extra: dict | None = None) -> None:
+        """Write the slide-level pictures now (``thumbnail``, ``mask`` and ``extra`` small arrays).
+
+        They go into the temporary store like everything else, so the caller can free them before
+        the tiles are read (their size grows with the slide; the tile pipeline's does not).
+        """
+        try:
+            self._small("thumbnail", np.asarray(thumbnail, dtype=np.uint8), band=_MAP_CHUNK)
+            self._small("mask", np.asarray(mask, dtype=bool), band=_MAP_CHUNK)
+            for name, data in (extra or {}).items():
+                self._small(name, np.asarray(data), band=_MAP_CHUNK)
+        except OSError as exc:
+            raise StoreError(f"writing the slide pictures failed ({exc.strerror or exc}); check free space",
+                             self.final) from exc
+
+    def commit(self, attrs: dict, thumbnail: np.ndarray | None = None, mask: np.ndarray | None = None, *,
+               overwrite: bool = True, extra: dict | None = None) -> Path:
+        """Write coordinates (and the pictures, unless :meth:`write_maps` did), mark complete, rename
+        into place."""
         try:
             self._flush_pending()
             if self.n < self.tiles.shape[0]:
@@ -183,10 +213,8 @@ class StoreWriter:
             for name in ("tissue", "sharpness") + (("region",) if self.with_region else ()):
                 parts = self._meta[name]
                 self._small(name, np.concatenate(parts) if parts else np.zeros((0,), np.float32))
-            self._small("thumbnail", np.ascontiguousarray(thumbnail, dtype=np.uint8))
-            self._small("mask", np.ascontiguousarray(mask, dtype=bool))
-            for name, data in (extra or {}).items():
-                self._small(name, np.ascontiguousarray(data))
+            if thumbnail is not None:
+                self.write_maps(thumbnail, mask, extra)
             full = dict(attrs)
             full.update(format=FORMAT_NAME, format_version=FORMAT_VERSION, n_tiles=int(self.n),
                         created=datetime.now(timezone.utc).isoformat(timespec="seconds"))

@@ -10,7 +10,7 @@ import os
 
 import numpy as np
 
-__all__ = ["render_overlay", "OVERLAY_COLOURS", "MAX_SIDE"]
+__all__ = ["render_overlay", "overlay_png", "OVERLAY_COLOURS", "MAX_SIDE"]
 
 #: Our colour design: amber outline, ink struck through in white stripes with a black rim,
 #: red debris, teal tile boxes.
@@ -121,7 +121,7 @@ def _legend(canvas, y: int, entries, width: int) -> None:
 
 
 def render_overlay(slide, mask, plan, path, *, mpp: float | None = None, title: str | None = None) -> str:
-    """Write a PNG showing what was cut from a slide.
+    """Write a PNG showing what was cut from a slide (the picture of :func:`overlay_png`).
 
     Drawn over a thumbnail: the tissue outline (amber), excluded marker ink (white stripes, black
     rim), excluded dark debris (red), and a box for every planned tile (teal), with a caption
@@ -152,6 +152,25 @@ def render_overlay(slide, mask, plan, path, *, mpp: float | None = None, title: 
     ------
     OSError
         If the picture cannot be written (nothing is left behind).
+    """
+    png = overlay_png(slide, mask, plan, mpp=mpp, title=title)
+    path = os.fspath(path)
+    tmp = path + ".part"
+    try:
+        with open(tmp, "wb") as fh:
+            fh.write(png)
+        os.replace(tmp, path)
+    finally:
+        if os.path.exists(tmp):
+            os.remove(tmp)
+    return path
+
+
+def overlay_png(slide, mask, plan, *, mpp: float | None = None, title: str | None = None) -> bytes:
+    """The QC picture of :func:`render_overlay` as PNG bytes (nothing written).
+
+    Lets a caller draw the picture while the thumbnail is at hand, free the thumbnail, and write
+    the bytes later (``tile_slide`` writes them once the store is complete).
     """
     import cv2
 
@@ -216,14 +235,5 @@ def render_overlay(slide, mask, plan, path, *, mpp: float | None = None, title: 
 
     ok, png = cv2.imencode(".png", cv2.cvtColor(canvas, cv2.COLOR_RGB2BGR))
     if not ok:
-        raise OSError(f"could not encode the QC picture for {os.fspath(path)}")
-    path = os.fspath(path)
-    tmp = path + ".part"
-    try:
-        with open(tmp, "wb") as fh:
-            fh.write(png.tobytes())
-        os.replace(tmp, path)
-    finally:
-        if os.path.exists(tmp):
-            os.remove(tmp)
-    return path
+        raise OSError(f"could not encode the QC picture of {label}")
+    return png.tobytes()
