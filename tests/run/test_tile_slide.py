@@ -105,3 +105,34 @@ def test_cohort_output_path_that_is_a_file_is_a_typed_error(slide40, tmp_path):
     f.write_text("")
     with pytest.raises(StoreError, match="output folder"):
         tw.tile_cohort([slide40], f, progress=False)
+
+
+def test_qc_picture_and_store_pictures_match_the_survey(slide40, tmp_path):
+    # reference: the thumbnail, mask and plan recomputed here, and the picture drawn from them
+    from tilewright.store.provenance import source_digest
+    from tilewright.tissue.overlay import overlay_png
+
+    cfg = tw.TilingConfig(mpp=0.5, tile=128)
+    res = tw.tile_slide(slide40, tmp_path, cfg)
+    store = tw.open_store(res.store)
+    with tw.open_wsi(slide40) as slide:
+        thumb = slide.thumbnail(cfg.mask_mpp)
+        mask = tw.tissue_mask(thumb, mpp=cfg.mask_mpp)
+        plan = tw.plan_tiles(slide.at_mpp(0.5), mask, tile=128, min_tissue=cfg.min_tissue)
+    np.testing.assert_array_equal(store.thumbnail, thumb[: mask.shape[0], : mask.shape[1]])
+    np.testing.assert_array_equal(store.mask, mask.array)
+    png = (tmp_path / "qc" / f"{res.slide_id}.png").read_bytes()
+    assert png == overlay_png(thumb, mask, plan, mpp=cfg.mask_mpp, title=res.slide_id)
+    assert store.attrs["source"]["digest"] == source_digest(slide40)  # computed beside the tiles
+
+
+def test_a_failing_qc_picture_costs_no_tiles(slide40, tmp_path, monkeypatch, caplog):
+    import tilewright.tissue.overlay as overlay
+
+    def boom(*a, **k):
+        raise RuntimeError("drawing failed")
+
+    monkeypatch.setattr(overlay, "overlay_png", boom)
+    res = tw.tile_slide(slide40, tmp_path, tw.TilingConfig(mpp=0.5, tile=128))
+    assert res.status == "ok" and tw.open_store(res.store).attrs["complete"]
+    assert not (tmp_path / "qc").exists() and "QC overlay not written" in caplog.text

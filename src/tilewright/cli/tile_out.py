@@ -62,7 +62,8 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--config", help="TOML file with tiling settings (options given here override it)")
     g.add_argument("--print-config", action="store_true", help="print the settings as TOML and exit")
     g.add_argument("--overwrite", action="store_true", help="re-tile slides whose store is already complete")
-    g.add_argument("--compression", choices=["zstd", "lz4", "zlib", "none"], help="tile compression (default zstd)")
+    g.add_argument("--compression", choices=["lz4", "zstd", "zlib", "none"],
+                   help="lossless tile compression (default lz4; zstd: ~12%% fewer bytes, ~3x the CPU)")
     g.add_argument("--quiet", action="store_true", help="no progress output (the log file is still written)")
     return p
 

@@ -14,7 +14,7 @@ from tilewright.errors import ConfigError
 __all__ = ["TilingConfig"]
 
 _NORMALIZERS = (None, "macenko", "reinhard")
-_COMPRESSIONS = ("zstd", "lz4", "zlib", "none")
+_COMPRESSIONS = ("lz4", "zstd", "zlib", "none")
 
 
 @dataclass
@@ -54,8 +54,8 @@ class TilingConfig:
         Region file, or folder with one file per slide id.
     min_region : float
         Minimum kept-class fraction of a tile's footprint.
-    compression : {"zstd", "lz4", "zlib", "none"}
-        Lossless compression of stored tiles.
+    compression : {"lz4", "zstd", "zlib", "none"}
+        Lossless compression of stored tiles (see :func:`tilewright.store.writer.compressor`).
     shard_tiles : int
         Tiles a shard file holds.
     block : int
@@ -90,7 +90,7 @@ class TilingConfig:
     keep: list | None = None
     regions: str | None = None
     min_region: float = 0.5
-    compression: str = "zstd"
+    compression: str = "lz4"
     shard_tiles: int = 64
     block: int = 2048
     stain_sample: int = 64

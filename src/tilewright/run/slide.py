@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import os
 import time
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import asdict, dataclass
 from types import SimpleNamespace
 from pathlib import Path
@@ -125,17 +126,21 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
         view = slide.at_mpp(config.mpp, tolerance=config.tolerance)
         survey = _survey(slide, view, config, slide_id, path, regions, target)
         plan, attrs = survey.plan, survey.attrs
+        release_free()  # the survey's temporaries are gone: start the tile pipeline on a clean heap
         with StoreWriter(final, len(plan), config.tile, shard_tiles=config.shard_tiles,
-                         compression=config.compression, with_region=attrs["regions"] is not None) as writer:
-            # the slide-sized pictures go to disk before the tiles are read, and are freed
-            writer.write_maps(*survey.maps)
-            survey.maps = None
-            release_free()
+                         compression=config.compression, with_region=attrs["regions"] is not None) as writer, \
+                ThreadPoolExecutor(1, thread_name_prefix="tilewright-aside") as pool:
+            # the slide-sized pictures go to the store, the QC picture is drawn and the source is
+            # digested beside the tile pipeline; the pictures are freed once written
+            aside = pool.submit(_aside, writer, survey.maps, survey.draw if config.qc_overlay else None, plan,
+                                path, slide_id)
+            survey.maps = survey.draw = None
             _tile_arrays(view, plan, config, survey.bound, writer, progress)
+            png, attrs["source"]["digest"] = aside.result()
             writer.commit(attrs, overwrite=overwrite)
             n = writer.n
-        if survey.png is not None:
-            _write_png(survey.png, final.parent / "qc" / f"{slide_id}.png", slide_id)
+        if png is not None:
+            _write_png(png, final.parent / "qc" / f"{slide_id}.png", slide_id)
         return SlideResult(slide_id=slide_id, source=str(path), status="ok", n_tiles=int(n),
                            mpp_source=float(slide.mpp), objective=slide.objective,
                            source_level=int(view.source_level), seconds=round(time.perf_counter() - t0, 3),
@@ -146,10 +151,10 @@ def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNames
     """Everything decided at thumbnail resolution, before any tile is read.
 
     Reads the thumbnail once (mask, glass colour, store pictures and QC picture share it), masks
-    tissue, plans tiles, binds the stain normalizer and draws the QC picture. Returns the plan,
-    the bound normalizer, the store attributes, the pictures the store keeps (``maps``) and the QC
-    PNG bytes; the thumbnail, the mask and its caches are left behind here, so memory while tiles
-    are read does not grow with the slide.
+    tissue, plans tiles and binds the stain normalizer. Returns the plan, the bound normalizer,
+    the store attributes, the pictures the store keeps (``maps``) and what the QC picture is drawn
+    from (``draw``: thumbnail and mask, its summed-area cache dropped); the caller hands these to
+    :func:`_aside` and drops them, so memory while tiles are read does not grow with the slide.
     """
     from tilewright.tissue.mask import tissue_mask
     from tilewright.tissue.plan import plan_tiles
@@ -170,7 +175,7 @@ def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNames
     attrs = {
         "slide_id": slide_id,
         "source": {"path": str(path.resolve()), "size": os.path.getsize(path),
-                   "digest": _digest(path), "backend": slide.backend},
+                   "digest": None, "backend": slide.backend},  # digest: computed aside (see _aside)
         "mpp": float(view.mpp), "mpp_source": float(slide.mpp), "objective": slide.objective,
         "source_level": int(view.source_level), "scale": float(view.scale),
         "dimensions": list(slide.dimensions), "shape": list(view.shape),
@@ -184,9 +189,21 @@ def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNames
         "config": _jsonable(config.to_dict()),
         "library_version": tilewright.__version__,
     }
-    png = _overlay(thumbnail, mask, plan, slide_id) if config.qc_overlay else None
+    mask.clear_cache()
     maps = (thumbnail[: mask_arr.shape[0], : mask_arr.shape[1]], mask_arr, {"ink": np.asarray(mask.ink, dtype=bool)})
-    return SimpleNamespace(plan=plan, bound=bound, attrs=attrs, maps=maps, png=png)
+    return SimpleNamespace(plan=plan, bound=bound, attrs=attrs, maps=maps, draw=(thumbnail, mask))
+
+
+def _aside(writer, maps, draw, plan, path, slide_id):
+    """Work beside the tile pipeline: the store's pictures, the QC picture, the source digest.
+
+    ``maps`` are :meth:`StoreWriter.write_maps`'s arguments; ``draw`` is ``(thumbnail, mask)`` for
+    the QC picture, or None. Returns ``(png bytes or None, digest)``. Holds the only references to
+    the thumbnail and the mask once the caller dropped its own, so they are freed on return.
+    """
+    writer.write_maps(*maps)
+    png = None if draw is None else _overlay(draw[0], draw[1], plan, slide_id)
+    return png, _digest(path)
 
 
 def _glass(thumbnail, mask):

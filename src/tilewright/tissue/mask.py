@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import math
 import os
+from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
 
@@ -100,6 +101,10 @@ class TissueMask:
         if self._sat is None:
             self._sat = summed_area_table(self.array)
         return box_fractions(self._sat, self.mpp, yx, h, w, mpp)
+
+    def clear_cache(self) -> None:
+        """Drop the summed-area table :meth:`fractions` keeps (4 bytes a mask pixel)."""
+        self._sat = None
 
     def fraction(self, y: float, x: float, h: float, w: float, mpp: float) -> float:
         """Tissue fraction of one box ``(y, x, h, w)`` given in pixels at ``mpp`` µm/px."""
@@ -373,26 +378,15 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-otsu", min_od_floo
         raise ValueError(f"unknown tissue method {method!r}; choose one of {METHODS}")
     rgb, path = _thumbnail(slide, mpp)
     glass = glass_colour(rgb) if glass is None else np.asarray(glass, dtype=np.float64)
-    feature = tissue_feature(rgb, mpp, method=method, smooth_um=smooth_um, glass=glass)
-    if method == "od-otsu":
-        logs = np.maximum(feature, _LOG_FLOOR)
-        otsu = 10.0 ** otsu_threshold(np.log10(logs, out=logs))
-        del logs
-        threshold = min(max(otsu, min_od_floor), max(max_od_ceiling, min_od_floor))
-    else:
-        otsu = otsu_threshold(feature)
-        threshold = max(otsu, min_saturation)
-    raw = feature > threshold
-    del feature
-    raw = _morph(raw, "close", _px(close_um, mpp))
-    raw = _morph(raw, "open", _px(open_um, mpp))
+    # ink and debris do not depend on the tissue threshold: found on a second thread meanwhile
+    # (numpy and OpenCV release the GIL for most of both)
+    with ThreadPoolExecutor(1, thread_name_prefix="tilewright-ink") as pool:
+        artifacts = pool.submit(_ink_and_dark, rgb, glass, smooth_um / mpp, exclude_ink=exclude_ink,
+                                ink_residual=ink_residual, exclude_dark=exclude_dark, dark_od=dark_od)
+        tissue, otsu, threshold = _tissue(rgb, mpp, method, smooth_um, glass, min_od_floor, max_od_ceiling,
+                                          min_saturation, close_um, open_um, fill_holes_um2)
+        ink, dark, normal = artifacts.result()
     area = mpp * mpp
-    tissue = _fill_holes(raw, fill_holes_um2 / area)
-    del raw
-
-    ink, dark, normal = _ink_and_dark(rgb, glass, smooth_um / mpp, exclude_ink=exclude_ink,
-                                      ink_residual=ink_residual, exclude_dark=exclude_dark,
-                                      dark_od=dark_od)
     if exclude_ink:
         ink = _morph(_morph(ink, "open", 1), "dilate", _px(ink_margin_um, mpp))
     tissue = _drop_small(tissue & ~ink & ~dark, min_component_um2 / area)
@@ -407,3 +401,23 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-otsu", min_od_floo
               "glass": [float(v) for v in glass],
               "hne_plane_normal": None if normal is None else [float(v) for v in normal]}
     return TissueMask(tissue, mpp, ink=ink, dark=dark, threshold=threshold, params=params)
+
+
+def _tissue(rgb, mpp, method, smooth_um, glass, min_od_floor, max_od_ceiling, min_saturation, close_um,
+            open_um, fill_holes_um2):
+    """Steps 2-5 of :func:`tissue_mask`: thresholded feature, closed, opened, holes filled.
+    Returns ``(tissue, otsu, threshold)``."""
+    feature = tissue_feature(rgb, mpp, method=method, smooth_um=smooth_um, glass=glass)
+    if method == "od-otsu":
+        logs = np.maximum(feature, _LOG_FLOOR)
+        otsu = 10.0 ** otsu_threshold(np.log10(logs, out=logs))
+        del logs
+        threshold = min(max(otsu, min_od_floor), max(max_od_ceiling, min_od_floor))
+    else:
+        otsu = otsu_threshold(feature)
+        threshold = max(otsu, min_saturation)
+    raw = feature > threshold
+    del feature
+    raw = _morph(raw, "close", _px(close_um, mpp))
+    raw = _morph(raw, "open", _px(open_um, mpp))
+    return _fill_holes(raw, fill_holes_um2 / (mpp * mpp)), otsu, threshold
