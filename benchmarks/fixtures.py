@@ -74,16 +74,17 @@ def _fast_renderer(lay, mpp):
 
 def bench_slide(width: int = 24576, height: int = 20480, *, mpp: float = 0.25, seed: int = 7,
                 tile: int = 256, quality: int = 90, islands: int = 4,
-                island_um: float | None = None) -> Path:
+                island_um: float | None = None, jpeg_colours: str = "ycbcr420") -> Path:
     """A synthetic H&E slide of ``width x height`` level-0 px, JPEG tiles, SVS pyramid (cached).
 
     ``island_um`` (radius of tissue islands in µm) makes a mostly-glass slide with small islands;
-    by default the islands scale with the slide (about 40 % tissue).
+    by default the islands scale with the slide (about 40 % tissue). ``jpeg_colours="rgb"`` stores
+    the same pixels as RGB JPEG tiles without chroma subsampling (see ``write_pyramid``).
     """
     from tilewright.demo.pyramid import write_pyramid
 
     ROOT.mkdir(parents=True, exist_ok=True)
-    tag = "" if island_um is None else f"_i{int(island_um)}"
+    tag = ("" if island_um is None else f"_i{int(island_um)}") + ("" if jpeg_colours == "ycbcr420" else "_rgb")
     path = ROOT / f"synthetic_{width}x{height}_{mpp}_{seed}_q{quality}_f4{tag}.svs"
     if path.exists():
         return path
@@ -92,7 +93,8 @@ def bench_slide(width: int = 24576, height: int = 20480, *, mpp: float = 0.25, s
     tmp = path.with_suffix(".tmp")
     render = lay.renderer(mpp) if island_um is None else _fast_renderer(lay, mpp)
     write_pyramid(tmp, render, shape=(height, width), mpp=mpp, tile=tile, compression="jpeg",
-                  quality=quality, factor=4, layout="svs", objective=40.0 if mpp < 0.4 else 20.0,
+                  quality=quality, jpeg_colours=jpeg_colours, factor=4, layout="svs",
+                  objective=40.0 if mpp < 0.4 else 20.0,
                   strip_rows=1024)
     os.replace(tmp, path)
     print(f"# generated {path.name} ({width}x{height}, {path.stat().st_size / 1e6:.0f} MB) "

@@ -7,12 +7,15 @@ tiff backend's tile decoder, three ways, in one process:
 - ``plain``: decode only (no check);
 - ``probes``: decode plus the two probe decodes of :func:`tilewright.slide.jpeg_check.jpeg_in_sync`
   (the reference check);
-- ``sentinel``: the default check (one decode of the sentinel-extended stream for 4:4:4; a plain
-  decode plus a 1/8-scale grey decode of the extended stream for 4:2:0).
+- ``sentinel``: the sentinel check alone (one decode of the sentinel-extended stream for 4:4:4; a
+  plain decode plus a 1/8-scale grey decode of the extended stream for 4:2:0);
+- ``default``: what the backend does by default: the sentinel for 4:4:4, a strict decode
+  (libjpeg warnings as errors, :mod:`tilewright.slide.jpeg_strict`) for 4:2:0.
 
 Prints source MP/s and the cost of each check in % of the plain decode, then (``--agreement``)
-the verdicts on seeded single-byte damage: the sentinel against the probe check on 1000 damaged
-tiles a slide, and OpenSlide's verdict (libjpeg warnings are errors there) on the first 300.
+the verdicts on seeded single-byte damage: the probe check, the sentinel, the strict decode and
+the default path on 1000 damaged tiles a slide, and OpenSlide's verdict (libjpeg warnings are
+errors there) on the first 300.
 Run: ``.venv/bin/python benchmarks/jpeg_verify.py [--agreement]``.
 """
 
@@ -70,6 +73,7 @@ def _agreement(path: Path, trials: int = 1000, with_openslide: int = 300) -> Non
     import openslide
 
     from tilewright.slide.jpeg_check import entropy_bounds, jpeg_in_sync
+    from tilewright.slide.jpeg_strict import complete_stream, decode_strict
     from tilewright.slide.tiff_backend import TiffBackend
 
     backend = TiffBackend(str(path))
@@ -93,7 +97,14 @@ def _agreement(path: Path, trials: int = 1000, with_openslide: int = 300) -> Non
             continue
         probes_ok = jpeg_in_sync(tile, plain, probe)
         sentinel_ok = _sentinel_only(backend, lv, tile)
-        key = f"probes {'pass' if probes_ok else 'REFUSE'}, sentinel {'pass' if sentinel_ok else 'fail'}"
+        strict_ok = decode_strict(complete_stream(tile, lv.jpegtables), np.empty((lv.tile_h, lv.tile_w, 3),
+                                                                                np.uint8)) is not None
+        try:
+            default_ok = backend._decode_verified(lv, tile, i)[1]
+        except Exception:  # noqa: BLE001 - refused by the decoder: counts as refused
+            default_ok = False
+        key = (f"probes {'pass' if probes_ok else 'REFUSE'}, sentinel {'pass' if sentinel_ok else 'fail'}, "
+               f"strict {'pass' if strict_ok else 'fail'}, default {'pass' if default_ok else 'REFUSE'}")
         if trial < with_openslide:
             bad = path.with_name("damaged.tif")
             bad.write_bytes(original[:o] + tile + original[o + n:])
@@ -137,7 +148,10 @@ def _sentinel_only(backend, lv, tile) -> bool:
 
 
 def main() -> int:
+    import tilewright.slide.tiff_backend as tb
     from tilewright.slide.tiff_backend import TiffBackend, _jpeg_intact
+
+    strict, available = tb._strict, tb._strict.available
 
     with tempfile.TemporaryDirectory() as tmp:
         slides = _slides(Path(tmp))
@@ -157,9 +171,16 @@ def main() -> int:
                 assert _jpeg_intact(lv, i, data, seg)
 
             def sentinel(i, data):
+                strict.available = lambda: False
+                try:
+                    assert backend._decode_verified(lv, data, i)[1]
+                finally:
+                    strict.available = available
+
+            def default(i, data):
                 assert backend._decode_verified(lv, data, i)[1]
 
-            best = _times({"plain": plain, "probes": probes, "sentinel": sentinel}, tiles)
+            best = _times({"plain": plain, "probes": probes, "sentinel": sentinel, "default": default}, tiles)
             for name, (t, ratio) in best.items():
                 print(f"{label:<14}{name:<10}{mp / t:8.1f}{(ratio - 1) * 100:+14.1f}%")
             backend.close()

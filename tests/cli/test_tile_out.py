@@ -201,3 +201,16 @@ def test_ctrl_c_stops_cleanly_and_resumes(tmp_path):
     assert not [p for p in out.iterdir() if ".partial-" in p.name]  # no half-written store left
     assert subprocess.run(cmd).returncode == 0
     assert len(tw.open_cohort(out).stores) == 4
+
+
+@pytest.mark.parametrize("argv, threads", [
+    (["--workers", "2"], max(1, (os.cpu_count() or 2) // 2)),  # ground truth: the cores shared
+    (["--workers", "2", "--threads", "3"], 3),  # chosen threads are kept
+    (["--workers", "2", "--scheduler", "tcp://127.0.0.1:1"], 2),  # remote workers: their own cores
+    ([], 2),  # one worker: the default
+])
+def test_local_workers_share_the_cores(argv, threads):
+    from tilewright.cli.tile_out import _share_cores, build_parser, config_from_args
+
+    args = build_parser().parse_args(["in", "out", *argv])
+    assert _share_cores(config_from_args(args), args).threads == threads

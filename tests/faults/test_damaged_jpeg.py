@@ -4,7 +4,8 @@ Policy (see RELIABILITY.md): the slide fails; the reason names the damaged tile 
 column, pixel box) and the region being read; no store is written. JPEG has no checksum and the
 decoders we use (imagecodecs, like Pillow) return garbage pixels without an error for most byte
 flips, so the tiff backend checks every JPEG tile's entropy-coded stream for loss of sync
-(tilewright.slide.jpeg_check), by default: a sentinel MCU row decoded with the tile, confirmed by
+(tilewright.slide.jpeg_check), by default: a strict decode (libjpeg warnings as errors,
+jpeg_strict); a tile it refuses goes to a sentinel MCU row decoded with the tile, confirmed by
 the two probe decodes when it fails. Reference verdicts: OpenSlide, which turns libjpeg's
 "corrupt data" warnings into errors, and the probe check itself.
 """
@@ -127,7 +128,16 @@ def test_flipped_bytes_fail_the_slide_and_name_the_tile(slide, tmp_path, fast_co
     assert row["status"] == "ok" and row["n_tiles"] > 0
 
 
-def test_detection_agrees_with_openslide(slide, tmp_path):
+@pytest.fixture(params=["strict", "sentinel"])
+def checker(request, monkeypatch):
+    """Both routes of the default check: a strict decode first (libjpeg warnings as errors,
+    jpeg_strict), or (strict decoding unavailable) the sentinel with the probes behind it."""
+    if request.param == "sentinel":
+        monkeypatch.setattr("tilewright.slide.tiff_backend._strict.available", lambda: False)
+    return request.param
+
+
+def test_detection_agrees_with_openslide(slide, tmp_path, checker):
     """Seeded byte damage in many tiles: every tile OpenSlide refuses, tilewright refuses, and
     every tile tilewright refuses really decodes to garbage. What neither refuses is damage after
     which the Huffman decoder falls back into step (Huffman codes self-synchronize) or that
@@ -188,9 +198,10 @@ def _tifffile_slide(path, img, **kw):
 
 
 @pytest.mark.parametrize("layout", ["ifd", "svs", "ome", "ycbcr444", "ycbcr422", "rgb"])
-def test_intact_jpeg_slides_never_flagged(slide, tmp_path, layout, monkeypatch):
+def test_intact_jpeg_slides_never_flagged(slide, tmp_path, layout, monkeypatch, checker):
     """No false alarm: every tile of every level of intact JPEG slides reads, equal to tifffile,
-    and the sentinel alone accepts every tile (the probe fallback is never needed)."""
+    and the strict decode or the sentinel alone accepts every tile (the probe fallback is never
+    needed)."""
     if layout in ("ifd", "svs", "ome"):  # the demo writer: YCbCr 4:2:0
         path = slide(f"ok_{layout}.tif", layout=layout, seed=7)
     else:  # the demo's pixels stored in other JPEG colour layouts
@@ -204,11 +215,23 @@ def test_intact_jpeg_slides_never_flagged(slide, tmp_path, layout, monkeypatch):
         raise AssertionError("the sentinel rejected an intact tile")
 
     monkeypatch.setattr("tilewright.slide.tiff_backend._jpeg_intact", no_fallback)
+    import tilewright.slide.jpeg_strict as strict
+
+    refused, decode = [], strict.decode_strict
+
+    def spy(*args):
+        img = decode(*args)
+        if img is None:
+            refused.append(1)
+        return img
+
+    monkeypatch.setattr(strict, "decode_strict", spy)
     with tw.open_wsi(path, backend="tiff", mpp=0.25) as s, tifffile.TiffFile(path) as tf:
         for i, lv in enumerate(s.levels):
             got = s.read_level(i, 0, 0, lv.height, lv.width)
             ref = tf.series[0].levels[i].asarray() if len(tf.series[0].levels) > 1 else tf.pages[i].asarray()
             assert np.array_equal(got, ref[..., :3])  # reference decoder: tifffile
+    assert not refused  # the strict decoder accepted every intact tile too (when in use)
 
 
 @pytest.mark.parametrize("subsampling", [(2, 2), (1, 1)])

@@ -21,15 +21,17 @@ def jpeg40(tmp_path_factory):
 
 
 def _count_decodes(slide, monkeypatch):
+    """Count the stored tiles the reader decodes (its checked decode: JPEG tiles are verified)."""
     reader = slide._reader
+    assert reader.verify_jpeg
     calls = {"n": 0}
-    real = reader._decode
+    real = reader._decode_verified
 
     def counting(lv, data, index):
         calls["n"] += 1
         return real(lv, data, index)
 
-    monkeypatch.setattr(reader, "_decode", counting)
+    monkeypatch.setattr(reader, "_decode_verified", counting)
     return calls
 
 

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import argparse
 import logging
+import os
 import sys
 from pathlib import Path
 
@@ -57,7 +58,8 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--mpp-table", help="CSV with slide_id (or path) and mpp columns: per-slide level-0 µm/px")
     g = p.add_argument_group("running")
     g.add_argument("--workers", type=int, default=1, help="local worker processes (default 1)")
-    g.add_argument("--threads", type=int, help="reader threads in each worker (default 2)")
+    g.add_argument("--threads", type=int,
+                   help="reader threads in each worker (default 2; with --workers N, the cores / N)")
     g.add_argument("--scheduler", help="dask.distributed scheduler address, e.g. tcp://10.0.0.5:8786")
     g.add_argument("--config", help="TOML file with tiling settings (options given here override it)")
     g.add_argument("--print-config", action="store_true", help="print the settings as TOML and exit")
@@ -107,7 +109,7 @@ def main(argv=None) -> int:
             parser.error("SOURCE and OUT are required (or use --print-config)")
         if args.workers < 1:
             raise ConfigError("--workers must be at least 1")
-        return run(args, config)
+        return run(args, _share_cores(config, args))
     except ConfigError as exc:
         print(f"tile-out: error: {exc}", file=sys.stderr)
         return EXIT_BAD_ARGS
@@ -118,6 +120,16 @@ def main(argv=None) -> int:
         print("\ntile-out: interrupted; finished stores are kept, run the same command again to resume",
               file=sys.stderr)
         return EXIT_INTERRUPTED
+
+
+def _share_cores(config, args):
+    """Local workers share this machine's cores: unless threads were chosen, each worker reads with
+    ``cores // workers`` threads (so ``--workers 2`` on 2 cores runs 2 single-threaded workers)."""
+    from tilewright.run.config import TilingConfig
+
+    if args.threads is not None or args.scheduler or args.workers <= 1 or config.threads != TilingConfig().threads:
+        return config
+    return config.replace(threads=max(1, (os.cpu_count() or 2) // args.workers))
 
 
 def run(args, config) -> int:

@@ -89,6 +89,7 @@ def write_pyramid(
     tile: int = 256,
     compression: Literal["jpeg", "zlib", "deflate", "lzw", "zstd", "none"] | None = "jpeg",
     quality: int = 90,
+    jpeg_colours: Literal["ycbcr420", "rgb"] = "ycbcr420",
     n_levels: int | None = None,
     min_size: int = 512,
     factor: int = 2,
@@ -117,6 +118,9 @@ def write_pyramid(
         TIFF compression of the tiles; ``"none"``/None for uncompressed.
     quality : int
         JPEG quality.
+    jpeg_colours : {"ycbcr420", "rgb"}
+        How JPEG tiles store colour: YCbCr with 2x2 chroma subsampling (tifffile's default and
+        the most common scanner output), or RGB without subsampling (as some scanners write).
     n_levels : int, optional
         Number of levels; default: reduce until the longer side is at most ``min_size``.
     min_size : int
@@ -164,7 +168,12 @@ def write_pyramid(
     comp = None if compression in (None, "none") else compression
     if comp == "zlib":
         comp = "deflate"
-    compressionargs = {"level": quality} if comp == "jpeg" else None
+    if jpeg_colours not in ("ycbcr420", "rgb"):
+        raise ValueError(f"jpeg_colours must be 'ycbcr420' or 'rgb', got {jpeg_colours!r}")
+    compressionargs = None
+    if comp == "jpeg":
+        compressionargs = {"level": quality} if jpeg_colours == "ycbcr420" else {"level": quality,
+                                                                                 "outcolorspace": "rgb"}
     rows = strip_rows or tile
     rows = max(tile, rows - rows % tile)
     if rows % factor:

@@ -11,7 +11,26 @@ from __future__ import annotations
 
 import logging
 
-__all__ = ["execute"]
+__all__ = ["execute", "local_cluster"]
+
+
+def local_cluster(workers: int):
+    """The ``dask.distributed`` LocalCluster tile-out starts: ``workers`` single-threaded processes.
+
+    dask's default worker environment trims malloc aggressively (``MALLOC_TRIM_THRESHOLD_`` of
+    64 KiB), which costs ~20 % in page faults on block-sized buffers; the workers get
+    :mod:`tilewright.run.allocator`'s thresholds instead (the rest of dask's environment, such as
+    ``OMP_NUM_THREADS=1``, is kept).
+    """
+    import dask
+    from distributed import LocalCluster
+
+    from tilewright.run.allocator import ENV
+
+    env = {**dask.config.get("distributed.nanny.pre-spawn-environ", {}), **ENV}
+    with dask.config.set({"distributed.nanny.pre-spawn-environ": env}):
+        return LocalCluster(n_workers=int(workers), threads_per_worker=1, processes=True,
+                            dashboard_address=None, silence_logs=logging.ERROR)
 
 
 def execute(fn, args_list, *, scheduler=None, workers=None):
@@ -23,7 +42,7 @@ def execute(fn, args_list, *, scheduler=None, workers=None):
         for i, args in enumerate(args_list):
             yield i, fn(*args)
         return
-    from distributed import Client, LocalCluster, as_completed
+    from distributed import Client, as_completed
 
     own_cluster = None
     if isinstance(scheduler, Client):
@@ -31,17 +50,7 @@ def execute(fn, args_list, *, scheduler=None, workers=None):
     elif scheduler is not None:
         client, own_client = Client(scheduler, timeout="30s"), True
     else:
-        import dask
-
-        # dask's default worker environment trims malloc aggressively (MALLOC_TRIM_THRESHOLD_=64 KiB),
-        # which costs ~20% in page faults on block-sized buffers; tile_slide's thresholds instead
-        # (see tilewright.run.allocator) keep the heap flat at full speed.
-        from tilewright.run.allocator import ENV
-
-        env = {**dask.config.get("distributed.nanny.pre-spawn-environ", {}), **ENV}  # keeps OMP_NUM_THREADS=1 etc.
-        with dask.config.set({"distributed.nanny.pre-spawn-environ": env}):
-            own_cluster = LocalCluster(n_workers=int(workers), threads_per_worker=1, processes=True,
-                                       dashboard_address=None, silence_logs=logging.ERROR)
+        own_cluster = local_cluster(workers)
         client, own_client = Client(own_cluster), True
     try:
         futures = [client.submit(fn, *args, key=f"tilewright-{fn.__name__}-{i}-{id(args_list)}", pure=False)

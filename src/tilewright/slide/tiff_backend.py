@@ -21,6 +21,7 @@ import threading
 import numpy as np
 
 from tilewright.errors import DamagedSlideError, SlideTooLargeError, UnsupportedSlideError
+from tilewright.slide import jpeg_strict as _strict
 from tilewright.slide.resolution import (
     Resolution,
     mpp_from_aperio,
@@ -41,7 +42,7 @@ class _Level:
     """One pyramid level: a TIFF page and what is needed to decode its segments."""
 
     __slots__ = ("height", "width", "tile_h", "tile_w", "grid_w", "offsets", "counts",
-                 "decode", "jpegtables", "page_index", "is_jpeg", "jpeg", "sentinels")
+                 "decode", "jpegtables", "page_index", "is_jpeg", "jpeg", "sentinels", "strict")
 
     def __init__(self, page, index):
         self.height, self.width = int(page.imagelength), int(page.imagewidth)
@@ -56,6 +57,7 @@ class _Level:
         self.is_jpeg = int(page.compression) == 7  # new-style JPEG (TIFF Technical Note 2)
         self.jpeg = _jpeg_args(page)  # (colorspace, outcolorspace) for the direct JPEG path, or None
         self.sentinels = {}  # JPEG header bytes -> SentinelPlan or None (see jpeg_sentinel)
+        self.strict = {}  # colour signature -> whether the strict decode equals this page's (jpeg_strict)
 
 
 def _jpeg_args(page):
@@ -263,7 +265,8 @@ class TiffBackend:
                 dst[...] = seg[ya - ty : yb - ty, xa - tx : xb - tx, :3]
 
     def _decode(self, lv: _Level, data, index: int) -> np.ndarray:
-        """One tile as (tile_h, tile_w, samples) pixels (a per-thread buffer on the JPEG path)."""
+        """One tile as (tile_h, tile_w, samples) pixels, decoded as tifffile would (imagecodecs; a
+        per-thread buffer on the JPEG path)."""
         if lv.jpeg is not None:
             import imagecodecs
 
@@ -273,13 +276,31 @@ class TiffBackend:
         seg = lv.decode(data, index, jpegtables=lv.jpegtables)[0]
         return None if seg is None else seg.reshape(seg.shape[-3:])
 
-    def _decode_verified(self, lv: _Level, data, index: int):
-        """One JPEG tile and whether its entropy-coded stream is intact (see jpeg_sentinel).
+    def _strict_agrees(self, lv: _Level, stream: bytes, data, index: int) -> bool:
+        """Whether strict decodes of streams with this one's colour signature equal the page's
+        decode (checked on the first such tile that decodes cleanly; see jpeg_strict)."""
+        sig = _strict.colour_signature(stream)
+        if sig is None:
+            return False
+        ok = lv.strict.get(sig)
+        if ok is None:
+            got = _strict.decode_strict(stream, np.empty((lv.tile_h, lv.tile_w, 3), np.uint8))
+            if got is None:
+                return False  # undecided (this tile may be damaged): the next clean tile decides
+            want = self._decode(lv, data, index)
+            ok = lv.strict[sig] = want is not None and np.array_equal(want, got)
+        return ok
 
-        Without vertical chroma subsampling the pixels come from the one decode of the
-        sentinel-extended stream; with it, from a plain decode, the extension being checked at
-        1/8 scale. A failed sentinel is settled by the probe check (jpeg_check), which also
-        serves streams that get no sentinel.
+    def _decode_verified(self, lv: _Level, data, index: int):
+        """One JPEG tile and whether its entropy-coded stream is intact.
+
+        Without vertical chroma subsampling, the pixels come from the one decode of the
+        sentinel-extended stream (see jpeg_sentinel). Otherwise (a sentinel there would change
+        the last pixel row, and streams with restart markers get none), from a strict decode
+        (libjpeg's warnings as errors, see jpeg_strict): pixels and verdict in one decode. A tile
+        the strict decoder refuses or cannot judge (another colour interpretation) gets a plain
+        decode whose sentinel-extended stream is checked at 1/8 scale. Whatever fails is settled
+        by the probe check (jpeg_check), so a refusal is never a false alarm.
         """
         from tilewright.slide import jpeg_sentinel as js
 
@@ -297,6 +318,12 @@ class TiffBackend:
                                           tables=lv.jpegtables, colorspace=lv.jpeg[0], outcolorspace=lv.jpeg[1])
             if seg is not None:
                 return seg, True
+        elif lv.jpeg is not None and _strict.available():
+            stream = _strict.complete_stream(data, lv.jpegtables)
+            if self._strict_agrees(lv, stream, data, index):
+                seg = _strict.decode_strict(stream, self._scratch_tile((lv.tile_h, lv.tile_w)))
+                if seg is not None:
+                    return seg, True
         seg = self._decode(lv, data, index)
         if ext is not None and plan.vertical and js.reduced_sentinel_intact(ext, lv.jpegtables, plan):
             return seg, True
