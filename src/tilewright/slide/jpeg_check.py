@@ -6,10 +6,11 @@ either runs out of data before the last block ("premature end of data segment": 
 the tile is filled with grey) or finishes the last block with bytes to spare ("extraneous
 bytes before marker"). Both return an image of garbage without an error through imagecodecs
 (and Pillow). OpenSlide turns these warnings into errors; this module gives the direct TIFF
-path the same strictness without a second JPEG library.
+path the same strictness with the decoder that reads the pixels.
 
-The check used by default is cheaper: a sentinel MCU row decoded with the tile (see
-:mod:`tilewright.slide.jpeg_sentinel`); when the sentinel fails, the probe check below settles.
+The checks used by default are cheaper: a sentinel MCU row decoded with the tile (see
+:mod:`tilewright.slide.jpeg_sentinel`) or a strict decode (see :mod:`tilewright.slide.jpeg_strict`);
+when either refuses a tile, the probe check below settles.
 
 The probe check, the reference (about 3x the decoding cost), uses two probe decodes:
 
