@@ -81,3 +81,24 @@ def test_process_runs_in_the_reader(jpeg40):
         out = list(iter_tile_blocks(view, yx, 64, block=512, threads=2, process=lambda t: (len(t), t.sum())))
         assert out[0][1][0] == 3  # ground truth: three tiles in the one block
         assert out[0][1][1] == sum(int(view.read(int(y), int(x), 64, 64).sum()) for y, x in yx)
+
+
+def test_reused_buffers_give_the_same_tiles(jpeg40):
+    # reference: the same blocks read into fresh arrays; reuse needs a consuming process
+    with tw.open_wsi(jpeg40) as slide:
+        view = slide.at_mpp(0.5)
+        yx = np.array([(y, x) for y in range(0, 512, 64) for x in range(0, 768, 64)])
+        order, _ = block_order(yx, 64, 256)
+        yx = yx[order]
+        fresh = {int(p): t for pos, tiles in iter_tile_blocks(view, yx, 64, block=256, threads=2)
+                 for p, t in zip(pos, tiles)}
+        for threads in (1, 2):
+            got = {}
+            for pos, copies in iter_tile_blocks(view, yx, 64, block=256, threads=threads, reuse=True,
+                                                process=lambda t: t.copy()):
+                got.update({int(p): t for p, t in zip(pos, copies)})
+            assert got.keys() == fresh.keys()
+            for p in got:
+                np.testing.assert_array_equal(got[p], fresh[p])
+        with pytest.raises(ValueError, match="consumes"):
+            next(iter_tile_blocks(view, yx, 64, block=256, reuse=True))

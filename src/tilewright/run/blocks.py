@@ -75,16 +75,28 @@ def _work(scratch, h: int, w: int) -> np.ndarray:
     return buf[:need].reshape(h, w, 3)
 
 
-def _read_block(view, yx: np.ndarray, tile: int, scratch=None) -> np.ndarray:
+def _tiles_buffer(scratch, n: int, tile: int) -> np.ndarray:
+    """A (n, tile, tile, 3) uint8 array of this thread, reused from block to block."""
+    need = n * tile * tile * 3
+    buf = getattr(scratch, "tiles", None)
+    if buf is None or buf.size < need:
+        buf = np.empty(need, np.uint8)
+        scratch.tiles = buf
+    return buf[:need].reshape(n, tile, tile, 3)
+
+
+def _read_block(view, yx: np.ndarray, tile: int, scratch=None, reuse: bool = False) -> np.ndarray:
     """The tiles at ``yx`` (one block), read in as few source pixels as possible.
 
     Either one read of the bounding box, or one read per horizontal run of tiles (when the tiles
     cover the box sparsely, e.g. at tissue borders), whichever touches fewer pixels; overlapping
-    tiles (stride < tile) make the box the cheaper choice.
+    tiles (stride < tile) make the box the cheaper choice. With ``reuse`` the tiles land in this
+    thread's buffer (see :func:`iter_tile_blocks`).
     """
     y0, x0 = (int(v) for v in yx.min(axis=0))
     y1, x1 = (int(v) for v in yx.max(axis=0) + tile)
-    out = np.empty((len(yx), tile, tile, 3), dtype=np.uint8)
+    out = (_tiles_buffer(scratch, len(yx), tile) if reuse
+           else np.empty((len(yx), tile, tile, 3), dtype=np.uint8))
     runs = _row_runs(yx, tile)
     if sum(w for _, _, w, _ in runs) * tile < (y1 - y0) * (x1 - x0):
         for y, x, w, members in runs:
@@ -99,13 +111,13 @@ def _read_block(view, yx: np.ndarray, tile: int, scratch=None) -> np.ndarray:
     return out
 
 
-def _job(view, yx, tile, process, scratch):
-    tiles = _read_block(view, yx, tile, scratch)
+def _job(view, yx, tile, process, scratch, reuse):
+    tiles = _read_block(view, yx, tile, scratch, reuse)
     return tiles if process is None else process(tiles)
 
 
 def iter_tile_blocks(view, yx: np.ndarray, tile: int, *, block: int = 2048, threads: int = 2, ahead: int = 2,
-                     process=None):
+                     process=None, reuse: bool = False):
     """Yield ``(positions, tiles)`` for each block, in :func:`block_order`.
 
     Parameters
@@ -124,19 +136,25 @@ def iter_tile_blocks(view, yx: np.ndarray, tile: int, *, block: int = 2048, thre
         Applied to each block's tiles in the reader thread (normalization, scores); its result is
         yielded instead of the tiles. OpenCV and numpy release the GIL, so this overlaps with
         reading and with the caller's writing.
+    reuse : bool
+        Read each block into its reader thread's own buffer, reused for the thread's next block
+        (no fresh pages to fault in a block). Only when ``process`` returns nothing that refers
+        to the tiles it was given (e.g. their compressed bytes).
     """
+    if reuse and process is None:
+        raise ValueError("reuse needs a process that consumes the tiles")
     _, groups = block_order(yx, tile, block)
     scratch = threading.local()  # per reader thread: the strip buffer reused from block to block
     # yx is expected in block order already, so groups index yx directly
     if threads <= 1:
         for g in groups:
-            yield g, _job(view, yx[g], tile, process, scratch)
+            yield g, _job(view, yx[g], tile, process, scratch, reuse)
         return
     with ThreadPoolExecutor(max_workers=threads, thread_name_prefix="tilewright-read") as pool:
         pending: deque = deque()
         it = iter(groups)
         for g in it:
-            pending.append((g, pool.submit(_job, view, yx[g], tile, process, scratch)))
+            pending.append((g, pool.submit(_job, view, yx[g], tile, process, scratch, reuse)))
             if len(pending) >= threads * ahead:
                 break
         while pending:
@@ -144,5 +162,5 @@ def iter_tile_blocks(view, yx: np.ndarray, tile: int, *, block: int = 2048, thre
             tiles = fut.result()
             nxt = next(it, None)
             if nxt is not None:
-                pending.append((nxt, pool.submit(_job, view, yx[nxt], tile, process, scratch)))
+                pending.append((nxt, pool.submit(_job, view, yx[nxt], tile, process, scratch, reuse)))
             yield g, tiles

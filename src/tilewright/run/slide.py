@@ -66,7 +66,8 @@ def _tile_arrays(view, plan, config, bound, writer, progress):
         return (None if encoded is not None else tiles), sharp, keep, encoded  # pixels freed once encoded
 
     for positions, (tiles, sharp, keep, encoded) in iter_tile_blocks(
-            view, yx, config.tile, block=config.block, threads=config.threads, process=prepare):
+            view, yx, config.tile, block=config.block, threads=config.threads, process=prepare,
+            reuse=writer.encodes):  # compressed in the reader: its buffer is free for the next block
         pos = positions if keep is None else positions[keep]
         if len(pos):
             writer.append(tiles, yx[pos], np.rint(yx[pos] * scale).astype(np.int64), tissue[pos], sharp,

@@ -107,6 +107,11 @@ class StoreWriter:
         self._encoder = ShardEncoder.for_array(self.tiles)  # None: let zarr write the tiles
         self._pending: list = []  # encoded chunks of a shard not yet full
 
+    @property
+    def encodes(self) -> bool:
+        """Whether :meth:`encode` compresses tiles (then :meth:`append` needs only its result)."""
+        return self._encoder is not None
+
     def encode(self, tiles: np.ndarray) -> list | None:
         """Compress tiles into the chunks :meth:`append` will store (None when zarr writes them).
 
