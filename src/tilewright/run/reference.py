@@ -49,12 +49,26 @@ def make_target(method: str, reference):
     return make_normalizer(method).fit(image)
 
 
-def sample_tiles(view, yx: np.ndarray, tile: int, count: int, seed: int) -> np.ndarray:
-    """Read a reproducible sample of ``count`` planned tiles (all of them when fewer)."""
+def sample_tiles(view, yx: np.ndarray, tile: int, count: int, seed: int, *, threads: int = 1) -> np.ndarray:
+    """Read a reproducible sample of ``count`` planned tiles (all of them when fewer), on
+    ``threads`` threads (view reads are thread-safe and release the GIL while decoding)."""
     yx = np.asarray(yx)
     if len(yx) > count:
         pick = np.sort(np.random.default_rng(seed).choice(len(yx), size=count, replace=False))
         yx = yx[pick]
+    out = np.empty((len(yx), tile, tile, 3), np.uint8)
     if len(yx) == 0:
-        return np.zeros((0, tile, tile, 3), np.uint8)
-    return np.stack([view.read(int(y), int(x), tile, tile) for y, x in yx])
+        return out
+
+    def read(i):
+        view.read(int(yx[i, 0]), int(yx[i, 1]), tile, tile, out=out[i])
+
+    if threads <= 1:
+        for i in range(len(yx)):
+            read(i)
+    else:
+        from concurrent.futures import ThreadPoolExecutor
+
+        with ThreadPoolExecutor(threads, thread_name_prefix="tilewright-sample") as pool:
+            list(pool.map(read, range(len(yx))))
+    return out

@@ -38,7 +38,7 @@ class SlideResult:
         return asdict(self)
 
 
-def _tile_arrays(view, plan, config, bound, writer, progress):
+def _tile_arrays(view, plan, config, bind, writer, progress):
     """Read planned tiles block by block, normalize, score, compress and append whole shards.
 
     Reader threads read, normalize, score and compress each block (OpenCV, numpy and the codecs
@@ -56,6 +56,7 @@ def _tile_arrays(view, plan, config, bound, writer, progress):
     min_sharp = config.min_sharpness
 
     def prepare(tiles):
+        bound = None if bind is None else bind.result()  # fitted beside the first reads
         if bound is not None:
             tiles = bound.transform(tiles, out=tiles)
         sharp = sharpness(tiles)
@@ -130,13 +131,18 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
         release_free()  # the survey's temporaries are gone: start the tile pipeline on a clean heap
         with StoreWriter(final, len(plan), config.tile, shard_tiles=config.shard_tiles,
                          compression=config.compression, with_region=attrs["regions"] is not None) as writer, \
-                ThreadPoolExecutor(1, thread_name_prefix="tilewright-aside") as pool:
+                ThreadPoolExecutor(2, thread_name_prefix="tilewright-aside") as pool:
+            # the slide's stain estimate is fitted while the first blocks are read and decoded
+            bind = (pool.submit(_bind_normalizer, view, plan, config, target, path, survey.glass)
+                    if config.normalizer else None)
             # the slide-sized pictures go to the store, the QC picture is drawn and the source is
             # digested beside the tile pipeline; the pictures are freed once written
             aside = pool.submit(_aside, writer, survey.maps, survey.draw if config.qc_overlay else None, plan,
                                 path, slide_id)
             survey.maps = survey.draw = None
-            _tile_arrays(view, plan, config, survey.bound, writer, progress)
+            _tile_arrays(view, plan, config, bind, writer, progress)
+            bound = None if bind is None else bind.result()
+            attrs["normalizer"] = None if bound is None else bound.to_dict()
             png, attrs["source"]["digest"] = aside.result()
             writer.commit(attrs, overwrite=overwrite)
             n = writer.n
@@ -152,7 +158,7 @@ def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNames
     """Everything decided at thumbnail resolution, before any tile is read.
 
     Reads the thumbnail once (mask, glass colour, store pictures and QC picture share it), masks
-    tissue, plans tiles and binds the stain normalizer. Returns the plan, the bound normalizer,
+    tissue, plans tiles and measures the glass colour. Returns the plan, the glass colour,
     the store attributes, the pictures the store keeps (``maps``) and what the QC picture is drawn
     from (``draw``: thumbnail and mask, its summed-area cache dropped); the caller hands these to
     :func:`_aside` and drops them, so memory while tiles are read does not grow with the slide.
@@ -169,9 +175,7 @@ def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNames
     plan = plan_tiles(view, mask, tile=config.tile, stride=config.stride, min_tissue=config.min_tissue,
                       regions=regions if config.keep else None, keep=config.keep,
                       min_region=config.min_region, max_tiles=config.max_tiles, seed=config.seed)
-    bound = None
-    if config.normalizer:
-        bound = _bind_normalizer(view, plan, config, target, path, _glass(thumbnail, mask))
+    glass = _glass(thumbnail, mask) if config.normalizer else None
     mask_arr = np.asarray(mask.array, dtype=bool)
     attrs = {
         "slide_id": slide_id,
@@ -182,7 +186,7 @@ def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNames
         "dimensions": list(slide.dimensions), "shape": list(view.shape),
         "tile": int(config.tile), "stride": int(config.step), "mask_mpp": float(config.mask_mpp),
         "tissue_fraction": float(mask_arr.mean()) if mask_arr.size else 0.0,
-        "normalizer": None if bound is None else bound.to_dict(),
+        "normalizer": None,  # bound while the first tiles are read (see tile_slide)
         "regions": None if (regions is None or not config.keep) else _region_info(regions, config),
         "tissue_mask": _jsonable(mask.to_dict()),
         "plan": _jsonable(getattr(plan, "params", {})),
@@ -192,7 +196,7 @@ def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNames
     }
     mask.clear_cache()
     maps = (thumbnail[: mask_arr.shape[0], : mask_arr.shape[1]], mask_arr, {"ink": np.asarray(mask.ink, dtype=bool)})
-    return SimpleNamespace(plan=plan, bound=bound, attrs=attrs, maps=maps, draw=(thumbnail, mask))
+    return SimpleNamespace(plan=plan, glass=glass, attrs=attrs, maps=maps, draw=(thumbnail, mask))
 
 
 def _aside(writer, maps, draw, plan, path, slide_id):
@@ -219,7 +223,7 @@ def _bind_normalizer(view, plan, config, target, path, glass=None):
     from tilewright.run.reference import make_target, sample_tiles
     from tilewright.stain.registry import make_normalizer
 
-    sample = sample_tiles(view, plan.yx, config.tile, config.stain_sample, config.seed)
+    sample = sample_tiles(view, plan.yx, config.tile, config.stain_sample, config.seed, threads=config.threads)
     if len(sample) == 0:
         return None  # nothing will be stored; no estimate needed
     if target is None:

@@ -78,7 +78,7 @@ def apply_od_affine(rgb, matrix, offset=None, *, out=None, glass=None) -> np.nda
         o, w = od[:k], work[:k]
         cv2.LUT(src[start:stop], lut, dst=o)
         cv2.transform(o, m, dst=w)
-        np.minimum(w, np.float32(1.0), out=w)  # exp(1) * 255 already saturates; avoids inf
+        cv2.threshold(w, 1.0, 1.0, cv2.THRESH_TRUNC, dst=w)  # min(w, 1): exp(1) * 255 saturates; avoids inf
         cv2.exp(w, dst=o)
         cv2.convertScaleAbs(o, dst=dst[start:stop], alpha=float(WHITE))
     if not direct:
