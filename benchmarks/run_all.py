@@ -17,10 +17,12 @@ hand loop     OpenSlide read_region(512 px, level 0) per tile, cv2 INTER_AREA to
 tile-out      tile_cohort (what the tile-out command runs) with the given workers/threads, QC
               overlay on, timed end to end (mask, plan, reads, normalization, store, manifest).
 
-"source MP/s" counts the level-0 pixels behind the stored tiles (512 x 512 a tile). Figures are
-wall clock, the fastest of ``--repeat`` runs (3) except the slow hand loop (one run); the machine
-may be shared, so the load average is printed before and after, and the CPU seconds of this
-process give a per-core comparison that other work on the machine disturbs less.
+"source MP/s" counts the level-0 pixels behind the stored tiles (512 x 512 a tile). Every row runs
+once a round, ``--rounds`` (3) interleaved rounds, so load that drifts on a shared machine hits
+all rows alike; the table shows each row's fastest run (the slow hand loop runs in the first round
+only), and each aim's ratio is the median over the rounds of two rates measured in the same round.
+Peak memory: fresh processes, small and large slide alternated, medians. The load average is
+printed before and after.
 
 Usage: ``.venv/bin/python benchmarks/run_all.py [--skip-memory]``
 """
@@ -140,18 +142,6 @@ def cohort(paths, out, cfg, *, client=None, target=None):
     return seconds, sum(r.n_tiles for r in res), res
 
 
-def best_of(n, fn, *args, **kwargs):
-    """Run ``fn`` ``n`` times and keep the fastest run (less disturbed by other work on the machine)."""
-    best = None
-    for _ in range(n):
-        out = fn(*args, **kwargs)
-        seconds = out[0] if isinstance(out, tuple) else out
-        if best is None or seconds < best[0]:
-            best = (seconds, out, CPU[0])
-    CPU[0] = best[2]
-    return best[1]
-
-
 def store_bytes(store):
     files = [f for f in (Path(store) / "tiles").rglob("*") if f.is_file() and f.name != "zarr.json"]
     return sum(f.stat().st_size for f in files)
@@ -177,14 +167,15 @@ def _warm_worker(slide, folder):
 
 
 def main(argv=None):
-    import cv2
+    import json
+    import statistics
 
     import tilewright as tw
 
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--skip-memory", action="store_true", help="skip the two peak-memory runs")
+    ap.add_argument("--skip-memory", action="store_true", help="skip the peak-memory runs")
     ap.add_argument("--copies", type=int, default=4, help="slides in the 1- vs 2-worker comparison")
-    ap.add_argument("--repeat", type=int, default=3, help="runs of each tile-out row (the fastest is kept)")
+    ap.add_argument("--rounds", type=int, default=3, help="interleaved rounds of every timed row")
     args = ap.parse_args(argv)
     t_start = time.perf_counter()
     load0 = os.getloadavg()
@@ -199,121 +190,140 @@ def main(argv=None):
     n = len(yx)
     src_mp = n * (TILE * scale) ** 2 / 1e6
     tmp = Path(tempfile.mkdtemp(prefix="tw-bench-"))
-    rows = []
+    base = tw.TilingConfig(mpp=MPP, tile=TILE)
+    one = base.replace(threads=1)
+    mac_cfg = base.replace(normalizer="macenko")
+    many = len(copies)
+    clients = {}
+    results = {}  # key -> list of (seconds, tiles, cpu) per round
 
-    def row(name, seconds, tiles, mp, note=""):
-        rows.append((name, tiles, seconds, tiles / seconds, mp / seconds, CPU[0], note))
+    def raw(path):
+        def run():
+            sec, _ = _raw_one_thread(path, yx, scale)
+            return sec, n, CPU[0]
+        return run
+
+    def out(paths, name, cfg, client=None, target=None):
+        def run():
+            sec, k, res = cohort(paths, tmp / name, cfg, client=clients[client][0] if client else None, target=target)
+            results.setdefault(name + ":res", res)
+            return sec, k, CPU[0]
+        return run
 
     try:
-        # warm-up: page cache holds the slide, modules are imported (as in any long cohort run)
+        # warm-up: page cache holds the slides, modules are imported (as in any long cohort run)
         tw.tile_slide(main_slide, tmp / "warm", tw.TilingConfig(mpp=MPP, max_tiles=8, qc_overlay=False))
         raw_decode(main_slide, yx[:50], scale)
-
-        threads0 = cv2.getNumThreads()
-        cv2.setNumThreads(1)
-        sec, n_src = best_of(args.repeat, raw_decode, main_slide, yx, scale)
-        row("raw decode: tifffile, needed level-0 tiles, 1 thread", sec, n, src_mp,
-            f"{n_src} JPEG tiles")
-        sec = hand_loop(main_slide, yx, scale, tmp / "loop.zarr")
-        row("hand loop: OpenSlide 512 px/tile + INTER_AREA + zarr", sec, n, src_mp)
-        cv2.setNumThreads(threads0)
-
-        base = tw.TilingConfig(mpp=MPP, tile=TILE)
-        sec, k, res = best_of(args.repeat, cohort, [main_slide], tmp / "tw", base)
-        row("tile-out, 1 worker (threads=2), no normalization", sec, k, src_mp, "defaults: lz4, JPEG check on")
-        bytes_per_tile = store_bytes(res[0].store) / max(res[0].n_tiles, 1)
-        sec, k, _ = best_of(args.repeat, cohort, [main_slide], tmp / "nv", base.replace(verify_jpeg=False))
-        row("tile-out, 1 worker (threads=2), --no-verify-jpeg", sec, k, src_mp, "without the damaged-JPEG check")
-        mac_cfg = base.replace(normalizer="macenko")
-        sec, k, _ = best_of(args.repeat, cohort, [main_slide], tmp / "mac", mac_cfg)
-        row("tile-out, 1 worker (threads=2), Macenko, new cohort", sec, k, src_mp,
-            "incl. the cohort stain target")
-        import json
-
-        target = json.loads((tmp / "mac" / "stain_target.json").read_text())
-        sec, k, _ = best_of(args.repeat, cohort, [main_slide], tmp / "mac2", mac_cfg, target=target)
-        row("tile-out, 1 worker (threads=2), Macenko, target known", sec, k, src_mp,
-            "per-slide cost in a large cohort")
-        sec, k, res = best_of(args.repeat, cohort, [main_slide], tmp / "zstd", base.replace(compression="zstd"))
-        zstd_bytes = store_bytes(res[0].store) / max(res[0].n_tiles, 1)
-        row("tile-out, 1 worker (threads=2), compression=zstd", sec, k, src_mp, "smaller store, more CPU")
-
-        one = base.replace(threads=1)
-        for threads in (1, 2):
-            sec1, k1, _ = best_of(args.repeat, cohort, copies, tmp / f"w1t{threads}", base.replace(threads=threads))
-            row(f"tile-out, 1 worker in-process (threads={threads}), {len(copies)} slides", sec1, k1,
-                src_mp * len(copies), "one worker's threads already use 2 cores" if threads == 2 else "")
+        cohort([main_slide], tmp / "mac-target", mac_cfg)
+        target = json.loads((tmp / "mac-target" / "stain_target.json").read_text())
         for workers in (1, 2):
-            client, cluster = local_client(workers, main_slide, tmp / "warm")
-            try:
-                sec2, k2, _ = best_of(args.repeat, cohort, copies, tmp / f"c{workers}", one, client=client)
-            finally:
-                client.close()
-                cluster.close()
-            row(f"tile-out, {workers} worker{'s' if workers > 1 else ''} on a local dask cluster, "
-                f"{len(copies)} slides", sec2, k2, src_mp * len(copies),
-                "threads=1 each (tile-out --workers 2 on 2 cores); workers started and warm")
-
-        # the same pixels stored as RGB JPEG without chroma subsampling (4:4:4), as some scanners write
-        sec, n_src = best_of(args.repeat, _raw_one_thread, rgb_slide, yx, scale)
-        row("raw decode, RGB-JPEG copy of the slide, 1 thread", sec, n, src_mp, f"{n_src} JPEG tiles")
-        sec, k, _ = best_of(args.repeat, cohort, [rgb_slide], tmp / "rgb", base)
-        row("tile-out, 1 worker (threads=2), RGB-JPEG copy", sec, k, src_mp, "defaults")
-
+            clients[workers] = local_client(workers, main_slide, tmp / "warm")
+        rows = [  # key, label, run, source MP, note
+            ("raw", "raw decode: tifffile, needed level-0 tiles, 1 thread", raw(main_slide), src_mp,
+             f"{4 * n} JPEG tiles"),
+            ("loop", "hand loop: OpenSlide 512 px/tile + INTER_AREA + zarr", None, src_mp, "first round only"),
+            ("tw", "tile-out, 1 worker (threads=2), no normalization", out([main_slide], "tw", base), src_mp,
+             "defaults: lz4, JPEG check on"),
+            ("nv", "tile-out, 1 worker (threads=2), --no-verify-jpeg",
+             out([main_slide], "nv", base.replace(verify_jpeg=False)), src_mp, "without the damaged-JPEG check"),
+            ("mac", "tile-out, 1 worker (threads=2), Macenko, new cohort", out([main_slide], "mac", mac_cfg),
+             src_mp, "incl. the cohort stain target"),
+            ("mac2", "tile-out, 1 worker (threads=2), Macenko, target known",
+             out([main_slide], "mac2", mac_cfg, target=target), src_mp, "per-slide cost in a large cohort"),
+            ("zstd", "tile-out, 1 worker (threads=2), compression=zstd",
+             out([main_slide], "zstd", base.replace(compression="zstd")), src_mp, "smaller store, more CPU"),
+            ("in1", f"tile-out, 1 worker in-process (threads=1), {many} slides", out(copies, "in1", one),
+             src_mp * many, "helper threads use a little of the 2nd core"),
+            ("in2", f"tile-out, 1 worker in-process (threads=2), {many} slides", out(copies, "in2", base),
+             src_mp * many, "one worker's threads already use 2 cores"),
+            ("d1", f"tile-out, 1 worker on a local dask cluster, {many} slides", out(copies, "d1", one, client=1),
+             src_mp * many, "threads=1; workers started and warm"),
+            ("d2", f"tile-out, 2 workers on a local dask cluster, {many} slides", out(copies, "d2", one, client=2),
+             src_mp * many, "threads=1 each (tile-out --workers 2 on 2 cores)"),
+            ("rgbraw", "raw decode, RGB-JPEG copy of the slide, 1 thread", raw(rgb_slide), src_mp,
+             "same pixels, RGB JPEG 4:4:4"),
+            ("rgb", "tile-out, 1 worker (threads=2), RGB-JPEG copy", out([rgb_slide], "rgb", base), src_mp, "defaults"),
+        ]
+        for r in range(args.rounds):  # every row once a round: drifting load hits all rows alike
+            for key, _, run, _, _ in rows:
+                if key == "loop":
+                    if r == 0:
+                        sec = hand_loop(main_slide, yx, scale, tmp / "loop.zarr")
+                        results[key] = [(sec, n, CPU[0])]
+                    continue
+                results.setdefault(key, []).append(run())
+        bytes_per_tile = store_bytes(results["tw:res"][0].store) / n
+        zstd_bytes = store_bytes(results["zstd:res"][0].store) / n
         memory = []
         if not args.skip_memory:
-            for p in (small, big):
-                rss, out = peak_rss_mib_of("memory_probe", str(p), "2", "1")
-                rss_plain, _ = peak_rss_mib_of("memory_probe", str(p), "2", "0")
-                with tw.open_wsi(p) as s:
-                    memory.append((p, s.dimensions, int(out.split()[0]), rss, rss_plain))
+            for _ in range(args.rounds):  # alternate the slides; the median is kept (heap layout varies)
+                for p in (small, big):
+                    for overlay in ("1", "0"):
+                        rss, text = peak_rss_mib_of("memory_probe", str(p), "2", overlay)
+                        memory.append((p, overlay, rss, int(text.split()[0])))
     finally:
+        for client, cluster in clients.values():
+            client.close()
+            cluster.close()
         shutil.rmtree(tmp, ignore_errors=True)
 
-    loop_rate = rows[1][4]
-    raw_rate = rows[0][4]
+    def best(key):
+        return min(results[key], key=lambda t: t[0])
+
+    def ratio(key_a, key_b, mp_a=1.0, mp_b=1.0):
+        """Median over rounds of rate(a) / rate(b), both measured in the same round."""
+        pairs = zip(results[key_a], results[key_b]) if len(results[key_b]) > 1 else \
+            ((x, results[key_b][0]) for x in results[key_a][:1])
+        return statistics.median((mp_a / a[0]) / (mp_b / b[0]) for a, b in pairs)
+
     print()
     print(f"tilewright {tw.__version__} | slide {main_slide.name}: 24576 x 20480 px at 0.25 µm/px -> "
-          f"{n} tiles of {TILE} px at {MPP} µm/px ({src_mp:.0f} source MP) | {os.cpu_count()} CPUs")
+          f"{n} tiles of {TILE} px at {MPP} µm/px ({src_mp:.0f} source MP) | {os.cpu_count()} CPUs | "
+          f"{args.rounds} interleaved rounds, fastest shown")
     head = (f"{'method':<58}{'tiles':>6}{'s':>7}{'tiles/s':>8}{'src MP/s':>9}{'x loop':>7}{'x raw':>6}"
-            f"{'CPU s':>7}{'x raw/CPU':>10}  note")
+            f"{'CPU s':>7}  note")
     print(head)
     print("-" * len(head))
-    raw_cpu_rate = src_mp / rows[0][5]
-    for name, tiles, sec, tps, mps, cpu, note in rows:
-        mp = mps * sec
-        cpu_txt = f"{cpu:>7.2f}{mp / cpu / raw_cpu_rate:>10.2f}" if cpu else f"{'-':>7}{'-':>10}"
-        print(f"{name:<58}{tiles:>6d}{sec:>7.2f}{tps:>8.0f}{mps:>9.1f}{mps / loop_rate:>7.2f}"
-              f"{mps / raw_rate:>6.2f}{cpu_txt}  {note}")
+    loop_rate = src_mp / best("loop")[0]
+    raw_rate = src_mp / best("raw")[0]
+    for key, label, _, mp, note in rows:
+        sec, tiles, cpu = best(key)
+        cpu_txt = f"{cpu:>7.2f}" if cpu else f"{'-':>7}"
+        print(f"{label:<58}{tiles:>6d}{sec:>7.2f}{tiles / sec:>8.0f}{mp / sec:>9.1f}{mp / sec / loop_rate:>7.2f}"
+              f"{mp / sec / raw_rate:>6.2f}{cpu_txt}  {note}")
     print("-" * len(head))
-    print("x raw/CPU: source MP per CPU second of this process against raw decode's (per-core efficiency)")
     print(f"stored bytes per tile: default blosc-lz4 {bytes_per_tile:,.0f} "
           f"({100 * bytes_per_tile / (TILE * TILE * 3):.0f} % of raw {TILE * TILE * 3:,}); "
           f"blosc-zstd {zstd_bytes:,.0f} ({100 * zstd_bytes / (TILE * TILE * 3):.0f} %)")
-    for p, (h, w), k, rss, rss_plain in memory:
-        print(f"peak RSS, one worker (threads=2), {w} x {h} px slide, {k} tiles: {rss:,.0f} MiB "
-              f"({rss_plain:,.0f} MiB without the QC overlay)")
+    peak = {}
+    for p, overlay, rss, k in memory:
+        peak.setdefault((p, overlay), []).append(rss)
+    for p in (small, big) if memory else ():
+        with tw.open_wsi(p) as sl:
+            h, w = sl.dimensions
+        print(f"peak RSS, one worker (threads=2), {w} x {h} px slide: median {statistics.median(peak[p, '1']):,.0f} "
+              f"MiB ({statistics.median(peak[p, '0']):,.0f} MiB without the QC overlay); runs "
+              f"{', '.join(f'{v:.0f}' for v in peak[p, '1'])}")
     print()
-    tw1, no_check, mac = rows[2], rows[3], rows[5]
-    mac_cost = tw1[4] / mac[4] - 1
-    inproc1, dask1, dask2 = rows[7], rows[9], rows[10]
-    scaling = dask2[4] / inproc1[4]
+    mac_cost = ratio("tw", "mac2") - 1
     aims = [
-        ("tile-out / hand loop (source MP/s)", tw1[4] / loop_rate, ">= 3.5", tw1[4] / loop_rate >= 3.5),
-        ("tile-out / raw decode", tw1[4] / raw_rate, ">= 0.7", tw1[4] / raw_rate >= 0.7),
-        ("  the same with --no-verify-jpeg", no_check[4] / raw_rate, ">= 0.7", no_check[4] / raw_rate >= 0.7),
-        ("Macenko extra time (target known)", 100 * mac_cost, "<= 35 %", mac_cost <= 0.35),
-        ("2 workers / 1 worker (1 thread each)", scaling, ">= 1.7", scaling >= 1.7),
-        ("  the same, both on dask", dask2[4] / dask1[4], ">= 1.7", dask2[4] / dask1[4] >= 1.7),
-        ("tile-out / raw decode, RGB-JPEG copy", rows[12][4] / rows[11][4], ">= 0.7", rows[12][4] / rows[11][4] >= 0.7),
+        ("tile-out / hand loop (source MP/s)", ratio("tw", "loop"), ">= 3.5", 3.5),
+        ("tile-out / raw decode", ratio("tw", "raw"), ">= 0.7", 0.7),
+        ("  the same with --no-verify-jpeg", ratio("nv", "raw"), ">= 0.7", 0.7),
+        ("  the same on the RGB-JPEG copy", ratio("rgb", "rgbraw"), ">= 0.7", 0.7),
+        ("Macenko extra time (target known), %", 100 * mac_cost, "<= 35", -35),
+        ("2 workers / 1 worker (1 thread each)", ratio("d2", "in1"), ">= 1.7", 1.7),
+        ("  the same, both on dask", ratio("d2", "d1"), ">= 1.7", 1.7),
     ]
-    if len(memory) == 2:
-        diff = memory[1][3] / memory[0][3] - 1
-        aims.append(("peak RSS 60k-wide vs 20k-wide", 100 * diff, "< 20 %", abs(diff) < 0.2))
-        aims.append(("peak RSS 60k-wide (MiB)", memory[1][3], "<= 1536", memory[1][3] <= 1536))
-        diff = memory[1][4] / memory[0][4] - 1
-        aims.append(("  the same without the QC overlay", 100 * diff, "< 20 %", abs(diff) < 0.2))
-    for name, value, aim, ok in aims:
+    if memory:
+        s_med, b_med = statistics.median(peak[small, "1"]), statistics.median(peak[big, "1"])
+        s_pl, b_pl = statistics.median(peak[small, "0"]), statistics.median(peak[big, "0"])
+        aims += [("peak RSS 60k-wide vs 20k-wide, %", 100 * (b_med / s_med - 1), "< 20", -20),
+                 ("  the same without the QC overlay, %", 100 * (b_pl / s_pl - 1), "< 20", -20),
+                 ("peak RSS 60k-wide (MiB)", b_med, "<= 1536", -1536)]
+    print("aims: ratios are medians over the rounds of rates measured in the same round")
+    for name, value, aim, limit in aims:
+        ok = value >= limit if limit > 0 else value <= -limit
         print(f"{name:<42}{value:>9.2f}   aim {aim:<8} {'met' if ok else 'MISSED'}")
     load1 = os.getloadavg()
     print(f"\nload average (1 min) before {load0[0]:.1f}, after {load1[0]:.1f}; "

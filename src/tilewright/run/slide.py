@@ -129,23 +129,27 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
         survey = _survey(slide, view, config, slide_id, path, regions, target)
         plan, attrs = survey.plan, survey.attrs
         release_free()  # the survey's temporaries are gone: start the tile pipeline on a clean heap
-        with StoreWriter(final, len(plan), config.tile, shard_tiles=config.shard_tiles,
-                         compression=config.compression, with_region=attrs["regions"] is not None) as writer, \
-                ThreadPoolExecutor(2, thread_name_prefix="tilewright-aside") as pool:
-            # the slide's stain estimate is fitted while the first blocks are read and decoded
-            bind = (pool.submit(_bind_normalizer, view, plan, config, target, path, survey.glass)
-                    if config.normalizer else None)
-            # the slide-sized pictures go to the store, the QC picture is drawn and the source is
-            # digested beside the tile pipeline; the pictures are freed once written
-            aside = pool.submit(_aside, writer, survey.maps, survey.draw if config.qc_overlay else None, plan,
-                                path, slide_id)
-            survey.maps = survey.draw = None
-            _tile_arrays(view, plan, config, bind, writer, progress)
-            bound = None if bind is None else bind.result()
-            attrs["normalizer"] = None if bound is None else bound.to_dict()
-            png, attrs["source"]["digest"] = aside.result()
-            writer.commit(attrs, overwrite=overwrite)
-            n = writer.n
+        try:
+            with StoreWriter(final, len(plan), config.tile, shard_tiles=config.shard_tiles,
+                             compression=config.compression, with_region=attrs["regions"] is not None) as writer, \
+                    ThreadPoolExecutor(2, thread_name_prefix="tilewright-aside") as pool:
+                # the slide's stain estimate is fitted while the first blocks are read and decoded
+                bind = (pool.submit(_bind_normalizer, view, plan, config, target, path, survey.glass)
+                        if config.normalizer else None)
+                # the slide-sized pictures go to the store, the QC picture is drawn and the source is
+                # digested beside the tile pipeline; the pictures are freed once written
+                aside = pool.submit(_aside, writer, survey.maps, survey.draw if config.qc_overlay else None, plan,
+                                    path, slide_id)
+                survey.maps = survey.draw = None
+                _tile_arrays(view, plan, config, bind, writer, progress)
+                bound = None if bind is None else bind.result()
+                attrs["normalizer"] = None if bound is None else bound.to_dict()
+                png, attrs["source"]["digest"] = aside.result()
+                writer.commit(attrs, overwrite=overwrite)
+                n = writer.n
+        except BaseException:  # nothing half-written survives, whatever stopped the slide
+            remove_partials(final)
+            raise
         if png is not None:
             _write_png(png, final.parent / "qc" / f"{slide_id}.png", slide_id)
         return SlideResult(slide_id=slide_id, source=str(path), status="ok", n_tiles=int(n),

@@ -97,15 +97,18 @@ class StoreWriter:
                 "tiles", shape=(cap, tile, tile, 3), chunks=(1, tile, tile, 3),
                 shards=(shard, tile, tile, 3), dtype="uint8", compressors=compressor(compression),
                 fill_value=255, dimension_names=("tile", "y", "x", "rgb"))
+            self._meta = {"yx": [], "yx_level0": [], "tissue": [], "sharpness": [], "region": []}
+            self.with_region = with_region
+            self.shard = int(self.tiles.shards[0])
+            self._encoder = ShardEncoder.for_array(self.tiles)  # None: let zarr write the tiles
+            self._pending: list = []  # encoded chunks of a shard not yet full
         except OSError as exc:
             self.abort()
             raise StoreError(f"cannot create the store ({exc.strerror or exc}); check that the output "
                              "folder is writable and has free space", self.final) from exc
-        self._meta = {"yx": [], "yx_level0": [], "tissue": [], "sharpness": [], "region": []}
-        self.with_region = with_region
-        self.shard = int(self.tiles.shards[0])
-        self._encoder = ShardEncoder.for_array(self.tiles)  # None: let zarr write the tiles
-        self._pending: list = []  # encoded chunks of a shard not yet full
+        except BaseException:  # e.g. Ctrl-C while the folder is being made: __exit__ will not run
+            self.abort()
+            raise
 
     @property
     def encodes(self) -> bool:
@@ -225,8 +228,8 @@ class StoreWriter:
             full.update(format=FORMAT_NAME, format_version=FORMAT_VERSION, n_tiles=int(self.n),
                         created=datetime.now(timezone.utc).isoformat(timespec="seconds"))
             full["complete"] = False
-            self.group.attrs.update(full)
-            self.group.attrs.update({"complete": True})  # the last thing written
+            self.group.update_attributes(full)  # one metadata write (attrs.update writes per key)
+            self.group.update_attributes({"complete": True})  # the last thing written
             if self.final.exists():
                 if not overwrite:
                     raise StoreError("a store already exists; pass overwrite to replace it", self.final)

@@ -15,7 +15,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["glass_colour", "optical_density", "od_tables", "channel_mean", "channel_max", "channel_min"]
+__all__ = ["glass_colour", "optical_density", "od_lookup", "od_tables", "channel_mean", "channel_max", "channel_min"]
 
 #: Glass colours darker than this (mean of RGB) are not trusted; the slide is probably all tissue.
 _MIN_GLASS_LEVEL = 180.0
@@ -108,7 +108,21 @@ def optical_density(rgb: np.ndarray, glass=None) -> np.ndarray:
     rgb = np.asarray(rgb)
     if glass is None:
         glass = glass_colour(rgb)
-    tables = od_tables(glass)
+    return od_lookup(rgb, od_tables(glass))
+
+
+def od_lookup(rgb: np.ndarray, tables: np.ndarray) -> np.ndarray:
+    """``tables[c, rgb[..., c]]`` for each channel: a uint8 RGB image through :func:`od_tables`.
+
+    One OpenCV table look-up (``cv2.LUT``) for contiguous uint8 images, a numpy ``take`` per
+    channel otherwise; the values are the tables' own either way.
+    """
+    rgb = np.asarray(rgb)
+    if rgb.dtype == np.uint8 and rgb.ndim >= 2 and rgb.shape[-1] == 3 and rgb.flags.c_contiguous and rgb.size:
+        import cv2
+
+        lut = np.ascontiguousarray(np.asarray(tables, np.float32).T).reshape(256, 1, 3)
+        return cv2.LUT(rgb.reshape(-1, 1, 3), lut).reshape(rgb.shape)
     out = np.empty(rgb.shape, np.float32)
     for c in range(3):  # a 256-entry table per channel: no float copy of the image
         np.take(tables[c], rgb[..., c], out=out[..., c])

@@ -94,8 +94,11 @@ def hne_plane_normal(od: np.ndarray, *, min_od: float = 0.15, keep: float = 0.8,
         sub = x[res <= np.quantile(res, keep)]
         if sub.shape[0] < min_pixels:
             break
-        _, _, vt = np.linalg.svd(sub, full_matrices=False)
-        normal = vt[2] if vt[2] @ RUIFROK_PLANE_NORMAL >= 0 else -vt[2]
+        # the right singular vector of the smallest singular value of ``sub``: the eigenvector of
+        # the smallest eigenvalue of its 3 x 3 scatter matrix (no tall SVD needed)
+        _, vecs = np.linalg.eigh(sub.T @ sub)
+        v = vecs[:, 0]
+        normal = v if v @ RUIFROK_PLANE_NORMAL >= 0 else -v
     if np.degrees(np.arccos(min(1.0, abs(float(normal @ RUIFROK_PLANE_NORMAL))))) > max_tilt_deg:
         return RUIFROK_PLANE_NORMAL.copy()
     return normal

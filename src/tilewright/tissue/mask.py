@@ -18,7 +18,7 @@ from concurrent.futures import ThreadPoolExecutor
 import numpy as np
 
 from . import ink as _ink
-from .density import channel_max, channel_min, glass_colour, od_tables
+from .density import channel_max, channel_min, glass_colour, od_lookup, od_tables
 from .otsu import otsu_threshold
 from .raster import box_fractions, summed_area_table
 
@@ -225,10 +225,11 @@ def tissue_feature(rgb: np.ndarray, mpp: float, *, method: str = "od-otsu", smoo
     for r0, r1, a0, a1 in _bands(h, sigma):
         band = rgb[a0:a1]
         if method == "od-otsu":  # mean optical density over R, G, B, from 256-entry tables
-            f = tables[0][band[..., 0]]
-            f += tables[1][band[..., 1]]
-            f += tables[2][band[..., 2]]
+            od = od_lookup(np.ascontiguousarray(band), tables)
+            f = od[..., 0] + od[..., 1]
+            f += od[..., 2]
             f /= np.float32(3)
+            del od
         else:
             top = channel_max(band).astype(np.float32)
             f = top - channel_min(band)
@@ -249,10 +250,7 @@ def _bands(h: int, sigma_px: float):
 
 def _smoothed_od(band: np.ndarray, tables: np.ndarray, sigma_px: float) -> np.ndarray:
     """Per-channel optical density of an RGB band (table look-ups), Gaussian-smoothed."""
-    od = np.empty(band.shape, np.float32)
-    for c in range(3):
-        np.take(tables[c], band[..., c], out=od[..., c])
-    return _smooth(od, sigma_px)
+    return _smooth(od_lookup(np.ascontiguousarray(band), tables), sigma_px)
 
 
 def _ink_and_dark(rgb, glass, sigma_px, *, exclude_ink, ink_residual, exclude_dark, dark_od):
