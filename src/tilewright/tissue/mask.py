@@ -13,7 +13,6 @@ from __future__ import annotations
 
 import math
 import os
-from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
 
@@ -376,14 +375,10 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-otsu", min_od_floo
         raise ValueError(f"unknown tissue method {method!r}; choose one of {METHODS}")
     rgb, path = _thumbnail(slide, mpp)
     glass = glass_colour(rgb) if glass is None else np.asarray(glass, dtype=np.float64)
-    # ink and debris do not depend on the tissue threshold: found on a second thread meanwhile
-    # (numpy and OpenCV release the GIL for most of both)
-    with ThreadPoolExecutor(1, thread_name_prefix="tilewright-ink") as pool:
-        artifacts = pool.submit(_ink_and_dark, rgb, glass, smooth_um / mpp, exclude_ink=exclude_ink,
-                                ink_residual=ink_residual, exclude_dark=exclude_dark, dark_od=dark_od)
-        tissue, otsu, threshold = _tissue(rgb, mpp, method, smooth_um, glass, min_od_floor, max_od_ceiling,
-                                          min_saturation, close_um, open_um, fill_holes_um2)
-        ink, dark, normal = artifacts.result()
+    tissue, otsu, threshold = _tissue(rgb, mpp, method, smooth_um, glass, min_od_floor, max_od_ceiling,
+                                      min_saturation, close_um, open_um, fill_holes_um2)
+    ink, dark, normal = _ink_and_dark(rgb, glass, smooth_um / mpp, exclude_ink=exclude_ink,
+                                      ink_residual=ink_residual, exclude_dark=exclude_dark, dark_od=dark_od)
     area = mpp * mpp
     if exclude_ink:
         ink = _morph(_morph(ink, "open", 1), "dilate", _px(ink_margin_um, mpp))
