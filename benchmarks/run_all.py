@@ -30,6 +30,7 @@ Usage: ``.venv/bin/python benchmarks/run_all.py [--skip-memory]``
 from __future__ import annotations
 
 import argparse
+import logging
 import os
 import shutil
 import sys
@@ -39,6 +40,7 @@ from pathlib import Path
 
 for _var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
     os.environ.setdefault(_var, "1")
+logging.getLogger("distributed").setLevel(logging.ERROR)  # no cluster chatter between the rows
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 import numpy as np  # noqa: E402
@@ -203,9 +205,18 @@ def main(argv=None):
             return sec, n, CPU[0]
         return run
 
-    def out(paths, name, cfg, client=None, target=None):
+    def out(paths, name, cfg, workers=None, target=None):
         def run():
-            sec, k, res = cohort(paths, tmp / name, cfg, client=clients[client][0] if client else None, target=target)
+            if workers:  # a fresh, warmed-up cluster a round: idle clusters would disturb the other rows
+                clients[workers] = local_client(workers, main_slide, tmp / "warm")
+            try:
+                sec, k, res = cohort(paths, tmp / name, cfg, client=clients[workers][0] if workers else None,
+                                     target=target)
+            finally:
+                if workers:
+                    client, cluster = clients.pop(workers)
+                    client.close()
+                    cluster.close()
             results.setdefault(name + ":res", res)
             return sec, k, CPU[0]
         return run
@@ -216,8 +227,6 @@ def main(argv=None):
         raw_decode(main_slide, yx[:50], scale)
         cohort([main_slide], tmp / "mac-target", mac_cfg)
         target = json.loads((tmp / "mac-target" / "stain_target.json").read_text())
-        for workers in (1, 2):
-            clients[workers] = local_client(workers, main_slide, tmp / "warm")
         rows = [  # key, label, run, source MP, note
             ("raw", "raw decode: tifffile, needed level-0 tiles, 1 thread", raw(main_slide), src_mp,
              f"{4 * n} JPEG tiles"),
@@ -236,9 +245,9 @@ def main(argv=None):
              src_mp * many, "helper threads use a little of the 2nd core"),
             ("in2", f"tile-out, 1 worker in-process (threads=2), {many} slides", out(copies, "in2", base),
              src_mp * many, "one worker's threads already use 2 cores"),
-            ("d1", f"tile-out, 1 worker on a local dask cluster, {many} slides", out(copies, "d1", one, client=1),
+            ("d1", f"tile-out, 1 worker on a local dask cluster, {many} slides", out(copies, "d1", one, workers=1),
              src_mp * many, "threads=1; workers started and warm"),
-            ("d2", f"tile-out, 2 workers on a local dask cluster, {many} slides", out(copies, "d2", one, client=2),
+            ("d2", f"tile-out, 2 workers on a local dask cluster, {many} slides", out(copies, "d2", one, workers=2),
              src_mp * many, "threads=1 each (tile-out --workers 2 on 2 cores)"),
             ("rgbraw", "raw decode, RGB-JPEG copy of the slide, 1 thread", raw(rgb_slide), src_mp,
              "same pixels, RGB JPEG 4:4:4"),

@@ -312,10 +312,11 @@ class TiffBackend:
             if plan is False:
                 plan = lv.sentinels[header] = js.sentinel_plan(header, lv.jpegtables)
         fits = plan is not None and (plan.height, plan.width) == (lv.tile_h, lv.tile_w)
-        ext = js.sentinel_stream(data, plan) if fits else None
-        if ext is not None and not plan.vertical:
-            seg = js.decode_with_sentinel(ext, plan, self._scratch_tile((plan.ext_height, lv.tile_w)),
-                                          tables=lv.jpegtables, colorspace=lv.jpeg[0], outcolorspace=lv.jpeg[1])
+        if fits and not plan.vertical:
+            ext = js.sentinel_stream(data, plan)
+            seg = None if ext is None else js.decode_with_sentinel(
+                ext, plan, self._scratch_tile((plan.ext_height, lv.tile_w)), tables=lv.jpegtables,
+                colorspace=lv.jpeg[0], outcolorspace=lv.jpeg[1])
             if seg is not None:
                 return seg, True
         elif lv.jpeg is not None and _strict.available():
@@ -324,6 +325,7 @@ class TiffBackend:
                 seg = _strict.decode_strict(stream, self._scratch_tile((lv.tile_h, lv.tile_w)))
                 if seg is not None:
                     return seg, True
+        ext = js.sentinel_stream(data, plan) if fits else None  # built only when needed
         seg = self._decode(lv, data, index)
         if ext is not None and plan.vertical and js.reduced_sentinel_intact(ext, lv.jpegtables, plan):
             return seg, True
