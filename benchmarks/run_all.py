@@ -18,7 +18,7 @@ tile-out      tile_cohort (what the tile-out command runs) with the given worker
               overlay on, timed end to end (mask, plan, reads, normalization, store, manifest).
 
 "source MP/s" counts the level-0 pixels behind the stored tiles (512 x 512 a tile). Every row runs
-once a round, ``--rounds`` (3) interleaved rounds, so load that drifts on a shared machine hits
+once a round, ``--rounds`` (5) interleaved rounds, so load that drifts on a shared machine hits
 all rows alike; the table shows each row's fastest run (the slow hand loop runs in the first round
 only), and each aim's ratio is the median over the rounds of two rates measured in the same round.
 Peak memory: fresh processes, small and large slide alternated, medians. The load average is
@@ -177,7 +177,7 @@ def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--skip-memory", action="store_true", help="skip the peak-memory runs")
     ap.add_argument("--copies", type=int, default=4, help="slides in the 1- vs 2-worker comparison")
-    ap.add_argument("--rounds", type=int, default=3, help="interleaved rounds of every timed row")
+    ap.add_argument("--rounds", type=int, default=5, help="interleaved rounds of every timed row")
     args = ap.parse_args(argv)
     t_start = time.perf_counter()
     load0 = os.getloadavg()

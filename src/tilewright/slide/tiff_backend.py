@@ -35,6 +35,10 @@ __all__ = ["TiffBackend"]
 
 # Vendor flavours whose tile grids tifffile exposes but whose geometry needs a vendor
 # reader (overlapping tiles, multiple images, JPEG restart-marker "tiles"): OpenSlide serves them.
+# JPEG headers remembered per level (sentinel plans, strict-decode verdicts); bounds memory when
+# every tile carries its own tables.
+_HEADER_CACHE = 1024
+
 _VENDOR_FLAGS = ("is_ndpi", "is_philips", "is_scn", "is_qpi", "is_bif", "is_mdgel", "is_lsm")
 
 
@@ -57,7 +61,7 @@ class _Level:
         self.is_jpeg = int(page.compression) == 7  # new-style JPEG (TIFF Technical Note 2)
         self.jpeg = _jpeg_args(page)  # (colorspace, outcolorspace) for the direct JPEG path, or None
         self.sentinels = {}  # JPEG header bytes -> SentinelPlan or None (see jpeg_sentinel)
-        self.strict = {}  # colour signature -> whether the strict decode equals this page's (jpeg_strict)
+        self.strict = {}  # colour signature or header bytes -> strict decode equals this page's (jpeg_strict)
 
 
 def _jpeg_args(page):
@@ -276,9 +280,13 @@ class TiffBackend:
         seg = lv.decode(data, index, jpegtables=lv.jpegtables)[0]
         return None if seg is None else seg.reshape(seg.shape[-3:])
 
-    def _strict_agrees(self, lv: _Level, stream: bytes, data, index: int) -> bool:
+    def _strict_agrees(self, lv: _Level, stream: bytes, data, index: int, header: bytes | None = None) -> bool:
         """Whether strict decodes of streams with this one's colour signature equal the page's
-        decode (checked on the first such tile that decodes cleanly; see jpeg_strict)."""
+        decode (checked on the first such tile that decodes cleanly; see jpeg_strict). The answer
+        is also kept under the tile's ``header`` bytes, so tiles sharing a header skip parsing."""
+        ok = lv.strict.get(header) if header is not None else None
+        if ok is not None:
+            return ok
         sig = _strict.colour_signature(stream)
         if sig is None:
             return False
@@ -289,6 +297,10 @@ class TiffBackend:
                 return False  # undecided (this tile may be damaged): the next clean tile decides
             want = self._decode(lv, data, index)
             ok = lv.strict[sig] = want is not None and np.array_equal(want, got)
+        if header is not None:
+            if len(lv.strict) >= _HEADER_CACHE:
+                lv.strict.clear()
+            lv.strict[header] = ok
         return ok
 
     def _decode_verified(self, lv: _Level, data, index: int):
@@ -310,6 +322,8 @@ class TiffBackend:
             header = data[:start]
             plan = lv.sentinels.get(header, False)
             if plan is False:
+                if len(lv.sentinels) >= _HEADER_CACHE:  # headers differ tile by tile (own tables)
+                    lv.sentinels.clear()
                 plan = lv.sentinels[header] = js.sentinel_plan(header, lv.jpegtables)
         fits = plan is not None and (plan.height, plan.width) == (lv.tile_h, lv.tile_w)
         if fits and not plan.vertical:
@@ -321,7 +335,7 @@ class TiffBackend:
                 return seg, True
         elif lv.jpeg is not None and _strict.available():
             stream = _strict.complete_stream(data, lv.jpegtables)
-            if self._strict_agrees(lv, stream, data, index):
+            if self._strict_agrees(lv, stream, data, index, None if start is None else header):
                 seg = _strict.decode_strict(stream, self._scratch_tile((lv.tile_h, lv.tile_w)))
                 if seg is not None:
                     return seg, True
