@@ -138,9 +138,8 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
                         if config.normalizer else None)
                 # the slide-sized pictures go to the store, the QC picture is drawn and the source is
                 # digested beside the tile pipeline; the pictures are freed once written
-                aside = pool.submit(_aside, writer, survey.maps, survey.draw if config.qc_overlay else None, plan,
-                                    path, slide_id)
-                survey.maps = survey.draw = None
+                aside = pool.submit(_aside, writer, survey.maps, survey.draw, survey.mask, plan, path, slide_id)
+                survey.maps = survey.draw = survey.mask = None
                 _tile_arrays(view, plan, config, bind, writer, progress)
                 bound = None if bind is None else bind.result()
                 attrs["normalizer"] = None if bound is None else bound.to_dict()
@@ -164,7 +163,7 @@ def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNames
     Reads the thumbnail once (mask, glass colour, store pictures and QC picture share it), masks
     tissue, plans tiles and measures the glass colour. Returns the plan, the glass colour,
     the store attributes, the pictures the store keeps (``maps``) and what the QC picture is drawn
-    from (``draw``: thumbnail and mask, its summed-area cache dropped); the caller hands these to
+    from (``draw``: its own small copy of the thumbnail; ``mask``, summed-area cache dropped); the caller hands these to
     :func:`_aside` and drops them, so memory while tiles are read does not grow with the slide.
     """
     from tilewright.tissue.mask import tissue_mask
@@ -200,18 +199,25 @@ def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNames
     }
     mask.clear_cache()
     maps = (thumbnail[: mask_arr.shape[0], : mask_arr.shape[1]], mask_arr, {"ink": np.asarray(mask.ink, dtype=bool)})
-    return SimpleNamespace(plan=plan, glass=glass, attrs=attrs, maps=maps, draw=(thumbnail, mask))
+    draw = None
+    if config.qc_overlay:  # the picture's own small copy: the thumbnail is not kept for it
+        from tilewright.tissue.overlay import overlay_base
+
+        draw = overlay_base(thumbnail[..., :3], mask.mpp)
+    return SimpleNamespace(plan=plan, glass=glass, attrs=attrs, maps=maps, draw=draw, mask=mask)
 
 
-def _aside(writer, maps, draw, plan, path, slide_id):
+def _aside(writer, maps, draw, mask, plan, path, slide_id):
     """Work beside the tile pipeline: the store's pictures, the QC picture, the source digest.
 
-    ``maps`` are :meth:`StoreWriter.write_maps`'s arguments; ``draw`` is ``(thumbnail, mask)`` for
-    the QC picture, or None. Returns ``(png bytes or None, digest)``. Holds the only references to
-    the thumbnail and the mask once the caller dropped its own, so they are freed on return.
+    ``maps`` are :meth:`StoreWriter.write_maps`'s arguments; ``draw`` is the QC picture's base
+    ``(rgb, mpp)`` (see :func:`tilewright.tissue.overlay.overlay_base`), or None. Returns
+    ``(png bytes or None, digest)``. Holds the only references to the thumbnail and the mask
+    once the caller dropped its own, so they are freed on return.
     """
     writer.write_maps(*maps)
-    png = None if draw is None else _overlay(draw[0], draw[1], plan, slide_id)
+    del maps  # the thumbnail goes as soon as it is on disk
+    png = None if draw is None else _overlay(draw[0], mask, plan, slide_id, draw[1])
     return png, _digest(path)
 
 
@@ -256,12 +262,12 @@ def _regions_for(regions, config, slide_id, level0_mpp, path):
     return regions.with_mpp(level0_mpp) if hasattr(regions, "with_mpp") else regions
 
 
-def _overlay(thumbnail, mask, plan, slide_id):
+def _overlay(rgb, mask, plan, slide_id, mpp):
     """QC picture PNG bytes, or None when drawing fails (logged; a picture never fails the slide)."""
     from tilewright.tissue.overlay import overlay_png
 
     try:
-        return overlay_png(thumbnail, mask, plan, mpp=mask.mpp, title=slide_id)
+        return overlay_png(rgb, mask, plan, mpp=mpp, title=slide_id)
     except Exception as exc:  # noqa: BLE001 - a picture must not cost the tiles
         _warn_png(slide_id, exc)
         return None

@@ -10,7 +10,7 @@ import os
 
 import numpy as np
 
-__all__ = ["render_overlay", "overlay_png", "OVERLAY_COLOURS", "MAX_SIDE"]
+__all__ = ["render_overlay", "overlay_base", "overlay_png", "OVERLAY_COLOURS", "MAX_SIDE"]
 
 #: Our colour design: amber outline, ink struck through in white stripes with a black rim,
 #: red debris, teal tile boxes.
@@ -26,6 +26,7 @@ CAPTION_HEIGHT = 70
 
 _INK_ALPHA, _DARK_ALPHA, _TILE_FILL_ALPHA = 0.8, 0.45, 0.13
 _TEXT = (20, 20, 20)
+_BAND = 128  # rows blended at a time
 
 
 def _resize_nearest(a: np.ndarray, shape) -> np.ndarray:
@@ -43,13 +44,17 @@ def _rgb(hex_colour: str) -> tuple[int, int, int]:
 
 
 def _blend(canvas: np.ndarray, where: np.ndarray, colour, alpha: float) -> None:
-    """Paint ``colour`` with opacity ``alpha`` over ``canvas`` where ``where`` is True (in place)."""
-    if not where.any():
-        return
-    px = canvas[where].astype(np.float32)
-    px *= 1.0 - alpha
-    px += alpha * np.asarray(colour, np.float32)
-    canvas[where] = np.round(px).astype(np.uint8)
+    """Paint ``colour`` with opacity ``alpha`` over ``canvas`` where ``where`` is True (in place),
+    a band of rows at a time (float temporaries stay small whatever the picture size)."""
+    paint = alpha * np.asarray(colour, np.float32)
+    for r in range(0, canvas.shape[0], _BAND):
+        rows, sel = canvas[r:r + _BAND], where[r:r + _BAND]
+        if not sel.any():
+            continue
+        px = rows[sel].astype(np.float32)
+        px *= 1.0 - alpha
+        px += paint
+        rows[sel] = np.round(px).astype(np.uint8)
 
 
 def _outline(canvas: np.ndarray, mask: np.ndarray, colour, thickness: int) -> None:
@@ -166,6 +171,21 @@ def render_overlay(slide, mask, plan, path, *, mpp: float | None = None, title: 
     return path
 
 
+def overlay_base(rgb: np.ndarray, mpp: float) -> tuple[np.ndarray, float]:
+    """The thumbnail the QC picture is drawn on, and its µm/px: at most :data:`MAX_SIDE` pixels
+    on its longer side (area-averaged down by an integer factor; bounded memory whatever the
+    slide size). Drawing from this equals drawing from the full thumbnail."""
+    import cv2
+
+    h, w = rgb.shape[:2]
+    shrink = int(np.ceil(max(h, w) / MAX_SIDE))
+    if shrink <= 1:
+        return rgb, mpp
+    small = cv2.resize(np.ascontiguousarray(rgb), (max(1, w // shrink), max(1, h // shrink)),
+                       interpolation=cv2.INTER_AREA)
+    return small, mpp * shrink
+
+
 def overlay_png(slide, mask, plan, *, mpp: float | None = None, title: str | None = None) -> bytes:
     """The QC picture of :func:`render_overlay` as PNG bytes (nothing written).
 
@@ -179,13 +199,8 @@ def overlay_png(slide, mask, plan, *, mpp: float | None = None, title: str | Non
         rgb, name = slide[..., :3], None
     else:
         rgb, name = np.asarray(slide.thumbnail(mpp=mpp))[..., :3], getattr(slide, "path", None)
+    rgb, mpp = overlay_base(rgb, mpp)
     h, w = rgb.shape[:2]
-    shrink = int(np.ceil(max(h, w) / MAX_SIDE))
-    if shrink > 1:  # a bounded picture (and bounded memory) whatever the slide size
-        rgb = cv2.resize(np.ascontiguousarray(rgb), (max(1, w // shrink), max(1, h // shrink)),
-                         interpolation=cv2.INTER_AREA)
-        h, w = rgb.shape[:2]
-        mpp *= shrink
     grow = min(MIN_WIDTH / max(w, 1), MAX_SIDE / max(h, w, 1))
     if grow > 1:  # small thumbnails are enlarged to fill the picture width
         rgb = cv2.resize(np.ascontiguousarray(rgb), (int(round(w * grow)), int(round(h * grow))),
