@@ -117,7 +117,7 @@ def _job(view, yx, tile, process, scratch, reuse):
 
 
 def iter_tile_blocks(view, yx: np.ndarray, tile: int, *, block: int = 2048, threads: int = 2, ahead: int = 2,
-                     process=None, reuse: bool = False):
+                     process=None, reuse: bool = False, groups=None):
     """Yield ``(positions, tiles)`` for each block, in :func:`block_order`.
 
     Parameters
@@ -140,10 +140,14 @@ def iter_tile_blocks(view, yx: np.ndarray, tile: int, *, block: int = 2048, thre
         Read each block into its reader thread's own buffer, reused for the thread's next block
         (no fresh pages to fault in a block). Only when ``process`` returns nothing that refers
         to the tiles it was given (e.g. their compressed bytes).
+    groups : list of ndarray, optional
+        The blocks :func:`block_order` returned with the order of ``yx`` (saves computing them
+        again).
     """
     if reuse and process is None:
         raise ValueError("reuse needs a process that consumes the tiles")
-    _, groups = block_order(yx, tile, block)
+    if groups is None:
+        _, groups = block_order(yx, tile, block)
     scratch = threading.local()  # per reader thread: the strip buffer reused from block to block
     # yx is expected in block order already, so groups index yx directly
     if threads <= 1:

@@ -48,7 +48,7 @@ def _tile_arrays(view, plan, config, bind, writer, progress):
     from tilewright.run.blocks import block_order, iter_tile_blocks
     from tilewright.tissue.sharpness import sharpness
 
-    order, _ = block_order(plan.yx, config.tile, config.block)
+    order, groups = block_order(plan.yx, config.tile, config.block)
     yx = plan.yx[order]
     tissue = plan.tissue[order]
     region = plan.region[order] if getattr(plan, "region", None) is not None else None
@@ -68,7 +68,7 @@ def _tile_arrays(view, plan, config, bind, writer, progress):
 
     for positions, (tiles, sharp, keep, encoded) in iter_tile_blocks(
             view, yx, config.tile, block=config.block, threads=config.threads, process=prepare,
-            reuse=writer.encodes):  # compressed in the reader: its buffer is free for the next block
+            reuse=writer.encodes, groups=groups):  # compressed in the reader: its buffer is free for the next block
         pos = positions if keep is None else positions[keep]
         if len(pos):
             writer.append(tiles, yx[pos], np.rint(yx[pos] * scale).astype(np.int64), tissue[pos], sharp,
