@@ -1,4 +1,4 @@
-"""Tile one slide in this fresh process and print ``<n_tiles> <peak RSS KiB>`` (for the caller).
+"""Tile one slide in this fresh process (as tile-out does) and print ``<n_tiles> <peak RSS KiB>`` (for the caller).
 
 The peak is ``VmHWM`` of ``/proc/self/status`` (this process image only). ``ru_maxrss`` is not used:
 on Linux it keeps the high-water mark of the parent at ``fork`` across ``exec``, so a child of a
@@ -30,5 +30,5 @@ if __name__ == "__main__":
     overlay = sys.argv[3] != "0" if len(sys.argv) > 3 else True
     with tempfile.TemporaryDirectory() as d:
         cfg = tw.TilingConfig(mpp=0.5, tile=256, threads=threads, qc_overlay=overlay)
-        r = tw.tile_slide(sys.argv[1], d, cfg)
+        (r,) = tw.tile_cohort([sys.argv[1]], d, cfg, workers=1, progress=False)  # what tile-out runs
         print(r.n_tiles, peak_rss_kib())

@@ -36,8 +36,9 @@ _state: dict = {}
 def steady_heap() -> bool:
     """Fix this process's malloc thresholds (glibc on Linux; elsewhere nothing happens).
 
-    Idempotent and cheap; called by :func:`tilewright.tile_slide`. Thresholds already chosen
-    through the environment variables are left as they are.
+    Idempotent and cheap; called for every slide of a cohort run (``run_one``: ``tile-out``,
+    :func:`tilewright.tile_cohort`, dask workers). Thresholds already chosen through the
+    environment variables are left as they are.
 
     Returns
     -------
@@ -66,7 +67,8 @@ def release_free() -> None:
     """Give the heaps' free pages back to the system (``malloc_trim(0)``; glibc only).
 
     ``tile_slide`` calls it between the slide-sized survey (thumbnail, mask, plan) and the tile
-    pipeline, whose own buffers are then laid out in a heap without the survey's holes.
+    pipeline, whose own buffers are then laid out in a heap without the survey's holes (only
+    when :func:`steady_heap` is in effect).
     """
     if not _state.get("ok"):
         return

@@ -24,6 +24,9 @@ def run_one(path: str, out_dir: str, config: dict, slide_id: str, mpp: float | N
 
     This is the unit of work sent to dask workers (arguments are plain, picklable values).
     """
+    from tilewright.run.allocator import steady_heap
+
+    steady_heap()  # this process tiles slides: memory that does not grow with them (run/allocator.py)
     t0 = time.perf_counter()
     cfg = TilingConfig.from_dict(config)
     final = store_path(out_dir, slide_id)

@@ -108,15 +108,21 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
     progress : callable, optional
         Called with the number of tiles done after each block.
 
+    Notes
+    -----
+    A process that tiles many slides should call :func:`tilewright.run.allocator.steady_heap`
+    once (``tile-out`` and :func:`tile_cohort` do): with glibc's default malloc thresholds, peak
+    memory grows with slide size through heap fragmentation. It is not done here because it
+    changes the whole process's allocator.
+
     Returns
     -------
     SlideResult
         Raises on failure (a :class:`TilewrightError` for expected problems).
     """
-    from tilewright.run.allocator import release_free, steady_heap
+    from tilewright.run.allocator import release_free
     from tilewright.slide.open import open_wsi
 
-    steady_heap()  # memory that does not grow with the slide (see tilewright.run.allocator)
     config = config or TilingConfig()
     t0 = time.perf_counter()
     path = Path(path)
