@@ -86,6 +86,9 @@ def test_rerun_skips_and_overwrite_redoes(tmp_path):
     before = {p.name: p.stat().st_mtime_ns for p in out.glob("*.zarr")}
     assert tile_out([str(src), str(out), *FAST]) == 0
     assert {p.name: p.stat().st_mtime_ns for p in out.glob("*.zarr")} == before  # nothing rewritten
+    # run-only settings (threads, the lossless codec) leave complete stores as they are
+    assert tile_out([str(src), str(out), "--compression", "zstd", "--threads", "1", *FAST]) == 0
+    assert {p.name: p.stat().st_mtime_ns for p in out.glob("*.zarr")} == before
     assert tile_out([str(src), str(out), "--overwrite", *FAST]) == 0
     assert all(out.joinpath(k).stat().st_mtime_ns != v for k, v in before.items())
 

@@ -61,8 +61,9 @@ def tile_slide_row(path, final, cfg, slide_id, mpp, normalizer) -> SlideResult:
     return res
 
 
-#: Settings that do not change what a store contains.
-_RUN_ONLY = ("threads", "verify_jpeg", "qc_overlay")
+#: Settings that do not change what a store contains. Compression is lossless (the same pixels
+#: whichever codec) and each store names its codec in its metadata, so a cohort may mix them.
+_RUN_ONLY = ("threads", "verify_jpeg", "qc_overlay", "compression")
 
 
 def _complete_row(final: Path, path: str, slide_id: str, cfg: TilingConfig) -> dict | None:
