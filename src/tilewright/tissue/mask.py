@@ -375,11 +375,26 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-otsu", min_od_floo
         raise ValueError(f"unknown tissue method {method!r}; choose one of {METHODS}")
     rgb, path = _thumbnail(slide, mpp)
     glass = glass_colour(rgb) if glass is None else np.asarray(glass, dtype=np.float64)
-    tissue, otsu, threshold = _tissue(rgb, mpp, method, smooth_um, glass, min_od_floor, max_od_ceiling,
-                                      min_saturation, close_um, open_um, fill_holes_um2)
-    ink, dark, normal = _ink_and_dark(rgb, glass, smooth_um / mpp, exclude_ink=exclude_ink,
-                                      ink_residual=ink_residual, exclude_dark=exclude_dark, dark_od=dark_od)
+    feature = tissue_feature(rgb, mpp, method=method, smooth_um=smooth_um, glass=glass)
+    if method == "od-otsu":
+        logs = np.maximum(feature, _LOG_FLOOR)
+        otsu = 10.0 ** otsu_threshold(np.log10(logs, out=logs))
+        del logs
+        threshold = min(max(otsu, min_od_floor), max(max_od_ceiling, min_od_floor))
+    else:
+        otsu = otsu_threshold(feature)
+        threshold = max(otsu, min_saturation)
+    raw = feature > threshold
+    del feature
+    raw = _morph(raw, "close", _px(close_um, mpp))
+    raw = _morph(raw, "open", _px(open_um, mpp))
     area = mpp * mpp
+    tissue = _fill_holes(raw, fill_holes_um2 / area)
+    del raw
+
+    ink, dark, normal = _ink_and_dark(rgb, glass, smooth_um / mpp, exclude_ink=exclude_ink,
+                                      ink_residual=ink_residual, exclude_dark=exclude_dark,
+                                      dark_od=dark_od)
     if exclude_ink:
         ink = _morph(_morph(ink, "open", 1), "dilate", _px(ink_margin_um, mpp))
     tissue = _drop_small(tissue & ~ink & ~dark, min_component_um2 / area)
@@ -395,22 +410,3 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-otsu", min_od_floo
               "hne_plane_normal": None if normal is None else [float(v) for v in normal]}
     return TissueMask(tissue, mpp, ink=ink, dark=dark, threshold=threshold, params=params)
 
-
-def _tissue(rgb, mpp, method, smooth_um, glass, min_od_floor, max_od_ceiling, min_saturation, close_um,
-            open_um, fill_holes_um2):
-    """Steps 2-5 of :func:`tissue_mask`: thresholded feature, closed, opened, holes filled.
-    Returns ``(tissue, otsu, threshold)``."""
-    feature = tissue_feature(rgb, mpp, method=method, smooth_um=smooth_um, glass=glass)
-    if method == "od-otsu":
-        logs = np.maximum(feature, _LOG_FLOOR)
-        otsu = 10.0 ** otsu_threshold(np.log10(logs, out=logs))
-        del logs
-        threshold = min(max(otsu, min_od_floor), max(max_od_ceiling, min_od_floor))
-    else:
-        otsu = otsu_threshold(feature)
-        threshold = max(otsu, min_saturation)
-    raw = feature > threshold
-    del feature
-    raw = _morph(raw, "close", _px(close_um, mpp))
-    raw = _morph(raw, "open", _px(open_um, mpp))
-    return _fill_holes(raw, fill_holes_um2 / (mpp * mpp)), otsu, threshold
