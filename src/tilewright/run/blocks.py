@@ -65,24 +65,15 @@ def _row_runs(yx: np.ndarray, tile: int) -> list[tuple[int, int, int, np.ndarray
     return runs
 
 
-def _work(scratch, h: int, w: int) -> np.ndarray:
-    """A (h, w, 3) uint8 array of this thread, reused from block to block."""
-    need = h * w * 3
-    buf = getattr(scratch, "buf", None)
+def _reused(scratch, name: str, shape: tuple) -> np.ndarray:
+    """A uint8 array of ``shape`` kept on this thread's ``scratch`` under ``name`` and reused from
+    block to block (grown when a block needs more)."""
+    need = int(np.prod(shape))
+    buf = getattr(scratch, name, None)
     if buf is None or buf.size < need:
         buf = np.empty(need, np.uint8)
-        scratch.buf = buf
-    return buf[:need].reshape(h, w, 3)
-
-
-def _tiles_buffer(scratch, n: int, tile: int) -> np.ndarray:
-    """A (n, tile, tile, 3) uint8 array of this thread, reused from block to block."""
-    need = n * tile * tile * 3
-    buf = getattr(scratch, "tiles", None)
-    if buf is None or buf.size < need:
-        buf = np.empty(need, np.uint8)
-        scratch.tiles = buf
-    return buf[:need].reshape(n, tile, tile, 3)
+        setattr(scratch, name, buf)
+    return buf[:need].reshape(shape)
 
 
 def _read_block(view, yx: np.ndarray, tile: int, scratch=None, reuse: bool = False) -> np.ndarray:
@@ -95,17 +86,17 @@ def _read_block(view, yx: np.ndarray, tile: int, scratch=None, reuse: bool = Fal
     """
     y0, x0 = (int(v) for v in yx.min(axis=0))
     y1, x1 = (int(v) for v in yx.max(axis=0) + tile)
-    out = (_tiles_buffer(scratch, len(yx), tile) if reuse
-           else np.empty((len(yx), tile, tile, 3), dtype=np.uint8))
+    shape = (len(yx), tile, tile, 3)
+    out = _reused(scratch, "tiles", shape) if reuse else np.empty(shape, dtype=np.uint8)
     runs = _row_runs(yx, tile)
     if sum(w for _, _, w, _ in runs) * tile < (y1 - y0) * (x1 - x0):
         for y, x, w, members in runs:
-            strip = view.read(y, x, tile, w, out=_work(scratch, tile, w))
+            strip = view.read(y, x, tile, w, out=_reused(scratch, "strip", (tile, w, 3)))
             for i in members:
                 dx = int(yx[i, 1]) - x
                 out[i] = strip[:, dx:dx + tile]
         return out
-    region = view.read(y0, x0, y1 - y0, x1 - x0, out=_work(scratch, y1 - y0, x1 - x0))
+    region = view.read(y0, x0, y1 - y0, x1 - x0, out=_reused(scratch, "strip", (y1 - y0, x1 - x0, 3)))
     for i, (y, x) in enumerate(yx - (y0, x0)):
         out[i] = region[y:y + tile, x:x + tile]
     return out
