@@ -33,12 +33,12 @@ from tilewright.slide.sniff import MAX_PIXELS, MAX_SIDE
 
 __all__ = ["TiffBackend"]
 
-# Vendor flavours whose tile grids tifffile exposes but whose geometry needs a vendor
-# reader (overlapping tiles, multiple images, JPEG restart-marker "tiles"): OpenSlide serves them.
 # JPEG headers remembered per level (sentinel plans, strict-decode verdicts); bounds memory when
 # every tile carries its own tables.
 _HEADER_CACHE = 1024
 
+# Vendor flavours whose tile grids tifffile exposes but whose geometry needs a vendor
+# reader (overlapping tiles, multiple images, JPEG restart-marker "tiles"): OpenSlide serves them.
 _VENDOR_FLAGS = ("is_ndpi", "is_philips", "is_scn", "is_qpi", "is_bif", "is_mdgel", "is_lsm")
 
 
