@@ -37,7 +37,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["SentinelPlan", "decode_with_sentinel", "header_length", "reduced_sentinel_intact",
+__all__ = ["SentinelPlan", "decode_with_sentinel", "header_length", "marker_segments", "reduced_sentinel_intact",
            "sentinel_intact", "sentinel_plan", "sentinel_stream"]
 
 _STEP = 128  # least dequantized DC step between stripe levels (x 1/8 px): 16 grey levels
@@ -73,7 +73,7 @@ class SentinelPlan:
         self.grey_step = grey_step  # decoded grey levels between adjacent stripe levels
 
 
-def _segments(data: bytes):
+def marker_segments(data: bytes):
     """(marker, payload start, payload end) of the marker segments before the entropy data."""
     n, i = len(data), 2
     if n < 4 or data[0] != 0xFF or data[1] != 0xD8:
@@ -139,7 +139,7 @@ def sentinel_plan(header: bytes, tables: bytes | None = None) -> SentinelPlan | 
     for stream, own in ((tables, False), (header, True)):
         if not stream:
             continue
-        for marker, a, b in _segments(stream):
+        for marker, a, b in marker_segments(stream):
             seg = stream[a:b]
             if marker == 0xC4:
                 if not _huffman_codes(seg, dht):
@@ -305,7 +305,7 @@ def sentinel_intact(rows: np.ndarray, stripe: int, grey_step: int) -> bool:
 def header_length(data) -> int | None:
     """Length of a JPEG stream's header (SOI up to the end of its first SOS segment), or None."""
     end = None
-    for marker, _, stop in _segments(data):
+    for marker, _, stop in marker_segments(data):
         if marker == 0xDA:
             end = stop
     return end if end is not None and end <= len(data) else None

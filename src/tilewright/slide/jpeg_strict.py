@@ -30,6 +30,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from tilewright.slide.jpeg_sentinel import marker_segments
+
 __all__ = ["available", "colour_signature", "complete_stream", "decode_strict"]
 
 try:  # an install without it falls back to the slower checks of the tiff backend
@@ -63,19 +65,9 @@ def colour_signature(stream: bytes) -> tuple | None:
     interpreted alike by libjpeg, so one comparison with the TIFF reader's decode covers them.
     """
     data = memoryview(stream)
-    n, i = len(data), 2
-    if n < 4 or data[0] != 0xFF or data[1] != 0xD8:
-        return None
     jfif, adobe, comps = False, None, None
-    while i + 4 <= n:
-        if data[i] != 0xFF:
-            return None
-        marker = data[i + 1]
-        if marker == 0xFF:
-            i += 1
-            continue
-        length = (data[i + 2] << 8) | data[i + 3]
-        body = data[i + 4:i + 2 + length]
+    for marker, start, stop in marker_segments(stream):
+        body = data[start:stop]
         if marker == 0xE0 and bytes(body[:5]) == b"JFIF\0":
             jfif = True
         elif marker == 0xEE and bytes(body[:5]) == b"Adobe" and len(body) >= 12:
@@ -86,7 +78,6 @@ def colour_signature(stream: bytes) -> tuple | None:
                           if 8 + 3 * j < len(body))
         elif marker == 0xDA:
             return (jfif, adobe, comps) if comps else None
-        i += 2 + length
     return None
 
 
