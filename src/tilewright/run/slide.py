@@ -281,13 +281,12 @@ def _overlay(rgb, mask, plan, slide_id, mpp):
 
 def _write_png(png: bytes, path: Path, slide_id: str) -> None:
     """Write the QC picture beside the store (temporary name, then rename); failures are logged."""
-    tmp = path.with_name(path.name + ".part")
+    from tilewright.tissue.overlay import write_png
+
     try:
         path.parent.mkdir(parents=True, exist_ok=True)
-        tmp.write_bytes(png)
-        os.replace(tmp, path)
+        write_png(path, png)
     except OSError as exc:
-        tmp.unlink(missing_ok=True)
         _warn_png(slide_id, exc)
 
 

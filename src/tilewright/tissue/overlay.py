@@ -10,7 +10,7 @@ import os
 
 import numpy as np
 
-__all__ = ["render_overlay", "overlay_base", "overlay_png", "OVERLAY_COLOURS", "MAX_SIDE"]
+__all__ = ["render_overlay", "overlay_base", "overlay_png", "write_png", "OVERLAY_COLOURS", "MAX_SIDE"]
 
 #: Our colour design: amber outline, ink struck through in white stripes with a black rim,
 #: red debris, teal tile boxes.
@@ -158,7 +158,14 @@ def render_overlay(slide, mask, plan, path, *, mpp: float | None = None, title: 
     OSError
         If the picture cannot be written (nothing is left behind).
     """
-    png = overlay_png(slide, mask, plan, mpp=mpp, title=title)
+    return write_png(path, overlay_png(slide, mask, plan, mpp=mpp, title=title))
+
+
+def write_png(path, png: bytes) -> str:
+    """Write PNG bytes to ``path`` under a temporary name, then rename: a failure leaves nothing.
+
+    Returns the path written; raises OSError if it cannot be written.
+    """
     path = os.fspath(path)
     tmp = path + ".part"
     try:
