@@ -180,14 +180,15 @@ class StoreWriter:
         """Write ``data`` as one chunk, or (``band``) in chunks of ``band`` x ``band`` pixels
         written one row of chunks at a time (bounds the copies zarr makes of a large picture)."""
         data = np.asarray(data)
-        if band is None or data.ndim < 2:
-            chunks = tuple(max(1, d) for d in data.shape)
-        else:
+        banded = band is not None and data.ndim >= 2
+        if banded:
             chunks = (max(1, min(band, data.shape[0])), max(1, min(band, data.shape[1]))) + data.shape[2:]
+        else:
+            chunks = tuple(max(1, d) for d in data.shape)
         arr = self.group.create_array(name, shape=data.shape, dtype=data.dtype, chunks=chunks, **kw)
-        if data.size == 0:
+        if not data.size:
             return
-        if data.ndim == 0:
+        if not banded:
             arr[...] = data
             return
         for r in range(0, data.shape[0], chunks[0]):
