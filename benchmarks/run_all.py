@@ -30,6 +30,7 @@ Usage: ``.venv/bin/python benchmarks/run_all.py [--skip-memory]``
 from __future__ import annotations
 
 import argparse
+import contextlib
 import logging
 import os
 import shutil
@@ -87,14 +88,15 @@ def raw_decode(path, yx, scale):
     return seconds, len(need)
 
 
-def _raw_one_thread(path, yx, scale):
-    """:func:`raw_decode` with OpenCV on one thread (as the first rows measure it)."""
+@contextlib.contextmanager
+def _cv2_one_thread():
+    """OpenCV on one thread meanwhile (the hand loop's resize is documented as single-threaded)."""
     import cv2
 
     threads = cv2.getNumThreads()
     cv2.setNumThreads(1)
     try:
-        return raw_decode(path, yx, scale)
+        yield
     finally:
         cv2.setNumThreads(threads)
 
@@ -112,11 +114,12 @@ def hand_loop(path, yx, scale, out):
     arr = zarr.create_array(str(out), shape=(len(yx), TILE, TILE, 3), chunks=(1, TILE, TILE, 3),
                             dtype="uint8", overwrite=True, compressors=compressor(tw.TilingConfig().compression))
     s = openslide.OpenSlide(str(path))
-    t0, c0 = time.perf_counter(), time.process_time()
-    for i, (y, x) in enumerate(yx):
-        region = np.asarray(s.read_region((int(round(x * scale)), int(round(y * scale))), 0, (src, src)))[..., :3]
-        arr[i] = cv2.resize(region, (TILE, TILE), interpolation=cv2.INTER_AREA)
-    seconds = time.perf_counter() - t0
+    with _cv2_one_thread():
+        t0, c0 = time.perf_counter(), time.process_time()
+        for i, (y, x) in enumerate(yx):
+            region = np.asarray(s.read_region((int(round(x * scale)), int(round(y * scale))), 0, (src, src)))[..., :3]
+            arr[i] = cv2.resize(region, (TILE, TILE), interpolation=cv2.INTER_AREA)
+        seconds = time.perf_counter() - t0
     CPU[0] = time.process_time() - c0
     s.close()
     return seconds
@@ -201,7 +204,7 @@ def main(argv=None):
 
     def raw(path):
         def run():
-            sec, _ = _raw_one_thread(path, yx, scale)
+            sec, _ = raw_decode(path, yx, scale)
             return sec, n, CPU[0]
         return run
 
