@@ -29,6 +29,17 @@ def render(stains, conc, *, quantize=True, glass=255.0):
     return np.clip(np.rint(rgb), 0, 255).astype(np.uint8) if quantize else rgb
 
 
+def random_stain_mixtures(rng, n=40_000):
+    """A random stain pair near Ruifrok & Johnston (2001) H and E (perturbed up to ~10 degrees) and
+    ``n`` concentration pairs: the first tenth pure hematoxylin, the next tenth pure eosin, the
+    rest mixtures. Returns ``(stains, conc)``; the ground truth of stain-recovery tests."""
+    stains = unit(np.stack([RJ_H, RJ_E]) + rng.normal(0, 0.08, (2, 3)).clip(-0.06, 0.06))
+    conc = rng.uniform(0.1, 1.2, (n, 2))
+    conc[: n // 10, 1] = 0
+    conc[n // 10 : n // 5, 0] = 0
+    return stains, conc
+
+
 def synthetic_concentrations(rng, *, shape=(128, 128), scale=(1.0, 1.0), background=0.3, pure=0.1):
     """Random H and E concentrations (H, W, 2): some glass (both 0), some pure-stain pixels."""
     h, w = shape

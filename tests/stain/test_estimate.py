@@ -7,7 +7,7 @@ from tilewright import estimate_stains
 from tilewright.errors import StainEstimationError
 from tilewright.stain.macenko import estimate_stain_profile
 
-from .synthetic import RJ_DAB, RJ_E, RJ_H, angle_deg, render, synthetic_tissue, unit
+from .synthetic import RJ_DAB, RJ_E, RJ_H, angle_deg, random_stain_mixtures, render, synthetic_tissue, unit
 
 
 def test_reference_vectors_match_skimage():
@@ -17,14 +17,9 @@ def test_reference_vectors_match_skimage():
 
 @pytest.mark.parametrize("seed", range(5))
 def test_recovers_random_stain_pairs_within_3_degrees(seed):
-    rng = np.random.default_rng(seed)
-    # random stain pairs near Ruifrok & Johnston (2001) H and E (perturbed up to ~10 degrees)
-    truth = unit(np.stack([RJ_H, RJ_E]) + rng.normal(0, 0.08, (2, 3)).clip(-0.06, 0.06))
-    # noiseless Beer–Lambert mixtures with pure-stain pixels (float, no 8-bit rounding)
-    n = 40_000
-    conc = rng.uniform(0.1, 1.2, (n, 2))
-    conc[: n // 10, 1] = 0
-    conc[n // 10 : n // 5, 0] = 0
+    # random stain pairs near Ruifrok & Johnston (2001) H and E, with pure-stain pixels
+    truth, conc = random_stain_mixtures(np.random.default_rng(seed))
+    # noiseless Beer–Lambert mixtures (float, no 8-bit rounding)
     od = conc @ truth
     rgb_float = 255.0 * 10.0 ** (-od)
     rgb = np.clip(np.rint(rgb_float), 0, 255).astype(np.uint8).reshape(200, 200, 3)

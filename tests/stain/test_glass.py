@@ -12,9 +12,8 @@ from tilewright.stain.estimate import estimate_stain_profile
 from tilewright.stain.registry import normalizer_from_dict
 from tilewright.stain.tissue_pixels import tissue_mask
 
-from .synthetic import (NORTH_GLASS, NORTH_SCALE, NORTH_STAINS, RJ_E, RJ_H, SOUTH_GLASS,
-                        SOUTH_SCALE, SOUTH_STAINS, angle_deg, mean_lab, render,
-                        synthetic_concentrations, unit)
+from .synthetic import (NORTH_GLASS, NORTH_SCALE, NORTH_STAINS, SOUTH_GLASS, SOUTH_SCALE, SOUTH_STAINS,
+                        angle_deg, mean_lab, random_stain_mixtures, render, synthetic_concentrations)
 
 
 def site_pair(seed=2, ref_seed=1):
@@ -49,14 +48,9 @@ def test_od_relative_to_glass_is_beer_lambert():
 
 @pytest.mark.parametrize("seed", range(5))
 def test_stain_vectors_with_tinted_glass_and_the_bias_without(seed):
-    rng = np.random.default_rng(seed)
     # random stain pairs near Ruifrok & Johnston (2001) H and E, as in test_estimate.py
-    truth = unit(np.stack([RJ_H, RJ_E]) + rng.normal(0, 0.08, (2, 3)).clip(-0.06, 0.06))
-    n = 40_000
-    conc = rng.uniform(0.1, 1.2, (n, 2))
-    conc[: n // 10, 1] = 0  # pure hematoxylin
-    conc[n // 10 : n // 5, 0] = 0  # pure eosin
-    conc[-n // 5 :] = 0  # blank glass
+    truth, conc = random_stain_mixtures(np.random.default_rng(seed))
+    conc[-len(conc) // 5 :] = 0  # blank glass
     rgb = render(truth, conc, glass=SOUTH_GLASS).reshape(200, 200, 3)  # I = I0 * 10**(-C S)
     with_glass = estimate_stains(rgb, glass=SOUTH_GLASS)
     without = estimate_stains(rgb)
