@@ -28,7 +28,7 @@ def sample_tiles(n=256):
     from tilewright.run.blocks import iter_tile_blocks
 
     path = bench_slide()
-    with tw.open_wsi(path) as slide:
+    with tw.open(path) as slide:
         view = slide.at_mpp(0.5)
         plan = tw.plan_tiles(view, tw.tissue_mask(slide), tile=256)
         mid = len(plan) // 2

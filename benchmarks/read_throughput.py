@@ -8,7 +8,7 @@ one thread:
 (a) tifffile decoding every level-0 tile (the decode limit);
 (b) the loop people write by hand: OpenSlide ``read_region`` of 512 x 512 at level 0 per
     tile, resized to 256 x 256 with OpenCV ``INTER_AREA``;
-(c) ``open_wsi(...).at_mpp(0.5)`` read in large blocks (``view.iter_blocks(2048)``);
+(c) ``tw.open(...).at_mpp(0.5)`` read in large blocks (``view.iter_blocks(2048)``);
 (d) as (c) but with the slide declared 0.2527 µm/px, so the factor is non-integer (1.9786);
 
 and the ratios c/b and c/a. Each figure is given twice: per wall-clock second and per
@@ -108,7 +108,7 @@ def bench_openslide_loop(path):
 def bench_view(path, mpp=None, block=2048):
     import tilewright as tw
 
-    with tw.open_wsi(path, mpp=mpp) as slide:
+    with tw.open(path, mpp=mpp) as slide:
         view = slide.at_mpp(0.5, tolerance=0.0)
         H, W = slide.dimensions
         with _Clock() as clk:

@@ -56,7 +56,7 @@ def plan_for(path):
     import tilewright as tw
 
     cfg = tw.TilingConfig(mpp=MPP, tile=TILE)
-    with tw.open_wsi(path) as slide:
+    with tw.open(path) as slide:
         view = slide.at_mpp(cfg.mpp)
         mask = tw.tissue_mask(slide, mpp=cfg.mask_mpp)
         plan = tw.plan_tiles(view, mask, tile=cfg.tile, min_tissue=cfg.min_tissue)
@@ -311,7 +311,7 @@ def main(argv=None):
     for p, overlay, rss, k in memory:
         peak.setdefault((p, overlay), []).append(rss)
     for p in (small, big) if memory else ():
-        with tw.open_wsi(p) as sl:
+        with tw.open(p) as sl:
             h, w = sl.dimensions
         print(f"peak RSS, one worker (threads=2), {w} x {h} px slide: median {statistics.median(peak[p, '1']):,.0f} "
               f"MiB ({statistics.median(peak[p, '0']):,.0f} MiB without the QC overlay); runs "

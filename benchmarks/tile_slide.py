@@ -32,7 +32,7 @@ from fixtures import bench_slide, peak_rss_mib_of  # noqa: E402
 def plan_for(path, cfg):
     import tilewright as tw
 
-    with tw.open_wsi(path) as slide:
+    with tw.open(path) as slide:
         view = slide.at_mpp(cfg.mpp)
         mask = tw.tissue_mask(slide, mpp=cfg.mask_mpp)
         plan = tw.plan_tiles(view, mask, tile=cfg.tile, min_tissue=cfg.min_tissue)

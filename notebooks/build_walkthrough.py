@@ -33,9 +33,9 @@ write_pyramid(slide_path, layout.renderer(0.25), shape=layout.shape_at(0.25), mp
               layout="svs", objective=40.0)
 slide_path"""),
     ("md", """## Open the slide and read it at 0.5 µm/px
-`open_wsi` picks the TIFF backend (tifffile, decoding only the tiles a read touches) or OpenSlide.
+`tw.open` picks the TIFF backend (tifffile, decoding only the tiles a read touches) or OpenSlide.
 `at_mpp(0.5)` area-averages the 40x level down to 0.5 µm/px."""),
-    ("code", """slide = tw.open_wsi(slide_path)
+    ("code", """slide = tw.open(slide_path)
 print(slide.backend, slide.mpp, slide.objective, slide.dimensions)
 for level in slide.levels:
     print(level)
@@ -83,12 +83,12 @@ for ax, i in zip(axes, np.linspace(0, len(store) - 1, 6).astype(int)):
     ax.imshow(store[i]); ax.set_title(f"y={store.yx[i][0]} x={store.yx[i][1]}", fontsize=8); ax.axis("off")
 plt.show()"""),
     ("md", """## For training
-`tilewright.torch.TileDataset` is a map-style PyTorch dataset over a store or a whole output
+`tilewright.torch.TileStoreDataset` is a map-style PyTorch dataset over a store or a whole output
 folder; it works with `DataLoader(num_workers>0)` (optional extra `torch`)."""),
     ("code", """try:
     from torch.utils.data import DataLoader
-    from tilewright.torch import TileDataset
-    ds = TileDataset(store)
+    from tilewright.torch import TileStoreDataset
+    ds = TileStoreDataset(store)
     images, (slide_index, tile_index) = next(iter(DataLoader(ds, batch_size=8, shuffle=True)))
     print(images.shape, images.dtype)
 except ImportError:

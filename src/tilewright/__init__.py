@@ -18,7 +18,7 @@ except PackageNotFoundError:  # pragma: no cover - running from a source tree wi
 
 _PUBLIC = {
     # reading
-    "open_wsi": "tilewright.slide.open",
+    "open": "tilewright.slide.open",
     "WholeSlide": "tilewright.slide.wholeslide",
     "Level": "tilewright.slide.wholeslide",
     "ResampledView": "tilewright.slide.view",
@@ -34,7 +34,7 @@ _PUBLIC = {
     "MacenkoNormalizer": "tilewright.stain.macenko",
     "ReinhardNormalizer": "tilewright.stain.reinhard",
     "estimate_stains": "tilewright.stain.macenko",
-    "StainAugmenter": "tilewright.stain.augment",
+    "StainJitter": "tilewright.stain.augment",
     # store and runs
     "TilingConfig": "tilewright.run.config",
     "tile_slide": "tilewright.run.slide",

@@ -11,10 +11,10 @@ from bisect import bisect_right
 
 import numpy as np
 
-__all__ = ["TileDataset"]
+__all__ = ["TileStoreDataset"]
 
 
-class TileDataset:
+class TileStoreDataset:
     """Every tile of one store, several stores, or a ``tile-out`` output folder.
 
     Parameters
@@ -26,7 +26,7 @@ class TileDataset:
     transform : callable, optional
         Applied to the (T, T, 3) uint8 tile; default: a (3, T, T) uint8 ``torch.Tensor``.
     augment : callable, optional
-        Applied to the uint8 tile before ``transform`` (e.g. :class:`tilewright.StainAugmenter`).
+        Applied to the uint8 tile before ``transform`` (e.g. :class:`tilewright.StainJitter`).
 
     Items are ``(image, label)`` when ``labels`` is given, else ``(image, (slide_index, tile_index))``.
     """

@@ -36,17 +36,17 @@ def test_truncated_zero_byte_and_text(slide, tmp_path):
         cut = tmp_path / f"cut{frac}.tif"
         cut.write_bytes(data[: int(len(data) * frac)])
         with pytest.raises(DamagedSlideError) as e:
-            tw.open_wsi(cut)
+            tw.open(cut)
         _named(e.value, cut)
     empty = tmp_path / "empty.svs"
     empty.write_bytes(b"")
     with pytest.raises(EmptyFileError) as e:
-        tw.open_wsi(empty)
+        tw.open(empty)
     _named(e.value, empty)
     text = tmp_path / "notes.ome.tif"
     text.write_text("patient list, do not open\n")
     with pytest.raises(NotAnImageError) as e:
-        tw.open_wsi(text)
+        tw.open(text)
     _named(e.value, text)
 
 
@@ -71,7 +71,7 @@ def test_absurd_dimensions_refused_before_allocation(tmp_path, side):
     tracemalloc.start()
     try:
         with pytest.raises((SlideTooLargeError, DamagedSlideError)) as e:
-            tw.open_wsi(path)
+            tw.open(path)
         peak = tracemalloc.get_traced_memory()[1]
     finally:
         tracemalloc.stop()
@@ -88,7 +88,7 @@ def test_levels_out_of_order_use_level0_resolution(tmp_path):
         t.write(_IMG, tile=(256, 256), resolution=(1e4 / 0.25, 1e4 / 0.25),
                 resolutionunit="CENTIMETER", compression="zlib")
         t.write(_IMG[:128, :128], tile=(128, 128), compression="zlib")  # a label: other aspect
-    with tw.open_wsi(path) as s:
+    with tw.open(path) as s:
         assert s.dimensions == (512, 768)
         assert s.mpp == pytest.approx(0.25)  # ground truth: the tags written for the full page
         assert [lv[:2] for lv in s.levels] == [(512, 768), (256, 384)]  # label is not a level
@@ -119,9 +119,9 @@ def test_unusable_resolution_is_a_typed_error_and_override_works(tmp_path, kind)
     else:
         _tiff_with(path, resolution=(40000, 40000), resolutionunit="NONE")
     with pytest.raises((ImplausibleResolutionError, MissingResolutionError)) as e:
-        tw.open_wsi(path)
+        tw.open(path)
     _named(e.value, path)
     assert "mpp" in str(e.value)  # says how to fix it
-    with tw.open_wsi(path, mpp=0.25) as s:
+    with tw.open(path, mpp=0.25) as s:
         assert s.mpp == 0.25 and s.mpp_source == "override"
         assert np.array_equal(s.read_level(0, 0, 0, 512, 768), _IMG)

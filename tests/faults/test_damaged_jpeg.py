@@ -82,7 +82,7 @@ def _openslide_refuses(path, level, index, gw, th):
 def test_flipped_bytes_fail_the_slide_and_name_the_tile(slide, tmp_path, fast_config):
     good = slide("good.tif")
     cfg = fast_config.replace(mpp=0.5)  # the default configuration checks JPEG tiles
-    with tw.open_wsi(good) as s:
+    with tw.open(good) as s:
         level = s.at_mpp(cfg.mpp).source_level
     idx = _busiest_tile(good, level)
     offs, cnts, gw, th, _ = _tiles(good, level)
@@ -103,18 +103,18 @@ def test_flipped_bytes_fail_the_slide_and_name_the_tile(slide, tmp_path, fast_co
     # ground truth: the damaged tile decodes "successfully" (no error) to garbage
     assert np.abs(dec.astype(int) - truth[box]).max() > 50
     # the direct reader refuses the tile by default, naming level, row and column
-    with tw.open_wsi(bad, backend="tiff") as s:
+    with tw.open(bad, backend="tiff") as s:
         lv = s.levels[level]
         with pytest.raises(DamagedSlideError) as e:
             s.read_level(level, 0, 0, lv.height, lv.width)
     # with the check switched off the garbage decodes like the decoders return it
-    with tw.open_wsi(bad, backend="tiff", verify=False) as s:
+    with tw.open(bad, backend="tiff", verify=False) as s:
         assert np.array_equal(s.read_level(level, r * th, c * th, th, th), dec[..., :3])
     assert f"tile ({r}, {c}) of level {level}" in str(e.value)
     assert f"y={r * th}-{(r + 1) * th}" in str(e.value)
     assert str(bad) in str(e.value)
     # the same read of the good file works and equals tifffile's decode (reference)
-    with tw.open_wsi(good, backend="tiff") as s:
+    with tw.open(good, backend="tiff") as s:
         lv = s.levels[level]
         assert np.array_equal(s.read_level(level, 0, 0, lv.height, lv.width), truth)
     # a cohort run records the slide as failed with the tile named and writes no store
@@ -157,7 +157,7 @@ def test_detection_agrees_with_openslide(slide, tmp_path, checker):
         r, c = divmod(idx, gw)
         box = (slice(r * th, (r + 1) * th), slice(c * th, (c + 1) * th))
         ref_refuses = _openslide_refuses(bad, level, idx, gw, th)
-        with tw.open_wsi(bad, backend="tiff") as s:  # default: sentinel check, probes confirm
+        with tw.open(bad, backend="tiff") as s:  # default: sentinel check, probes confirm
             lv = s.levels[level]
             y0, x0 = r * th, c * th
             h, w = min(th, lv.height - y0), min(th, lv.width - x0)
@@ -226,7 +226,7 @@ def test_intact_jpeg_slides_never_flagged(slide, tmp_path, layout, monkeypatch, 
         return img
 
     monkeypatch.setattr(strict, "decode_strict", spy)
-    with tw.open_wsi(path, backend="tiff", mpp=0.25) as s, tifffile.TiffFile(path) as tf:
+    with tw.open(path, backend="tiff", mpp=0.25) as s, tifffile.TiffFile(path) as tf:
         for i, lv in enumerate(s.levels):
             got = s.read_level(i, 0, 0, lv.height, lv.width)
             ref = tf.series[0].levels[i].asarray() if len(tf.series[0].levels) > 1 else tf.pages[i].asarray()
@@ -293,7 +293,7 @@ def test_noisy_tiles_settled_by_probes(tmp_path, monkeypatch):
     settled = []
     probe = backend._jpeg_intact
     monkeypatch.setattr(backend, "_jpeg_intact", lambda *a: settled.append(1) or probe(*a))
-    with tw.open_wsi(path, backend="tiff", mpp=0.25) as s, tifffile.TiffFile(path) as tf:
+    with tw.open(path, backend="tiff", mpp=0.25) as s, tifffile.TiffFile(path) as tf:
         got = s.read_level(0, 0, 0, s.levels[0].height, s.levels[0].width)
         assert np.array_equal(got, tf.pages[0].asarray())  # reference decoder: tifffile
     assert settled  # the fallback did run

@@ -1,4 +1,4 @@
-"""Property-based fuzzing of TIFF headers and tags through ``open_wsi``: only typed errors.
+"""Property-based fuzzing of TIFF headers and tags through ``open``: only typed errors.
 
 Every example either opens (and then reads a thumbnail and a region) or raises a subclass of
 TilewrightError; never another exception, a crash or a hang (each example has a deadline and
@@ -76,7 +76,7 @@ def test_fuzzed_tiffs_raise_only_typed_errors(base, mutations):
     path = folder / "fuzzed.tif"
     path.write_bytes(bytes(data))
     try:
-        with tw.open_wsi(path) as s:
+        with tw.open(path) as s:
             s.thumbnail(4.0)
             lv = s.levels[0]
             s.read_level(0, lv.height // 3, lv.width // 3, 200, 200)

@@ -64,7 +64,7 @@ def test_keep_without_region_file_for_slide_fails_that_slide(slide_and_geojson, 
 def test_classify_regions_on_a_real_file_with_the_real_mask(tmp_path):
     path, lay = write_slide(tmp_path / "t.tif", mpp=0.5, size_um=(1200.0, 1400.0), seed=5, n_islands=1,
                             tumour=True)
-    with tw.open_wsi(path) as slide:
+    with tw.open(path) as slide:
         # first pass: a callable that labels tiles by their mean hematoxylin darkness (red channel)
         rmap = tw.classify_regions(slide, lambda t: (t[..., 0].mean(axis=(1, 2)) < 120).astype(int),
                                    mpp=0.5, tile=64, classes=["normal", "dense"])

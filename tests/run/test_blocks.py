@@ -37,7 +37,7 @@ def _count_decodes(slide, monkeypatch):
 
 @pytest.mark.parametrize("threads", [1, 2])
 def test_sparse_blocks_decode_only_needed_tiles(jpeg40, monkeypatch, threads):
-    with tw.open_wsi(jpeg40) as slide:
+    with tw.open(jpeg40) as slide:
         view = slide.at_mpp(0.5)
         assert view.source_level == 0 and view.scale == 2.0
         # ground truth constructed here: a checkerboard-like sparse set of 64 px tiles at 0.5 µm/px,
@@ -59,7 +59,7 @@ def test_sparse_blocks_decode_only_needed_tiles(jpeg40, monkeypatch, threads):
 
 
 def test_overlapping_tiles_read_once_per_box(jpeg40, monkeypatch):
-    with tw.open_wsi(jpeg40) as slide:
+    with tw.open(jpeg40) as slide:
         view = slide.at_mpp(0.5)
         yx = np.array([(y, x) for y in range(0, 256, 32) for x in range(0, 256, 32)])  # stride 32 < tile 64
         order, _ = block_order(yx, 64, 1024)
@@ -75,7 +75,7 @@ def test_overlapping_tiles_read_once_per_box(jpeg40, monkeypatch):
 
 
 def test_process_runs_in_the_reader(jpeg40):
-    with tw.open_wsi(jpeg40) as slide:
+    with tw.open(jpeg40) as slide:
         view = slide.at_mpp(0.5)
         yx = np.array([(0, 0), (0, 64), (64, 0)])
         out = list(iter_tile_blocks(view, yx, 64, block=512, threads=2, process=lambda t: (len(t), t.sum())))
@@ -85,7 +85,7 @@ def test_process_runs_in_the_reader(jpeg40):
 
 def test_reused_buffers_give_the_same_tiles(jpeg40):
     # reference: the same blocks read into fresh arrays; reuse needs a consuming process
-    with tw.open_wsi(jpeg40) as slide:
+    with tw.open(jpeg40) as slide:
         view = slide.at_mpp(0.5)
         yx = np.array([(y, x) for y in range(0, 512, 64) for x in range(0, 768, 64)])
         order, _ = block_order(yx, 64, 256)

@@ -21,7 +21,7 @@ def test_stored_tiles_equal_view_reads(slide40, tmp_path):
     cfg = tw.TilingConfig(mpp=0.5, tile=128, block=512, shard_tiles=16)
     res = tw.tile_slide(slide40, tmp_path, cfg)
     store = tw.open_store(res.store)
-    with tw.open_wsi(slide40) as slide:
+    with tw.open(slide40) as slide:
         view = slide.at_mpp(0.5)
         mask = tw.tissue_mask(slide, mpp=cfg.mask_mpp)
         plan = tw.plan_tiles(view, mask, tile=128, min_tissue=cfg.min_tissue)
@@ -115,7 +115,7 @@ def test_qc_picture_and_store_pictures_match_the_survey(slide40, tmp_path):
     cfg = tw.TilingConfig(mpp=0.5, tile=128)
     res = tw.tile_slide(slide40, tmp_path, cfg)
     store = tw.open_store(res.store)
-    with tw.open_wsi(slide40) as slide:
+    with tw.open(slide40) as slide:
         thumb = slide.thumbnail(cfg.mask_mpp)
         mask = tw.tissue_mask(thumb, mpp=cfg.mask_mpp)
         plan = tw.plan_tiles(slide.at_mpp(0.5), mask, tile=128, min_tissue=cfg.min_tissue)

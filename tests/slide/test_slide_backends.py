@@ -13,7 +13,7 @@ REGIONS = [(0, 0, 300, 400), (517, 901, 700, 655), (1400, 1900, 136, 148), (250,
 @pytest.mark.parametrize("layout", ["ifd", "svs"])
 def test_lossless_pyramid_identical_pixels(write, image, layout):
     path = write(f"lossless_{layout}.tif", compression="zlib", layout=layout, objective=40)
-    with tw.open_wsi(path, backend="tiff") as a, tw.open_wsi(path, backend="openslide") as b:
+    with tw.open(path, backend="tiff") as a, tw.open(path, backend="openslide") as b:
         assert a.backend == "tiff" and b.backend == "openslide"
         # reference: OpenSlide's level geometry
         assert [(lv.height, lv.width) for lv in a.levels] == \
@@ -32,7 +32,7 @@ def test_lossless_pyramid_identical_pixels(write, image, layout):
 @pytest.mark.parametrize("layout", ["ifd", "svs"])
 def test_jpeg_pyramid_within_jpeg_tolerance(write, image, layout):
     path = write(f"jpeg_{layout}.tif", compression="jpeg", quality=90, layout=layout)
-    with tw.open_wsi(path, backend="tiff") as a, tw.open_wsi(path, backend="openslide") as b:
+    with tw.open(path, backend="tiff") as a, tw.open(path, backend="openslide") as b:
         for y, x, h, w in REGIONS:
             ra = a.read_level(0, y, x, h, w).astype(int)
             rb = b.read_level(0, y, x, h, w).astype(int)
@@ -49,7 +49,7 @@ def test_ome_subifd_levels_are_area_reductions(write, image):
     import cv2
 
     path = write("ome_zlib.ome.tif", compression="zlib", layout="ome")
-    with tw.open_wsi(path) as s:
+    with tw.open(path) as s:
         assert s.backend == "tiff" and len(s.levels) == 3 and s.mpp_source == "ome"
         lv1 = s.levels[1]
         assert (lv1.height, lv1.width, lv1.downsample) == (768, 1024, 2.0)
@@ -60,11 +60,11 @@ def test_ome_subifd_levels_are_area_reductions(write, image):
 
 def test_auto_prefers_tiff_and_falls_back(write):
     path = write("lossless_ifd.tif", compression="zlib", layout="ifd")
-    with tw.open_wsi(path) as s:
+    with tw.open(path) as s:
         assert s.backend == "tiff"  # tiff serves it with levels and resolution
     # SubIFD pyramid without resolution tags: tiff has no µm/px; OpenSlide sees the same tags
     nores = write("nores.tif", compression="zlib", mpp=None, n_levels=2)
-    with tw.open_wsi(nores, mpp=0.5) as s:
+    with tw.open(nores, mpp=0.5) as s:
         assert s.backend == "tiff" and s.mpp == 0.5 and s.mpp_source == "override"
 
 
@@ -80,7 +80,7 @@ def test_region_reads_touch_only_needed_tiles(write, monkeypatch):
         return orig(self, offs, cnts)
 
     monkeypatch.setattr(TiffBackend, "_fetch_row", spy)
-    with tw.open_wsi(path, backend="tiff") as s:
+    with tw.open(path, backend="tiff") as s:
         s.read_level(0, 300, 300, 100, 100)  # inside tile (1, 1) of 256 px tiles
         assert seen == [1]  # ground truth: one 256 px tile covers [256, 512)
         seen.clear()
@@ -92,7 +92,7 @@ def test_concurrent_reads_from_threads(write):
     from concurrent.futures import ThreadPoolExecutor
 
     path = write("jpeg_ifd.tif", compression="jpeg", layout="ifd")
-    with tw.open_wsi(path) as s:
+    with tw.open(path) as s:
         view = s.at_mpp(0.5, tolerance=0.0)
         boxes = [(y, x, 200, 230) for y in range(0, 700, 150) for x in range(0, 1000, 170)]
         serial = [view.read(*b) for b in boxes]
@@ -106,7 +106,7 @@ def test_pickle_reopens_by_path(write):
     import pickle
 
     path = write("jpeg_ifd.tif", compression="jpeg", layout="ifd")
-    with tw.open_wsi(path, mpp=0.26) as s:
+    with tw.open(path, mpp=0.26) as s:
         view = s.at_mpp(1.0)
         v2 = pickle.loads(pickle.dumps(view))
         assert v2.slide.mpp == 0.26 and v2.shape == view.shape
@@ -120,7 +120,7 @@ def test_tiff_backend_never_imports_openslide(write):
 
     path = write("jpeg_ifd.tif", compression="jpeg", layout="ifd")
     code = ("import sys, tilewright as tw\n"
-            f"s = tw.open_wsi({str(path)!r}); s.at_mpp(0.5).read(0, 0, 64, 64); s.close()\n"
+            f"s = tw.open({str(path)!r}); s.at_mpp(0.5).read(0, 0, 64, 64); s.close()\n"
             "assert 'openslide' not in sys.modules, 'openslide imported'\n")
     subprocess.run([sys.executable, "-c", code], check=True)
 
@@ -139,7 +139,7 @@ def test_ome_series_pyramid(tmp_path):
         for arr, mpp in ((img, 0.25), (small, 0.5)):
             t.write(arr, tile=(128, 128), photometric="rgb", compression="zlib",
                     metadata={"axes": "YXS", "PhysicalSizeX": mpp, "PhysicalSizeY": mpp})
-    with tw.open_wsi(path) as s:
+    with tw.open(path) as s:
         assert s.backend == "tiff" and s.mpp == 0.25
         assert [(lv.height, lv.width, lv.downsample) for lv in s.levels] == \
             [(600, 800, 1.0), (300, 400, 2.0)]  # ground truth written above

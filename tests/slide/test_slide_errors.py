@@ -29,14 +29,14 @@ def _check(exc_info, path):
 def test_missing_file(tmp_path):
     path = tmp_path / "nope.svs"
     with pytest.raises(SlideNotFoundError) as e:
-        tw.open_wsi(path)
+        tw.open(path)
     _check(e, path)
     assert isinstance(e.value, FileNotFoundError)
 
 
 def test_folder_is_not_a_slide(tmp_path):
     with pytest.raises(SlideNotFoundError) as e:
-        tw.open_wsi(tmp_path)
+        tw.open(tmp_path)
     _check(e, tmp_path)
 
 
@@ -44,7 +44,7 @@ def test_zero_byte_file(tmp_path):
     path = tmp_path / "empty.tif"
     path.write_bytes(b"")
     with pytest.raises(EmptyFileError) as e:
-        tw.open_wsi(path)
+        tw.open(path)
     _check(e, path)
 
 
@@ -53,7 +53,7 @@ def test_text_is_not_an_image(tmp_path, name):
     path = tmp_path / name
     path.write_text("slide_id,mpp\nb,0.25\n")
     with pytest.raises(NotAnImageError) as e:
-        tw.open_wsi(path)
+        tw.open(path)
     _check(e, path)
 
 
@@ -61,7 +61,7 @@ def test_random_bytes_are_not_an_image(tmp_path):
     path = tmp_path / "blob.bin"
     path.write_bytes(np.random.default_rng(0).integers(0, 256, 4096, np.uint8).tobytes())
     with pytest.raises((NotAnImageError, UnsupportedSlideError)) as e:
-        tw.open_wsi(path)
+        tw.open(path)
     _check(e, path)
 
 
@@ -72,12 +72,12 @@ def test_truncated_tiff(write, tmp_path):
         path = tmp_path / f"cut{frac}.tif"
         path.write_bytes(data[: int(len(data) * frac)])
         with pytest.raises(DamagedSlideError) as e:
-            tw.open_wsi(path)
+            tw.open(path)
         _check(e, path)
     header_only = tmp_path / "header.tif"
     header_only.write_bytes(data[:6])
     with pytest.raises(DamagedSlideError) as e:
-        tw.open_wsi(header_only)
+        tw.open(header_only)
     _check(e, header_only)
 
 
@@ -91,7 +91,7 @@ def test_corrupt_tile_raises_on_read_naming_region(write, tmp_path):
         off, n = page.dataoffsets[i], page.databytecounts[i]
     data[off : off + n] = b"\x00" * n  # wipe the JPEG stream, markers included
     path.write_bytes(bytes(data))
-    with tw.open_wsi(path) as s:
+    with tw.open(path) as s:
         s.read_level(0, 0, 0, 200, 200)  # untouched tiles still read
         with pytest.raises(DamagedSlideError) as e:
             s.at_mpp(0.4).read(0, 0, 400, 400)  # level 0, factor 1.6
@@ -109,7 +109,7 @@ def test_unsupported_tiff_kinds(tmp_path):
                      photometric="minisblack")
     for path in (gray, stack):
         with pytest.raises(UnsupportedSlideError) as e:
-            tw.open_wsi(path, backend="tiff")
+            tw.open(path, backend="tiff")
         _check(e, path)
 
 
@@ -119,7 +119,7 @@ def test_png_is_unsupported(tmp_path):
     path = tmp_path / "photo.png"
     cv2.imwrite(str(path), np.zeros((32, 32, 3), np.uint8))
     with pytest.raises(UnsupportedSlideError) as e:
-        tw.open_wsi(path)
+        tw.open(path)
     _check(e, path)
 
 
@@ -131,15 +131,15 @@ def test_absurd_dimensions_refused_before_allocation(tmp_path):
         tf.pages[0].tags["ImageWidth"].overwrite(2**21)
         tf.pages[0].tags["ImageLength"].overwrite(2**21)
     with pytest.raises(SlideTooLargeError) as e:
-        tw.open_wsi(path)
+        tw.open(path)
     _check(e, path)
 
 
 def test_bad_backend_name_and_closed_slide(write):
     path = write("jpeg_ifd.tif", compression="jpeg", layout="ifd")
     with pytest.raises(ValueError):
-        tw.open_wsi(path, backend="magic")
-    s = tw.open_wsi(path)
+        tw.open(path, backend="magic")
+    s = tw.open(path)
     s.close()
     s.close()  # idempotent
     with pytest.raises(ValueError, match="closed"):

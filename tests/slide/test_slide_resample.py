@@ -21,7 +21,7 @@ def single_level(write):
 
 
 def test_half_resolution_equals_cv2_inter_area(single_level, image):
-    with tw.open_wsi(single_level) as s:
+    with tw.open(single_level) as s:
         view = s.at_mpp(0.5)
         assert view.source_level == 0 and view.scale == 2.0
         assert view.shape == (H0 // 2, W0 // 2)
@@ -32,7 +32,7 @@ def test_half_resolution_equals_cv2_inter_area(single_level, image):
 
 @pytest.mark.parametrize("slide_mpp", [0.2527, 0.2465])
 def test_non_integer_factor_matches_cv2_within_one_level(single_level, image, slide_mpp):
-    with tw.open_wsi(single_level, mpp=slide_mpp) as s:
+    with tw.open(single_level, mpp=slide_mpp) as s:
         view = s.at_mpp(0.5, tolerance=0.0)
         s_ = 0.5 / slide_mpp
         assert view.scale == pytest.approx(s_)
@@ -49,7 +49,7 @@ def test_non_integer_factor_matches_cv2_within_one_level(single_level, image, sl
 
 def test_expected_shape_for_0_2527_fixture(write):
     path = write("mpp2527.tif", compression="jpeg", mpp=0.2527, n_levels=3)
-    with tw.open_wsi(path) as s:
+    with tw.open(path) as s:
         assert s.mpp == pytest.approx(0.2527)
         view = s.at_mpp(0.5, tolerance=0.0)
         # ground truth: 2048 * 0.2527 / 0.5 = 1035.06 -> 1035; 1536 -> 776.29 -> 776
@@ -59,7 +59,7 @@ def test_expected_shape_for_0_2527_fixture(write):
 
 @pytest.mark.parametrize("slide_mpp", [0.25, 0.2527, 0.3])
 def test_one_large_read_equals_mosaic_of_small_reads(single_level, slide_mpp):
-    with tw.open_wsi(single_level, mpp=slide_mpp) as s:
+    with tw.open(single_level, mpp=slide_mpp) as s:
         view = s.at_mpp(0.5 if slide_mpp < 0.3 else 0.77, tolerance=0.0)
         y, x, h, w = 37, 101, 411, 533
         big = view.read(y, x, h, w)
@@ -85,7 +85,7 @@ def test_downsample_weights_are_global():
 
 
 def test_padding_outside_slide_is_white(single_level, image):
-    with tw.open_wsi(single_level) as s:
+    with tw.open(single_level) as s:
         view = s.at_mpp(0.5)
         H, W = view.shape
         r = view.read(H - 10, W - 20, 30, 50)
@@ -100,7 +100,7 @@ def test_padding_outside_slide_is_white(single_level, image):
 
 def test_level_within_tolerance_used_as_is(write):
     path = write("jpeg_ifd.tif", compression="jpeg", layout="ifd")
-    with tw.open_wsi(path, mpp=0.2527) as s:
+    with tw.open(path, mpp=0.2527) as s:
         view = s.at_mpp(0.5)  # level 1 is 0.5054 µm/px, within 5 %
         assert view.source_level == 1 and view.level_scale == 1.0
         assert view.mpp == pytest.approx(0.5054) and view.scale == 2.0
@@ -115,7 +115,7 @@ def test_level_within_tolerance_used_as_is(write):
 
 def test_thumbnail_reads_coarsest_adequate_level(write, monkeypatch):
     path = write("jpeg_ifd.tif", compression="jpeg", layout="ifd")
-    with tw.open_wsi(path) as s:
+    with tw.open(path) as s:
         levels_read = []
         orig = s._reader.read
         monkeypatch.setattr(s._reader, "read",
@@ -130,12 +130,12 @@ def test_thumbnail_reads_coarsest_adequate_level(write, monkeypatch):
 def test_finer_than_level0_is_refused(single_level):
     from tilewright.slide.wholeslide import ResolutionUnavailableError
 
-    with tw.open_wsi(single_level) as s, pytest.raises(ResolutionUnavailableError):
+    with tw.open(single_level) as s, pytest.raises(ResolutionUnavailableError):
         s.at_mpp(0.1)
 
 
 def test_to_dask_is_lazy_and_matches_read(single_level, monkeypatch):
-    with tw.open_wsi(single_level, mpp=0.2527) as s:
+    with tw.open(single_level, mpp=0.2527) as s:
         view = s.at_mpp(0.5, tolerance=0.0)
         calls = []
         orig = s._reader.read
@@ -150,7 +150,7 @@ def test_to_dask_is_lazy_and_matches_read(single_level, monkeypatch):
 
 def test_iter_blocks_covers_view_once(write):
     path = write("jpeg_ifd.tif", compression="jpeg", layout="ifd")
-    with tw.open_wsi(path) as s:
+    with tw.open(path) as s:
         view = s.at_mpp(0.7, tolerance=0.0)
         full = view.read(0, 0, *view.shape)
         mosaic = np.zeros_like(full)
@@ -163,7 +163,7 @@ def test_iter_blocks_covers_view_once(write):
 
 
 def test_block_size_aligns_with_source_tiles(single_level):
-    with tw.open_wsi(single_level) as s:
+    with tw.open(single_level) as s:
         view = s.at_mpp(0.5)
         b = view.block_size(1000)
         assert (b * 2) % 256 == 0  # ground truth: 256 px stored tiles, factor 2

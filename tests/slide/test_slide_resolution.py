@@ -38,9 +38,9 @@ def test_tiff_resolution_tags(tmp_path, unit, mpp):
         num, den = tags["XResolution"].value
         assert num / den == pytest.approx(per_unit / mpp, rel=1e-6)
         assert tags["ResolutionUnit"].value == (3 if unit == "cm" else 2)
-    with tw.open_wsi(path) as s:
+    with tw.open(path) as s:
         assert s.mpp == pytest.approx(mpp, rel=1e-6) and s.mpp_source == "tiff-tags"
-    with tw.open_wsi(path, backend="openslide") as s:
+    with tw.open(path, backend="openslide") as s:
         assert s.mpp == pytest.approx(mpp, rel=1e-5)  # reference: OpenSlide's own parsing
 
 
@@ -59,9 +59,9 @@ def test_unit_none_is_unknown(tmp_path):
     path = tmp_path / "none.tif"
     write_pyramid(path, SMALL, mpp=0.25, resolution_unit=None, n_levels=1, compression="zlib")
     with pytest.raises(MissingResolutionError) as err:
-        tw.open_wsi(path)
+        tw.open(path)
     assert "mpp=" in str(err.value) and str(path) in str(err.value)  # names file and fix
-    with tw.open_wsi(path, mpp=0.25) as s:
+    with tw.open(path, mpp=0.25) as s:
         assert s.mpp == 0.25 and s.mpp_source == "override"
 
 
@@ -71,7 +71,7 @@ def test_ome_physical_size(tmp_path):
     path = tmp_path / "s.ome.tif"
     write_pyramid(path, SMALL, mpp=0.2465, layout="ome", compression="zlib", n_levels=2,
                   objective=40)
-    with tw.open_wsi(path) as s:
+    with tw.open(path) as s:
         assert s.mpp == pytest.approx(0.2465) and s.mpp_source == "ome"  # written above
         assert s.objective == 40.0 and len(s.levels) == 2
 
@@ -96,9 +96,9 @@ def test_ome_units_and_objective():
 def test_aperio_description(write):
     # Aperio-style description "...|AppMag = 40|MPP = 0.2500" (constructed by the writer)
     path = write("lossless_svs.tif", compression="zlib", layout="svs", objective=40)
-    with tw.open_wsi(path) as s:
+    with tw.open(path) as s:
         assert s.mpp == pytest.approx(0.25) and s.objective == 40.0 and s.mpp_source == "aperio"
-    with tw.open_wsi(path, backend="openslide") as s:
+    with tw.open(path, backend="openslide") as s:
         # reference: OpenSlide's aperio reader exposes openslide.mpp-x / objective-power
         assert s.mpp == pytest.approx(0.25) and s.objective == 40.0
     assert mpp_from_aperio("Aperio Image Library v12\r\n1x1|AppMag = 20|MPP = 0.4990") == \
@@ -122,7 +122,7 @@ def test_openslide_properties():
 def test_implausible_override_refused(write, bad):
     path = write("jpeg_ifd.tif", compression="jpeg", layout="ifd")
     with pytest.raises(ImplausibleResolutionError) as err:
-        tw.open_wsi(path, mpp=bad)
+        tw.open(path, mpp=bad)
     assert str(path) in str(err.value)
 
 
@@ -134,6 +134,6 @@ def test_implausible_tags_refused(tmp_path):
     tifffile.imwrite(path, np.zeros((64, 64, 3), np.uint8), tile=(16, 16), photometric="rgb",
                      resolution=(72, 72), resolutionunit="INCH")
     with pytest.raises(ImplausibleResolutionError, match="mpp="):
-        tw.open_wsi(path)
-    with tw.open_wsi(path, mpp=0.5) as s:  # the override repairs a misstated file
+        tw.open(path)
+    with tw.open(path, mpp=0.5) as s:  # the override repairs a misstated file
         assert s.mpp == 0.5

@@ -37,7 +37,7 @@ def test_level_shapes_with_odd_sizes_and_factor_4(tmp_path):
     img = make_image(301, 517, seed=2)
     path = tmp_path / "odd.svs"
     write_pyramid(path, img, compression="zlib", factor=4, n_levels=2, layout="svs", tile=64)
-    with tw.open_wsi(path) as s:
+    with tw.open(path) as s:
         assert [(lv.height, lv.width, lv.downsample) for lv in s.levels] == \
             [(301, 517, 1.0), (76, 130, 4.0)]  # ground truth: ceil(301/4), ceil(517/4)
         # edge cells of the reduced level average only the pixels that exist

@@ -21,11 +21,11 @@ def _store(path, n, seed):
 def test_dataloader_two_workers_every_tile_once(tmp_path):
     from torch.utils.data import DataLoader
 
-    from tilewright.torch import TileDataset
+    from tilewright.torch import TileStoreDataset
 
     a = _store(tmp_path / "a.zarr", 9, 1)
     b = _store(tmp_path / "b.zarr", 6, 2)
-    ds = TileDataset([tmp_path / "a.zarr", tmp_path / "b.zarr"])
+    ds = TileStoreDataset([tmp_path / "a.zarr", tmp_path / "b.zarr"])
     assert len(ds) == 15  # ground truth: 9 + 6 tiles written above
     seen = []
     loader = DataLoader(ds, batch_size=4, shuffle=True, num_workers=2,

@@ -22,14 +22,14 @@ def register(sub) -> None:
 
 
 def run(args) -> int:
-    from tilewright.slide.open import open_wsi
+    from tilewright.slide.open import open as open_slide
     from tilewright.store.layout import slide_stem
     from tilewright.tissue.mask import tissue_mask
     from tilewright.tissue.overlay import render_overlay
     from tilewright.tissue.plan import plan_tiles
 
     try:
-        with open_wsi(args.slide, mpp=args.source_mpp) as slide:
+        with open_slide(args.slide, mpp=args.source_mpp) as slide:
             out = sys.stdout
             out.write(f"slide       {slide.path}\nbackend     {slide.backend}\n")
             out.write(f"level-0     {slide.dimensions[1]} x {slide.dimensions[0]} px (w x h), "

@@ -70,7 +70,7 @@ class TilingConfig:
         Write a QC picture (tissue outline, ink, kept tiles) to ``qc/<slide_id>.png`` beside the store.
     verify_jpeg : bool
         Check every decoded JPEG source tile for damage decoders pass silently (on by default;
-        see :func:`tilewright.open_wsi`): a damaged slide fails with the tile named instead of
+        see :func:`tilewright.open`): a damaged slide fails with the tile named instead of
         storing garbage pixels. ``False`` skips the check (faster JPEG decoding, garbage kept).
     """
 

@@ -121,7 +121,7 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
         Raises on failure (a :class:`TilewrightError` for expected problems).
     """
     from tilewright.run.allocator import release_free
-    from tilewright.slide.open import open_wsi
+    from tilewright.slide.open import open as open_slide
 
     config = config or TilingConfig()
     t0 = time.perf_counter()
@@ -130,7 +130,7 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
     out = Path(out)
     final = out if out.suffix == ".zarr" else out / f"{slide_id}.zarr"
     remove_partials(final)
-    with open_wsi(path, mpp=mpp, verify=config.verify_jpeg) as slide:
+    with open_slide(path, mpp=mpp, verify=config.verify_jpeg) as slide:
         view = slide.at_mpp(config.mpp, tolerance=config.tolerance)
         survey = _survey(slide, view, config, slide_id, path, regions, target)
         plan, attrs = survey.plan, survey.attrs

@@ -31,14 +31,14 @@ def slide_estimate(path: str, config: dict, mpp: float | None) -> dict | None:
     """A normalizer fitted to one slide's sample of tissue tiles, its optical density measured
     against the slide's own glass colour (None when impossible)."""
     from tilewright.run.reference import sample_tiles
-    from tilewright.slide.open import open_wsi
+    from tilewright.slide.open import open as open_slide
     from tilewright.stain.registry import make_normalizer
     from tilewright.tissue.mask import tissue_mask
     from tilewright.tissue.plan import plan_tiles
 
     cfg = TilingConfig.from_dict(config)
     try:
-        with open_wsi(path, mpp=mpp, verify=cfg.verify_jpeg) as slide:
+        with open_slide(path, mpp=mpp, verify=cfg.verify_jpeg) as slide:
             view = slide.at_mpp(cfg.mpp, tolerance=cfg.tolerance)
             thumbnail = slide.thumbnail(cfg.mask_mpp)  # read once: the mask and the glass colour share it
             mask = tissue_mask(thumbnail, mpp=cfg.mask_mpp, exclude_ink=cfg.exclude_ink, exclude_dark=cfg.exclude_dark)

@@ -2,7 +2,7 @@
 
 Modules
 -------
-open               ``open_wsi``: sniff the file, pick a backend, check the resolution.
+open               ``open``: sniff the file, pick a backend, check the resolution.
 wholeslide         ``WholeSlide`` (levels, µm/px, ``read_level``, ``at_mpp``, ``thumbnail``)
                    and ``Level``.
 view               ``ResampledView``: the slide at a target µm/px (``read``, ``iter_blocks``,

@@ -1,4 +1,4 @@
-"""open_wsi: open a whole-slide image with the backend that serves it correctly."""
+"""open: open a whole-slide image with the backend that serves it correctly (`tw.open`)."""
 
 from __future__ import annotations
 
@@ -14,12 +14,12 @@ from tilewright.slide.resolution import checked_mpp
 from tilewright.slide.sniff import MAX_PIXELS, MAX_SIDE, sniff
 from tilewright.slide.wholeslide import WholeSlide
 
-__all__ = ["open_wsi"]
+__all__ = ["open"]
 
 _BACKENDS = ("auto", "tiff", "openslide")
 
 
-def open_wsi(path: str | os.PathLike, *, mpp: float | None = None,
+def open(path: str | os.PathLike, *, mpp: float | None = None,
              backend: str = "auto", verify: bool = True) -> WholeSlide:
     """Open a whole-slide image.
 
@@ -65,7 +65,7 @@ def open_wsi(path: str | os.PathLike, *, mpp: float | None = None,
     Examples
     --------
     >>> import tilewright as tw                                  # doctest: +SKIP
-    >>> with tw.open_wsi("slide.svs") as slide:                  # doctest: +SKIP
+    >>> with tw.open("slide.svs") as slide:                  # doctest: +SKIP
     ...     view = slide.at_mpp(0.5)
     ...     block = view.read(0, 0, 2048, 2048)
     """
@@ -133,4 +133,4 @@ def _open_reader(path: str, kind: str, backend: str, mpp: float | None, verify: 
 
 
 def _reopen(path, mpp, backend, verify=True):
-    return open_wsi(path, mpp=mpp, backend=backend, verify=verify)
+    return open(path, mpp=mpp, backend=backend, verify=verify)

@@ -33,7 +33,7 @@ def _downsample(h0: int, w0: int, h: int, w: int) -> float:
 
 
 class WholeSlide:
-    """An open whole-slide image. Create it with :func:`tilewright.open_wsi`.
+    """An open whole-slide image. Create it with :func:`tilewright.open`.
 
     Attributes
     ----------

@@ -10,6 +10,6 @@ Modules (nothing is imported here, so ``import tilewright.stain`` does no work):
 - ``normalizer``: fitting, source binding, per-tile mode and dictionaries shared by both methods.
 - ``macenko``: ``MacenkoNormalizer`` (and ``estimate_stains``).
 - ``reinhard``: ``ReinhardNormalizer``.
-- ``augment``: ``StainAugmenter`` (random H and E concentration scale and shift).
+- ``augment``: ``StainJitter`` (random H and E concentration scale and shift).
 - ``registry``: ``make_normalizer(name)`` and ``normalizer_from_dict(d)``.
 """

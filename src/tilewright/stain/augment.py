@@ -18,13 +18,13 @@ import numpy as np
 from .density import check_rgb
 from .od_transform import apply_od_affine
 
-__all__ = ["StainAugmenter", "RUIFROK_JOHNSTON_HED"]
+__all__ = ["StainJitter", "RUIFROK_JOHNSTON_HED"]
 
 #: Hematoxylin, eosin and DAB optical-density vectors of Ruifrok & Johnston (2001), rows R,G,B.
 RUIFROK_JOHNSTON_HED = np.array([[0.65, 0.70, 0.29], [0.07, 0.99, 0.11], [0.27, 0.57, 0.78]])
 
 
-class StainAugmenter:
+class StainJitter:
     """Random scale and shift of hematoxylin and eosin concentrations (Tellez et al. 2018).
 
     Each image's optical density is unmixed into hematoxylin, eosin and a residual (DAB)
@@ -55,7 +55,7 @@ class StainAugmenter:
     Examples
     --------
     >>> from skimage import data
-    >>> aug = StainAugmenter(seed=7)
+    >>> aug = StainJitter(seed=7)
     >>> aug(data.immunohistochemistry()[:64, :64]).shape
     (64, 64, 3)
     """
@@ -133,5 +133,5 @@ class StainAugmenter:
         return out.reshape(arr.shape)
 
     def __repr__(self) -> str:
-        return (f"StainAugmenter(sigma_alpha={self.sigma_alpha}, sigma_beta={self.sigma_beta}, "
+        return (f"StainJitter(sigma_alpha={self.sigma_alpha}, sigma_beta={self.sigma_beta}, "
                 f"seed={self.seed})")
