@@ -112,10 +112,10 @@ class HardSlide:
         return int(round(self.height_um / mpp)), int(round(self.width_um / mpp))
 
     # geometry -----------------------------------------------------------------------------
-    def _grid(self, mpp):
-        h, w = self.shape_at(mpp)
-        yy = (np.arange(h, dtype=np.float32) + 0.5) * np.float32(mpp)
-        xx = (np.arange(w, dtype=np.float32) + 0.5) * np.float32(mpp)
+    def _grid(self, mpp, box=None):
+        y, x, h, w = (0, 0, *self.shape_at(mpp)) if box is None else box
+        yy = (np.arange(y, y + h, dtype=np.float32) + 0.5) * np.float32(mpp)
+        xx = (np.arange(x, x + w, dtype=np.float32) + 0.5) * np.float32(mpp)
         return yy[:, None], xx[None, :]
 
     @staticmethod
@@ -145,11 +145,11 @@ class HardSlide:
                 d = np.minimum(d, np.sqrt((py - t * dy) ** 2 + (px - t * dx) ** 2))
         return np.clip((ink.width / 2.0 - d) / mpp + 0.5, 0.0, 1.0).astype(np.float32)
 
-    def truth(self, mpp):
-        """Boolean ground-truth maps at ``mpp`` (pixel centres): tissue, ink, blood, faint, fat, fold,
-        artefact (bubble rims and dust)."""
-        yy, xx = self._grid(mpp)
-        shape = self.shape_at(mpp)
+    def truth(self, mpp, box=None):
+        """Boolean ground-truth maps at ``mpp`` (pixel centres; ``box`` (y, x, h, w) px or all):
+        tissue, ink, blood, faint, fat, fold, dense, artefact (bubble rims and dust)."""
+        yy, xx = self._grid(mpp, box)
+        shape = (yy.shape[0], xx.shape[1])
         tissue = np.ones(shape, bool) if self.cover else np.zeros(shape, bool)
         for p in self.pieces:
             tissue |= self._ellipse(p, yy, xx, p.wobble)
@@ -196,12 +196,12 @@ class HardSlide:
         eosin = smooth(150.0, 0.25, 0.6) + smooth(20.0, -0.05, 0.05)
         return hema * np.float32(self.hema), eosin * np.float32(self.eosin), smooth
 
-    def render(self, mpp):
-        """RGB uint8 of the whole slide at ``mpp`` µm/px."""
-        rng = np.random.default_rng([self.seed, int(round(mpp * 1000))])
-        shape = self.shape_at(mpp)
-        yy, xx = self._grid(mpp)
-        t = self.truth(mpp)
+    def render(self, mpp, box=None):
+        """RGB uint8 of the slide at ``mpp`` µm/px (``box`` (y, x, h, w) in its pixels, or all)."""
+        rng = np.random.default_rng([self.seed, int(round(mpp * 1000))] + list(box or ()))
+        yy, xx = self._grid(mpp, box)
+        shape = (yy.shape[0], xx.shape[1])
+        t = self.truth(mpp, box)
         hema, eosin, smooth = self._fields(shape, mpp, rng)
         tissue = t["tissue"]
         hema = np.where(tissue, hema, 0)

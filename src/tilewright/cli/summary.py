@@ -19,5 +19,9 @@ def print_summary(rows, out, stream=None) -> None:
                      f"{float(r.get('seconds') or 0):>7.1f}  {note}\n")
     ok = sum(r["status"] == "ok" for r in rows)
     failed = sum(r["status"] == "failed" for r in rows)
+    warned = sum(bool(r.get("warnings")) for r in rows)
     stream.write(f"\n{ok} ok, {len(rows) - ok - failed} skipped, {failed} failed. "
                  f"Stores and manifest.csv are in {out}\n")
+    if warned:
+        stream.write(f"{warned} slide(s) with warnings (no glass, much ink, little tissue, stain estimate "
+                     f"replaced, ...): see the warnings column of manifest.csv and tile-out.log\n")

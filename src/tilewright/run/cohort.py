@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import logging
 import os
 import time
 from pathlib import Path
@@ -16,6 +17,7 @@ __all__ = ["tile_cohort", "run_one", "STAIN_TARGET_FILE"]
 
 
 STAIN_TARGET_FILE = "stain_target.json"
+_log = logging.getLogger("tilewright")
 
 
 def run_one(path: str, out_dir: str, config: dict, slide_id: str, mpp: float | None,
@@ -88,17 +90,18 @@ def _complete_row(final: Path, path: str, slide_id: str, cfg: TilingConfig) -> d
     return SlideResult(slide_id, path, "ok" if n else "skipped",
                        "" if n else "no tile met the tissue criteria (blank slide or too little tissue)",
                        n, a.get("mpp_source"), a.get("objective"), a.get("source_level"), 0.0,
-                       str(final)).to_row()
+                       str(final), "; ".join(a.get("warnings") or ())).to_row()
 
 
-def _stain_target(paths, out_dir: Path, config: TilingConfig, mpps, compute) -> dict | None:
-    """The cohort's stain target, computed once and saved in the output folder."""
+def _stain_target(paths, out_dir: Path, config: TilingConfig, mpps, compute, reference=None) -> dict | None:
+    """The cohort's stain target, computed once and saved in the output folder (``reference``:
+    the target already fitted from ``config.reference``)."""
     from tilewright.run.reference import make_target
 
     if not config.normalizer:
         return None
     if config.reference is not None:
-        return make_target(config.normalizer, config.reference).to_dict()
+        return reference or make_target(config.normalizer, config.reference, config).to_dict()
     saved = out_dir / STAIN_TARGET_FILE
     if saved.exists():
         d = json.loads(saved.read_text())
@@ -168,12 +171,19 @@ def tile_cohort(paths, out_dir, config: TilingConfig | None = None, *, scheduler
     paths = [str(p) for p in paths]
     ids = slide_ids(paths)
     mpps = [_mpp_for(mpp, p, i) for p, i in zip(paths, ids)]
+    reference = None
+    if config.normalizer and config.reference is not None:  # a bad reference stops the run before any slide
+        from tilewright.run.reference import make_target
+
+        reference = make_target(config.normalizer, config.reference, config).to_dict()
     with output_lock(out_dir):
         (out_dir / "config.toml").write_text(config.to_toml(), encoding="utf-8")
         rows: dict[int, dict] = {}
 
         def done(i, row):
             rows[i] = row
+            for note in filter(None, str(row.get("warnings") or "").split("; ")):
+                _log.warning("%s: %s", row.get("slide_id"), note)  # reaches tile-out.log
             if on_result is not None:
                 on_result(row)
 
@@ -181,7 +191,8 @@ def tile_cohort(paths, out_dir, config: TilingConfig | None = None, *, scheduler
             return execute(fn, args_list, scheduler=scheduler, workers=workers)
 
         try:
-            target = _stain_target(paths, out_dir, config, mpps, lambda fn, a: [r for _, r in compute(fn, a)])
+            target = _stain_target(paths, out_dir, config, mpps, lambda fn, a: [r for _, r in compute(fn, a)],
+                                   reference)
             args = [(p, str(out_dir), config.to_dict(), sid, m, target, overwrite)
                     for p, sid, m in zip(paths, ids, mpps)]
             for i, row in execute(run_one, args, scheduler=scheduler, workers=workers):

@@ -11,7 +11,7 @@ from pathlib import Path
 
 import numpy as np
 
-from tilewright.errors import StainEstimationError, TilewrightError
+from tilewright.errors import TilewrightError
 from tilewright.run.config import TilingConfig
 from tilewright.store.layout import slide_ids
 from tilewright.store.writer import StoreWriter, remove_partials
@@ -33,6 +33,7 @@ class SlideResult:
     source_level: int | None = None
     seconds: float = 0.0
     store: str = ""
+    warnings: str = ""  # "; "-joined "code: reason" messages (see tissue_mask, fit_source_checked)
 
     def to_row(self) -> dict:
         return asdict(self)
@@ -56,7 +57,7 @@ def _tile_arrays(view, plan, config, bind, writer, progress):
     min_sharp = config.min_sharpness
 
     def prepare(tiles):
-        bound = None if bind is None else bind.result()  # fitted beside the first reads
+        bound = None if bind is None else bind.result()[0]  # fitted beside the first reads
         if bound is not None:
             tiles = bound.transform(tiles, out=tiles)
         sharp = sharpness(tiles)
@@ -147,8 +148,10 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
                 aside = pool.submit(_aside, writer, survey.maps, survey.draw, survey.mask, plan, path, slide_id)
                 survey.maps = survey.draw = survey.mask = None
                 _tile_arrays(view, plan, config, bind, writer, progress)
-                bound = None if bind is None else bind.result()
+                bound, stain_note = (None, "") if bind is None else bind.result()
                 attrs["normalizer"] = None if bound is None else bound.to_dict()
+                if stain_note:
+                    attrs["warnings"].append(f"stain-replaced: {stain_note}")
                 png, attrs["source"]["digest"] = aside.result()
                 writer.commit(attrs, overwrite=overwrite)
                 n = writer.n
@@ -160,7 +163,7 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
         return SlideResult(slide_id=slide_id, source=str(path), status="ok", n_tiles=int(n),
                            mpp_source=float(slide.mpp), objective=slide.objective,
                            source_level=int(view.source_level), seconds=round(time.perf_counter() - t0, 3),
-                           store=str(final))
+                           store=str(final), warnings="; ".join(attrs["warnings"]))
 
 
 def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNamespace:
@@ -178,7 +181,7 @@ def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNames
 
     thumbnail = slide.thumbnail(config.mask_mpp)
     mask = tissue_mask(SimpleNamespace(thumbnail=lambda mpp: thumbnail, path=slide.path), mpp=config.mask_mpp,
-                       exclude_ink=config.exclude_ink, exclude_dark=config.exclude_dark)
+                       **config.mask_options())
     if config.keep:
         regions = _regions_for(regions, config, slide_id, slide.mpp, path)
     plan = plan_tiles(view, mask, tile=config.tile, stride=config.stride, min_tissue=config.min_tissue,
@@ -198,6 +201,7 @@ def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNames
         "normalizer": None,  # bound while the first tiles are read (see tile_slide)
         "regions": None if (regions is None or not config.keep) else _region_info(regions, config),
         "tissue_mask": _jsonable(mask.to_dict()),
+        "warnings": list(mask.warnings),  # what the user should know; the stain's note joins later
         "plan": _jsonable(getattr(plan, "params", {})),
         "order": "blocks of config.block target px, row-major; row-major inside a block",
         "config": _jsonable(config.to_dict()),
@@ -235,23 +239,25 @@ def _glass(thumbnail, mask):
 
 def _bind_normalizer(view, plan, config, target, path, glass=None):
     """Fit the target (if needed) and bind the slide's own stain estimate from a tile sample,
-    optical density measured against the slide's glass colour ``glass``."""
-    from tilewright.run.reference import make_target, sample_tiles
-    from tilewright.stain.registry import make_normalizer
+    optical density measured against the slide's glass colour ``glass``. Returns
+    ``(normalizer or None, note)``: a failed or implausible estimate of the slide is replaced by a
+    documented fallback (:meth:`~tilewright.stain.normalizer.StainNormalizer.fit_source_checked`)
+    and ``note`` says so."""
+    from tilewright.run.reference import make_target, own_target, sample_tiles
 
     sample = sample_tiles(view, plan.yx, config.tile, config.stain_sample, config.seed, threads=config.threads)
     if len(sample) == 0:
-        return None  # nothing will be stored; no estimate needed
+        return None, ""  # nothing will be stored; no estimate needed
+    note = ""
     if target is None:
-        target = (make_target(config.normalizer, config.reference) if config.reference is not None
-                  else make_normalizer(config.normalizer).fit(sample, glass=glass))
+        if config.reference is not None:
+            target = make_target(config.normalizer, config.reference, config)
+        else:
+            target, note = own_target(config.normalizer, sample, glass, path)
     if config.per_tile_stain:
-        return target.with_glass(glass)
-    try:
-        return target.fit_source(sample, glass=glass)
-    except StainEstimationError as exc:
-        raise StainEstimationError(f"cannot estimate this slide's stain from {len(sample)} tissue tiles "
-                                   f"({exc.reason}); lower --min-tissue or run without --normalize", path) from None
+        return target.with_glass(glass), note
+    bound, replaced = target.fit_source_checked(sample, glass=glass)
+    return bound, "; ".join(n for n in (note, replaced) if n)
 
 
 def _regions_for(regions, config, slide_id, level0_mpp, path):
