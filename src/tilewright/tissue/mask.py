@@ -16,21 +16,14 @@ import os
 
 import numpy as np
 
-from .density import channel_max, channel_min, find_glass, od_lookup, od_tables
-from .exclusions import bands as _bands, find_exclusions, smooth as _smooth
-from .otsu import otsu_threshold
+from .density import find_glass
+from .exclusions import find_exclusions
+from .threshold import _LOG_FLOOR, METHODS, density_threshold, tissue_feature  # noqa: F401 (re-exported)
 from .raster import box_fractions, summed_area_table
 
 __all__ = ["TissueMask", "tissue_mask", "tissue_feature", "METHODS"]
 
-METHODS = ("od-otsu", "saturation-otsu")
-_LOG_FLOOR = 1e-3  # OD below this is glass noise; keeps log10 finite
-#: The density threshold is at least this many robust standard deviations of the glass's own
-#: density (its noise), and never below MIN_FLOOR_OD.
-NOISE_SIGMAS = 6.0
-MIN_FLOOR_OD = 0.008
-#: Threshold used on a slide that shows no glass (mean OD against the fallback glass colour).
-NO_GLASS_FLOOR_OD = 0.02
+
 #: Warnings: ink over this fraction of (tissue + ink); less tissue than this area (mm²).
 HIGH_INK_FRACTION = 0.25
 LITTLE_TISSUE_MM2 = 1.0
@@ -208,40 +201,6 @@ def _fill_holes(mask: np.ndarray, max_px: float) -> np.ndarray:
     return mask | fill[labels]
 
 
-def tissue_feature(rgb: np.ndarray, mpp: float, *, method: str = "od-otsu", smooth_um: float = 8.0,
-                   glass=None) -> np.ndarray:
-    """The per-pixel quantity a method thresholds (smoothed by a Gaussian of ``smooth_um`` µm).
-
-    ``"od-otsu"``: mean optical density over R, G, B relative to the glass colour.
-    ``"saturation-otsu"``: HSV saturation ``(max - min) / max`` in [0, 1].
-
-    Returns
-    -------
-    ndarray (H, W) float32
-    """
-    if method not in METHODS:
-        raise ValueError(f"unknown tissue method {method!r}; choose one of {METHODS}")
-    sigma = smooth_um / mpp
-    h, w = rgb.shape[:2]
-    feature = np.empty((h, w), np.float32)
-    if method == "od-otsu":
-        tables = od_tables(find_glass(rgb).colour if glass is None else glass)
-    for r0, r1, a0, a1 in _bands(h, sigma):
-        band = rgb[a0:a1]
-        if method == "od-otsu":  # mean optical density over R, G, B, from 256-entry tables
-            od = od_lookup(np.ascontiguousarray(band), tables)
-            f = od[..., 0] + od[..., 1]
-            f += od[..., 2]
-            f /= np.float32(3)
-            del od
-        else:
-            top = channel_max(band).astype(np.float32)
-            f = top - channel_min(band)
-            f /= np.maximum(top, np.float32(1.0))
-        feature[r0:r1] = _smooth(f, sigma)[r0 - a0:r1 - a0]
-    return feature
-
-
 def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-otsu", sensitivity: float = 1.0,
                 min_od_floor: float | None = None, max_od_ceiling: float = 0.15,
                 min_saturation: float = 0.08, smooth_um: float = 8.0, close_um: float = 24.0,
@@ -258,12 +217,8 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-otsu", sensitivity
     colour; (3) the feature of ``method`` (default: mean optical density relative to the glass
     colour, Gaussian-smoothed); (4) Otsu's threshold on the log10 of that density (glass is a
     narrow peak near zero OD while pale and dense tissue span a decade, so the log scale keeps
-    pale tissue with the tissue class), never below a floor of the glass's own median density plus
-    :data:`NOISE_SIGMAS` robust standard deviations of it (its noise; at least :data:`MIN_FLOOR_OD`) so
-    that pale tissue on a clean slide is kept and noisy glass is not split, and never above
-    ``max_od_ceiling`` so a view covered by tissue is not split in two; without glass the
-    threshold is :data:`NO_GLASS_FLOOR_OD`; floor, ceiling and that level are divided by
-    ``sensitivity``; (5) closing then opening with discs of ``close_um`` and ``open_um``; (6) holes
+    pale tissue with the tissue class), kept between a floor measured from the glass's own density
+    and noise and ``max_od_ceiling`` (:func:`~tilewright.tissue.threshold.density_threshold`); (5) closing then opening with discs of ``close_um`` and ``open_um``; (6) holes
     smaller than ``fill_holes_um2`` filled; (7) marker ink, over glass and over tissue, grown by
     ``ink_margin_um`` (:mod:`~tilewright.tissue.exclusions`: black and grey, blue and green by
     colour, red by colour and stroke shape so blood stays tissue), and optionally dense debris,
@@ -355,6 +310,7 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-otsu", sensitivity
     rgb, path = _thumbnail(slide, mpp)
     survey = find_glass(rgb, fallback=glass_fallback)
     warnings = []
+    glass_given = glass
     if glass is not None:
         glass = np.asarray(glass, dtype=np.float64)
     else:
@@ -363,27 +319,10 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-otsu", sensitivity
             warnings.append(f"no-glass: no blank glass seen on the slide; glass colour taken as "
                             f"{tuple(int(round(v)) for v in glass)} ({'given fallback' if glass_fallback is not None else 'white'})")
     feature = tissue_feature(rgb, mpp, method=method, smooth_um=smooth_um, glass=glass)
-    noise = math.nan
-    if method == "od-otsu":
-        level = 0.0
-        if survey.found:  # the glass's own density: its level and its noise (robust)
-            g = feature[survey.candidates]
-            level = float(np.median(g))
-            noise = float(1.4826 * np.median(np.abs(g - level)))
-            del g
-        floor = (min_od_floor if min_od_floor is not None
-                 else max(MIN_FLOOR_OD, level + NOISE_SIGMAS * noise) if survey.found else NO_GLASS_FLOOR_OD) / sensitivity
-        ceiling = max(max_od_ceiling / sensitivity, floor)
-        if survey.found:
-            logs = np.maximum(feature, _LOG_FLOOR)
-            otsu = 10.0 ** otsu_threshold(np.log10(logs, out=logs))
-            del logs
-            threshold = min(max(otsu, floor), ceiling)
-        else:  # no glass: Otsu would split tissue from tissue
-            otsu, threshold = math.nan, floor
-    else:
-        otsu = otsu_threshold(feature)
-        floor = threshold = max(otsu, min_saturation)
+    threshold, otsu, floor, noise = density_threshold(
+        feature, survey if glass_given is None else survey._replace(found=True), method=method,
+        sensitivity=sensitivity, min_od_floor=min_od_floor, max_od_ceiling=max_od_ceiling,
+        min_saturation=min_saturation)
     raw = feature > threshold
     del feature
     glassy = ~raw
