@@ -4,7 +4,7 @@ A normalizer has a *target* (fitted once on a reference image, or the median of 
 *source* estimate (the colour statistics of the images being normalized). The source estimate
 comes, in order of precedence:
 
-1. per image, when ``per_tile=True`` (an image whose own estimate fails falls back to the bound
+1. per image, when ``per_tile=True`` (an image whose own estimate fails, or is implausible, falls back to the bound
    estimate below, or is returned unchanged when there is none);
 2. from a bound sample, after ``fit_source(sample)`` (the whole-slide mode: one estimate from a
    reproducible sample of a slide's tissue tiles, reused for every tile batch of that slide);
@@ -287,6 +287,8 @@ class StainNormalizer:
         for i, image in enumerate(images):
             try:
                 source = self._estimate(image, self.glass)
+                if self._implausible(source):  # a tile's failed estimate is not used either
+                    source = self.source
             except StainEstimationError:
                 source = self.source  # bound slide estimate, or None: leave the tile unchanged
             if source is None:
