@@ -11,7 +11,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from hard_slides import Piece, HardSlide, hard_slides
+from hard_slides import Area, HardSlide, Piece, hard_slides
 from tilewright.tissue.mask import tissue_mask
 
 MPP = 8.0
@@ -134,3 +134,24 @@ def test_macenko_never_darkens_past_the_darkest_raw_pixel(masks, target, name):
     # ground truth: the raw pixels themselves; a small margin (24 of 255 levels, under 10 %) for
     # the target's own density and the capped concentration gain (tilewright.stain.macenko.MAX_GAIN)
     assert darkest_out >= darkest_raw - 24, (name, note)
+
+
+@pytest.mark.parametrize("glass", [(232.0, 234.0, 226.0), (241.0, 238.0, 244.0)])
+def test_tinted_glass_is_found_and_faint_tissue_is_not_glass(glass):
+    from tilewright.tissue.density import find_glass
+
+    slide = HardSlide("tinted", 6000, 8000, (Piece(3000, 4000, 2200, 3000),), areas=(
+        Area("faint", 3000, 4000, 1500, 2000),), glass=glass, noise=1.0)
+    survey = find_glass(slide.render(MPP))
+    truth = slide.truth(MPP)
+    assert survey.found
+    assert np.abs(survey.colour - np.asarray(glass)).max() <= 3  # ground truth: the glass drawn
+    assert survey.candidates[truth["faint"]].mean() < 0.05  # pale tissue is not glass
+
+
+def test_no_glass_found_on_a_slide_covered_by_tissue():
+    from tilewright.tissue.density import find_glass
+
+    cover = HardSlide("cover", 3000, 4000, cover=True, seed=5)
+    survey = find_glass(cover.render(MPP), fallback=(240.0, 238.0, 242.0))
+    assert not survey.found and list(survey.colour) == [240.0, 238.0, 242.0]  # the fallback given
