@@ -189,7 +189,10 @@ def test_ctrl_c_stops_cleanly_and_resumes(tmp_path):
     src = _good(tmp_path, 4)
     out = tmp_path / "out"
     cmd = [sys.executable, "-m", "tilewright.cli.tile_out", str(src), str(out), *FAST]
-    proc = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
+    # SIGINT as a terminal delivers it, even when this test runs as a background job (which
+    # inherits SIGINT ignored, and the run would then finish instead of stopping)
+    proc = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True,
+                            preexec_fn=lambda: signal.signal(signal.SIGINT, signal.SIG_DFL))
     deadline = time.time() + 120
     while time.time() < deadline and not list(out.glob("*.zarr")):
         time.sleep(0.02)

@@ -54,11 +54,14 @@ def compressor(name: str):
 
 def remove_partials(final: str | os.PathLike) -> None:
     """Delete temporary folders left by interrupted writes of ``final``."""
+    from tilewright.interrupts import signals_deferred
+
     final = Path(final)
     if not final.parent.exists():
         return
-    for p in final.parent.glob(final.name + _PARTIAL + "*"):
-        shutil.rmtree(p, ignore_errors=True)
+    with signals_deferred():  # a Ctrl-C here would leave half a folder behind
+        for p in final.parent.glob(final.name + _PARTIAL + "*"):
+            shutil.rmtree(p, ignore_errors=True)
 
 
 class StoreWriter:
@@ -84,14 +87,17 @@ class StoreWriter:
                  compression: str = "lz4", with_region: bool = False):
         import zarr
 
+        from tilewright.store.guard import GuardedLocalStore, WriteGuard
+
         self.final = Path(final)
         self.tmp = self.final.with_name(self.final.name + _PARTIAL + uuid.uuid4().hex[:8])
+        self.guard = WriteGuard(self.tmp, self.final)  # abort waits for the writes in flight
         self.tile = int(tile)
         self.n = 0
         cap = max(int(capacity), 1)
         try:
             self.final.parent.mkdir(parents=True, exist_ok=True)
-            self.group = zarr.open_group(str(self.tmp), mode="w", zarr_format=3)
+            self.group = zarr.open_group(GuardedLocalStore(self.tmp, guard=self.guard), mode="w", zarr_format=3)
             shard = max(1, min(int(shard_tiles), cap))
             self.tiles = self.group.create_array(
                 "tiles", shape=(cap, tile, tile, 3), chunks=(1, tile, tile, 3),
@@ -102,6 +108,7 @@ class StoreWriter:
             self.shard = int(self.tiles.shards[0])
             self._encoder = ShardEncoder.for_array(self.tiles)  # None: let zarr write the tiles
             self._pending: list = []  # encoded chunks of a shard not yet full
+            self.guard.created = True  # from now on a vanished folder fails every write
         except OSError as exc:
             self.abort()
             raise StoreError(f"cannot create the store ({exc.strerror or exc}); check that the output "
@@ -168,12 +175,14 @@ class StoreWriter:
         chunks = self._pending + list(encoded)
         full = (len(chunks) // self.shard) * self.shard
         for i in range(0, full, self.shard):
-            self._encoder.write_chunks((start + i) // self.shard, chunks[i:i + self.shard])
+            with self.guard.writing():
+                self._encoder.write_chunks((start + i) // self.shard, chunks[i:i + self.shard])
         self._pending = chunks[full:]
 
     def _flush_pending(self) -> None:
         if self._encoder is not None and self._pending:
-            self._encoder.write_chunks((self.n - len(self._pending)) // self.shard, self._pending)
+            with self.guard.writing():
+                self._encoder.write_chunks((self.n - len(self._pending)) // self.shard, self._pending)
             self._pending = []
 
     def _small(self, name, data, *, band: int | None = None, **kw) -> None:
@@ -231,6 +240,20 @@ class StoreWriter:
             full["complete"] = False
             self.group.update_attributes(full)  # one metadata write (attrs.update writes per key)
             self.group.update_attributes({"complete": True})  # the last thing written
+            self._rename_into_place(overwrite)
+        except OSError as exc:
+            self.abort()
+            raise StoreError(f"finishing the store failed ({exc.strerror or exc}); check free space "
+                             "and permissions", self.final) from exc
+        return self.final
+
+    def _rename_into_place(self, overwrite: bool) -> None:
+        """Move the finished temporary folder to the final name (replacing an old store), with
+        no write left in flight and no signal able to stop it between the two renames."""
+        from tilewright.interrupts import signals_deferred
+
+        with signals_deferred():
+            self.guard.close()  # nothing more is written under the temporary name
             if self.final.exists():
                 if not overwrite:
                     raise StoreError("a store already exists; pass overwrite to replace it", self.final)
@@ -240,15 +263,20 @@ class StoreWriter:
                 shutil.rmtree(old, ignore_errors=True)
             else:
                 os.replace(self.tmp, self.final)
-        except OSError as exc:
-            self.abort()
-            raise StoreError(f"finishing the store failed ({exc.strerror or exc}); check free space "
-                             "and permissions", self.final) from exc
-        return self.final
 
     def abort(self) -> None:
-        """Remove the temporary folder (used on any failure)."""
-        shutil.rmtree(self.tmp, ignore_errors=True)
+        """Remove the temporary folder (used on any failure).
+
+        Writes still in flight (zarr finishes a write on its own thread even when the caller
+        stopped waiting for it, e.g. on Ctrl-C) are waited for first and later ones refused, so
+        nothing re-creates the folder once it is gone; a SIGINT/SIGTERM arriving meanwhile is
+        delivered when the folder is removed.
+        """
+        from tilewright.interrupts import signals_deferred
+
+        with signals_deferred():
+            self.guard.close()
+            shutil.rmtree(self.tmp, ignore_errors=True)
 
     def __enter__(self):
         return self
