@@ -75,7 +75,8 @@ def signals_deferred():
 
 @contextlib.contextmanager
 def stop_on_signals():
-    """Within the block, SIGINT and SIGTERM raise :class:`Stopped` in the main thread."""
+    """Within the block, SIGINT and SIGTERM raise :class:`Stopped` in the main thread (a signal
+    that is ignored on entry, as SIGINT is for a job a shell started in the background, stays so)."""
     if not _main_thread():
         yield
         return
@@ -83,7 +84,8 @@ def stop_on_signals():
     def stop(signum, frame):
         raise Stopped(signum)
 
-    previous = {sig: signal.signal(sig, stop) for sig in _SIGNALS}
+    # a signal ignored when the program started stays ignored (a background job's SIGINT)
+    previous = {sig: signal.signal(sig, stop) for sig in _SIGNALS if signal.getsignal(sig) != signal.SIG_IGN}
     try:
         yield
     finally:

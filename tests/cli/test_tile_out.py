@@ -152,8 +152,8 @@ def test_distributed_cluster_matches_local_run(tmp_path):
         np.testing.assert_array_equal(a[sid][1], b[sid][1])
     import json
 
-    assert json.loads((local / "stain_target.json").read_text()) == json.loads(
-        (remote / "stain_target.json").read_text())
+    assert json.loads((local / "stain_target.macenko.json").read_text()) == json.loads(
+        (remote / "stain_target.macenko.json").read_text())
 
 
 def test_duplicate_names_get_unique_ids(tmp_path):

@@ -11,6 +11,7 @@ writes only the metadata and the small arrays. Any zarr v3 reader reads the resu
 
 from __future__ import annotations
 
+import errno
 import os
 import shutil
 import uuid
@@ -59,9 +60,11 @@ def remove_partials(final: str | os.PathLike) -> None:
     final = Path(final)
     if not final.parent.exists():
         return
+    prefix = final.name + _PARTIAL  # compared as text: a name is not a pattern (``a[1]`` vs ``a1``)
     with signals_deferred():  # a Ctrl-C here would leave half a folder behind
-        for p in final.parent.glob(final.name + _PARTIAL + "*"):
-            shutil.rmtree(p, ignore_errors=True)
+        for name in os.listdir(final.parent):
+            if name.startswith(prefix):
+                shutil.rmtree(final.parent / name, ignore_errors=True)
 
 
 class StoreWriter:
@@ -103,6 +106,7 @@ class StoreWriter:
                 "tiles", shape=(cap, tile, tile, 3), chunks=(1, tile, tile, 3),
                 shards=(shard, tile, tile, 3), dtype="uint8", compressors=compressor(compression),
                 fill_value=255, dimension_names=("tile", "y", "x", "rgb"))
+            self._arrays = ["tiles"]  # every array created: each is checked before the rename
             self._meta = {"yx": [], "yx_level0": [], "tissue": [], "sharpness": [], "region": []}
             self.with_region = with_region
             self.shard = int(self.tiles.shards[0])
@@ -111,6 +115,9 @@ class StoreWriter:
             self.guard.created = True  # from now on a vanished folder fails every write
         except OSError as exc:
             self.abort()
+            if exc.errno == errno.ENAMETOOLONG:
+                raise StoreError(f"the store's name is too long for this file system ({exc.strerror}); "
+                                 "use a shorter output folder path or slide id", self.final) from exc
             raise StoreError(f"cannot create the store ({exc.strerror or exc}); check that the output "
                              "folder is writable and has free space", self.final) from exc
         except BaseException:  # e.g. Ctrl-C while the folder is being made: __exit__ will not run
@@ -194,7 +201,10 @@ class StoreWriter:
             chunks = (max(1, min(band, data.shape[0])), max(1, min(band, data.shape[1]))) + data.shape[2:]
         else:
             chunks = tuple(max(1, d) for d in data.shape)
-        arr = self.group.create_array(name, shape=data.shape, dtype=data.dtype, chunks=chunks, **kw)
+        # every chunk is written, even one equal to the fill value, so check_store can count them
+        arr = self.group.create_array(name, shape=data.shape, dtype=data.dtype, chunks=chunks,
+                                      config={"write_empty_chunks": True}, **kw)
+        self._arrays.append(name)
         if not data.size:
             return
         if not banded:
@@ -219,9 +229,20 @@ class StoreWriter:
                              self.final) from exc
 
     def commit(self, attrs: dict, thumbnail: np.ndarray | None = None, mask: np.ndarray | None = None, *,
-               overwrite: bool = True, extra: dict | None = None) -> Path:
-        """Write coordinates (and the pictures, unless :meth:`write_maps` did), mark complete, rename
-        into place."""
+               overwrite: bool = True, extra: dict | None = None, expected: int | None = None) -> Path:
+        """Write coordinates (and the pictures, unless :meth:`write_maps` did), mark complete, check
+        the store is whole (:func:`tilewright.store.verify.check_store`), rename into place.
+
+        ``expected`` is the number of tiles the caller meant to store (the plan less the tiles it
+        dropped on purpose); a store holding another number is refused, never committed with
+        holes. Without it, the tiles appended count (the capacity is trimmed to them).
+        """
+        from tilewright.store.verify import check_store
+
+        if expected is not None and int(expected) != self.n:
+            self.abort()
+            raise StoreError(f"{self.n} tiles were written where {int(expected)} were planned; nothing was "
+                             "committed; run again", self.final)
         try:
             self._flush_pending()
             if self.n < self.tiles.shape[0]:
@@ -240,6 +261,9 @@ class StoreWriter:
             full["complete"] = False
             self.group.update_attributes(full)  # one metadata write (attrs.update writes per key)
             self.group.update_attributes({"complete": True})  # the last thing written
+            with self.guard.writing():  # fails here if the folder vanished meanwhile
+                check_store(self.tmp, self.final, n_tiles=self.n, arrays=self._arrays,
+                            shard_index=self._encoder is not None)
             self._rename_into_place(overwrite)
         except OSError as exc:
             self.abort()
