@@ -35,6 +35,10 @@ def local_cluster(workers: int):
                             dashboard_address=None, silence_logs=logging.ERROR)
 
 
+#: How long the client tries to reach a scheduler before giving up.
+CONNECT_TIMEOUT = "30s"
+
+
 def connect(scheduler):
     """A ``distributed.Client`` for a scheduler address (or the client given); raises
     :class:`ConfigError` naming the address when it cannot be reached."""
@@ -43,7 +47,7 @@ def connect(scheduler):
     if isinstance(scheduler, Client):
         return scheduler
     try:
-        return Client(scheduler, timeout="30s")
+        return Client(scheduler, timeout=CONNECT_TIMEOUT)
     except (OSError, TimeoutError, ValueError) as exc:
         raise ConfigError(f"cannot reach the dask scheduler at {scheduler} ({type(exc).__name__}: "
                           f"{' '.join(str(exc).split())[:200]}); start it (`dask scheduler`) or fix the "

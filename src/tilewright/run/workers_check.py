@@ -40,6 +40,8 @@ def probe(paths: list[str], out_dir: str, token: str) -> dict:
         error = exc.strerror or str(exc)
     else:
         error = ""
+        if not sees:  # written into another folder than the client's OUT: leave nothing there
+            mine.unlink(missing_ok=True)
     return {"host": host, "missing": missing[:3], "n_missing": len(missing), "sees_out": sees,
             "wrote": wrote, "error": error}
 
