@@ -74,14 +74,15 @@ def repair_polygon(shell, holes):
         holes (each ring made valid on its own with ``shapely.make_valid``).
     drawn : float or None
         None when the polygon was valid; otherwise its area as drawn: the shoelace area of the
-        outer ring minus the shoelace areas of the holes.
+        outer ring minus the shoelace areas of the holes (at least 0; the lobes of a bow-tie
+        cancel in the shoelace sum).
     """
     import shapely
 
     poly = shapely.Polygon(shell, holes)
     if poly.is_valid:
         return poly, None
-    drawn = _shoelace(shell) - sum(_shoelace(h) for h in holes)
+    drawn = max(0.0, _shoelace(shell) - sum(_shoelace(h) for h in holes))
     outer = polygonal(shapely.make_valid(shapely.Polygon(shell)))
     cuts = [polygonal(shapely.make_valid(shapely.Polygon(h))) for h in holes]
     cuts = [c for c in cuts if not c.is_empty]
