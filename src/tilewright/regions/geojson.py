@@ -180,8 +180,8 @@ def _parse(data, path, class_property, classes, default_class, slide_shape, obje
     if skipped_empty:
         repairs.append(f"skipped features with null or empty geometry: {short(skipped_empty)}")
     for kind, idx in other_objects.items():
-        repairs.append(f"ignored {len(idx)} feature(s) of object type {kind!r} (features {short(idx)}); only "
-                       f"{', '.join(sorted(wanted))} objects are read unless asked for (object_types=)")
+        repairs.append(f"ignored {len(idx)} feature(s) of object type {kind!r} (features {short(idx)}); object "
+                       f"types read: {', '.join(sorted(wanted))} (choose with --object-types / object_types=)")
     if unclassified:
         repairs.append(_unclassified_note(unclassified, named, class_property))
 
