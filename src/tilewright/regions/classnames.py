@@ -14,7 +14,9 @@ of names; everywhere (``plan_tiles``, ``RegionMap.fractions``, ``TilingConfig.ke
 
 from __future__ import annotations
 
-__all__ = ["class_key", "keep_names", "ClassNames"]
+from tilewright.errors import RegionError
+
+__all__ = ["class_key", "keep_names", "match_keep", "none_kept", "ClassNames"]
 
 
 def class_key(name) -> str:
@@ -44,6 +46,48 @@ def keep_names(keep) -> tuple:
     items = keep.split(",") if isinstance(keep, str) else [str(k) for k in keep]
     names = [" ".join(k.split()) for k in items]
     return tuple(dict.fromkeys(n for n in names if n))
+
+
+def match_keep(classes, keep, path=None) -> tuple:
+    """Split a keep list into the classes present and the names absent.
+
+    Parameters
+    ----------
+    classes : sequence of str
+        The classes a region source has.
+    keep : str or sequence of str
+        Kept names (a string is split on commas), matched by :func:`class_key`.
+    path : str, optional
+        The region file, for the error.
+
+    Returns
+    -------
+    present : tuple of str
+        Kept classes found, spelled as in ``classes``.
+    absent : tuple of str
+        Kept names with no class (they cover nothing).
+
+    Raises
+    ------
+    RegionError
+        ``keep`` is not names, or names nothing.
+    """
+    try:
+        names = keep_names(keep)
+    except TypeError:
+        raise RegionError(f"keep must be a class name or a list of names, got {keep!r}") from None
+    if not names:
+        raise RegionError(f"no class chosen to keep; choose among {', '.join(classes)}", path)
+    by_key = {class_key(c): c for c in classes}
+    present = tuple(dict.fromkeys(by_key[class_key(n)] for n in names if class_key(n) in by_key))
+    return present, tuple(n for n in names if class_key(n) not in by_key)
+
+
+def none_kept(absent, classes, path=None) -> RegionError:
+    """The error for a region source holding none of the kept classes (names the file and the fix)."""
+    return RegionError(f"none of the kept classes ({', '.join(map(repr, absent))}) is in these regions; they "
+                       f"have {', '.join(map(repr, classes))}; check --keep / keep= or the class property "
+                       "(--class-property)", path)
 
 
 class ClassNames:

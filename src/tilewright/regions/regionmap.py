@@ -173,31 +173,10 @@ class RegionMap:
         RegionError
             Labels not a 2-D integer image, bad ``mpp`` or empty ``classes``.
         """
-        labels = np.asarray(labels)
-        if labels.ndim != 2 or labels.size == 0:
-            raise RegionError(f"labels must be a non-empty 2-D image, got shape {labels.shape}")
-        if labels.dtype == bool:
-            labels = labels.astype(np.uint8)
-        if not np.issubdtype(labels.dtype, np.integer):
-            raise RegionError(f"labels must hold integers (class ids), got dtype {labels.dtype}")
-        mpp = _positive(mpp, "mpp")
-        if isinstance(classes, dict):
-            try:
-                pairs = [(int(v), str(n)) for v, n in classes.items()]
-            except (TypeError, ValueError):
-                raise RegionError("classes dict keys must be integer label values") from None
-        elif isinstance(classes, (list, tuple)):
-            pairs = [(v, str(n)) for v, n in enumerate(classes)]
-        else:
-            raise RegionError("classes must be a list of names (label 0, 1, ...) or a dict {label: name}")
-        if not pairs:
-            raise RegionError("classes is empty; name at least one label value")
-        from tilewright.regions.classnames import ClassNames
+        from tilewright.regions.labels import label_classes
 
-        spellings = ClassNames()
-        values: dict[str, list] = {}
-        for v, name in pairs:
-            values.setdefault(spellings.add(name), []).append(v)
+        labels, values = label_classes(labels, classes)
+        mpp = _positive(mpp, "mpp")
         provenance = {"kind": "raster", "path": None, "mpp": mpp, "shape": list(labels.shape)}
         return cls(tuple(values), kind="raster", provenance=provenance, labels=labels,
                    label_values={k: tuple(v) for k, v in values.items()}, raster_mpp=mpp)
@@ -280,51 +259,27 @@ class RegionMap:
         return None if self._table is None else self._table.copy()
 
     def present(self, keep) -> tuple:
-        """Split kept class names into those these regions have and those they lack.
-
-        Names are matched ignoring case and spacing (see :mod:`tilewright.regions.classnames`);
-        a string is split on commas.
-
-        Returns
-        -------
-        present : tuple of str
-            Kept classes found here, spelled as in :attr:`classes`.
-        absent : tuple of str
-            Kept names with no class here (they cover nothing).
-
-        Raises
-        ------
-        RegionError
-            ``keep`` names no class at all.
+        """``(present, absent)``: the kept classes these regions have (spelled as in
+        :attr:`classes`) and the kept names they lack (covering nothing). Names match ignoring
+        case and spacing; a string is split on commas (:func:`~tilewright.regions.classnames.match_keep`).
         """
-        from tilewright.regions.classnames import class_key, keep_names
+        from tilewright.regions.classnames import match_keep
 
-        try:
-            names = keep_names(keep)
-        except TypeError:
-            raise RegionError(f"keep must be a class name or a list of names, got {keep!r}") from None
-        if not names:
-            raise RegionError(f"no class chosen to keep; choose among {', '.join(self._classes)}",
-                              self._provenance.get("path"))
-        by_key = {class_key(c): c for c in self._classes}
-        present = tuple(dict.fromkeys(by_key[class_key(n)] for n in names if class_key(n) in by_key))
-        absent = tuple(n for n in names if class_key(n) not in by_key)
-        return present, absent
+        return match_keep(self._classes, keep, self._provenance.get("path"))
 
     def resolve(self, keep) -> tuple:
-        """The kept classes these regions have (absent ones cover nothing, and are warned once).
+        """The kept classes these regions have; absent ones cover nothing and are warned once.
 
         Raises
         ------
         RegionError
-            Empty selection, or none of the kept names is one of :attr:`classes` (the regions
-            then cover nothing of what was asked for).
+            Empty selection, or none of the kept names is one of :attr:`classes`.
         """
+        from tilewright.regions.classnames import none_kept
+
         present, absent = self.present(keep)
         if not present:
-            raise RegionError(f"none of the kept classes ({', '.join(map(repr, absent))}) is in these regions; "
-                              f"they have {', '.join(map(repr, self._classes))}; check keep= (--keep) or the "
-                              "class property (--class-property)", self._provenance.get("path"))
+            raise none_kept(absent, self._classes, self._provenance.get("path"))
         if absent and absent not in self._warned:
             import warnings
 

@@ -287,7 +287,9 @@ def _regions_for(regions, config, slide_id, slide, path):
         return regions, list(config.keep), []
     keep, absent = regions.present(config.keep)
     if not keep:
-        regions.resolve(config.keep)  # raises: none of the kept classes is in the slide's regions
+        from tilewright.regions.classnames import none_kept
+
+        raise none_kept(absent, regions.classes, regions.to_dict().get("path"))
     if absent:
         log.warning("%s: kept class(es) %s absent from %s; they cover nothing on this slide", slide_id,
                     ", ".join(map(repr, absent)), regions.to_dict().get("path") or "its regions")
