@@ -120,14 +120,12 @@ def fit_to_slide(shapes: dict, slide_shape, path) -> tuple[dict, list]:
 
     height, width = (float(v) for v in slide_shape) if slide_shape is not None else (_FAR, _FAR)
     frame = shapely.box(0.0, 0.0, width, height)
-    drawn = [g for g in shapes.values() if not g.is_empty]
-    everything = shapely.union_all(drawn) if drawn else shapely.MultiPolygon()
-    total = everything.area
-    inside = shapely.intersection(everything, frame).area if total > 0 else 0.0
-    share_out = 0.0 if total <= 0 else max(0.0, 1.0 - inside / total)
+    inside = {name: _inside(geom, frame, width, height) for name, geom in shapes.items()}
+    total = sum(g.area for g in shapes.values())  # classes overlapping count twice: a share, not an area
+    share_out = 0.0 if total <= 0 else max(0.0, 1.0 - sum(g.area for g in inside.values()) / total)
     where = (f"the slide ({int(width)} x {int(height)} level-0 px, width x height)" if slide_shape is not None
              else "the slide (x, y >= 0)")
-    swapped = _swapped_share_inside(everything, frame, total) if slide_shape is not None and share_out > 0 else 0.0
+    swapped = _swapped_share_inside(shapes, frame, total) if slide_shape is not None and share_out > 0 else 0.0
     swap_hint = ""
     if swapped >= _FITS:
         swap_hint = (f"; read as [y, x], {swapped:.0%} of it would lie inside: the file looks written in [y, x] "
@@ -142,7 +140,7 @@ def fit_to_slide(shapes: dict, slide_shape, path) -> tuple[dict, list]:
         if geom.is_empty:
             out[name] = geom
             continue
-        kept = polygonal(shapely.intersection(geom, frame))
+        kept = inside[name]
         if kept.area < geom.area * (1 - 1e-9):
             (outside if kept.is_empty else clipped).append(name)
         out[name] = kept
@@ -154,8 +152,24 @@ def fit_to_slide(shapes: dict, slide_shape, path) -> tuple[dict, list]:
     return out, notes
 
 
-def _swapped_share_inside(geom, frame, total) -> float:
+def _inside(geom, frame, width, height):
+    """The part of ``geom`` inside the slide (no intersection computed when its bounds fit)."""
     import shapely
 
-    flipped = shapely.transform(geom, lambda xy: xy[:, ::-1])
-    return shapely.intersection(flipped, frame).area / total if total > 0 else 0.0
+    if geom.is_empty:
+        return geom
+    x0, y0, x1, y1 = geom.bounds
+    if x0 >= 0 and y0 >= 0 and x1 <= width and y1 <= height:
+        return geom
+    return polygonal(shapely.intersection(geom, frame))
+
+
+def _swapped_share_inside(shapes, frame, total) -> float:
+    """Share of the annotated area inside the slide when positions are read as [y, x]."""
+    import shapely
+
+    inside = 0.0
+    for geom in shapes.values():
+        if not geom.is_empty:
+            inside += shapely.intersection(shapely.transform(geom, lambda xy: xy[:, ::-1]), frame).area
+    return inside / total if total > 0 else 0.0
