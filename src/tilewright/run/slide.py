@@ -275,9 +275,12 @@ def _regions_for(regions, config, slide_id, slide, path):
         regions = load_regions(config.regions, slide_id, slide.mpp, slide_shape=tuple(slide.dimensions),
                                class_property=config.class_property, default_class=config.default_class,
                                object_types=config.object_types, warn=False)
-        if regions is None:
+        if regions is None and os.path.isdir(config.regions):
             raise RegionError(f"no region file for slide {slide_id!r} in {config.regions}; add "
                               f"{slide_id}.geojson there or run without --keep", path)
+        if regions is None:
+            raise RegionError(f"the region table {config.regions} has no row with slide_id {slide_id!r}; add the "
+                              "slide's first-pass rows or run without --keep", path)
         info = regions.to_dict()
         for message in info.get("repairs") or ():
             log.warning("%s: regions %s: %s", slide_id, info.get("path"), message)
