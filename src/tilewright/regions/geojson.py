@@ -185,7 +185,7 @@ def _parse(data, path, class_property, classes, default_class, slide_shape, obje
     if unclassified:
         repairs.append(_unclassified_note(unclassified, named, class_property))
 
-    shapes = {name: (polygonal(shapely_union(polys)) if polys else _empty()) for name, polys in parts.items()}
+    shapes = {name: (polygonal(_union(polys)) if polys else _empty()) for name, polys in parts.items()}
     if all(g.is_empty for g in shapes.values()):
         if unclassified and not any(parts.values()):
             raise RegionError(
@@ -205,7 +205,7 @@ def _parse(data, path, class_property, classes, default_class, slide_shape, obje
     return ParsedRegions(shapes, len(features), repairs)
 
 
-def shapely_union(polys):
+def _union(polys):
     import shapely
 
     return polys[0] if len(polys) == 1 else shapely.union_all(polys)
