@@ -99,8 +99,11 @@ def tile_slide_row(path, final, cfg, slide_id, mpp, normalizer, progress=None) -
 
     res = tile_slide(path, final, cfg, slide_id=slide_id, mpp=mpp, target=normalizer, progress=progress)
     if res.n_tiles == 0:
+        from tilewright.run.skip_reason import skip_reason
+        from tilewright.store.reader import open_store
+
         res.status = "skipped"
-        res.error = "no tile met the tissue criteria (blank slide or too little tissue)"
+        res.error = skip_reason(open_store(res.store).attrs)
     return res
 
 
@@ -123,6 +126,13 @@ def _complete_row(final: Path, path: str, slide_id: str, cfg: TilingConfig, mpp,
         raise ConfigError(f"a complete store made with other settings or another source exists "
                           f"({', '.join(changed[:4])}); it is kept as it is; pass --overwrite to re-tile "
                           "or choose another output folder", final)
+    if cfg.keep:  # region files are part of a store's identity: edited annotations are re-tiled
+        from tilewright.regions.load import region_change
+
+        why = region_change(open_store(final).attrs.get("regions"), cfg.regions, slide_id)
+        if why:
+            raise ConfigError(f"a complete store made with other settings exists ({why}); it is kept as it "
+                              "is; pass --overwrite to re-tile or choose another output folder", final)
     return store_row(Path(final).parent, slide_id, path)
 
 

@@ -95,10 +95,10 @@ def store_row(out_dir: Path, slide_id: str, path: str) -> dict | None:
         a = open_store(final).attrs
     except Exception:  # noqa: BLE001 - an unreadable store is not a row to keep
         return None
+    from tilewright.run.skip_reason import skip_reason
+
     n = int(a.get("n_tiles", 0))
-    return SlideResult(slide_id, path, "ok" if n else "skipped",
-                       "" if n else "no tile met the tissue criteria (blank slide or too little tissue)",
-                       n, a.get("mpp_source"), a.get("objective"), a.get("source_level"), 0.0,
+    return SlideResult(slide_id, path, "ok" if n else "skipped", "" if n else skip_reason(a), n, a.get("mpp_source"), a.get("objective"), a.get("source_level"), 0.0,
                        str(final)).to_row()
 
 
