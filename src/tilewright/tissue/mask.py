@@ -18,7 +18,7 @@ import numpy as np
 
 from .density import find_glass
 from .exclusions import find_exclusions
-from .threshold import _LOG_FLOOR, METHODS, density_threshold, tissue_feature  # noqa: F401 (re-exported)
+from .threshold import _LOG_FLOOR, METHODS, density_threshold, tissue_feature  # noqa: F401 (_LOG_FLOOR re-exported)
 from .raster import box_fractions, summed_area_table
 
 __all__ = ["TissueMask", "tissue_mask", "tissue_feature", "METHODS"]
