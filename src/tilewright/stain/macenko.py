@@ -19,9 +19,9 @@ from .normalizer import StainNormalizer, as_float_list, glass_list
 from .od_transform import apply_od_affine
 from .tissue_pixels import DEFAULT_BETA, tissue_od
 
-#: Each stain's concentration is scaled by the target's maximum over the source's, kept within
-#: [1 / MAX_GAIN, MAX_GAIN]: a pale or failed source is not blown up, with its noise and JPEG
-#: blocks, into dark nuclei the slide never had.
+#: Each stain's concentration is scaled by the target's maximum over the source's, at most
+#: MAX_GAIN: a pale or failed source is not blown up, with its noise and JPEG blocks, into dark
+#: nuclei the slide never had. Scaling down is not capped (it amplifies nothing).
 MAX_GAIN = 1.25
 
 __all__ = ["MacenkoNormalizer", "estimate_stains", "estimate_stain_profile", "StainProfile"]
@@ -62,8 +62,8 @@ class MacenkoNormalizer(StainNormalizer):
     output_glass : array_like (3,), optional
         RGB of the glass the output is rendered with; default pure white (255, 255, 255).
     max_gain : float or None, default :data:`MAX_GAIN` (1.25)
-        Largest factor a stain's concentration is scaled by (and 1 / it the smallest). None
-        applies the published map unbounded.
+        Largest factor a stain's concentration is scaled up by (scaling down is not capped).
+        None applies the published map unbounded.
 
     Attributes
     ----------
@@ -136,8 +136,8 @@ class MacenkoNormalizer(StainNormalizer):
         Returns
         -------
         ndarray, float64, shape (3, 3)
-            ``pinv(S_src) @ diag(max_tgt / max_src) @ S_tgt``, each ratio kept within
-            ``[1 / max_gain, max_gain]`` (unless ``max_gain`` is None, the published map).
+            ``pinv(S_src) @ diag(max_tgt / max_src) @ S_tgt``, each ratio at most ``max_gain``
+            (unless ``max_gain`` is None, the published map).
         """
         self._require_fitted()
         source = self.source if source is None else source
@@ -148,7 +148,7 @@ class MacenkoNormalizer(StainNormalizer):
             source.max_concentrations, np.float64
         )
         if self.max_gain is not None:
-            scale = np.clip(scale, 1.0 / self.max_gain, self.max_gain)
+            scale = np.minimum(scale, self.max_gain)  # reducing a stain amplifies nothing: not capped
         return (unmix * scale) @ np.asarray(self.stain_matrix, np.float64)
 
     def _implausible(self, source) -> str:

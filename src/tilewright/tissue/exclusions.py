@@ -68,13 +68,11 @@ def _open(mask: np.ndarray, radius: int) -> np.ndarray:
 
 def _strokes_only(classes, glassy, mpp, stroke_kw):
     """Pass 1 (against the prior plane, which may not be the slide's): only grey pixels and the
-    stroke-shaped pieces of each off-plane class are ink, so that tissue stained a little off the
-    prior (compact pieces) still takes part in the plane fit."""
+    stroke-shaped off-plane pieces are ink, so that tissue stained a little off the prior
+    (compact pieces) still takes part in the plane fit."""
     grey = _open(classes == _ink.GREY, 1)
-    out = grey.copy()
-    for cls in (_ink.COLOURED, _ink.REDDISH):
-        out |= _ink.stroke_pieces(_open(classes == cls, 1), glassy | grey, mpp, **stroke_kw)
-    return out
+    off = _open((classes == _ink.COLOURED) | (classes == _ink.REDDISH), 1)
+    return grey | _ink.stroke_pieces(off, glassy | grey, mpp, **stroke_kw)
 
 
 def _resolve(classes, glassy, mpp, stroke_kw):

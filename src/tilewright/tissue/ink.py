@@ -157,14 +157,16 @@ def stroke_pieces(reddish: np.ndarray, glassy: np.ndarray, mpp: float, *, min_st
         return np.zeros_like(reddish)
     n, labels, stats, _ = cv2.connectedComponentsWithStats(reddish.view(np.uint8), connectivity=8,
                                                            ltype=cv2.CV_32S)
-    dist = cv2.distanceTransform(reddish.view(np.uint8), cv2.DIST_L2, 5)
-    widest = np.zeros(n, np.float32)
-    np.maximum.at(widest, labels[reddish], dist[reddish])  # largest inscribed radius of each piece
     area = stats[:, cv2.CC_STAT_AREA].astype(np.float64)
-    width = 2.0 * widest.astype(np.float64)
     ink = np.zeros(n, bool)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        ink[1:] = (width[1:] * mpp >= min_stroke_um) & (area[1:] / np.maximum(width[1:], 1.0) ** 2 >= elongation)
+    min_px = min_stroke_um / mpp
+    # only pieces large enough to be a stroke by shape are measured, each in its own box (the
+    # distance map is never slide-sized): the width is twice the largest inscribed radius
+    for k in np.flatnonzero(area[1:] >= elongation * max(min_px, 1.0) ** 2) + 1:
+        x, y, w, h = stats[k, :4]
+        piece = np.pad(labels[y:y + h, x:x + w] == k, 1)  # a background rim: distances to the edge
+        width = 2.0 * float(cv2.distanceTransform(piece.view(np.uint8), cv2.DIST_L2, 5).max())
+        ink[k] = width >= min_px and area[k] / max(width, 1.0) ** 2 >= elongation
     kernel = cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (7, 7))
     for k in np.flatnonzero(~ink[1:] & (area[1:] >= 3)) + 1:  # pieces lying on glass
         x, y, w, h = stats[k, :4]

@@ -325,6 +325,7 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-otsu", sensitivity
         min_saturation=min_saturation)
     raw = feature > threshold
     del feature
+    survey = survey._replace(candidates=None)  # not needed past the threshold
     glassy = ~raw
     raw = _morph(raw, "close", _px(close_um, mpp))
     raw = _morph(raw, "open", _px(open_um, mpp))
