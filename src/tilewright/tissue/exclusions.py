@@ -11,12 +11,8 @@ stay a few MB whatever the slide size):
 3. ink is the grey and coloured pixels and the stroke-shaped reddish pieces
    (:func:`.ink.stroke_pieces`: strokes and rings are ink, blood is tissue).
 
-References
-----------
-.. [1] A. C. Ruifrok and D. A. Johnston, "Quantification of histochemical staining by color
-       deconvolution", Analytical and Quantitative Cytology and Histology 23(4):291-299, 2001.
-.. [2] M. Macenko et al., "A method for normalizing histology slides for quantitative analysis",
-       IEEE International Symposium on Biomedical Imaging (ISBI), 1107-1110, 2009.
+The published methods these passes use, and their references, are in :mod:`.plane` (the H&E
+plane of Ruifrok & Johnston 2001, fitted as in Macenko et al. 2009) and :mod:`.ink`.
 """
 
 from __future__ import annotations

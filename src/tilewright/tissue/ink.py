@@ -21,9 +21,8 @@ same over glass and over tissue. Each pixel of the smoothed thumbnail falls in o
 References
 ----------
 .. [1] A. C. Ruifrok and D. A. Johnston, "Quantification of histochemical staining by color
-       deconvolution", Analytical and Quantitative Cytology and Histology 23(4):291-299, 2001.
-.. [2] M. Macenko et al., "A method for normalizing histology slides for quantitative analysis",
-       IEEE International Symposium on Biomedical Imaging (ISBI), 1107-1110, 2009.
+       deconvolution", Analytical and Quantitative Cytology and Histology 23(4):291-299, 2001
+       (the stain vectors, hence the plane; :mod:`.plane` fits it to the slide).
 """
 
 from __future__ import annotations
