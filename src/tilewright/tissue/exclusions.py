@@ -64,11 +64,13 @@ def _open(mask: np.ndarray, radius: int) -> np.ndarray:
 
 def _strokes_only(classes, glassy, mpp, stroke_kw):
     """Pass 1 (against the prior plane, which may not be the slide's): only grey pixels and the
-    stroke-shaped off-plane pieces are ink, so that tissue stained a little off the prior
-    (compact pieces) still takes part in the plane fit."""
+    stroke-shaped pieces of each off-plane class are ink, so that tissue stained a little off the
+    prior (compact pieces) still takes part in the plane fit."""
     grey = _open(classes == _ink.GREY, 1)
-    off = _open((classes == _ink.COLOURED) | (classes == _ink.REDDISH), 1)
-    return grey | _ink.stroke_pieces(off, glassy | grey, mpp, **stroke_kw)
+    out = grey.copy()
+    for cls in (_ink.COLOURED, _ink.REDDISH):  # apart: tissue of one class and a pen of the other
+        out |= _ink.stroke_pieces(_open(classes == cls, 1), glassy | grey, mpp, **stroke_kw)  # do not merge
+    return out
 
 
 def _resolve(classes, glassy, mpp, stroke_kw):
