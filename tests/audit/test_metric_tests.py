@@ -63,20 +63,27 @@ def test_bh_matches_scipy_and_keeps_missing_values():
         bh_adjust([0.2, 1.5])
 
 
-def test_kruskal_table_adjusts_over_every_test():
+def test_kruskal_table_adjusts_within_each_factor_and_section():
     index = [f"s{i}" for i in range(9)]
     metrics = pd.DataFrame({"m": [1.0, 2.0, 3.0, 10.0, 11.0, 12.0, 4.0, 5.0, 6.0],
-                            "flat": [1.0] * 9, "noise": [3.0, 1.0, 2.0, 2.5, 1.5, 3.5, 0.5, 4.0, 2.2]}, index=index)
-    factors = pd.DataFrame({"site": ["a"] * 3 + ["b"] * 3 + ["c"] * 3}, index=index)
-    table = kruskal_table(metrics, factors).set_index("metric")
+                            "flat": [1.0] * 9, "noise": [3.0, 1.0, 2.0, 2.5, 1.5, 3.5, 0.5, 4.0, 2.2],
+                            "amount": [0.2, 0.3, 0.1, 0.5, 0.4, 0.6, 0.9, 0.8, 0.7]}, index=index)
+    factors = pd.DataFrame({"site": ["a"] * 3 + ["b"] * 3 + ["c"] * 3,
+                            "batch": ["x", "y", "z"] * 3}, index=index)
+    sections = {"m": "colour", "flat": "colour", "noise": "colour", "amount": "quality"}
+    table = kruskal_table(metrics, factors, sections=sections)
+    site = table[table["factor"] == "site"].set_index("metric")
     # Kruskal & Wallis (1952), no ties: H = 12 / (N (N + 1)) * sum(R_i^2 / n_i) - 3 (N + 1)
     ranks = {"a": [1, 2, 3], "b": [7, 8, 9], "c": [4, 5, 6]}
     h = 12 / (9 * 10) * sum(sum(r) ** 2 / len(r) for r in ranks.values()) - 3 * 10
-    assert table.loc["m", "h"] == pytest.approx(h)
+    assert site.loc["m", "h"] == pytest.approx(h)
     # ground truth constructed: groups in rank order; 3! of the 9! / (3!)^3 = 1680 partitions
     # reach the largest H (the three blocks of ranks, in any order)
-    assert table.loc["m", "p_value"] == pytest.approx(6 / 1680) and table.loc["m", "exact"]
-    assert math.isnan(table.loc["flat", "h"]) and math.isnan(table.loc["flat", "p_adjusted"])
-    present = table["p_value"].dropna()
-    expected = stats.false_discovery_control(present.to_numpy())  # reference: scipy.stats
-    np.testing.assert_allclose(table.loc[present.index, "p_adjusted"].to_numpy(), expected, rtol=1e-12)
+    assert site.loc["m", "p_value"] == pytest.approx(6 / 1680) and site.loc["m", "exact"]
+    assert math.isnan(site.loc["flat", "h"]) and math.isnan(site.loc["flat", "p_adjusted"])
+    # reference: scipy.stats.false_discovery_control within each factor x section family
+    for (_, section), family in table.dropna(subset=["p_value"]).groupby(["factor", "section"]):
+        expected = stats.false_discovery_control(family["p_value"].to_numpy())
+        np.testing.assert_allclose(family["p_adjusted"].to_numpy(), expected, rtol=1e-12)
+    # a one-test family is not adjusted
+    assert site.loc["amount", "p_adjusted"] == site.loc["amount", "p_value"]

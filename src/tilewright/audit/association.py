@@ -304,7 +304,8 @@ def _tables(row_codes: np.ndarray, col_codes: np.ndarray, r: int, c: int) -> np.
 
 def _pearson(tables: np.ndarray, row_sums: np.ndarray, col_sums: np.ndarray, n: int) -> np.ndarray:
     """Pearson's statistic of tables with fixed margins: ``n (sum n_ij^2 / (R_i C_j) - 1)``."""
-    return n * ((tables**2 / np.outer(row_sums, col_sums)).sum(axis=(1, 2)) - 1.0)
+    # clipped at 0: for an independent table rounding can leave -1e-16
+    return np.maximum(n * ((tables**2 / np.outer(row_sums, col_sums)).sum(axis=(1, 2)) - 1.0), 0.0)
 
 
 def _log_cells(tables: np.ndarray) -> np.ndarray:

@@ -18,7 +18,7 @@ from tilewright.audit.embedding import Embedding, embed_slides
 from tilewright.audit.factors import alias_groups, cohort_factors
 from tilewright.audit.findings import audit_findings, comparison_findings, guess_label, quality_findings
 from tilewright.audit.metric_tests import kruskal_table
-from tilewright.audit.metrics import COLOUR_METRICS, METRICS, slide_metrics
+from tilewright.audit.metrics import COLOUR_METRICS, METRICS, QUALITY_METRICS, slide_metrics
 from tilewright.audit.permutation import N_RESAMPLES
 from tilewright.audit.source import SOURCES, read_manifest, read_slide, resolve_folder
 from tilewright.errors import ConfigError, StoreError
@@ -41,9 +41,9 @@ class CohortAudit:
         strongest first; V bias-corrected (Bergsma 2013), p exact or by permutation,
         adjusted (Benjamini–Hochberg) over the factors.
     kruskal : DataFrame
-        ``factor, metric, h, p_value, p_adjusted, exact, n_groups, n_slides``: every metric across
-        every factor (Kruskal–Wallis, exact or permutation p, Benjamini–Hochberg adjusted over
-        the table).
+        ``factor, metric, section, h, p_value, p_adjusted, exact, n_groups, n_slides``: every
+        metric across every factor (Kruskal–Wallis, exact or permutation p, Benjamini–Hochberg
+        adjusted within each factor's colour metrics and within its quality metrics).
     findings : list of str
         Plain-language sentences on colour, most important first.
     quality_findings : list of str
@@ -280,7 +280,8 @@ def build_audit(folder, ok, rows: dict, previews: dict, attrs: dict, skipped: li
         embedding = embed_slides(metrics[list(COLOUR_METRICS)], seed=seed, tsne=tsne, n_clusters=n_clusters)
     tests = {"seed": seed, "n_resamples": max(1, int(n_resamples))}
     associations = association_table(embedding.clusters, factors, **tests)
-    kruskal = kruskal_table(metrics, factors, **tests)
+    sections = {**dict.fromkeys(COLOUR_METRICS, "colour"), **dict.fromkeys(QUALITY_METRICS, "quality")}
+    kruskal = kruskal_table(metrics, factors, sections=sections, **tests)
     notes["_attrs"] = attrs
     notes["_tests"] = tests
     audit = CohortAudit(

@@ -25,6 +25,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from functools import lru_cache
 from itertools import combinations
 
 import numpy as np
@@ -97,32 +98,38 @@ def rearrangements(codes, *, exact_limit: int = EXACT_LIMIT, n_resamples: int = 
     if codes.ndim != 1:
         raise ValueError(f"codes must be one-dimensional, got shape {codes.shape}")
     if count_rearrangements(codes) <= exact_limit:
-        return Rearrangements(_enumerate(codes), True)
+        # the set of rearrangements depends on the group sizes only
+        return Rearrangements(_enumerate(tuple(int(k) for k in np.bincount(codes))), True)
     rng = np.random.default_rng(seed)
     drawn = rng.permuted(np.broadcast_to(codes, (int(n_resamples), codes.size)), axis=1)
     return Rearrangements(drawn, False)
 
 
-def _enumerate(codes: np.ndarray) -> np.ndarray:
-    """Every distinct rearrangement: positions of each group chosen in turn among those left."""
-    n = codes.size
-    counts = np.bincount(codes)
+@lru_cache(maxsize=32)
+def _enumerate(counts: tuple) -> np.ndarray:
+    """Every distinct arrangement of groups of these sizes: positions of each group chosen in
+    turn among those left. Cached (read-only), as many tests share group sizes."""
+    n = int(sum(counts))
     # place the largest group last: it fills what is left, so the loops run over fewer rows
     order = [int(g) for g in np.argsort(counts, kind="stable")]
-    partial = np.full((1, n), -1, dtype=np.int64)
+    partial = np.full((1, n), -1, dtype=np.int16)
     for g in order[:-1]:
         k = int(counts[g])
         if k == 0:
             continue
+        chosen_all = {}
         blocks = []
         for row in partial:
             free = np.flatnonzero(row < 0)
-            chosen = np.array(list(combinations(free.tolist(), k)), dtype=np.int64)
+            if free.size not in chosen_all:
+                chosen_all[free.size] = np.array(list(combinations(range(free.size), k)), dtype=np.int64)
+            chosen = free[chosen_all[free.size]]
             block = np.repeat(row[None, :], len(chosen), axis=0)
             block[np.arange(len(chosen))[:, None], chosen] = g
             blocks.append(block)
         partial = np.concatenate(blocks, axis=0)
     partial[partial < 0] = order[-1]
+    partial.setflags(write=False)
     return partial
 
 

@@ -146,7 +146,7 @@ def _html(audit, figures: dict, before, names) -> str:
         '<section id="metrics"><h2>Metric distributions by factor</h2>',
         *[_img(n, a) for n, a in figures["metrics"]],
         "<p class=\"muted\">Strongest Kruskal–Wallis differences, exact or permutation p-values, "
-        "Benjamini–Hochberg adjusted over every metric and factor (all in kruskal.csv):</p>",
+        "Benjamini–Hochberg adjusted within each factor's colour metrics (all in kruskal.csv):</p>",
         _table(_colour_rows(audit.kruskal).groupby("factor", sort=False).head(5)),
         "</section>",
         '<section id="quality"><h2>Tissue amount and sharpness</h2>',
