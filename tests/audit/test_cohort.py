@@ -171,3 +171,26 @@ def test_metadata_csv_numeric_factor_and_errors(raw_cohort, tmp_path):
         audit_cohort(tmp_path)
     with pytest.raises(StoreError, match="not found"):
         audit_cohort(tmp_path / "missing")
+
+
+def test_site_finding_points_to_a_split_command_that_runs(raw_cohort, tmp_path, capsys):
+    import shlex
+
+    from tilewright.cli.main import main
+
+    out, meta = raw_cohort
+    path = tmp_path / "meta.csv"
+    meta.assign(patient_id=[f"P-{300 + i}" for i in range(len(meta))]).to_csv(path, index=False)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        audit = audit_cohort(out, metadata=path, source="tiles", tsne=False)
+    advice = [s for s in audit.findings if "tilewright split" in s]
+    # ground truth constructed: colour follows site; the advice names the metadata, its patient column,
+    # the label and the site, with as many folds as sites
+    assert len(advice) == 1
+    command = advice[0][advice[0].index("tilewright split"):]
+    assert command == f"tilewright split {path} --patient patient_id --label label --site site --folds 2 --seed 0"
+    assert main(shlex.split(command)[1:] + ["--out", str(tmp_path / "splits.csv")]) == 0
+    folds = pd.read_csv(tmp_path / "splits.csv")
+    assert folds.groupby("site")["fold"].nunique().eq(1).all()
+    capsys.readouterr()
