@@ -30,8 +30,12 @@ import pandas as pd
 
 from tilewright.errors import ConfigError
 
-__all__ = ["read_metadata", "as_factors", "cohort_factors", "identifier_columns", "alias_groups"]
+__all__ = ["read_metadata", "as_factors", "cohort_factors", "identifier_columns", "alias_groups",
+           "MANIFEST_FACTORS"]
 
+#: Manifest columns tested as factors (column -> "number" or "text"); a run's new per-slide
+#: property (scanner colour profile, ...) becomes an audit factor by adding its column here.
+MANIFEST_FACTORS = {"mpp_source": "number"}
 #: Numeric columns with at most this many distinct values are treated as categories.
 MAX_NUMERIC_LEVELS = 10
 #: Words in a column name that mark a numeric column with one value a slide as an identifier.
@@ -223,7 +227,8 @@ def cohort_factors(manifest: pd.DataFrame, metadata=None) -> tuple[pd.DataFrame,
     Parameters
     ----------
     manifest : DataFrame
-        Cohort manifest indexed by slide id (``mpp_source`` is used when present).
+        Cohort manifest indexed by slide id; its columns named in :data:`MANIFEST_FACTORS`
+        (``mpp_source``, ...) are factors when present.
     metadata : DataFrame, str, os.PathLike or None
         Extra per-slide factors; a metadata column named like a manifest one wins.
 
@@ -240,9 +245,12 @@ def cohort_factors(manifest: pd.DataFrame, metadata=None) -> tuple[pd.DataFrame,
         they hold one value a slide.
     """
     parts = []
-    if "mpp_source" in manifest.columns:
-        mpp = pd.to_numeric(manifest["mpp_source"], errors="coerce").round(3)
-        parts.append(mpp.rename("mpp_source").to_frame())
+    for name, kind in MANIFEST_FACTORS.items():
+        if name in manifest.columns:
+            column = manifest[name]
+            if kind == "number":  # recorded floats: round so 0.2527 and 0.25270001 are one level
+                column = pd.to_numeric(column, errors="coerce").round(3)
+            parts.append(column.rename(name).to_frame())
     unmatched: list[str] = []
     missing: list[str] = []
     if metadata is not None:
