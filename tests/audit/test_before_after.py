@@ -85,3 +85,18 @@ def test_missing_or_changed_source_slides_are_skipped_on_both_sides(real_cohort,
         group.attrs["source"] = {**dict(group.attrs["source"]), "path": str(tmp_path / "gone.tif")}
     with pytest.raises(StoreError, match="no slide could be read both from its source and its store"):
         quiet(audit_before_after, copy, metadata=meta, tsne=False, max_tiles=4)
+
+
+def test_cli_audits_the_raw_tiles_alone(real_cohort, tmp_path, capsys):
+    from tilewright.cli.audit_cmd import build_parser, run
+
+    out, meta = real_cohort
+    meta_csv = tmp_path / "meta.csv"
+    meta.to_csv(meta_csv, index=False)
+    args = build_parser().parse_args(["audit", str(out), "--source", "source", "--metadata", str(meta_csv),
+                                      "--max-tiles", "4", "--report", str(tmp_path / "rep")])
+    assert run(args) == 0
+    printed = capsys.readouterr().out
+    # ground truth constructed (real_cohort.py): raw colour follows site
+    assert "read raw from the source slides" in printed and "Colour clusters follow site" in printed
+    assert "Before / after" not in printed and (tmp_path / "rep" / "report.html").is_file()

@@ -167,9 +167,13 @@ def audit_findings(audit) -> list[str]:
     if len(found):
         names = ", ".join(name(f) for f in found["factor"])
         site = str(found.iloc[0]["factor"])
+        normalized = audit.source == "tiles" and any(bool(a.get("normalizer"))
+                                                    for a in (notes.get("_attrs") or {}).values())
+        advice = ("stain normalization did not remove it" if normalized
+                  else "normalize stain, re-run this audit on the normalized tiles")
         out.append(
-            f"A model trained on these tiles could learn {names} instead of the label: normalize stain, "
-            f"re-run this audit on the normalized tiles, and keep {site} apart in validation: {split_command(audit, site)}"
+            f"A model trained on these tiles could learn {names} instead of the label: {advice}, and keep {site} "
+            f"apart in validation: {split_command(audit, site)}"
         )
     return [s for s in out if s]
 
