@@ -30,7 +30,7 @@ import pandas as pd
 
 from tilewright.errors import ConfigError
 
-__all__ = ["read_metadata", "as_factors", "cohort_factors", "identifier_columns", "alias_groups",
+__all__ = ["read_metadata", "read_table_file", "as_factors", "cohort_factors", "identifier_columns", "alias_groups",
            "MANIFEST_FACTORS"]
 
 #: Manifest columns tested as factors (column -> "number" or "text"); a run's new per-slide
@@ -65,16 +65,7 @@ def read_metadata(metadata) -> pd.DataFrame:
     path = None
     if isinstance(metadata, (str, os.PathLike)):
         path = Path(metadata)
-        if not path.is_file():
-            raise ConfigError("metadata file not found; give a CSV with a slide_id column", path)
-        try:
-            if path.suffix.lower() == ".parquet":
-                table = pd.read_parquet(path)
-            else:
-                sep = "\t" if path.suffix.lower() in (".tsv", ".tab") else ","
-                table = pd.read_csv(path, sep=sep, dtype={"slide_id": str})
-        except (ValueError, OSError, UnicodeDecodeError) as exc:
-            raise ConfigError(f"cannot read the metadata table ({exc}); save it as CSV", path) from exc
+        table = read_table_file(path, text=False, need="a slide_id column")
     elif isinstance(metadata, pd.DataFrame):
         table = metadata.copy()
     else:
@@ -94,6 +85,28 @@ def read_metadata(metadata) -> pd.DataFrame:
         shown = ", ".join(duplicated[:5])
         raise ConfigError(f"metadata repeats slide ids ({shown}); keep one row per slide", path)
     return table.set_index("slide_id")
+
+
+def read_table_file(path: Path, *, text: bool, need: str) -> pd.DataFrame:
+    """A CSV, TSV or Parquet table; ``slide_id`` read as text, or every column when ``text``
+    (empty cells then stay empty strings).
+
+    Raises
+    ------
+    ConfigError
+        When the file is missing or unreadable; ``need`` says what the table should hold.
+    """
+    if not path.is_file():
+        raise ConfigError(f"metadata file not found; give a CSV with {need}", path)
+    try:
+        if path.suffix.lower() == ".parquet":
+            return pd.read_parquet(path)
+        sep = "\t" if path.suffix.lower() in (".tsv", ".tab") else ","
+        if text:
+            return pd.read_csv(path, sep=sep, dtype=str, keep_default_na=False)
+        return pd.read_csv(path, sep=sep, dtype={"slide_id": str})
+    except (ValueError, OSError, UnicodeDecodeError) as exc:
+        raise ConfigError(f"cannot read the metadata table ({exc}); save it as CSV", path) from exc
 
 
 def as_factors(table: pd.DataFrame, max_levels: int = MAX_NUMERIC_LEVELS) -> tuple[pd.DataFrame, dict]:

@@ -30,19 +30,12 @@ def read_table(metadata) -> tuple[pd.DataFrame, Path | None]:
     ConfigError
         When the file is missing or unreadable.
     """
+    from tilewright.audit.factors import read_table_file
+
     path = None
     if isinstance(metadata, (str, os.PathLike)):
         path = Path(metadata)
-        if not path.is_file():
-            raise ConfigError("metadata file not found; give a CSV with one row a slide", path)
-        try:
-            if path.suffix.lower() == ".parquet":
-                table = pd.read_parquet(path)
-            else:
-                sep = "\t" if path.suffix.lower() in (".tsv", ".tab") else ","
-                table = pd.read_csv(path, sep=sep, dtype=str, keep_default_na=False)
-        except (ValueError, OSError, UnicodeDecodeError) as exc:
-            raise ConfigError(f"cannot read the metadata table ({exc}); save it as CSV", path) from exc
+        table = read_table_file(path, text=True, need="one row a slide")
     elif isinstance(metadata, pd.DataFrame):
         table = metadata.reset_index() if metadata.index.name == "slide_id" else metadata.copy()
     else:
