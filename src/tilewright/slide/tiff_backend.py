@@ -20,7 +20,7 @@ import threading
 
 import numpy as np
 
-from tilewright.errors import DamagedSlideError, SlideTooLargeError, UnsupportedSlideError
+from tilewright.errors import DamagedSlideError, SlideError, SlideTooLargeError, UnsupportedSlideError
 from tilewright.slide import jpeg_strict as _strict
 from tilewright.slide.sniff import MAX_PIXELS, MAX_SIDE
 from tilewright.slide.tiff_pages import discover
@@ -135,7 +135,7 @@ class TiffBackend:
             self._levels, self.resolution, self.flavour, found = self._inspect(tf, path)
             #: Associated images kept apart from the pyramid: name -> (height, width).
             self.associated = {k: (int(p.imagelength), int(p.imagewidth)) for k, p in found.items()}
-        except (UnsupportedSlideError, DamagedSlideError):
+        except SlideError:
             tf.close()
             raise
         except Exception as exc:  # tifffile raises many types on malformed IFDs
