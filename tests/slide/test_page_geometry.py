@@ -47,12 +47,12 @@ def test_pread_is_repeated_until_every_byte_arrived(tmp_path, monkeypatch):
 
 
 def test_huge_compressed_strip_is_refused_with_the_reason(tmp_path, monkeypatch):
-    from tilewright.slide import tiff_backend
+    from tilewright.slide import tiff_strips
 
     path = tmp_path / "onestrip.tif"
     tifffile.imwrite(path, IMG, photometric="rgb", rowsperstrip=700, compression="zlib", metadata=None,
                      resolution=(1e4 / 0.2527,) * 2, resolutionunit="CENTIMETER")
-    monkeypatch.setattr(tiff_backend, "_MAX_STRIP_BYTES", 1 << 20)  # the strip decodes to 1.9 MB
+    monkeypatch.setattr(tiff_strips, "MAX_STRIP_BYTES", 1 << 20)  # the strip decodes to 1.9 MB
     with pytest.raises(UnsupportedSlideError, match="strip") as e:
         tw.open(path)  # OpenSlide does not serve stripped TIFFs either: the tiff reason is kept
     assert str(path) in str(e.value) and "tiled" in str(e.value)

@@ -25,15 +25,13 @@ from tilewright.slide import jpeg_strict as _strict
 from tilewright.slide.sniff import MAX_PIXELS, MAX_SIDE
 from tilewright.slide.tiff_pages import discover
 from tilewright.slide.tiff_pixels import page_converter
+from tilewright.slide.tiff_strips import read_rows, strip_problem
 
 __all__ = ["TiffBackend"]
 
 # JPEG headers remembered per level (sentinel plans, strict-decode verdicts); bounds memory when
 # every tile carries its own tables.
 _HEADER_CACHE = 1024
-
-# Decoded size above which one compressed strip is too big to decode for every small read.
-_MAX_STRIP_BYTES = 48 * 2**20
 
 # Vendor flavours whose tile grids tifffile exposes but whose geometry needs a vendor
 # reader (overlapping tiles, multiple images, JPEG restart-marker "tiles"): OpenSlide serves them.
@@ -86,18 +84,6 @@ def _jpeg_args(page):
         return jpeg_decode_colorspace(page.photometric, page.planarconfig, page.extrasamples, page.is_jfif)
     except Exception:  # noqa: BLE001 - any surprise: use tifffile's decoder
         return None
-
-
-def _strip_problem(page, i: int) -> str | None:
-    """Why a compressed stripped level cannot be read region by region, or None."""
-    if page.is_tiled or int(page.compression) == 1:
-        return None
-    rows = min(int(page.chunks[-3]), int(page.imagelength))
-    size = rows * int(page.imagewidth) * int(page.samplesperpixel)
-    if size <= _MAX_STRIP_BYTES:
-        return None
-    return (f"level {i} stores {rows} rows a compressed strip ({size / 2**20:.0f} MiB decoded): "
-            "every small read would decode a whole strip; re-save the slide as a tiled TIFF")
 
 
 class TiffBackend:
@@ -177,7 +163,7 @@ class TiffBackend:
         pyramid = discover(tf, path)
         levels = []
         for i, page in enumerate(pyramid.levels):
-            problem = _strip_problem(page, i)
+            problem = strip_problem(page, i)
             if problem is not None and i == 0:
                 raise UnsupportedSlideError(problem, path)
             if problem is None:  # a reduced level stored in huge strips: finer levels serve it
@@ -232,7 +218,7 @@ class TiffBackend:
             raise ValueError("the slide is closed")
         lv = self._levels[level]
         if lv.raw_rows:
-            self._read_rows(lv, level, y, x, h, w, out)
+            read_rows(self._pread, lv, level, (y, x, h, w), out, self.path)
             return
         th, tw = lv.tile_h, lv.tile_w
         r0, r1 = y // th, (y + h - 1) // th
@@ -273,21 +259,6 @@ class TiffBackend:
                     dst[...] = 255
                     continue
                 dst[...] = seg[ya - ty : yb - ty, xa - tx : xb - tx, :3]
-
-    def _read_rows(self, lv: _Level, level: int, y: int, x: int, h: int, w: int, out) -> None:
-        """Uncompressed strips: read just the rows ``[y, y+h)`` (full width), however long the strip."""
-        row = lv.width * lv.samples
-        for r in range(y // lv.tile_h, (y + h - 1) // lv.tile_h + 1):
-            ty = r * lv.tile_h
-            ya, yb = max(y, ty), min(y + h, ty + lv.tile_h)
-            n = (yb - ya) * row
-            data = self._pread(n, int(lv.offsets[r]) + (ya - ty) * row) if (yb - ty) * row <= lv.counts[r] else b""
-            if len(data) < n:
-                raise DamagedSlideError(
-                    f"strip {r} of level {level} holds fewer bytes than its rows need while reading "
-                    f"region y={y}, x={x}, h={h}, w={w}; the file is damaged", self.path)
-            seg = np.frombuffer(data, np.uint8).reshape(yb - ya, lv.width, lv.samples)[:, x : x + w]
-            out[ya - y : yb - y] = (seg if lv.convert is None else lv.convert(seg))[..., :3]
 
     def _decode(self, lv: _Level, data, index: int) -> np.ndarray:
         """One tile as (tile_h, tile_w, samples) pixels, decoded as tifffile would (imagecodecs; a
