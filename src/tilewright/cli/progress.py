@@ -53,7 +53,7 @@ class RichProgress:
         self.console = console or Console(stderr=True)
         self.bar = Progress(TextColumn("[bold]{task.description}"), BarColumn(),
                             TextColumn("{task.fields[tiles]}"), TextColumn("{task.fields[info]}"),
-                            console=self.console, transient=False, refresh_per_second=4)
+                            console=self.console, transient=False, refresh_per_second=2)
         self.task = self.bar.add_task("tiling", total=None, tiles="", info="")
 
     def __enter__(self):
