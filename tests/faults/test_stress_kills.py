@@ -31,14 +31,14 @@ def _workers(proc):
 
     try:
         kids = psutil.Process(proc.pid).children(recursive=True)
-    except psutil.NoSuchProcess:
+    except psutil.Error:
         return []
     out = []
     for k in kids:
         try:
             if "spawn_main" in " ".join(k.cmdline()):  # the nannies spawn them (not the resource tracker)
                 out.append(k)
-        except psutil.NoSuchProcess:  # ended meanwhile (a worker being restarted)
+        except psutil.Error:  # ended meanwhile (a worker being restarted), or a zombie
             pass
     return out
 
