@@ -21,6 +21,7 @@ __all__ = [
     "ImplausibleResolutionError",
     "SlideTooLargeError",
     "ResolutionUnavailableError",
+    "ColourProfileError",
     "StainEstimationError",
     "RegionError",
     "StoreError",
@@ -89,6 +90,10 @@ class SlideTooLargeError(SlideError):
 
 class ResolutionUnavailableError(SlideError, ValueError):
     """The requested µm/px is finer than the slide's finest level (it would need upsampling)."""
+
+
+class ColourProfileError(SlideError):
+    """The slide's embedded ICC profile is damaged or does not describe its RGB pixels."""
 
 
 class StainEstimationError(TilewrightError):

@@ -218,12 +218,16 @@ def _number_label(value) -> object:
 
 
 def cohort_factors(manifest: pd.DataFrame, metadata=None) -> tuple[pd.DataFrame, dict]:
-    """Factors for every audited slide: the metadata columns plus the manifest's source µm/px.
+    """Factors for every audited slide: the metadata columns plus the manifest's source µm/px and
+    embedded colour profile (``colour_profile``: ``none``, the profile's description, or the
+    description followed by ``(ignored)``), so that colour clusters following a scanner's
+    profile show up.
 
     Parameters
     ----------
     manifest : DataFrame
-        Cohort manifest indexed by slide id (``mpp_source`` is used when present).
+        Cohort manifest indexed by slide id (``mpp_source`` and ``colour_profile`` are used when
+        present).
     metadata : DataFrame, str, os.PathLike or None
         Extra per-slide factors; a metadata column named like a manifest one wins.
 
@@ -243,6 +247,9 @@ def cohort_factors(manifest: pd.DataFrame, metadata=None) -> tuple[pd.DataFrame,
     if "mpp_source" in manifest.columns:
         mpp = pd.to_numeric(manifest["mpp_source"], errors="coerce").round(3)
         parts.append(mpp.rename("mpp_source").to_frame())
+    if "colour_profile" in manifest.columns:  # the ICC profile each slide embeds: does colour follow it?
+        profile = manifest["colour_profile"].astype(object).where(manifest["colour_profile"].notna(), "")
+        parts.append(profile.map(lambda v: str(v).strip() or np.nan).rename("colour_profile").to_frame())
     unmatched: list[str] = []
     missing: list[str] = []
     if metadata is not None:

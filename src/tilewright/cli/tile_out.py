@@ -44,6 +44,9 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--verify-jpeg", action=argparse.BooleanOptionalAction, default=None,
                    help="check every JPEG source tile for damage decoders pass silently; a damaged "
                         "slide fails (default on; --no-verify-jpeg decodes faster and keeps garbage)")
+    g.add_argument("--colour-profile", choices=["apply", "ignore"],
+                   help="apply: convert pixels from each slide's embedded ICC profile to sRGB before anything "
+                        "else sees them (default); ignore: keep the files' raw pixels")
     g = p.add_argument_group("stain")
     g.add_argument("--normalize", choices=["macenko", "reinhard", "none"],
                    help="stain normalization (default none)")
@@ -73,7 +76,8 @@ def build_parser() -> argparse.ArgumentParser:
 _FIELDS = {"mpp": "mpp", "tile": "tile", "stride": "stride", "min_tissue": "min_tissue",
            "max_tiles": "max_tiles", "seed": "seed", "mask_mpp": "mask_mpp", "min_sharpness": "min_sharpness",
            "reference": "reference", "regions": "regions", "min_region": "min_region",
-           "threads": "threads", "compression": "compression", "verify_jpeg": "verify_jpeg"}
+           "threads": "threads", "compression": "compression", "verify_jpeg": "verify_jpeg",
+           "colour_profile": "colour_profile"}
 
 
 def config_from_args(args):

@@ -88,7 +88,17 @@ def _complete_row(final: Path, path: str, slide_id: str, cfg: TilingConfig) -> d
     return SlideResult(slide_id, path, "ok" if n else "skipped",
                        "" if n else "no tile met the tissue criteria (blank slide or too little tissue)",
                        n, a.get("mpp_source"), a.get("objective"), a.get("source_level"), 0.0,
-                       str(final)).to_row()
+                       str(final), _colour_label(a.get("colour_profile"))).to_row()
+
+
+def _colour_label(recorded) -> str:
+    """The manifest's colour_profile value from a store's ``colour_profile`` attribute."""
+    from tilewright.slide.colour import ColourInfo
+
+    if not isinstance(recorded, dict):
+        return ""  # a store from before colour management
+    fields = {k: v for k, v in recorded.items() if k in ColourInfo.__dataclass_fields__}
+    return ColourInfo(**fields).label
 
 
 def _stain_target(paths, out_dir: Path, config: TilingConfig, mpps, compute) -> dict | None:

@@ -21,6 +21,7 @@ import threading
 import numpy as np
 
 from tilewright.errors import DamagedSlideError, SlideTooLargeError, UnsupportedSlideError
+from tilewright.slide import colour as _colour
 from tilewright.slide import jpeg_strict as _strict
 from tilewright.slide.resolution import (
     Resolution,
@@ -118,6 +119,7 @@ class TiffBackend:
             raise DamagedSlideError(f"the TIFF structure cannot be parsed ({exc})", path) from exc
         try:
             self._levels, self.resolution, self.flavour = self._inspect(tf, path)
+            self.icc_profile = _colour.tiff_profile(tf)  # InterColorProfile of level 0, or None
         except (UnsupportedSlideError, DamagedSlideError):
             tf.close()
             raise

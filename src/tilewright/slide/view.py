@@ -125,12 +125,12 @@ class ResampledView:
                 bw = min(cols, w - bx)
                 sx0, sx1 = source_span(x + bx, bw, s)
                 src = self.slide.read_level(level, sy0, sx0, sy1 - sy0, sx1 - sx0,
-                                            out=self._strip(sy1 - sy0, sx1 - sx0))
+                                            out=self._strip(sy1 - sy0, sx1 - sx0), raw=True)
                 dst = out[by : by + bh, bx : bx + bw]
                 area_downsample(src, y + by, x + bx, bh, bw, s, sy0, sx0, out=dst,
                                 weights=weights)
             by += bh
-        return out
+        return self.slide.to_srgb(out)  # device RGB averaged, then converted (as the file's own levels)
 
     def _strip(self, h: int, w: int) -> np.ndarray:
         """A (h, w, 3) uint8 work array of this thread, reused from read to read."""
