@@ -44,3 +44,11 @@ def test_demo_builds_tiles_and_audits(tmp_path, capsys):
     assert (out / "audit" / "report.html").exists()
     printed = capsys.readouterr().out
     assert "Research use only" in printed and str(out / "tiles") in printed
+    # scanner-B (site-south) embeds its ICC profile, applied by default; scanner-A embeds none
+    from tilewright.demo.icc import SCANNER_B
+
+    profile = dict(zip(m.slide_id, m.colour_profile))
+    site = dict(zip(meta.slide_id, meta.site))
+    assert {profile[s] for s in profile if site[s] == "site-south"} == {SCANNER_B["description"]}
+    assert {profile[s] for s in profile if site[s] == "site-north"} == {"none"}
+    assert "colour management alone closes" in printed
