@@ -15,6 +15,7 @@ def test_inspect_reports_levels_and_writes_overlay(tmp_path, capsys):
     assert main(["inspect", str(path), "--overlay", str(png)]) == 0
     out = capsys.readouterr().out
     assert "0.2500 µm/px" in out and "40" in out  # ground truth: written with mpp 0.25, AppMag 40
+    assert "no ICC profile" in out  # ground truth: written without one
     with tw.open(path) as s:
         assert f"{s.dimensions[1]} x {s.dimensions[0]}" in out  # reference: the reader's own levels
     assert png.stat().st_size > 1000
