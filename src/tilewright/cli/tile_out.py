@@ -54,8 +54,15 @@ def build_parser() -> argparse.ArgumentParser:
                                        "the cohort's own median stain is the target, saved as OUT/stain_target.json")
     g = p.add_argument_group("regions")
     g.add_argument("--regions", help="region annotations: a GeoJSON/tile-table file, or a folder with one file a slide id")
-    g.add_argument("--keep", help="region classes to keep, comma separated")
+    g.add_argument("--keep", help="region classes to keep, comma separated (needed with --regions; case and "
+                                  "spacing ignored; a class a slide's file lacks covers nothing there)")
     g.add_argument("--min-region", type=float, help="minimum kept-class fraction of a tile (default 0.5)")
+    g.add_argument("--class-property", metavar="KEY",
+                   help="GeoJSON feature property holding the class (default: classification, class, label)")
+    g.add_argument("--default-class", metavar="NAME",
+                   help="class of GeoJSON features that have none (default: such features are skipped, warned)")
+    g.add_argument("--object-types", metavar="TYPES",
+                   help="GeoJSON object types to read, comma separated (default annotation; 'all' for every feature)")
     g = p.add_argument_group("input resolution")
     g.add_argument("--source-mpp", type=float, help="level-0 µm/px for slides that lack or misstate it")
     g.add_argument("--mpp-table", help="CSV with slide_id (or path) and mpp columns: per-slide level-0 µm/px")
@@ -77,6 +84,7 @@ _FIELDS = {"mpp": "mpp", "tile": "tile", "stride": "stride", "min_tissue": "min_
            "max_tiles": "max_tiles", "seed": "seed", "mask_mpp": "mask_mpp", "min_sharpness": "min_sharpness",
            "reference": "reference", "regions": "regions", "min_region": "min_region",
            "threads": "threads", "compression": "compression", "verify_jpeg": "verify_jpeg",
+           "class_property": "class_property", "default_class": "default_class", "object_types": "object_types",
            "colour_profile": "colour_profile"}
 
 
@@ -89,7 +97,7 @@ def config_from_args(args):
     if args.normalize is not None:
         changes["normalizer"] = None if args.normalize == "none" else args.normalize
     if args.keep is not None:
-        changes["keep"] = [k.strip() for k in args.keep.split(",") if k.strip()]
+        changes["keep"] = args.keep  # split on commas by TilingConfig
     if isinstance(changes.get("reference"), str) and changes["reference"].lower().endswith(".json"):
         import json
 
@@ -98,7 +106,11 @@ def config_from_args(args):
             changes["reference"] = json.loads(ref.read_text())
         except (OSError, ValueError) as exc:
             raise ConfigError(f"cannot read the fitted normalizer JSON ({exc})", ref) from None
-    return base.replace(**changes).validate()
+    config = base.replace(**changes).validate()
+    if args.min_region is not None and not config.keep:
+        raise ConfigError("--min-region needs --regions and --keep (it sets how much of a tile the kept classes "
+                          "must cover)")
+    return config
 
 
 def main(argv=None) -> int:

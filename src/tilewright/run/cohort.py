@@ -56,8 +56,11 @@ def tile_slide_row(path, final, cfg, slide_id, mpp, normalizer) -> SlideResult:
 
     res = tile_slide(path, final, cfg, slide_id=slide_id, mpp=mpp, target=normalizer)
     if res.n_tiles == 0:
+        from tilewright.run.skip_reason import skip_reason
+        from tilewright.store.reader import open_store
+
         res.status = "skipped"
-        res.error = "no tile met the tissue criteria (blank slide or too little tissue)"
+        res.error = skip_reason(open_store(res.store).attrs)
     return res
 
 
@@ -84,9 +87,17 @@ def _complete_row(final: Path, path: str, slide_id: str, cfg: TilingConfig) -> d
         detail = ", ".join(f"{k} {old.get(k)!r} -> {new.get(k)!r}" for k in changed[:4])
         raise ConfigError(f"a complete store made with other settings exists ({detail}); pass --overwrite "
                           "to re-tile or choose another output folder", final)
+    if cfg.keep:  # region files are part of a store's identity: edited annotations are re-tiled
+        from tilewright.regions.load import region_change
+
+        why = region_change(a.get("regions"), cfg.regions, slide_id)
+        if why:
+            raise ConfigError(f"a complete store made with other settings exists ({why}); pass --overwrite "
+                              "to re-tile or choose another output folder", final)
     n = int(a.get("n_tiles", 0))
-    return SlideResult(slide_id, path, "ok" if n else "skipped",
-                       "" if n else "no tile met the tissue criteria (blank slide or too little tissue)",
+    from tilewright.run.skip_reason import skip_reason
+
+    return SlideResult(slide_id, path, "ok" if n else "skipped", "" if n else skip_reason(a),
                        n, a.get("mpp_source"), a.get("objective"), a.get("source_level"), 0.0,
                        str(final), _colour_label(a.get("colour_profile"))).to_row()
 

@@ -180,10 +180,16 @@ def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNames
     thumbnail = slide.thumbnail(config.mask_mpp)
     mask = tissue_mask(SimpleNamespace(thumbnail=lambda mpp: thumbnail, path=slide.path), mpp=config.mask_mpp,
                        exclude_ink=config.exclude_ink, exclude_dark=config.exclude_dark)
+    keep = absent = None
+    if regions is not None and not config.keep:
+        from tilewright.errors import ConfigError
+
+        raise ConfigError("regions were given but config.keep names no class to keep; set keep= (the region "
+                          "classes whose tiles to keep)", path)
     if config.keep:
-        regions = _regions_for(regions, config, slide_id, slide.mpp, path)
+        regions, keep, absent = _regions_for(regions, config, slide_id, slide, path)
     plan = plan_tiles(view, mask, tile=config.tile, stride=config.stride, min_tissue=config.min_tissue,
-                      regions=regions if config.keep else None, keep=config.keep,
+                      regions=regions if config.keep else None, keep=keep,
                       min_region=config.min_region, max_tiles=config.max_tiles, seed=config.seed)
     glass = _glass(thumbnail, mask) if config.normalizer else None
     mask_arr = np.asarray(mask.array, dtype=bool)
@@ -197,7 +203,7 @@ def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNames
         "tile": int(config.tile), "stride": int(config.step), "mask_mpp": float(config.mask_mpp),
         "tissue_fraction": float(mask_arr.mean()) if mask_arr.size else 0.0,
         "normalizer": None,  # bound while the first tiles are read (see tile_slide)
-        "regions": None if (regions is None or not config.keep) else _region_info(regions, config),
+        "regions": None if (regions is None or not config.keep) else _region_info(regions, config, absent),
         "tissue_mask": _jsonable(mask.to_dict()),
         "plan": _jsonable(getattr(plan, "params", {})),
         "order": "blocks of config.block target px, row-major; row-major inside a block",
@@ -262,18 +268,43 @@ def _bind_normalizer(view, plan, config, target, path, glass=None):
                                    f"({exc.reason}); lower --min-tissue or run without --normalize", path) from None
 
 
-def _regions_for(regions, config, slide_id, level0_mpp, path):
-    """The slide's RegionMap: given, or loaded from ``config.regions`` (a file or a folder)."""
+def _regions_for(regions, config, slide_id, slide, path):
+    """The slide's RegionMap (given, or loaded from ``config.regions``), the kept classes it has
+    and the kept classes it lacks. What reading repaired and the absent classes are logged once
+    (the ``tilewright`` logger, which tile-out writes to ``tile-out.log``)."""
+    import logging
+
     from tilewright.errors import RegionError
 
+    log = logging.getLogger("tilewright")
     if regions is None:
         from tilewright.regions.load import load_regions
 
-        regions = load_regions(config.regions, slide_id, level0_mpp)
-        if regions is None:
+        regions = load_regions(config.regions, slide_id, slide.mpp, slide_shape=tuple(slide.dimensions),
+                               class_property=config.class_property, default_class=config.default_class,
+                               object_types=config.object_types, warn=False)
+        if regions is None and os.path.isdir(config.regions):
             raise RegionError(f"no region file for slide {slide_id!r} in {config.regions}; add "
                               f"{slide_id}.geojson there or run without --keep", path)
-    return regions.with_mpp(level0_mpp) if hasattr(regions, "with_mpp") else regions
+        if regions is None:
+            raise RegionError(f"the region table {config.regions} has no row with slide_id {slide_id!r}; add the "
+                              "slide's first-pass rows or run without --keep", path)
+        info = regions.to_dict()
+        for message in info.get("repairs") or ():
+            log.warning("%s: regions %s: %s", slide_id, info.get("path"), message)
+    if hasattr(regions, "with_mpp"):
+        regions = regions.with_mpp(slide.mpp)
+    if not hasattr(regions, "present"):  # a RegionMap-like object: keep as configured
+        return regions, list(config.keep), []
+    keep, absent = regions.present(config.keep)
+    if not keep:
+        from tilewright.regions.classnames import none_kept
+
+        raise none_kept(absent, regions.classes, regions.to_dict().get("path"))
+    if absent:
+        log.warning("%s: kept class(es) %s absent from %s; they cover nothing on this slide", slide_id,
+                    ", ".join(map(repr, absent)), regions.to_dict().get("path") or "its regions")
+    return regions, list(keep), list(absent)
 
 
 def _overlay(rgb, mask, plan, slide_id, mpp):
@@ -310,9 +341,9 @@ def _digest(path):
     return source_digest(path)
 
 
-def _region_info(regions, config):
+def _region_info(regions, config, absent=None):
     info = regions.to_dict() if hasattr(regions, "to_dict") else {"kind": type(regions).__name__}
-    info.update(keep=list(config.keep), min_region=float(config.min_region))
+    info.update(keep=list(config.keep), min_region=float(config.min_region), absent=list(absent or []))
     return _jsonable(info)
 
 

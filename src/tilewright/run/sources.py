@@ -61,7 +61,7 @@ def read_mpp_table(path: str | os.PathLike) -> dict[str, float]:
 
     path = Path(path)
     try:
-        df = pd.read_csv(path)
+        df = pd.read_csv(path, dtype=str)  # ids as written: "00123" stays "00123"; mpp converted below
     except FileNotFoundError:
         raise ConfigError("mpp table not found", path) from None
     except Exception as exc:
