@@ -5,10 +5,11 @@ so no interpolation is needed at all): 64 MiB of packed ``uint32`` entries, buil
 second from a LittleCMS transform (through Pillow's ``ImageCms``) in chunks of 2**20 colours.
 Applying it is one gather a pixel, done in chunks of 2**16 pixels that stay in cache:
 
-1. ``cv2.mixChannels`` copies R, G, B into bytes 0-2 of an 8-byte word whose other bytes are
-   zero, so the words read as ``int64`` are the table indices ``R + 256 G + 65536 B`` (numpy's
-   gather takes them without a conversion);
-2. ``numpy.take`` gathers the packed sRGB entries;
+1. ``cv2.cvtColor(RGB2RGBA)`` widens the pixels to 4-byte words; masked to their low 24 bits
+   and widened to ``int64`` (numpy's index type, so the gather converts nothing) they are the
+   table indices ``R + 256 G + 65536 B``;
+2. ``numpy.take`` gathers the packed sRGB entries (``mode="wrap"``: every index is in range,
+   and this mode measured about twice as fast as ``"clip"``);
 3. ``cv2.cvtColor(RGBA2RGB)`` unpacks them into the pixels, in place.
 
 All three release the GIL, so reader threads transform their blocks in parallel. Measured
@@ -92,38 +93,40 @@ class SrgbTable:
             return rgb
         if rgb.dtype != np.uint8 or rgb.shape[-1] != 3:
             raise ValueError(f"expected uint8 (..., 3) pixels, got {rgb.dtype} {rgb.shape}")
-        idx, packed = self._buffers()
+        buffers = self._buffers()
         if rgb.flags.c_contiguous:
             flat = rgb.reshape(-1, 3)
             for start in range(0, len(flat), _CHUNK):
-                _gather(table, flat[start:start + _CHUNK], idx, packed)
+                _gather(table, flat[start:start + _CHUNK], *buffers)
             return rgb
         rows = rgb.reshape(-1, rgb.shape[-2], 3) if rgb.ndim >= 2 else rgb.reshape(1, 1, 3)
         for row in rows:  # views with gaps between rows: one row (or a copy of it) at a time
             work = row if row.flags.c_contiguous else np.ascontiguousarray(row)
             for start in range(0, len(work), _CHUNK):
-                _gather(table, work[start:start + _CHUNK], idx, packed)
+                _gather(table, work[start:start + _CHUNK], *buffers)
             if work is not row:
                 row[...] = work
         return rgb
 
     def _buffers(self):
         s = self._scratch
-        if getattr(s, "idx", None) is None:
-            s.idx = np.zeros((_CHUNK, 8), np.uint8)  # bytes 3-7 stay zero: int64 indices
+        if getattr(s, "index", None) is None:  # this thread's scratch, reused (it stays in cache)
+            s.words = np.empty((1, _CHUNK, 4), np.uint8)
+            s.index = np.empty(_CHUNK, np.int64)
             s.packed = np.empty(_CHUNK, np.uint32)
-        return s.idx, s.packed
+        return s.words, s.index, s.packed
 
 
-def _gather(table: np.ndarray, pixels: np.ndarray, idx: np.ndarray, packed: np.ndarray) -> None:
+def _gather(table, pixels, words, index, packed) -> None:
     """Replace ``pixels`` ((n, 3) C-contiguous uint8, n <= _CHUNK) by their table entries."""
     import cv2
 
     n = len(pixels)
     src = pixels.reshape(1, n, 3)
-    words = idx[:n].reshape(1, n, 8)
-    cv2.mixChannels([src], [words], [0, 0, 1, 1, 2, 2])
-    np.take(table, idx[:n].view(np.int64).reshape(n), out=packed[:n], mode="clip")
+    cv2.cvtColor(src, cv2.COLOR_RGB2RGBA, dst=words[:, :n])
+    # little-endian words: R + 256 G + 65536 B (+ alpha << 24, masked), the order the table was built in
+    np.bitwise_and(words[0, :n].view("<u4").reshape(n), 0xFFFFFF, out=index[:n], casting="unsafe")
+    np.take(table, index[:n], out=packed[:n], mode="wrap")
     cv2.cvtColor(packed[:n].view(np.uint8).reshape(1, n, 4), cv2.COLOR_RGBA2RGB, dst=src)
 
 
