@@ -30,14 +30,15 @@ import struct
 
 import numpy as np
 
-__all__ = ["matrix_trc_profile", "assemble", "desc_tag", "text_tag", "xyz_tag", "curve_tag", "primaries_matrix", "bradford", "xy_to_xyz", "srgb_curve",
-           "D50", "ADOBE_RGB_1998", "SRGB_IEC", "SCANNER_B"]
+__all__ = ["matrix_trc_profile", "assemble", "desc_tag", "text_tag", "xyz_tag", "curve_tag", "primaries_matrix",
+           "bradford", "xy_to_xyz", "srgb_curve", "D50", "ADOBE_RGB_1998", "SRGB_IEC", "SCANNER_B"]
 
 #: ICC connection-space white, XYZ (ICC.1).
 D50 = (0.9642, 1.0, 0.8249)
 #: Adobe RGB (1998) as published by Adobe: primaries, white, gamma.
 ADOBE_RGB_1998 = dict(primaries=((0.6400, 0.3300), (0.2100, 0.7100), (0.1500, 0.0600)),
-                      white=(0.3127, 0.3290), trc=563 / 256, description="Adobe RGB (1998), from its published primaries")
+                      white=(0.3127, 0.3290), trc=563 / 256,
+                      description="Adobe RGB (1998), from its published primaries")
 #: sRGB per IEC 61966-2-1 (the TRC as a 4096-entry table of the piecewise curve).
 SRGB_IEC = dict(primaries=((0.64, 0.33), (0.30, 0.60), (0.15, 0.06)), white=(0.3127, 0.3290),
                 trc="srgb", description="sRGB, from IEC 61966-2-1 primaries and curve")
