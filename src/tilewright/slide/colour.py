@@ -38,12 +38,11 @@ from __future__ import annotations
 
 import hashlib
 import io
-import struct
 from dataclasses import asdict, dataclass
 
 import numpy as np
 
-from tilewright.errors import ColourProfileError
+from tilewright.slide.colour_icc import ProfileFacts, check_profile, profile_error
 
 __all__ = ["ICC_TAG", "MODES", "SRGB", "ColourInfo", "ColourTransform", "ProfileFacts", "check_profile",
            "colour_transform", "slide_colour", "tiff_profile", "openslide_profile"]
@@ -55,26 +54,6 @@ MODES = ("apply", "ignore")
 #: What applied profiles convert to.
 SRGB = "sRGB (IEC 61966-2-1)"
 INTENT = "relative colorimetric"
-
-_MAX_BYTES = 64 << 20  # a scanner profile is KB to a few MB
-_FIX = "; re-run with --colour-profile ignore (tw.open(..., colour_profile='ignore')) to use the file's raw pixels"
-_SPACES = {b"GRAY": "grey", b"CMYK": "CMYK", b"CMY ": "CMY", b"Lab ": "CIELAB", b"XYZ ": "CIEXYZ",
-           b"YCbr": "YCbCr", b"Luv ": "CIELUV", b"HSV ": "HSV", b"HLS ": "HLS"}
-_CLASSES = {b"scnr": "input", b"mntr": "display", b"spac": "colour space", b"prtr": "output"}
-_NOT_DEVICE = {b"link": "a device-link", b"abst": "an abstract", b"nmcl": "a named-colour"}
-_MATRIX_TAGS = (b"rXYZ", b"gXYZ", b"bXYZ", b"rTRC", b"gTRC", b"bTRC")
-
-
-@dataclass(frozen=True)
-class ProfileFacts:
-    """What the header and tag table of an ICC profile say (see :func:`check_profile`)."""
-
-    size: int
-    version: str
-    device_class: str
-    pcs: str
-    table: str  # the device-to-PCS mapping used for the relative colorimetric intent
-    tags: tuple
 
 
 @dataclass(frozen=True)
@@ -122,84 +101,6 @@ class ColourInfo:
             return "none"
         name = self.description or f"unnamed profile {self.sha256[:12]}"
         return name if self.applied else f"{name} (ignored)"
-
-
-def _bad(reason: str, path) -> ColourProfileError:
-    return ColourProfileError(f"the embedded ICC profile {reason}{_FIX}", path)
-
-
-def check_profile(data: bytes, path=None) -> ProfileFacts:
-    """Check the header and tag table of an ICC profile meant for RGB pixels.
-
-    Parameters
-    ----------
-    data : bytes
-        The profile as stored (bytes past the declared size are ignored).
-    path : str, optional
-        The slide, named in errors.
-
-    Returns
-    -------
-    ProfileFacts
-
-    Raises
-    ------
-    ColourProfileError
-        Truncated, not an ICC profile, a version other than 2 or 4, a data colour space other
-        than RGB, not a device profile, a tag outside the profile, or no device-to-PCS mapping.
-    """
-    n = len(data)
-    if n < 132:
-        raise _bad(f"is truncated ({n} bytes; the header and tag count alone take 132)", path)
-    if data[36:40] != b"acsp":
-        raise _bad("lacks the 'acsp' signature: it is damaged or not an ICC profile", path)
-    size = struct.unpack_from(">I", data, 0)[0]
-    if size > n:
-        raise _bad(f"is truncated: its header declares {size} bytes but the file holds {n}", path)
-    if size < 132 or size > _MAX_BYTES:
-        raise _bad(f"declares an impossible size of {size} bytes", path)
-    major, minor = data[8], data[9]
-    if major not in (2, 4):
-        raise _bad(f"is ICC version {major}, which is not supported (versions 2 and 4 are)", path)
-    space, cls, pcs = data[16:20], data[12:16], data[20:24]
-    if space != b"RGB ":
-        kind = _SPACES.get(space, repr(space.decode("latin-1")))
-        raise _bad(f"describes {kind} data, but the slide's pixels are RGB", path)
-    if cls in _NOT_DEVICE:
-        raise _bad(f"is {_NOT_DEVICE[cls]} profile, not the profile of a device's colours", path)
-    if cls not in _CLASSES:
-        raise _bad(f"has an unknown device class {cls!r}", path)
-    if pcs not in (b"XYZ ", b"Lab "):
-        raise _bad(f"has an invalid connection space {pcs!r} (XYZ or Lab expected)", path)
-    count = struct.unpack_from(">I", data, 128)[0]
-    if count > (size - 132) // 12:
-        raise _bad(f"declares {count} tags, more than its {size} bytes can hold", path)
-    tags = {}
-    for i in range(count):
-        sig, offset, length = struct.unpack_from(">4sII", data, 132 + 12 * i)
-        if offset < 132 or length < 8 or offset + length > size:
-            raise _bad(f"has tag {sig.decode('latin-1')!r} outside the profile (offset {offset}, {length} bytes)",
-                       path)
-        tags[sig] = (offset, length)
-    table = _device_table(tags)
-    if table is None:
-        raise _bad("has neither matrix/TRC tags nor an A2B table: it cannot map RGB to colour", path)
-    return ProfileFacts(size=size, version=f"{major}.{minor >> 4}.{minor & 15}", device_class=_CLASSES[cls],
-                        pcs=pcs.decode("latin-1").strip(), table=table,
-                        tags=tuple(sorted(s.decode("latin-1") for s in tags)))
-
-
-def _device_table(tags) -> str | None:
-    """The device-to-PCS mapping LittleCMS uses for the relative colorimetric intent."""
-    if b"D2B1" in tags:
-        return "D2B1 (colorimetric, floating point)"
-    if b"A2B1" in tags:
-        return "A2B1 (colorimetric table)"
-    if b"A2B0" in tags:
-        return "A2B0 (perceptual table; the profile has no colorimetric one)"
-    if all(t in tags for t in _MATRIX_TAGS):
-        return "matrix/TRC"
-    return None
 
 
 class ColourTransform:
@@ -271,7 +172,7 @@ def colour_transform(profile: bytes, *, path=None) -> ColourTransform:
         lcms = ImageCms.buildTransform(source, ImageCms.createProfile("sRGB"), "RGB", "RGB",
                                        renderingIntent=ImageCms.Intent.RELATIVE_COLORIMETRIC)
     except Exception as exc:  # noqa: BLE001 - LittleCMS reports damage through several types
-        raise _bad(f"cannot be used by LittleCMS ({' '.join(str(exc).split())[:120]})", path) from None
+        raise profile_error(f"cannot be used by LittleCMS ({' '.join(str(exc).split())[:120]})", path) from None
     _check_grey(lcms, path)
     info = ColourInfo(embedded=True, applied=True, description=_description(source), sha256=_sha256(profile),
                       size=len(profile), version=facts.version, device_class=facts.device_class,
@@ -294,10 +195,10 @@ def _check_grey(lcms, path) -> None:
     try:
         out = np.asarray(ImageCms.applyTransform(Image.fromarray(ramp), lcms))[0]
     except Exception as exc:  # noqa: BLE001
-        raise _bad(f"cannot be applied by LittleCMS ({exc})", path) from None
+        raise profile_error(f"cannot be applied by LittleCMS ({exc})", path) from None
     lightness = _lightness(out)
     if np.diff(lightness).min() < -1.0 or lightness[-1] < 80.0 or lightness[-1] - lightness[0] < 30.0:
-        raise _bad(f"maps device grey to implausible lightness (L* from {lightness[0]:.0f} to {lightness[-1]:.0f}, "
+        raise profile_error(f"maps device grey to implausible lightness (L* from {lightness[0]:.0f} to {lightness[-1]:.0f}, "
                    "not increasing): it is probably damaged", path)
 
 
