@@ -122,3 +122,15 @@ def test_a_pickled_slide_keeps_its_colour_setting(slides, picture):
 def test_colour_profile_argument_is_checked(slides):
     with pytest.raises(ValueError, match="colour_profile"):
         tw.open(slides["plain"], colour_profile="maybe")
+
+
+def test_dask_arrays_of_the_two_settings_are_not_confused(slides, picture):
+    import dask.array as da
+
+    with tw.open(slides["adobe"]) as a, tw.open(slides["adobe"], colour_profile="ignore") as i:
+        va, vi = a.at_mpp(0.2428 * 2).to_dask(chunk=128), i.at_mpp(0.2428 * 2).to_dask(chunk=128)
+        assert va.name != vi.name  # one graph holding both must not share their chunks
+        both = da.stack([va, vi]).compute(scheduler="synchronous")
+        np.testing.assert_array_equal(both[0], a.at_mpp(0.2428 * 2).read(0, 0, *va.shape[:2]))
+        np.testing.assert_array_equal(both[1], i.at_mpp(0.2428 * 2).read(0, 0, *vi.shape[:2]))
+        assert not np.array_equal(both[0], both[1])

@@ -202,7 +202,7 @@ class ResampledView:
 
         adapter = _DaskAdapter(self)
         name = "tilewright-view-" + tokenize(self.slide.path, self.mpp, self.source_level,
-                                             self.scale, chunk)
+                                             self.scale, chunk, self.slide.colour.applied)
         return da.from_array(adapter, chunks=(chunk, chunk, 3), name=name, lock=False,
                              asarray=False, fancy=False,
                              meta=np.empty((0, 0, 0), np.uint8))
