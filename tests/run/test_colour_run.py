@@ -14,7 +14,7 @@ from helpers import write_slide
 from tilewright.cli.tile_out import build_parser, config_from_args
 from tilewright.demo import icc
 from tilewright.demo.cohort import device_renderer
-from tilewright.run.cohort import _RUN_ONLY
+from tilewright.run.identity import RUN_ONLY
 
 WIDE = icc.matrix_trc_profile(**icc.SCANNER_B)
 CFG = tw.TilingConfig(mpp=0.9708, tile=128, min_tissue=0.3, qc_overlay=False, mask_mpp=7.7664)
@@ -63,7 +63,7 @@ def test_store_records_the_profile_and_holds_srgb(profiled, tmp_path):
 
 
 def test_resume_does_not_mix_in_a_store_made_with_the_other_setting(profiled, tmp_path):
-    assert "colour_profile" not in _RUN_ONLY  # it changes tiles: it counts on resume
+    assert "colour_profile" not in RUN_ONLY  # it changes tiles: it counts on resume
     first = tw.tile_cohort([profiled], tmp_path / "out", CFG, progress=False)
     assert first[0].status == "ok"
     again = tw.tile_cohort([profiled], tmp_path / "out", CFG, progress=False)

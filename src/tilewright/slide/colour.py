@@ -45,7 +45,7 @@ import numpy as np
 from tilewright.slide.colour_icc import ProfileFacts, check_profile, profile_error
 
 __all__ = ["ICC_TAG", "MODES", "SRGB", "ColourInfo", "ColourTransform", "ProfileFacts", "check_profile",
-           "colour_transform", "slide_colour", "tiff_profile", "openslide_profile"]
+           "colour_transform", "slide_colour", "colour_label", "tiff_profile", "openslide_profile"]
 
 #: TIFF tag InterColorProfile (TIFF/EP, ICC.1 annex B).
 ICC_TAG = 34675
@@ -264,6 +264,14 @@ def _parsed(profile: bytes):
 
     check_profile(profile)
     return ImageCms.ImageCmsProfile(io.BytesIO(profile))
+
+
+def colour_label(recorded) -> str:
+    """The manifest's ``colour_profile`` text from a store's ``colour_profile`` attribute
+    (``""`` for a store made before colour management)."""
+    if not isinstance(recorded, dict):
+        return ""
+    return ColourInfo(**{k: v for k, v in recorded.items() if k in ColourInfo.__dataclass_fields__}).label
 
 
 def tiff_profile(tf) -> bytes | None:
