@@ -134,3 +134,23 @@ def test_dask_arrays_of_the_two_settings_are_not_confused(slides, picture):
         np.testing.assert_array_equal(both[0], a.at_mpp(0.2428 * 2).read(0, 0, *va.shape[:2]))
         np.testing.assert_array_equal(both[1], i.at_mpp(0.2428 * 2).read(0, 0, *vi.shape[:2]))
         assert not np.array_equal(both[0], both[1])
+
+
+def test_profile_comes_from_the_slide_page_when_an_overview_comes_first(tmp_path, picture):
+    """OME files often store the overview before the slide: the profile read is the slide's own."""
+    import tifffile
+
+    path = tmp_path / "macro_first.ome.tif"
+    srgb = icc.matrix_trc_profile(**icc.SRGB_IEC)
+    with tifffile.TiffWriter(path, ome=True) as t:
+        # the overview carries another profile (sRGB), the slide its scanner's (Adobe RGB)
+        t.write(make_image(120, 360, seed=9), photometric="rgb", compression="zlib", rowsperstrip=64,
+                extratags=[(34675, 7, len(srgb), srgb, True)],
+                metadata={"axes": "YXS", "Name": "overview", "PhysicalSizeX": 16.0, "PhysicalSizeY": 16.0})
+        t.write(picture, tile=(256, 256), photometric="rgb", compression="zlib",
+                extratags=[(34675, 7, len(ADOBE), ADOBE, True)],
+                metadata={"axes": "YXS", "Name": "slide", "PhysicalSizeX": 0.2428, "PhysicalSizeY": 0.2428})
+    with tw.open(path, backend="tiff") as s:
+        assert s.dimensions == picture.shape[:2]  # the slide, not the overview, is level 0
+        # ground truth: the bytes written into the slide page's tag 34675
+        assert s.colour.sha256 == hashlib.sha256(ADOBE).hexdigest()
