@@ -45,6 +45,9 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--verify-jpeg", action=argparse.BooleanOptionalAction, default=None,
                    help="check every JPEG source tile for damage decoders pass silently; a damaged "
                         "slide fails (default on; --no-verify-jpeg decodes faster and keeps garbage)")
+    g.add_argument("--colour-profile", choices=["apply", "ignore"],
+                   help="apply: convert pixels from each slide's embedded ICC profile to sRGB before anything "
+                        "else sees them (default); ignore: keep the files' raw pixels")
     g = p.add_argument_group("tissue mask")
     g.add_argument("--tissue-sensitivity", type=float,
                    help="factor dividing the tissue density threshold: 2 keeps fainter tissue, 0.5 only denser (default 1)")
@@ -96,7 +99,8 @@ _FIELDS = {"mpp": "mpp", "tile": "tile", "stride": "stride", "min_tissue": "min_
            "threads": "threads", "compression": "compression", "verify_jpeg": "verify_jpeg",
            "tissue_sensitivity": "tissue_sensitivity", "min_piece_um2": "min_piece_um2",
            "exclude_dark": "exclude_dark", "dark_od": "dark_od", "ink_margin_um": "ink_margin_um",
-           "class_property": "class_property", "default_class": "default_class", "object_types": "object_types"}
+           "class_property": "class_property", "default_class": "default_class", "object_types": "object_types",
+           "colour_profile": "colour_profile"}
 
 
 def config_from_args(args):
