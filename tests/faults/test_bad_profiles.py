@@ -10,7 +10,7 @@ import pandas as pd
 import pytest
 
 import tilewright as tw
-from colour_refs import debian_profile, write_profiled_slide
+from colour_refs import RUIFROK_E, RUIFROK_H, debian_profile, write_profiled_slide
 from tilewright.demo import icc
 from tilewright.errors import ColourProfileError
 
@@ -20,6 +20,18 @@ GOOD = icc.matrix_trc_profile(**icc.ADOBE_RGB_1998)
 _IMG = np.full((512, 640, 3), 232, np.uint8)
 _IMG[80:400, 120:500] = (170, 80, 150)  # ground truth constructed here
 _IMG[200:260, 200:300] = (90, 40, 110)
+
+
+def _he_tissue(shape=(2048, 2560), seed=3) -> np.ndarray:
+    """Glass with a block of H&E tissue: I = 255 * 10**-(c_H h + c_E e), Ruifrok & Johnston (2001)
+    stain vectors, amounts varying from pixel to pixel (ground truth constructed here)."""
+    rng = np.random.default_rng(seed)
+    img = np.full((*shape, 3), 236, np.uint8)
+    h, w = shape[0] * 5 // 8, shape[1] * 5 // 8
+    c = rng.gamma(4.0, 0.08, (h, w, 2)) + np.array([0.15, 0.25])
+    od = c[..., :1] * RUIFROK_H / np.linalg.norm(RUIFROK_H) + c[..., 1:] * RUIFROK_E / np.linalg.norm(RUIFROK_E)
+    img[shape[0] // 8:shape[0] // 8 + h, shape[1] // 8:shape[1] // 8 + w] = np.clip(np.rint(255 * 10.0 ** -od), 0, 255)
+    return img
 
 
 def _with(profile: bytes, offset: int, value: bytes) -> bytes:
@@ -92,7 +104,7 @@ def test_openslide_backend_refuses_the_same_profile(tmp_path):
 def test_one_bad_profile_does_not_stop_the_cohort(tmp_path, fast_config):
     slides = tmp_path / "slides"
     slides.mkdir()
-    big = np.repeat(np.repeat(_IMG, 4, axis=0), 4, axis=1)  # 0.5 x 0.6 mm, mostly "tissue"
+    big = _he_tissue()  # 0.5 x 0.6 mm at 0.25 µm/px, mostly H&E tissue
     bad = write_profiled_slide(slides / "bad.tif", big, GOOD[:200], mpp=0.25, compression="jpeg")
     good = write_profiled_slide(slides / "good.tif", big, GOOD, mpp=0.25, compression="jpeg")
     res = tw.tile_cohort([bad, good], tmp_path / "out", fast_config, progress=False)
