@@ -64,8 +64,10 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--config", help="TOML file with tiling settings (options given here override it)")
     g.add_argument("--print-config", action="store_true", help="print the settings as TOML and exit")
     g.add_argument("--overwrite", action="store_true", help="re-tile slides whose store is already complete")
-    g.add_argument("--compression", choices=["lz4", "zstd", "zlib", "none"],
-                   help="lossless tile compression (default lz4; zstd: ~12%% fewer bytes, ~3x the CPU)")
+    g.add_argument("--compression", choices=["lz4", "zstd", "zlib", "none", "webp", "jpeg"],
+                   help="tile compression (default lz4, lossless; zstd: ~12%% fewer bytes, ~3x the CPU; webp: "
+                        "lossless, ~half the bytes, slower; jpeg: lossy, ~11%% of the raw bytes at --quality 90)")
+    g.add_argument("--quality", type=int, help="JPEG quality 1-100 with --compression jpeg (default 90)")
     g.add_argument("--quiet", action="store_true", help="no progress output (the log file is still written)")
     return p
 
@@ -73,7 +75,8 @@ def build_parser() -> argparse.ArgumentParser:
 _FIELDS = {"mpp": "mpp", "tile": "tile", "stride": "stride", "min_tissue": "min_tissue",
            "max_tiles": "max_tiles", "seed": "seed", "mask_mpp": "mask_mpp", "min_sharpness": "min_sharpness",
            "reference": "reference", "regions": "regions", "min_region": "min_region",
-           "threads": "threads", "compression": "compression", "verify_jpeg": "verify_jpeg"}
+           "threads": "threads", "compression": "compression", "verify_jpeg": "verify_jpeg",
+           "quality": "quality"}
 
 
 def config_from_args(args):

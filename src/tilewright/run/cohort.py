@@ -61,9 +61,10 @@ def tile_slide_row(path, final, cfg, slide_id, mpp, normalizer) -> SlideResult:
     return res
 
 
-#: Settings that do not change what a store contains. Compression is lossless (the same pixels
-#: whichever codec) and each store names its codec in its metadata, so a cohort may mix them.
-_RUN_ONLY = ("threads", "verify_jpeg", "qc_overlay", "compression")
+#: Settings that do not change what a store contains. Lossless compression gives the same pixels
+#: whichever codec, and each store names its codec in its metadata, so a cohort may mix them; a
+#: lossy codec (and its quality) does change the tiles: see ``tile_identity`` in _complete_row.
+_RUN_ONLY = ("threads", "verify_jpeg", "qc_overlay", "compression", "quality")
 
 
 def _complete_row(final: Path, path: str, slide_id: str, cfg: TilingConfig) -> dict | None:
@@ -73,6 +74,7 @@ def _complete_row(final: Path, path: str, slide_id: str, cfg: TilingConfig) -> d
     with a reason saying how to proceed.
     """
     from tilewright.errors import ConfigError
+    from tilewright.store.compression import tile_identity
     from tilewright.store.reader import is_complete, open_store
 
     if not is_complete(final):
@@ -80,6 +82,9 @@ def _complete_row(final: Path, path: str, slide_id: str, cfg: TilingConfig) -> d
     a = open_store(final).attrs
     old, new = dict(a.get("config") or {}), cfg.to_dict()
     changed = sorted(k for k in set(old) | set(new) if k not in _RUN_ONLY and old.get(k) != new.get(k))
+    if tile_identity(old) != tile_identity(new):  # lossy tiles are not those of another codec family
+        changed.append("compression")
+        old, new = {**old, "compression": tile_identity(old)}, {**new, "compression": tile_identity(new)}
     if changed:
         detail = ", ".join(f"{k} {old.get(k)!r} -> {new.get(k)!r}" for k in changed[:4])
         raise ConfigError(f"a complete store made with other settings exists ({detail}); pass --overwrite "

@@ -14,7 +14,7 @@ from tilewright.errors import ConfigError
 __all__ = ["TilingConfig"]
 
 _NORMALIZERS = (None, "macenko", "reinhard")
-_COMPRESSIONS = ("lz4", "zstd", "zlib", "none")
+_COMPRESSIONS = ("lz4", "zstd", "zlib", "none", "webp", "jpeg")
 
 
 @dataclass
@@ -54,8 +54,11 @@ class TilingConfig:
         Region file, or folder with one file per slide id.
     min_region : float
         Minimum kept-class fraction of a tile's footprint.
-    compression : {"lz4", "zstd", "zlib", "none"}
-        Lossless compression of stored tiles (see :func:`tilewright.store.writer.compressor`).
+    compression : {"lz4", "zstd", "zlib", "none", "webp", "jpeg"}
+        Compression of stored tiles (see :mod:`tilewright.store.compression`): lossless Blosc lz4
+        (default), Blosc zstd, zlib, none or lossless WebP; or lossy JPEG, which changes the tiles.
+    quality : int
+        JPEG quality, 1-100 (default 90); used only with ``compression="jpeg"``.
     shard_tiles : int
         Tiles a shard file holds.
     block : int
@@ -91,6 +94,7 @@ class TilingConfig:
     regions: str | None = None
     min_region: float = 0.5
     compression: str = "lz4"
+    quality: int = 90
     shard_tiles: int = 64
     block: int = 2048
     stain_sample: int = 64
@@ -134,8 +138,12 @@ class TilingConfig:
                 self.normalizer = None
         if self.normalizer not in _NORMALIZERS:
             raise ConfigError(f"normalizer must be macenko, reinhard or none, got {self.normalizer!r}")
+        if isinstance(self.compression, str):
+            self.compression = self.compression.lower()
         if self.compression not in _COMPRESSIONS:
             raise ConfigError(f"compression must be one of {', '.join(_COMPRESSIONS)}, got {self.compression!r}")
+        if isinstance(self.quality, bool) or not isinstance(self.quality, int) or not 1 <= self.quality <= 100:
+            raise ConfigError(f"quality must be a whole number from 1 to 100, got {self.quality!r}")
         if isinstance(self.keep, str):
             self.keep = [k.strip() for k in self.keep.split(",") if k.strip()]
         if self.keep and not self.regions:

@@ -9,6 +9,8 @@ import numpy as np
 
 from tilewright.errors import IncompleteStoreError, StoreError
 from tilewright.store.layout import FORMAT_NAME
+from tilewright.store.shard_reader import ShardReader
+from tilewright.store.shards import ShardLayout
 
 __all__ = ["TileStore", "open_store", "is_complete"]
 
@@ -55,6 +57,8 @@ class TileStore:
         self.attrs = attrs
         self.tiles = self._group["tiles"]
         self._cache: dict[str, np.ndarray] = {}
+        layout = ShardLayout.of(self.tiles)
+        self._reader = ShardReader(layout) if layout is not None else None  # None: zarr reads
 
     def _small(self, name: str) -> np.ndarray:
         if name not in self._cache:
@@ -101,12 +105,46 @@ class TileStore:
         return int(self.tiles.shape[0])
 
     def __getitem__(self, index):
-        if isinstance(index, (int, np.integer)):
-            n = len(self)
+        """Tiles by position: ``store[i]`` (T, T, 3); ``store[a:b]``, ``store[int_array]`` (any order,
+        repeats allowed) or ``store[bool_mask]`` (k, T, T, 3), in the order asked; a tuple indexes
+        further into the tiles (``store[i, :16]``)."""
+        if index is Ellipsis or (isinstance(index, tuple) and not index):
+            return self[:]
+        if isinstance(index, tuple):
+            if any(part is Ellipsis for part in index):
+                return self[:][index]
+            head, rest = index[0], index[1:]
+            tiles = self[head]
+            return tiles[rest] if _is_int(head) else tiles[(slice(None),) + rest]
+        n = len(self)
+        if _is_int(index):
             if not -n <= index < n:
                 raise IndexError(f"tile {index} out of range for a store of {n} tiles")
-            return self.tiles[int(index) % n]
-        return self.tiles[index]
+            i = int(index) % n
+            return self._reader.read_one(i) if self._reader is not None else self.tiles[i]
+        if isinstance(index, slice):
+            if self._reader is None and index.step in (None, 1):
+                return self.tiles[index]
+            idx = np.arange(n)[index]
+        else:
+            idx = np.asarray(index)
+        if idx.dtype == bool:
+            if idx.shape != (n,):
+                raise IndexError(f"a boolean index needs {n} values, got shape {idx.shape}")
+            idx = np.flatnonzero(idx)
+        elif idx.size == 0:
+            idx = idx.astype(np.int64)
+        elif not np.issubdtype(idx.dtype, np.integer):
+            raise IndexError(f"tiles are indexed by ints, slices, int arrays or a boolean mask, not {idx.dtype}")
+        if idx.size and (idx.min() < -n or idx.max() >= n):
+            raise IndexError(f"tile indices out of range for a store of {n} tiles")
+        flat = np.where(idx < 0, idx + n, idx).reshape(-1).astype(np.int64)
+        if self._reader is not None:
+            tiles = self._reader.read(flat)
+        else:
+            tiles = self.tiles.get_orthogonal_selection((flat,)) if flat.size else \
+                np.empty((0,) + tuple(self.tiles.shape[1:]), np.uint8)
+        return tiles.reshape(idx.shape + tiles.shape[1:])
 
     def to_dask(self, chunk: int | None = None):
         """The tiles as a dask array (chunks of ``chunk`` tiles, default one shard)."""
@@ -125,6 +163,10 @@ class TileStore:
     def __repr__(self) -> str:
         return (f"TileStore({str(self.path)!r}, tiles={len(self)}, tile={self.tile_size}, "
                 f"mpp={self.attrs.get('mpp')})")
+
+
+def _is_int(x) -> bool:
+    return isinstance(x, (int, np.integer)) and not isinstance(x, (bool, np.bool_))
 
 
 def open_store(path: str | os.PathLike) -> TileStore:
