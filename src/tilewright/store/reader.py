@@ -146,13 +146,35 @@ class TileStore:
                 np.empty((0,) + tuple(self.tiles.shape[1:]), np.uint8)
         return tiles.reshape(idx.shape + tiles.shape[1:])
 
+    @property
+    def shape(self) -> tuple:
+        return tuple(int(d) for d in self.tiles.shape)
+
+    @property
+    def dtype(self):
+        return np.dtype(np.uint8)
+
+    @property
+    def ndim(self) -> int:
+        return 4
+
     def to_dask(self, chunk: int | None = None):
-        """The tiles as a dask array (chunks of ``chunk`` tiles, default one shard)."""
+        """The tiles as a lazy dask array, one chunk a shard file by default (or ``chunk`` tiles).
+
+        Each block is read by this store's own reader: a block that is a whole shard is one read
+        of its file. The graph carries only the store's path.
+        """
         import dask.array as da
+        from dask.base import tokenize
 
         shards = self.tiles.shards or self.tiles.chunks
-        k = int(chunk or shards[0])
-        return da.from_zarr(self.tiles, chunks=(k,) + tuple(self.tiles.shape[1:]))
+        k = max(1, int(chunk or shards[0]))
+        chunks = (k,) + tuple(self.tiles.shape[1:])
+        if self._reader is None:
+            return da.from_zarr(self.tiles, chunks=chunks)
+        name = "tilewright-tiles-" + tokenize(str(self.path.resolve()), self.attrs.get("created"), len(self), k)
+        return da.from_array(self, chunks=chunks, name=name, lock=False, fancy=False,
+                             meta=np.empty((0, 0, 0, 0), np.uint8))
 
     def __getstate__(self):
         return {"path": str(self.path)}
