@@ -7,8 +7,10 @@ many a shard; :class:`~tilewright.store.shards.ShardLayout`), so this reader doe
 
 - a shard's index (offset and length of each chunk) is read once, its CRC-32C checked, and kept
   (8 bytes a tile);
-- each chunk is one positioned read (``os.pread``) of exactly its bytes, decoded straight into the
-  output array, allocated once per call; chunks of one shard share one open file;
+- each chunk is one positioned read (``os.preadv``) of exactly its bytes into a buffer the thread
+  reuses (a fresh buffer per chunk would cost more than the read: allocations this large are
+  fresh pages from the kernel), decoded straight into the output array, allocated once per
+  call; chunks of one shard share one open file;
 - when a request covers most of a shard (a slice, a dask block), the shard file, index included,
   is read whole in one read and the chunks are decoded from memory.
 
@@ -25,6 +27,7 @@ References
 from __future__ import annotations
 
 import os
+import threading
 
 import numpy as np
 
@@ -50,6 +53,7 @@ class ShardReader:
         self._reset()
 
     def _reset(self) -> None:
+        self._local = threading.local()  # per-thread read buffer
         n, shard = self.layout.n, self.layout.shard
         n_shards = -(-n // shard) if n else 0
         self._loaded = np.zeros(n_shards, bool)
@@ -216,8 +220,12 @@ class ShardReader:
                 raise StoreError(f"shard file ends inside tile {t}; the store is damaged: re-run tile-out "
                                  "with --overwrite for this slide", path)
             return
-        data = os.pread(fd, length, offset)
-        self._decode(data, t, out, path, length)
+        scratch = getattr(self._local, "buffer", None)
+        if scratch is None or len(scratch) < length:
+            scratch = self._local.buffer = bytearray(max(length, 2 * out.nbytes))
+        data = memoryview(scratch)[:length]
+        got = os.preadv(fd, [data], offset)
+        self._decode(data[:got], t, out, path, length)
 
     def _chunk_from(self, whole, t: int, out: np.ndarray, path) -> None:
         data, start = whole
