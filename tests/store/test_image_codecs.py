@@ -48,7 +48,7 @@ def test_chunks_are_standard_jpeg_and_webp_files(tmp_path):
 
     meta = json.loads((jpeg / "tiles" / "zarr.json").read_text())["codecs"][0]  # the metadata as written
     assert meta["configuration"]["codecs"] == [
-        {"name": "tilewright.jpeg", "configuration": {"quality": 90, "subsampling": "420"}}]
+        {"name": "tilewright.jpeg", "configuration": {"quality": 90, "subsampling": "444"}}]
 
 
 def test_quality_changes_bytes_and_error(tmp_path):

@@ -66,7 +66,7 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--overwrite", action="store_true", help="re-tile slides whose store is already complete")
     g.add_argument("--compression", choices=["lz4", "zstd", "zlib", "none", "webp", "jpeg"],
                    help="tile compression (default lz4, lossless; zstd: ~12%% fewer bytes, ~3x the CPU; webp: "
-                        "lossless, ~half the bytes, slower; jpeg: lossy, ~11%% of the raw bytes at --quality 90)")
+                        "lossless, ~half the bytes, slower; jpeg: lossy, ~14%% of the raw bytes at --quality 90)")
     g.add_argument("--quality", type=int, help="JPEG quality 1-100 with --compression jpeg (default 90)")
     g.add_argument("--quiet", action="store_true", help="no progress output (the log file is still written)")
     return p

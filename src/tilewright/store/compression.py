@@ -7,7 +7,7 @@
 | ``"zlib"`` | lossless | ``bytes`` + gzip level 5 |
 | ``"none"`` | lossless | ``bytes`` |
 | ``"webp"`` | lossless | ``tilewright.webp`` (lossless WebP, fastest setting) |
-| ``"jpeg"`` | lossy | ``tilewright.jpeg`` (``quality`` 1-100, default 90; 4:2:0 chroma) |
+| ``"jpeg"`` | lossy | ``tilewright.jpeg`` (``quality`` 1-100, default 90; 4:4:4, no chroma subsampling) |
 
 Figures behind the choices are in ``benchmarks/PERFORMANCE.md`` (``benchmarks/compression.py``).
 Lossless codecs give the same pixels, so a cohort may mix them; a lossy codec changes the tiles,
