@@ -59,6 +59,10 @@ def test_labels_from_a_table_joined_on_slide_id_as_text(cohort):
         s = list(SLIDES).index(sid)
         np.testing.assert_array_equal(image.permute(1, 2, 0).numpy(), tiles[sid][info["tile"]])
         assert (info["y"], info["x"]) == (info["tile"] * 16 + s, info["tile"] * 32 + 7)  # yx written
+    batch = ds.__getitems__([20, 0, 20, 9, 1])  # what DataLoader calls: one read a slide, order kept
+    for index, (image, label, info) in zip([20, 0, 20, 9, 1], batch):
+        single = ds[index]
+        assert torch.equal(image, single[0]) and label == single[1] and info == single[2]
     as_frame = TileStoreDataset(paths, labels=pd.read_csv(meta, dtype={"slide_id": str}), missing="drop")
     as_dict = TileStoreDataset(paths, labels={k: v[1] for k, v in SLIDES.items() if v[1]}, missing="drop")
     assert as_frame.slide_labels == as_dict.slide_labels == ds.slide_labels == [1, 0, 1, 0, 1]

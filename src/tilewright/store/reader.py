@@ -32,10 +32,14 @@ def is_complete(path: str | os.PathLike) -> bool:
 class TileStore:
     """One slide's tiles, read lazily from a zarr v3 group.
 
-    ``len(store)`` tiles; ``store[i]`` is a (T, T, 3) uint8 tile (slices give (k, T, T, 3));
-    ``.tiles`` is the zarr array; ``.yx``, ``.yx_level0``, ``.tissue``, ``.sharpness`` are small
-    ndarrays; ``.attrs`` the provenance dictionary. Picklable (re-opens from its path), so it
-    can be handed to dask or DataLoader workers.
+    ``len(store)`` tiles; ``store[i]`` is a (T, T, 3) uint8 tile; ``store[a:b]``,
+    ``store[int_array]`` (any order, repeats allowed) and ``store[bool_mask]`` give (k, T, T, 3)
+    in the order asked. Tiles are read straight from the shard files
+    (:class:`~tilewright.store.shard_reader.ShardReader`: the shard index read once and kept, one
+    positioned read a tile, decoded into the output), or by zarr for a layout that reader does
+    not know. ``.tiles`` is the zarr array; ``.yx``, ``.yx_level0``, ``.tissue``,
+    ``.sharpness`` are small ndarrays; ``.attrs`` the provenance dictionary. Picklable (re-opens
+    from its path), so it can be handed to dask or DataLoader workers.
     """
 
     def __init__(self, path: str | os.PathLike):

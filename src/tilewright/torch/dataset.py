@@ -115,7 +115,22 @@ class TileStoreDataset:
 
     def __getitem__(self, index: int):
         s, t = self.locate(int(index))
-        tile = self.store(s)[t]
+        return self._item(s, t, self.store(s)[t])
+
+    def __getitems__(self, indices) -> list:
+        """Items of a whole batch (PyTorch's DataLoader calls this when present): the tiles of
+        each slide are read with one batched read of its store, then returned in the order asked."""
+        where = [self.locate(int(i)) for i in indices]
+        tiles: list = [None] * len(where)
+        by_slide: dict = {}
+        for k, (s, t) in enumerate(where):
+            by_slide.setdefault(s, []).append(k)
+        for s, ks in by_slide.items():
+            for k, tile in zip(ks, self.store(s)[[where[k][1] for k in ks]]):
+                tiles[k] = tile
+        return [self._item(s, t, tile) for (s, t), tile in zip(where, tiles)]
+
+    def _item(self, s: int, t: int, tile: np.ndarray):
         if self.augment is not None:
             tile = self.augment(tile)
         image = self.transform(tile) if self.transform is not None else to_tensor(tile)
