@@ -122,6 +122,8 @@ class ShardEncoder:
 
     def __init__(self, layout: ShardLayout):
         self.layout = layout
+        self.folder = layout.folder  # the array's folder and its shard-key function
+        self.key = layout.key
         self.shard = layout.shard
         self.codec = layout.codec
 
