@@ -169,3 +169,25 @@ def profiled_copy(path: Path, profile: bytes, name: str) -> Path:
         fh.write(struct.pack(bo + off_f, ifd))
     os.replace(tmp, out)
     return out
+
+
+def demo_tiles(n_per_site: int = 3, limit: int = 512):
+    """The demo cohort's tiles, as ``make demo`` makes them (0.5 µm/px, 256 px, Macenko; cached).
+
+    Returns a (k, 256, 256, 3) uint8 array of at most ``limit`` tiles, taken from every slide in
+    turn so that both invented sites are represented.
+    """
+    import numpy as np
+
+    import tilewright as tw
+    from tilewright.demo.cohort import write_demo_cohort
+
+    folder = ROOT / f"demo{n_per_site}"
+    slides, _ = write_demo_cohort(folder, n_per_site=n_per_site, log=lambda *a: None)
+    out = folder / "tiles"
+    if not (out / "manifest.csv").exists():
+        paths = sorted(str(p) for p in slides.rglob("*") if p.is_file())
+        tw.tile_cohort(paths, out, tw.TilingConfig(mpp=0.5, tile=256, normalizer="macenko"), progress=False)
+    stores = [s for s in tw.open_cohort(out).stores.values() if len(s)]
+    per = max(1, limit // len(stores))
+    return np.concatenate([s[: min(len(s), per)] for s in stores])[:limit]

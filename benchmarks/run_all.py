@@ -20,6 +20,10 @@ tile-out      tile_cohort (what the tile-out command runs) with the given worker
               overlay on, timed end to end (mask, plan, reads, normalization, store, manifest);
               "progress bar drawn": the same with tile-out's terminal display fed every event.
 
+Then, on the stores the lz4 and jpeg rows wrote: random reads against the chunk codec alone and
+zarr-python's own read (``store_reads.py``); and the codec table on the demo tiles: bytes,
+PSNR/SSIM against the lossless tile, encode/decode speed (``compression.py``).
+
 "source MP/s" counts the level-0 pixels behind the stored tiles (512 x 512 a tile). Every row runs
 once a round, ``--rounds`` (5) interleaved rounds, so load that drifts on a shared machine hits
 all rows alike; the table shows each row's fastest run (the slow hand loop runs in the first round
@@ -49,7 +53,9 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 import numpy as np  # noqa: E402
 
-from fixtures import bench_slide, peak_rss_mib_of, profiled_copy, slide_copies  # noqa: E402
+import compression  # noqa: E402
+import store_reads  # noqa: E402
+from fixtures import bench_slide, demo_tiles, peak_rss_mib_of, profiled_copy, slide_copies  # noqa: E402
 
 TILE, MPP = 256, 0.5
 CPU = [None]  # CPU seconds of this process during the last measurement (None: other processes worked)
@@ -279,6 +285,10 @@ def main(argv=None):
              out([main_slide], "mac2", mac_cfg, target=target), src_mp, "per-slide cost in a large cohort"),
             ("zstd", "tile-out, 1 worker (threads=2), compression=zstd",
              out([main_slide], "zstd", base.replace(compression="zstd")), src_mp, "smaller store, more CPU"),
+            ("jpeg", "tile-out, 1 worker (threads=2), compression=jpeg q90",
+             out([main_slide], "jpeg", base.replace(compression="jpeg", quality=90)), src_mp, "lossy, 4:4:4"),
+            ("webp", "tile-out, 1 worker (threads=2), compression=webp",
+             out([main_slide], "webp", base.replace(compression="webp")), src_mp, "lossless WebP"),
             ("in1", f"tile-out, 1 worker in-process (threads=1), {many} slides", out(copies, "in1", one),
              src_mp * many, "helper threads use a little of the 2nd core"),
             ("in2", f"tile-out, 1 worker in-process (threads=2), {many} slides", out(copies, "in2", base),
@@ -301,6 +311,11 @@ def main(argv=None):
                 results.setdefault(key, []).append(run())
         bytes_per_tile = store_bytes(results["tw:res"][0].store) / n
         zstd_bytes = store_bytes(results["zstd:res"][0].store) / n
+        codec_bytes = {k: store_bytes(results[k + ":res"][0].store) / n for k in ("jpeg", "webp")}
+        reads = {"lz4": store_reads.measure(results["tw:res"][0].store),
+                 "jpeg q90": store_reads.measure(results["jpeg:res"][0].store)}
+        demo = demo_tiles()
+        codec_rows = compression.measure(demo, compression.store_codecs())
         memory = []
         if not args.skip_memory:
             for _ in range(args.rounds):  # alternate the slides; the median is kept (heap layout varies)
@@ -341,7 +356,12 @@ def main(argv=None):
     print("-" * len(head))
     print(f"stored bytes per tile: default blosc-lz4 {bytes_per_tile:,.0f} "
           f"({100 * bytes_per_tile / (TILE * TILE * 3):.0f} % of raw {TILE * TILE * 3:,}); "
-          f"blosc-zstd {zstd_bytes:,.0f} ({100 * zstd_bytes / (TILE * TILE * 3):.0f} %)")
+          f"blosc-zstd {zstd_bytes:,.0f} ({100 * zstd_bytes / (TILE * TILE * 3):.0f} %); "
+          + "; ".join(f"{k} {v:,.0f} ({100 * v / (TILE * TILE * 3):.1f} %)" for k, v in codec_bytes.items()))
+    print()
+    read_aims = store_reads.print_table(reads, TILE * TILE * 3)
+    print()
+    compression.print_rows(codec_rows, len(demo))
     peak = {}
     for p, overlay, rss, k in memory:
         peak.setdefault((p, overlay), []).append(rss)
@@ -360,6 +380,7 @@ def main(argv=None):
         ("  the same on the RGB-JPEG copy", ratio("rgb", "rgbraw"), ">= 0.7", 0.7),
         ("colour management extra time (ICC), %", 100 * (ratio("tw", "icc") - 1), "<= 15", -15),
         ("Macenko extra time (target known), %", 100 * mac_cost, "<= 35", -35),
+        ("tile-out jpeg q90 / tile-out lz4", ratio("jpeg", "tw"), ">= 0.8", 0.8),
         ("progress display extra time, %", 100 * (ratio("tw", "shown") - 1), "< 2", -2),
         ("2 workers / 1 worker (1 thread each)", ratio("d2", "in1"), ">= 1.7", 1.7),
         ("  the same, both on dask", ratio("d2", "d1"), ">= 1.7", 1.7),
@@ -370,10 +391,14 @@ def main(argv=None):
         aims += [("peak RSS 60k-wide vs 20k-wide, %", 100 * (b_med / s_med - 1), "< 20", -20),
                  ("  the same without the QC overlay, %", 100 * (b_pl / s_pl - 1), "< 20", -20),
                  ("peak RSS 60k-wide (MiB)", b_med, "<= 1536", -1536)]
+    jpeg_row = next(r for r in codec_rows if "quality 90" in r["label"])
+    aims += [(f"jpeg q90 bytes, % of raw (PSNR {jpeg_row['psnr']:.1f} dB)", jpeg_row["pct"], "<= 15", -15),
+             ("jpeg q90 PSNR against the lossless tile, dB", jpeg_row["psnr"], ">= 40", 40)]
+    aims += [(label, value, f">= {aim}", aim) for label, value, aim in read_aims]
     print("aims: ratios are medians over the rounds of rates measured in the same round")
     for name, value, aim, limit in aims:
         ok = value >= limit if limit > 0 else value <= -limit
-        print(f"{name:<42}{value:>9.2f}   aim {aim:<8} {'met' if ok else 'MISSED'}")
+        print(f"{name:<46}{value:>9.2f}   aim {aim:<8} {'met' if ok else 'MISSED'}")
     load1 = os.getloadavg()
     print(f"\nload average (1 min) before {load0[0]:.1f}, after {load1[0]:.1f}; "
           f"total {time.perf_counter() - t_start:.0f} s")

@@ -85,8 +85,10 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--config", help="TOML file with tiling settings (options given here override it)")
     g.add_argument("--print-config", action="store_true", help="print the settings as TOML and exit")
     g.add_argument("--overwrite", action="store_true", help="re-tile slides whose store is already complete")
-    g.add_argument("--compression", choices=["lz4", "zstd", "zlib", "none"],
-                   help="lossless tile compression (default lz4; zstd: ~12%% fewer bytes, ~3x the CPU)")
+    g.add_argument("--compression", choices=["lz4", "zstd", "zlib", "none", "webp", "jpeg"],
+                   help="tile compression (default lz4, lossless; zstd: ~12%% fewer bytes, ~3x the CPU; webp: "
+                        "lossless, ~half the bytes, slower; jpeg: lossy, ~14%% of the raw bytes at --quality 90)")
+    g.add_argument("--quality", type=int, help="JPEG quality 1-100 with --compression jpeg (default 90)")
     g.add_argument("--quiet", action="store_true", help="no progress output (the log file is still written)")
     g.add_argument("--verbose", action="store_true",
                    help="the closing summary lists every slide (default: all up to 20 slides, else failures)")
@@ -100,7 +102,8 @@ _FIELDS = {"mpp": "mpp", "tile": "tile", "stride": "stride", "min_tissue": "min_
            "tissue_sensitivity": "tissue_sensitivity", "min_piece_um2": "min_piece_um2",
            "exclude_dark": "exclude_dark", "dark_od": "dark_od", "ink_margin_um": "ink_margin_um",
            "class_property": "class_property", "default_class": "default_class", "object_types": "object_types",
-           "colour_profile": "colour_profile"}
+           "colour_profile": "colour_profile",
+           "quality": "quality"}
 
 
 def config_from_args(args):

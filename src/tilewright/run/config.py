@@ -14,7 +14,7 @@ from tilewright.errors import ConfigError
 __all__ = ["TilingConfig"]
 
 _NORMALIZERS = (None, "macenko", "reinhard")
-_COMPRESSIONS = ("lz4", "zstd", "zlib", "none")
+_COMPRESSIONS = ("lz4", "zstd", "zlib", "none", "webp", "jpeg")
 _COLOUR_PROFILES = ("apply", "ignore")
 
 
@@ -77,8 +77,11 @@ class TilingConfig:
     object_types : list of str or None
         GeoJSON object types read (``objectType``/``object_type`` property); default
         annotations only, ``["all"]`` for every feature.
-    compression : {"lz4", "zstd", "zlib", "none"}
-        Lossless compression of stored tiles (see :func:`tilewright.store.writer.compressor`).
+    compression : {"lz4", "zstd", "zlib", "none", "webp", "jpeg"}
+        Compression of stored tiles (see :mod:`tilewright.store.compression`): lossless Blosc lz4
+        (default), Blosc zstd, zlib, none or lossless WebP; or lossy JPEG, which changes the tiles.
+    quality : int
+        JPEG quality, 1-100 (default 90); used only with ``compression="jpeg"``.
     shard_tiles : int
         Tiles a shard file holds.
     block : int
@@ -126,6 +129,7 @@ class TilingConfig:
     default_class: str | None = None
     object_types: list | None = None
     compression: str = "lz4"
+    quality: int = 90
     shard_tiles: int = 64
     block: int = 2048
     stain_sample: int = 64
@@ -176,10 +180,14 @@ class TilingConfig:
                 self.normalizer = None
         if self.normalizer not in _NORMALIZERS:
             raise ConfigError(f"normalizer must be macenko, reinhard or none, got {self.normalizer!r}")
+        if isinstance(self.compression, str):
+            self.compression = self.compression.lower()
         if self.compression not in _COMPRESSIONS:
             raise ConfigError(f"compression must be one of {', '.join(_COMPRESSIONS)}, got {self.compression!r}")
         if self.colour_profile not in _COLOUR_PROFILES:
             raise ConfigError(f"colour_profile must be apply or ignore, got {self.colour_profile!r}")
+        if isinstance(self.quality, bool) or not isinstance(self.quality, int) or not 1 <= self.quality <= 100:
+            raise ConfigError(f"quality must be a whole number from 1 to 100, got {self.quality!r}")
         self._validate_regions()
         if self.reference is not None and not isinstance(self.reference, (str, dict, os.PathLike)):
             raise ConfigError(f"reference must be an image path or a fitted normalizer dict, got {type(self.reference).__name__}")

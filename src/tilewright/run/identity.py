@@ -18,9 +18,11 @@ import os
 
 __all__ = ["RUN_ONLY", "run_identity", "store_identity", "identity_changes", "target_digest"]
 
-#: Settings that do not change what a store contains. Compression is lossless (the same pixels
-#: whichever codec) and each store names its codec in its metadata, so a cohort may mix them.
-RUN_ONLY = ("threads", "verify_jpeg", "qc_overlay", "compression")
+#: Settings that do not change what a store contains. Lossless compression gives the same pixels
+#: whichever codec, and each store names its codec in its metadata, so a cohort may mix them; a
+#: lossy codec and its quality do change the tiles: they count as the field ``compression``
+#: (``tile_identity``: "lossless" or "jpeg quality 90").
+RUN_ONLY = ("threads", "verify_jpeg", "qc_overlay", "compression", "quality")
 
 #: Field names (they appear in the messages of refused resumes).
 SOURCE_SIZE, SOURCE_DIGEST, LEVEL0_MPP, STAIN_TARGET = (
@@ -41,7 +43,11 @@ def target_digest(target) -> str | None:
 
 
 def _settings(config: dict) -> dict:
-    return {k: v for k, v in (config or {}).items() if k not in RUN_ONLY}
+    from tilewright.store.compression import tile_identity
+
+    out = {k: v for k, v in (config or {}).items() if k not in RUN_ONLY}
+    out["compression"] = tile_identity(config or {})
+    return out
 
 
 def run_identity(path, config, mpp: float | None, target) -> dict:

@@ -154,7 +154,8 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
             on_plan(len(plan), (config.tile * view.scale) ** 2 / 1e6)
         try:
             with StoreWriter(final, len(plan), config.tile, shard_tiles=config.shard_tiles,
-                             compression=config.compression, with_region=attrs["regions"] is not None) as writer, \
+                             compression=config.compression, quality=config.quality,
+                             with_region=attrs["regions"] is not None) as writer, \
                     ThreadPoolExecutor(2, thread_name_prefix="tilewright-aside") as pool:
                 # the slide's stain estimate is fitted while the first blocks are read and decoded
                 bind = (pool.submit(_bind_normalizer, view, plan, config, target, path, survey.glass)

@@ -9,6 +9,8 @@ import numpy as np
 
 from tilewright.errors import IncompleteStoreError, StoreError
 from tilewright.store.layout import FORMAT_NAME
+from tilewright.store.shard_reader import ShardReader
+from tilewright.store.shards import ShardLayout
 
 __all__ = ["TileStore", "open_store", "is_complete"]
 
@@ -30,10 +32,14 @@ def is_complete(path: str | os.PathLike) -> bool:
 class TileStore:
     """One slide's tiles, read lazily from a zarr v3 group.
 
-    ``len(store)`` tiles; ``store[i]`` is a (T, T, 3) uint8 tile (slices give (k, T, T, 3));
-    ``.tiles`` is the zarr array; ``.yx``, ``.yx_level0``, ``.tissue``, ``.sharpness`` are small
-    ndarrays; ``.attrs`` the provenance dictionary. Picklable (re-opens from its path), so it
-    can be handed to dask or DataLoader workers.
+    ``len(store)`` tiles; ``store[i]`` is a (T, T, 3) uint8 tile; ``store[a:b]``,
+    ``store[int_array]`` (any order, repeats allowed) and ``store[bool_mask]`` give (k, T, T, 3)
+    in the order asked. Tiles are read straight from the shard files
+    (:class:`~tilewright.store.shard_reader.ShardReader`: the shard index read once and kept, one
+    positioned read a tile, decoded into the output), or by zarr for a layout that reader does
+    not know. ``.tiles`` is the zarr array; ``.yx``, ``.yx_level0``, ``.tissue``,
+    ``.sharpness`` are small ndarrays; ``.attrs`` the provenance dictionary. Picklable (re-opens
+    from its path), so it can be handed to dask or DataLoader workers.
     """
 
     def __init__(self, path: str | os.PathLike):
@@ -55,6 +61,8 @@ class TileStore:
         self.attrs = attrs
         self.tiles = self._group["tiles"]
         self._cache: dict[str, np.ndarray] = {}
+        layout = ShardLayout.of(self.tiles)
+        self._reader = ShardReader(layout) if layout is not None else None  # None: zarr reads
 
     def _small(self, name: str) -> np.ndarray:
         if name not in self._cache:
@@ -101,20 +109,76 @@ class TileStore:
         return int(self.tiles.shape[0])
 
     def __getitem__(self, index):
-        if isinstance(index, (int, np.integer)):
-            n = len(self)
+        """Tiles by position: ``store[i]`` (T, T, 3); ``store[a:b]``, ``store[int_array]`` (any order,
+        repeats allowed) or ``store[bool_mask]`` (k, T, T, 3), in the order asked; a tuple indexes
+        further into the tiles (``store[i, :16]``)."""
+        if index is Ellipsis or (isinstance(index, tuple) and not index):
+            return self[:]
+        if isinstance(index, tuple):
+            if any(part is Ellipsis for part in index):
+                return self[:][index]
+            head, rest = index[0], index[1:]
+            tiles = self[head]
+            return tiles[rest] if _is_int(head) else tiles[(slice(None),) + rest]
+        n = len(self)
+        if _is_int(index):
             if not -n <= index < n:
                 raise IndexError(f"tile {index} out of range for a store of {n} tiles")
-            return self.tiles[int(index) % n]
-        return self.tiles[index]
+            i = int(index) % n
+            return self._reader.read_one(i) if self._reader is not None else self.tiles[i]
+        if isinstance(index, slice):
+            if self._reader is None and index.step in (None, 1):
+                return self.tiles[index]
+            idx = np.arange(n)[index]
+        else:
+            idx = np.asarray(index)
+        if idx.dtype == bool:
+            if idx.shape != (n,):
+                raise IndexError(f"a boolean index needs {n} values, got shape {idx.shape}")
+            idx = np.flatnonzero(idx)
+        elif idx.size == 0:
+            idx = idx.astype(np.int64)
+        elif not np.issubdtype(idx.dtype, np.integer):
+            raise IndexError(f"tiles are indexed by ints, slices, int arrays or a boolean mask, not {idx.dtype}")
+        if idx.size and (idx.min() < -n or idx.max() >= n):
+            raise IndexError(f"tile indices out of range for a store of {n} tiles")
+        flat = np.where(idx < 0, idx + n, idx).reshape(-1).astype(np.int64)
+        if self._reader is not None:
+            tiles = self._reader.read(flat)
+        else:
+            tiles = self.tiles.get_orthogonal_selection((flat,)) if flat.size else \
+                np.empty((0,) + tuple(self.tiles.shape[1:]), np.uint8)
+        return tiles.reshape(idx.shape + tiles.shape[1:])
+
+    @property
+    def shape(self) -> tuple:
+        return tuple(int(d) for d in self.tiles.shape)
+
+    @property
+    def dtype(self):
+        return np.dtype(np.uint8)
+
+    @property
+    def ndim(self) -> int:
+        return 4
 
     def to_dask(self, chunk: int | None = None):
-        """The tiles as a dask array (chunks of ``chunk`` tiles, default one shard)."""
+        """The tiles as a lazy dask array, one chunk a shard file by default (or ``chunk`` tiles).
+
+        Each block is read by this store's own reader: a block that is a whole shard is one read
+        of its file. The graph carries only the store's path.
+        """
         import dask.array as da
+        from dask.base import tokenize
 
         shards = self.tiles.shards or self.tiles.chunks
-        k = int(chunk or shards[0])
-        return da.from_zarr(self.tiles, chunks=(k,) + tuple(self.tiles.shape[1:]))
+        k = max(1, int(chunk or shards[0]))
+        chunks = (k,) + tuple(self.tiles.shape[1:])
+        if self._reader is None:
+            return da.from_zarr(self.tiles, chunks=chunks)
+        name = "tilewright-tiles-" + tokenize(str(self.path.resolve()), self.attrs.get("created"), len(self), k)
+        return da.from_array(self, chunks=chunks, name=name, lock=False, fancy=False,
+                             meta=np.empty((0, 0, 0, 0), np.uint8))
 
     def __getstate__(self):
         return {"path": str(self.path)}
@@ -125,6 +189,10 @@ class TileStore:
     def __repr__(self) -> str:
         return (f"TileStore({str(self.path)!r}, tiles={len(self)}, tile={self.tile_size}, "
                 f"mpp={self.attrs.get('mpp')})")
+
+
+def _is_int(x) -> bool:
+    return isinstance(x, (int, np.integer)) and not isinstance(x, (bool, np.bool_))
 
 
 def open_store(path: str | os.PathLike) -> TileStore:

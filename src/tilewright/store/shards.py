@@ -10,8 +10,10 @@ CRC-32C) is appended, as the ``sharding_indexed`` codec specifies. The array met
 written by zarr, and any zarr v3 reader reads the shards.
 
 Only the codec chains the tile writer creates are handled (``bytes`` then one of blosc, zstd,
-gzip or nothing; index ``bytes`` + ``crc32c`` at the end, on a local folder); for anything else
-:meth:`ShardEncoder.for_array` returns None and the caller lets zarr write.
+gzip or nothing, or one of tilewright's image codecs; index ``bytes`` + ``crc32c`` at the end, on
+a local folder; see :class:`~tilewright.store.chunk_codec.ChunkCodec`); for anything else
+:meth:`ShardEncoder.for_array` returns None and the caller lets zarr write. :class:`ShardLayout`
+is the part of the array metadata this needs; the shard reader uses it too.
 
 References
 ----------
@@ -27,28 +29,87 @@ from pathlib import Path
 
 import numpy as np
 
-__all__ = ["ShardEncoder"]
+from tilewright.store.chunk_codec import ChunkCodec
+
+__all__ = ["ShardLayout", "ShardEncoder"]
 
 _EMPTY = np.uint64(2**64 - 1)
-_SHUFFLE = {"noshuffle": 0, "shuffle": 1, "bitshuffle": 2}
 
 
-def _chunk_codec(spec: dict | None):
-    """A numcodecs codec (or None for no compression) for a zarr v3 bytes-to-bytes codec spec."""
-    if spec is None:
-        return None
-    import numcodecs
+class ShardLayout:
+    """Where and how a tile array's shards lie: the parts of its zarr v3 metadata the direct
+    shard writer and reader need.
 
-    name, cfg = spec["name"], dict(spec.get("configuration") or {})
-    if name == "blosc":
-        return numcodecs.Blosc(cname=cfg["cname"], clevel=int(cfg["clevel"]),
-                               shuffle=_SHUFFLE[cfg["shuffle"]], blocksize=int(cfg.get("blocksize", 0)),
-                               typesize=int(cfg.get("typesize", 1)))
-    if name == "zstd":
-        return numcodecs.Zstd(level=int(cfg.get("level", 0)), checksum=bool(cfg.get("checksum", False)))
-    if name == "gzip":
-        return numcodecs.GZip(level=int(cfg.get("level", 5)))
-    raise KeyError(name)
+    Attributes
+    ----------
+    folder : Path
+        The array's folder on the local file system.
+    key : callable
+        ``key(shard_coords) -> str``, the shard file's key (zarr's chunk key encoding).
+    shard : int
+        Tiles (chunks) a shard holds.
+    tile_shape : tuple
+        (T, T, C) of one tile.
+    n : int
+        Tiles in the array.
+    codec : ChunkCodec
+        Encoder and decoder of one chunk.
+    index_at_start : bool
+        The shard index precedes the chunks (``index_location: start``), else it ends the file.
+    index_crc : bool
+        The index is followed by its CRC-32C.
+    fill_value : int
+        Value of tiles whose chunk is absent.
+    """
+
+    def __init__(self, folder, key, shard, tile_shape, n, codec, index_at_start, index_crc, fill_value):
+        self.folder = Path(folder)
+        self.key = key
+        self.shard = int(shard)
+        self.tile_shape = tuple(int(s) for s in tile_shape)
+        self.n = int(n)
+        self.codec = codec
+        self.index_at_start = bool(index_at_start)
+        self.index_crc = bool(index_crc)
+        self.fill_value = int(fill_value)
+
+    @property
+    def index_size(self) -> int:
+        """Bytes of a shard's index (16 a chunk, plus 4 for its CRC-32C)."""
+        return 16 * self.shard + (4 if self.index_crc else 0)
+
+    def path(self, shard_index: int) -> Path:
+        return self.folder / self.key((int(shard_index),) + (0,) * len(self.tile_shape))
+
+    @classmethod
+    def of(cls, arr) -> "ShardLayout | None":
+        """The layout of a zarr v3 array of tiles, or None unless it is one tile a chunk, many a
+        shard, a chunk chain :class:`ChunkCodec` knows, on a local folder."""
+        try:
+            from zarr.storage import LocalStore
+
+            meta = arr.metadata
+            codecs = [c.to_dict() for c in meta.codecs]
+            store = arr.store_path.store
+            if len(codecs) != 1 or codecs[0]["name"] != "sharding_indexed" or not isinstance(store, LocalStore):
+                return None
+            cfg = codecs[0]["configuration"]
+            index = [c["name"] for c in cfg["index_codecs"]]
+            endian = (cfg["index_codecs"][0].get("configuration") or {}).get("endian", "little")
+            chunk = tuple(cfg["chunk_shape"])
+            where = cfg.get("index_location", "end")
+            if (where not in ("start", "end") or index not in (["bytes"], ["bytes", "crc32c"]) or endian != "little"
+                    or arr.dtype != np.uint8 or len(chunk) != 4 or chunk[0] != 1
+                    or tuple(chunk[1:]) != tuple(arr.shape[1:]) or tuple(arr.shards[1:]) != tuple(arr.shape[1:])):
+                return None
+            codec = ChunkCodec.for_chain(list(cfg["codecs"]))
+            if codec is None:
+                return None
+            fill = int(np.uint8(arr.fill_value if arr.fill_value is not None else 0))
+            return cls(Path(store.root) / arr.store_path.path, meta.encode_chunk_key, arr.shards[0],
+                       arr.shape[1:], arr.shape[0], codec, where == "start", len(index) == 2, fill)
+        except (AttributeError, KeyError, TypeError, ValueError, ImportError):
+            return None
 
 
 class ShardEncoder:
@@ -59,45 +120,25 @@ class ShardEncoder:
     given index (index entries past the chunks given are marked absent).
     """
 
-    def __init__(self, folder: Path, key, shard: int, codec):
-        self.folder = Path(folder)
-        self.key = key
-        self.shard = int(shard)
-        self.codec = codec
+    def __init__(self, layout: ShardLayout):
+        self.layout = layout
+        self.folder = layout.folder  # the array's folder and its shard-key function
+        self.key = layout.key
+        self.shard = layout.shard
+        self.codec = layout.codec
 
     @classmethod
     def for_array(cls, arr) -> "ShardEncoder | None":
         """An encoder for a zarr v3 array created by the tile writer, or None if its layout differs."""
-        try:
-            from zarr.storage import LocalStore
-
-            meta = arr.metadata
-            codecs = [c.to_dict() for c in meta.codecs]
-            store = arr.store_path.store
-            if len(codecs) != 1 or codecs[0]["name"] != "sharding_indexed" or not isinstance(store, LocalStore):
-                return None
-            cfg = codecs[0]["configuration"]
-            inner = list(cfg["codecs"])
-            index = [c["name"] for c in cfg["index_codecs"]]
-            endian = (cfg["index_codecs"][0].get("configuration") or {}).get("endian", "little")
-            chunk = tuple(cfg["chunk_shape"])
-            if (cfg.get("index_location", "end") != "end" or index != ["bytes", "crc32c"] or endian != "little"
-                    or arr.dtype != np.uint8 or len(chunk) != 4 or chunk[0] != 1
-                    or tuple(chunk[1:]) != tuple(arr.shape[1:]) or tuple(arr.shards[1:]) != tuple(arr.shape[1:])
-                    or not inner or inner[0]["name"] != "bytes" or len(inner) > 2):
-                return None
-            codec = _chunk_codec(inner[1] if len(inner) == 2 else None)
-            folder = Path(store.root) / arr.store_path.path
-            return cls(folder, meta.encode_chunk_key, arr.shards[0], codec)
-        except (AttributeError, KeyError, TypeError, ValueError, ImportError):
+        layout = ShardLayout.of(arr)
+        if layout is None or layout.index_at_start or not layout.index_crc:
             return None
+        return cls(layout)
 
     def encode_chunks(self, tiles: np.ndarray) -> list:
         """Each tile compressed with the array's codec (bytes objects, one a chunk)."""
         tiles = np.ascontiguousarray(tiles, dtype=np.uint8)
-        if self.codec is None:
-            return [t.tobytes() for t in tiles]
-        return [bytes(self.codec.encode(t)) for t in tiles]
+        return [self.codec.encode(t) for t in tiles]
 
     def shard_parts(self, chunks: list) -> list:
         """One shard file as buffers: the chunks, then the index and its CRC-32C."""
@@ -116,7 +157,7 @@ class ShardEncoder:
     def write_chunks(self, shard_index: int, chunks: list) -> None:
         """Write encoded chunks (at most ``shard``) as shard ``shard_index``, replacing any earlier file."""
         parts = self.shard_parts(chunks)
-        path = self.folder / self.key((int(shard_index), 0, 0, 0))
+        path = self.layout.path(shard_index)
         path.parent.mkdir(parents=True, exist_ok=True)
         fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_TRUNC | getattr(os, "O_BINARY", 0), 0o666)
         try:

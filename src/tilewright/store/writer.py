@@ -21,6 +21,7 @@ from pathlib import Path
 import numpy as np
 
 from tilewright.errors import StoreError
+from tilewright.store.compression import compressor, describe, tile_codecs  # noqa: F401 (compressor: public)
 from tilewright.store.layout import FORMAT_NAME, FORMAT_VERSION
 from tilewright.store.shards import ShardEncoder
 
@@ -28,29 +29,6 @@ __all__ = ["StoreWriter", "remove_partials", "compressor"]
 
 _PARTIAL = ".partial-"
 _MAP_CHUNK = 512  # chunk side of the slide-level pictures (thumbnail, masks)
-
-
-def compressor(name: str):
-    """zarr v3 bytes-to-bytes codec for a compression name ("lz4", "zstd", "zlib", "none").
-
-    "lz4" (the default) is Blosc-lz4 with bit shuffling: on H&E tiles about 2.8x faster than
-    "zstd" both to encode (written once) and to decode (read every training epoch), for about 12 %
-    more bytes. "zstd" is Blosc-zstd level 1 with bit shuffling, for when disk space matters
-    more: within 2 % of the bytes of level 3 at about a third of its CPU time. (Measured by
-    ``benchmarks/compression.py``.)
-    """
-    from zarr.codecs import BloscCodec, GzipCodec
-
-    name = (name or "none").lower()
-    if name == "zstd":
-        return BloscCodec(cname="zstd", clevel=1, shuffle="bitshuffle")
-    if name == "lz4":
-        return BloscCodec(cname="lz4", clevel=5, shuffle="bitshuffle")
-    if name == "zlib":
-        return GzipCodec(level=5)
-    if name == "none":
-        return None
-    raise StoreError(f"unknown compression {name!r}; use zstd, lz4, zlib or none")
 
 
 def remove_partials(final: str | os.PathLike) -> None:
@@ -81,13 +59,15 @@ class StoreWriter:
     shard_tiles : int
         Tiles a shard file holds.
     compression : str
-        See :func:`compressor`.
+        See :mod:`tilewright.store.compression`.
+    quality : int, optional
+        JPEG quality (1-100, default 90) when ``compression="jpeg"``.
     with_region : bool
         Whether to keep a per-tile ``region`` array.
     """
 
     def __init__(self, final, capacity: int, tile: int, *, shard_tiles: int = 64,
-                 compression: str = "lz4", with_region: bool = False):
+                 compression: str = "lz4", with_region: bool = False, quality: int | None = None):
         import zarr
 
         from tilewright.store.guard import GuardedLocalStore, WriteGuard
@@ -98,13 +78,15 @@ class StoreWriter:
         self.tile = int(tile)
         self.n = 0
         cap = max(int(capacity), 1)
+        codecs = tile_codecs(compression, quality)  # bad names raise before anything is created
+        self.codec = describe(compression, quality)
         try:
             self.final.parent.mkdir(parents=True, exist_ok=True)
             self.group = zarr.open_group(GuardedLocalStore(self.tmp, guard=self.guard), mode="w", zarr_format=3)
             shard = max(1, min(int(shard_tiles), cap))
             self.tiles = self.group.create_array(
                 "tiles", shape=(cap, tile, tile, 3), chunks=(1, tile, tile, 3),
-                shards=(shard, tile, tile, 3), dtype="uint8", compressors=compressor(compression),
+                shards=(shard, tile, tile, 3), dtype="uint8", **codecs,
                 fill_value=255, dimension_names=("tile", "y", "x", "rgb"))
             self._arrays = ["tiles"]  # every array created: each is checked before the rename
             self._meta = {"yx": [], "yx_level0": [], "tissue": [], "sharpness": [], "region": []}
@@ -256,6 +238,7 @@ class StoreWriter:
             if thumbnail is not None:
                 self.write_maps(thumbnail, mask, extra)
             full = dict(attrs)
+            full.setdefault("compression", self.codec)
             full.update(format=FORMAT_NAME, format_version=FORMAT_VERSION, n_tiles=int(self.n),
                         created=datetime.now(timezone.utc).isoformat(timespec="seconds"))
             full["complete"] = False
