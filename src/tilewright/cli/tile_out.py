@@ -34,6 +34,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("out", metavar="OUT", nargs="?", help="output folder")
     g = p.add_argument_group("tiling")
     g.add_argument("--mpp", type=float, help="target resolution in µm/px (default 0.5)")
+    g.add_argument("--mpp-tolerance", type=float,
+                   help="relative difference under which a pyramid level is used as is instead of "
+                        "resampled (default 0.005 = 0.5 %%; the store records the true µm/px)")
     g.add_argument("--tile", type=int, help="tile side in pixels (default 256)")
     g.add_argument("--stride", type=int, help="grid step in pixels (default: the tile side, no overlap)")
     g.add_argument("--min-tissue", type=float, help="minimum tissue fraction of a tile (default 0.5)")
@@ -73,7 +76,8 @@ def build_parser() -> argparse.ArgumentParser:
 _FIELDS = {"mpp": "mpp", "tile": "tile", "stride": "stride", "min_tissue": "min_tissue",
            "max_tiles": "max_tiles", "seed": "seed", "mask_mpp": "mask_mpp", "min_sharpness": "min_sharpness",
            "reference": "reference", "regions": "regions", "min_region": "min_region",
-           "threads": "threads", "compression": "compression", "verify_jpeg": "verify_jpeg"}
+           "threads": "threads", "compression": "compression", "verify_jpeg": "verify_jpeg",
+           "mpp_tolerance": "tolerance"}
 
 
 def config_from_args(args):
