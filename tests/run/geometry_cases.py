@@ -135,6 +135,15 @@ def tissue_truth(case: Case, yx: np.ndarray, tile: int, mpp: float) -> np.ndarra
     return area / (tile * mpp) ** 2
 
 
+def tissue_at(case: Case, y_um, x_um) -> np.ndarray:
+    """True where the point (broadcast ``y_um``, ``x_um``, in µm) lies in a rectangle."""
+    y_um, x_um = np.broadcast_arrays(np.asarray(y_um, float), np.asarray(x_um, float))
+    out = np.zeros(y_um.shape, bool)
+    for y0, x0, y1, x1 in case.rects:
+        out |= (y_um >= y0) & (y_um < y1) & (x_um >= x0) & (x_um < x1)
+    return out
+
+
 def expected_level(level_mpps, target: float, tolerance: float) -> tuple[int, float, float]:
     """(source level, true µm/px, source-level px per target px) by the documented rule: a level
     within ``tolerance`` of the target is used as is (the closest), else the coarsest finer one."""

@@ -22,7 +22,7 @@ import tifffile
 import tilewright as tw
 from tilewright.demo.pyramid import write_pyramid
 
-from .geometry_cases import area_resample, draw_case, expected_level, render, tissue_truth
+from .geometry_cases import area_resample, draw_case, expected_level, render, tissue_at, tissue_truth
 
 #: Seeds chosen so the draws cover: a level used as is (1, 16), targets 0.8 %, 3.2 % and 1.5 % off
 #: a level (5, 15, 17), a generic target (3); 40x (1, 3, 16) and 20x (5, 15, 17) scans; masks from
@@ -91,6 +91,11 @@ def test_stored_tiles_are_exact(slides, seed, backend, tmp_path, monkeypatch):
     # the stored pictures cover the slide at that µm/px: whole mask pixels inside level 0
     assert store.mask.shape[0] == math.floor(H0 / (mask_mpp / case.mpp0) + 1e-9)
     assert store.mask.shape[1] == math.floor(W0 / (mask_mpp / case.mpp0) + 1e-9)
+    # the stored mask is where the tissue is at that µm/px: mask pixel (i, j) against the
+    # rectangles at its centre ((i + 0.5) * mask_mpp µm); only boundary pixels may differ
+    mh, mw = store.mask.shape
+    truth_px = tissue_at(case, (np.arange(mh)[:, None] + 0.5) * mask_mpp, (np.arange(mw)[None, :] + 0.5) * mask_mpp)
+    assert (store.mask == truth_px).mean() > 0.97, case
 
     yx, T = store.yx, case.tile
     assert len(store) > 0, case
