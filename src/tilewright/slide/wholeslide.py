@@ -37,10 +37,10 @@ def level_downsample(h0: int, w0: int, h: int, w: int) -> float:
 
     When the level's size is the floor or ceiling of level 0's size over an integer ``k`` in
     both axes (how scanners build pyramids: only the last row and column are partial), the
-    downsample is ``k`` exactly. Otherwise it is the mean of the two axes' ratios; each axis's
-    own ratio then differs from it by less than half a level pixel over the whole slide, and a
-    view never reads past the level's own last row or column
-    (see :class:`~tilewright.slide.view.ResampledView`).
+    downsample is ``k`` exactly. Otherwise it is the mean of the two axes' ratios: for a level
+    whose size was rounded from a non-whole downsample, the position error this leaves is about
+    one level pixel at most, at the far edge of a slide up to 3:1; a view never reads past the
+    level's own last row or column (see :class:`~tilewright.slide.view.ResampledView`).
     """
     ratio = (w0 / w + h0 / h) / 2.0
     k = round(ratio)
