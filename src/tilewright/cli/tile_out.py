@@ -2,7 +2,7 @@
 
 Exit codes: 0 all slides succeeded (or were skipped), 3 some slides failed (each failure is a
 manifest row with a one-line reason), 2 bad arguments, 4 the output folder is in use by another
-run, 130 interrupted (a later run resumes).
+run, 130 interrupted by Ctrl-C and 143 stopped by SIGTERM (a later run resumes either).
 """
 
 from __future__ import annotations
@@ -20,6 +20,7 @@ __all__ = ["main", "build_parser"]
 log = logging.getLogger("tilewright")
 
 EXIT_OK, EXIT_BAD_ARGS, EXIT_SOME_FAILED, EXIT_LOCKED, EXIT_INTERRUPTED = 0, 2, 3, 4, 130
+EXIT_TERMINATED = 143
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -28,7 +29,7 @@ def build_parser() -> argparse.ArgumentParser:
         description="Cut harmonized, tissue-only (optionally stain-normalized) tiles from H&E slides "
                     "into one zarr store a slide. Research use only; not for diagnosis.",
         epilog="Exit codes: 0 all done, 3 some slides failed (see manifest.csv), 2 bad arguments, "
-               "4 output folder in use, 130 interrupted (run again to resume).")
+               "4 output folder in use, 130 interrupted / 143 terminated (run again to resume).")
     p.add_argument("source", metavar="SOURCE", nargs="?",
                    help="a slide file, a folder (searched recursively) or a .txt/.csv list of paths")
     p.add_argument("out", metavar="OUT", nargs="?", help="output folder")
@@ -51,11 +52,18 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--normalize", choices=["macenko", "reinhard", "none"],
                    help="stain normalization (default none)")
     g.add_argument("--reference", help="reference image (PNG/JPEG/TIFF) or fitted-normalizer JSON; without it "
-                                       "the cohort's own median stain is the target, saved as OUT/stain_target.json")
+                                       "the cohort's own median stain is the target, saved as OUT/stain_target.<method>.json")
     g = p.add_argument_group("regions")
     g.add_argument("--regions", help="region annotations: a GeoJSON/tile-table file, or a folder with one file a slide id")
-    g.add_argument("--keep", help="region classes to keep, comma separated")
+    g.add_argument("--keep", help="region classes to keep, comma separated (needed with --regions; case and "
+                                  "spacing ignored; a class a slide's file lacks covers nothing there)")
     g.add_argument("--min-region", type=float, help="minimum kept-class fraction of a tile (default 0.5)")
+    g.add_argument("--class-property", metavar="KEY",
+                   help="GeoJSON feature property holding the class (default: classification, class, label)")
+    g.add_argument("--default-class", metavar="NAME",
+                   help="class of GeoJSON features that have none (default: such features are skipped, warned)")
+    g.add_argument("--object-types", metavar="TYPES",
+                   help="GeoJSON object types to read, comma separated (default annotation; 'all' for every feature)")
     g = p.add_argument_group("input resolution")
     g.add_argument("--source-mpp", type=float, help="level-0 µm/px for slides that lack or misstate it")
     g.add_argument("--mpp-table", help="CSV with slide_id (or path) and mpp columns: per-slide level-0 µm/px")
@@ -77,6 +85,7 @@ _FIELDS = {"mpp": "mpp", "tile": "tile", "stride": "stride", "min_tissue": "min_
            "max_tiles": "max_tiles", "seed": "seed", "mask_mpp": "mask_mpp", "min_sharpness": "min_sharpness",
            "reference": "reference", "regions": "regions", "min_region": "min_region",
            "threads": "threads", "compression": "compression", "verify_jpeg": "verify_jpeg",
+           "class_property": "class_property", "default_class": "default_class", "object_types": "object_types",
            "mpp_tolerance": "tolerance"}
 
 
@@ -89,7 +98,7 @@ def config_from_args(args):
     if args.normalize is not None:
         changes["normalizer"] = None if args.normalize == "none" else args.normalize
     if args.keep is not None:
-        changes["keep"] = [k.strip() for k in args.keep.split(",") if k.strip()]
+        changes["keep"] = args.keep  # split on commas by TilingConfig
     if isinstance(changes.get("reference"), str) and changes["reference"].lower().endswith(".json"):
         import json
 
@@ -98,7 +107,11 @@ def config_from_args(args):
             changes["reference"] = json.loads(ref.read_text())
         except (OSError, ValueError) as exc:
             raise ConfigError(f"cannot read the fitted normalizer JSON ({exc})", ref) from None
-    return base.replace(**changes).validate()
+    config = base.replace(**changes).validate()
+    if args.min_region is not None and not config.keep:
+        raise ConfigError("--min-region needs --regions and --keep (it sets how much of a tile the kept classes "
+                          "must cover)")
+    return config
 
 
 def main(argv=None) -> int:
@@ -113,17 +126,21 @@ def main(argv=None) -> int:
             parser.error("SOURCE and OUT are required (or use --print-config)")
         if args.workers < 1:
             raise ConfigError("--workers must be at least 1")
-        return run(args, _share_cores(config, args))
+        from tilewright.interrupts import stop_on_signals
+
+        with stop_on_signals():  # SIGTERM (a batch scheduler's time limit) stops like Ctrl-C
+            return run(args, _share_cores(config, args))
     except ConfigError as exc:
         print(f"tile-out: error: {exc}", file=sys.stderr)
         return EXIT_BAD_ARGS
     except OutputLockedError as exc:
         print(f"tile-out: {exc}", file=sys.stderr)
         return EXIT_LOCKED
-    except KeyboardInterrupt:
-        print("\ntile-out: interrupted; finished stores are kept, run the same command again to resume",
-              file=sys.stderr)
-        return EXIT_INTERRUPTED
+    except KeyboardInterrupt as exc:
+        what = "stopped (SIGTERM)" if getattr(exc, "signum", None) == EXIT_TERMINATED - 128 else "interrupted"
+        print(f"\ntile-out: {what}; finished stores and the manifest are kept, run the same command again "
+              "to resume", file=sys.stderr)
+        return getattr(exc, "exit_code", EXIT_INTERRUPTED)
 
 
 def _share_cores(config, args):

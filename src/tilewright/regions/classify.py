@@ -67,6 +67,7 @@ def classify_regions(slide, fn, *, mpp=0.5, tile=128, batch=64, min_tissue=0.5, 
         Bad arguments, no tile with enough tissue, or ``fn`` returning the wrong shape, ids
         outside ``classes`` or probabilities outside [0, 1].
     """
+    from tilewright.regions.digest import table_digest
     from tilewright.regions.regionmap import RegionMap
     from tilewright.regions.tiletable import read_tile_table
 
@@ -97,7 +98,7 @@ def classify_regions(slide, fn, *, mpp=0.5, tile=128, batch=64, min_tissue=0.5, 
     provenance = {"kind": "classifier", "path": None if path is None else str(path),
                   "fn": getattr(fn, "__qualname__", None) or type(fn).__name__,
                   "tile": tile, "mpp": float(view.mpp), "n_tiles": int(len(yx)),
-                  "min_tissue": float(min_tissue), "soft": checked.soft}
+                  "min_tissue": float(min_tissue), "soft": checked.soft, "digest": table_digest(checked)}
     return RegionMap._from_checked_table(checked, provenance)
 
 

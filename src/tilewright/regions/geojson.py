@@ -11,15 +11,27 @@ origin at the top-left corner of the slide). What is accepted and what is repair
   asks parsers not to reject rings for their winding).
 * An unclosed ring is closed (repair, warned). A ring with fewer than three distinct positions
   has no area: a degenerate outer ring makes the polygon empty, a degenerate hole is dropped.
-* Self-intersecting or otherwise invalid polygons are repaired with ``shapely.make_valid`` and
-  only their polygonal parts are kept (repair, warned).
+* Invalid polygons (self-intersecting rings, holes crossing or outside their shell, holes
+  sharing an edge with it) are repaired ring by ring: the outer ring and each hole are made
+  valid on their own (``shapely.make_valid``, polygonal parts kept), then the holes are
+  subtracted (repair, warned with the area as drawn and after repair;
+  :mod:`tilewright.regions.repair`).
 * Parts outside the slide (negative coordinates, or beyond ``slide_shape`` when given) are
-  clipped away (repair, warned). A class lying entirely outside is left empty (warned).
+  clipped away (repair, warned with the share of area lost). A class lying entirely outside is
+  left empty (warned). When more than half of the annotated area lies outside the slide the file
+  is refused, with a hint when it reads as ``[y, x]``.
 * Features whose geometry is ``null`` or empty are skipped (warned). When nothing with area
   remains, a :class:`~tilewright.errors.RegionError` is raised.
+* A feature without a class property is skipped (warned), unless ``default_class`` is given;
+  a file in which no feature has a class is refused. A feature's ``name`` is not a class.
+* Features with an object-type property (``objectType``/``object_type``) other than
+  ``"annotation"`` (for example exported cell detections) are skipped (warned) unless their type
+  is asked for with ``object_types``. Features without that property are annotations.
+* Class names differing only in case or spacing are one class (warned; see
+  :mod:`tilewright.regions.classnames`).
 * Anything that cannot be read as the standard describes (non-numeric or non-finite
-  coordinates, a wrong nesting depth, an unknown geometry type, a missing class) raises
-  :class:`~tilewright.errors.RegionError` naming the file, the feature and the fix.
+  coordinates, a wrong nesting depth, an unknown geometry type, a class property that is not a
+  name) raises :class:`~tilewright.errors.RegionError` naming the file, the feature and the fix.
 
 References
 ----------
@@ -29,24 +41,26 @@ References
 
 from __future__ import annotations
 
-import json
-import math
-import numbers
 import warnings
 from dataclasses import dataclass, field
 
-import numpy as np
-
 from tilewright.errors import RegionError
+from tilewright.regions.classnames import ClassNames, class_key
+from tilewright.regions.geojson_structure import Where, features_of, is_number, load_json, polygons_of, short
+from tilewright.regions.repair import fit_to_slide, polygonal, repair_polygon
 
-__all__ = ["RegionRepairWarning", "DEFAULT_CLASS_PROPERTIES", "ParsedRegions", "read_geojson"]
+__all__ = ["RegionRepairWarning", "DEFAULT_CLASS_PROPERTIES", "OBJECT_TYPE_PROPERTIES", "ParsedRegions",
+           "read_geojson"]
 
-#: Feature properties searched, in order, for the class name when none is named.
-DEFAULT_CLASS_PROPERTIES = ("classification", "class", "label", "name")
+#: Feature properties searched, in order, for the class name when none is named. A feature's
+#: ``name`` is its own label (for example "Annotation 3"), not a class: it is never read as one
+#: unless named with ``class_property="name"``.
+DEFAULT_CLASS_PROPERTIES = ("classification", "class", "label")
+#: Feature properties that say what kind of object a feature is (an annotation, a detected cell ...).
+OBJECT_TYPE_PROPERTIES = ("objectType", "object_type")
+#: Object types read by default; features of other types (detections, cells, tiles) are skipped.
+DEFAULT_OBJECT_TYPES = ("annotation",)
 
-_AREA_TYPES = ("Polygon", "MultiPolygon")
-_NO_AREA_TYPES = ("Point", "MultiPoint", "LineString", "MultiLineString")
-_FAR = 1e15  # stands in for "no upper bound" when the slide size is unknown
 
 
 class RegionRepairWarning(UserWarning):
@@ -63,7 +77,7 @@ class ParsedRegions:
 
 
 def read_geojson(source, *, class_property=None, classes=None, default_class=None,
-                 slide_shape=None) -> ParsedRegions:
+                 slide_shape=None, object_types=None, warn=True) -> ParsedRegions:
     """Parse GeoJSON into per-class shapely geometries in level-0 pixel coordinates.
 
     Parameters
@@ -78,9 +92,17 @@ def read_geojson(source, *, class_property=None, classes=None, default_class=Non
         The allowed classes, in order. A feature of any other class raises RegionError.
         Default: every class found, in order of first appearance.
     default_class : str, optional
-        Class of features that carry no class property (default: such features are an error).
+        Class of features that carry no class property (default: such features are skipped,
+        with a warning).
     slide_shape : (int, int), optional
-        Level-0 (height, width) of the slide; parts beyond are clipped away.
+        Level-0 (height, width) of the slide; parts beyond are clipped away, and a file mostly
+        outside it is refused.
+    object_types : str or sequence of str, optional
+        Object types to read (``objectType``/``object_type`` property, compared ignoring case);
+        default ``("annotation",)``; ``"all"`` reads every feature.
+    warn : bool
+        Issue each repair as a :class:`RegionRepairWarning` (True) or only return it in
+        ``ParsedRegions.repairs`` (False; a cohort run logs them instead).
 
     Returns
     -------
@@ -89,8 +111,8 @@ def read_geojson(source, *, class_property=None, classes=None, default_class=Non
     Raises
     ------
     RegionError
-        Unreadable file, invalid JSON, malformed geometry, unknown or missing class, or no
-        geometry with area.
+        Unreadable file, invalid JSON, malformed geometry, a class not among ``classes``, no
+        classified geometry with area, or annotations lying mostly outside the slide.
 
     References
     ----------
@@ -98,209 +120,119 @@ def read_geojson(source, *, class_property=None, classes=None, default_class=Non
     """
     from tilewright.regions.source import parse_source
 
-    return parse_source(source, _load_json,
-                        lambda data, path: _parse(data, path, class_property, classes, default_class, slide_shape))
+    return parse_source(source, load_json,
+                        lambda data, path: _parse(data, path, class_property, classes, default_class, slide_shape,
+                                                   object_types, warn))
 
 
-def _parse(data, path, class_property, classes, default_class, slide_shape):
-    import shapely
-
-    where = _Where(path)
-    features = _features(data, where)
-    allowed = None if classes is None else [str(c) for c in classes]
-    if allowed is not None and len(set(allowed)) != len(allowed):
+def _parse(data, path, class_property, classes, default_class, slide_shape, object_types, warn):
+    where = Where(path)
+    features = features_of(data, where)
+    allowed = None if classes is None else [" ".join(str(c).split()) for c in classes]
+    if allowed is not None and len({class_key(c) for c in allowed}) != len(allowed):
         raise RegionError(f"classes= has duplicate names {allowed}; give each class once", path)
-
+    wanted = _wanted_objects(object_types)
+    names = ClassNames(allowed or ())
     parts: dict[str, list] = {name: [] for name in (allowed or [])}
-    skipped_empty, skipped_no_area, repaired, closed = [], [], [], []
-    for i, feature in enumerate(features):
-        geometry, properties = feature
-        polygons = _polygons_of(geometry, where.at(i), skipped_no_area, closed, i)
+    skipped_empty, skipped_no_area, closed, unclassified, named = [], [], [], [], []
+    other_objects: dict[str, list] = {}
+    repaired, drawn_area, repaired_area = [], 0.0, 0.0
+    for i, (geometry, properties) in enumerate(features):
+        kind = _object_type(properties)
+        if wanted is not None and kind is not None and kind.casefold() not in wanted:
+            other_objects.setdefault(kind, []).append(i)
+            continue
+        polygons = polygons_of(geometry, where.at(i), skipped_no_area, closed, i)
         if not polygons:
             skipped_empty.append(i)
             continue
         name = _class_of(properties, class_property, default_class, where.at(i))
+        if name is None:
+            unclassified.append(i)
+            if isinstance(properties.get("name"), str) and properties["name"].strip():
+                named.append((i, properties["name"].strip()))
+            continue
+        name = names.add(name)
         if allowed is not None and name not in allowed:
             raise RegionError(
                 f"{where.at(i)} has class {name!r}, which is not among the classes given "
                 f"({', '.join(allowed)}); add it to classes= or fix the feature's class property", path)
         for shell, holes in polygons:
-            poly = shapely.Polygon(shell, holes)
-            if not poly.is_valid:
-                poly = _polygonal(shapely.make_valid(poly))
-                repaired.append(i)
+            poly, drawn = repair_polygon(shell, holes)
+            if drawn is not None:
+                if i not in repaired:
+                    repaired.append(i)
+                drawn_area += drawn
+                repaired_area += poly.area
             if not poly.is_empty:
                 parts.setdefault(name, []).append(poly)
 
-    repairs = []
+    repairs = list(names.notes())
     if closed:
-        repairs.append(f"closed unclosed rings in features {_short(closed)}")
+        repairs.append(f"closed unclosed rings in features {short(closed)}")
     if repaired:
-        repairs.append(f"repaired invalid (e.g. self-intersecting) polygons with shapely.make_valid "
-                       f"in features {_short(repaired)}")
+        repairs.append(f"repaired invalid (e.g. self-intersecting) polygons in features {short(repaired)}: outer "
+                       f"rings and holes made valid separately (shapely.make_valid), holes subtracted; area as "
+                       f"drawn {drawn_area:,.0f} px² -> {repaired_area:,.0f} px² after repair "
+                       f"({_change(drawn_area, repaired_area)})")
     if skipped_no_area:
-        repairs.append(f"skipped point/line geometry without area in features {_short(skipped_no_area)}")
+        repairs.append(f"skipped point/line geometry without area in features {short(skipped_no_area)}")
     if skipped_empty:
-        repairs.append(f"skipped features with null or empty geometry: {_short(skipped_empty)}")
+        repairs.append(f"skipped features with null or empty geometry: {short(skipped_empty)}")
+    for kind, idx in other_objects.items():
+        repairs.append(f"ignored {len(idx)} feature(s) of object type {kind!r} (features {short(idx)}); object "
+                       f"types read: {', '.join(sorted(wanted))} (choose with --object-types / object_types=)")
+    if unclassified:
+        repairs.append(_unclassified_note(unclassified, named, class_property))
 
-    bound = (slide_shape[1], slide_shape[0]) if slide_shape is not None else (_FAR, _FAR)
-    frame = shapely.box(0.0, 0.0, float(bound[0]), float(bound[1]))
-    shapes, clipped, outside = {}, [], []
-    for name, polys in parts.items():
-        if not polys:
-            shapes[name] = shapely.MultiPolygon()
-            continue
-        union = _polygonal(shapely.union_all(polys))
-        inside = _polygonal(shapely.intersection(union, frame))
-        if inside.area < union.area * (1 - 1e-9):
-            (outside if inside.is_empty else clipped).append(name)
-        shapes[name] = inside
-    if clipped:
-        repairs.append(f"clipped parts outside the slide (x, y < 0"
-                       f"{'' if slide_shape is None else ' or beyond ' + str(tuple(slide_shape))}) "
-                       f"from classes {', '.join(map(repr, clipped))}")
-    if outside:
-        repairs.append(f"dropped classes lying entirely outside the slide: {', '.join(map(repr, outside))}")
+    shapes = {name: (polygonal(_union(polys)) if polys else _empty()) for name, polys in parts.items()}
     if all(g.is_empty for g in shapes.values()):
+        if unclassified and not any(parts.values()):
+            raise RegionError(
+                f"no feature with area has a class ({_unclassified_note(unclassified, named, class_property)})",
+                path)
         raise RegionError(
             "no polygon with area inside the slide (empty, null, point/line-only or out-of-bounds "
             "geometry); coordinates must be level-0 pixels [x, y] with Polygon or MultiPolygon "
             "geometry" + ("" if not repairs else "; " + "; ".join(repairs)), path)
-    for message in repairs:
-        warnings.warn(f"{path or 'GeoJSON'}: {message}", RegionRepairWarning, stacklevel=4)
+    shapes, clipped = fit_to_slide(shapes, slide_shape, path)
+    repairs.extend(clipped)
+    if all(g.is_empty for g in shapes.values()):
+        raise RegionError("no polygon with area inside the slide; " + "; ".join(repairs), path)
+    if warn:
+        for message in repairs:
+            warnings.warn(f"{path or 'GeoJSON'}: {message}", RegionRepairWarning, stacklevel=5)
     return ParsedRegions(shapes, len(features), repairs)
 
 
-class _Where:
-    """Names a feature in error messages."""
+def _union(polys):
+    import shapely
 
-    def __init__(self, path):
-        self.path = path
-
-    def at(self, i):
-        return f"feature {i}"
+    return polys[0] if len(polys) == 1 else shapely.union_all(polys)
 
 
-def _short(indices, limit=8):
-    shown = ", ".join(str(i) for i in indices[:limit])
-    return shown + (f" and {len(indices) - limit} more" if len(indices) > limit else "")
+def _empty():
+    import shapely
+
+    return shapely.MultiPolygon()
 
 
-def _load_json(path):
-    try:
-        with open(path, "rb") as fh:
-            raw = fh.read()
-    except FileNotFoundError:
-        raise RegionError("region file not found; check the path", path) from None
-    except OSError as exc:
-        raise RegionError(f"cannot read the region file ({exc.strerror or exc}); check permissions", path) from None
-    if not raw.strip():
-        raise RegionError("region file is empty; export the annotations again as GeoJSON", path)
-    try:
-        return json.loads(raw)
-    except (UnicodeDecodeError, json.JSONDecodeError) as exc:
-        where = f" at line {exc.lineno}, column {exc.colno}" if isinstance(exc, json.JSONDecodeError) else ""
-        raise RegionError(f"not valid JSON{where}; export the annotations as GeoJSON (RFC 7946)", path) from None
+def _change(before, after):
+    if before > 0:
+        return f"{(after - before) / before:+.1%}"
+    return f"{after - before:+,.0f} px²"
 
 
-def _features(data, where):
-    """Flatten the top-level object into a list of (geometry, properties)."""
-    if isinstance(data, (list, tuple)):
-        items = data
-    elif isinstance(data, dict):
-        kind = data.get("type")
-        if kind == "FeatureCollection":
-            items = data.get("features")
-            if not isinstance(items, (list, tuple)):
-                raise RegionError("FeatureCollection has no 'features' list; fix the file", where.path)
-        elif kind == "Feature" or kind in _AREA_TYPES + _NO_AREA_TYPES + ("GeometryCollection",):
-            items = [data]
-        else:
-            raise RegionError(f"top-level GeoJSON type {kind!r} is not a FeatureCollection, Feature or "
-                              f"geometry; export the annotations as GeoJSON (RFC 7946)", where.path)
-    else:
-        raise RegionError(f"top-level JSON value is a {type(data).__name__}, not a GeoJSON object; "
-                          f"export the annotations as GeoJSON (RFC 7946)", where.path)
-    out = []
-    for i, item in enumerate(items):
-        if not isinstance(item, dict):
-            raise RegionError(f"{where.at(i)} is a {type(item).__name__}, not a GeoJSON object", where.path)
-        if item.get("type") == "Feature":
-            props = item.get("properties")
-            if props is not None and not isinstance(props, dict):
-                raise RegionError(f"{where.at(i)} has 'properties' that is not an object", where.path)
-            out.append((item.get("geometry"), props or {}))
-        else:  # a bare geometry: no properties
-            out.append((item, {}))
-    return out
-
-
-def _polygons_of(geometry, where, no_area, closed, index, depth=0):
-    """(shell, [holes]) tuples of a geometry object; [] for null/empty/area-less geometry."""
-    if geometry is None:
-        return []
-    if not isinstance(geometry, dict):
-        raise RegionError(f"{where}: geometry is a {type(geometry).__name__}, not a GeoJSON geometry object")
-    kind = geometry.get("type")
-    if kind == "GeometryCollection":
-        members = geometry.get("geometries")
-        if members is None:
-            return []
-        if not isinstance(members, (list, tuple)) or depth > 16:
-            raise RegionError(f"{where}: GeometryCollection needs a 'geometries' list")
-        out = []
-        for member in members:
-            out.extend(_polygons_of(member, where, no_area, closed, index, depth + 1))
-        return out
-    if kind in _NO_AREA_TYPES:
-        no_area.append(index)
-        return []
-    if kind not in _AREA_TYPES:
-        raise RegionError(f"{where}: unknown geometry type {kind!r}; use Polygon or MultiPolygon (RFC 7946)")
-    coords = geometry.get("coordinates")
-    if coords is None or (isinstance(coords, (list, tuple)) and not coords):
-        return []
-    if not isinstance(coords, (list, tuple)):
-        raise RegionError(f"{where}: {kind} coordinates must be a list")
-    polygons = [coords] if kind == "Polygon" else coords
-    out = []
-    for polygon in polygons:
-        if not isinstance(polygon, (list, tuple)):
-            raise RegionError(f"{where}: {kind} coordinates nest too shallowly; a Polygon is a list of "
-                              "rings, each a list of [x, y] positions")
-        if not polygon:
-            continue
-        rings = [_ring(r, where, closed, index) for r in polygon]
-        if rings[0] is None:  # degenerate outer ring: no area
-            continue
-        out.append((rings[0], [r for r in rings[1:] if r is not None]))
-    return out
-
-
-def _ring(ring, where, closed, index):
-    """An (M, 2) float array of a linear ring, closed; None when it has no area."""
-    if not isinstance(ring, (list, tuple)):
-        raise RegionError(f"{where}: a ring must be a list of [x, y] positions")
-    pts = []
-    for pos in ring:
-        if not isinstance(pos, (list, tuple)) or len(pos) < 2 or not all(_is_number(v) for v in pos[:2]):
-            raise RegionError(f"{where}: position {pos!r} is not [x, y] numbers; rings are lists of "
-                              "[x, y] positions in level-0 pixels")
-        x, y = float(pos[0]), float(pos[1])
-        if not (math.isfinite(x) and math.isfinite(y)):
-            raise RegionError(f"{where}: position {pos!r} is not finite")
-        pts.append((x, y))
-    if len(set(pts)) < 3:
-        return None
-    if pts[0] != pts[-1]:
-        pts.append(pts[0])
-        if index not in closed:
-            closed.append(index)
-    return np.asarray(pts, dtype=np.float64)
-
-
-def _is_number(v):
-    return isinstance(v, numbers.Real) and not isinstance(v, (bool, np.bool_))
+def _unclassified_note(indices, named, class_property):
+    keys = (class_property,) if class_property is not None else DEFAULT_CLASS_PROPERTIES
+    note = (f"skipped {len(indices)} feature(s) without a class property ({' / '.join(map(repr, keys))}): "
+            f"features {short(indices)}; name the class property with --class-property / class_property=, "
+            "or give unclassified features a class with --default-class / default_class=")
+    if named and class_property is None:
+        i, label = named[0]
+        note += (f" (feature {i} has a 'name', {label!r}, which is not taken as a class; use "
+                 "--class-property name to read names as classes)")
+    return note
 
 
 def _class_of(properties, class_property, default_class, where):
@@ -310,31 +242,38 @@ def _class_of(properties, class_property, default_class, where):
             value = properties[key]
             if isinstance(value, dict):
                 value = value.get("name")
-            if isinstance(value, str) and value.strip():
+            if value is None or (isinstance(value, str) and not value.strip()):
+                continue  # a blank class: unclassified
+            if isinstance(value, str):
                 return value.strip()
-            if _is_number(value):
+            if is_number(value):
                 return str(int(value)) if float(value).is_integer() else str(value)
             raise RegionError(f"{where}: class property {key!r} is {properties[key]!r}; give a class name "
                               "(a string, or an object with a 'name')")
-    if default_class is not None:
-        return str(default_class)
-    raise RegionError(f"{where} has no class property ({' / '.join(map(repr, keys))}); add one to each "
-                      "feature, name the property with class_property=, or pass default_class=")
+    if default_class is not None and str(default_class).strip():
+        return str(default_class).strip()
+    return None
 
 
-def _polygonal(geom):
-    """Only the polygonal parts of a geometry, as a Polygon or MultiPolygon (maybe empty)."""
-    import shapely
+def _object_type(properties):
+    """The feature's object type (a string), or None when it does not say."""
+    for key in OBJECT_TYPE_PROPERTIES:
+        value = properties.get(key)
+        if isinstance(value, str) and value.strip():
+            return value.strip()
+    return None
 
-    if geom.is_empty:
-        return shapely.MultiPolygon()
-    kind = geom.geom_type
-    if kind in _AREA_TYPES:
-        return geom
-    if kind == "GeometryCollection":
-        polys = []
-        for part in geom.geoms:
-            part = _polygonal(part)
-            polys.extend(part.geoms if part.geom_type == "MultiPolygon" else [part] if not part.is_empty else [])
-        return shapely.MultiPolygon(polys) if polys else shapely.MultiPolygon()
-    return shapely.MultiPolygon()
+
+def _wanted_objects(object_types):
+    """Case-folded object types to read, or None for every feature."""
+    if object_types is None:
+        return {t.casefold() for t in DEFAULT_OBJECT_TYPES}
+    if isinstance(object_types, str):
+        object_types = object_types.split(",")
+    wanted = {str(t).strip().casefold() for t in object_types if str(t).strip()}
+    if "all" in wanted:
+        return None
+    if not wanted:
+        raise RegionError("object_types= is empty; name the object types to read (for example 'annotation') "
+                          "or 'all'")
+    return wanted

@@ -60,7 +60,8 @@ class RegionMap:
     """
 
     def __init__(self, classes, *, kind, provenance, shapes=None, level0_mpp=None,
-                 labels=None, label_values=None, coverage=None, raster_mpp=None, table=None):
+                 labels=None, label_values=None, coverage=None, raster_mpp=None, table=None,
+                 raster_origin=(0.0, 0.0)):
         self._classes = tuple(classes)
         self._kind = kind
         self._provenance = dict(provenance)
@@ -70,13 +71,15 @@ class RegionMap:
         self._label_values = label_values
         self._coverage = coverage
         self._raster_mpp = raster_mpp
+        self._raster_origin = np.asarray(raster_origin, dtype=np.float64)  # (y, x) µm of the raster's corner
         self._table = table
         self._cache = {}  # keep-set -> PolygonCoverage or summed-area table (per instance)
+        self._warned = set()  # absent keep-sets already warned about
 
     # construction ---------------------------------------------------------------------------
     @classmethod
     def from_geojson(cls, source, *, mpp=None, class_property=None, classes=None, default_class=None,
-                     slide_shape=None) -> "RegionMap":
+                     slide_shape=None, object_types=None) -> "RegionMap":
         """Regions from GeoJSON polygons in level-0 pixel coordinates.
 
         Parameters
@@ -90,16 +93,22 @@ class RegionMap:
             may instead be bound later with :meth:`with_mpp` (``regions.with_mpp(slide.mpp)``).
         class_property : str, optional
             Feature property holding the class name; by default the first present of
-            ``"classification"``, ``"class"``, ``"label"``, ``"name"``. Its value is a string, a
-            number, or an object with a ``"name"`` member.
+            ``"classification"``, ``"class"``, ``"label"`` (a feature's ``"name"`` is not a class
+            unless named here). Its value is a string, a number, or an object with a ``"name"``
+            member. Names differing only in case or spacing are one class.
         classes : sequence of str, optional
             Allowed classes in order; a feature of another class raises RegionError.
             Default: every class found, in order of first appearance.
         default_class : str, optional
-            Class of features without a class property (default: that is an error).
+            Class of features without a class property (default: they are skipped, warned).
         slide_shape : (int, int), optional
-            Level-0 (height, width); polygon parts beyond it are clipped away with a warning.
-            Parts at negative coordinates are always clipped.
+            Level-0 (height, width); polygon parts beyond it are clipped away with a warning,
+            and a file with more than half of its area outside is refused. Parts at negative
+            coordinates are always clipped.
+        object_types : str or sequence of str, optional
+            Object types to read from an ``objectType``/``object_type`` feature property;
+            default ``("annotation",)`` (detections and other objects are skipped, warned);
+            ``"all"`` reads every feature.
 
         Returns
         -------
@@ -114,21 +123,28 @@ class RegionMap:
         Warns
         -----
         RegionRepairWarning
-            For each documented repair: unclosed rings closed, self-intersecting polygons made
-            valid (``shapely.make_valid``, polygonal parts kept), out-of-bounds parts clipped,
-            null/empty/point/line geometry skipped.
+            For each documented repair: unclosed rings closed, invalid polygons repaired ring by
+            ring (area as drawn and after repair reported), out-of-bounds parts clipped,
+            null/empty/point/line geometry, unclassified features and other object types
+            skipped, class spellings merged (see :mod:`tilewright.regions.geojson`).
 
         References
         ----------
         .. [1] H. Butler et al., "The GeoJSON Format", IETF RFC 7946, 2016.
         """
+        return cls._geojson(source, mpp=mpp, class_property=class_property, classes=classes,
+                            default_class=default_class, slide_shape=slide_shape, object_types=object_types)
+
+    @classmethod
+    def _geojson(cls, source, *, mpp=None, warn=True, **options) -> "RegionMap":
+        from tilewright.regions.digest import file_digest, json_digest
         from tilewright.regions.geojson import read_geojson
 
-        parsed = read_geojson(source, class_property=class_property, classes=classes,
-                              default_class=default_class, slide_shape=slide_shape)
+        parsed = read_geojson(source, warn=warn, **options)
         path = os.fspath(source) if isinstance(source, (str, os.PathLike)) else None
         provenance = {"kind": "geojson", "path": path, "n_features": parsed.n_features,
-                      "repairs": list(parsed.repairs)}
+                      "repairs": list(parsed.repairs),
+                      "digest": file_digest(path) if path is not None else json_digest(source)}
         return cls(tuple(parsed.shapes), kind="geojson", provenance=provenance, shapes=parsed.shapes,
                    level0_mpp=mpp)
 
@@ -157,28 +173,10 @@ class RegionMap:
         RegionError
             Labels not a 2-D integer image, bad ``mpp`` or empty ``classes``.
         """
-        labels = np.asarray(labels)
-        if labels.ndim != 2 or labels.size == 0:
-            raise RegionError(f"labels must be a non-empty 2-D image, got shape {labels.shape}")
-        if labels.dtype == bool:
-            labels = labels.astype(np.uint8)
-        if not np.issubdtype(labels.dtype, np.integer):
-            raise RegionError(f"labels must hold integers (class ids), got dtype {labels.dtype}")
+        from tilewright.regions.labels import label_classes
+
+        labels, values = label_classes(labels, classes)
         mpp = _positive(mpp, "mpp")
-        if isinstance(classes, dict):
-            try:
-                pairs = [(int(v), str(n)) for v, n in classes.items()]
-            except (TypeError, ValueError):
-                raise RegionError("classes dict keys must be integer label values") from None
-        elif isinstance(classes, (list, tuple)):
-            pairs = [(v, str(n)) for v, n in enumerate(classes)]
-        else:
-            raise RegionError("classes must be a list of names (label 0, 1, ...) or a dict {label: name}")
-        if not pairs:
-            raise RegionError("classes is empty; name at least one label value")
-        values: dict[str, list] = {}
-        for v, name in pairs:
-            values.setdefault(name, []).append(v)
         provenance = {"kind": "raster", "path": None, "mpp": mpp, "shape": list(labels.shape)}
         return cls(tuple(values), kind="raster", provenance=provenance, labels=labels,
                    label_values={k: tuple(v) for k, v in values.items()}, raster_mpp=mpp)
@@ -214,17 +212,19 @@ class RegionMap:
         """
         from tilewright.regions.tiletable import read_tile_table
 
+        from tilewright.regions.digest import table_digest
+
         checked = read_tile_table(table, tile, mpp, classes=classes, soft=soft)
         provenance = {"kind": "tiles", "path": checked.path, "tile": checked.tile, "mpp": checked.mpp,
-                      "n_tiles": int(len(checked.yx)), "soft": checked.soft}
+                      "n_tiles": int(len(checked.yx)), "soft": checked.soft, "digest": table_digest(checked)}
         return cls._from_checked_table(checked, provenance)
 
     @classmethod
     def _from_checked_table(cls, checked, provenance) -> "RegionMap":
-        coverage, raster_mpp = checked.coverage()
+        coverage, raster_mpp, origin = checked.coverage()
         return cls(checked.classes, kind=provenance["kind"], provenance=provenance,
                    coverage=dict(zip(checked.classes, coverage)), raster_mpp=raster_mpp,
-                   table=checked.frame())
+                   table=checked.frame(), raster_origin=origin)
 
     def with_mpp(self, level0_mpp: float) -> "RegionMap":
         """A copy bound to the slide's level-0 µm/px (needed by polygon maps; no-op otherwise).
@@ -258,29 +258,38 @@ class RegionMap:
     def table(self):
         return None if self._table is None else self._table.copy()
 
+    def present(self, keep) -> tuple:
+        """``(present, absent)``: the kept classes these regions have (spelled as in
+        :attr:`classes`) and the kept names they lack (covering nothing). Names match ignoring
+        case and spacing; a string is split on commas (:func:`~tilewright.regions.classnames.match_keep`).
+        """
+        from tilewright.regions.classnames import match_keep
+
+        return match_keep(self._classes, keep, self._provenance.get("path"))
+
     def resolve(self, keep) -> tuple:
-        """Check class names: a name, a comma-separated string or a list -> tuple of known names.
+        """The kept classes these regions have; absent ones cover nothing and are warned once.
 
         Raises
         ------
         RegionError
-            Empty selection or a name that is not one of :attr:`classes`.
+            Empty selection, or none of the kept names is one of :attr:`classes`.
         """
-        if isinstance(keep, str):
-            names = [keep] if keep in self._classes else [k.strip() for k in keep.split(",") if k.strip()]
-        else:
-            try:
-                names = [str(k) for k in keep]
-            except TypeError:
-                raise RegionError(f"keep must be a class name or a list of names, got {keep!r}") from None
-        if not names:
-            raise RegionError(f"no class chosen to keep; choose among {', '.join(self._classes)}",
-                              self._provenance.get("path"))
-        unknown = [n for n in names if n not in self._classes]
-        if unknown:
-            raise RegionError(f"unknown class(es) {', '.join(map(repr, unknown))}; the regions have "
-                              f"{', '.join(map(repr, self._classes))}", self._provenance.get("path"))
-        return tuple(dict.fromkeys(names))
+        from tilewright.regions.classnames import none_kept
+
+        present, absent = self.present(keep)
+        if not present:
+            raise none_kept(absent, self._classes, self._provenance.get("path"))
+        if absent and absent not in self._warned:
+            import warnings
+
+            from tilewright.regions.geojson import RegionRepairWarning
+
+            self._warned.add(absent)
+            warnings.warn(f"{self._provenance.get('path') or 'regions'}: kept class(es) "
+                          f"{', '.join(map(repr, absent))} absent; they cover nothing here",
+                          RegionRepairWarning, stacklevel=3)
+        return present
 
     def fractions(self, keep, yx, h, w, mpp) -> np.ndarray:
         """Fraction of each box inside the union of the classes in ``keep``.
@@ -288,7 +297,9 @@ class RegionMap:
         Parameters
         ----------
         keep : str or sequence of str
-            Class name(s) (a comma-separated string is split).
+            Class name(s) (a comma-separated string is split; names match ignoring case and
+            spacing). Kept names these regions lack cover nothing (warned once); when none of
+            them is here, RegionError.
         yx : array_like (N, 2) or (2,)
             Top-left corners of the boxes in pixels at ``mpp``.
         h, w : float
@@ -320,7 +331,7 @@ class RegionMap:
             return self._polygon_fractions(names, yx, h, w, mpp)
         from tilewright.tissue.raster import box_fractions
 
-        return box_fractions(self._sat(names), self._raster_mpp, yx, h, w, mpp)
+        return box_fractions(self._sat(names), self._raster_mpp, yx - self._raster_origin / mpp, h, w, mpp)
 
     def fraction(self, cls, y, x, h, w, mpp) -> float:
         """Fraction of one box (pixels at ``mpp``, top-left ``(y, x)``) inside the class(es) ``cls``."""

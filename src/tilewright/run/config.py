@@ -52,11 +52,21 @@ class TilingConfig:
     exclude_ink, exclude_dark : bool
         Tissue-mask artifact filters.
     keep : list of str or None
-        Region classes to keep (requires regions).
+        Region classes to keep (requires regions; a string is split on commas). Names match
+        the file's classes ignoring case and spacing; a kept class a slide's file lacks covers
+        nothing there (warned), and a slide whose file has none of them fails.
     regions : str or None
-        Region file, or folder with one file per slide id.
+        Region file, or folder with one file per slide id (requires keep).
     min_region : float
         Minimum kept-class fraction of a tile's footprint.
+    class_property : str or None
+        GeoJSON feature property holding the class (default: ``classification``, ``class``,
+        ``label``; a feature's ``name`` only when named here).
+    default_class : str or None
+        Class of GeoJSON features without one (default: such features are skipped, warned).
+    object_types : list of str or None
+        GeoJSON object types read (``objectType``/``object_type`` property); default
+        annotations only, ``["all"]`` for every feature.
     compression : {"lz4", "zstd", "zlib", "none"}
         Lossless compression of stored tiles (see :func:`tilewright.store.writer.compressor`).
     shard_tiles : int
@@ -93,6 +103,9 @@ class TilingConfig:
     keep: list | None = None
     regions: str | None = None
     min_region: float = 0.5
+    class_property: str | None = None
+    default_class: str | None = None
+    object_types: list | None = None
     compression: str = "lz4"
     shard_tiles: int = 64
     block: int = 2048
@@ -139,15 +152,30 @@ class TilingConfig:
             raise ConfigError(f"normalizer must be macenko, reinhard or none, got {self.normalizer!r}")
         if self.compression not in _COMPRESSIONS:
             raise ConfigError(f"compression must be one of {', '.join(_COMPRESSIONS)}, got {self.compression!r}")
-        if isinstance(self.keep, str):
-            self.keep = [k.strip() for k in self.keep.split(",") if k.strip()]
-        if self.keep and not self.regions:
-            raise ConfigError("keep= needs regions= (a region file or folder)")
+        self._validate_regions()
         if self.reference is not None and not isinstance(self.reference, (str, dict, os.PathLike)):
             raise ConfigError(f"reference must be an image path or a fitted normalizer dict, got {type(self.reference).__name__}")
         if isinstance(self.reference, os.PathLike):
             self.reference = os.fspath(self.reference)
         return self
+
+    def _validate_regions(self):
+        from tilewright.regions.classnames import keep_names
+
+        if self.keep is not None:
+            if not isinstance(self.keep, (str, list, tuple)):
+                raise ConfigError(f"keep must be class names (a list or a comma-separated string), got {self.keep!r}")
+            self.keep = list(keep_names(self.keep)) or None
+        if isinstance(self.object_types, str):
+            self.object_types = [t.strip() for t in self.object_types.split(",") if t.strip()] or None
+        if self.keep and not self.regions:
+            raise ConfigError("keep= needs regions= (a region file or folder)")
+        if self.regions and not self.keep:
+            raise ConfigError("regions= needs keep= (the region classes whose tiles to keep, e.g. keep=['tumour']); "
+                              "without it the regions would be ignored")
+        for name in ("class_property", "default_class", "object_types"):
+            if getattr(self, name) is not None and not self.regions:
+                raise ConfigError(f"{name}= reads region files: it needs regions= and keep=")
 
     @property
     def step(self) -> int:

@@ -13,6 +13,7 @@ import numpy as np
 
 from tilewright.errors import StainEstimationError, TilewrightError
 from tilewright.run.config import TilingConfig
+from tilewright.run.identity import target_digest
 from tilewright.store.layout import slide_ids
 from tilewright.store.writer import StoreWriter, remove_partials
 
@@ -56,7 +57,7 @@ def _tile_arrays(view, plan, config, bind, writer, progress):
     min_sharp = config.min_sharpness
 
     def prepare(tiles):
-        bound = None if bind is None else bind.result()  # fitted beside the first reads
+        bound = None if bind is None else bind.result()[0]  # fitted beside the first reads
         if bound is not None:
             tiles = bound.transform(tiles, out=tiles)
         sharp = sharpness(tiles)
@@ -66,15 +67,24 @@ def _tile_arrays(view, plan, config, bind, writer, progress):
         encoded = writer.encode(tiles)
         return (None if encoded is not None else tiles), sharp, keep, encoded  # pixels freed once encoded
 
+    counts = {"read": 0, "kept": 0}
     for positions, (tiles, sharp, keep, encoded) in iter_tile_blocks(
             view, yx, config.tile, block=config.block, threads=config.threads, process=prepare,
             reuse=writer.encodes, groups=groups):  # compressed in the reader: its buffer is free for the next block
         pos = positions if keep is None else positions[keep]
+        counts["read"] += len(positions)
+        counts["kept"] += len(pos)
         if len(pos):
             writer.append(tiles, yx[pos], np.rint(yx[pos] * scale).astype(np.int64), tissue[pos], sharp,
                           None if region is None else region[pos], encoded=encoded)
         if progress is not None:
             progress(len(positions))
+    if counts["read"] != len(yx):
+        from tilewright.errors import StoreError
+
+        raise StoreError(f"{counts['read']} of {len(yx)} planned tiles were read; nothing was committed; "
+                         "run again", writer.final)
+    return counts["kept"]
 
 
 def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str | None = None,
@@ -146,11 +156,12 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
                 # digested beside the tile pipeline; the pictures are freed once written
                 aside = pool.submit(_aside, writer, survey.maps, survey.draw, survey.mask, plan, path, slide_id)
                 survey.maps = survey.draw = survey.mask = None
-                _tile_arrays(view, plan, config, bind, writer, progress)
-                bound = None if bind is None else bind.result()
+                kept = _tile_arrays(view, plan, config, bind, writer, progress)
+                bound, used = (None, None) if bind is None else bind.result()
                 attrs["normalizer"] = None if bound is None else bound.to_dict()
+                attrs["stain_target"] = target_digest(used)  # what a resumed run must match
                 png, attrs["source"]["digest"] = aside.result()
-                writer.commit(attrs, overwrite=overwrite)
+                writer.commit(attrs, overwrite=overwrite, expected=kept)
                 n = writer.n
         except BaseException:  # nothing half-written survives, whatever stopped the slide
             remove_partials(final)
@@ -181,10 +192,16 @@ def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNames
     thumbnail = slide.thumbnail(config.mask_mpp)
     mask = tissue_mask(SimpleNamespace(thumbnail=lambda mpp: thumbnail, path=slide.path), mpp=_true_mpp(thumbnail, config.mask_mpp),
                        exclude_ink=config.exclude_ink, exclude_dark=config.exclude_dark)
+    keep = absent = None
+    if regions is not None and not config.keep:
+        from tilewright.errors import ConfigError
+
+        raise ConfigError("regions were given but config.keep names no class to keep; set keep= (the region "
+                          "classes whose tiles to keep)", path)
     if config.keep:
-        regions = _regions_for(regions, config, slide_id, slide.mpp, path)
+        regions, keep, absent = _regions_for(regions, config, slide_id, slide, path)
     plan = plan_tiles(view, mask, tile=config.tile, stride=config.stride, min_tissue=config.min_tissue,
-                      regions=regions if config.keep else None, keep=config.keep,
+                      regions=regions if config.keep else None, keep=keep,
                       min_region=config.min_region, max_tiles=config.max_tiles, seed=config.seed)
     glass = _glass(thumbnail, mask) if config.normalizer else None
     mask_arr = np.asarray(mask.array, dtype=bool)
@@ -198,7 +215,7 @@ def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNames
         "tile": int(config.tile), "stride": int(config.step), "mask_mpp": float(mask.mpp),
         "tissue_fraction": float(mask_arr.mean()) if mask_arr.size else 0.0,
         "normalizer": None,  # bound while the first tiles are read (see tile_slide)
-        "regions": None if (regions is None or not config.keep) else _region_info(regions, config),
+        "regions": None if (regions is None or not config.keep) else _region_info(regions, config, absent),
         "tissue_mask": _jsonable(mask.to_dict()),
         "plan": _jsonable(getattr(plan, "params", {})),
         "order": "blocks of config.block target px, row-major; row-major inside a block",
@@ -237,37 +254,66 @@ def _glass(thumbnail, mask):
 
 def _bind_normalizer(view, plan, config, target, path, glass=None):
     """Fit the target (if needed) and bind the slide's own stain estimate from a tile sample,
-    optical density measured against the slide's glass colour ``glass``."""
+    optical density measured against the slide's glass colour ``glass``.
+
+    Returns ``(bound normalizer, shared target or None)``."""
     from tilewright.run.reference import make_target, sample_tiles
     from tilewright.stain.registry import make_normalizer
 
     sample = sample_tiles(view, plan.yx, config.tile, config.stain_sample, config.seed, threads=config.threads)
     if len(sample) == 0:
-        return None  # nothing will be stored; no estimate needed
+        return None, None  # nothing will be stored; no estimate needed
+    if target is None and config.reference is not None:
+        target = make_target(config.normalizer, config.reference)
+    used = target  # the shared target (None: the slide's own estimate is its target)
     if target is None:
-        target = (make_target(config.normalizer, config.reference) if config.reference is not None
-                  else make_normalizer(config.normalizer).fit(sample, glass=glass))
+        target = make_normalizer(config.normalizer).fit(sample, glass=glass)
     if config.per_tile_stain:
-        return target.with_glass(glass)
+        return target.with_glass(glass), used
     try:
-        return target.fit_source(sample, glass=glass)
+        return target.fit_source(sample, glass=glass), used
     except StainEstimationError as exc:
         raise StainEstimationError(f"cannot estimate this slide's stain from {len(sample)} tissue tiles "
                                    f"({exc.reason}); lower --min-tissue or run without --normalize", path) from None
 
 
-def _regions_for(regions, config, slide_id, level0_mpp, path):
-    """The slide's RegionMap: given, or loaded from ``config.regions`` (a file or a folder)."""
+def _regions_for(regions, config, slide_id, slide, path):
+    """The slide's RegionMap (given, or loaded from ``config.regions``), the kept classes it has
+    and the kept classes it lacks. What reading repaired and the absent classes are logged once
+    (the ``tilewright`` logger, which tile-out writes to ``tile-out.log``)."""
+    import logging
+
     from tilewright.errors import RegionError
 
+    log = logging.getLogger("tilewright")
     if regions is None:
         from tilewright.regions.load import load_regions
 
-        regions = load_regions(config.regions, slide_id, level0_mpp)
-        if regions is None:
+        regions = load_regions(config.regions, slide_id, slide.mpp, slide_shape=tuple(slide.dimensions),
+                               class_property=config.class_property, default_class=config.default_class,
+                               object_types=config.object_types, warn=False)
+        if regions is None and os.path.isdir(config.regions):
             raise RegionError(f"no region file for slide {slide_id!r} in {config.regions}; add "
                               f"{slide_id}.geojson there or run without --keep", path)
-    return regions.with_mpp(level0_mpp) if hasattr(regions, "with_mpp") else regions
+        if regions is None:
+            raise RegionError(f"the region table {config.regions} has no row with slide_id {slide_id!r}; add the "
+                              "slide's first-pass rows or run without --keep", path)
+        info = regions.to_dict()
+        for message in info.get("repairs") or ():
+            log.warning("%s: regions %s: %s", slide_id, info.get("path"), message)
+    if hasattr(regions, "with_mpp"):
+        regions = regions.with_mpp(slide.mpp)
+    if not hasattr(regions, "present"):  # a RegionMap-like object: keep as configured
+        return regions, list(config.keep), []
+    keep, absent = regions.present(config.keep)
+    if not keep:
+        from tilewright.regions.classnames import none_kept
+
+        raise none_kept(absent, regions.classes, regions.to_dict().get("path"))
+    if absent:
+        log.warning("%s: kept class(es) %s absent from %s; they cover nothing on this slide", slide_id,
+                    ", ".join(map(repr, absent)), regions.to_dict().get("path") or "its regions")
+    return regions, list(keep), list(absent)
 
 
 def _overlay(rgb, mask, plan, slide_id, mpp):
@@ -304,9 +350,9 @@ def _digest(path):
     return source_digest(path)
 
 
-def _region_info(regions, config):
+def _region_info(regions, config, absent=None):
     info = regions.to_dict() if hasattr(regions, "to_dict") else {"kind": type(regions).__name__}
-    info.update(keep=list(config.keep), min_region=float(config.min_region))
+    info.update(keep=list(config.keep), min_region=float(config.min_region), absent=list(absent or []))
     return _jsonable(info)
 
 

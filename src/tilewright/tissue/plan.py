@@ -169,7 +169,7 @@ def plan_tiles(view, mask, *, tile: int = 256, stride: int | None = None, min_ti
         not yet bound to a level-0 µm/px (``RegionMap.from_geojson(path)`` without ``mpp``)
         are bound to the view's slide (``view.slide.mpp``, else ``view.mpp / view.scale``).
     keep : str or sequence of str, optional
-        Region classes to keep, passed to ``regions.fractions``.
+        Region classes to keep, passed to ``regions.fractions`` (a string is split on commas).
     min_region : float
         Minimum region fraction of a kept tile.
     max_tiles : int, optional
@@ -206,8 +206,10 @@ def plan_tiles(view, mask, *, tile: int = 256, stride: int | None = None, min_ti
             raise ValueError(f"{name} must lie in [0, 1], got {value}")
     if max_tiles is not None and int(max_tiles) < 0:
         raise ValueError(f"max_tiles must be >= 0, got {max_tiles}")
-    if isinstance(keep, str):
-        keep = (keep,)
+    if isinstance(keep, str):  # "A,B" is two classes, as in RegionMap.fractions and --keep
+        from tilewright.regions.classnames import keep_names
+
+        keep = keep_names(keep)
     mpp = float(view.mpp)
     shape = tuple(int(v) for v in view.shape[:2])
     yx = grid_positions(shape, tile, stride)
