@@ -32,7 +32,7 @@ def local_cluster(workers: int):
     env = {**dask.config.get("distributed.nanny.pre-spawn-environ", {}), **ENV}
     with dask.config.set({"distributed.nanny.pre-spawn-environ": env}):
         return LocalCluster(n_workers=int(workers), threads_per_worker=1, processes=True,
-                            dashboard_address=None, silence_logs=logging.ERROR)
+                            dashboard_address=":0", silence_logs=logging.ERROR)
 
 
 #: How long the client tries to reach a scheduler before giving up.

@@ -89,7 +89,7 @@ def _tile_arrays(view, plan, config, bind, writer, progress):
 
 def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str | None = None,
                mpp: float | None = None, target=None, regions=None, overwrite: bool = True,
-               progress=None) -> SlideResult:
+               progress=None, on_plan=None) -> SlideResult:
     """Tile one slide into a complete zarr store.
 
     Open → tissue mask → tile plan → read in large blocks → normalize with one slide-level stain
@@ -117,6 +117,9 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
         Replace an existing store.
     progress : callable, optional
         Called with the number of tiles done after each block.
+    on_plan : callable, optional
+        Called once, before any tile is read, with the number of planned tiles and the source
+        megapixels (level-0 pixels) one tile covers.
 
     Notes
     -----
@@ -145,6 +148,8 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
         survey = _survey(slide, view, config, slide_id, path, regions, target)
         plan, attrs = survey.plan, survey.attrs
         release_free()  # the survey's temporaries are gone: start the tile pipeline on a clean heap
+        if on_plan is not None:
+            on_plan(len(plan), (config.tile * view.scale) ** 2 / 1e6)
         try:
             with StoreWriter(final, len(plan), config.tile, shard_tiles=config.shard_tiles,
                              compression=config.compression, with_region=attrs["regions"] is not None) as writer, \
@@ -207,7 +212,7 @@ def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNames
     mask_arr = np.asarray(mask.array, dtype=bool)
     attrs = {
         "slide_id": slide_id,
-        "source": {"path": str(path.resolve()), "size": os.path.getsize(path),
+        "source": {"path": str(path.resolve()), "size": _source_size(path),
                    "digest": None, "backend": slide.backend},  # digest: computed aside (see _aside)
         "mpp": float(view.mpp), "mpp_source": float(slide.mpp), "objective": slide.objective,
         "source_level": int(view.source_level), "scale": float(view.scale),
@@ -342,6 +347,12 @@ def _warn_png(slide_id, exc):
     import logging
 
     logging.getLogger("tilewright").warning("%s: QC overlay not written (%s)", slide_id, exc)
+
+
+def _source_size(path):
+    from tilewright.store.provenance import source_size
+
+    return source_size(path)
 
 
 def _digest(path):
