@@ -94,7 +94,9 @@ def test_view_never_reads_past_a_level_whose_axes_differ(tmp_path, noise):
             tf.write(img, tile=(256, 256), photometric="rgb", compression="zlib",
                      resolution=(1e4 / 0.2428 / (1 if i == 0 else 4),) * 2, resolutionunit="CENTIMETER",
                      subfiletype=1 if i else 0)
-    with tw.open(path) as s:
+    # the tiff backend does not take such a page as a level (its sides fit no one downsample);
+    # OpenSlide does
+    with tw.open(path, backend="openslide") as s:
         ds = s.levels[1].downsample
         assert ds == pytest.approx((H0 / 247 + W0 / 329) / 2)  # one downsample: the mean ratio
         view = s.at_mpp(s.levels[1].mpp)
