@@ -48,6 +48,9 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--verify-jpeg", action=argparse.BooleanOptionalAction, default=None,
                    help="check every JPEG source tile for damage decoders pass silently; a damaged "
                         "slide fails (default on; --no-verify-jpeg decodes faster and keeps garbage)")
+    g.add_argument("--colour-profile", choices=["apply", "ignore"],
+                   help="apply: convert pixels from each slide's embedded ICC profile to sRGB before anything "
+                        "else sees them (default); ignore: keep the files' raw pixels")
     g = p.add_argument_group("stain")
     g.add_argument("--normalize", choices=["macenko", "reinhard", "none"],
                    help="stain normalization (default none)")
@@ -88,7 +91,7 @@ _FIELDS = {"mpp": "mpp", "tile": "tile", "stride": "stride", "min_tissue": "min_
            "reference": "reference", "regions": "regions", "min_region": "min_region",
            "threads": "threads", "compression": "compression", "verify_jpeg": "verify_jpeg",
            "class_property": "class_property", "default_class": "default_class", "object_types": "object_types",
-           "mpp_tolerance": "tolerance"}
+           "colour_profile": "colour_profile", "mpp_tolerance": "tolerance"}
 
 
 def config_from_args(args):

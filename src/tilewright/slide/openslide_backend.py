@@ -35,6 +35,7 @@ import threading
 import numpy as np
 
 from tilewright.errors import DamagedSlideError, UnsupportedSlideError
+from tilewright.slide.colour import openslide_profile
 from tilewright.slide.resolution import Resolution, mpp_from_openslide
 
 __all__ = ["OpenSlideBackend", "WHOLE_LEVEL_PIXELS"]
@@ -82,6 +83,7 @@ class OpenSlideBackend:
         self._whole_lock = threading.Lock()
         self.resolution: Resolution = mpp_from_openslide(self._slide.properties)
         self.flavour = self._slide.properties.get("openslide.vendor", "unknown")
+        self.icc_profile = openslide_profile(self._slide)  # what OpenSlide found, or None
 
     def tile_shape(self, level: int) -> tuple[int, int]:
         """Tile size OpenSlide reports for a level (falls back to 512)."""
