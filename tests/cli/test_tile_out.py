@@ -113,6 +113,14 @@ def test_config_file_round_trip(tmp_path, capsys):
     assert "tile = 384" in again and "mpp = 1.0" in again  # file values, then command-line overrides
 
 
+def test_mpp_tolerance_option(capsys):
+    # documented default: a level within 0.5 % of the target is used as is
+    assert tw.TilingConfig().tolerance == 0.005
+    assert tile_out(["--print-config", "--mpp-tolerance", "0.02"]) == 0
+    assert "tolerance = 0.02" in capsys.readouterr().out
+    assert tile_out(["--print-config", "--mpp-tolerance", "1.5"]) == 2  # must lie in [0, 1)
+
+
 def test_sigkill_then_resume_equals_uninterrupted(tmp_path):
     src = _good(tmp_path, 4)
     ref = tmp_path / "ref"

@@ -97,7 +97,7 @@ def cohort(tmp_path_factory):
     for sid, path in paths.items():
         with tw.open(path) as slide:
             assert slide.mpp == pytest.approx(MPP0, rel=1e-6)
-            view = slide.at_mpp(MPP, tolerance=0.05)
+            view = slide.at_mpp(MPP, tolerance=tw.TilingConfig().tolerance)  # as tile-out reads it
             views[sid] = (tuple(view.shape), float(view.scale))  # scale: level-0 px per target px
     return root, slides, regions, views
 

@@ -106,7 +106,7 @@ def test_tile_out_reads_a_named_class_property_and_default_class(tmp_path):
                      "--quiet"]) == 0
     store = tw.open_store(out / "k1.zarr")
     with tw.open(path) as slide:
-        view = slide.at_mpp(1.0, tolerance=0.05)
+        view = slide.at_mpp(1.0, tolerance=tw.TilingConfig().tolerance)  # as tile-out reads it
         shape, scale = view.shape, view.scale
     kept, unsure = expected_tiles(shape, 32, scale, shapely.union_all([shapely.Polygon(A), shapely.Polygon(B)]), 0.5)
     assert {tuple(map(int, c)) for c in store.yx} - unsure == kept and len(kept) > 10  # reference: shapely

@@ -36,8 +36,10 @@ def test_non_integer_factor_matches_cv2_within_one_level(single_level, image, sl
         view = s.at_mpp(0.5, tolerance=0.0)
         s_ = 0.5 / slide_mpp
         assert view.scale == pytest.approx(s_)
-        # shape convention: floor(H0 / scale + 0.5); e.g. 1536 * 0.2527 / 0.5 = 776.3 -> 776
-        assert view.shape == (math.floor(H0 / s_ + 0.5), math.floor(W0 / s_ + 0.5))
+        # shape convention: whole view pixels inside the slide, floor(H0 / scale); e.g.
+        # 2048 * 0.2465 / 0.5 = 1009.66 -> 1009 (rounding to nearest would add a column that
+        # reaches a third of a pixel past the last scanned column)
+        assert view.shape == (math.floor(H0 / s_), math.floor(W0 / s_))
         got = view.read(0, 0, *view.shape)
     ref = cv2.resize(image, None, fx=1 / s_, fy=1 / s_, interpolation=cv2.INTER_AREA)
     # compare target pixels whose source footprint lies inside level 0
@@ -100,17 +102,26 @@ def test_padding_outside_slide_is_white(single_level, image):
 
 def test_level_within_tolerance_used_as_is(write):
     path = write("jpeg_ifd.tif", compression="jpeg", layout="ifd")
-    with tw.open(path, mpp=0.2527) as s:
-        view = s.at_mpp(0.5)  # level 1 is 0.5054 µm/px, within 5 %
+    with tw.open(path, mpp=0.2506) as s:
+        view = s.at_mpp(0.5)  # level 1 is 0.5012 µm/px, within the default 0.5 %
         assert view.source_level == 1 and view.level_scale == 1.0
-        assert view.mpp == pytest.approx(0.5054) and view.scale == 2.0
+        # the view's µm/px is the true one of its pixels, not the request
+        assert view.mpp == pytest.approx(0.5012) and view.scale == 2.0
         lv = s.levels[1]
         np.testing.assert_array_equal(view.read(0, 0, lv.height, lv.width),
                                       s.read_level(1, 0, 0, lv.height, lv.width))
         strict = s.at_mpp(0.5, tolerance=0.0)
-        assert strict.source_level == 0  # 0.5054 is coarser than 0.5: must come from level 0
-        # nearest level at or finer than the target: 1.3 µm/px reads level 2 (1.0108)
+        assert strict.source_level == 0  # 0.5012 is coarser than 0.5: must come from level 0
+        assert strict.mpp == pytest.approx(0.5)
+        # nearest level at or finer than the target: 1.3 µm/px reads level 2 (1.0024)
         assert s.at_mpp(1.3).source_level == 2
+    with tw.open(path, mpp=0.2527) as s:
+        # level 1 is 0.5054 µm/px, 1.08 % off 0.5: by default resampled from level 0 so the
+        # tiles are at 0.5; a looser tolerance reuses it as is and says so
+        view = s.at_mpp(0.5)
+        assert view.source_level == 0 and view.mpp == pytest.approx(0.5)
+        loose = s.at_mpp(0.5, tolerance=0.05)
+        assert loose.source_level == 1 and loose.mpp == pytest.approx(0.5054)
 
 
 def test_thumbnail_reads_coarsest_adequate_level(write, monkeypatch):

@@ -156,3 +156,29 @@ def test_no_plotting_library_loaded(tmp_path):
             "print('matplotlib' in sys.modules)")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == "False"  # workers need not load matplotlib for the QC picture
+
+
+def test_picture_placed_by_true_mpp_of_thumbnail_and_mask(tmp_path):
+    # a thumbnail at 3.8848 µm/px (a x16 level of a 0.2428 scan) under a mask at 7.7696 (x32):
+    # the picture, the outline and the tile boxes are placed by physical position
+    from tilewright.slide.thumbnail import Thumbnail
+
+    mpp_mask, mpp_thumb = 0.2428 * 32, 0.2428 * 16
+    mask = _rect_mask(shape=(150, 400), box=(25, 125, 50, 350))
+    mask = TissueMask(mask.array, mpp_mask)
+    thumb = Thumbnail(np.full((300, 800, 3), 255, np.uint8), mpp_thumb)
+    view = FakeView((int(150 * mpp_mask / 0.5), int(400 * mpp_mask / 0.5)), 0.5)
+    plan = plan_tiles(view, mask, tile=256, min_tissue=1.0)
+    img = _read(render_overlay(thumb, mask, plan, tmp_path / "p.png"))
+    assert img.shape[:2] == (300 + CAPTION_HEIGHT, 800)  # the thumbnail's own pixels
+    amber, teal = _rgb(OVERLAY_COLOURS["tissue"]), _rgb(OVERLAY_COLOURS["tile"])
+    # ground truth: tissue mask rows 25..124 at 7.7696 µm/px are picture rows 50..249 at 3.8848
+    np.testing.assert_array_equal(img[50, 400], amber)
+    np.testing.assert_array_equal(img[249, 400], amber)
+    np.testing.assert_array_equal(img[150, 100], amber)
+    # a tile at (y, x) target px (0.5 µm/px) starts at picture px floor(y * 0.5 / 3.8848)
+    inner = [(y, x) for y, x in plan.yx if 60 <= y * 0.5 / mpp_thumb <= 200 and 110 <= x * 0.5 / mpp_thumb <= 650]
+    y, x = inner[len(inner) // 2]
+    py, px = int(y * 0.5 / mpp_thumb), int(x * 0.5 / mpp_thumb)
+    np.testing.assert_array_equal(img[py, px + 5], teal)  # top edge of its box
+    np.testing.assert_array_equal(img[py + 5, px], teal)  # left edge

@@ -134,3 +134,35 @@ def test_bad_arguments():
             plan_tiles(view, mask, **kw)
     with pytest.raises(ValueError):
         TilePlan(np.zeros((2, 2)), np.zeros(3), tile=1, stride=1, mpp=1.0)
+
+
+def test_unbound_polygon_regions_take_the_slide_mpp_from_the_view(tmp_path):
+    # a GeoJSON map read without mpp (polygons in level-0 px) used straight in plan_tiles
+    import tilewright as tw
+    from tilewright.demo.pyramid import write_pyramid
+    from tilewright.regions.regionmap import RegionMap
+
+    path = tmp_path / "s.tif"
+    write_pyramid(path, np.full((1203, 1701, 3), 128, np.uint8), mpp=0.2428, tile=256,
+                  compression="zlib", downsamples=(1, 4))
+    # tumour: level-0 x in [300, 1300), y in [0, 1203): a vertical band
+    square = {"type": "FeatureCollection", "features": [{
+        "type": "Feature", "properties": {"classification": "tumour"},
+        "geometry": {"type": "Polygon", "coordinates": [[[300, 0], [1300, 0], [1300, 1203],
+                                                         [300, 1203], [300, 0]]]}}]}
+    regions = RegionMap.from_geojson(square)
+    assert regions.level0_mpp is None
+    mask = TissueMask(np.ones((40, 60), bool), 8.0)
+    with tw.open(path) as slide:
+        view = slide.at_mpp(0.5)  # 0.4856-µm/px level 1 is 2.9 % off: resampled, scale 2.0593
+        plan = plan_tiles(view, mask, tile=64, min_tissue=0.0, regions=regions, keep="tumour",
+                          min_region=0.0)
+        bound = plan_tiles(view, mask, tile=64, min_tissue=0.0,
+                           regions=RegionMap.from_geojson(square, mpp=slide.mpp), keep="tumour",
+                           min_region=0.0)
+    np.testing.assert_array_equal(plan.region, bound.region)
+    # ground truth: a tile covers level-0 x in [x*s, (x+64)*s) with s = 0.5 / 0.2428
+    s = 0.5 / 0.2428
+    x0 = plan.yx[:, 1] * s
+    want = np.clip(np.minimum(x0 + 64 * s, 1300) - np.maximum(x0, 300), 0, None) / (64 * s)
+    np.testing.assert_allclose(plan.region, want, atol=1e-4)

@@ -35,6 +35,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("out", metavar="OUT", nargs="?", help="output folder")
     g = p.add_argument_group("tiling")
     g.add_argument("--mpp", type=float, help="target resolution in µm/px (default 0.5)")
+    g.add_argument("--mpp-tolerance", type=float,
+                   help="relative difference under which a pyramid level is used as is instead of "
+                        "resampled (default 0.005 = 0.5 %%; the store records the true µm/px)")
     g.add_argument("--tile", type=int, help="tile side in pixels (default 256)")
     g.add_argument("--stride", type=int, help="grid step in pixels (default: the tile side, no overlap)")
     g.add_argument("--min-tissue", type=float, help="minimum tissue fraction of a tile (default 0.5)")
@@ -102,7 +105,7 @@ _FIELDS = {"mpp": "mpp", "tile": "tile", "stride": "stride", "min_tissue": "min_
            "tissue_sensitivity": "tissue_sensitivity", "min_piece_um2": "min_piece_um2",
            "exclude_dark": "exclude_dark", "dark_od": "dark_od", "ink_margin_um": "ink_margin_um",
            "class_property": "class_property", "default_class": "default_class", "object_types": "object_types",
-           "colour_profile": "colour_profile",
+           "colour_profile": "colour_profile", "mpp_tolerance": "tolerance",
            "quality": "quality"}
 
 

@@ -24,15 +24,19 @@ _CM_PER_UM = 1e-4
 _INCH_PER_UM = 1e-4 / 2.54
 
 
-def level_shapes(shape: tuple[int, int], factor: int, n_levels: int | None, min_size: int):
+def level_shapes(shape: tuple[int, int], factor: int, n_levels: int | None, min_size: int,
+                 downsamples=None):
     """Shapes (height, width) of each pyramid level, level 0 first.
 
     Level ``k`` has ``ceil(H0 / factor**k)`` x ``ceil(W0 / factor**k)`` pixels (the usual
     convention of scanners: partial blocks at the right and bottom edge are kept).
     Levels are added until the longer side falls to ``min_size`` or below, or until
-    ``n_levels`` levels exist.
+    ``n_levels`` levels exist. With ``downsamples`` (level-0 pixels per level pixel of every
+    level, 1 first), level ``k`` has ``ceil(H0 / downsamples[k])`` x ``ceil(W0 / downsamples[k])``.
     """
     h, w = int(shape[0]), int(shape[1])
+    if downsamples is not None:
+        return [(math.ceil(h / d), math.ceil(w / d)) for d in downsamples]
     shapes = [(h, w)]
     while True:
         if n_levels is not None and len(shapes) >= n_levels:
@@ -94,6 +98,7 @@ def write_pyramid(
     min_size: int = 512,
     factor: int = 2,
     layout: Literal["ifd", "subifd", "ome", "svs"] = "ifd",
+    downsamples=None,
     resolution_unit: Literal["cm", "inch"] | None = "cm",
     objective: float | None = None,
     strip_rows: int | None = None,
@@ -128,6 +133,9 @@ def write_pyramid(
         See ``n_levels``.
     factor : int
         Integer downsample between consecutive levels (2 or 4 are common).
+    downsamples : sequence of int, optional
+        Level-0 pixels per level pixel of every level instead of powers of ``factor``: 1 first,
+        each dividing the next (scanners mix x2, x4, x16, x32 levels, e.g. ``(1, 4, 32)``).
     layout : {"ifd", "subifd", "ome", "svs"}
         ``"ifd"``: every level a page of the main IFD chain (generic tiled TIFF).
         ``"subifd"``: reduced levels stored as SubIFDs of level 0, no OME metadata.
@@ -168,7 +176,13 @@ def write_pyramid(
 
     if tile % 16:
         raise ValueError("tile must be a multiple of 16")
-    shapes = level_shapes((H, W), factor, n_levels, min_size)
+    if downsamples is not None:
+        downsamples = [int(d) for d in downsamples]
+        if downsamples[0] != 1 or any(b % a or b <= a for a, b in zip(downsamples, downsamples[1:])):
+            raise ValueError(f"downsamples must start at 1 and each divide the next, got {downsamples}")
+    shapes = level_shapes((H, W), factor, n_levels, min_size, downsamples)
+    ds = downsamples or [factor**k for k in range(len(shapes))]
+    factor = ds[1] if len(ds) > 1 else factor  # level 1 is accumulated from level 0 by this
     comp = None if compression in (None, "none") else compression
     if comp == "zlib":
         comp = "deflate"
@@ -229,7 +243,7 @@ def write_pyramid(
     def ensure_levels():
         levels[1] = level1
         for k in range(2, len(shapes)):
-            levels[k] = _area_reduce(levels[k - 1], factor)
+            levels[k] = _area_reduce(levels[k - 1], ds[k] // ds[k - 1])
 
     path = os.fspath(path)
     ome = layout == "ome"
@@ -261,7 +275,7 @@ def write_pyramid(
                      description=f"Aperio Image Library v12.0.0 \r\n{W}x{H} -> "
                                  f"{thumb.shape[1]}x{thumb.shape[0]} - |", metadata=None)
         for k in range(1, len(shapes)):
-            res, unit = resolution(float(factor**k))
+            res, unit = resolution(float(ds[k]))
             extra = {} if res is None else dict(resolution=res, resolutionunit=unit)
             kw = dict(shape=shapes[k] + (3,), metadata=None, **extra, **common)
             if layout in ("subifd", "ome"):

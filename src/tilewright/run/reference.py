@@ -81,7 +81,7 @@ def _slide_sample(path: Path, config) -> tuple[np.ndarray, list | None]:
         with open_slide(path, verify=cfg.verify_jpeg) as slide:
             view = slide.at_mpp(cfg.mpp, tolerance=cfg.tolerance)
             thumbnail = slide.thumbnail(cfg.mask_mpp)
-            mask = tissue_mask(thumbnail, mpp=cfg.mask_mpp, **cfg.mask_options())
+            mask = tissue_mask(thumbnail, mpp=getattr(thumbnail, "mpp", cfg.mask_mpp), **cfg.mask_options())
             plan = plan_tiles(view, mask, tile=cfg.tile, stride=cfg.stride, min_tissue=cfg.min_tissue,
                               max_tiles=cfg.stain_sample, seed=cfg.seed)
             sample = sample_tiles(view, plan.yx, cfg.tile, cfg.stain_sample, cfg.seed, threads=cfg.threads)

@@ -198,8 +198,10 @@ def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNames
     from tilewright.tissue.plan import plan_tiles
     import tilewright
 
+    # the thumbnail's pixels may be a reused level's (7.78 µm/px for 8 asked): the mask, the store's
+    # pictures and the QC picture all take that true µm/px (thumbnail.mpp), never config.mask_mpp
     thumbnail = slide.thumbnail(config.mask_mpp)
-    mask = tissue_mask(SimpleNamespace(thumbnail=lambda mpp: thumbnail, path=slide.path), mpp=config.mask_mpp,
+    mask = tissue_mask(SimpleNamespace(thumbnail=lambda mpp: thumbnail, path=slide.path), mpp=_true_mpp(thumbnail, config.mask_mpp),
                        **config.mask_options())
     keep = absent = None
     if regions is not None and not config.keep:
@@ -221,7 +223,7 @@ def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNames
         "mpp": float(view.mpp), "mpp_source": float(slide.mpp), "objective": slide.objective,
         "source_level": int(view.source_level), "scale": float(view.scale),
         "dimensions": list(slide.dimensions), "shape": list(view.shape),
-        "tile": int(config.tile), "stride": int(config.step), "mask_mpp": float(config.mask_mpp),
+        "tile": int(config.tile), "stride": int(config.step), "mask_mpp": float(mask.mpp),
         "tissue_fraction": float(mask_arr.mean()) if mask_arr.size else 0.0,
         "normalizer": None,  # bound while the first tiles are read (see tile_slide)
         "regions": None if (regions is None or not config.keep) else _region_info(regions, config, absent),
@@ -389,3 +391,8 @@ def _jsonable(obj):
     if isinstance(obj, os.PathLike):
         return os.fspath(obj)
     return obj
+
+
+def _true_mpp(raster, asked: float) -> float:
+    """µm/px a raster derived from the slide carries (``.mpp``), else the value asked for."""
+    return float(getattr(raster, "mpp", None) or asked)

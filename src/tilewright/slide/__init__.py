@@ -6,13 +6,14 @@ open               ``open``: sniff the file, pick a backend, check the resolutio
 wholeslide         ``WholeSlide`` (levels, µm/px, ``read_level``, ``at_mpp``, ``thumbnail``)
                    and ``Level``.
 view               ``ResampledView``: the slide at a target µm/px (``read``, ``iter_blocks``,
-                   ``block_size``, ``to_dask``).
+                   ``block_size``, ``to_dask``); its ``mpp`` is the true µm/px of its pixels.
+thumbnail          ``Thumbnail``: slide pixels (an ndarray) carrying the true µm/px of its pixels.
 downsample         area averaging with weights fixed by global coordinates (seam-free).
 tiff_backend       tifffile structure + positional reads decoding only the touched tiles.
 tiff_pages         which pages are pyramid levels, which are label/macro/thumbnail.
 tiff_pixels        which photometric/compression pairs are served, and their RGB conversion.
 dicom_series       the files of a DICOM whole-slide series (one slide) and their headers.
-openslide_backend  every format OpenSlide reads.
+openslide_backend  every format OpenSlide reads, at whole-pixel positions of each level.
 resolution         µm/px and objective from TIFF tags, OME-XML, Aperio descriptions,
                    OpenSlide properties; plausibility checks.
 sniff              missing / empty / not-an-image checks before any decoder runs.

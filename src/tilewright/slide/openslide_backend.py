@@ -3,6 +3,25 @@
 openslide-python is imported when the backend is first used, never at package import.
 OpenSlide handles are safe to share between threads (the C library locks internally).
 
+Whole-pixel reads. ``read_region`` takes a level-0 origin and divides it by the level's
+downsample as OpenSlide computes it (the mean of the two axes' size ratios, 3.992 for a
+1001-px level 0 over a 251-px level): when the quotient is not a whole number, OpenSlide paints
+the level shifted by the fraction and interpolates, so the same level pixel comes out
+differently from read to read (seams between tiles; up to 33 grey levels on noise). This
+backend therefore reads a level only at whole-pixel positions of that level:
+
+- a level whose OpenSlide downsample is a whole number ``k`` (and whose size is level 0's over
+  ``k``, the pyramid's own geometry): origin ``(x*k, y*k)`` divides exactly;
+- any other level from the origin ``(0, 0)``, which divides exactly too: the whole level is read
+  once and kept while it is used (up to :data:`WHOLE_LEVEL_PIXELS`; thumbnails and masks
+  come from such coarse levels);
+- a larger level of the second kind cannot be read exactly: it is left out of
+  :attr:`OpenSlideBackend.exact_levels`, and views resample from the nearest finer level that is.
+
+The area resampling to a target µm/px is the same code for both backends
+(:class:`~tilewright.slide.view.ResampledView`), so both give the same view pixels for the same
+file (within JPEG decoder rounding) wherever they use the same level.
+
 References
 ----------
 .. [1] Goode, A., Gilbert, B., Harkes, J., Jukic, D., Satyanarayanan, M. (2013). OpenSlide: A
@@ -11,13 +30,20 @@ References
 
 from __future__ import annotations
 
+import threading
+
 import numpy as np
 
 from tilewright.errors import DamagedSlideError, UnsupportedSlideError
 from tilewright.slide.colour import openslide_profile
 from tilewright.slide.resolution import Resolution, mpp_from_openslide
 
-__all__ = ["OpenSlideBackend"]
+__all__ = ["OpenSlideBackend", "WHOLE_LEVEL_PIXELS"]
+
+#: Largest level (pixels) read whole to serve a level OpenSlide cannot address at whole-pixel
+#: positions (RGBA from OpenSlide, then RGB kept: about 11 bytes a pixel while read).
+WHOLE_LEVEL_PIXELS = 1 << 25
+_BAND = 512  # rows composited onto white at a time
 
 
 class OpenSlideBackend:
@@ -50,6 +76,11 @@ class OpenSlideBackend:
         self._error_type = openslide.OpenSlideError
         self.level_shapes = [(int(h), int(w)) for (w, h) in self._slide.level_dimensions]
         self._downsamples = [float(d) for d in self._slide.level_downsamples]
+        self._step = [self._integer_step(i) for i in range(len(self.level_shapes))]
+        self.exact_levels = tuple(k is not None or h * w <= WHOLE_LEVEL_PIXELS
+                                  for k, (h, w) in zip(self._step, self.level_shapes))
+        self._whole = None  # (level, RGB array) of the level read whole, while it is used
+        self._whole_lock = threading.Lock()
         self.resolution: Resolution = mpp_from_openslide(self._slide.properties)
         self.flavour = self._slide.properties.get("openslide.vendor", "unknown")
         self.icc_profile = openslide_profile(self._slide)  # what OpenSlide found, or None
@@ -61,35 +92,79 @@ class OpenSlideBackend:
         tw = p.get(f"openslide.level[{level}].tile-width")
         return (int(th) if th else 512, int(tw) if tw else 512)
 
+    def _integer_step(self, level: int) -> int | None:
+        """``k`` when OpenSlide's downsample of ``level`` is the whole number ``k`` and the
+        level's size is level 0's over ``k``; else None."""
+        from tilewright.slide.wholeslide import level_downsample
+
+        ds = self._downsamples[level]
+        h0, w0 = self.level_shapes[0]
+        h, w = self.level_shapes[level]
+        k = int(ds)
+        return k if k >= 1 and ds == k and level_downsample(h0, w0, h, w) == k else None
+
     def read(self, level: int, y: int, x: int, h: int, w: int, out: np.ndarray) -> None:
         """Read the region ``[y, y+h) x [x, x+w)`` of a level into ``out`` (h, w, 3).
 
-        Transparent pixels (outside the scanned area) become white.
+        Transparent pixels (outside the scanned area) become white. The region lies inside
+        the level (:meth:`WholeSlide.read_level` clips).
 
         Raises
         ------
         DamagedSlideError
             OpenSlide fails to decode the region.
+        ValueError
+            The level is not in :attr:`exact_levels` (too large to read whole, and OpenSlide
+            would interpolate it).
         """
         if self._slide is None:
             raise ValueError("the slide is closed")
-        ds = self._downsamples[level]
-        origin = (int(round(x * ds)), int(round(y * ds)))
+        k = self._step[level]
+        if k is not None:
+            _composite(self._region((x * k, y * k), level, w, h, (y, x)), out)
+            return
+        if not self.exact_levels[level]:
+            raise ValueError(f"{self.path}: OpenSlide cannot read level {level} at whole-pixel "
+                             "positions (its downsample is not a whole number) and it is too large "
+                             "to read whole; read a finer level")
+        with self._whole_lock:
+            if self._whole is None or self._whole[0] != level:
+                self._whole = None  # free the previous level before reading the next
+                lh, lw = self.level_shapes[level]
+                whole = np.empty((lh, lw, 3), np.uint8)
+                _composite(self._region((0, 0), level, lw, lh, (0, 0)), whole)
+                self._whole = (level, whole)
+            whole = self._whole[1]
+        out[...] = whole[y : y + h, x : x + w]
+
+    def _region(self, origin, level, w, h, at):
         try:
-            rgba = np.asarray(self._slide.read_region(origin, level, (w, h)))
+            return np.asarray(self._slide.read_region(origin, level, (w, h)))
         except self._error_type as exc:
             raise DamagedSlideError(
-                f"OpenSlide failed reading level {level} region y={y}, x={x}, h={h}, w={w} "
+                f"OpenSlide failed reading level {level} region y={at[0]}, x={at[1]}, h={h}, w={w} "
                 f"({exc}); the file is damaged", self.path) from exc
-        alpha = rgba[..., 3]
-        if alpha.min() == 255:
-            out[...] = rgba[..., :3]
-            return
-        a = alpha[..., None].astype(np.float32) / 255.0
-        out[...] = np.rint(rgba[..., :3] * a + 255.0 * (1.0 - a)).astype(np.uint8)
+
+    def release(self) -> None:
+        """Drop the whole-level copy kept for reads (the next read of that level reads it again)."""
+        with self._whole_lock:
+            self._whole = None
 
     def close(self) -> None:
         """Close the OpenSlide handle (idempotent)."""
+        self.release()
         s, self._slide = self._slide, None
         if s is not None:
             s.close()
+
+
+def _composite(rgba: np.ndarray, out: np.ndarray) -> None:
+    """RGBA from OpenSlide onto white into ``out`` (RGB), a band of rows at a time."""
+    for r in range(0, rgba.shape[0], _BAND):
+        band = rgba[r : r + _BAND]
+        alpha = band[..., 3]
+        if alpha.min() == 255:
+            out[r : r + _BAND] = band[..., :3]
+            continue
+        a = alpha[..., None].astype(np.float32) / 255.0
+        out[r : r + _BAND] = np.rint(band[..., :3] * a + 255.0 * (1.0 - a)).astype(np.uint8)

@@ -28,15 +28,21 @@ class ResampledView:
     ----------
     slide : WholeSlide
     mpp : float
-        µm/px of the pixels this view returns: the requested value, or the µm/px of a
-        pyramid level used as is because it lies within the tolerance.
+        True µm/px of the pixels this view returns: the µm/px of a pyramid level used as is
+        because it lies within the tolerance, else the requested value (the level is then
+        area-averaged down to it). It may differ from ``requested_mpp`` by the tolerance.
+    requested_mpp : float
+        The µm/px asked for.
     source_level : int
         Pyramid level the pixels are computed from.
     scale : float
         Level-0 pixels per view pixel (``mpp / slide.mpp``); a view pixel ``(y, x)``
         covers level-0 ``[y*scale, (y+1)*scale)``.
     shape : (int, int)
-        (height, width) in view pixels: ``max(1, floor(H0/scale + 0.5))`` (likewise W).
+        (height, width) in view pixels: the whole view pixels that lie inside the scanned
+        area, ``floor(H0 / scale)`` (likewise W), also bounded by the source level's own size
+        (``floor(H_level / level_scale)``; the two differ only when a level's size is not its
+        downsample's floor or ceiling division of level 0's). At least 1.
     level_scale : float
         Source-level pixels per view pixel (1.0 when the level is used as is).
 
@@ -47,23 +53,26 @@ class ResampledView:
     the slide the view is white. Reads are thread-safe.
     """
 
-    def __init__(self, slide, mpp: float, *, tolerance: float = 0.05):
+    def __init__(self, slide, mpp: float, *, tolerance: float = 0.005):
         self.slide = slide
         self.tolerance = float(tolerance)
+        self.requested_mpp = float(mpp)
         self.source_level = slide.choose_level(mpp, self.tolerance)
         level = slide.levels[self.source_level]
         if abs(level.mpp / mpp - 1.0) <= self.tolerance:
-            self.mpp = level.mpp
             self.level_scale = 1.0
         else:
-            self.mpp = float(mpp)
-            s = self.mpp / level.mpp
+            s = float(mpp) / level.mpp
             k = integer_factor(s, 1e-6)
             self.level_scale = float(k) if k is not None else s
+        self.mpp = level.mpp * self.level_scale  # the true µm/px of the pixels returned
         self.scale = self.level_scale * level.downsample
         h0, w0 = slide.dimensions
-        self.shape = (max(1, math.floor(h0 / self.scale + 0.5)),
-                      max(1, math.floor(w0 / self.scale + 0.5)))
+        # round down: a view pixel past the last scanned row/column would be partly blank; the
+        # epsilon keeps exact quotients (1536 / 2.0) from losing a pixel to floating point
+        eps = 1e-9
+        self.shape = (max(1, math.floor(min(h0 / self.scale, level.height / self.level_scale) + eps)),
+                      max(1, math.floor(min(w0 / self.scale, level.width / self.level_scale) + eps)))
         self._scratch = threading.local()  # per-thread source strip buffer, reused across reads
 
     def __repr__(self) -> str:
@@ -71,7 +80,7 @@ class ResampledView:
                 f"source_level={self.source_level}, scale={self.scale:.6g})")
 
     def __reduce__(self):
-        return _view_from, (self.slide, self.mpp, self.tolerance)
+        return _view_from, (self.slide, self.requested_mpp, self.tolerance)
 
     # -- reading ------------------------------------------------------------------------
     def read(self, y: int, x: int, h: int, w: int, *, out: np.ndarray | None = None) -> np.ndarray:

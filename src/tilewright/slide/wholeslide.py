@@ -12,7 +12,16 @@ from tilewright.errors import ResolutionUnavailableError, SlideError  # noqa: F4
 from tilewright.slide.colour import ColourInfo
 from tilewright.slide.resolution import Resolution
 
-__all__ = ["WholeSlide", "Level", "ResolutionUnavailableError"]
+__all__ = ["WholeSlide", "Level", "ResolutionUnavailableError", "level_downsample",
+           "VIEW_TOLERANCE", "THUMBNAIL_TOLERANCE"]
+
+#: Relative difference under which a pyramid level serves a view as is (0.5 %: the scale error
+#: then stays under 1.3 px across a 256-px tile), so a cohort's tiles are at one resolution.
+VIEW_TOLERANCE = 0.005
+#: The same for thumbnails: looser, because a thumbnail carries the true µm/px of its pixels
+#: (:class:`~tilewright.slide.thumbnail.Thumbnail`) and everything derived from it uses that
+#: value; reusing a level 5 % off saves decoding a level 4-16 times larger.
+THUMBNAIL_TOLERANCE = 0.05
 
 
 class Level(NamedTuple):
@@ -24,8 +33,16 @@ class Level(NamedTuple):
     mpp: float
 
 
-def _downsample(h0: int, w0: int, h: int, w: int) -> float:
-    """Level downsample; snapped to the integer whose ceil/floor division gives the level size."""
+def level_downsample(h0: int, w0: int, h: int, w: int) -> float:
+    """Level-0 pixels per level pixel, one number for both axes.
+
+    When the level's size is the floor or ceiling of level 0's size over an integer ``k`` in
+    both axes (how scanners build pyramids: only the last row and column are partial), the
+    downsample is ``k`` exactly. Otherwise it is the mean of the two axes' ratios: for a level
+    whose size was rounded from a non-whole downsample, the position error this leaves is about
+    one level pixel at most, at the far edge of a slide up to 3:1; a view never reads past the
+    level's own last row or column (see :class:`~tilewright.slide.view.ResampledView`).
+    """
     ratio = (w0 / w + h0 / h) / 2.0
     k = round(ratio)
     if k >= 1 and w in (w0 // k, -(-w0 // k)) and h in (h0 // k, -(-h0 // k)):
@@ -83,9 +100,12 @@ class WholeSlide:
         self.dimensions = (h0, w0)
         levels = []
         for h, w in reader.level_shapes:
-            ds = _downsample(h0, w0, h, w)
+            ds = level_downsample(h0, w0, h, w)
             levels.append(Level(h, w, ds, self.mpp * ds))
         self.levels = tuple(levels)
+        # levels the backend reads at whole-pixel positions of the level (all, for the tiff
+        # backend; OpenSlide interpolates some, see OpenSlideBackend.exact_levels)
+        self._exact = tuple(getattr(reader, "exact_levels", (True,) * len(levels)))
         self._closed = False
         self._lock = threading.Lock()
 
@@ -171,11 +191,13 @@ class WholeSlide:
         return rgb if self.colour_transform is None else self.colour_transform.apply(rgb)
 
     # -- resolution ---------------------------------------------------------------------
-    def choose_level(self, mpp: float, tolerance: float = 0.05) -> int:
+    def choose_level(self, mpp: float, tolerance: float = VIEW_TOLERANCE) -> int:
         """Level a view at ``mpp`` reads from.
 
         A level whose µm/px lies within ``tolerance`` (relative) of ``mpp`` is used as is
-        (the closest such level); otherwise the coarsest level finer than ``mpp``.
+        (the closest such level); otherwise the coarsest level finer than ``mpp``. Only levels
+        the backend reads at whole-pixel positions are candidates (every level of the tiff
+        backend; see :class:`~tilewright.slide.openslide_backend.OpenSlideBackend`).
 
         Raises
         ------
@@ -185,18 +207,22 @@ class WholeSlide:
         mpp = float(mpp)
         if not (math.isfinite(mpp) and mpp > 0):
             raise ValueError(f"target mpp must be a positive number, got {mpp!r}")
-        near = [(abs(lv.mpp / mpp - 1.0), i) for i, lv in enumerate(self.levels)
-                if abs(lv.mpp / mpp - 1.0) <= tolerance]
+        tolerance = float(tolerance)
+        if not (0 <= tolerance < 1):
+            raise ValueError(f"tolerance must lie in [0, 1), got {tolerance!r}")
+        usable = [i for i in range(len(self.levels)) if self._exact[i]]
+        near = [(abs(self.levels[i].mpp / mpp - 1.0), i) for i in usable
+                if abs(self.levels[i].mpp / mpp - 1.0) <= tolerance]
         if near:
             return min(near)[1]
-        finer = [i for i, lv in enumerate(self.levels) if lv.mpp <= mpp]
+        finer = [i for i in usable if self.levels[i].mpp <= mpp]
         if not finer:
             raise ResolutionUnavailableError(
                 f"asked for {mpp:g} µm/px but the finest level is {self.mpp:g} µm/px; "
                 "choose a coarser target mpp (no upsampling is done)", self.path)
         return max(finer, key=lambda i: self.levels[i].mpp)
 
-    def at_mpp(self, mpp: float, *, tolerance: float = 0.05):
+    def at_mpp(self, mpp: float, *, tolerance: float = VIEW_TOLERANCE):
         """A lazy view of the whole slide at ``mpp`` µm/px.
 
         Parameters
@@ -204,7 +230,9 @@ class WholeSlide:
         mpp : float
             Target µm/px.
         tolerance : float
-            Relative difference under which a pyramid level is used as is.
+            Relative difference under which a pyramid level is used as is (default 0.5 %);
+            otherwise the view area-averages the nearest finer level down to ``mpp``. The
+            view's ``mpp`` is the true µm/px of its pixels either way.
 
         Returns
         -------
@@ -219,10 +247,24 @@ class WholeSlide:
 
         return ResampledView(self, float(mpp), tolerance=tolerance)
 
-    def thumbnail(self, mpp: float = 8.0, *, tolerance: float = 0.05) -> np.ndarray:
-        """The whole slide at ``mpp`` µm/px, read from the coarsest adequate level.
+    def thumbnail(self, mpp: float = 8.0, *, tolerance: float = THUMBNAIL_TOLERANCE):
+        """The whole slide at about ``mpp`` µm/px, read from the coarsest adequate level.
 
-        Same pixels and shape as ``at_mpp(mpp, tolerance=tolerance)`` read in full.
+        Same pixels and shape as ``at_mpp(mpp, tolerance=tolerance)`` read in full. A level
+        within ``tolerance`` (default 5 %) of ``mpp`` is used as is, so the pixels may be a
+        little finer or coarser than asked: the result carries their true µm/px.
+
+        Returns
+        -------
+        Thumbnail
+            uint8 (H, W, 3) array with ``.mpp``, the µm/px of its pixels.
         """
+        from tilewright.slide.thumbnail import Thumbnail
+
         view = self.at_mpp(mpp, tolerance=tolerance)
-        return view.read(0, 0, *view.shape)
+        try:
+            return Thumbnail(view.read(0, 0, *view.shape), view.mpp)
+        finally:
+            release = getattr(self._reader, "release", None)
+            if release is not None:  # a whole-level copy a backend kept for this read
+                release()

@@ -8,8 +8,8 @@ A store is one zarr v3 group a slide, ``<slide_id>.zarr``::
     tissue      (N,) float32         tissue fraction of each tile footprint
     sharpness   (N,) float32         variance of the Laplacian of each stored tile
     region      (N,) float32         kept-class fraction (only when regions were used)
-    thumbnail   (h, w, 3) uint8      raw slide colour at ``mask_mpp``
-    mask        (h, w) bool          tissue mask at ``mask_mpp``
+    thumbnail   (h, w, 3) uint8      raw slide colour at ``mask_mpp`` (true µm/px of its pixels)
+    mask        (h, w) bool          tissue mask at ``mask_mpp`` (the same pixels' grid)
 
 Group attributes carry the provenance (see :data:`REQUIRED_ATTRS`); ``complete`` is written last.
 Any zarr v3 reader can open a store; tilewright is not needed to read it.

@@ -135,21 +135,28 @@ class TissueMask:
 
 
 def _thumbnail(slide, mpp):
-    """RGB uint8 thumbnail at ``mpp`` and the source path (or None)."""
+    """RGB uint8 thumbnail at about ``mpp``, the true µm/px of its pixels, and the source path.
+
+    A slide's thumbnail (and any array with an ``mpp`` attribute, such as
+    :class:`tilewright.slide.thumbnail.Thumbnail`) carries the µm/px of its pixels, which may
+    differ from the request by the thumbnail tolerance: that value is the mask's.
+    """
     if isinstance(slide, np.ndarray):
         rgb, path = slide, None
     elif hasattr(slide, "thumbnail"):
         path = getattr(slide, "path", None)
-        rgb = np.asarray(slide.thumbnail(mpp=mpp))
+        rgb = slide.thumbnail(mpp=mpp)
     else:
         raise TypeError(f"tissue_mask needs a slide (with .thumbnail) or an RGB ndarray, got {type(slide).__name__}")
+    mpp = float(getattr(rgb, "mpp", None) or mpp)
+    rgb = np.asarray(rgb)
     if rgb.ndim == 3 and rgb.shape[2] == 4:
         rgb = rgb[..., :3]
     if rgb.ndim != 3 or rgb.shape[2] != 3 or rgb.size == 0:
         raise ValueError(f"expected an RGB image (H, W, 3), got shape {rgb.shape}")
     if rgb.dtype != np.uint8:
         raise ValueError(f"expected uint8 RGB, got {rgb.dtype}; convert with skimage.util.img_as_ubyte")
-    return np.ascontiguousarray(rgb), None if path is None else os.fspath(path)
+    return np.ascontiguousarray(rgb), mpp, None if path is None else os.fspath(path)
 
 
 def _px(um: float, mpp: float) -> int:
@@ -228,9 +235,11 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-otsu", sensitivity
     ----------
     slide : slide object or ndarray (H, W, 3) uint8
         An object with ``.thumbnail(mpp=...)`` (and optionally ``.path``), or an RGB image whose
-        pixel size is ``mpp``.
+        pixel size is ``mpp`` (or its own ``.mpp``, as a slide's thumbnail carries).
     mpp : float
-        µm/px of the mask (and of ``slide`` when it is an array). Default 8.
+        µm/px asked of the mask (and of ``slide`` when it is an array without ``.mpp``).
+        Default 8. The mask takes the true µm/px of the thumbnail's pixels, which may differ
+        from this by the thumbnail tolerance (a pyramid level reused as is).
     method : {"od-otsu", "saturation-otsu"}
         Feature to threshold. The saturation method thresholds HSV saturation (floor
         ``min_saturation``) without the log scale.
@@ -307,7 +316,7 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-otsu", sensitivity
             raise ValueError(f"{name} must be a positive number, got {value!r}")
     if method not in METHODS:
         raise ValueError(f"unknown tissue method {method!r}; choose one of {METHODS}")
-    rgb, path = _thumbnail(slide, mpp)
+    rgb, mpp, path = _thumbnail(slide, mpp)  # mpp: the true µm/px of the thumbnail's pixels
     survey = find_glass(rgb, fallback=glass_fallback)
     warnings = []
     glass_given = glass

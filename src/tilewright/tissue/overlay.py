@@ -29,13 +29,19 @@ _TEXT = (20, 20, 20)
 _BAND = 128  # rows blended at a time
 
 
-def _resize_nearest(a: np.ndarray, shape) -> np.ndarray:
-    """Nearest-neighbour resize of a 2-D mask (pixel centres mapped back)."""
-    if a.shape == tuple(shape):
+def _on_picture(a: np.ndarray, a_mpp: float, mpp_yx, shape) -> np.ndarray:
+    """A 2-D mask at ``a_mpp`` µm/px sampled onto a picture of ``shape`` whose pixels are
+    ``mpp_yx`` µm (per axis): each picture pixel takes the mask pixel under its centre, by
+    physical position from the slide origin (False past the mask's edge)."""
+    (my, mx), (h, w) = mpp_yx, shape
+    if a.shape == (h, w) and my == mx == a_mpp:
         return a
-    iy = np.minimum((np.arange(shape[0]) + 0.5) * a.shape[0] / shape[0], a.shape[0] - 1).astype(np.intp)
-    ix = np.minimum((np.arange(shape[1]) + 0.5) * a.shape[1] / shape[1], a.shape[1] - 1).astype(np.intp)
-    return a[iy[:, None], ix[None, :]]
+    iy = np.floor((np.arange(h) + 0.5) * (my / a_mpp)).astype(np.intp)
+    ix = np.floor((np.arange(w) + 0.5) * (mx / a_mpp)).astype(np.intp)
+    out = np.zeros((h, w), bool)
+    ry, rx = iy < a.shape[0], ix < a.shape[1]
+    out[np.ix_(ry, rx)] = a[np.ix_(iy[ry], ix[rx])]
+    return out
 
 
 def _rgb(hex_colour: str) -> tuple[int, int, int]:
@@ -67,14 +73,14 @@ def _outline(canvas: np.ndarray, mask: np.ndarray, colour, thickness: int) -> No
     cv2.drawContours(canvas, contours, -1, colour, thickness, lineType=cv2.LINE_8)
 
 
-def _tile_boxes(plan, mpp: float, shape) -> np.ndarray:
-    """Inclusive pixel boxes ``(x0, y0, x1, y1)`` of the planned tiles on a picture at ``mpp``."""
-    f = plan.mpp / mpp
-    y0 = np.floor(plan.yx[:, 0] * f)
-    x0 = np.floor(plan.yx[:, 1] * f)
-    s = plan.tile * f
-    y1 = np.minimum(np.ceil(plan.yx[:, 0] * f + s) - 1, shape[0] - 1)
-    x1 = np.minimum(np.ceil(plan.yx[:, 1] * f + s) - 1, shape[1] - 1)
+def _tile_boxes(plan, mpp_yx, shape) -> np.ndarray:
+    """Inclusive pixel boxes ``(x0, y0, x1, y1)`` of the planned tiles on a picture whose pixels
+    are ``mpp_yx`` µm (per axis), by the plan's true µm/px."""
+    fy, fx = plan.mpp / mpp_yx[0], plan.mpp / mpp_yx[1]
+    y0 = np.floor(plan.yx[:, 0] * fy)
+    x0 = np.floor(plan.yx[:, 1] * fx)
+    y1 = np.minimum(np.ceil((plan.yx[:, 0] + plan.tile) * fy) - 1, shape[0] - 1)
+    x1 = np.minimum(np.ceil((plan.yx[:, 1] + plan.tile) * fx) - 1, shape[1] - 1)
     return np.c_[x0, y0, np.maximum(x1, x0), np.maximum(y1, y0)].astype(np.int64)
 
 
@@ -137,14 +143,16 @@ def render_overlay(slide, mask, plan, path, *, mpp: float | None = None, title: 
     Parameters
     ----------
     slide : slide object or ndarray (H, W, 3) uint8
-        Something with ``.thumbnail(mpp=...)``, or an RGB thumbnail at ``mpp``.
+        Something with ``.thumbnail(mpp=...)``, or an RGB thumbnail at ``mpp`` (or at its own
+        ``.mpp``, which a slide's thumbnail carries).
     mask : TissueMask
     plan : TilePlan or None
     path : str or os.PathLike
         Output PNG. Written to a temporary name first, then renamed, so a failure leaves no
         half-written picture.
     mpp : float, optional
-        µm/px of the picture; the mask's by default.
+        µm/px asked of the thumbnail; the mask's by default. The mask, ink and tile boxes are
+        placed by the true µm/px of the thumbnail's pixels and of the mask.
     title : str, optional
         Heading; the slide's file name by default.
 
@@ -180,15 +188,17 @@ def write_png(path, png: bytes) -> str:
 
 def overlay_base(rgb: np.ndarray, mpp: float) -> tuple[np.ndarray, float]:
     """The thumbnail the QC picture is drawn on, and its µm/px: at most :data:`MAX_SIDE` pixels
-    on its longer side (area-averaged down by an integer factor; bounded memory whatever the
-    slide size). Drawing from this equals drawing from the full thumbnail."""
+    on its longer side (area-averaged down by a whole factor, the last partial block of rows and
+    columns left out so the picture's pixels are exactly ``factor`` thumbnail pixels; bounded
+    memory whatever the slide size). Drawing from this equals drawing from the full thumbnail."""
     import cv2
 
     h, w = rgb.shape[:2]
     shrink = int(np.ceil(max(h, w) / MAX_SIDE))
     if shrink <= 1:
         return rgb, mpp
-    small = cv2.resize(np.ascontiguousarray(rgb), (max(1, w // shrink), max(1, h // shrink)),
+    oh, ow = max(1, h // shrink), max(1, w // shrink)
+    small = cv2.resize(np.ascontiguousarray(rgb[: oh * shrink, : ow * shrink]), (ow, oh),
                        interpolation=cv2.INTER_AREA)
     return small, mpp * shrink
 
@@ -203,20 +213,22 @@ def overlay_png(slide, mask, plan, *, mpp: float | None = None, title: str | Non
 
     mpp = float(mask.mpp if mpp is None else mpp)
     if isinstance(slide, np.ndarray):
-        rgb, name = slide[..., :3], None
+        rgb, name = slide, None
     else:
-        rgb, name = np.asarray(slide.thumbnail(mpp=mpp))[..., :3], getattr(slide, "path", None)
-    rgb, mpp = overlay_base(rgb, mpp)
+        rgb, name = slide.thumbnail(mpp=mpp), getattr(slide, "path", None)
+    mpp = float(getattr(rgb, "mpp", None) or mpp)  # a slide's thumbnail carries its true µm/px
+    rgb, mpp = overlay_base(np.asarray(rgb)[..., :3], mpp)
     h, w = rgb.shape[:2]
+    mpp_yx = (mpp, mpp)
     grow = min(MIN_WIDTH / max(w, 1), MAX_SIDE / max(h, w, 1))
     if grow > 1:  # small thumbnails are enlarged to fill the picture width
         rgb = cv2.resize(np.ascontiguousarray(rgb), (int(round(w * grow)), int(round(h * grow))),
                          interpolation=cv2.INTER_LINEAR)
-        mpp *= w / rgb.shape[1]
+        mpp_yx = (mpp * h / rgb.shape[0], mpp * w / rgb.shape[1])  # rounding: per axis
         h, w = rgb.shape[:2]
-    tissue = _resize_nearest(mask.array, (h, w))
-    ink = _resize_nearest(mask.ink, (h, w))
-    dark = _resize_nearest(mask.dark, (h, w))
+    tissue = _on_picture(mask.array, mask.mpp, mpp_yx, (h, w))
+    ink = _on_picture(mask.ink, mask.mpp, mpp_yx, (h, w))
+    dark = _on_picture(mask.dark, mask.mpp, mpp_yx, (h, w))
 
     width = max(w, MIN_WIDTH)
     canvas = np.full((h + CAPTION_HEIGHT, width, 3), 255, np.uint8)
@@ -230,7 +242,7 @@ def overlay_png(slide, mask, plan, *, mpp: float | None = None, title: str | Non
         del stripes
     n_tiles = 0 if plan is None else len(plan)
     if n_tiles:
-        boxes = _tile_boxes(plan, mpp, (h, w))
+        boxes = _tile_boxes(plan, mpp_yx, (h, w))
         inside = np.zeros((h, w), np.uint8)
         for x0, y0, x1, y1 in boxes:
             inside[y0:y1 + 1, x0:x1 + 1] = 1

@@ -165,7 +165,9 @@ def plan_tiles(view, mask, *, tile: int = 256, stride: int | None = None, min_ti
         Keep tiles whose tissue fraction is at least this (0 to 1).
     regions : RegionMap-like, optional
         An object with ``.fractions(keep, yx, h, w, mpp) -> (N,)``; tiles whose fraction inside
-        the ``keep`` classes is below ``min_region`` are dropped.
+        the ``keep`` classes is below ``min_region`` are dropped. Polygons in level-0 pixels
+        not yet bound to a level-0 µm/px (``RegionMap.from_geojson(path)`` without ``mpp``)
+        are bound to the view's slide (``view.slide.mpp``, else ``view.mpp / view.scale``).
     keep : str or sequence of str, optional
         Region classes to keep, passed to ``regions.fractions`` (a string is split on commas).
     min_region : float
@@ -218,6 +220,7 @@ def plan_tiles(view, mask, *, tile: int = 256, stride: int | None = None, min_ti
     n_tissue = yx.shape[0]
     region = None
     if regions is not None:
+        regions = _bound_to_slide(regions, view)
         region = np.asarray(regions.fractions(keep, yx, tile, tile, mpp), dtype=np.float32).reshape(-1)
         ok = region >= np.float32(min_region)
         yx, tissue, region = yx[ok], tissue[ok], region[ok]
@@ -232,3 +235,14 @@ def plan_tiles(view, mask, *, tile: int = 256, stride: int | None = None, min_ti
               "edge_rule": "drop tiles past the slide edge"}
     return TilePlan(yx, tissue, tile=tile, stride=stride, mpp=mpp, scale=float(getattr(view, "scale", 1.0)),
                     shape=shape, region=region, params=params)
+
+
+def _bound_to_slide(regions, view):
+    """``regions`` bound to the level-0 µm/px of ``view``'s slide when it lacks one (polygon
+    maps drawn in level-0 pixels); unchanged when bound already or when the view cannot tell."""
+    if getattr(regions, "level0_mpp", 0) is not None or not hasattr(regions, "with_mpp"):
+        return regions
+    level0 = getattr(getattr(view, "slide", None), "mpp", None)
+    if level0 is None and getattr(view, "scale", None):
+        level0 = float(view.mpp) / float(view.scale)
+    return regions if level0 is None else regions.with_mpp(float(level0))
