@@ -15,6 +15,8 @@ from tilewright.errors import ConfigError
 
 __all__ = ["execute", "local_cluster", "connect"]
 
+log = logging.getLogger("tilewright")
+
 
 def local_cluster(workers: int):
     """The ``dask.distributed`` LocalCluster tile-out starts: ``workers`` single-threaded processes.
@@ -113,10 +115,7 @@ def execute(fn, args_list, *, scheduler=None, workers=None, on_error=None, stop_
     finally:
         if futures and any(not f.done() for f in futures):
             _stop(client, futures, stop_name)
-        if own_client is not None:
-            own_client.close()
-        if own_cluster is not None:
-            own_cluster.close()
+        _let_go(own_client, own_cluster)
 
 
 #: Seconds a stopped run waits for running tasks to reach a safe point and clean up.
@@ -132,10 +131,31 @@ def _stop(client, futures, stop_name) -> None:
         if stop_name is not None:
             Event(stop_name, client=client).set()
         wait(pending, timeout=STOP_WAIT)
-    except Exception:  # noqa: BLE001 - best effort: the caller sweeps leftovers afterwards
-        pass
+    except Exception as exc:  # noqa: BLE001 - best effort: the caller sweeps leftovers afterwards
+        log.debug("stopping the running tasks: %s: %s", type(exc).__name__, exc)
     finally:
-        client.cancel(pending)
+        _quietly("cancelling the queued tasks", client.cancel, pending)
+
+
+def _let_go(client, cluster) -> None:
+    """Close the client and the local cluster this run started.
+
+    Closing races with whatever stopped the run (a worker killed a moment before a SIGTERM is
+    being restarted by its nanny, a comm is half closed): such an error says nothing about the
+    stores, which are complete or swept, so it is logged and never replaces the run's outcome
+    (the stop that is propagating, or the results already yielded).
+    """
+    if client is not None:
+        _quietly("closing the dask client", client.close)
+    if cluster is not None:
+        _quietly("closing the local dask cluster", cluster.close)
+
+
+def _quietly(what, fn, *args) -> None:
+    try:
+        fn(*args)
+    except Exception as exc:  # noqa: BLE001 - see _let_go
+        log.debug("%s: %s: %s", what, type(exc).__name__, exc)
 
 
 def _client(cluster):
