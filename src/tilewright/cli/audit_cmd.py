@@ -92,7 +92,13 @@ def run(args: argparse.Namespace) -> int:
     if args.max_tiles < 1:
         return _fail(f"--max-tiles must be at least 1, got {args.max_tiles}", 2)
     report = Path(args.report) if args.report else out / "audit"
-    options = {"metadata": args.metadata, "label": args.label, "max_tiles": args.max_tiles, "seed": args.seed}
+    metadata = args.metadata
+    if metadata is not None:  # checked and joined to the manifest before any metric is computed
+        checked = _check_metadata(out, metadata, args.label)
+        if isinstance(checked, int):
+            return checked
+        metadata = checked
+    options = {"metadata": metadata, "label": args.label, "max_tiles": args.max_tiles, "seed": args.seed}
     try:
         audit = audit_cohort(out, source=args.source, **options)
         before = None
@@ -114,6 +120,31 @@ def run(args: argparse.Namespace) -> int:
             print(f"  - {line}")
     print(f"report: {path}")
     return 0
+
+
+def _check_metadata(out: Path, metadata: str, label: str | None):
+    """The metadata table joined to the cohort's slide ids (its notes printed), or exit code 2.
+
+    Ids written as slide file names (``N01.svs``) are matched to the slide ids; rows of slides the
+    run skipped or failed are told apart from ids that name no slide (see
+    :mod:`tilewright.audit.metadata_match`).
+    """
+    from tilewright.audit.metadata_match import match_metadata
+    from tilewright.audit.source import read_manifest, resolve_folder
+    from tilewright.errors import ConfigError, StoreError
+
+    try:
+        match = match_metadata(metadata, read_manifest(resolve_folder(out)))
+    except ConfigError as exc:
+        return _fail(exc.one_line(), 2)
+    except StoreError as exc:
+        return _fail(exc.one_line(), 2)
+    columns = list(match.table.columns) + ["mpp_source"]
+    if label is not None and label not in columns:
+        return _fail(f"--label {label!r} is not a column of {metadata} (columns: {', '.join(columns)})", 2)
+    for line in match.notes():
+        print(f"note: {line}")
+    return match.table
 
 
 def main(argv=None) -> int:

@@ -13,6 +13,7 @@ import os
 import sys
 from pathlib import Path
 
+from tilewright.cli.parser import CommandParser
 from tilewright.errors import ConfigError, OutputLockedError
 
 __all__ = ["main", "build_parser"]
@@ -23,8 +24,9 @@ EXIT_OK, EXIT_BAD_ARGS, EXIT_SOME_FAILED, EXIT_LOCKED, EXIT_INTERRUPTED = 0, 2, 
 
 
 def build_parser() -> argparse.ArgumentParser:
-    p = argparse.ArgumentParser(
+    p = CommandParser(
         prog="tile-out",
+        usage="%(prog)s SOURCE OUT [options]   (or: %(prog)s --print-config [options]; %(prog)s --help)",
         description="Cut harmonized, tissue-only (optionally stain-normalized) tiles from H&E slides "
                     "into one zarr store a slide. Research use only; not for diagnosis.",
         epilog="Exit codes: 0 all done, 3 some slides failed (see manifest.csv), 2 bad arguments, "

@@ -35,7 +35,8 @@ class TilingConfig:
         Stain normalization method.
     reference : str, dict or None
         Reference image path, or a fitted normalizer dictionary. None with a normalizer means
-        the cohort's own median target (computed once per output folder).
+        the cohort's own median target (computed once per output folder). Needs ``normalizer``
+        (a reference without one is a :class:`ConfigError`, not silently ignored).
     max_tiles : int or None
         Keep at most this many tiles a slide, sampled reproducibly and spread over the slide.
     seed : int
@@ -154,6 +155,11 @@ class TilingConfig:
             raise ConfigError(f"reference must be an image path or a fitted normalizer dict, got {type(self.reference).__name__}")
         if isinstance(self.reference, os.PathLike):
             self.reference = os.fspath(self.reference)
+        if self.reference is not None and self.normalizer is None:  # never silently ignored
+            method = self.reference.get("method") if isinstance(self.reference, dict) else None
+            raise ConfigError("reference= (--reference) is the target of stain normalization and needs normalizer= "
+                              f"(--normalize {method if method in _NORMALIZERS[1:] else 'macenko or reinhard'}); "
+                              "without it the reference would be ignored")
         return self
 
     def _validate_regions(self):
