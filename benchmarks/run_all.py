@@ -131,12 +131,12 @@ def cohort(paths, out, cfg, *, client=None, target=None):
     import json
 
     import tilewright as tw
-    from tilewright.run.cohort import STAIN_TARGET_FILE
+    from tilewright.run.cohort import stain_target_path
 
     shutil.rmtree(out, ignore_errors=True)
     if target is not None:
         Path(out).mkdir(parents=True)
-        (Path(out) / STAIN_TARGET_FILE).write_text(json.dumps(target))
+        stain_target_path(out, target["method"]).write_text(json.dumps(target))
     t0, c0 = time.perf_counter(), time.process_time()
     res = tw.tile_cohort([str(p) for p in paths], out, cfg, scheduler=client, workers=1, progress=False)
     seconds = time.perf_counter() - t0
@@ -229,7 +229,7 @@ def main(argv=None):
         tw.tile_slide(main_slide, tmp / "warm", tw.TilingConfig(mpp=MPP, max_tiles=8, qc_overlay=False))
         raw_decode(main_slide, yx[:50], scale)
         cohort([main_slide], tmp / "mac-target", mac_cfg)
-        target = json.loads((tmp / "mac-target" / "stain_target.json").read_text())
+        target = json.loads((tmp / "mac-target" / "stain_target.macenko.json").read_text())
         rows = [  # key, label, run, source MP, note
             ("raw", "raw decode: tifffile, needed level-0 tiles, 1 thread", raw(main_slide), src_mp,
              f"{4 * n} JPEG tiles"),

@@ -2,7 +2,7 @@
 
 Exit codes: 0 all slides succeeded (or were skipped), 3 some slides failed (each failure is a
 manifest row with a one-line reason), 2 bad arguments, 4 the output folder is in use by another
-run, 130 interrupted (a later run resumes).
+run, 130 interrupted by Ctrl-C and 143 stopped by SIGTERM (a later run resumes either).
 """
 
 from __future__ import annotations
@@ -21,6 +21,7 @@ __all__ = ["main", "build_parser"]
 log = logging.getLogger("tilewright")
 
 EXIT_OK, EXIT_BAD_ARGS, EXIT_SOME_FAILED, EXIT_LOCKED, EXIT_INTERRUPTED = 0, 2, 3, 4, 130
+EXIT_TERMINATED = 143
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -30,7 +31,7 @@ def build_parser() -> argparse.ArgumentParser:
         description="Cut harmonized, tissue-only (optionally stain-normalized) tiles from H&E slides "
                     "into one zarr store a slide. Research use only; not for diagnosis.",
         epilog="Exit codes: 0 all done, 3 some slides failed (see manifest.csv), 2 bad arguments, "
-               "4 output folder in use, 130 interrupted (run again to resume).")
+               "4 output folder in use, 130 interrupted / 143 terminated (run again to resume).")
     p.add_argument("source", metavar="SOURCE", nargs="?",
                    help="a slide file, a folder (searched recursively) or a .txt/.csv list of paths")
     p.add_argument("out", metavar="OUT", nargs="?", help="output folder")
@@ -50,7 +51,7 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--normalize", choices=["macenko", "reinhard", "none"],
                    help="stain normalization (default none)")
     g.add_argument("--reference", help="reference image (PNG/JPEG/TIFF) or fitted-normalizer JSON; without it "
-                                       "the cohort's own median stain is the target, saved as OUT/stain_target.json")
+                                       "the cohort's own median stain is the target, saved as OUT/stain_target.<method>.json")
     g = p.add_argument_group("regions")
     g.add_argument("--regions", help="region annotations: a GeoJSON/tile-table file, or a folder with one file a slide id")
     g.add_argument("--keep", help="region classes to keep, comma separated (needed with --regions; case and "
@@ -123,17 +124,21 @@ def main(argv=None) -> int:
             parser.error("SOURCE and OUT are required (or use --print-config)")
         if args.workers < 1:
             raise ConfigError("--workers must be at least 1")
-        return run(args, _share_cores(config, args))
+        from tilewright.interrupts import stop_on_signals
+
+        with stop_on_signals():  # SIGTERM (a batch scheduler's time limit) stops like Ctrl-C
+            return run(args, _share_cores(config, args))
     except ConfigError as exc:
         print(f"tile-out: error: {exc}", file=sys.stderr)
         return EXIT_BAD_ARGS
     except OutputLockedError as exc:
         print(f"tile-out: {exc}", file=sys.stderr)
         return EXIT_LOCKED
-    except KeyboardInterrupt:
-        print("\ntile-out: interrupted; finished stores are kept, run the same command again to resume",
-              file=sys.stderr)
-        return EXIT_INTERRUPTED
+    except KeyboardInterrupt as exc:
+        what = "stopped (SIGTERM)" if getattr(exc, "signum", None) == EXIT_TERMINATED - 128 else "interrupted"
+        print(f"\ntile-out: {what}; finished stores and the manifest are kept, run the same command again "
+              "to resume", file=sys.stderr)
+        return getattr(exc, "exit_code", EXIT_INTERRUPTED)
 
 
 def _share_cores(config, args):

@@ -9,20 +9,23 @@ from pathlib import Path
 
 from tilewright.errors import TilewrightError
 from tilewright.run.config import TilingConfig
+from tilewright.run.ledger import INTERRUPTED
 from tilewright.run.slide import SlideResult
 from tilewright.store.layout import slide_ids, store_path
 
-__all__ = ["tile_cohort", "run_one", "STAIN_TARGET_FILE"]
+__all__ = ["tile_cohort", "run_one", "stain_target_path", "STAIN_TARGET_FILE"]
 
-
+#: The single stain-target file of earlier versions (still read when its method matches).
 STAIN_TARGET_FILE = "stain_target.json"
 
 
 def run_one(path: str, out_dir: str, config: dict, slide_id: str, mpp: float | None,
-            target: dict | None, overwrite: bool) -> dict:
+            target: dict | None, overwrite: bool, stop_name: str | None = None) -> dict:
     """Tile one slide and return its manifest row; never raises for a bad slide.
 
     This is the unit of work sent to dask workers (arguments are plain, picklable values).
+    ``stop_name`` names a ``distributed.Event``: once set, the slide stops at its next block
+    (its temporary store removed) and its row says it was interrupted.
     """
     from tilewright.run.allocator import steady_heap
 
@@ -30,16 +33,23 @@ def run_one(path: str, out_dir: str, config: dict, slide_id: str, mpp: float | N
     t0 = time.perf_counter()
     cfg = TilingConfig.from_dict(config)
     final = store_path(out_dir, slide_id)
+    stop = _stop_check(stop_name)
     try:
-        done = None if overwrite else _complete_row(final, path, slide_id, cfg)
-        if done is not None:
-            return done
+        stop()
         normalizer = None
         if target is not None:
             from tilewright.stain.registry import normalizer_from_dict
 
             normalizer = normalizer_from_dict(target)
-        res = tile_slide_row(path, final, cfg, slide_id, mpp, normalizer)
+        done = None if overwrite else _complete_row(final, path, slide_id, cfg, mpp, normalizer)
+        if done is not None:
+            return done
+        res = tile_slide_row(path, final, cfg, slide_id, mpp, normalizer, stop)
+    except KeyboardInterrupt as exc:
+        if stop_name is None:
+            raise  # in this process: Ctrl-C stops the run
+        res = SlideResult(slide_id, path, "failed", INTERRUPTED)  # on a worker: the run was stopped
+        del exc
     except TilewrightError as exc:
         res = SlideResult(slide_id, path, "failed", exc.one_line())
     except MemoryError:
@@ -51,10 +61,43 @@ def run_one(path: str, out_dir: str, config: dict, slide_id: str, mpp: float | N
     return res.to_row()
 
 
-def tile_slide_row(path, final, cfg, slide_id, mpp, normalizer) -> SlideResult:
+def _stop_check(stop_name):
+    """A callable raising :class:`~tilewright.interrupts.Stopped` once the run's stop event is set
+    (polled at most once a second); a no-op without one."""
+    if stop_name is None:
+        return lambda *_: None
+    from distributed import Event
+
+    from tilewright.interrupts import Stopped
+
+    event = Event(stop_name)
+    last = [0.0]
+
+    def check(*_):
+        now = time.monotonic()
+        if now - last[0] >= 1.0:
+            last[0] = now
+            if event.is_set():
+                raise Stopped()
+
+    return check
+
+
+def failure_row(path, slide_id, exc) -> dict:
+    """The manifest row of a slide whose task raised outside :func:`run_one` (its worker died)."""
+    name = type(exc).__name__
+    if name == "KilledWorker":
+        reason = (f"{path}: the worker tiling this slide died (killed, or out of memory); lower "
+                  "--workers or --threads, or run again to retry")
+    else:
+        reason = f"{path}: unexpected {name}: " + " ".join(str(exc).split())[:300]
+    return SlideResult(slide_id, str(path), "failed", reason).to_row()
+
+
+def tile_slide_row(path, final, cfg, slide_id, mpp, normalizer, progress=None) -> SlideResult:
     from tilewright.run.slide import tile_slide
 
-    res = tile_slide(path, final, cfg, slide_id=slide_id, mpp=mpp, target=normalizer)
+    res = tile_slide(path, final, cfg, slide_id=slide_id, mpp=mpp, target=normalizer, progress=progress)
     if res.n_tiles == 0:
         from tilewright.run.skip_reason import skip_reason
         from tilewright.store.reader import open_store
@@ -64,42 +107,39 @@ def tile_slide_row(path, final, cfg, slide_id, mpp, normalizer) -> SlideResult:
     return res
 
 
-#: Settings that do not change what a store contains. Compression is lossless (the same pixels
-#: whichever codec) and each store names its codec in its metadata, so a cohort may mix them.
-_RUN_ONLY = ("threads", "verify_jpeg", "qc_overlay", "compression")
+def _complete_row(final: Path, path: str, slide_id: str, cfg: TilingConfig, mpp, target) -> dict | None:
+    """Manifest row of an already complete store this run would write the same, or None.
 
-
-def _complete_row(final: Path, path: str, slide_id: str, cfg: TilingConfig) -> dict | None:
-    """Manifest row of an already complete store made with the same settings, or None.
-
-    A complete store made with other settings is not silently kept or replaced: the slide fails
-    with a reason saying how to proceed.
+    "The same" is the resume identity (:mod:`tilewright.run.identity`): settings, source file,
+    level-0 µm/px, stain target. A complete store that differs is not silently kept or replaced:
+    the slide fails with a reason saying how to proceed, and the store stays as it is.
     """
     from tilewright.errors import ConfigError
+    from tilewright.run.identity import identity_changes, run_identity, store_identity
+    from tilewright.run.ledger import store_row
     from tilewright.store.reader import is_complete, open_store
 
     if not is_complete(final):
         return None
-    a = open_store(final).attrs
-    old, new = dict(a.get("config") or {}), cfg.to_dict()
-    changed = sorted(k for k in set(old) | set(new) if k not in _RUN_ONLY and old.get(k) != new.get(k))
+    changed = identity_changes(store_identity(open_store(final).attrs), run_identity(path, cfg, mpp, target))
     if changed:
-        detail = ", ".join(f"{k} {old.get(k)!r} -> {new.get(k)!r}" for k in changed[:4])
-        raise ConfigError(f"a complete store made with other settings exists ({detail}); pass --overwrite "
-                          "to re-tile or choose another output folder", final)
+        raise ConfigError(f"a complete store made with other settings or another source exists "
+                          f"({', '.join(changed[:4])}); it is kept as it is; pass --overwrite to re-tile "
+                          "or choose another output folder", final)
     if cfg.keep:  # region files are part of a store's identity: edited annotations are re-tiled
         from tilewright.regions.load import region_change
 
-        why = region_change(a.get("regions"), cfg.regions, slide_id)
+        why = region_change(open_store(final).attrs.get("regions"), cfg.regions, slide_id)
         if why:
-            raise ConfigError(f"a complete store made with other settings exists ({why}); pass --overwrite "
-                              "to re-tile or choose another output folder", final)
-    n = int(a.get("n_tiles", 0))
-    from tilewright.run.skip_reason import skip_reason
+            raise ConfigError(f"a complete store made with other settings exists ({why}); it is kept as it "
+                              "is; pass --overwrite to re-tile or choose another output folder", final)
+    return store_row(Path(final).parent, slide_id, path)
 
-    return SlideResult(slide_id, path, "ok" if n else "skipped", "" if n else skip_reason(a),
-                       n, a.get("mpp_source"), a.get("objective"), a.get("source_level"), 0.0,
-                       str(final)).to_row()
+
+def stain_target_path(out_dir, method: str) -> Path:
+    """Where the cohort's own stain target for ``method`` is saved: one file a method, so a run
+    with another method never replaces the target the existing stores were normalized to."""
+    return Path(out_dir) / f"stain_target.{method}.json"
 
 
 def _stain_target(paths, out_dir: Path, config: TilingConfig, mpps, compute) -> dict | None:
@@ -110,17 +150,18 @@ def _stain_target(paths, out_dir: Path, config: TilingConfig, mpps, compute) -> 
         return None
     if config.reference is not None:
         return make_target(config.normalizer, config.reference).to_dict()
-    saved = out_dir / STAIN_TARGET_FILE
-    if saved.exists():
-        d = json.loads(saved.read_text())
-        if d.get("method") == config.normalizer:
-            return d
+    saved = stain_target_path(out_dir, config.normalizer)
+    for candidate in (saved, out_dir / STAIN_TARGET_FILE):  # STAIN_TARGET_FILE: written by earlier versions
+        if candidate.exists():
+            d = json.loads(candidate.read_text())
+            if d.get("method") == config.normalizer:
+                return d
     from tilewright.run.target import cohort_target
 
     d = cohort_target(paths, config, mpps, compute)
     if d is None:
         return None
-    tmp = saved.with_suffix(".tmp")
+    tmp = saved.with_name(f".{saved.name}.{os.getpid()}.tmp")
     tmp.write_text(json.dumps(d, indent=1))
     os.replace(tmp, saved)
     return d
@@ -129,18 +170,20 @@ def _stain_target(paths, out_dir: Path, config: TilingConfig, mpps, compute) -> 
 def tile_cohort(paths, out_dir, config: TilingConfig | None = None, *, scheduler=None, workers=None,
                 progress=True, overwrite: bool = False, mpp: dict | float | None = None,
                 on_result=None) -> list[SlideResult]:
-    """Tile every slide into ``out_dir`` and write the manifest.
+    """Tile every slide into ``out_dir`` and keep the manifest current.
 
     Parameters
     ----------
     paths : list of path
-        Slide files (see :func:`tilewright.run.sources.find_slides` for folders and lists).
+        Slide files (see :func:`tilewright.run.sources.find_slides` for folders and lists); a
+        file named twice is tiled once.
     out_dir : path
         Output folder: one store a slide, ``manifest.csv``/``.parquet``, ``config.toml``.
     config : TilingConfig
     scheduler : str or distributed.Client, optional
-        A dask.distributed scheduler address (``tcp://host:8786``) or client. Default: local dask
-        with ``workers`` processes (1 runs in this process).
+        A dask.distributed scheduler address (``tcp://host:8786``) or client. Every worker must
+        see the slides and ``out_dir`` at the same absolute paths (checked before any work).
+        Default: local dask with ``workers`` processes (1 runs in this process).
     workers : int, optional
         Local worker processes (default 1).
     progress : bool or callable
@@ -155,11 +198,22 @@ def tile_cohort(paths, out_dir, config: TilingConfig | None = None, *, scheduler
     Returns
     -------
     list of SlideResult
-        In input order. Failures are rows with status "failed", never exceptions.
+        In input order. Failures are rows with status "failed", never exceptions: a slide that
+        raised, whose worker died, or that was interrupted. A run stopped by Ctrl-C / SIGTERM
+        raises ``KeyboardInterrupt`` once the manifest names every slide done so far.
+
+    Notes
+    -----
+    The manifest is rewritten (atomically) each time a slide finishes and keeps the rows of
+    slides this run did not reach and of earlier runs into the same folder; a run that stops
+    before any slide finished leaves the manifest and ``config.toml`` as they were
+    (:mod:`tilewright.run.ledger`). A complete store is kept only when this run would write the
+    same one (:mod:`tilewright.run.identity`).
     """
     from tilewright.run.execute import execute
+    from tilewright.run.ledger import Ledger
     from tilewright.run.lock import output_lock
-    from tilewright.store.cohort import write_manifest
+    from tilewright.run.sources import unique_paths
 
     config = config or TilingConfig()
     if on_result is None and callable(progress):
@@ -168,7 +222,7 @@ def tile_cohort(paths, out_dir, config: TilingConfig | None = None, *, scheduler
         from tilewright.cli.progress import SlideProgress
 
         on_result = SlideProgress(len(paths))
-    out_dir = Path(out_dir)
+    out_dir = Path(out_dir).absolute()  # workers resolve relative paths in their own folder
     try:
         out_dir.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
@@ -176,34 +230,88 @@ def tile_cohort(paths, out_dir, config: TilingConfig | None = None, *, scheduler
 
         raise StoreError(f"cannot create the output folder ({exc.strerror or exc}); choose a writable "
                          "folder path", out_dir) from None
-    paths = [str(p) for p in paths]
+    paths = [str(Path(p).absolute()) for p in unique_paths(paths)]
     ids = slide_ids(paths)
     mpps = [_mpp_for(mpp, p, i) for p, i in zip(paths, ids)]
-    with output_lock(out_dir):
-        (out_dir / "config.toml").write_text(config.to_toml(), encoding="utf-8")
-        rows: dict[int, dict] = {}
+    with output_lock(out_dir), _cluster(scheduler, workers, paths, out_dir, ids) as (client, stop_name):
+        ledger = Ledger(out_dir, paths, ids, config.to_toml())
 
-        def done(i, row):
-            rows[i] = row
-            if on_result is not None:
-                on_result(row)
-
-        def compute(fn, args_list):
-            return execute(fn, args_list, scheduler=scheduler, workers=workers)
+        def compute(fn, args_list, on_error):
+            return execute(fn, args_list, scheduler=scheduler, workers=workers, on_error=on_error,
+                           stop_name=stop_name, client=client)
 
         try:
-            target = _stain_target(paths, out_dir, config, mpps, lambda fn, a: [r for _, r in compute(fn, a)])
-            args = [(p, str(out_dir), config.to_dict(), sid, m, target, overwrite)
+            target = _stain_target(paths, out_dir, config, mpps, lambda fn, a: [
+                r for _, r in compute(fn, a, lambda i, exc: None)])  # a slide that fails here fails later
+            args = [(p, str(out_dir), config.to_dict(), sid, m, target, overwrite, stop_name)
                     for p, sid, m in zip(paths, ids, mpps)]
-            for i, row in execute(run_one, args, scheduler=scheduler, workers=workers):
-                done(i, row)
+            ledger.started = True
+            results = compute(run_one, args, lambda i, exc: failure_row(paths[i], ids[i], exc))
+            try:
+                for i, row in results:
+                    ledger.record(row)
+                    if on_result is not None:
+                        on_result(row)
+            finally:
+                results.close()  # running tasks stopped and waited for before the sweep below
         finally:
-            final_rows = []
-            for i, (p, sid) in enumerate(zip(paths, ids)):
-                final_rows.append(rows.get(i) or SlideResult(
-                    sid, p, "failed", "interrupted before this slide finished; run again to resume").to_row())
-            write_manifest(out_dir, final_rows)
-    return [SlideResult(**{k: r[k] for k in SlideResult.__dataclass_fields__}) for r in final_rows]
+            ledger.write()
+    return [SlideResult(**{k: r[k] for k in SlideResult.__dataclass_fields__}) for r in ledger.rows()]
+
+
+def _sweep_partials(out_dir: Path, ids) -> None:
+    """Remove temporary stores a stopped or killed worker left (this run holds the folder's lock)."""
+    from tilewright.store.writer import remove_partials
+
+    for sid in ids:
+        remove_partials(store_path(out_dir, sid))
+
+
+class _cluster:
+    """The dask client of a run on workers (None in this process) and the name of its stop event;
+    workers are checked to see the slides and the output folder first."""
+
+    def __init__(self, scheduler, workers, paths, out_dir, ids):
+        self.args = (scheduler, workers, paths, out_dir)
+        self.ids = ids
+        self.client = self.cluster = None
+        self.own = False
+
+    def __enter__(self):
+        import uuid
+
+        scheduler, workers, paths, out_dir = self.args
+        if scheduler is None and (workers or 1) <= 1:
+            return None, None
+        from tilewright.run.execute import connect, local_cluster
+
+        if scheduler is not None:
+            self.client = connect(scheduler)
+            self.own = self.client is not scheduler
+            from tilewright.run.workers_check import check_workers
+
+            try:
+                check_workers(self.client, paths, out_dir)
+            except BaseException:
+                self.__exit__(None, None, None)
+                raise
+        else:
+            from distributed import Client
+
+            self.cluster = local_cluster(workers)
+            self.client, self.own = Client(self.cluster), True
+        return self.client, f"tilewright-stop-{uuid.uuid4().hex}"
+
+    def __exit__(self, *exc):
+        try:
+            if self.own and self.client is not None:
+                self.client.close()
+            if self.cluster is not None:
+                self.cluster.close()  # local workers end here: nothing writes any more
+        finally:
+            if self.client is not None:
+                _sweep_partials(self.args[3], self.ids)
+        return False
 
 
 def _mpp_for(mpp, path, slide_id):
@@ -212,4 +320,7 @@ def _mpp_for(mpp, path, slide_id):
     for key in (slide_id, path, os.path.basename(path)):
         if key in mpp:
             return float(mpp[key])
+    for key, value in mpp.items():  # a path given relative to the working folder
+        if os.path.abspath(str(key)) == path:
+            return float(value)
     return None

@@ -11,7 +11,9 @@ from __future__ import annotations
 
 import logging
 
-__all__ = ["execute", "local_cluster"]
+from tilewright.errors import ConfigError
+
+__all__ = ["execute", "local_cluster", "connect"]
 
 
 def local_cluster(workers: int):
@@ -33,33 +35,110 @@ def local_cluster(workers: int):
                             dashboard_address=None, silence_logs=logging.ERROR)
 
 
-def execute(fn, args_list, *, scheduler=None, workers=None):
-    """Yield ``(index, fn(*args))`` for every ``args`` in ``args_list``, in completion order."""
+#: How long the client tries to reach a scheduler before giving up.
+CONNECT_TIMEOUT = "30s"
+
+
+def connect(scheduler):
+    """A ``distributed.Client`` for a scheduler address (or the client given); raises
+    :class:`ConfigError` naming the address when it cannot be reached."""
+    from distributed import Client
+
+    if isinstance(scheduler, Client):
+        return scheduler
+    try:
+        return Client(scheduler, timeout=CONNECT_TIMEOUT)
+    except (OSError, TimeoutError, ValueError) as exc:
+        raise ConfigError(f"cannot reach the dask scheduler at {scheduler} ({type(exc).__name__}: "
+                          f"{' '.join(str(exc).split())[:200]}); start it (`dask scheduler`) or fix the "
+                          "address") from None
+
+
+def execute(fn, args_list, *, scheduler=None, workers=None, on_error=None, stop_name=None, client=None):
+    """Yield ``(index, fn(*args))`` for every ``args`` in ``args_list``, in completion order.
+
+    Parameters
+    ----------
+    fn : callable
+        A picklable function (sent to dask workers).
+    args_list : list of tuple
+    scheduler, workers :
+        Where to run (see the module docstring).
+    on_error : callable, optional
+        ``on_error(index, exception)`` gives the value yielded for a task that raised (or whose
+        worker died: ``KilledWorker``), so one bad task never ends the others. Without it the
+        exception propagates.
+    stop_name : str, optional
+        Name of a ``distributed.Event`` set when this generator is stopped early (Ctrl-C, SIGTERM,
+        an error): tasks that poll it stop at their next safe point, and the running ones are
+        waited for (up to :data:`STOP_WAIT` seconds) before the cluster is let go.
+    client : distributed.Client, optional
+        A client already connected (then ``scheduler`` is ignored and the client is not closed).
+    """
     args_list = list(args_list)
     if not args_list:
         return
-    if scheduler is None and (workers or 1) <= 1:
+    if client is None and scheduler is None and (workers or 1) <= 1:
         for i, args in enumerate(args_list):
-            yield i, fn(*args)
+            try:
+                value = fn(*args)
+            except Exception as exc:  # noqa: BLE001 - on_error decides; Ctrl-C passes through
+                if on_error is None:
+                    raise
+                value = on_error(i, exc)
+            yield i, value
         return
-    from distributed import Client, as_completed
+    from distributed import as_completed
 
-    own_cluster = None
-    if isinstance(scheduler, Client):
-        client, own_client = scheduler, False
-    elif scheduler is not None:
-        client, own_client = Client(scheduler, timeout="30s"), True
-    else:
-        own_cluster = local_cluster(workers)
-        client, own_client = Client(own_cluster), True
+    own_cluster = own_client = None
+    if client is None:
+        if scheduler is not None:
+            client = own_client = connect(scheduler)
+        else:
+            own_cluster = local_cluster(workers)
+            client = own_client = _client(own_cluster)
+    futures = []
     try:
         futures = [client.submit(fn, *args, key=f"tilewright-{fn.__name__}-{i}-{id(args_list)}", pure=False)
                    for i, args in enumerate(args_list)]
         index = {f.key: i for i, f in enumerate(futures)}
         for fut in as_completed(futures):
-            yield index[fut.key], fut.result()
+            try:
+                value = fut.result()
+            except Exception as exc:  # noqa: BLE001 - e.g. KilledWorker: the worker died mid-task
+                if on_error is None:
+                    raise
+                value = on_error(index[fut.key], exc)
+            yield index[fut.key], value
     finally:
-        if own_client:
-            client.close()
+        if futures and any(not f.done() for f in futures):
+            _stop(client, futures, stop_name)
+        if own_client is not None:
+            own_client.close()
         if own_cluster is not None:
             own_cluster.close()
+
+
+#: Seconds a stopped run waits for running tasks to reach a safe point and clean up.
+STOP_WAIT = 60
+
+
+def _stop(client, futures, stop_name) -> None:
+    """Cancel queued tasks, ask running ones to stop, and wait for them to finish."""
+    from distributed import Event, wait
+
+    pending = [f for f in futures if not f.done()]
+    try:
+        if stop_name is not None:
+            Event(stop_name, client=client).set()
+        wait(pending, timeout=STOP_WAIT)
+    except Exception:  # noqa: BLE001 - best effort: the caller sweeps leftovers afterwards
+        pass
+    finally:
+        client.cancel(pending)
+
+
+def _client(cluster):
+    from distributed import Client
+
+    return Client(cluster)

@@ -13,6 +13,7 @@ import numpy as np
 
 from tilewright.errors import StainEstimationError, TilewrightError
 from tilewright.run.config import TilingConfig
+from tilewright.run.identity import target_digest
 from tilewright.store.layout import slide_ids
 from tilewright.store.writer import StoreWriter, remove_partials
 
@@ -56,7 +57,7 @@ def _tile_arrays(view, plan, config, bind, writer, progress):
     min_sharp = config.min_sharpness
 
     def prepare(tiles):
-        bound = None if bind is None else bind.result()  # fitted beside the first reads
+        bound = None if bind is None else bind.result()[0]  # fitted beside the first reads
         if bound is not None:
             tiles = bound.transform(tiles, out=tiles)
         sharp = sharpness(tiles)
@@ -66,15 +67,24 @@ def _tile_arrays(view, plan, config, bind, writer, progress):
         encoded = writer.encode(tiles)
         return (None if encoded is not None else tiles), sharp, keep, encoded  # pixels freed once encoded
 
+    counts = {"read": 0, "kept": 0}
     for positions, (tiles, sharp, keep, encoded) in iter_tile_blocks(
             view, yx, config.tile, block=config.block, threads=config.threads, process=prepare,
             reuse=writer.encodes, groups=groups):  # compressed in the reader: its buffer is free for the next block
         pos = positions if keep is None else positions[keep]
+        counts["read"] += len(positions)
+        counts["kept"] += len(pos)
         if len(pos):
             writer.append(tiles, yx[pos], np.rint(yx[pos] * scale).astype(np.int64), tissue[pos], sharp,
                           None if region is None else region[pos], encoded=encoded)
         if progress is not None:
             progress(len(positions))
+    if counts["read"] != len(yx):
+        from tilewright.errors import StoreError
+
+        raise StoreError(f"{counts['read']} of {len(yx)} planned tiles were read; nothing was committed; "
+                         "run again", writer.final)
+    return counts["kept"]
 
 
 def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str | None = None,
@@ -146,11 +156,12 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
                 # digested beside the tile pipeline; the pictures are freed once written
                 aside = pool.submit(_aside, writer, survey.maps, survey.draw, survey.mask, plan, path, slide_id)
                 survey.maps = survey.draw = survey.mask = None
-                _tile_arrays(view, plan, config, bind, writer, progress)
-                bound = None if bind is None else bind.result()
+                kept = _tile_arrays(view, plan, config, bind, writer, progress)
+                bound, used = (None, None) if bind is None else bind.result()
                 attrs["normalizer"] = None if bound is None else bound.to_dict()
+                attrs["stain_target"] = target_digest(used)  # what a resumed run must match
                 png, attrs["source"]["digest"] = aside.result()
-                writer.commit(attrs, overwrite=overwrite)
+                writer.commit(attrs, overwrite=overwrite, expected=kept)
                 n = writer.n
         except BaseException:  # nothing half-written survives, whatever stopped the slide
             remove_partials(final)
@@ -241,20 +252,24 @@ def _glass(thumbnail, mask):
 
 def _bind_normalizer(view, plan, config, target, path, glass=None):
     """Fit the target (if needed) and bind the slide's own stain estimate from a tile sample,
-    optical density measured against the slide's glass colour ``glass``."""
+    optical density measured against the slide's glass colour ``glass``.
+
+    Returns ``(bound normalizer, shared target or None)``."""
     from tilewright.run.reference import make_target, sample_tiles
     from tilewright.stain.registry import make_normalizer
 
     sample = sample_tiles(view, plan.yx, config.tile, config.stain_sample, config.seed, threads=config.threads)
     if len(sample) == 0:
-        return None  # nothing will be stored; no estimate needed
+        return None, None  # nothing will be stored; no estimate needed
+    if target is None and config.reference is not None:
+        target = make_target(config.normalizer, config.reference)
+    used = target  # the shared target (None: the slide's own estimate is its target)
     if target is None:
-        target = (make_target(config.normalizer, config.reference) if config.reference is not None
-                  else make_normalizer(config.normalizer).fit(sample, glass=glass))
+        target = make_normalizer(config.normalizer).fit(sample, glass=glass)
     if config.per_tile_stain:
-        return target.with_glass(glass)
+        return target.with_glass(glass), used
     try:
-        return target.fit_source(sample, glass=glass)
+        return target.fit_source(sample, glass=glass), used
     except StainEstimationError as exc:
         raise StainEstimationError(f"cannot estimate this slide's stain from {len(sample)} tissue tiles "
                                    f"({exc.reason}); lower --min-tissue or run without --normalize", path) from None

@@ -9,7 +9,7 @@ from pathlib import Path
 from tilewright.errors import ConfigError
 from tilewright.store.layout import SLIDE_SUFFIXES
 
-__all__ = ["find_slides", "read_mpp_table", "is_slide_name"]
+__all__ = ["find_slides", "read_mpp_table", "is_slide_name", "unique_paths"]
 
 _LIST_SUFFIXES = (".txt", ".csv", ".lst", ".list", ".tsv")
 
@@ -19,12 +19,26 @@ def is_slide_name(path: str | os.PathLike) -> bool:
     return Path(path).name.lower().endswith(SLIDE_SUFFIXES)
 
 
+def unique_paths(paths) -> list[Path]:
+    """``paths`` in their order with repeats dropped: a file named twice (even as ``a/../b.svs``
+    and ``b.svs``, or through a symbolic link) is one slide, tiled once."""
+    seen: set = set()
+    out = []
+    for p in map(Path, paths):
+        key = os.path.realpath(p)
+        if key not in seen:
+            seen.add(key)
+            out.append(p)
+    return out
+
+
 def find_slides(source: str | os.PathLike) -> list[Path]:
     """Slide paths from a slide file, a folder (recursive), or a text/CSV list of paths.
 
     A list file holds one path a line (``#`` starts a comment), or a CSV with a ``path`` column
     (``source`` and ``slide`` also accepted; a first line that is neither a slide path nor such a
-    header is an error, so a metadata table given by mistake is refused, not read line by line); relative paths are relative to the list file.
+    header is an error, so a metadata table given by mistake is refused, not read line by line);
+    relative paths are relative to the list file, and a file listed twice is one slide.
     Folder searches skip hidden folders and ``*.zarr`` outputs and return paths sorted.
     """
     source = Path(source)
@@ -58,7 +72,7 @@ def _read_list(path: Path) -> list[Path]:
         entries = [r[column].strip() for r in rows if r.get(column)]
     else:
         entries = lines
-    return [p if p.is_absolute() else (path.parent / p) for p in map(Path, entries)]
+    return unique_paths(p if p.is_absolute() else (path.parent / p) for p in map(Path, entries))
 
 
 def _names_a_slide(line: str, list_file: Path) -> bool:

@@ -49,8 +49,9 @@ def read_manifest(out_dir: str | os.PathLike):
     csv = out_dir / "manifest.csv"
     if pq.exists():
         return pd.read_parquet(pq)
-    if csv.exists():
-        return pd.read_csv(csv, keep_default_na=False, na_values=[""])
+    if csv.exists():  # ids and texts stay strings ("001" is not the number 1)
+        return pd.read_csv(csv, keep_default_na=False, na_values=[""],
+                           dtype={"slide_id": str, "source": str, "status": str, "error": str})
     raise StoreError("no manifest.csv or manifest.parquet; is this a tile-out output folder?", out_dir)
 
 
@@ -102,7 +103,10 @@ class Cohort:
         manifest (``tile_slide`` output), rows made from its complete stores
         (:func:`stores_manifest`).
     stores : dict[str, TileStore]
-        Complete stores of the slides whose status is ``ok``, by slide id.
+        Complete stores of the manifest's slides, by slide id: those whose status is ``ok``, and
+        those whose latest run failed while an earlier complete store was kept (for example a
+        re-run with other settings, refused without ``--overwrite``; the row says why).
+        Slides ``skipped`` for lack of tissue have no tiles and are left out.
     """
 
     def __init__(self, path: str | os.PathLike):
@@ -115,7 +119,7 @@ class Cohort:
         self.stores = {}
         for sid, status in zip(self.manifest["slide_id"], self.manifest["status"]):
             p = store_path(self.path, str(sid))
-            if status == "ok" and is_complete(p):
+            if status != "skipped" and is_complete(p):
                 self.stores[str(sid)] = TileStore(p)
 
     @property

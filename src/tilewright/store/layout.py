@@ -30,6 +30,7 @@ __all__ = [
     "slide_stem",
     "slide_ids",
     "store_path",
+    "MAX_ID_BYTES",
 ]
 
 FORMAT_NAME = "tilewright.tiles"
@@ -62,10 +63,32 @@ def slide_stem(path: str | os.PathLike) -> str:
     return stem or name
 
 
+#: Characters replaced by ``_`` in ids: path separators, control characters, and characters that
+#: glob patterns or shells treat specially (``a[1]`` would match ``a1`` as a pattern).
+_UNSAFE = re.compile(r"[\\/:*?\"<>|\[\]{}!$`'&;()#\x00-\x1f\x7f]")
+
+#: Longest id in UTF-8 bytes: the store's longest temporary name (``<id>.zarr.partial-old-`` and 8
+#: hex digits, 26 bytes more) must stay within the 255-byte file-name limit of common file systems.
+MAX_ID_BYTES = 200
+
+
 def _safe(text: str) -> str:
-    """A file-system safe id (keeps unicode letters; replaces separators and control chars)."""
-    text = re.sub(r"[\\/:*?\"<>|\x00-\x1f]", "_", text).strip()
-    return text or "slide"
+    """A file-system safe id (keeps unicode letters and spaces; replaces separators, control
+    characters and glob/shell-special characters)."""
+    text = _UNSAFE.sub("_", text).strip()
+    return _shorten(text) if text else "slide"
+
+
+def _shorten(text: str) -> str:
+    """``text`` itself when it fits :data:`MAX_ID_BYTES`; otherwise its head and a stable hash of
+    the whole (``<head>_<8 hex digits of SHA-1>``), so long names stay distinct and reproducible."""
+    import hashlib
+
+    raw = text.encode("utf-8")
+    if len(raw) <= MAX_ID_BYTES:
+        return text
+    head = raw[: MAX_ID_BYTES - 9].decode("utf-8", errors="ignore").rstrip()
+    return f"{head}_{hashlib.sha1(raw).hexdigest()[:8]}"
 
 
 def slide_ids(paths) -> list[str]:
@@ -73,7 +96,10 @@ def slide_ids(paths) -> list[str]:
 
     The id is the file name without extension(s). When several files share one, each gets its
     parent folder's name as a prefix (``sub_b``); if that still collides, more parent folders are
-    added, then a counter.
+    added, then a counter that skips ids already taken. Glob/shell-special characters
+    (``[ ] * ? { } ! $ ; & ( ) #`` ...) and separators become ``_``; ids longer than
+    :data:`MAX_ID_BYTES` keep their head and gain a stable hash suffix. Pass each slide once
+    (:func:`tilewright.run.sources.unique_paths` drops repeats).
     """
     paths = [Path(p) for p in paths]
     ids = [_safe(slide_stem(p)) for p in paths]
@@ -82,21 +108,37 @@ def slide_ids(paths) -> list[str]:
     for p, sid in zip(paths, ids):
         if counts[sid] > 1:
             parts = [_safe(x) for x in p.parent.parts[-1:]]
-            sid = "_".join(parts + [sid]) if parts else sid
+            sid = _shorten("_".join(parts + [sid])) if parts else sid
         out.append(sid)
     depth = 2
     while len(set(out)) < len(out) and depth < 6:
         counts = Counter(out)
         out = [
-            "_".join([_safe(x) for x in p.parent.parts[-depth:]] + [_safe(slide_stem(p))]) if counts[o] > 1 else o
+            _shorten("_".join([_safe(x) for x in p.parent.parts[-depth:]] + [_safe(slide_stem(p))]))
+            if counts[o] > 1 else o
             for p, o in zip(paths, out)
         ]
         depth += 1
-    seen: Counter = Counter()
+    return _numbered(out)
+
+
+def _numbered(ids: list[str]) -> list[str]:
+    """Ids made unique by a counter (``b``, ``b_2``, ...), skipping counters that would hit another
+    id of the list (``b_2`` when a slide is already called ``b_2``)."""
+    taken = set(ids)
+    seen: set = set()
     final = []
-    for o in out:
-        seen[o] += 1
-        final.append(o if seen[o] == 1 else f"{o}_{seen[o]}")
+    for o in ids:
+        if o not in seen:
+            seen.add(o)
+            final.append(o)
+            continue
+        k = 2
+        while _shorten(f"{o}_{k}") in taken or _shorten(f"{o}_{k}") in seen:
+            k += 1
+        new = _shorten(f"{o}_{k}")
+        seen.add(new)
+        final.append(new)
     return final
 
 

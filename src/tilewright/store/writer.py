@@ -11,6 +11,7 @@ writes only the metadata and the small arrays. Any zarr v3 reader reads the resu
 
 from __future__ import annotations
 
+import errno
 import os
 import shutil
 import uuid
@@ -54,11 +55,16 @@ def compressor(name: str):
 
 def remove_partials(final: str | os.PathLike) -> None:
     """Delete temporary folders left by interrupted writes of ``final``."""
+    from tilewright.interrupts import signals_deferred
+
     final = Path(final)
     if not final.parent.exists():
         return
-    for p in final.parent.glob(final.name + _PARTIAL + "*"):
-        shutil.rmtree(p, ignore_errors=True)
+    prefix = final.name + _PARTIAL  # compared as text: a name is not a pattern (``a[1]`` vs ``a1``)
+    with signals_deferred():  # a Ctrl-C here would leave half a folder behind
+        for name in os.listdir(final.parent):
+            if name.startswith(prefix):
+                shutil.rmtree(final.parent / name, ignore_errors=True)
 
 
 class StoreWriter:
@@ -84,26 +90,34 @@ class StoreWriter:
                  compression: str = "lz4", with_region: bool = False):
         import zarr
 
+        from tilewright.store.guard import GuardedLocalStore, WriteGuard
+
         self.final = Path(final)
         self.tmp = self.final.with_name(self.final.name + _PARTIAL + uuid.uuid4().hex[:8])
+        self.guard = WriteGuard(self.tmp, self.final)  # abort waits for the writes in flight
         self.tile = int(tile)
         self.n = 0
         cap = max(int(capacity), 1)
         try:
             self.final.parent.mkdir(parents=True, exist_ok=True)
-            self.group = zarr.open_group(str(self.tmp), mode="w", zarr_format=3)
+            self.group = zarr.open_group(GuardedLocalStore(self.tmp, guard=self.guard), mode="w", zarr_format=3)
             shard = max(1, min(int(shard_tiles), cap))
             self.tiles = self.group.create_array(
                 "tiles", shape=(cap, tile, tile, 3), chunks=(1, tile, tile, 3),
                 shards=(shard, tile, tile, 3), dtype="uint8", compressors=compressor(compression),
                 fill_value=255, dimension_names=("tile", "y", "x", "rgb"))
+            self._arrays = ["tiles"]  # every array created: each is checked before the rename
             self._meta = {"yx": [], "yx_level0": [], "tissue": [], "sharpness": [], "region": []}
             self.with_region = with_region
             self.shard = int(self.tiles.shards[0])
             self._encoder = ShardEncoder.for_array(self.tiles)  # None: let zarr write the tiles
             self._pending: list = []  # encoded chunks of a shard not yet full
+            self.guard.created = True  # from now on a vanished folder fails every write
         except OSError as exc:
             self.abort()
+            if exc.errno == errno.ENAMETOOLONG:
+                raise StoreError(f"the store's name is too long for this file system ({exc.strerror}); "
+                                 "use a shorter output folder path or slide id", self.final) from exc
             raise StoreError(f"cannot create the store ({exc.strerror or exc}); check that the output "
                              "folder is writable and has free space", self.final) from exc
         except BaseException:  # e.g. Ctrl-C while the folder is being made: __exit__ will not run
@@ -168,12 +182,14 @@ class StoreWriter:
         chunks = self._pending + list(encoded)
         full = (len(chunks) // self.shard) * self.shard
         for i in range(0, full, self.shard):
-            self._encoder.write_chunks((start + i) // self.shard, chunks[i:i + self.shard])
+            with self.guard.writing():
+                self._encoder.write_chunks((start + i) // self.shard, chunks[i:i + self.shard])
         self._pending = chunks[full:]
 
     def _flush_pending(self) -> None:
         if self._encoder is not None and self._pending:
-            self._encoder.write_chunks((self.n - len(self._pending)) // self.shard, self._pending)
+            with self.guard.writing():
+                self._encoder.write_chunks((self.n - len(self._pending)) // self.shard, self._pending)
             self._pending = []
 
     def _small(self, name, data, *, band: int | None = None, **kw) -> None:
@@ -185,7 +201,10 @@ class StoreWriter:
             chunks = (max(1, min(band, data.shape[0])), max(1, min(band, data.shape[1]))) + data.shape[2:]
         else:
             chunks = tuple(max(1, d) for d in data.shape)
-        arr = self.group.create_array(name, shape=data.shape, dtype=data.dtype, chunks=chunks, **kw)
+        # every chunk is written, even one equal to the fill value, so check_store can count them
+        arr = self.group.create_array(name, shape=data.shape, dtype=data.dtype, chunks=chunks,
+                                      config={"write_empty_chunks": True}, **kw)
+        self._arrays.append(name)
         if not data.size:
             return
         if not banded:
@@ -210,9 +229,20 @@ class StoreWriter:
                              self.final) from exc
 
     def commit(self, attrs: dict, thumbnail: np.ndarray | None = None, mask: np.ndarray | None = None, *,
-               overwrite: bool = True, extra: dict | None = None) -> Path:
-        """Write coordinates (and the pictures, unless :meth:`write_maps` did), mark complete, rename
-        into place."""
+               overwrite: bool = True, extra: dict | None = None, expected: int | None = None) -> Path:
+        """Write coordinates (and the pictures, unless :meth:`write_maps` did), mark complete, check
+        the store is whole (:func:`tilewright.store.verify.check_store`), rename into place.
+
+        ``expected`` is the number of tiles the caller meant to store (the plan less the tiles it
+        dropped on purpose); a store holding another number is refused, never committed with
+        holes. Without it, the tiles appended count (the capacity is trimmed to them).
+        """
+        from tilewright.store.verify import check_store
+
+        if expected is not None and int(expected) != self.n:
+            self.abort()
+            raise StoreError(f"{self.n} tiles were written where {int(expected)} were planned; nothing was "
+                             "committed; run again", self.final)
         try:
             self._flush_pending()
             if self.n < self.tiles.shape[0]:
@@ -231,6 +261,23 @@ class StoreWriter:
             full["complete"] = False
             self.group.update_attributes(full)  # one metadata write (attrs.update writes per key)
             self.group.update_attributes({"complete": True})  # the last thing written
+            with self.guard.writing():  # fails here if the folder vanished meanwhile
+                check_store(self.tmp, self.final, n_tiles=self.n, arrays=self._arrays,
+                            shard_index=self._encoder is not None)
+            self._rename_into_place(overwrite)
+        except OSError as exc:
+            self.abort()
+            raise StoreError(f"finishing the store failed ({exc.strerror or exc}); check free space "
+                             "and permissions", self.final) from exc
+        return self.final
+
+    def _rename_into_place(self, overwrite: bool) -> None:
+        """Move the finished temporary folder to the final name (replacing an old store), with
+        no write left in flight and no signal able to stop it between the two renames."""
+        from tilewright.interrupts import signals_deferred
+
+        with signals_deferred():
+            self.guard.close()  # nothing more is written under the temporary name
             if self.final.exists():
                 if not overwrite:
                     raise StoreError("a store already exists; pass overwrite to replace it", self.final)
@@ -240,15 +287,20 @@ class StoreWriter:
                 shutil.rmtree(old, ignore_errors=True)
             else:
                 os.replace(self.tmp, self.final)
-        except OSError as exc:
-            self.abort()
-            raise StoreError(f"finishing the store failed ({exc.strerror or exc}); check free space "
-                             "and permissions", self.final) from exc
-        return self.final
 
     def abort(self) -> None:
-        """Remove the temporary folder (used on any failure)."""
-        shutil.rmtree(self.tmp, ignore_errors=True)
+        """Remove the temporary folder (used on any failure).
+
+        Writes still in flight (zarr finishes a write on its own thread even when the caller
+        stopped waiting for it, e.g. on Ctrl-C) are waited for first and later ones refused, so
+        nothing re-creates the folder once it is gone; a SIGINT/SIGTERM arriving meanwhile is
+        delivered when the folder is removed.
+        """
+        from tilewright.interrupts import signals_deferred
+
+        with signals_deferred():
+            self.guard.close()
+            shutil.rmtree(self.tmp, ignore_errors=True)
 
     def __enter__(self):
         return self

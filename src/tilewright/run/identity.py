@@ -1,0 +1,125 @@
+"""Whether a complete store is the one this run would write: the resume identity.
+
+A re-run keeps a complete store only when everything that decides its tiles is unchanged: the
+tile-changing settings, the source file itself (size and content digest), the level-0 µm/px in
+effect (the file's own, or ``--source-mpp`` / ``--mpp-table``), and the stain target the tiles
+were normalized to. Both sides are plain dicts of named fields, built by :func:`run_identity`
+(this run) and :func:`store_identity` (a store's attributes), compared by
+:func:`identity_changes`; a new kind of identity (a region file, a colour profile, a codec) is one
+more field in both builders.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import math
+import os
+
+__all__ = ["RUN_ONLY", "run_identity", "store_identity", "identity_changes", "target_digest"]
+
+#: Settings that do not change what a store contains. Compression is lossless (the same pixels
+#: whichever codec) and each store names its codec in its metadata, so a cohort may mix them.
+RUN_ONLY = ("threads", "verify_jpeg", "qc_overlay", "compression")
+
+#: Field names (they appear in the messages of refused resumes).
+SOURCE_SIZE, SOURCE_DIGEST, LEVEL0_MPP, STAIN_TARGET = (
+    "source size", "source digest", "level-0 µm/px", "stain target")
+
+
+def target_digest(target) -> str | None:
+    """SHA-256 of a fitted normalizer's dictionary (canonical JSON), or None for no target."""
+    if target is None:
+        return None
+    if isinstance(target, dict):  # through the normalizer, as a run binds it: one form per target
+        from tilewright.stain.registry import normalizer_from_dict
+
+        target = normalizer_from_dict(target)
+    d = target.to_dict()
+    text = json.dumps(d, sort_keys=True, separators=(",", ":"), default=float)
+    return "sha256:" + hashlib.sha256(text.encode()).hexdigest()
+
+
+def _settings(config: dict) -> dict:
+    return {k: v for k, v in (config or {}).items() if k not in RUN_ONLY}
+
+
+def run_identity(path, config, mpp: float | None, target) -> dict:
+    """The identity of the store this run would write for the slide at ``path``.
+
+    Parameters
+    ----------
+    path : path
+        The slide file.
+    config : TilingConfig
+    mpp : float or None
+        The level-0 µm/px override of this run (None: the file's own value, read from its header).
+    target : normalizer or dict or None
+        The cohort's stain target (None: none, or each slide's own).
+    """
+    from tilewright.store.provenance import source_digest
+
+    ident = _settings(config.to_dict())
+    ident[SOURCE_SIZE] = os.path.getsize(path)
+    ident[SOURCE_DIGEST] = source_digest(path)
+    ident[LEVEL0_MPP] = float(mpp) if mpp is not None else _file_mpp(path, config)
+    ident[STAIN_TARGET] = target_digest(target)
+    return ident
+
+
+def _file_mpp(path, config) -> float | None:
+    from tilewright.errors import TilewrightError
+    from tilewright.slide.open import open as open_slide
+
+    try:
+        with open_slide(path, verify=False) as slide:
+            return float(slide.mpp)
+    except TilewrightError:
+        return None  # e.g. no resolution recorded: the store had an override, which now is missing
+
+
+_MISSING = object()
+
+
+def store_identity(attrs: dict) -> dict:
+    """The identity recorded in a complete store's attributes (fields older stores lack are left
+    out, so they are not compared)."""
+    ident = _settings(attrs.get("config"))
+    source = attrs.get("source") or {}
+    for field, value in ((SOURCE_SIZE, source.get("size")), (SOURCE_DIGEST, source.get("digest")),
+                         (LEVEL0_MPP, attrs.get("mpp_source")), (STAIN_TARGET, attrs.get("stain_target", _MISSING))):
+        if value is not _MISSING and not (field != STAIN_TARGET and value is None):
+            ident[field] = value
+    return ident
+
+
+def _same(a, b) -> bool:
+    if isinstance(a, float) or isinstance(b, float):
+        try:
+            return math.isclose(float(a), float(b), rel_tol=1e-9)
+        except (TypeError, ValueError):
+            return False
+    return a == b
+
+
+def identity_changes(old: dict, new: dict) -> list[str]:
+    """What differs between a store's identity and this run's, one ``"name old -> new"`` text a
+    field (fields the store does not record are not compared)."""
+    out = []
+    for key in sorted(set(old) | set(new), key=lambda k: (k in (SOURCE_SIZE, SOURCE_DIGEST, LEVEL0_MPP,
+                                                                STAIN_TARGET), k)):
+        if key not in old:
+            if key in (SOURCE_SIZE, SOURCE_DIGEST, LEVEL0_MPP, STAIN_TARGET):
+                continue  # not recorded by the store's version
+            if new.get(key) is None:
+                continue  # a setting added later, at its unset default
+        if not _same(old.get(key), new.get(key)):
+            out.append(f"{key} {_short(old.get(key))} -> {_short(new.get(key))}")
+    return out
+
+
+def _short(value) -> str:
+    text = repr(value)
+    if isinstance(value, str) and value.startswith("sha256"):
+        text = repr(value.split(":", 1)[-1][:12])
+    return text if len(text) <= 40 else text[:37] + "..."

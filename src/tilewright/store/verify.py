@@ -1,0 +1,104 @@
+"""A cheap structural check of a finished store, before it is renamed into place.
+
+A store that carries its final name must be whole: every array's metadata present and readable,
+every planned tile present in its shard file. Reading every pixel back would cost as much as
+writing them; this reads only metadata and the shard indexes (16 bytes a tile), so a store whose
+folder was emptied or partly removed while it was written (by another process, by hand) is
+refused instead of committed with holes that read as white tiles.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+
+from tilewright.errors import StoreError
+
+__all__ = ["check_store"]
+
+_EMPTY = 2**64 - 1
+
+
+def check_store(folder, final, *, n_tiles: int, arrays, shard_index: bool = True) -> None:
+    """Raise :class:`StoreError` unless ``folder`` holds a whole store of ``n_tiles`` tiles.
+
+    Parameters
+    ----------
+    folder : path
+        The temporary store folder.
+    final : path
+        The store's final name (named in the error).
+    n_tiles : int
+        Tiles the store must hold.
+    arrays : iterable of str
+        Names of every array written (``tiles`` and the small arrays).
+    shard_index : bool
+        Whether the tile shards have the layout :mod:`tilewright.store.shards` writes (index with
+        CRC-32C at the end; then each shard's index is checked), else their files are counted.
+    """
+    import zarr
+
+    folder = Path(folder)
+
+    def fail(what):
+        raise StoreError(f"the finished store is not whole ({what}); nothing was committed; run again", final)
+
+    try:
+        group = zarr.open_group(str(folder), mode="r")
+        attrs = dict(group.attrs)
+    except Exception as exc:  # noqa: BLE001 - any unreadable metadata means "not whole"
+        fail(f"group metadata unreadable: {type(exc).__name__}")
+    if int(attrs.get("n_tiles", -1)) != n_tiles or not attrs.get("complete"):
+        fail("group attributes do not record the tiles written")
+    for name in arrays:
+        try:
+            arr = group[name]
+        except Exception:  # noqa: BLE001
+            fail(f"array {name!r} missing")
+        if name != "tiles" and arr.ndim and arr.shape[0] != n_tiles and name in _PER_TILE:
+            fail(f"array {name!r} has {arr.shape[0]} rows for {n_tiles} tiles")
+        if name != "tiles" and arr.size:
+            try:
+                chunks = arr.nchunks_initialized
+            except Exception:  # noqa: BLE001
+                fail(f"array {name!r} unreadable")
+            if chunks != arr.nchunks:
+                fail(f"array {name!r} has {chunks} of {arr.nchunks} chunks")
+    tiles = group["tiles"]
+    if tiles.shape[0] != n_tiles:
+        fail(f"tiles array holds {tiles.shape[0]} tiles, {n_tiles} were written")
+    if shard_index:
+        _check_shards(folder / "tiles", tiles, n_tiles, fail)
+    elif tiles.nchunks_initialized != -(-n_tiles // int(tiles.shards[0] if tiles.shards else 1)):
+        fail("tile shard files missing")
+
+
+_PER_TILE = ("yx", "yx_level0", "tissue", "sharpness", "region")
+
+
+def _check_shards(folder: Path, tiles, n: int, fail) -> None:
+    """Every shard file of ``tiles`` exists and its index (checksum verified) lists its tiles."""
+    import google_crc32c
+
+    shard = int(tiles.shards[0]) if tiles.shards is not None else 1
+    key = tiles.metadata.encode_chunk_key
+    index_bytes = shard * 16 + 4
+    for s in range(-(-n // shard)):
+        path = folder / key((s, 0, 0, 0))
+        try:
+            with open(path, "rb") as fh:
+                size = fh.seek(0, 2)
+                if size < index_bytes:
+                    fail(f"shard file {path.name} of shard {s} is truncated")
+                fh.seek(size - index_bytes)
+                raw = fh.read(index_bytes)
+        except FileNotFoundError:
+            fail(f"shard file of tiles {s * shard}-{min(n, (s + 1) * shard) - 1} missing")
+        body, crc = raw[:-4], int.from_bytes(raw[-4:], "little")
+        if google_crc32c.value(body) != crc:
+            fail(f"shard {s} index checksum does not match")
+        index = np.frombuffer(body, dtype="<u8").reshape(shard, 2)
+        present = min(n - s * shard, shard)
+        if (index[:present, 0] == _EMPTY).any() or (index[:present, 0] + index[:present, 1] > size - index_bytes).any():
+            fail(f"shard {s} lacks some of its tiles")
