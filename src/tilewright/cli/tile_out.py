@@ -151,6 +151,14 @@ def _share_cores(config, args):
     return config.replace(threads=max(1, (os.cpu_count() or 2) // args.workers))
 
 
+def _check_tiles_fit(paths, config, mpp) -> None:
+    from tilewright.run.cohort import _mpp_for
+    from tilewright.run.feasible import check_tiles_fit
+    from tilewright.store.layout import slide_ids
+
+    check_tiles_fit(paths, config, [_mpp_for(mpp, str(p), sid) for p, sid in zip(paths, slide_ids(paths))])
+
+
 def run(args, config) -> int:
     from tilewright.cli.progress import SlideProgress, setup_logging
     from tilewright.cli.summary import print_summary
@@ -170,6 +178,7 @@ def run(args, config) -> int:
 
             for sid, p in zip(slide_ids(paths), paths):
                 mpp.setdefault(sid, args.source_mpp)
+    _check_tiles_fit(paths, config, mpp)  # settings that fit no slide: exit 2, nothing written
     out = Path(args.out)
     try:
         out.mkdir(parents=True, exist_ok=True)

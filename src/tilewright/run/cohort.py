@@ -122,6 +122,8 @@ def _complete_row(final: Path, path: str, slide_id: str, cfg: TilingConfig, mpp,
     if not is_complete(final):
         return None
     changed = identity_changes(store_identity(open_store(final).attrs), run_identity(path, cfg, mpp, target))
+    if changed and not int(open_store(final).attrs.get("n_tiles") or 0):
+        return None  # a skipped slide's store holds no tile: nothing to keep, tiled anew with these settings
     if changed:
         raise ConfigError(f"a complete store made with other settings or another source exists "
                           f"({', '.join(changed[:4])}); it is kept as it is; pass --overwrite to re-tile "

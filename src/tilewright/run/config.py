@@ -42,7 +42,8 @@ class TilingConfig:
     seed : int
         Seed for tile sampling and the stain estimation sample.
     mask_mpp : float
-        Resolution of the tissue mask, thumbnail and QC overlay.
+        Resolution of the tissue mask, thumbnail and QC overlay; at least as coarse as ``mpp``
+        (a target coarser than the mask is a :class:`ConfigError`).
     tolerance : float
         Relative tolerance to use a pyramid level as is.
     min_sharpness : float or None
@@ -127,6 +128,10 @@ class TilingConfig:
 
         positive("mpp", self.mpp)
         positive("mask_mpp", self.mask_mpp)
+        if self.mpp > self.mask_mpp:  # the mask that selects tiles must resolve them
+            raise ConfigError(f"mpp= (--mpp) {self.mpp:g} µm/px is coarser than the tissue mask (mask_mpp= / --mask-mpp "
+                              f"{self.mask_mpp:g} µm/px) that chooses the tiles; tiles are usually 0.25-1 µm/px "
+                              f"(common practice); for coarser tiles set --mask-mpp {self.mpp:g} or more")
         positive("tile", self.tile, int)
         positive("shard_tiles", self.shard_tiles, int)
         positive("block", self.block, int)
