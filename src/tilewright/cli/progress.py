@@ -46,11 +46,9 @@ class SlideProgress:
         self.done += 1
         self.failed += row["status"] == "failed"
         self.tiles += int(row.get("n_tiles") or 0)
-        msg = f"[{self.done}/{self.total}] {row['slide_id']}: {row['status']}"
-        if row["status"] == "failed":
-            msg += f" - {row['error']}"
-        else:
-            msg += f", {row.get('n_tiles', 0)} tiles in {row.get('seconds', 0):.1f} s"
+        from tilewright.cli.row_text import row_progress
+
+        msg = f"[{self.done}/{self.total}] {row['slide_id']}: {row_progress(row)}"
         (log.warning if row["status"] == "failed" else log.info)(msg)
         if self.bar:
             self._draw(row["slide_id"])

@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import sys
 
+from tilewright.cli.row_text import row_note, row_seconds, wrapped
+
 __all__ = ["print_summary"]
 
 
@@ -11,12 +13,9 @@ def print_summary(rows, out, stream=None) -> None:
     stream = stream or sys.stdout
     w = max([len("slide")] + [len(str(r["slide_id"])) for r in rows])
     stream.write(f"\n{'slide':<{w}}  {'status':<7}  {'tiles':>7}  {'seconds':>7}  note\n")
-    for r in rows:
-        note = str(r.get("error") or "")
-        if len(note) > 90:
-            note = note[:87] + "..."
-        stream.write(f"{r['slide_id']:<{w}}  {r['status']:<7}  {int(r.get('n_tiles') or 0):>7}  "
-                     f"{float(r.get('seconds') or 0):>7.1f}  {note}\n")
+    for r in rows:  # the note is never cut: wrapped at word boundaries under its column
+        head = f"{r['slide_id']:<{w}}  {r['status']:<7}  {int(r.get('n_tiles') or 0):>7}  {row_seconds(r)}  "
+        stream.write(head + wrapped(row_note(r), len(head)) + "\n")
     ok = sum(r["status"] == "ok" for r in rows)
     failed = sum(r["status"] == "failed" for r in rows)
     stream.write(f"\n{ok} ok, {len(rows) - ok - failed} skipped, {failed} failed. "

@@ -258,7 +258,7 @@ def tile_cohort(paths, out_dir, config: TilingConfig | None = None, *, scheduler
                 results.close()  # running tasks stopped and waited for before the sweep below
         finally:
             ledger.write()
-    return [SlideResult(**{k: r[k] for k in SlideResult.__dataclass_fields__}) for r in ledger.rows()]
+    return [SlideResult(**{k: r[k] for k in SlideResult.__dataclass_fields__ if k in r}) for r in ledger.rows()]
 
 
 def _sweep_partials(out_dir: Path, ids) -> None:

@@ -34,6 +34,7 @@ class SlideResult:
     source_level: int | None = None
     seconds: float = 0.0
     store: str = ""
+    kept: bool = False  # a complete store of an earlier run, kept as it is (seconds: that run's)
 
     def to_row(self) -> dict:
         return asdict(self)
