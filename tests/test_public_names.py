@@ -9,7 +9,7 @@ CONTRACT = ["open", "WholeSlide", "Level", "ResampledView", "tissue_mask", "Tiss
             "plan_tiles", "TilePlan", "RegionMap", "classify_regions", "MacenkoNormalizer",
             "ReinhardNormalizer", "estimate_stains", "StainJitter", "TilingConfig", "tile_slide",
             "SlideResult", "tile_cohort", "open_store", "TileStore", "open_cohort", "Cohort",
-            "audit_cohort", "CohortAudit"]
+            "audit_cohort", "CohortAudit", "make_splits"]
 
 
 @pytest.mark.parametrize("name", CONTRACT)

@@ -47,6 +47,7 @@ _PUBLIC = {
     # audit
     "audit_cohort": "tilewright.audit.cohort",
     "CohortAudit": "tilewright.audit.cohort",
+    "make_splits": "tilewright.splits.make",
 }
 
 __all__ = sorted(_PUBLIC) + ["errors", "__version__"]

@@ -20,6 +20,7 @@ __all__ = [
     "MissingResolutionError",
     "ImplausibleResolutionError",
     "SlideTooLargeError",
+    "SlideGeometryError",
     "ResolutionUnavailableError",
     "StainEstimationError",
     "RegionError",
@@ -85,6 +86,12 @@ class ImplausibleResolutionError(SlideError):
 
 class SlideTooLargeError(SlideError):
     """The declared dimensions are absurd; refused before allocating memory."""
+
+
+class SlideGeometryError(SlideError):
+    """The pixels cannot be placed on a square, upright grid as stored (pixels wider than they are
+    tall, a TIFF Orientation other than top-left); no backend is tried instead, since serving the
+    file as stored would give tiles of the wrong shape or orientation."""
 
 
 class ResolutionUnavailableError(SlideError, ValueError):

@@ -137,3 +137,19 @@ def make_cohort(out: Path, *, per_cell=4, seed=7, normalize=False, extra_rows=()
     table[manifest_cols].to_csv(out / "manifest.csv", index=False)
     metadata = table[table["status"] == "ok"][["slide_id", "site", "label"]].dropna().reset_index(drop=True)
     return metadata
+
+
+def make_one_site_cohort(out: Path, *, n_slides=12, seed=19):
+    """``n_slides`` slides of site-north only (no batch effect by construction); returns the slide ids."""
+    out = Path(out)
+    out.mkdir(parents=True, exist_ok=True)
+    rng = np.random.default_rng(seed)
+    rows = []
+    for i in range(n_slides):
+        slide_id = f"north-{i:02d}"
+        thumbnail, mask, tiles = make_slide(rng, "site-north")
+        write_store(out / f"{slide_id}.zarr", slide_id, thumbnail, mask, tiles, mpp_source=0.2527)
+        rows.append({"slide_id": slide_id, "source": f"/data/{slide_id}.tif", "status": "ok", "error": "",
+                     "n_tiles": len(tiles), "mpp_source": 0.2527})
+    pd.DataFrame(rows).to_csv(out / "manifest.csv", index=False)
+    return [r["slide_id"] for r in rows]

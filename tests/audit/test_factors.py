@@ -77,18 +77,27 @@ def test_comparison_findings_name_aliases_once():
     table = pd.DataFrame({
         "factor": ["site", "scanner", "pen", "label"],
         "cramers_v_before": [1.0, 1.0, 0.3, 0.1], "cramers_v_after": [0.2, 0.2, 0.2, 0.1],
+        "p_adjusted_before": [0.01, 0.01, 0.5, 0.8], "p_adjusted_after": [0.5, 0.5, 0.5, 0.8],
         "p_value_before": [0.01, 0.01, 0.5, 0.8], "p_value_after": [0.5, 0.5, 0.5, 0.8],
-        "ratio": [0.2, 0.2, 2 / 3, 1.0],
     })  # fmt: skip
-    lines = comparison_findings(table, ("raw", "normalized"), {"site": ["scanner"]})
-    assert lines[0].startswith("Association of colour clusters with site (= scanner) fell")
-    assert len(lines) == 3 and not any("with scanner" in s for s in lines)  # constructed above
-    # without aliases every factor has its own sentence (the earlier behaviour)
-    assert len(comparison_findings(table, ("raw", "normalized"))) == 4
+    lines = comparison_findings(table, ("raw tiles", "normalized tiles"), {"site": ["scanner"]})
+    # constructed above: site (= scanner) significant before only; pen and label never significant
+    assert lines[0].startswith("Colour clusters follow site (= scanner) in the raw tiles")
+    assert "no evidence that they do" in lines[0]
+    assert lines[1] == ("No evidence that colour clusters follow pen, label in either the raw tiles or the "
+                        "normalized tiles (all adjusted p >= 0.05).")
+    assert len(lines) == 2 and not any("scanner" in s for s in lines[1:])
+    # without aliases scanner has its own sentence
+    assert len(comparison_findings(table, ("raw", "normalized"))) == 3
     # an alias whose V differs in one audit (e.g. one audit lacks it) is reported on its own
     table.loc[1, "cramers_v_after"] = math.nan
     lines = comparison_findings(table, ("raw", "normalized"), {"site": ["scanner"]})
-    assert lines[0].startswith("Association of colour clusters with site fell")
+    assert lines[0].startswith("Colour clusters follow site in the raw")
+    # a change between two non-significant values is never stated as a rise or fall
+    noisy = table.assign(cramers_v_before=[0.24, 0.24, 0.24, 0.07], cramers_v_after=[0.52, 0.52, 0.52, 0.15],
+                         p_adjusted_before=[0.4] * 4, p_adjusted_after=[0.09] * 4)
+    lines = comparison_findings(noisy, ("raw", "normalized"))
+    assert len(lines) == 1 and lines[0].startswith("No evidence") and "rose" not in lines[0] and "%" not in lines[0]
 
 
 def test_audit_findings_skip_identifiers_and_group_aliases(raw_cohort):
@@ -105,7 +114,7 @@ def test_audit_findings_skip_identifiers_and_group_aliases(raw_cohort):
     assert "patient_id looks like an identifier (one value a slide); not tested." in audit.findings
     assert not any("follow patient_id" in s for s in audit.findings)
     assert audit.notes["_aliases"] == {"site": ["scanner"]}
-    assert any(s.startswith("Colour clusters follow site (= scanner) (V = ") for s in audit.findings)
+    assert any(s.startswith("Colour clusters follow site (= scanner) strongly (V = ") for s in audit.findings)
     assert not any(s.startswith("Across scanner") for s in audit.findings)
     # both keep their rows in the association table, with the same V (same partition)
     assert audit.association("scanner") == pytest.approx(audit.association("site"))

@@ -62,6 +62,17 @@ def test_report_html_is_offline_with_caution(report):
     assert "not for diagnosis or clinical decisions" in text  # CONVENTIONS.md safety wording
     assert "licensed pathology practice" in text
     assert "Before / after" in text
+    # the before/after section says what the two sides share and what differs (issue 19, item 3)
+    assert "same pixels" in text and "The only difference is stain normalization (macenko)" in text
+    assert "Tissue amount and sharpness" in text
+
+
+def test_findings_file_has_no_noise_statements(report):
+    folder, _ = report
+    text = (folder / "findings.txt").read_text(encoding="utf-8")
+    # every stated association carries its adjusted p-value; no percentage changes between two V values
+    assert "adjusted p" in text and "%" not in text
+    assert "Tissue amount and sharpness:" in text and "Before / after" in text
 
 
 @pytest.mark.skipif(CHROMIUM is None, reason="chromium not installed (apt-get install -y chromium)")
@@ -87,16 +98,28 @@ def test_report_renders_in_headless_chromium(report, tmp_path):
     assert palette_teal > 200
 
 
-def test_cli_writes_report_and_compares(normalized_cohort, tmp_path, capsys):
-    out, meta = normalized_cohort
+def test_cli_writes_report_and_compares(real_cohort, tmp_path, capsys):
+    out, meta = real_cohort
     meta_csv = tmp_path / "meta.csv"
     meta.to_csv(meta_csv, index=False)
-    args = build_parser().parse_args(["audit", str(out), "--metadata", str(meta_csv), "--report", str(tmp_path / "rep")])
+    args = build_parser().parse_args(["audit", str(out), "--metadata", str(meta_csv), "--report", str(tmp_path / "rep"),
+                                      "--max-tiles", "8"])
     assert args.func is run
     assert run(args) == 0
     printed = capsys.readouterr().out
-    assert "site fell" in printed and "report:" in printed
+    assert "Before / after normalization" in printed and "no evidence that they do" in printed and "report:" in printed
     assert (tmp_path / "rep" / "report.html").is_file() and (tmp_path / "rep" / "before_after.csv").is_file()
+
+
+def test_cli_without_source_slides_reports_tiles_only(normalized_cohort, tmp_path, capsys):
+    out, meta = normalized_cohort  # stores name source slides that do not exist
+    meta_csv = tmp_path / "meta.csv"
+    meta.to_csv(meta_csv, index=False)
+    args = build_parser().parse_args(["audit", str(out), "--metadata", str(meta_csv), "--report", str(tmp_path / "rep")])
+    assert run(args) == 0
+    captured = capsys.readouterr()
+    assert "no before/after comparison" in captured.err and "source slide not found" in captured.err
+    assert (tmp_path / "rep" / "report.html").is_file() and not (tmp_path / "rep" / "before_after.csv").exists()
 
 
 def test_cli_default_folder_and_bad_arguments(raw_cohort, tmp_path, capsys):

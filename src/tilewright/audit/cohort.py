@@ -6,21 +6,24 @@ regulations and licensed pathology practice.
 
 from __future__ import annotations
 
+import os
 import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import pandas as pd
 
-from tilewright.audit.association import association_table, kruskal_table
+from tilewright.audit.association import association_table
 from tilewright.audit.embedding import Embedding, embed_slides
 from tilewright.audit.factors import alias_groups, cohort_factors
-from tilewright.audit.findings import audit_findings, comparison_findings, guess_label
-from tilewright.audit.metrics import METRICS, slide_metrics
+from tilewright.audit.findings import audit_findings, comparison_findings, guess_label, quality_findings
+from tilewright.audit.metric_tests import kruskal_table
+from tilewright.audit.metrics import COLOUR_METRICS, METRICS, QUALITY_METRICS, slide_metrics
+from tilewright.audit.permutation import N_RESAMPLES
 from tilewright.audit.source import SOURCES, read_manifest, read_slide, resolve_folder
 from tilewright.errors import ConfigError, StoreError
 
-__all__ = ["audit_cohort", "CohortAudit"]
+__all__ = ["audit_cohort", "CohortAudit", "build_audit", "ok_slides"]
 
 
 @dataclass
@@ -33,12 +36,18 @@ class CohortAudit:
         One row per audited slide, indexed by ``slide_id``, one column per metric
         (:data:`tilewright.audit.metrics.METRICS`).
     associations : DataFrame
-        ``factor, cramers_v, p_value, chi2, dof, n_slides, n_levels, n_clusters``: clusters ×
-        factor, strongest first.
+        ``factor, cramers_v, p_value, p_adjusted, cramers_v_uncorrected, exact,
+        n_rearrangements, chi2, dof, n_slides, n_levels, n_clusters``: colour clusters × factor,
+        strongest first; V bias-corrected (Bergsma 2013), p exact or by permutation,
+        adjusted (Benjamini–Hochberg) over the factors.
     kruskal : DataFrame
-        ``factor, metric, h, p_value, n_groups, n_slides``: every metric across every factor.
+        ``factor, metric, section, h, p_value, p_adjusted, exact, n_groups, n_slides``: every
+        metric across every factor (Kruskal–Wallis, exact or permutation p, Benjamini–Hochberg
+        adjusted within each factor's colour metrics and within its quality metrics).
     findings : list of str
-        Plain-language sentences, most important first.
+        Plain-language sentences on colour, most important first.
+    quality_findings : list of str
+        Sentences on tissue amount and sharpness (their own section: never clustered).
     factors : DataFrame
         The categorical factors used, indexed by slide id.
     embedding : Embedding
@@ -46,7 +55,7 @@ class CohortAudit:
     skipped : DataFrame
         ``slide_id, reason`` of slides listed ok in the manifest that could not be read.
     source : str
-        ``"tiles"`` or ``"thumbnail"``.
+        ``"tiles"``, ``"source"`` or ``"thumbnail"``.
     label : str or None
         The factor taken as the training label.
     folder : Path
@@ -57,7 +66,10 @@ class CohortAudit:
         How each factor was treated (column -> ``"categories"`` / ``"quartile bins"``) and
         ``"_identifiers"`` (columns with one value a slide, not tested), ``"_aliases"`` (first
         factor -> factors splitting the slides exactly like it), ``"_dropped"`` (one level),
-        ``"_unmatched"``, ``"_missing"`` and ``"_attrs"`` (store attributes by slide).
+        ``"_unmatched"``, ``"_missing"``, ``"_attrs"`` (store attributes by slide),
+        ``"_metadata"`` (the metadata file, when given as one) and, for the two sides of
+        :func:`tilewright.audit.compare.audit_before_after`, ``"_pairing"`` (what the sides share
+        and what differs).
     """
 
     metrics: pd.DataFrame
@@ -72,6 +84,7 @@ class CohortAudit:
     previews: dict = field(repr=False, default_factory=dict)
     notes: dict = field(repr=False, default_factory=dict)
     findings: list = field(default_factory=list)
+    quality_findings: list = field(default_factory=list)
 
     @property
     def clusters(self) -> pd.Series:
@@ -84,7 +97,7 @@ class CohortAudit:
         return self.embedding.n_clusters
 
     def association(self, factor: str) -> float:
-        """Cramér's V of clusters × ``factor`` (NaN when the factor is absent)."""
+        """Bias-corrected Cramér's V of clusters × ``factor`` (NaN when the factor is absent)."""
         rows = self.associations[self.associations["factor"] == factor]
         return float(rows["cramers_v"].iloc[0]) if len(rows) else float("nan")
 
@@ -103,10 +116,9 @@ class CohortAudit:
         folder : str or os.PathLike
             Report folder; created when missing, files in it replaced.
         before : CohortAudit, optional
-            An audit of the same cohort before normalization (for example
-            ``audit_cohort(out, source="thumbnail")`` when this one audits normalized tiles),
-            shown as a before/after section with this audit as "after"; its table is also
-            written as ``before_after.csv``.
+            The "before" side of :func:`tilewright.audit.compare.audit_before_after` (this audit
+            being its "after"), shown as a before/after section; its table is also written as
+            ``before_after.csv``.
         names : (str, str), optional
             Names of ``before`` and this audit in that section; default from their sources.
 
@@ -129,7 +141,16 @@ def _source_name(audit: CohortAudit) -> str:
     normalized = any(bool(a.get("normalizer")) for a in audit.notes.get("_attrs", {}).values())
     if audit.source == "thumbnail":
         return "raw thumbnails"
+    if audit.source == "source":
+        return "raw tiles"
     return "normalized tiles" if normalized else "tiles"
+
+
+def ok_slides(cohort_or_dir):
+    """The output folder and the manifest rows with status ``ok`` (indexed by slide id)."""
+    folder = resolve_folder(cohort_or_dir)
+    manifest = read_manifest(folder)
+    return folder, manifest[manifest["status"].astype(str).str.lower() == "ok"]
 
 
 def audit_cohort(
@@ -141,13 +162,18 @@ def audit_cohort(
     max_tiles: int = 64,
     seed: int = 0,
     tsne: bool = True,
+    n_clusters: int | None = None,
+    n_resamples: int = N_RESAMPLES,
 ) -> CohortAudit:
     """Audit a tiled cohort for colour batch effects.
 
-    Computes per-slide colour, stain and quality metrics, embeds the slides (standardized
-    metrics, PCA), clusters them (k-means, k by silhouette) and tests how strongly the clusters
-    follow each metadata factor (chi-square, Cramér's V) and how each metric differs across
-    factor levels (Kruskal–Wallis).
+    Computes per-slide colour, stain and quality metrics; embeds the slides by their colour and
+    stain metrics only (standardized, PCA) and clusters them (k-means, k by silhouette); tests
+    how strongly the clusters follow each metadata factor (bias-corrected Cramér's V, exact or
+    permutation p-value) and how each metric differs across factor levels (Kruskal–Wallis,
+    exact or permutation p-value), adjusting p-values for multiple testing (Benjamini–Hochberg).
+    Findings state an association only at adjusted p < 0.05. To compare colour before and after
+    stain normalization, use :func:`tilewright.audit.compare.audit_before_after`.
 
     Parameters
     ----------
@@ -157,18 +183,24 @@ def audit_cohort(
     metadata : DataFrame, str or os.PathLike, optional
         Per-slide factors joined on ``slide_id`` (site, scanner, label, ...). The manifest's
         source µm/px is added as factor ``mpp_source``.
-    source : {"tiles", "thumbnail"}
+    source : {"tiles", "source", "thumbnail"}
         ``"tiles"``: a seeded sample of stored tiles (colour after normalization, if any);
-        ``"thumbnail"``: the raw thumbnail under the tissue mask (colour before normalization).
+        ``"source"``: the same tile positions read raw from the source slides; ``"thumbnail"``:
+        the raw thumbnail under the tissue mask (a rough look when the slides are gone).
     label : str, optional
         The factor that is the training label; default a column named ``label``, ``class``,
         ``target``, ``subtype``, ... when present.
     max_tiles : int
-        Tiles sampled per slide when ``source="tiles"``.
+        Tiles sampled per slide for ``"tiles"`` and ``"source"``.
     seed : int
-        Seed of the tile sample, k-means and t-SNE.
+        Seed of the tile sample, k-means, t-SNE and random rearrangements.
     tsne : bool
         Compute t-SNE coordinates for the embedding plot.
+    n_clusters : int, optional
+        Fix the number of colour clusters instead of choosing it by silhouette.
+    n_resamples : int
+        Random rearrangements of a test when there are too many to enumerate (at least 10,000
+        is advised).
 
     Returns
     -------
@@ -184,7 +216,9 @@ def audit_cohort(
 
     References
     ----------
-    Cramér H (1946). Mathematical Methods of Statistics. Princeton University Press.
+    Bergsma W (2013). A bias-correction for Cramér's V and Tschuprow's T. Journal of the Korean
+    Statistical Society 42(3):323-328.
+    Benjamini Y, Hochberg Y (1995). Journal of the Royal Statistical Society B 57(1):289-300.
     Kruskal WH, Wallis WA (1952). Journal of the American Statistical Association
     47(260):583-621.
     Macenko M, et al. (2009). A method for normalizing histology slides for quantitative
@@ -194,16 +228,14 @@ def audit_cohort(
     --------
     >>> audit = audit_cohort("out", metadata="meta.csv")            # doctest: +SKIP
     >>> audit.findings[2]                                            # doctest: +SKIP
-    'Colour clusters follow site (V = 0.92, p < 0.001) and not the label ...'
+    'Colour clusters follow site strongly (V = 0.92, adjusted p = 0.004); no evidence ...'
     >>> audit.write_report("out/audit")                              # doctest: +SKIP
     """
     if source not in SOURCES:
         raise ConfigError(f"source must be one of {', '.join(SOURCES)}, got {source!r}")
     if int(max_tiles) < 1:
         raise ConfigError(f"max_tiles must be at least 1, got {max_tiles}")
-    folder = resolve_folder(cohort_or_dir)
-    manifest = read_manifest(folder)
-    ok = manifest[manifest["status"].astype(str).str.lower() == "ok"]
+    folder, ok = ok_slides(cohort_or_dir)
     rows, previews, attrs, skipped = {}, {}, {}, []
     for slide_id in ok.index:
         try:
@@ -214,6 +246,18 @@ def audit_cohort(
         rows[slide_id] = slide_metrics(pixels)
         previews[slide_id] = pixels.preview
         attrs[slide_id] = pixels.attrs
+    return build_audit(folder, ok, rows, previews, attrs, skipped, source=source, metadata=metadata, label=label,
+                       seed=seed, tsne=tsne, n_clusters=n_clusters, n_resamples=n_resamples)
+
+
+def build_audit(folder, ok, rows: dict, previews: dict, attrs: dict, skipped: list, *, source: str, metadata=None,
+                label=None, seed: int = 0, tsne: bool = True, n_clusters: int | None = None,
+                n_resamples: int = N_RESAMPLES) -> CohortAudit:
+    """The audit of per-slide metrics already computed (``rows``: slide id -> metrics).
+
+    Parameters are those of :func:`audit_cohort`; ``ok`` is the manifest's ok rows, ``skipped``
+    a list of ``{"slide_id", "reason"}``.
+    """
     if not rows:
         detail = f" ({skipped[0]['reason']})" if skipped else ""
         raise StoreError(f"no slide with status ok could be read{detail}; run tile-out first", folder)
@@ -229,12 +273,17 @@ def audit_cohort(
         )
     label = label if label is not None else guess_label(factors.columns)
     notes["_aliases"] = alias_groups(factors, exclude=[label])
+    if isinstance(metadata, (str, os.PathLike)):
+        notes["_metadata"] = str(metadata)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", category=FutureWarning)
-        embedding = embed_slides(metrics, seed=seed, tsne=tsne)
-    associations = association_table(embedding.clusters, factors)
-    kruskal = kruskal_table(metrics, factors)
+        embedding = embed_slides(metrics[list(COLOUR_METRICS)], seed=seed, tsne=tsne, n_clusters=n_clusters)
+    tests = {"seed": seed, "n_resamples": max(1, int(n_resamples))}
+    associations = association_table(embedding.clusters, factors, **tests)
+    sections = {**dict.fromkeys(COLOUR_METRICS, "colour"), **dict.fromkeys(QUALITY_METRICS, "quality")}
+    kruskal = kruskal_table(metrics, factors, sections=sections, **tests)
     notes["_attrs"] = attrs
+    notes["_tests"] = tests
     audit = CohortAudit(
         metrics=metrics,
         associations=associations,
@@ -249,6 +298,7 @@ def audit_cohort(
         notes=notes,
     )
     audit.findings = audit_findings(audit)
+    audit.quality_findings = quality_findings(audit)
     if metadata is None:
         audit.findings.append(
             "Only the manifest's source µm/px was tested: give metadata with site, scanner and label "

@@ -3,9 +3,9 @@
 Steps: drop metrics that are missing for every slide or constant; fill remaining gaps with the
 metric's median; standardize each metric (z-score); principal component analysis keeping the
 components that explain 90 % of the variance (at least two); k-means on those coordinates for
-every k in 2..min(8, n - 1, n // 5), keeping the k with the highest mean silhouette (the n // 5
-cap keeps about five slides a cluster, see :func:`max_clusters`). t-SNE coordinates
-are computed for the plots only; clusters never depend on them.
+every k in 2..min(8, n - 1, n // 5), keeping the k with the highest mean silhouette (see
+:func:`max_clusters`), unless the caller fixes k (a before/after comparison uses one k on both
+sides). t-SNE coordinates are computed for the plots only; clusters never depend on them.
 
 References
 ----------
@@ -90,7 +90,8 @@ def standardize(metrics: pd.DataFrame) -> pd.DataFrame:
     return (numeric - numeric.mean()) / numeric.std(ddof=0)
 
 
-def embed_slides(metrics: pd.DataFrame, *, seed: int = 0, tsne: bool = True) -> Embedding:
+def embed_slides(metrics: pd.DataFrame, *, seed: int = 0, tsne: bool = True,
+                 n_clusters: int | None = None) -> Embedding:
     """PCA coordinates, k-means clusters (k by silhouette) and t-SNE coordinates of slides.
 
     Parameters
@@ -101,6 +102,9 @@ def embed_slides(metrics: pd.DataFrame, *, seed: int = 0, tsne: bool = True) -> 
         Seed of k-means and t-SNE (results are reproducible).
     tsne : bool
         Compute t-SNE coordinates (for plots); otherwise they repeat the first two components.
+    n_clusters : int, optional
+        Use this k instead of choosing it by silhouette (lowered to what the slides allow:
+        at most ``n - 1`` and the number of distinct points).
 
     Returns
     -------
@@ -137,7 +141,11 @@ def embed_slides(metrics: pd.DataFrame, *, seed: int = 0, tsne: bool = True) -> 
         coords["pc2"] = 0.0
     silhouette, labels = {}, {}
     distinct = len(np.unique(np.round(pcs, 9), axis=0))
-    for k in range(2, max_clusters(n, distinct) + 1):
+    candidates = range(2, max_clusters(n, distinct) + 1)
+    if n_clusters is not None:
+        fixed = min(int(n_clusters), n - 1, distinct)
+        candidates = range(fixed, fixed + 1) if fixed >= 2 else range(0)
+    for k in candidates:
         fit = KMeans(n_clusters=k, n_init=10, random_state=seed).fit(pcs)
         if len(np.unique(fit.labels_)) < 2:
             continue
@@ -154,14 +162,11 @@ def embed_slides(metrics: pd.DataFrame, *, seed: int = 0, tsne: bool = True) -> 
 
 
 def max_clusters(n: int, distinct: int | None = None) -> int:
-    """Largest k tried for ``n`` slides: at most 8, at most ``n - 1``, and about five slides per
-    cluster or more, so that cluster × factor tables keep expected counts near the five the
-    chi-square approximation needs (Cochran 1954); never below 2.
-
-    References
-    ----------
-    Cochran WG (1954). Some methods for strengthening the common chi-square tests. Biometrics
-    10(4):417-451.
+    """Largest k tried for ``n`` slides: at most 8, at most ``n - 1``, and about five slides a
+    cluster or more (never below 2), so that clusters stay groups of slides rather than single
+    outliers. Small cluster × factor tables still have expected counts far below five (20 slides,
+    4 clusters × 4 levels: 1.25 a cell), which is why their p-values are exact or by permutation
+    (:func:`tilewright.audit.association.association_test`), never the chi-square approximation.
     """
     limit = min(MAX_CLUSTERS, n - 1, max(2, n // SLIDES_PER_CLUSTER))
     return limit if distinct is None else min(limit, distinct)
@@ -182,5 +187,7 @@ def _tsne(pcs: np.ndarray, seed: int) -> tuple[np.ndarray, np.ndarray]:
     if n < 5:
         return pcs[:, 0], pcs[:, 1]
     perplexity = float(min(30.0, max(2.0, (n - 1) / 3.0)))
-    xy = TSNE(n_components=2, perplexity=perplexity, init="pca", random_state=seed).fit_transform(pcs)
+    # exact gradients for cohort-sized inputs: faster than Barnes-Hut's tree below a few hundred points
+    method = "exact" if n <= 300 else "barnes_hut"
+    xy = TSNE(n_components=2, perplexity=perplexity, init="pca", random_state=seed, method=method).fit_transform(pcs)
     return xy[:, 0], xy[:, 1]

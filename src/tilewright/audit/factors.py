@@ -31,8 +31,12 @@ import pandas as pd
 from tilewright.audit.metadata_match import match_suffixed_ids
 from tilewright.errors import ConfigError
 
-__all__ = ["read_metadata", "as_factors", "cohort_factors", "identifier_columns", "alias_groups"]
+__all__ = ["read_metadata", "read_table_file", "as_factors", "cohort_factors", "identifier_columns", "alias_groups",
+           "MANIFEST_FACTORS"]
 
+#: Manifest columns tested as factors (column -> "number" or "text"); a run's new per-slide
+#: property (scanner colour profile, ...) becomes an audit factor by adding its column here.
+MANIFEST_FACTORS = {"mpp_source": "number"}
 #: Numeric columns with at most this many distinct values are treated as categories.
 MAX_NUMERIC_LEVELS = 10
 #: Words in a column name that mark a numeric column with one value a slide as an identifier.
@@ -62,16 +66,7 @@ def read_metadata(metadata) -> pd.DataFrame:
     path = None
     if isinstance(metadata, (str, os.PathLike)):
         path = Path(metadata)
-        if not path.is_file():
-            raise ConfigError("metadata file not found; give a CSV with a slide_id column", path)
-        try:
-            if path.suffix.lower() == ".parquet":
-                table = pd.read_parquet(path)
-            else:
-                sep = "\t" if path.suffix.lower() in (".tsv", ".tab") else ","
-                table = pd.read_csv(path, sep=sep, dtype={"slide_id": str})
-        except (ValueError, OSError, UnicodeDecodeError) as exc:
-            raise ConfigError(f"cannot read the metadata table ({exc}); save it as CSV", path) from exc
+        table = read_table_file(path, text=False, need="a slide_id column")
     elif isinstance(metadata, pd.DataFrame):
         table = metadata.copy()
     else:
@@ -91,6 +86,28 @@ def read_metadata(metadata) -> pd.DataFrame:
         shown = ", ".join(duplicated[:5])
         raise ConfigError(f"metadata repeats slide ids ({shown}); keep one row per slide", path)
     return table.set_index("slide_id")
+
+
+def read_table_file(path: Path, *, text: bool, need: str) -> pd.DataFrame:
+    """A CSV, TSV or Parquet table; ``slide_id`` read as text, or every column when ``text``
+    (empty cells then stay empty strings).
+
+    Raises
+    ------
+    ConfigError
+        When the file is missing or unreadable; ``need`` says what the table should hold.
+    """
+    if not path.is_file():
+        raise ConfigError(f"metadata file not found; give a CSV with {need}", path)
+    try:
+        if path.suffix.lower() == ".parquet":
+            return pd.read_parquet(path)
+        sep = "\t" if path.suffix.lower() in (".tsv", ".tab") else ","
+        if text:
+            return pd.read_csv(path, sep=sep, dtype=str, keep_default_na=False)
+        return pd.read_csv(path, sep=sep, dtype={"slide_id": str})
+    except (ValueError, OSError, UnicodeDecodeError) as exc:
+        raise ConfigError(f"cannot read the metadata table ({exc}); save it as CSV", path) from exc
 
 
 def as_factors(table: pd.DataFrame, max_levels: int = MAX_NUMERIC_LEVELS) -> tuple[pd.DataFrame, dict]:
@@ -224,7 +241,8 @@ def cohort_factors(manifest: pd.DataFrame, metadata=None) -> tuple[pd.DataFrame,
     Parameters
     ----------
     manifest : DataFrame
-        Cohort manifest indexed by slide id (``mpp_source`` is used when present).
+        Cohort manifest indexed by slide id; its columns named in :data:`MANIFEST_FACTORS`
+        (``mpp_source``, ...) are factors when present.
     metadata : DataFrame, str, os.PathLike or None
         Extra per-slide factors; a metadata column named like a manifest one wins.
 
@@ -242,9 +260,12 @@ def cohort_factors(manifest: pd.DataFrame, metadata=None) -> tuple[pd.DataFrame,
         names (``N01.svs``) -> the slide ids they were matched to (``N01``).
     """
     parts = []
-    if "mpp_source" in manifest.columns:
-        mpp = pd.to_numeric(manifest["mpp_source"], errors="coerce").round(3)
-        parts.append(mpp.rename("mpp_source").to_frame())
+    for name, kind in MANIFEST_FACTORS.items():
+        if name in manifest.columns:
+            column = manifest[name]
+            if kind == "number":  # recorded floats: round so 0.2527 and 0.25270001 are one level
+                column = pd.to_numeric(column, errors="coerce").round(3)
+            parts.append(column.rename(name).to_frame())
     unmatched: list[str] = []
     missing: list[str] = []
     renamed: dict = {}

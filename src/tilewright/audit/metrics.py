@@ -16,11 +16,19 @@ Metric names, in table order (``METRICS``):
   relative to the Ruifrok & Johnston (2001) vector of the same stain (a stain hue shift);
   ``he_angle_deg`` is the angle between the two vectors.
 - ``h_max_conc``, ``e_max_conc``: 99th percentile of the stain concentrations (Macenko 2009).
-- ``sharpness``: variance of the Laplacian over tissue pixels (Pech-Pacheco et al. 2000).
-- ``tissue_fraction``: share of the slide thumbnail under the tissue mask.
 - ``background_l``, ``background_a``, ``background_b``: CIELAB mean of non-tissue pixels.
+- ``sharpness``: variance of the Laplacian over tissue pixels (Pech-Pacheco et al. 2000).
+- ``tissue_fraction``: share of the slide thumbnail under the tissue mask; ``n_tiles``: tiles
+  stored for the slide.
 
-Stain metrics are NaN when the stain vectors cannot be estimated (too little tissue).
+The first group (:data:`COLOUR_METRICS`) describes colour and stain and is all the colour
+clusters are built from. Tissue amount and sharpness (:data:`QUALITY_METRICS`) are reported in
+their own section: a biopsy and a resection differ in tissue amount, not in colour, and must not
+look like a colour effect.
+
+Which pixels are tissue is decided by the same rule stain estimation uses
+(:mod:`tilewright.stain.tissue_pixels`). Stain metrics are NaN when the stain vectors cannot be
+estimated (too little tissue).
 
 References
 ----------
@@ -39,9 +47,10 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["METRICS", "slide_metrics", "stain_angles"]
+__all__ = ["METRICS", "COLOUR_METRICS", "QUALITY_METRICS", "slide_metrics", "stain_angles"]
 
-METRICS = (
+#: Colour and stain metrics: the colour clusters are built from these only.
+COLOUR_METRICS = (
     "rgb_r_mean", "rgb_g_mean", "rgb_b_mean",
     "hsv_h_mean", "hsv_s_mean", "hsv_v_mean",
     "lab_l_mean", "lab_a_mean", "lab_b_mean", "lab_l_std", "lab_a_std", "lab_b_std",
@@ -49,9 +58,11 @@ METRICS = (
     "brightness", "contrast", "od_mean",
     "h_polar_deg", "h_azimuth_deg", "e_polar_deg", "e_azimuth_deg", "he_angle_deg",
     "h_max_conc", "e_max_conc",
-    "sharpness", "tissue_fraction",
     "background_l", "background_a", "background_b",
 )  # fmt: skip
+#: Tissue amount and sharpness: reported in their own section, never clustered.
+QUALITY_METRICS = ("tissue_fraction", "n_tiles", "sharpness")
+METRICS = COLOUR_METRICS + QUALITY_METRICS
 
 #: Ruifrok & Johnston (2001) optical-density vectors of hematoxylin and eosin.
 RUIFROK_H = np.array([0.65, 0.70, 0.29])
@@ -76,6 +87,7 @@ def slide_metrics(pixels) -> dict:
     """
     out = dict.fromkeys(METRICS, float("nan"))
     out["tissue_fraction"] = float(pixels.tissue_fraction)
+    out["n_tiles"] = float(pixels.n_tiles)
     out.update(_sharpness(pixels.gray))
     out.update(_lab_means(pixels.background, prefix="background_"))
     tissue = np.asarray(pixels.tissue, dtype=np.uint8).reshape(-1, 3)

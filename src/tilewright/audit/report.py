@@ -51,6 +51,18 @@ def _table(frame: pd.DataFrame, digits: int = 3) -> str:
     return frame.to_html(index=False, border=0, float_format=lambda v: f"{v:.{digits}g}", na_rep="–", escape=True)
 
 
+def _colour_rows(kruskal: pd.DataFrame) -> pd.DataFrame:
+    from tilewright.audit.metrics import QUALITY_METRICS
+
+    return kruskal[~kruskal["metric"].isin(QUALITY_METRICS)].dropna(subset=["p_value"])
+
+
+def _quality_rows(kruskal: pd.DataFrame) -> pd.DataFrame:
+    from tilewright.audit.metrics import QUALITY_METRICS
+
+    return kruskal[kruskal["metric"].isin(QUALITY_METRICS)].dropna(subset=["p_value"])
+
+
 def _img(name: str, alt: str) -> str:
     return f'<img src="{html.escape(name)}" alt="{html.escape(alt)}">'
 
@@ -84,9 +96,9 @@ def _html(audit, figures: dict, before, names) -> str:
     from tilewright import __version__
 
     when = datetime.now(timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
-    source = "stored tiles (after any stain normalization)" if audit.source == "tiles" else (
-        "slide thumbnails under the tissue mask (raw colour)"
-    )  # fmt: skip
+    source = {"tiles": "stored tiles (after any stain normalization)",
+              "source": "sampled tiles read raw from the source slides"}.get(
+        audit.source, "slide thumbnails under the tissue mask (raw colour)")
     parts = [
         "<!DOCTYPE html>",
         '<html lang="en"><head><meta charset="utf-8">',
@@ -103,12 +115,18 @@ def _html(audit, figures: dict, before, names) -> str:
     ]
     if before is not None:
         table = compare_audits(before, audit)
+        pairing = before.notes.get("_pairing") or (
+            "Caution: these two audits were not computed from the same pixels; differences may come from "
+            "resolution, pixels or clustering, not only from normalization.")
         parts += [
             f'<section id="before-after"><h2>Before / after: {html.escape(names[0])} → {html.escape(names[1])}</h2>',
+            f'<p>{html.escape(pairing)}</p>',
             "<ol class=\"findings\">",
             *[f"<li>{html.escape(s)}</li>" for s in comparison_findings(table, names, before.notes.get("_aliases"))],
             "</ol>",
             _table(table.rename(columns={"cramers_v_before": f"V {names[0]}", "cramers_v_after": f"V {names[1]}",
+                                         "p_adjusted_before": f"adj. p {names[0]}",
+                                         "p_adjusted_after": f"adj. p {names[1]}",
                                          "p_value_before": f"p {names[0]}", "p_value_after": f"p {names[1]}"})),
             "</section>",
         ]  # fmt: skip
@@ -116,17 +134,26 @@ def _html(audit, figures: dict, before, names) -> str:
     parts += [_img(n, a) for n, a in figures["associations"]]
     parts += [
         _table(audit.associations),
-        '<p class="muted">Cramér\'s V of the colour-cluster × factor table (Cramér 1946) and the Pearson '
-        "chi-square p-value; clusters are k-means on principal components of the standardized metrics, "
-        "k chosen by mean silhouette.</p></section>",
+        '<p class="muted">Cramér\'s V of the colour-cluster × factor table, bias-corrected (Bergsma 2013); '
+        "p-value of Pearson's statistic from every rearrangement of the factor over the slides when there are "
+        "few (exact), otherwise from 10,000 or more seeded random ones; adjusted p: Benjamini–Hochberg (1995) "
+        "over the factors. An association is stated only at adjusted p &lt; 0.05. Clusters are k-means on "
+        "principal components of the standardized colour and stain metrics (tissue amount and sharpness are "
+        "left out), k chosen by mean silhouette.</p></section>",
         '<section id="embedding"><h2>Embedding</h2>',
         *[_img(n, a) for n, a in figures["embedding"]],
         "</section>",
         '<section id="metrics"><h2>Metric distributions by factor</h2>',
         *[_img(n, a) for n, a in figures["metrics"]],
-        "<p class=\"muted\">Strongest Kruskal–Wallis differences (all in kruskal.csv):</p>",
-        _table(audit.kruskal.dropna(subset=["p_value"]).groupby("factor", sort=False).head(5)),
+        "<p class=\"muted\">Strongest Kruskal–Wallis differences, exact or permutation p-values, "
+        "Benjamini–Hochberg adjusted within each factor's colour metrics (all in kruskal.csv):</p>",
+        _table(_colour_rows(audit.kruskal).groupby("factor", sort=False).head(5)),
         "</section>",
+        '<section id="quality"><h2>Tissue amount and sharpness</h2>',
+        '<ol class="findings">', *[f"<li>{html.escape(s)}</li>" for s in audit.quality_findings], "</ol>",
+        _table(_quality_rows(audit.kruskal)),
+        '<p class="muted">Not part of the colour clusters: a biopsy and a resection differ in tissue amount, '
+        "not in colour.</p></section>",
         '<section id="clusters"><h2>Slides in each cluster</h2>',
         *[_img(n, a) for n, a in figures["clusters"]],
         "</section>",
@@ -138,6 +165,18 @@ def _html(audit, figures: dict, before, names) -> str:
         "</main></body></html>",
     ]
     return "\n".join(parts)
+
+
+def _findings_text(audit, before, names) -> str:
+    lines = list(audit.findings)
+    lines += ["", "Tissue amount and sharpness:", *audit.quality_findings]
+    if before is not None:
+        table = compare_audits(before, audit)
+        lines += ["", f"Before / after ({names[0]} -> {names[1]}):"]
+        if before.notes.get("_pairing"):
+            lines.append(before.notes["_pairing"])
+        lines += comparison_findings(table, names, before.notes.get("_aliases"))
+    return "\n".join(lines) + "\n"
 
 
 def write_report(audit, folder, *, before=None, names=None) -> Path:
@@ -175,7 +214,7 @@ def write_report(audit, folder, *, before=None, names=None) -> Path:
         table.reset_index().to_parquet(tmp / "audit.parquet", index=False)
         audit.associations.to_csv(tmp / "associations.csv", index=False)
         audit.kruskal.to_csv(tmp / "kruskal.csv", index=False)
-        (tmp / "findings.txt").write_text("\n".join(audit.findings) + "\n", encoding="utf-8")
+        (tmp / "findings.txt").write_text(_findings_text(audit, before, names), encoding="utf-8")
         figures = _draw(audit, tmp)
         (tmp / "report.html").write_text(_html(audit, figures, before, names), encoding="utf-8")
         if before is not None:

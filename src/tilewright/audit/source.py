@@ -1,71 +1,40 @@
 """Read the pixels an audit looks at from a tilewright output folder, with plain zarr and pandas.
 
-Two views of each slide:
+Three views of each slide:
 
-``"thumbnail"``
-    the slide at mask resolution: the raw (un-normalized) thumbnail pixels under the stored tissue
-    mask, and the pixels outside it as background. Shows scanner/site colour as it came.
 ``"tiles"``
     a reproducible sample of stored tiles (seeded, at most ``max_tiles`` per slide) at the target
     µm/px, normalized when the run normalized. Shows the colour a model will be trained on.
+``"source"``
+    the same sampled tile positions read raw from the source slide
+    (:mod:`tilewright.audit.source_tiles`): the colour before normalization, at the same
+    resolution and on the same pixels as ``"tiles"``.
+``"thumbnail"``
+    the raw thumbnail at mask resolution under the stored tissue mask: a rough look at colour as
+    scanned when the source slides are gone (other resolution and pixels than the tiles, so not
+    for before/after comparisons).
 
-Inside tiles, a pixel counts as tissue when its optical density reaches 0.15 in at least one
-channel (the blank-glass threshold of Macenko et al. 2009).
+Tissue pixels are chosen by the rule stain estimation uses (:mod:`tilewright.audit.pixels`).
+:func:`read_pair` reads both sides of a before/after comparison from the same tiles with the
+same tissue pixels.
 """
 
 from __future__ import annotations
 
 import os
-from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
-from scipy import ndimage
 
+from tilewright.audit.pixels import (SlidePixels, raw_glass, stored_glass, thumbnail_pixels, tile_pixels,
+                                     tissue_pick)
+from tilewright.audit.permutation import stable_seed
 from tilewright.errors import IncompleteStoreError, StoreError
 
-__all__ = ["SlidePixels", "resolve_folder", "read_manifest", "read_slide", "SOURCES"]
+__all__ = ["SlidePixels", "resolve_folder", "read_manifest", "read_slide", "read_pair", "SOURCES"]
 
-SOURCES = ("tiles", "thumbnail")
-#: Intensity at or below which a channel has OD >= 0.15 (255 * 10**-0.15 = 180.5).
-TISSUE_MAX_INTENSITY = 180
-#: At most this many tissue pixels per slide enter the colour metrics (seeded subsample).
-MAX_PIXELS = 200_000
-PREVIEW_SIDE = 96
-
-
-@dataclass
-class SlidePixels:
-    """What the metrics of one slide are computed from.
-
-    Attributes
-    ----------
-    slide_id : str
-    tissue : ndarray, uint8, (M, 3)
-        Tissue pixels (subsampled to at most ``MAX_PIXELS``).
-    background : ndarray, uint8, (K, 3)
-        Non-tissue pixels (may be empty).
-    gray : list of (ndarray, ndarray)
-        Grey-level images (float32) with their tissue masks (bool), for the sharpness measure:
-        the sampled tiles, or the thumbnail with its mask shrunk by 2 px.
-    tissue_fraction : float
-        Fraction of the slide thumbnail covered by the tissue mask.
-    preview : ndarray, uint8, (h, w, 3)
-        Small picture for the cluster grid (thumbnail, or a 2 x 2 mosaic of sampled tiles).
-    n_tiles : int
-    attrs : dict
-        Group attributes of the store.
-    """
-
-    slide_id: str
-    tissue: np.ndarray
-    background: np.ndarray
-    gray: list
-    tissue_fraction: float
-    preview: np.ndarray
-    n_tiles: int
-    attrs: dict
+SOURCES = ("tiles", "source", "thumbnail")
 
 
 def resolve_folder(cohort_or_dir) -> Path:
@@ -128,33 +97,8 @@ def read_manifest(folder: Path) -> pd.DataFrame:
     return manifest.drop_duplicates("slide_id", keep="last").set_index("slide_id")
 
 
-def read_slide(folder: Path, slide_id: str, source: str, *, max_tiles: int = 64, seed: int = 0) -> SlidePixels:
-    """Read the pixels of one slide store for the audit.
-
-    Parameters
-    ----------
-    folder : Path
-        Cohort output folder.
-    slide_id : str
-        Store name without ``.zarr``.
-    source : {"tiles", "thumbnail"}
-        Which view of the slide to read (see the module notes).
-    max_tiles : int
-        Tiles sampled per slide for ``source="tiles"``.
-    seed : int
-        Seed of the tile and pixel sample; the slide id is mixed in so slides differ.
-
-    Returns
-    -------
-    SlidePixels
-
-    Raises
-    ------
-    StoreError
-        When the store is missing or lacks the arrays this source needs.
-    IncompleteStoreError
-        When the store was never marked complete.
-    """
+def _open(folder: Path, slide_id: str, needs_tiles: bool):
+    """Group, attributes, thumbnail, mask and ink of a complete store."""
     import zarr
 
     path = folder / f"{slide_id}.zarr"
@@ -168,90 +112,119 @@ def read_slide(folder: Path, slide_id: str, source: str, *, max_tiles: int = 64,
     if not attrs.get("complete", False):
         raise IncompleteStoreError("store was never marked complete (interrupted run); re-run tile-out", path)
     names = set(group.array_keys())
-    needed = {"thumbnail", "mask"} | ({"tiles"} if source == "tiles" else set())
+    needed = {"thumbnail", "mask"} | ({"tiles", "yx"} if needs_tiles else set())
     if needed - names:
         raise StoreError(f"store lacks array(s) {sorted(needed - names)}; re-run tile-out", path)
     thumbnail = np.asarray(group["thumbnail"][...], dtype=np.uint8)
     mask = np.asarray(group["mask"][...], dtype=bool)
     if thumbnail.ndim != 3 or thumbnail.shape[-1] != 3 or mask.shape != thumbnail.shape[:2]:
-        raise StoreError(
-            f"thumbnail {thumbnail.shape} and mask {mask.shape} do not match; re-run tile-out", path
-        )
-    rng = np.random.default_rng([seed, _stable_hash(slide_id)])
-    tissue_fraction = float(mask.mean()) if mask.size else float("nan")
-    n_tiles = int(group["tiles"].shape[0]) if "tiles" in names else 0
-    if source == "thumbnail":
-        tissue = thumbnail[mask]
-        background = thumbnail[~mask]
-        gray = [(_gray(thumbnail), ndimage.binary_erosion(mask, iterations=2))]
-        preview = _shrink(thumbnail, PREVIEW_SIDE)
-    else:
-        tiles = _sample_tiles(group["tiles"], max_tiles, rng)
-        if tiles.shape[0]:
-            is_tissue = (tiles <= TISSUE_MAX_INTENSITY).any(axis=-1)
-            tissue = tiles[is_tissue]
-            background = tiles[~is_tissue]
-        else:
-            is_tissue = np.zeros(tiles.shape[:3], bool)
-            tissue = background = np.zeros((0, 3), np.uint8)
-        gray = [(_gray(t), m) for t, m in zip(tiles, is_tissue)]
-        preview = _mosaic(tiles, PREVIEW_SIDE) if tiles.shape[0] else _shrink(thumbnail, PREVIEW_SIDE)
-    return SlidePixels(
-        slide_id=slide_id,
-        tissue=_subsample(tissue, MAX_PIXELS, rng),
-        background=_subsample(background, MAX_PIXELS // 4, rng),
-        gray=gray,
-        tissue_fraction=tissue_fraction,
-        preview=preview,
-        n_tiles=n_tiles,
-        attrs=attrs,
-    )
+        raise StoreError(f"thumbnail {thumbnail.shape} and mask {mask.shape} do not match; re-run tile-out", path)
+    ink = np.asarray(group["ink"][...], dtype=bool) if "ink" in names else np.zeros_like(mask)
+    background = ~mask & (~ink if ink.shape == mask.shape else True)
+    return path, group, attrs, thumbnail, mask, background
 
 
-def _stable_hash(text: str) -> int:
-    """A process-independent integer from a string (Python's ``hash`` is salted)."""
-    value = 0
-    for byte in text.encode("utf-8"):
-        value = (value * 131 + byte) % (2**61 - 1)
-    return value
-
-
-def _sample_tiles(tiles, max_tiles: int, rng: np.random.Generator) -> np.ndarray:
-    n = int(tiles.shape[0])
-    if n == 0 or max_tiles <= 0:
-        return np.zeros((0,) + tuple(tiles.shape[1:]), np.uint8)
+def _sample(group, max_tiles: int, rng: np.random.Generator) -> np.ndarray:
+    """Sorted indices of at most ``max_tiles`` stored tiles (all when fewer)."""
+    n = int(group["tiles"].shape[0])
     if n <= max_tiles:
+        return np.arange(n)
+    return np.sort(rng.choice(n, size=max_tiles, replace=False))
+
+
+def _stored(group, index: np.ndarray) -> np.ndarray:
+    tiles = group["tiles"]
+    if index.size == 0:
+        return np.zeros((0,) + tuple(tiles.shape[1:]), np.uint8)
+    if index.size == tiles.shape[0]:
         return np.asarray(tiles[...], dtype=np.uint8)
-    index = np.sort(rng.choice(n, size=max_tiles, replace=False))
     return np.asarray(tiles.get_orthogonal_selection((index,)), dtype=np.uint8)
 
 
-def _subsample(pixels: np.ndarray, limit: int, rng: np.random.Generator) -> np.ndarray:
-    pixels = pixels.reshape(-1, 3)
-    if pixels.shape[0] <= limit:
-        return pixels
-    return pixels[np.sort(rng.choice(pixels.shape[0], size=limit, replace=False))]
+def _source(group, attrs, index: np.ndarray, path: Path) -> np.ndarray:
+    from tilewright.audit.source_tiles import read_source_tiles
+
+    tile = int(group["tiles"].shape[1])
+    yx = np.asarray(group["yx"][...], dtype=np.int64)[index]
+    return read_source_tiles(attrs, yx, tile, path)
 
 
-def _gray(rgb: np.ndarray) -> np.ndarray:
-    """ITU-R BT.601 luma, float32 in 0..255."""
-    rgb = rgb.astype(np.float32)
-    return rgb[..., 0] * 0.299 + rgb[..., 1] * 0.587 + rgb[..., 2] * 0.114
+def read_slide(folder: Path, slide_id: str, source: str, *, max_tiles: int = 64, seed: int = 0) -> SlidePixels:
+    """Read the pixels of one slide store for the audit.
+
+    Parameters
+    ----------
+    folder : Path
+        Cohort output folder.
+    slide_id : str
+        Store name without ``.zarr``.
+    source : {"tiles", "source", "thumbnail"}
+        Which view of the slide to read (see the module notes).
+    max_tiles : int
+        Tiles sampled per slide for ``"tiles"`` and ``"source"`` (the same positions for both).
+    seed : int
+        Seed of the tile and pixel sample; the slide id is mixed in so slides differ.
+
+    Returns
+    -------
+    SlidePixels
+
+    Raises
+    ------
+    StoreError
+        When the store is missing or lacks the arrays this source needs, or (``"source"``) the
+        source slide cannot be re-read.
+    IncompleteStoreError
+        When the store was never marked complete.
+    """
+    path, group, attrs, thumbnail, mask, background = _open(folder, slide_id, source != "thumbnail")
+    rng = np.random.default_rng(stable_seed(seed, slide_id))
+    n_tiles = int(group["tiles"].shape[0]) if "tiles" in set(group.array_keys()) else 0
+    fraction = float(mask.mean()) if mask.size else float("nan")
+    if source == "thumbnail":
+        glass = raw_glass(attrs, thumbnail, background)
+        return thumbnail_pixels(slide_id, thumbnail, mask, glass, n_tiles=n_tiles, attrs=attrs, rng=rng)
+    from tilewright.stain.tissue_pixels import tissue_mask
+
+    index = _sample(group, max_tiles, rng)
+    if source == "source":
+        tiles, glass = _source(group, attrs, index, path), raw_glass(attrs, thumbnail, background)
+    else:
+        tiles, glass = _stored(group, index), stored_glass(attrs, thumbnail, background)
+    masks = tissue_mask(tiles, glass=glass) if tiles.size else np.zeros(tiles.shape[:3], bool)
+    return tile_pixels(slide_id, tiles, masks, pick=tissue_pick(masks, rng), tissue_fraction=fraction,
+                       n_tiles=n_tiles, attrs=attrs)
 
 
-def _shrink(rgb: np.ndarray, side: int) -> np.ndarray:
-    import cv2
+def read_pair(folder: Path, slide_id: str, *, max_tiles: int = 64, seed: int = 0) -> tuple[SlidePixels, SlidePixels]:
+    """Both sides of a before/after comparison of one slide: the sampled tiles read raw from the
+    source slide (before) and as stored (after), split by the same tissue masks (from the raw
+    tiles, against the slide's glass) and subsampled at the same pixels.
 
-    h, w = rgb.shape[:2]
-    scale = side / max(h, w, 1)
-    if scale >= 1:
-        return rgb.copy()
-    size = (max(1, round(w * scale)), max(1, round(h * scale)))
-    return cv2.resize(rgb, size, interpolation=cv2.INTER_AREA)
+    Parameters
+    ----------
+    folder, slide_id, max_tiles, seed :
+        As for :func:`read_slide` (the tile sample is the one ``read_slide`` draws).
 
+    Returns
+    -------
+    (SlidePixels, SlidePixels)
+        Before and after.
 
-def _mosaic(tiles: np.ndarray, side: int) -> np.ndarray:
-    """A 2 x 2 mosaic of the first sampled tiles, shrunk to ``side`` px."""
-    picks = list(tiles[:4]) + [np.full_like(tiles[0], 255)] * max(0, 4 - len(tiles))
-    grid = np.concatenate([np.concatenate(picks[:2], axis=1), np.concatenate(picks[2:4], axis=1)], axis=0)
-    return _shrink(grid, side)
+    Raises
+    ------
+    StoreError
+        As for :func:`read_slide` with ``source="source"``.
+    """
+    from tilewright.stain.tissue_pixels import tissue_mask
+
+    path, group, attrs, thumbnail, mask, background = _open(folder, slide_id, True)
+    rng = np.random.default_rng(stable_seed(seed, slide_id))
+    index = _sample(group, max_tiles, rng)
+    raw, stored = _source(group, attrs, index, path), _stored(group, index)
+    masks = (tissue_mask(raw, glass=raw_glass(attrs, thumbnail, background)) if raw.size
+             else np.zeros(raw.shape[:3], bool))
+    pick = tissue_pick(masks, rng)
+    common = dict(pick=pick, tissue_fraction=float(mask.mean()) if mask.size else float("nan"),
+                  n_tiles=int(group["tiles"].shape[0]), attrs=attrs)
+    return tile_pixels(slide_id, raw, masks, **common), tile_pixels(slide_id, stored, masks, **common)

@@ -25,15 +25,17 @@ def _add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--metadata", metavar="CSV", help="per-slide table with a slide_id column; every other column is a factor")
     parser.add_argument("--report", metavar="DIR", help="report folder (default: OUT/audit)")
     parser.add_argument(
-        "--source", choices=("tiles", "thumbnail"), default="tiles",
-        help="tiles: a sample of stored (normalized) tiles; thumbnail: raw colour at mask resolution (default: tiles)",
+        "--source", choices=("tiles", "source", "thumbnail"), default="tiles",
+        help="tiles: a sample of stored (normalized) tiles; source: the same tile positions read raw from the "
+             "source slides; thumbnail: raw colour at mask resolution, a rough look (default: tiles)",
     )  # fmt: skip
     parser.add_argument("--label", metavar="COLUMN", help="metadata column holding the training label (default: a column named label/class/target/...)")
     parser.add_argument("--max-tiles", type=int, default=64, metavar="N", help="tiles sampled per slide (default: 64)")
     parser.add_argument("--seed", type=int, default=0, help="seed of the tile sample, clustering and t-SNE (default: 0)")
     parser.add_argument(
         "--no-compare", action="store_true",
-        help="with --source tiles on a normalized run, skip the before/after comparison with the raw thumbnails",
+        help="with --source tiles on a normalized run, skip the before/after comparison (the same tiles read raw "
+             "from the source slides)",
     )  # fmt: skip
 
 
@@ -82,6 +84,7 @@ def run(args: argparse.Namespace) -> int:
         0 on success, 2 for bad arguments, 1 for other failures.
     """
     from tilewright.audit.cohort import audit_cohort
+    from tilewright.audit.compare import audit_before_after
     from tilewright.errors import ConfigError, StoreError, TilewrightError
 
     out = Path(args.out)
@@ -104,7 +107,10 @@ def run(args: argparse.Namespace) -> int:
         before = None
         normalized = any(bool(a.get("normalizer")) for a in audit.notes.get("_attrs", {}).values())
         if args.source == "tiles" and normalized and not args.no_compare:
-            before = audit_cohort(out, source="thumbnail", **options)
+            try:
+                before, audit = audit_before_after(out, **options)
+            except StoreError as exc:  # source slides gone: the audit of the stored tiles still stands
+                print(f"tilewright audit: no before/after comparison: {exc.one_line()}", file=sys.stderr)
         path = audit.write_report(report, before=before)
     except ConfigError as exc:
         return _fail(exc.one_line(), 2)
@@ -115,7 +121,11 @@ def run(args: argparse.Namespace) -> int:
         return _fail(exc.one_line(), 1)
     for line in audit.findings:
         print(f"  - {line}")
+    print("  Tissue amount and sharpness:")
+    for line in audit.quality_findings:
+        print(f"  - {line}")
     if before is not None:
+        print("  Before / after normalization (same tiles, same pixels):")
         for line in before.comparison_findings(audit):
             print(f"  - {line}")
     print(f"report: {path}")

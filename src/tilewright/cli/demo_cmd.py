@@ -43,16 +43,16 @@ def run(args) -> int:
 
 def _audit(tiles_dir: Path, meta: Path, out: Path):
     try:
-        from tilewright.audit.cohort import audit_cohort
+        from tilewright.audit.compare import audit_before_after
     except ImportError:  # pragma: no cover - audit not installed in this build
         return None
-    before = audit_cohort(tiles_dir, metadata=meta, source="thumbnail")
-    after = audit_cohort(tiles_dir, metadata=meta, source="tiles")
+    before, after = audit_before_after(tiles_dir, metadata=meta)
     folder = out / "audit"
     after.write_report(folder, before=before)
     print("\nColour audit (site and scanner should not explain the colour clusters):")
-    for name, audit in (("raw slide colour ", before), ("normalized tiles ", after)):
+    for name, audit in (("raw tiles        ", before), ("normalized tiles ", after)):
         for line in audit.findings:
-            if line.startswith("Colour clusters"):
+            if "colour clusters" in line.lower() and "follow" in line:
                 print(f"  {name} {line}")
+    print(f"  {before.notes['_pairing']}")
     return folder / "report.html"

@@ -1,4 +1,5 @@
-"""The ``tilewright`` umbrella command: ``tile`` (same as tile-out), ``demo``, ``inspect``, ``audit``."""
+"""The ``tilewright`` umbrella command: ``tile`` (same as tile-out), ``demo``, ``inspect``, ``audit``,
+``split``."""
 
 from __future__ import annotations
 
@@ -9,7 +10,8 @@ import sys
 __all__ = ["main"]
 
 #: Sub-command modules; each has ``register(subparsers)`` setting ``func`` to ``run(args) -> int``.
-SUBCOMMANDS = ("tilewright.cli.demo_cmd", "tilewright.cli.inspect_cmd", "tilewright.cli.audit_cmd")
+SUBCOMMANDS = ("tilewright.cli.demo_cmd", "tilewright.cli.inspect_cmd", "tilewright.cli.audit_cmd",
+               "tilewright.cli.split_cmd")
 
 
 def main(argv=None) -> int:

@@ -206,7 +206,7 @@ def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNames
     mask_arr = np.asarray(mask.array, dtype=bool)
     attrs = {
         "slide_id": slide_id,
-        "source": {"path": str(path.resolve()), "size": os.path.getsize(path),
+        "source": {"path": str(path.resolve()), "size": _source_size(path),
                    "digest": None, "backend": slide.backend},  # digest: computed aside (see _aside)
         "mpp": float(view.mpp), "mpp_source": float(slide.mpp), "objective": slide.objective,
         "source_level": int(view.source_level), "scale": float(view.scale),
@@ -341,6 +341,12 @@ def _warn_png(slide_id, exc):
     import logging
 
     logging.getLogger("tilewright").warning("%s: QC overlay not written (%s)", slide_id, exc)
+
+
+def _source_size(path):
+    from tilewright.store.provenance import source_size
+
+    return source_size(path)
 
 
 def _digest(path):

@@ -39,20 +39,55 @@ def find_slides(source: str | os.PathLike) -> list[Path]:
     (``source`` and ``slide`` also accepted; a first line that is neither a slide path nor such a
     header is an error, so a metadata table given by mistake is refused, not read line by line);
     relative paths are relative to the list file, and a file listed twice is one slide.
-    Folder searches skip hidden folders and ``*.zarr`` outputs and return paths sorted.
+    Folder searches skip hidden folders and ``*.zarr`` outputs and return paths sorted. DICOM
+    files found there are grouped by series (see :func:`dicom_sources`): one path a series.
     """
     source = Path(source)
     if not source.exists():
         raise ConfigError("SOURCE does not exist; give a slide file, a folder of slides or a list file", source)
     if source.is_dir():
-        found = []
+        found, unsuffixed = [], []
         for root, dirs, files in os.walk(source):
             dirs[:] = sorted(d for d in dirs if not d.startswith(".") and not d.endswith(".zarr"))
             found.extend(Path(root) / f for f in files if is_slide_name(f) and not f.startswith("."))
-        return sorted(found)
+            if any(not Path(f).suffix and not f.startswith(".") for f in files):
+                unsuffixed.append(Path(root))  # may hold DICOM files without a suffix
+        return sorted(set(dicom_sources(found, unsuffixed)))
+    if source.is_file() and (source.suffix.lower() == ".dcm" or not source.suffix) and _is_dicom(source):
+        from tilewright.slide.dicom_series import find_series
+
+        return [find_series(source).source]  # one file of a series: the series is the slide
     if source.suffix.lower() in _LIST_SUFFIXES and not is_slide_name(source):
         return _read_list(source)
     return [source]
+
+
+def _is_dicom(path: Path) -> bool:
+    from tilewright.slide.dicom_series import is_dicom_file
+
+    return is_dicom_file(path)
+
+
+def dicom_sources(paths: list[Path], folders: list[Path] = ()) -> list[Path]:
+    """Replace the DICOM files among ``paths`` by one path a whole-slide series.
+
+    A series is one slide: its folder when no other series shares the folder, else its level-0
+    file. Instances of series without a pyramid level (only a label, overview or thumbnail) and
+    DICOM files that are not whole-slide images are dropped. ``folders`` are searched for series
+    too (folders holding files without a suffix, which DICOM exports often are).
+    """
+    from tilewright.slide.dicom_series import series_in_folder
+
+    folders, out = list(folders), []
+    for p in paths:
+        if p.suffix.lower() == ".dcm":
+            if p.parent not in folders:
+                folders.append(p.parent)
+        else:
+            out.append(p)
+    for folder in folders:
+        out.extend(series.source for series in series_in_folder(folder))
+    return out
 
 
 def _read_list(path: Path) -> list[Path]:

@@ -9,6 +9,9 @@ view               ``ResampledView``: the slide at a target µm/px (``read``, ``
                    ``block_size``, ``to_dask``).
 downsample         area averaging with weights fixed by global coordinates (seam-free).
 tiff_backend       tifffile structure + positional reads decoding only the touched tiles.
+tiff_pages         which pages are pyramid levels, which are label/macro/thumbnail.
+tiff_pixels        which photometric/compression pairs are served, and their RGB conversion.
+dicom_series       the files of a DICOM whole-slide series (one slide) and their headers.
 openslide_backend  every format OpenSlide reads.
 resolution         µm/px and objective from TIFF tags, OME-XML, Aperio descriptions,
                    OpenSlide properties; plausibility checks.

@@ -26,7 +26,9 @@ def open(path: str | os.PathLike, *, mpp: float | None = None,
     Parameters
     ----------
     path : str or os.PathLike
-        The slide file.
+        The slide file; for a DICOM whole-slide series, its folder or any file of the series
+        (the slide's ``path`` is then the folder, or the level-0 file when other series share
+        the folder).
     mpp : float, optional
         Level-0 µm/px to use instead of what the file records (for files that lack or
         misstate it).
@@ -72,8 +74,21 @@ def open(path: str | os.PathLike, *, mpp: float | None = None,
     if backend not in _BACKENDS:
         raise ValueError(f"backend must be one of {_BACKENDS}, got {backend!r}")
     path = os.fspath(path)
-    kind = sniff(path)
-    reader = _open_reader(path, kind, backend, mpp, verify)
+    series = None
+    if os.path.isdir(path):
+        from tilewright.slide.dicom_series import find_series
+
+        series = find_series(path)  # a folder is a slide only as one DICOM series
+    elif sniff(path) == "dicom":
+        from tilewright.slide.dicom_series import find_series
+
+        series = find_series(path)
+    if series is not None:
+        path, kind = os.fspath(series.source), "dicom"
+        reader = _open_reader(os.fspath(series.volumes[0].path), kind, backend, mpp, verify, shown=path)
+    else:
+        kind = sniff(path)
+        reader = _open_reader(path, kind, backend, mpp, verify)
     try:
         h0, w0 = reader.level_shapes[0]
         if max(h0, w0) > MAX_SIDE or h0 * w0 > MAX_PIXELS or h0 < 1 or w0 < 1:
@@ -88,7 +103,9 @@ def open(path: str | os.PathLike, *, mpp: float | None = None,
     return WholeSlide(path, reader, resolution, mpp_override=mpp, requested_backend=backend, verify=verify)
 
 
-def _open_reader(path: str, kind: str, backend: str, mpp: float | None, verify: bool = True):
+def _open_reader(path: str, kind: str, backend: str, mpp: float | None, verify: bool = True,
+                 shown: str | None = None):
+    """The backend serving ``path``; errors name ``shown`` (a DICOM series' folder) if given."""
     from tilewright.slide.openslide_backend import OpenSlideBackend
     from tilewright.slide.tiff_backend import TiffBackend
 
@@ -96,8 +113,11 @@ def _open_reader(path: str, kind: str, backend: str, mpp: float | None, verify: 
         if kind != "tiff":
             raise UnsupportedSlideError(
                 f"the tiff backend reads TIFF files only (this is {kind}); use backend='auto'",
-                path)
+                shown or path)
         return TiffBackend(path, verify_jpeg=verify)
+    if kind == "dicom":
+        # OpenSlide opens one instance and finds the rest of the series in its folder
+        return OpenSlideBackend(path)
     if backend == "openslide":
         return OpenSlideBackend(path)
     tiff_error = None

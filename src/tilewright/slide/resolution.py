@@ -7,6 +7,7 @@ Sources, each parsed by one function here:
 - OME-XML ``Pixels/@PhysicalSizeX`` and ``@PhysicalSizeY`` with their unit attributes
   (default µm, as the OME schema says) and ``Objective/@NominalMagnification``;
 - the Aperio-style ImageDescription (``MPP = 0.2500|AppMag = 40``);
+- ImageJ-style TIFFs: ``ResolutionUnit`` NONE with the unit in the description (``unit=um``);
 - OpenSlide properties (``openslide.mpp-x``/``-y``, ``openslide.objective-power``, or
   ``tiff.XResolution`` with ``tiff.ResolutionUnit``).
 
@@ -26,21 +27,29 @@ import xml.etree.ElementTree as ET
 from collections.abc import Mapping
 from typing import NamedTuple
 
-from tilewright.errors import ImplausibleResolutionError, MissingResolutionError
+from tilewright.errors import ImplausibleResolutionError, MissingResolutionError, SlideGeometryError
 
 __all__ = [
     "Resolution",
+    "resolution_from_xy",
     "MPP_RANGE",
     "mpp_from_tiff_tags",
     "mpp_from_ome",
     "objective_from_ome",
     "mpp_from_aperio",
+    "mpp_xy_from_imagej",
+    "mpp_xy_from_tiff_tags",
+    "mpp_xy_from_ome",
+    "ANISOTROPY_LIMIT",
     "mpp_from_openslide",
     "checked_mpp",
 ]
 
 #: Plausible level-0 µm/px (inclusive). 0.05 is beyond any optical scanner; 20 is a macro photo.
 MPP_RANGE = (0.05, 20.0)
+
+#: Relative difference of x and y pixel size above which pixels are refused as not square.
+ANISOTROPY_LIMIT = 0.01
 
 _UM_PER_UNIT = {
     "pm": 1e-6, "Å": 1e-4, "nm": 1e-3, "µm": 1.0, "um": 1.0, "μm": 1.0, "mm": 1e3,
@@ -54,6 +63,16 @@ class Resolution(NamedTuple):
     mpp: float | None
     objective: float | None
     source: str | None
+    #: (x, y) µm/px when the source records both, so non-square pixels can be refused.
+    mpp_xy: tuple[float, float] | None = None
+
+
+def resolution_from_xy(mpp_xy, objective, source) -> Resolution:
+    """A Resolution whose ``mpp`` is the mean of the recorded x and y sizes."""
+    x, y = mpp_xy
+    if x is None or y is None:
+        return Resolution(x if y is None else y, objective, source)
+    return Resolution((x + y) / 2.0, objective, source, (x, y))
 
 
 def _rational(value) -> float | None:
@@ -72,6 +91,12 @@ def _mean_xy(x: float | None, y: float | None) -> float | None:
 
 
 def mpp_from_tiff_tags(xres, yres, unit) -> float | None:
+    """µm/px from TIFF resolution tags: the mean of :func:`mpp_xy_from_tiff_tags`."""
+    x, y = mpp_xy_from_tiff_tags(xres, yres, unit)
+    return _mean_xy(x, y)
+
+
+def mpp_xy_from_tiff_tags(xres, yres, unit) -> tuple[float | None, float | None]:
     """µm/px from TIFF resolution tags.
 
     Parameters
@@ -84,22 +109,27 @@ def mpp_from_tiff_tags(xres, yres, unit) -> float | None:
 
     Returns
     -------
-    float or None
-        µm per pixel (mean of x and y), or None when unknown.
+    (float or None, float or None)
+        µm per pixel along x and y (``mpp_from_tiff_tags``: their mean), None when unknown.
     """
     name = getattr(unit, "name", unit)
     name = {1: "NONE", 2: "INCH", 3: "CENTIMETER", None: "INCH"}.get(name, name)
     per_unit = {"INCH": 25400.0, "CENTIMETER": 1e4}.get(str(name).upper())
     if per_unit is None:
-        return None
+        return None, None
+    return _per_unit_xy(xres, yres, per_unit)
+
+
+def _per_unit_xy(xres, yres, per_unit: float) -> tuple[float | None, float | None]:
     out = []
     for r in (xres, yres):
         v = _rational(r) if r is not None else None
         if v is not None and v > 0 and math.isfinite(v):
             out.append(per_unit / v)
-        elif v is not None:
-            out.append(float("nan"))
-    return _mean_xy(*out) if len(out) == 2 else (out[0] if out else None)
+        else:
+            out.append(None if v is None else float("nan"))
+    x, y = out
+    return (x, y) if x is not None else (y, None)
 
 
 def _ome_ns(root) -> str:
@@ -107,21 +137,27 @@ def _ome_ns(root) -> str:
 
 
 def mpp_from_ome(xml: str, image_index: int = 0) -> float | None:
-    """µm/px of one OME ``Image`` (``PhysicalSizeX``/``Y`` converted from their units).
+    """µm/px of one OME ``Image``: the mean of :func:`mpp_xy_from_ome`."""
+    return _mean_xy(*mpp_xy_from_ome(xml, image_index))
 
-    Returns None when the image records no physical size. An unknown unit is None too.
+
+def mpp_xy_from_ome(xml: str, image_index: int = 0) -> tuple[float | None, float | None]:
+    """(x, y) µm/px of one OME ``Image`` (``PhysicalSizeX``/``Y`` converted from their units).
+
+    (None, None) when the image records no physical size or uses an unknown unit; a single
+    recorded axis is returned as x.
     """
     try:
         root = ET.fromstring(xml)
     except ET.ParseError:
-        return None
+        return None, None
     ns = _ome_ns(root)
     images = root.findall(f"{ns}Image")
     if not images or image_index >= len(images):
-        return None
+        return None, None
     pixels = images[image_index].find(f"{ns}Pixels")
     if pixels is None:
-        return None
+        return None, None
     sizes = []
     for axis in ("X", "Y"):
         raw = pixels.get(f"PhysicalSize{axis}")
@@ -131,9 +167,9 @@ def mpp_from_ome(xml: str, image_index: int = 0) -> float | None:
         factor = _UM_PER_UNIT.get(unit)
         value = _rational(raw)
         if factor is None or value is None:
-            return None
+            return None, None
         sizes.append(value * factor)
-    return _mean_xy(*sizes) if len(sizes) == 2 else (sizes[0] if sizes else None)
+    return (sizes + [None, None])[0], (sizes + [None, None])[1]
 
 
 def objective_from_ome(xml: str, image_index: int = 0) -> float | None:
@@ -177,18 +213,34 @@ def mpp_from_openslide(props: Mapping[str, str]) -> Resolution:
     objective = _rational(props.get("openslide.objective-power"))
     mx = _rational(props.get("openslide.mpp-x"))
     my = _rational(props.get("openslide.mpp-y"))
-    mpp = _mean_xy(mx, my)
-    if mpp is not None:
-        return Resolution(mpp, objective, "openslide")
+    if mx is not None or my is not None:
+        return resolution_from_xy((mx, my) if mx is not None else (my, None), objective, "openslide")
     unit = props.get("tiff.ResolutionUnit")
     if unit is not None:
         unit = {"inch": "INCH", "centimeter": "CENTIMETER", "none": "NONE"}.get(
             unit.strip().lower(), unit)
-        mpp = mpp_from_tiff_tags(props.get("tiff.XResolution"), props.get("tiff.YResolution"),
-                                 unit)
-        if mpp is not None:
-            return Resolution(mpp, objective, "tiff-tags")
+        xy = mpp_xy_from_tiff_tags(props.get("tiff.XResolution"), props.get("tiff.YResolution"),
+                                   unit)
+        if xy[0] is not None:
+            return resolution_from_xy(xy, objective, "tiff-tags")
     return Resolution(None, objective, None)
+
+
+_IMAGEJ_UNITS = {"um": 1.0, "µm": 1.0, "μm": 1.0, "\\u00b5m": 1.0, "micron": 1.0, "microns": 1.0,
+                 "micrometer": 1.0, "nm": 1e-3, "mm": 1e3, "cm": 1e4, "inch": 25400.0}
+
+
+def mpp_xy_from_imagej(xres, yres, unit_text: str | None) -> tuple[float | None, float | None]:
+    """(x, y) µm/px of an ImageJ-style TIFF: resolution tags in pixels per ``unit=`` of the description.
+
+    ImageJ writes ``ResolutionUnit`` NONE and names the unit in its ImageDescription
+    (``ImageJ=1.54f\\nunit=micron``, or ``unit=\\u00B5m`` escaped); an unknown unit gives
+    (None, None).
+    """
+    factor = _IMAGEJ_UNITS.get((unit_text or "").strip().lower())
+    if factor is None:
+        return None, None
+    return _per_unit_xy(xres, yres, factor)
 
 
 def checked_mpp(found: Resolution, override: float | None, path) -> Resolution:
@@ -211,6 +263,9 @@ def checked_mpp(found: Resolution, override: float | None, path) -> Resolution:
     ------
     MissingResolutionError
         Neither the file nor ``override`` gives a µm/px.
+    SlideGeometryError
+        The file records x and y pixel sizes more than :data:`ANISOTROPY_LIMIT` apart (and no
+        ``override`` was given).
     ImplausibleResolutionError
         The value is NaN, not positive, or outside :data:`MPP_RANGE`.
     """
@@ -219,12 +274,20 @@ def checked_mpp(found: Resolution, override: float | None, path) -> Resolution:
         hint = "check the mpp= value you passed"
     else:
         hint = ("the file misstates its resolution; pass the true level-0 µm/px with mpp= "
-                "(tile-out: --mpp, or a per-slide --mpp-table CSV)")
+                "(tile-out: --source-mpp, or a per-slide --mpp-table CSV)")
     if found.mpp is None:
         raise MissingResolutionError(
             "the file records no physical resolution (µm per pixel); pass it with mpp= "
-            "(tile-out: --mpp for all slides, or --mpp-table CSV with slide_id,mpp columns)",
-            path)
+            "(tile-out: --source-mpp for all slides, or --mpp-table CSV with slide_id,mpp "
+            "columns; --mpp sets the target resolution, not the file's)", path)
+    if found.mpp_xy is not None and all(math.isfinite(v) and v > 0 for v in found.mpp_xy):
+        x, y = found.mpp_xy
+        if abs(x - y) > ANISOTROPY_LIMIT * min(x, y):
+            raise SlideGeometryError(
+                f"pixels are not square: {x:.4g} µm wide and {y:.4g} µm tall (from "
+                f"{found.source}); tiles would be stretched. Resample the slide to square pixels, "
+                "or, if the file misstates its resolution, pass the true level-0 µm/px with mpp= "
+                "(tile-out: --source-mpp or --mpp-table)", path)
     lo, hi = MPP_RANGE
     if not (math.isfinite(found.mpp) and lo <= found.mpp <= hi):
         raise ImplausibleResolutionError(

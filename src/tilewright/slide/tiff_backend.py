@@ -20,16 +20,12 @@ import threading
 
 import numpy as np
 
-from tilewright.errors import DamagedSlideError, SlideTooLargeError, UnsupportedSlideError
+from tilewright.errors import DamagedSlideError, SlideError, SlideTooLargeError, UnsupportedSlideError
 from tilewright.slide import jpeg_strict as _strict
-from tilewright.slide.resolution import (
-    Resolution,
-    mpp_from_aperio,
-    mpp_from_ome,
-    mpp_from_tiff_tags,
-    objective_from_ome,
-)
 from tilewright.slide.sniff import MAX_PIXELS, MAX_SIDE
+from tilewright.slide.tiff_pages import discover
+from tilewright.slide.tiff_pixels import page_converter
+from tilewright.slide.tiff_strips import read_rows, strip_problem
 
 __all__ = ["TiffBackend"]
 
@@ -43,25 +39,39 @@ _VENDOR_FLAGS = ("is_ndpi", "is_philips", "is_scn", "is_qpi", "is_bif", "is_mdge
 
 
 class _Level:
-    """One pyramid level: a TIFF page and what is needed to decode its segments."""
+    """One pyramid level: a TIFF page and what is needed to decode its segments (tiles or strips)."""
 
-    __slots__ = ("height", "width", "tile_h", "tile_w", "grid_w", "offsets", "counts",
-                 "decode", "jpegtables", "page_index", "is_jpeg", "jpeg", "sentinels", "strict")
+    __slots__ = ("height", "width", "tile_h", "tile_w", "grid_w", "offsets", "counts", "decode",
+                 "jpegtables", "page_index", "is_jpeg", "jpeg", "sentinels", "strict", "stripped",
+                 "convert", "raw_rows", "samples")
 
     def __init__(self, page, index):
         self.height, self.width = int(page.imagelength), int(page.imagewidth)
+        self.stripped = not page.is_tiled
         chunks = page.chunks
         self.tile_h, self.tile_w = int(chunks[-3]), int(chunks[-2])
+        if self.stripped:  # RowsPerStrip may exceed the image (one strip)
+            self.tile_h = max(1, min(self.tile_h, self.height))
         self.grid_w = -(-self.width // self.tile_w)
         self.offsets = np.asarray(page.dataoffsets, np.int64)
         self.counts = np.asarray(page.databytecounts, np.int64)
         self.decode = page.decode
         self.jpegtables = page.jpegtables
         self.page_index = index
+        self.samples = int(page.samplesperpixel)
         self.is_jpeg = int(page.compression) == 7  # new-style JPEG (TIFF Technical Note 2)
         self.jpeg = _jpeg_args(page)  # (colorspace, outcolorspace) for the direct JPEG path, or None
         self.sentinels = {}  # JPEG header bytes -> SentinelPlan or None (see jpeg_sentinel)
         self.strict = {}  # colour signature or header bytes -> strict decode equals this page's (jpeg_strict)
+        self.convert = page_converter(page)  # segment -> RGB (YCbCr, alpha), or None
+        # uncompressed strips: read only the rows a region needs, whatever the strip length
+        self.raw_rows = self.stripped and int(page.compression) == 1 and page.fillorder == 1
+
+    def segment_shape(self, index: int) -> tuple[int, int]:
+        """(height, width) of one stored segment: a full tile, or a strip (the last may be short)."""
+        if not self.stripped:
+            return self.tile_h, self.tile_w
+        return min(self.tile_h, self.height - (index // self.grid_w) * self.tile_h), self.tile_w
 
 
 def _jpeg_args(page):
@@ -74,16 +84,6 @@ def _jpeg_args(page):
         return jpeg_decode_colorspace(page.photometric, page.planarconfig, page.extrasamples, page.is_jfif)
     except Exception:  # noqa: BLE001 - any surprise: use tifffile's decoder
         return None
-
-
-def _check_page(page, path) -> None:
-    if page.dtype != np.uint8 or page.samplesperpixel not in (3, 4):
-        raise UnsupportedSlideError(
-            f"not an 8-bit RGB image (dtype {page.dtype}, {page.samplesperpixel} samples)", path)
-    if page.planarconfig != 1 and page.samplesperpixel > 1:  # CONTIG
-        raise UnsupportedSlideError("planar (separate) colour planes are not supported", path)
-    if page.imagedepth > 1:
-        raise UnsupportedSlideError("volumetric TIFF pages are not supported", path)
 
 
 class TiffBackend:
@@ -111,14 +111,17 @@ class TiffBackend:
         import tifffile
 
         self.path = path
+        self.associated = {}
         self.verify_jpeg = bool(verify_jpeg)
         try:
             tf = tifffile.TiffFile(path)
         except Exception as exc:  # the header said TIFF: any parse failure means damage
             raise DamagedSlideError(f"the TIFF structure cannot be parsed ({exc})", path) from exc
         try:
-            self._levels, self.resolution, self.flavour = self._inspect(tf, path)
-        except (UnsupportedSlideError, DamagedSlideError):
+            self._levels, self.resolution, self.flavour, found = self._inspect(tf, path)
+            #: Associated images kept apart from the pyramid: name -> (height, width).
+            self.associated = {k: (int(p.imagelength), int(p.imagewidth)) for k, p in found.items()}
+        except SlideError:
             tf.close()
             raise
         except Exception as exc:  # tifffile raises many types on malformed IFDs
@@ -157,45 +160,16 @@ class TiffBackend:
             if getattr(tf, flag, False):
                 raise UnsupportedSlideError(
                     f"{flag[3:].upper()} layout needs the OpenSlide backend", path)
-        if not tf.series:
-            raise UnsupportedSlideError("the TIFF holds no image series", path)
-        series = tf.series[0]
-        pages = []
-        for lv in series.levels:
-            if len(lv.pages) != 1 or lv.keyframe is None:
-                raise UnsupportedSlideError(
-                    "multi-plane series (channels, z or time) are not RGB slides", path)
-            pages.append(lv.keyframe)
-        if not tf.is_svs and len(tf.pages) > 1:
-            # IFD chains and OME "one Image per resolution" files: further tiled RGB levels
-            # may sit in other series (reduced copies are recognized by their aspect below)
-            shapes = {(p.imagelength, p.imagewidth) for p in pages}
-            for extra in tf.series[1:]:
-                kf = extra.keyframe
-                if (kf is not None and kf.is_tiled and len(extra.pages) == 1
-                        and (kf.imagelength, kf.imagewidth) not in shapes):
-                    pages.append(kf)
-                    shapes.add((kf.imagelength, kf.imagewidth))
-        page0 = pages[0]
-        for p in pages:
-            _check_page(p, path)
-        pages.sort(key=lambda p: -p.imagewidth * p.imagelength)
+        pyramid = discover(tf, path)
         levels = []
-        h0, w0 = page0.imagelength, page0.imagewidth
-        for i, p in enumerate(pages):
-            if i and abs(p.imagewidth / w0 - p.imagelength / h0) > 0.02:
-                continue  # not a reduced copy of level 0 (a label, a macro photo)
-            levels.append(_Level(p, i))
-        resolution = _resolution(tf, page0)
-        top = levels[0].page_index
-        if pages[top] is not page0 and resolution.source == "tiff-tags":
-            # IFDs out of size order: the tags read belong to a reduced page, not level 0
-            own = _resolution(tf, pages[top])
-            scaled = resolution.mpp * page0.imagewidth / pages[top].imagewidth
-            resolution = own if own.mpp is not None else Resolution(scaled, resolution.objective,
-                                                                    "tiff-tags")
+        for i, page in enumerate(pyramid.levels):
+            problem = strip_problem(page, i)
+            if problem is not None and i == 0:
+                raise UnsupportedSlideError(problem, path)
+            if problem is None:  # a reduced level stored in huge strips: finer levels serve it
+                levels.append(_Level(page, i))
         flavour = "ome" if tf.is_ome else "svs" if tf.is_svs else "tiff"
-        return levels, resolution, flavour
+        return levels, pyramid.resolution, flavour, pyramid.associated
 
     @property
     def level_shapes(self) -> list[tuple[int, int]]:
@@ -209,8 +183,23 @@ class TiffBackend:
 
     # -- pixels ------------------------------------------------------------------------
     def _pread(self, n: int, offset: int) -> bytes:
+        """``n`` bytes at ``offset`` (fewer only at the end of the file).
+
+        One ``pread`` returns at most about 2 GiB on Linux (and may return less anywhere), so
+        reads are repeated until all bytes arrived or the file ends.
+        """
         if hasattr(os, "pread"):
-            return os.pread(self._fd, n, offset)
+            data = os.pread(self._fd, n, offset)
+            if len(data) == n or not data:
+                return data
+            parts, got = [data], len(data)
+            while got < n:
+                more = os.pread(self._fd, n - got, offset + got)
+                if not more:
+                    break
+                parts.append(more)
+                got += len(more)
+            return b"".join(parts)
         with self._lock:  # pragma: no cover - platforms without pread
             os.lseek(self._fd, offset, 0)
             return os.read(self._fd, n)
@@ -228,6 +217,9 @@ class TiffBackend:
         if self._fd is None:
             raise ValueError("the slide is closed")
         lv = self._levels[level]
+        if lv.raw_rows:
+            read_rows(self._pread, lv, level, (y, x, h, w), out, self.path)
+            return
         th, tw = lv.tile_h, lv.tile_w
         r0, r1 = y // th, (y + h - 1) // th
         c0, c1 = x // tw, (x + w - 1) // tw
@@ -274,11 +266,14 @@ class TiffBackend:
         if lv.jpeg is not None:
             import imagecodecs
 
-            key = (lv.tile_h, lv.tile_w)
+            key = lv.segment_shape(index)
             return imagecodecs.jpeg_decode(data, tables=lv.jpegtables, colorspace=lv.jpeg[0], outcolorspace=lv.jpeg[1],
                                            shape=key, bitspersample=8, out=self._scratch_tile(key))
         seg = lv.decode(data, index, jpegtables=lv.jpegtables)[0]
-        return None if seg is None else seg.reshape(seg.shape[-3:])
+        if seg is None:
+            return None
+        seg = seg.reshape(seg.shape[-3:])
+        return seg if lv.convert is None else lv.convert(seg)
 
     def _strict_agrees(self, lv: _Level, stream: bytes, data, index: int, header: bytes | None = None) -> bool:
         """Whether strict decodes of streams with this one's colour signature equal the page's
@@ -316,6 +311,9 @@ class TiffBackend:
         """
         from tilewright.slide import jpeg_sentinel as js
 
+        if lv.segment_shape(index) != (lv.tile_h, lv.tile_w):  # a short last strip: probe check
+            seg = self._decode(lv, data, index)
+            return seg, seg is None or _jpeg_intact(lv, index, data, seg)
         data, plan = bytes(data), None  # a memoryview into a row read: the helpers search bytes
         start = js.header_length(data) if lv.jpeg is not None else None
         if start is not None:
@@ -420,26 +418,3 @@ def _jpeg_intact(lv: _Level, index: int, data, seg) -> bool:
 
     return jpeg_in_sync(bytes(data), seg[..., :3], decode)
 
-
-def _resolution(tf, page0) -> Resolution:
-    """µm/px and objective: OME physical size, then Aperio MPP, then TIFF tags."""
-    objective = None
-    if tf.is_ome and tf.ome_metadata:
-        objective = objective_from_ome(tf.ome_metadata)
-        mpp = mpp_from_ome(tf.ome_metadata)
-        if mpp is not None:
-            return Resolution(mpp, objective, "ome")
-    if tf.is_svs or (page0.description or "").startswith("Aperio"):
-        mpp, mag = mpp_from_aperio(page0.description)
-        objective = objective or mag
-        if mpp is not None:
-            return Resolution(mpp, objective, "aperio")
-    tags = page0.tags
-    xres, yres = tags.get("XResolution"), tags.get("YResolution")
-    unit = tags.get("ResolutionUnit")
-    if xres is not None:
-        mpp = mpp_from_tiff_tags(xres.value, yres.value if yres is not None else None,
-                                 unit.value if unit is not None else None)
-        if mpp is not None:
-            return Resolution(mpp, objective, "tiff-tags")
-    return Resolution(None, objective, None)

@@ -1,15 +1,26 @@
-"""Which pixels count as stained tissue for stain statistics.
+"""Which pixels count as stained tissue: one rule for stain estimation, stain statistics and the
+cohort audit.
 
-Stain estimation (Macenko) and colour statistics (Reinhard) must ignore blank glass, or the
-near-white background dominates every estimate. A pixel counts as tissue when the Euclidean norm
-of its optical-density vector is at least ``beta``. Macenko et al. (2009) discard "OD intensity
-less than beta" with beta = 0.15; reading "intensity" as the OD magnitude (rather than requiring
-every channel to exceed beta) keeps faint eosin, which absorbs little red light. Blank glass has
-an OD below about 0.15 (common practice).
+Stain estimation (Macenko), colour statistics (Reinhard) and the audit's colour metrics must
+ignore blank glass, or the near-white background dominates every estimate. The rule, in one place
+so every user applies the same one: a pixel is tissue when the Euclidean norm of its
+optical-density vector is at least ``beta`` = 0.15.
 
-Optical density is measured against the glass colour when one is given (``glass=``, the
-incident light ``I0`` of the Beer–Lambert law; see :mod:`tilewright.stain.density`), so that a
-tinted glass is OD 0 and the tissue's OD is its stains' alone.
+What comes from where:
+
+- Macenko et al. (2009) remove pixels whose optical density is below a threshold beta = 0.15
+  before estimating stain vectors (transparent pixels, which carry no stain information); the
+  value 0.15 is theirs.
+- How a three-channel optical density is compared with one number is our choice, not the
+  paper's: we take the vector's Euclidean norm (rather than requiring every channel, or any
+  channel, to reach beta), which keeps faint eosin, which absorbs little red light. Blank glass
+  has an OD below about 0.15 (common practice).
+- Optical density is measured against the glass colour when one is given (``glass=``, the
+  incident light ``I0`` of the Beer–Lambert law; see :mod:`tilewright.stain.density`), so that a
+  tinted glass is OD 0 and the tissue's OD is its stains' alone.
+
+API: :func:`tissue_mask` (which pixels) and :func:`tissue_od` (their optical densities and
+RGB values), both taking ``beta`` (default :data:`DEFAULT_BETA`) and ``glass``.
 
 References
 ----------
@@ -26,7 +37,7 @@ from .density import check_glass, check_rgb, glass_od_lut, od_lut
 
 __all__ = ["DEFAULT_BETA", "MAX_STAT_PIXELS", "tissue_od", "tissue_mask"]
 
-#: OD threshold of Macenko et al. (2009).
+#: OD threshold of Macenko et al. (2009), applied to the OD vector's norm (our reading).
 DEFAULT_BETA = 0.15
 #: Above this many pixels, statistics use an evenly strided subset (deterministic).
 MAX_STAT_PIXELS = 1_000_000

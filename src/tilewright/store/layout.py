@@ -53,8 +53,13 @@ _COMPOUND = (".ome.tiff", ".ome.tif", ".ome.zarr")
 
 
 def slide_stem(path: str | os.PathLike) -> str:
-    """File name without its extension(s): ``b.ome.tif`` → ``b``, ``a.svs`` → ``a``."""
+    """File name without its extension(s): ``b.ome.tif`` → ``b``, ``a.svs`` → ``a``.
+
+    A folder (a DICOM whole-slide series) keeps its whole name: ``case.07/`` → ``case.07``.
+    """
     name = Path(path).name
+    if os.path.isdir(path):
+        return name
     lower = name.lower()
     for suffix in _COMPOUND:
         if lower.endswith(suffix):

@@ -5,13 +5,37 @@ from __future__ import annotations
 import hashlib
 import os
 
-__all__ = ["source_digest"]
+__all__ = ["source_digest", "source_size"]
 
 _SAMPLE = 1 << 20  # bytes read at each sampled position
 _POSITIONS = 16
 
 
+def _files(path) -> list[str]:
+    """The files a source consists of: itself, or a folder's files (a DICOM series), sorted."""
+    if not os.path.isdir(path):
+        return [os.fspath(path)]
+    return sorted(os.path.join(path, f) for f in os.listdir(path)
+                  if os.path.isfile(os.path.join(path, f)) and not f.startswith("."))
+
+
+def source_size(path: str | os.PathLike) -> int:
+    """Bytes of a source file, or of all files of a source folder."""
+    return sum(os.path.getsize(f) for f in _files(path))
+
+
 def source_digest(path: str | os.PathLike) -> str:
+    """Digest of a source: :func:`file_digest` of a file; of a folder (a DICOM series), SHA-256 over
+    each file's name and digest, in name order (prefix ``sha256f:``)."""
+    if not os.path.isdir(path):
+        return file_digest(path)
+    h = hashlib.sha256()
+    for f in _files(path):
+        h.update(os.path.basename(f).encode("utf-8") + b"\0" + file_digest(f).encode() + b"\0")
+    return "sha256f:" + h.hexdigest()
+
+
+def file_digest(path: str | os.PathLike) -> str:
     """SHA-256 over the size and 1 MiB samples at 16 evenly spaced offsets of a file.
 
     Reading every byte of hundreds of gigapixel files would cost more than tiling them; sampling
