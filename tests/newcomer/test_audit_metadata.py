@@ -5,7 +5,7 @@ import pandas as pd
 import pytest
 
 from tilewright.audit.factors import cohort_factors
-from tilewright.audit.metadata_match import match_metadata
+from tilewright.audit.metadata_match import match_metadata, metadata_findings
 from tilewright.cli.main import main
 from tilewright.errors import ConfigError
 
@@ -65,20 +65,29 @@ def test_unknown_label_exits_2_before_computing(cohort, tmp_path, capsys):
     assert "--label 'subtype' is not a column" in capsys.readouterr().err and not seen
 
 
-def test_ids_with_extension_match_and_skipped_slides_are_told_apart(cohort, tmp_path, capsys):
+def test_good_metadata_goes_on_to_the_audit(cohort, tmp_path):
     out, seen = cohort
     meta = _meta(tmp_path, ["N01.svs", "N02", "S01.ome.tif", "S02.ome.tif", "Z09"])
-    with pytest.raises(Computed):
+    with pytest.raises(Computed):  # ids with extensions, a skipped slide, an unknown id: not errors
         main(["audit", str(out), "--metadata", str(meta)])
-    printed = capsys.readouterr().out
-    # ground truth constructed above: three ids carry the file extension(s), S02 was skipped, Z09 is unknown
-    assert "3 metadata ids are written as the slide file name (for example 'N01.svs')" in printed
-    assert "1 metadata row is for slides the tiling run stored no tiles for" in printed
-    assert "'S02', skipped: no tile met the tissue criteria" in printed
-    assert "1 metadata id names no slide of this cohort (for example 'Z09')" in printed
-    table = seen["metadata"]
-    assert sorted(table.index) == ["N01", "N02", "S01", "Z09"]  # S02 left out: not a mismatch
-    assert table.loc["S01", "site"] == "south"
+    assert seen["metadata"] == str(meta)
+
+
+def test_findings_tell_file_names_skipped_slides_and_unknown_ids_apart(cohort, tmp_path):
+    out, _ = cohort
+    manifest = pd.read_csv(out / "manifest.csv", dtype={"slide_id": str}).set_index("slide_id")
+    ok = manifest[manifest.status == "ok"]
+    meta = pd.DataFrame({"slide_id": ["N01.svs", "N02", "S01.ome.tif", "S02.ome.tif", "Z09"],
+                         "site": ["north", "north", "south", "south", "south"]})
+    factors, notes = cohort_factors(ok, meta)  # what the audit joins (only slides with tiles)
+    lines = metadata_findings(out, notes)
+    # ground truth constructed above: two ok slides written with their file's extension(s), S02
+    # skipped by the run (blank glass), Z09 in no manifest row
+    assert lines[0].startswith("2 metadata ids are written as the slide file name (for example 'N01.svs')")
+    assert lines[1].startswith("1 metadata row is for slides the tiling run stored no tiles for")
+    assert "'S02', skipped: no tile met the tissue criteria" in lines[1]
+    assert lines[2].startswith("1 metadata id names no slide of this cohort (for example 'Z09')")
+    assert len(lines) == 3 and list(factors["site"].astype(str)) == ["north", "north", "south"]
 
 
 def test_library_join_accepts_ids_with_the_file_extension(tmp_path):

@@ -105,3 +105,14 @@ def test_readme_option_list_matches_tile_out_help():
     assert not missing, f"README's option list lacks {missing} (tile-out --help has them)"
     assert not unknown, f"README lists {unknown}, which tile-out does not have"
     assert len(listed) == len(set(listed)), "README lists an option twice"
+
+
+def test_demo_report_names_the_blank_slide_as_skipped(demo_workspace):
+    """The demo's blank slide has a metadata row but no tiles: the audit says the run skipped it,
+    not that its id matches nothing (issue 24, item 7)."""
+    where, demo = demo_workspace
+    assert demo.returncode == 0
+    report = (where / "demo-out" / "audit" / "report.html").read_text(encoding="utf-8")
+    # ground truth: the demo scenario's blank slide is the last of site-south (S02 with two a site)
+    assert "&#x27;S02&#x27;, skipped: no tile met the tissue criteria" in report
+    assert "check the slide_id column" not in report

@@ -14,7 +14,7 @@ import pandas as pd
 
 from tilewright.errors import ConfigError
 
-__all__ = ["MetadataMatch", "match_suffixed_ids", "match_metadata"]
+__all__ = ["MetadataMatch", "match_suffixed_ids", "match_metadata", "metadata_findings"]
 
 
 class MetadataMatch:
@@ -126,13 +126,8 @@ def match_metadata(metadata, manifest: pd.DataFrame) -> MetadataMatch:
 
     table = read_metadata(metadata)
     table, renamed = match_suffixed_ids(table, manifest.index)
-    status = manifest["status"].astype(str).str.lower()
-    errors = manifest["error"] if "error" in manifest.columns else pd.Series("", index=manifest.index)
-    not_audited = {}
-    for sid in table.index:
-        if sid in manifest.index and status[sid] != "ok":
-            why = " ".join(str(errors[sid]).split()) if pd.notna(errors[sid]) else ""
-            not_audited[sid] = f"{status[sid]}: {why}" if why else status[sid]
+    not_audited = {sid: _not_audited(manifest, sid) for sid in table.index
+                   if sid in manifest.index and str(manifest.at[sid, "status"]).lower() != "ok"}
     unmatched = sorted(set(table.index) - set(manifest.index))
     if len(unmatched) == len(table) and len(table):
         raise ConfigError(
@@ -141,3 +136,32 @@ def match_metadata(metadata, manifest: pd.DataFrame) -> MetadataMatch:
             "store names without '.zarr' (the slide file names without extension)",
             metadata if isinstance(metadata, (str, os.PathLike)) else None)
     return MetadataMatch(table.drop(index=list(not_audited)), renamed, not_audited, unmatched)
+
+
+def _not_audited(manifest: pd.DataFrame, sid: str) -> str:
+    status = str(manifest.at[sid, "status"]).lower()
+    error = manifest.at[sid, "error"] if "error" in manifest.columns else ""
+    why = " ".join(str(error).split()) if pd.notna(error) else ""
+    return f"{status}: {why}" if why else status
+
+
+def metadata_findings(folder, notes: dict) -> list[str]:
+    """The audit's sentences on how the metadata joined (see :meth:`MetadataMatch.notes`).
+
+    ``notes`` are :func:`tilewright.audit.factors.cohort_factors`'s: ``"_renamed"`` (ids written
+    as file names) and ``"_unmatched"`` (ids of no audited slide). The folder's manifest tells
+    the unmatched ids of slides the run skipped or failed (the blank slide) from ids that name no
+    slide at all.
+    """
+    from tilewright.audit.source import read_manifest
+
+    unmatched = list(notes.get("_unmatched") or [])
+    manifest = read_manifest(folder) if unmatched else None
+    not_audited, unknown = {}, []
+    for written in unmatched:
+        sid = written if written in manifest.index else _stem(written)
+        if sid in manifest.index:
+            not_audited[sid] = _not_audited(manifest, sid)
+        else:
+            unknown.append(written)
+    return MetadataMatch(None, dict(notes.get("_renamed") or {}), not_audited, unknown).notes()
