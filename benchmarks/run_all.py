@@ -15,7 +15,8 @@ raw decode    tifffile: read + JPEG-decode exactly the level-0 tiles under plann
 hand loop     OpenSlide read_region(512 px, level 0) per tile, cv2 INTER_AREA to 256, one zarr
               write per tile (tile-out's default codec, one tile a chunk), 1 thread;
 tile-out      tile_cohort (what the tile-out command runs) with the given workers/threads, QC
-              overlay on, timed end to end (mask, plan, reads, normalization, store, manifest).
+              overlay on, timed end to end (mask, plan, reads, normalization, store, manifest);
+              "progress bar drawn": the same with tile-out's terminal display fed every event.
 
 "source MP/s" counts the level-0 pixels behind the stored tiles (512 x 512 a tile). Every row runs
 once a round, ``--rounds`` (5) interleaved rounds, so load that drifts on a shared machine hits
@@ -125,7 +126,26 @@ def hand_loop(path, yx, scale, out):
     return seconds
 
 
-def cohort(paths, out, cfg, *, client=None, target=None):
+def display():
+    """What tile-out feeds on a terminal: the rich bar (into a terminal-like buffer) and log lines."""
+    import io
+
+    from rich.console import Console
+
+    from tilewright.cli.progress import RichProgress
+    from tilewright.run.events import LogProgress
+
+    bar = RichProgress(1, console=Console(file=io.StringIO(), force_terminal=True, width=120))
+    lines = LogProgress()
+
+    def listen(event):
+        lines(event)
+        bar(event)
+
+    return bar, listen
+
+
+def cohort(paths, out, cfg, *, client=None, target=None, shown=False):
     """Run tile_cohort into a fresh ``out``; ``target`` (a fitted normalizer dict) is saved there
     first, as a resumed or distributed run finds it (so no cohort stain estimate is made)."""
     import json
@@ -137,8 +157,11 @@ def cohort(paths, out, cfg, *, client=None, target=None):
     if target is not None:
         Path(out).mkdir(parents=True)
         stain_target_path(out, target["method"]).write_text(json.dumps(target))
+    bar, listen = display() if shown else (contextlib.nullcontext(), None)
     t0, c0 = time.perf_counter(), time.process_time()
-    res = tw.tile_cohort([str(p) for p in paths], out, cfg, scheduler=client, workers=1, progress=False)
+    with bar:
+        res = tw.tile_cohort([str(p) for p in paths], out, cfg, scheduler=client, workers=1, progress=False,
+                             on_progress=listen)
     seconds = time.perf_counter() - t0
     CPU[0] = None if client is not None else time.process_time() - c0
     bad = [r for r in res if r.status != "ok"]
@@ -208,13 +231,13 @@ def main(argv=None):
             return sec, n, CPU[0]
         return run
 
-    def out(paths, name, cfg, workers=None, target=None):
+    def out(paths, name, cfg, workers=None, target=None, shown=False):
         def run():
             if workers:  # a fresh, warmed-up cluster a round: idle clusters would disturb the other rows
                 clients[workers] = local_client(workers, main_slide, tmp / "warm")
             try:
                 sec, k, res = cohort(paths, tmp / name, cfg, client=clients[workers][0] if workers else None,
-                                     target=target)
+                                     target=target, shown=shown)
             finally:
                 if workers:
                     client, cluster = clients.pop(workers)
@@ -236,6 +259,9 @@ def main(argv=None):
             ("loop", "hand loop: OpenSlide 512 px/tile + INTER_AREA + zarr", None, src_mp, "first round only"),
             ("tw", "tile-out, 1 worker (threads=2), no normalization", out([main_slide], "tw", base), src_mp,
              "defaults: lz4, JPEG check on"),
+            ("shown", "tile-out, 1 worker (threads=2), progress bar drawn", out([main_slide], "shown", base,
+                                                                              shown=True),
+             src_mp, "what a terminal run adds: bar + log lines"),
             ("nv", "tile-out, 1 worker (threads=2), --no-verify-jpeg",
              out([main_slide], "nv", base.replace(verify_jpeg=False)), src_mp, "without the damaged-JPEG check"),
             ("mac", "tile-out, 1 worker (threads=2), Macenko, new cohort", out([main_slide], "mac", mac_cfg),
@@ -324,6 +350,7 @@ def main(argv=None):
         ("  the same with --no-verify-jpeg", ratio("nv", "raw"), ">= 0.7", 0.7),
         ("  the same on the RGB-JPEG copy", ratio("rgb", "rgbraw"), ">= 0.7", 0.7),
         ("Macenko extra time (target known), %", 100 * mac_cost, "<= 35", -35),
+        ("progress display extra time, %", 100 * (ratio("tw", "shown") - 1), "< 2", -2),
         ("2 workers / 1 worker (1 thread each)", ratio("d2", "in1"), ">= 1.7", 1.7),
         ("  the same, both on dask", ratio("d2", "d1"), ">= 1.7", 1.7),
     ]

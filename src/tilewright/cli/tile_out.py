@@ -77,6 +77,8 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--compression", choices=["lz4", "zstd", "zlib", "none"],
                    help="lossless tile compression (default lz4; zstd: ~12%% fewer bytes, ~3x the CPU)")
     g.add_argument("--quiet", action="store_true", help="no progress output (the log file is still written)")
+    g.add_argument("--verbose", action="store_true",
+                   help="the closing summary lists every slide (default: all up to 20 slides, else failures)")
     return p
 
 
@@ -160,8 +162,12 @@ def _check_tiles_fit(paths, config, mpp) -> None:
 
 
 def run(args, config) -> int:
-    from tilewright.cli.progress import SlideProgress, setup_logging
+    import contextlib
+    import time
+
+    from tilewright.cli.progress import RichProgress, setup_logging
     from tilewright.cli.summary import print_summary
+    from tilewright.run.events import LogProgress, ProgressTracker
     from tilewright.run.cohort import tile_cohort
     from tilewright.run.sources import find_slides, read_mpp_table
 
@@ -189,15 +195,28 @@ def run(args, config) -> int:
     except OSError as exc:
         raise ConfigError(f"cannot write to the output folder ({exc.strerror or exc}); choose a writable folder",
                           out) from None
-    setup_logging(out / "tile-out.log", quiet=args.quiet)
+    tty = sys.stderr.isatty() and not args.quiet
+    setup_logging(out / "tile-out.log", quiet=args.quiet, tty=tty)
     log.info("tile-out: %d slide(s) from %s into %s (target %.3g µm/px, tile %d, normalize %s)",
              len(paths), args.source, out, config.mpp, config.tile, config.normalizer or "none")
-    progress = SlideProgress(len(paths), enabled=not args.quiet)
-    results = tile_cohort(paths, out, config, scheduler=args.scheduler, workers=args.workers,
-                          overwrite=args.overwrite, mpp=mpp, on_result=progress)
+    lines = LogProgress()  # the log file always; stderr too when it is not a terminal (and not --quiet)
+    bar = RichProgress(len(paths)) if tty else contextlib.nullcontext()
+    totals = ProgressTracker(None, len(paths))
+
+    def on_progress(event):
+        totals(event)
+        lines(event)
+        if tty:
+            bar(event)
+
+    t0 = time.perf_counter()
+    with bar:
+        results = tile_cohort(paths, out, config, scheduler=args.scheduler, workers=args.workers,
+                              overwrite=args.overwrite, mpp=mpp, progress=False, on_progress=on_progress)
     rows = [r.to_row() for r in results]
     if not args.quiet:
-        print_summary(rows, out)
+        print_summary(rows, out, seconds=time.perf_counter() - t0, megapixels=totals.megapixels,
+                      verbose=args.verbose)
     failed = sum(r["status"] == "failed" for r in rows)
     log.info("done: %d ok, %d skipped, %d failed", sum(r["status"] == "ok" for r in rows),
              sum(r["status"] == "skipped" for r in rows), failed)

@@ -90,7 +90,7 @@ def _tile_arrays(view, plan, config, bind, writer, progress):
 
 def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str | None = None,
                mpp: float | None = None, target=None, regions=None, overwrite: bool = True,
-               progress=None) -> SlideResult:
+               progress=None, on_plan=None) -> SlideResult:
     """Tile one slide into a complete zarr store.
 
     Open → tissue mask → tile plan → read in large blocks → normalize with one slide-level stain
@@ -118,6 +118,9 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
         Replace an existing store.
     progress : callable, optional
         Called with the number of tiles done after each block.
+    on_plan : callable, optional
+        Called once, before any tile is read, with the number of planned tiles and the source
+        megapixels (level-0 pixels) one tile covers.
 
     Notes
     -----
@@ -146,6 +149,8 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
         survey = _survey(slide, view, config, slide_id, path, regions, target)
         plan, attrs = survey.plan, survey.attrs
         release_free()  # the survey's temporaries are gone: start the tile pipeline on a clean heap
+        if on_plan is not None:
+            on_plan(len(plan), (config.tile * view.scale) ** 2 / 1e6)
         try:
             with StoreWriter(final, len(plan), config.tile, shard_tiles=config.shard_tiles,
                              compression=config.compression, with_region=attrs["regions"] is not None) as writer, \

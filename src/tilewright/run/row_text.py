@@ -35,9 +35,9 @@ def row_progress(row: dict) -> str:
     """The per-slide progress text after ``<slide id>:``."""
     if row.get("kept"):
         return f"{KEPT} ({int(row.get('n_tiles') or 0)} tiles)"
-    if row["status"] == "failed":
+    if row.get("status") == "failed":
         return f"failed - {row_note(row)}"
-    return f"{row['status']}, {int(row.get('n_tiles') or 0)} tiles in {float(row.get('seconds') or 0):.1f} s"
+    return f"{row.get('status')}, {int(row.get('n_tiles') or 0)} tiles in {float(row.get('seconds') or 0):.1f} s"
 
 
 def wrapped(text: str, indent: int, width: int | None = None) -> str:
