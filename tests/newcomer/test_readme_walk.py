@@ -49,12 +49,12 @@ def _walk_shell(step, where) -> tuple[str, str | None]:
     if argv[0] == "tilewright" and argv[1:2] == ["demo"]:
         return "done by the session's demo", None
     argv = [DEMO.get(w, w) for w in argv]
+    if argv[0] == "tile-out" and "--scheduler" in argv:  # needs a cluster: the options must parse
+        return "parsed (needs a dask cluster)", _parses(argv[1:])
     if readme.is_synopsis(argv):
         return "skipped: a command shape with placeholders", None
     if argv[0] == "tile-out":
         positional = [w for w in argv[1:] if not w.startswith("-")]
-        if "--scheduler" in argv:  # needs a cluster: the options must parse
-            return "parsed (needs a dask cluster)", _parses(argv[1:])
         if not positional and not {"--help", "--print-config"} & set(argv):
             return "parsed (options named in the text)", _parses(argv[1:] + ["SRC", "OUT"])
     done = run(command(argv[0]) + argv[1:], where)
