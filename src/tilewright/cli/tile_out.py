@@ -47,6 +47,9 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--verify-jpeg", action=argparse.BooleanOptionalAction, default=None,
                    help="check every JPEG source tile for damage decoders pass silently; a damaged "
                         "slide fails (default on; --no-verify-jpeg decodes faster and keeps garbage)")
+    g.add_argument("--colour-profile", choices=["apply", "ignore"],
+                   help="apply: convert pixels from each slide's embedded ICC profile to sRGB before anything "
+                        "else sees them (default); ignore: keep the files' raw pixels")
     g = p.add_argument_group("stain")
     g.add_argument("--normalize", choices=["macenko", "reinhard", "none"],
                    help="stain normalization (default none)")
@@ -86,7 +89,8 @@ _FIELDS = {"mpp": "mpp", "tile": "tile", "stride": "stride", "min_tissue": "min_
            "max_tiles": "max_tiles", "seed": "seed", "mask_mpp": "mask_mpp", "min_sharpness": "min_sharpness",
            "reference": "reference", "regions": "regions", "min_region": "min_region",
            "threads": "threads", "compression": "compression", "verify_jpeg": "verify_jpeg",
-           "class_property": "class_property", "default_class": "default_class", "object_types": "object_types"}
+           "class_property": "class_property", "default_class": "default_class", "object_types": "object_types",
+           "colour_profile": "colour_profile"}
 
 
 def config_from_args(args):

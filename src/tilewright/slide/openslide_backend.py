@@ -14,6 +14,7 @@ from __future__ import annotations
 import numpy as np
 
 from tilewright.errors import DamagedSlideError, UnsupportedSlideError
+from tilewright.slide.colour import openslide_profile
 from tilewright.slide.resolution import Resolution, mpp_from_openslide
 
 __all__ = ["OpenSlideBackend"]
@@ -51,6 +52,7 @@ class OpenSlideBackend:
         self._downsamples = [float(d) for d in self._slide.level_downsamples]
         self.resolution: Resolution = mpp_from_openslide(self._slide.properties)
         self.flavour = self._slide.properties.get("openslide.vendor", "unknown")
+        self.icc_profile = openslide_profile(self._slide)  # what OpenSlide found, or None
 
     def tile_shape(self, level: int) -> tuple[int, int]:
         """Tile size OpenSlide reports for a level (falls back to 512)."""

@@ -21,6 +21,7 @@ import threading
 import numpy as np
 
 from tilewright.errors import DamagedSlideError, SlideError, SlideTooLargeError, UnsupportedSlideError
+from tilewright.slide import colour as _colour
 from tilewright.slide import jpeg_strict as _strict
 from tilewright.slide.sniff import MAX_PIXELS, MAX_SIDE
 from tilewright.slide.tiff_pages import discover
@@ -118,7 +119,7 @@ class TiffBackend:
         except Exception as exc:  # the header said TIFF: any parse failure means damage
             raise DamagedSlideError(f"the TIFF structure cannot be parsed ({exc})", path) from exc
         try:
-            self._levels, self.resolution, self.flavour, found = self._inspect(tf, path)
+            self._levels, self.resolution, self.flavour, found, self.icc_profile = self._inspect(tf, path)
             #: Associated images kept apart from the pyramid: name -> (height, width).
             self.associated = {k: (int(p.imagelength), int(p.imagewidth)) for k, p in found.items()}
         except SlideError:
@@ -169,7 +170,8 @@ class TiffBackend:
             if problem is None:  # a reduced level stored in huge strips: finer levels serve it
                 levels.append(_Level(page, i))
         flavour = "ome" if tf.is_ome else "svs" if tf.is_svs else "tiff"
-        return levels, pyramid.resolution, flavour, pyramid.associated
+        icc = _colour.tiff_profile(pyramid.levels[0])  # InterColorProfile of level 0, or None
+        return levels, pyramid.resolution, flavour, pyramid.associated, icc
 
     @property
     def level_shapes(self) -> list[tuple[int, int]]:
