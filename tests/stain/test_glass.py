@@ -65,7 +65,7 @@ def test_macenko_two_sites_glass_and_stain():
     reference, north, south, tissue = site_pair()
     before = np.linalg.norm(mean_lab(north, tissue) - mean_lab(south, tissue))
     assert before > 20  # the sites differ visibly (ground truth constructed above)
-    target = MacenkoNormalizer().fit(reference, glass=NORTH_GLASS)
+    target = MacenkoNormalizer(max_gain=None).fit(reference, glass=NORTH_GLASS)
     n_out = target.fit_source(north, glass=NORTH_GLASS).transform(north)
     s_out = target.fit_source(south, glass=SOUTH_GLASS).transform(south)
     after = np.linalg.norm(mean_lab(n_out, tissue) - mean_lab(s_out, tissue))
@@ -74,7 +74,7 @@ def test_macenko_two_sites_glass_and_stain():
         assert np.abs(out[~tissue].astype(int) - 255).max() <= 2  # glass -> white (Beer–Lambert)
     # the same normalization assuming white glass: tinted glass is pushed through the stain
     # map and the tissue keeps more of its site's colour (bias shown, constructed above)
-    plain = MacenkoNormalizer().fit(reference)
+    plain = MacenkoNormalizer(max_gain=None).fit(reference)
     n_plain = plain.fit_source(north).transform(north)
     s_plain = plain.fit_source(south).transform(south)
     after_plain = np.linalg.norm(mean_lab(n_plain, tissue) - mean_lab(s_plain, tissue))
@@ -113,7 +113,7 @@ def test_reinhard_statistics_relative_to_glass():
 
 def test_macenko_with_glass_matches_float64_reference():
     reference, _, south, _ = site_pair(seed=6)
-    norm = MacenkoNormalizer().fit(reference, glass=NORTH_GLASS).fit_source(south, glass=SOUTH_GLASS)
+    norm = MacenkoNormalizer(max_gain=None).fit(reference, glass=NORTH_GLASS).fit_source(south, glass=SOUTH_GLASS)
     s = estimate_stain_profile(south, glass=SOUTH_GLASS)
     # reference: Beer–Lambert OD against the glass, numpy.linalg.lstsq unmixing, Macenko et al.
     # (2009) rescaling, float64 remixing, rendered on white glass
@@ -159,18 +159,18 @@ def test_dict_round_trip_with_glass(cls):
 
 def test_with_glass_per_tile_and_defaults():
     reference, north, south, _ = site_pair(seed=9)
-    target = MacenkoNormalizer(per_tile=True).fit(reference, glass=NORTH_GLASS)
+    target = MacenkoNormalizer(per_tile=True, max_gain=None).fit(reference, glass=NORTH_GLASS)
     tinted = target.with_glass(SOUTH_GLASS)
     assert target.glass is None  # with_glass returns a copy
     tiles = np.stack([south[:64, :64], south[64:, 64:]])
     out = tinted.transform(tiles)
     for i in range(2):  # per tile: each tile's own estimate, against the glass set above
-        single = MacenkoNormalizer().fit(reference, glass=NORTH_GLASS).fit_source(tiles[i], glass=SOUTH_GLASS)
+        single = MacenkoNormalizer(max_gain=None).fit(reference, glass=NORTH_GLASS).fit_source(tiles[i], glass=SOUTH_GLASS)
         np.testing.assert_array_equal(out[i], single.transform(tiles[i]))
     # fit_source without a glass keeps the one set by with_glass
     np.testing.assert_array_equal(tinted.fit_source(south).glass, SOUTH_GLASS)
     # pure white is the default and is stored as None (exactly the old behaviour)
-    assert MacenkoNormalizer().fit(north, glass=(255, 255, 255)).reference_glass is None
+    assert MacenkoNormalizer(max_gain=None).fit(north, glass=(255, 255, 255)).reference_glass is None
 
 
 def test_invalid_glass():
@@ -179,7 +179,7 @@ def test_invalid_glass():
         with pytest.raises(ValueError):
             estimate_stains(img, glass=bad)
     with pytest.raises(ValueError):
-        MacenkoNormalizer().fit(img).with_glass([0, 0, 0])
+        MacenkoNormalizer(max_gain=None).fit(img).with_glass([0, 0, 0])
     with pytest.raises(ValueError):
         ReinhardNormalizer(output_glass=[300, 1, 1])
 

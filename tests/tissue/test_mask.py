@@ -115,9 +115,11 @@ def test_hne_plane_follows_the_slide_stains(stains):
     layout = random_layout(6000, 8000, seed=0, n_islands=3, pens=3, stains=stains)
     rgb = layout.render(8.0, 0, 0, 750, 1000)
     normal = hne_plane_normal(optical_density(rgb))
+    fitted = np.array(tissue_mask(rgb, mpp=8.0).params["hne_plane_normal"])  # ink removed first
     truth = np.cross(stains[0], stains[1])
     truth /= np.linalg.norm(truth)  # ground truth: the plane of the stains that made the image
-    assert np.degrees(np.arccos(abs(normal @ truth))) < 3.0
+    assert np.degrees(np.arccos(abs(normal @ truth))) < 3.5  # on every pixel, ink included
+    assert np.degrees(np.arccos(abs(fitted @ truth))) < 2.0  # the mask's own fit, ink removed
     assert np.degrees(np.arccos(abs(RUIFROK_PLANE_NORMAL @ truth))) > 5.0  # so the refit mattered
     mask = tissue_mask(rgb, mpp=8.0)
     assert (~mask.array[layout.pen_truth(8.0)]).mean() >= 0.90  # ground truth: the pen strokes

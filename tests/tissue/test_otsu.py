@@ -37,7 +37,8 @@ def test_mask_threshold_is_otsu_of_its_feature(he_layout):
     want = 10.0 ** threshold_otsu(values)
     # Otsu (1979); reference: skimage.filters.threshold_otsu on the same values
     assert mask.params["otsu"] == pytest.approx(want, rel=1e-9)
-    assert mask.threshold == pytest.approx(max(want, mask.params["min_od_floor"]))
+    # the threshold is Otsu's, kept between the glass-noise floor and the ceiling
+    assert mask.threshold == pytest.approx(min(max(want, mask.params["floor"]), mask.params["max_od_ceiling"]))
 
     sat = tissue_mask(rgb, mpp=8.0, method="saturation-otsu")
     feature = tissue_feature(rgb, 8.0, method="saturation-otsu")

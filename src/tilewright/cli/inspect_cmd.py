@@ -55,6 +55,8 @@ def run(args) -> int:
                       f"(scale {view.scale:.4f})\n")
             out.write(f"tissue      {100 * float(mask.array.mean()):.1f}% of the slide at {mask.mpp} µm/px\n")
             out.write(f"tiles       {len(plan)} of {args.tile} px with >= {args.min_tissue:.0%} tissue\n")
+            for note in mask.warnings:  # no glass, much ink, little tissue, implausible plane
+                out.write(f"warning     {note}\n")
             render_overlay(slide, mask, plan, overlay)
             out.write(f"overlay     {overlay}\n")
     except TilewrightError as exc:

@@ -43,6 +43,10 @@ def print_summary(rows, out, *, seconds: float = 0.0, megapixels: float = 0.0, v
     rate = f", {megapixels / seconds:.0f} MP/s" if seconds > 0 and megapixels > 0 else ""
     stream.write(f"\n{ok} ok, {len(rows) - ok - len(failed)} skipped, {len(failed)} failed; {tiles} tiles, "
                  f"{_size(_bytes(rows, out))} written in {seconds:.1f} s{rate}\n")
+    warned = sum(bool(r.get("warnings")) for r in rows)
+    if warned:
+        stream.write(f"{warned} slide(s) with warnings (no glass, much ink, little tissue, stain estimate "
+                     f"replaced, ...): see the warnings column of manifest.csv and tile-out.log\n")
     listed = rows if (verbose or len(rows) <= FULL_TABLE_UP_TO) else failed
     if listed:
         w = max([len("slide")] + [len(str(r["slide_id"])) for r in listed])

@@ -50,10 +50,20 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--colour-profile", choices=["apply", "ignore"],
                    help="apply: convert pixels from each slide's embedded ICC profile to sRGB before anything "
                         "else sees them (default); ignore: keep the files' raw pixels")
+    g = p.add_argument_group("tissue mask")
+    g.add_argument("--tissue-sensitivity", type=float,
+                   help="factor dividing the tissue density threshold: 2 keeps fainter tissue, 0.5 only denser (default 1)")
+    g.add_argument("--min-piece-um2", type=float, help="drop tissue pieces smaller than this area in µm² (default 25000)")
+    g.add_argument("--exclude-dark", action=argparse.BooleanOptionalAction, default=None,
+                   help="cut out folds and dense debris denser than --dark-od (default off)")
+    g.add_argument("--dark-od", type=float,
+                   help="mean optical density above which --exclude-dark cuts a pixel out (default 0.9; a fold ~0.3-0.6)")
+    g.add_argument("--ink-margin-um", type=float, help="grow marker ink by this many µm before cutting it out (default 16)")
     g = p.add_argument_group("stain")
     g.add_argument("--normalize", choices=["macenko", "reinhard", "none"],
                    help="stain normalization (default none)")
-    g.add_argument("--reference", help="reference image (PNG/JPEG/TIFF) or fitted-normalizer JSON; without it "
+    g.add_argument("--reference", help="reference image (PNG/JPEG/TIFF), slide (a sample of its tissue tiles is read, "
+                                       "never all of it) or fitted-normalizer JSON; without it "
                                        "the cohort's own median stain is the target, saved as OUT/stain_target.<method>.json")
     g = p.add_argument_group("regions")
     g.add_argument("--regions", help="region annotations: a GeoJSON/tile-table file, or a folder with one file a slide id")
@@ -89,6 +99,8 @@ _FIELDS = {"mpp": "mpp", "tile": "tile", "stride": "stride", "min_tissue": "min_
            "max_tiles": "max_tiles", "seed": "seed", "mask_mpp": "mask_mpp", "min_sharpness": "min_sharpness",
            "reference": "reference", "regions": "regions", "min_region": "min_region",
            "threads": "threads", "compression": "compression", "verify_jpeg": "verify_jpeg",
+           "tissue_sensitivity": "tissue_sensitivity", "min_piece_um2": "min_piece_um2",
+           "exclude_dark": "exclude_dark", "dark_od": "dark_od", "ink_margin_um": "ink_margin_um",
            "class_property": "class_property", "default_class": "default_class", "object_types": "object_types",
            "colour_profile": "colour_profile"}
 

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import logging
 import os
 import time
 from pathlib import Path
@@ -17,6 +18,7 @@ __all__ = ["tile_cohort", "run_one", "stain_target_path", "STAIN_TARGET_FILE"]
 
 #: The single stain-target file of earlier versions (still read when its method matches).
 STAIN_TARGET_FILE = "stain_target.json"
+_log = logging.getLogger("tilewright")
 
 
 def run_one(path: str, out_dir: str, config: dict, slide_id: str, mpp: float | None,
@@ -156,14 +158,15 @@ def stain_target_path(out_dir, method: str) -> Path:
     return Path(out_dir) / f"stain_target.{method}.json"
 
 
-def _stain_target(paths, out_dir: Path, config: TilingConfig, mpps, compute) -> dict | None:
-    """The cohort's stain target, computed once and saved in the output folder."""
+def _stain_target(paths, out_dir: Path, config: TilingConfig, mpps, compute, reference=None) -> dict | None:
+    """The cohort's stain target, computed once and saved in the output folder (``reference``:
+    the target already fitted from ``config.reference``)."""
     from tilewright.run.reference import make_target
 
     if not config.normalizer:
         return None
     if config.reference is not None:
-        return make_target(config.normalizer, config.reference).to_dict()
+        return reference or make_target(config.normalizer, config.reference, config).to_dict()
     saved = stain_target_path(out_dir, config.normalizer)
     for candidate in (saved, out_dir / STAIN_TARGET_FILE):  # STAIN_TARGET_FILE: written by earlier versions
         if candidate.exists():
@@ -251,6 +254,11 @@ def tile_cohort(paths, out_dir, config: TilingConfig | None = None, *, scheduler
     paths = [str(Path(p).absolute()) for p in unique_paths(paths)]
     ids = slide_ids(paths)
     mpps = [_mpp_for(mpp, p, i) for p, i in zip(paths, ids)]
+    reference = None
+    if config.normalizer and config.reference is not None:  # a bad reference stops the run before any slide
+        from tilewright.run.reference import make_target
+
+        reference = make_target(config.normalizer, config.reference, config).to_dict()
     plain = LogProgress() if progress is True and on_progress is None and on_result is None else None
     with output_lock(out_dir), run_cluster(scheduler, workers, paths, out_dir, ids) as (client, stop_name):
         ledger = Ledger(out_dir, paths, ids, config.to_toml())
@@ -263,7 +271,7 @@ def tile_cohort(paths, out_dir, config: TilingConfig | None = None, *, scheduler
         state = "interrupted"
         try:
             target = _stain_target(paths, out_dir, config, mpps, lambda fn, a: [
-                r for _, r in compute(fn, a, lambda i, exc: None)])  # a slide that fails here fails later
+                r for _, r in compute(fn, a, lambda i, exc: None)], reference)  # a slide that fails here fails later
             tracker(ProgressEvent("start", count=len(paths)))
             with events_from(client, tracker) as report:
                 args = [(p, str(out_dir), config.to_dict(), sid, m, target, overwrite, stop_name, report)
@@ -273,6 +281,8 @@ def tile_cohort(paths, out_dir, config: TilingConfig | None = None, *, scheduler
                 try:
                     for i, row in results:
                         ledger.record(row)
+                        for note in filter(None, str(row.get("warnings") or "").split("; ")):
+                            _log.warning("%s: %s", row.get("slide_id"), note)  # reaches tile-out.log
                         tracker(ProgressEvent("slide", row["slide_id"], row=row))
                         if on_result is not None:
                             on_result(row)

@@ -51,6 +51,18 @@ class TilingConfig:
         Drop tiles whose variance of the Laplacian is lower (blur).
     exclude_ink, exclude_dark : bool
         Tissue-mask artifact filters.
+    tissue_sensitivity : float
+        Unitless factor dividing the tissue mask's density threshold (floor and ceiling): 2 keeps
+        tissue half as dense (faint slides), 0.5 only tissue twice as dense. Default 1.
+    min_piece_um2 : float
+        Tissue pieces smaller than this area, in µm², are dropped (default 25,000 µm², a disc
+        about 180 µm across).
+    dark_od : float
+        With ``exclude_dark``, pixels whose mean optical density (over R, G, B, against the glass)
+        is above this are removed as folds and debris (default 0.9; a fold of two layers of
+        ordinary tissue is about 0.3-0.6).
+    ink_margin_um : float
+        Marker ink is grown by this many µm before it is cut out (default 16).
     keep : list of str or None
         Region classes to keep (requires regions; a string is split on commas). Names match
         the file's classes ignoring case and spacing; a kept class a slide's file lacks covers
@@ -105,6 +117,10 @@ class TilingConfig:
     min_sharpness: float | None = None
     exclude_ink: bool = True
     exclude_dark: bool = False
+    tissue_sensitivity: float = 1.0
+    min_piece_um2: float = 25_000.0
+    dark_od: float = 0.9
+    ink_margin_um: float = 16.0
     keep: list | None = None
     regions: str | None = None
     min_region: float = 0.5
@@ -144,6 +160,12 @@ class TilingConfig:
         positive("block", self.block, int)
         positive("threads", self.threads, int)
         positive("stain_sample", self.stain_sample, int)
+        positive("tissue_sensitivity", self.tissue_sensitivity)
+        positive("dark_od", self.dark_od)
+        for name in ("min_piece_um2", "ink_margin_um"):
+            v = getattr(self, name)
+            if not isinstance(v, (int, float)) or isinstance(v, bool) or not math.isfinite(v) or v < 0:
+                raise ConfigError(f"{name} must be a number >= 0, got {v!r}")
         if self.stride is not None:
             positive("stride", self.stride, int)
         if self.max_tiles is not None:
@@ -175,6 +197,12 @@ class TilingConfig:
                               f"(--normalize {method if method in _NORMALIZERS[1:] else 'macenko or reinhard'}); "
                               "without it the reference would be ignored")
         return self
+
+    def mask_options(self) -> dict:
+        """Keyword arguments of :func:`tilewright.tissue.mask.tissue_mask` these settings choose."""
+        return {"exclude_ink": self.exclude_ink, "exclude_dark": self.exclude_dark,
+                "sensitivity": float(self.tissue_sensitivity), "min_component_um2": float(self.min_piece_um2),
+                "dark_od": float(self.dark_od), "ink_margin_um": float(self.ink_margin_um)}
 
     def _validate_regions(self):
         from tilewright.regions.classnames import keep_names

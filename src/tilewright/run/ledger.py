@@ -106,7 +106,8 @@ def store_row(out_dir: Path, slide_id: str, path: str) -> dict | None:
     from tilewright.slide.colour import colour_label
 
     return SlideResult(slide_id, path, "ok" if n else "skipped", "" if n else skip_reason(a), n, a.get("mpp_source"), a.get("objective"), a.get("source_level"), None,
-                       str(final), colour_label(a.get("colour_profile")), kept=True).to_row()
+                       str(final), colour_label(a.get("colour_profile")), "; ".join(a.get("warnings") or ()),
+                       kept=True).to_row()
 
 
 def _replace_text(path: Path, text: str) -> None:

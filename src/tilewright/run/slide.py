@@ -11,7 +11,7 @@ from pathlib import Path
 
 import numpy as np
 
-from tilewright.errors import StainEstimationError, TilewrightError
+from tilewright.errors import TilewrightError
 from tilewright.run.config import TilingConfig
 from tilewright.run.identity import target_digest
 from tilewright.store.layout import slide_ids
@@ -35,6 +35,7 @@ class SlideResult:
     seconds: float = 0.0
     store: str = ""
     colour_profile: str = ""  # ColourInfo.label: "none", the applied profile, or "... (ignored)"
+    warnings: str = ""  # "; "-joined "code: reason" messages (see tissue_mask, fit_source_checked)
     kept: bool = False  # a complete store of an earlier run, kept as it is (seconds: that run's)
 
     def to_row(self) -> dict:
@@ -164,9 +165,11 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
                 aside = pool.submit(_aside, writer, survey.maps, survey.draw, survey.mask, plan, path, slide_id)
                 survey.maps = survey.draw = survey.mask = None
                 kept = _tile_arrays(view, plan, config, bind, writer, progress)
-                bound, used = (None, None) if bind is None else bind.result()
+                bound, used, stain_note = (None, None, "") if bind is None else bind.result()
                 attrs["normalizer"] = None if bound is None else bound.to_dict()
                 attrs["stain_target"] = target_digest(used)  # what a resumed run must match
+                if stain_note:
+                    attrs["warnings"].append(f"stain-replaced: {stain_note}")
                 png, attrs["source"]["digest"] = aside.result()
                 writer.commit(attrs, overwrite=overwrite, expected=kept)
                 n = writer.n
@@ -178,7 +181,8 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
         return SlideResult(slide_id=slide_id, source=str(path), status="ok", n_tiles=int(n),
                            mpp_source=float(slide.mpp), objective=slide.objective,
                            source_level=int(view.source_level), seconds=round(time.perf_counter() - t0, 3),
-                           store=str(final), colour_profile=slide.colour.label)
+                           store=str(final), colour_profile=slide.colour.label,
+                           warnings="; ".join(attrs["warnings"]))
 
 
 def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNamespace:
@@ -196,7 +200,7 @@ def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNames
 
     thumbnail = slide.thumbnail(config.mask_mpp)
     mask = tissue_mask(SimpleNamespace(thumbnail=lambda mpp: thumbnail, path=slide.path), mpp=config.mask_mpp,
-                       exclude_ink=config.exclude_ink, exclude_dark=config.exclude_dark)
+                       **config.mask_options())
     keep = absent = None
     if regions is not None and not config.keep:
         from tilewright.errors import ConfigError
@@ -222,6 +226,7 @@ def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNames
         "normalizer": None,  # bound while the first tiles are read (see tile_slide)
         "regions": None if (regions is None or not config.keep) else _region_info(regions, config, absent),
         "tissue_mask": _jsonable(mask.to_dict()),
+        "warnings": list(mask.warnings),  # what the user should know; the stain's note joins later
         "plan": _jsonable(getattr(plan, "params", {})),
         "order": "blocks of config.block target px, row-major; row-major inside a block",
         "config": _jsonable(config.to_dict()),
@@ -266,27 +271,25 @@ def _glass(thumbnail, mask):
 
 def _bind_normalizer(view, plan, config, target, path, glass=None):
     """Fit the target (if needed) and bind the slide's own stain estimate from a tile sample,
-    optical density measured against the slide's glass colour ``glass``.
-
-    Returns ``(bound normalizer, shared target or None)``."""
-    from tilewright.run.reference import make_target, sample_tiles
-    from tilewright.stain.registry import make_normalizer
+    optical density measured against the slide's glass colour ``glass``. Returns
+    ``(normalizer or None, shared target or None, note)``: a failed or implausible estimate of the
+    slide is replaced by a documented fallback
+    (:meth:`~tilewright.stain.normalizer.StainNormalizer.fit_source_checked`) and ``note`` says so."""
+    from tilewright.run.reference import make_target, own_target, sample_tiles
 
     sample = sample_tiles(view, plan.yx, config.tile, config.stain_sample, config.seed, threads=config.threads)
     if len(sample) == 0:
-        return None, None  # nothing will be stored; no estimate needed
+        return None, None, ""  # nothing will be stored; no estimate needed
     if target is None and config.reference is not None:
-        target = make_target(config.normalizer, config.reference)
+        target = make_target(config.normalizer, config.reference, config)
     used = target  # the shared target (None: the slide's own estimate is its target)
+    note = ""
     if target is None:
-        target = make_normalizer(config.normalizer).fit(sample, glass=glass)
+        target, note = own_target(config.normalizer, sample, glass, path)
     if config.per_tile_stain:
-        return target.with_glass(glass), used
-    try:
-        return target.fit_source(sample, glass=glass), used
-    except StainEstimationError as exc:
-        raise StainEstimationError(f"cannot estimate this slide's stain from {len(sample)} tissue tiles "
-                                   f"({exc.reason}); lower --min-tissue or run without --normalize", path) from None
+        return target.with_glass(glass), used, note
+    bound, replaced = target.fit_source_checked(sample, glass=glass)
+    return bound, used, "; ".join(n for n in (note, replaced) if n)
 
 
 def _regions_for(regions, config, slide_id, slide, path):

@@ -19,6 +19,10 @@ def slide_glass(thumbnail, mask) -> list[float] | None:
     (:func:`tilewright.stain.density.estimate_glass`; common practice)."""
     from tilewright.stain.density import estimate_glass
 
+    params = getattr(mask, "params", None) or {}
+    if params.get("glass_found") is False:  # no glass on the slide: the mask's fallback colour
+        glass = [float(v) for v in params.get("glass", (255.0, 255.0, 255.0))]
+        return None if min(glass) >= 255.0 else glass
     background = ~np.asarray(mask.array, bool)
     for extra in ("ink", "dark"):
         if getattr(mask, extra, None) is not None:
@@ -29,7 +33,8 @@ def slide_glass(thumbnail, mask) -> list[float] | None:
 
 def slide_estimate(path: str, config: dict, mpp: float | None) -> dict | None:
     """A normalizer fitted to one slide's sample of tissue tiles, its optical density measured
-    against the slide's own glass colour (None when impossible)."""
+    against the slide's own glass colour (None when impossible, or for Macenko when the estimate
+    is implausible: :func:`tilewright.stain.estimate.implausible`)."""
     from tilewright.run.reference import sample_tiles
     from tilewright.slide.open import open as open_slide
     from tilewright.stain.registry import make_normalizer
@@ -41,14 +46,20 @@ def slide_estimate(path: str, config: dict, mpp: float | None) -> dict | None:
         with open_slide(path, mpp=mpp, verify=cfg.verify_jpeg, colour_profile=cfg.colour_profile) as slide:
             view = slide.at_mpp(cfg.mpp, tolerance=cfg.tolerance)
             thumbnail = slide.thumbnail(cfg.mask_mpp)  # read once: the mask and the glass colour share it
-            mask = tissue_mask(thumbnail, mpp=cfg.mask_mpp, exclude_ink=cfg.exclude_ink, exclude_dark=cfg.exclude_dark)
+            mask = tissue_mask(thumbnail, mpp=cfg.mask_mpp, **cfg.mask_options())
             plan = plan_tiles(view, mask, tile=cfg.tile, stride=cfg.stride, min_tissue=cfg.min_tissue,
                               max_tiles=cfg.stain_sample, seed=cfg.seed)
             sample = sample_tiles(view, plan.yx, cfg.tile, cfg.stain_sample, cfg.seed, threads=cfg.threads)
             glass = slide_glass(thumbnail, mask)
         if len(sample) == 0:
             return None
-        return make_normalizer(cfg.normalizer).fit(sample, glass=glass).to_dict()
+        fitted = make_normalizer(cfg.normalizer).fit(sample, glass=glass)
+        if cfg.normalizer == "macenko":
+            from tilewright.stain.estimate import StainProfile, implausible
+
+            if implausible(StainProfile(fitted.stain_matrix, fitted.max_concentrations, 0)):
+                return None  # a failed estimate does not pull the cohort's median
+        return fitted.to_dict()
     except TilewrightError:
         return None  # the slide's own run will report why
 

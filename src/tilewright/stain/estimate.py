@@ -27,12 +27,30 @@ __all__ = [
     "estimate_stain_profile",
     "max_concentrations",
     "MIN_TISSUE_PIXELS",
+    "implausible",
+    "RUIFROK_STAINS",
 ]
 
 #: Fewer tissue pixels than this and the stain plane is not trusted.
 MIN_TISSUE_PIXELS = 500
 #: Two estimated stain vectors closer than this (degrees) mean a single-stain image.
 MIN_STAIN_ANGLE_DEG = 2.0
+#: Ruifrok & Johnston (2001) hematoxylin and eosin optical-density vectors (unit rows).
+RUIFROK_STAINS = np.array([[0.65, 0.70, 0.29], [0.07, 0.99, 0.11]]) / np.linalg.norm(
+    [[0.65, 0.70, 0.29], [0.07, 0.99, 0.11]], axis=1, keepdims=True)
+#: Plausibility of a slide's own estimate (see :func:`implausible`). Stain pairs measured on real
+#: H&E slides lie 20-45 degrees apart (the Ruifrok & Johnston pair 39; a widely used Macenko
+#: reference pair, (0.5626, 0.7201, 0.4062) and (0.2159, 0.8012, 0.5581), 22).
+PLAUSIBLE_MIN_ANGLE_DEG = 18.0
+#: Each stain lies within this many degrees of its Ruifrok & Johnston vector (that reference
+#: pair: 8 and 29 degrees).
+PLAUSIBLE_MAX_DEVIATION_DEG = 40.0
+#: Hematoxylin's share of red optical density exceeds eosin's by at least this (hematoxylin is
+#: the bluer stain; Ruifrok & Johnston: 0.39 vs 0.06).
+PLAUSIBLE_RED_SHARE_GAP = 0.1
+#: Fewest tissue pixels and the range of the 99th-percentile concentrations (OD units).
+PLAUSIBLE_MIN_PIXELS = 2000
+PLAUSIBLE_MAX_RANGE = (0.1, 4.0)
 #: Rows of the covariance are accumulated in float64 this many pixels at a time.
 _CHUNK = 1 << 16
 
@@ -268,3 +286,51 @@ def estimate_stain_profile(
             "does not look like a two-stain tissue image."
         )
     return StainProfile(stains.astype(np.float32), maxima, int(od.shape[0]))
+
+
+def implausible(profile: StainProfile) -> str:
+    """Why a Macenko estimate is not a plausible H&E estimate ("" when it is).
+
+    Checks: the stains at least :data:`PLAUSIBLE_MIN_ANGLE_DEG` apart; hematoxylin the bluer
+    stain (its share of red optical density larger than eosin's by
+    :data:`PLAUSIBLE_RED_SHARE_GAP`); each stain within :data:`PLAUSIBLE_MAX_DEVIATION_DEG` of its
+    Ruifrok & Johnston (2001) vector; at least :data:`PLAUSIBLE_MIN_PIXELS` tissue pixels (when the
+    count is known, i.e. not 0); 99th-percentile concentrations inside
+    :data:`PLAUSIBLE_MAX_RANGE`. A failed estimate (for example a small biopsy with few nuclei,
+    whose two "stains" are both eosin-like) otherwise unmixes with a nearly singular matrix and
+    blows noise and JPEG blocks up into black nuclei.
+
+    Parameters
+    ----------
+    profile : StainProfile
+
+    Returns
+    -------
+    str
+        The first reason found, or "".
+
+    References
+    ----------
+    Ruifrok AC, Johnston DA (2001). Quantification of histochemical staining by color
+    deconvolution. Analytical and Quantitative Cytology and Histology 23(4):291-299.
+    """
+    stains = np.asarray(profile.stain_matrix, np.float64)
+    maxima = np.asarray(profile.max_concentrations, np.float64)
+    if not (np.all(np.isfinite(stains)) and np.all(np.isfinite(maxima))):
+        return "the estimate is not finite"
+    angle = _angle_between(stains[0], stains[1])
+    if angle < PLAUSIBLE_MIN_ANGLE_DEG:
+        return f"the two stains are only {angle:.0f} degrees apart"
+    share = stains[:, 0] / np.maximum(stains.sum(axis=1), 1e-9)
+    if share[0] < share[1] + PLAUSIBLE_RED_SHARE_GAP:
+        return "hematoxylin is not bluer than eosin"
+    for name, row, ref in zip(("hematoxylin", "eosin"), stains, RUIFROK_STAINS):
+        off = _angle_between(row, ref)
+        if off > PLAUSIBLE_MAX_DEVIATION_DEG:
+            return f"the {name} vector is {off:.0f} degrees from any H&E {name}"
+    if 0 < profile.n_tissue_pixels < PLAUSIBLE_MIN_PIXELS:
+        return f"only {profile.n_tissue_pixels} tissue pixels"
+    lo, hi = PLAUSIBLE_MAX_RANGE
+    if np.any(maxima < lo) or np.any(maxima > hi):
+        return f"concentration maxima {np.round(maxima, 2).tolist()} outside {lo}-{hi}"
+    return ""

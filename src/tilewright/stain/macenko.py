@@ -12,11 +12,17 @@ from __future__ import annotations
 import numpy as np
 
 from ..errors import ConfigError
-from .estimate import StainProfile, estimate_stain_profile, estimate_stains
+from .estimate import (PLAUSIBLE_MAX_RANGE, StainProfile, estimate_stain_profile, estimate_stains, implausible,
+                       max_concentrations, MIN_TISSUE_PIXELS)
 from .density import glass_od
 from .normalizer import StainNormalizer, as_float_list, glass_list
 from .od_transform import apply_od_affine
-from .tissue_pixels import DEFAULT_BETA
+from .tissue_pixels import DEFAULT_BETA, tissue_od
+
+#: Each stain's concentration is scaled by the target's maximum over the source's, at most
+#: MAX_GAIN: a pale or failed source is not blown up, with its noise and JPEG blocks, into dark
+#: nuclei the slide never had. Scaling down is not capped (it amplifies nothing).
+MAX_GAIN = 1.25
 
 __all__ = ["MacenkoNormalizer", "estimate_stains", "estimate_stain_profile", "StainProfile"]
 
@@ -55,6 +61,9 @@ class MacenkoNormalizer(StainNormalizer):
         Angle percentile of the extreme stain directions (Macenko et al. 2009).
     output_glass : array_like (3,), optional
         RGB of the glass the output is rendered with; default pure white (255, 255, 255).
+    max_gain : float or None, default :data:`MAX_GAIN` (1.25)
+        Largest factor a stain's concentration is scaled up by (scaling down is not capped).
+        None applies the published map unbounded.
 
     Attributes
     ----------
@@ -90,7 +99,7 @@ class MacenkoNormalizer(StainNormalizer):
     method = "macenko"
 
     def __init__(self, *, per_tile: bool = False, beta: float = DEFAULT_BETA, alpha: float = 1.0,
-                 output_glass=None):
+                 output_glass=None, max_gain: float | None = MAX_GAIN):
         super().__init__(per_tile=per_tile, output_glass=output_glass)
         beta, alpha = float(beta), float(alpha)
         if not (np.isfinite(beta) and beta >= 0):
@@ -99,6 +108,9 @@ class MacenkoNormalizer(StainNormalizer):
             raise ValueError(f"alpha must be a percentile in [0, 50), got {alpha}")
         self.beta = beta
         self.alpha = alpha
+        if max_gain is not None and not (np.isfinite(max_gain) and max_gain >= 1):
+            raise ValueError(f"max_gain must be a number >= 1 or None, got {max_gain}")
+        self.max_gain = None if max_gain is None else float(max_gain)
         self.stain_matrix = None
         self.max_concentrations = None
 
@@ -124,7 +136,8 @@ class MacenkoNormalizer(StainNormalizer):
         Returns
         -------
         ndarray, float64, shape (3, 3)
-            ``pinv(S_src) @ diag(max_tgt / max_src) @ S_tgt``.
+            ``pinv(S_src) @ diag(max_tgt / max_src) @ S_tgt``, each ratio at most ``max_gain``
+            (unless ``max_gain`` is None, the published map).
         """
         self._require_fitted()
         source = self.source if source is None else source
@@ -134,7 +147,28 @@ class MacenkoNormalizer(StainNormalizer):
         scale = np.asarray(self.max_concentrations, np.float64) / np.asarray(
             source.max_concentrations, np.float64
         )
+        if self.max_gain is not None:
+            scale = np.minimum(scale, self.max_gain)  # reducing a stain amplifies nothing: not capped
         return (unmix * scale) @ np.asarray(self.stain_matrix, np.float64)
+
+    def _implausible(self, source) -> str:
+        return implausible(source)
+
+    def _target_stats(self):
+        return StainProfile(self.stain_matrix, self.max_concentrations, 0)
+
+    def _fallback_source(self, rgb, glass):
+        """The target's stains with the slide's own 99th-percentile concentrations under them
+        (the slide keeps its intensity range), or the target's maxima too when the slide has too
+        few tissue pixels or its maxima are out of range."""
+        od, _ = tissue_od(rgb, beta=self.beta, glass=glass)
+        if od.shape[0] >= MIN_TISSUE_PIXELS:
+            maxima = max_concentrations(od, self.stain_matrix)
+            lo, hi = PLAUSIBLE_MAX_RANGE
+            if np.all(np.isfinite(maxima)) and np.all((maxima >= lo) & (maxima <= hi)):
+                return (StainProfile(np.asarray(self.stain_matrix, np.float32), maxima, int(od.shape[0])),
+                        "the target's stain vectors with the slide's own concentration maxima")
+        return self._target_stats(), "the target's stain vectors and concentration maxima"
 
     def _apply(self, rgb, source, out) -> None:
         offset = None if self.output_glass is None else glass_od(self.output_glass)
@@ -142,11 +176,11 @@ class MacenkoNormalizer(StainNormalizer):
 
     def _params(self) -> dict:
         return {"per_tile": self.per_tile, "beta": self.beta, "alpha": self.alpha,
-                "output_glass": glass_list(self.output_glass)}
+                "output_glass": glass_list(self.output_glass), "max_gain": self.max_gain}
 
     @classmethod
     def _param_names(cls) -> tuple:
-        return ("per_tile", "beta", "alpha", "output_glass")
+        return ("per_tile", "beta", "alpha", "output_glass", "max_gain")
 
     def _target_dict(self) -> dict:
         return self._stats_to_dict(StainProfile(self.stain_matrix, self.max_concentrations, 0))

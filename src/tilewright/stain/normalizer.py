@@ -4,7 +4,7 @@ A normalizer has a *target* (fitted once on a reference image, or the median of 
 *source* estimate (the colour statistics of the images being normalized). The source estimate
 comes, in order of precedence:
 
-1. per image, when ``per_tile=True`` (an image whose own estimate fails falls back to the bound
+1. per image, when ``per_tile=True`` (an image whose own estimate fails, or is implausible, falls back to the bound
    estimate below, or is returned unchanged when there is none);
 2. from a bound sample, after ``fit_source(sample)`` (the whole-slide mode: one estimate from a
    reproducible sample of a slide's tissue tiles, reused for every tile batch of that slide);
@@ -201,6 +201,55 @@ class StainNormalizer:
         bound.source = bound._estimate(check_rgb(sample_rgb, "sample_rgb"), bound.glass)
         return bound
 
+    def _implausible(self, source) -> str:
+        """Why a source estimate is not plausible ("" when it is); every estimate by default."""
+        return ""
+
+    def _fallback_source(self, rgb, glass):
+        """``(source, how)``: the estimate used when a slide's own one failed or is implausible.
+        By default the target's own statistics (the slide is left as it is)."""
+        return self._target_stats(), "the target's own statistics (colours left as they are)"
+
+    def _target_stats(self):  # pragma: no cover - abstract
+        raise NotImplementedError
+
+    def fit_source_checked(self, sample_rgb, *, glass=None):
+        """Like :meth:`fit_source`, but a failed or implausible estimate is replaced, not raised.
+
+        Parameters
+        ----------
+        sample_rgb : array_like, uint8, shape (..., 3)
+            A reproducible sample of the slide's tissue.
+        glass : array_like (3,), optional
+            As in :meth:`fit_source`.
+
+        Returns
+        -------
+        bound : same type as ``self``
+            A bound copy.
+        note : str
+            "" when the slide's own estimate was used; otherwise why it was replaced and by what
+            (for the user's warnings).
+
+        Raises
+        ------
+        ConfigError
+            When the normalizer has no target yet.
+        """
+        self._require_fitted()
+        bound = self.with_glass(glass) if glass is not None else copy.deepcopy(self)
+        arr = check_rgb(sample_rgb, "sample_rgb")
+        try:
+            source = bound._estimate(arr, bound.glass)
+            reason = bound._implausible(source)
+        except StainEstimationError as exc:
+            source, reason = None, exc.reason if hasattr(exc, "reason") else str(exc)
+        if not reason:
+            bound.source = source
+            return bound, ""
+        bound.source, how = bound._fallback_source(arr, bound.glass)
+        return bound, f"the slide's own stain estimate was replaced ({reason}) by {how}"
+
     def transform(self, rgb, *, out=None) -> np.ndarray:
         """Normalize an image or a batch of images.
 
@@ -238,6 +287,8 @@ class StainNormalizer:
         for i, image in enumerate(images):
             try:
                 source = self._estimate(image, self.glass)
+                if self._implausible(source):  # a tile's failed estimate is not used either
+                    source = self.source
             except StainEstimationError:
                 source = self.source  # bound slide estimate, or None: leave the tile unchanged
             if source is None:

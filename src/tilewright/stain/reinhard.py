@@ -195,6 +195,9 @@ class ReinhardNormalizer(StainNormalizer):
         self.target_mean = np.asarray(stats.mean, np.float64)
         self.target_std = np.asarray(stats.std, np.float64)
 
+    def _target_stats(self) -> LabStats:
+        return LabStats(self.target_mean, self.target_std)
+
     def _apply(self, rgb, source: LabStats, out) -> None:
         import cv2
 

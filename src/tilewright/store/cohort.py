@@ -12,7 +12,7 @@ from tilewright.errors import StoreError
 __all__ = ["MANIFEST_COLUMNS", "write_manifest", "read_manifest", "stores_manifest", "Cohort", "open_cohort"]
 
 MANIFEST_COLUMNS = ["slide_id", "source", "status", "error", "n_tiles", "mpp_source", "objective",
-                    "source_level", "seconds", "colour_profile"]
+                    "source_level", "seconds", "colour_profile", "warnings"]
 
 
 def write_manifest(out_dir: str | os.PathLike, rows: list[dict]) -> "object":
@@ -27,6 +27,7 @@ def write_manifest(out_dir: str | os.PathLike, rows: list[dict]) -> "object":
     df = df[MANIFEST_COLUMNS].copy()
     df["error"] = df["error"].fillna("").astype(str)
     df["colour_profile"] = df["colour_profile"].fillna("").astype(str)
+    df["warnings"] = df["warnings"].fillna("").astype(str)  # "; "-joined "code: reason" messages
     df["n_tiles"] = df["n_tiles"].fillna(0).astype("int64")
     for col in ("mpp_source", "objective", "seconds"):
         df[col] = pd.to_numeric(df[col], errors="coerce").astype("float64")
@@ -86,7 +87,8 @@ def stores_manifest(out_dir: str | os.PathLike):
                      "source": str((a.get("source") or {}).get("path") or ""), "status": "ok" if n else "skipped",
                      "error": "" if n else skip_reason(a), "n_tiles": n, "mpp_source": a.get("mpp_source"),
                      "objective": a.get("objective"), "source_level": a.get("source_level"), "seconds": None,
-                     "colour_profile": colour_label(a.get("colour_profile"))})
+                     "colour_profile": colour_label(a.get("colour_profile")),
+                     "warnings": "; ".join(a.get("warnings") or ())})
     if not rows:
         raise StoreError("no manifest.csv, manifest.parquet or complete <slide_id>.zarr store here; give the "
                          "folder tile-out, tile_cohort or tile_slide wrote", out_dir)

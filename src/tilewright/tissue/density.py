@@ -13,9 +13,11 @@ References
 
 from __future__ import annotations
 
+from typing import NamedTuple
+
 import numpy as np
 
-__all__ = ["glass_colour", "optical_density", "od_lookup", "od_tables", "channel_mean", "channel_max", "channel_min"]
+__all__ = ["GlassSurvey", "find_glass", "glass_colour", "optical_density", "od_lookup", "od_tables", "channel_mean", "channel_max", "channel_min"]
 
 #: Glass colours darker than this (mean of RGB) are not trusted; the slide is probably all tissue.
 _MIN_GLASS_LEVEL = 180.0
@@ -149,3 +151,82 @@ def od_tables(glass) -> np.ndarray:
     levels = np.maximum(np.arange(256, dtype=np.float32), np.float32(1.0))
     tables = np.log10(glass / levels[None, :])
     return np.maximum(tables, np.float32(0.0), out=tables)
+
+
+#: Glass is bright and nearly grey: at most this saturation ((max - min) / max of R, G, B).
+GLASS_MAX_SATURATION = 0.08
+#: A slide shows glass when at least this fraction of its thumbnail (and 50 pixels) looks like it.
+GLASS_MIN_FRACTION = 0.005
+
+
+class GlassSurvey(NamedTuple):
+    """Where a thumbnail shows blank glass and what colour it is.
+
+    Attributes
+    ----------
+    colour : ndarray (3,) float64
+        Glass colour (0-255): measured when ``found``, else the fallback.
+    found : bool
+        Whether enough glass-like pixels were seen.
+    candidates : ndarray (H, W) bool
+        Bright, nearly grey pixels (the glass candidates).
+    n_pixels : int
+        How many candidates there are.
+    """
+
+    colour: np.ndarray
+    found: bool
+    candidates: np.ndarray
+    n_pixels: int
+
+
+def find_glass(rgb: np.ndarray, *, fallback=None, max_saturation: float = GLASS_MAX_SATURATION,
+               min_fraction: float = GLASS_MIN_FRACTION, top: float = 0.02) -> GlassSurvey:
+    """Find the blank glass of a thumbnail: bright, nearly grey pixels, and their colour.
+
+    Blank glass transmits nearly all the light and tints it little (a scanner's white balance
+    or the mounting medium give tints such as RGB (232, 234, 226), saturation 0.03); stained
+    tissue, even pale, is coloured. Candidates are pixels whose smallest channel is at least
+    160 and whose saturation ``(max - min) / max`` is at most ``max_saturation``. With at least
+    ``min_fraction`` of the pixels (and 50) as candidates, the glass colour is the per-channel
+    median of the brightest candidates (``top`` of the whole image, the rule of
+    :func:`glass_colour`). Otherwise the slide shows no glass (tissue from edge to edge) and the
+    colour is ``fallback`` (white when None): tissue is never taken for glass.
+
+    Parameters
+    ----------
+    rgb : ndarray (H, W, 3) uint8
+    fallback : array_like (3,), optional
+        Glass colour to use when none is found (for example the median glass of the cohort).
+    max_saturation, min_fraction, top : float
+        See above.
+
+    Returns
+    -------
+    GlassSurvey
+    """
+    arr = np.asarray(rgb)
+    h, w = arr.shape[:2]
+    candidates = np.empty((h, w), bool)
+    # the largest channel spread allowed at each brightness: uint8 work only, a table look-up
+    import cv2
+
+    allowed = np.floor(max_saturation * np.arange(256)).clip(0, 255).astype(np.uint8)
+    for r0 in range(0, h, 256):  # uint8 temporaries a band at a time
+        band = arr[r0:r0 + 256]
+        top_ = np.ascontiguousarray(channel_max(band))
+        low = channel_min(band)
+        out = candidates[r0:r0 + 256]
+        np.less_equal(top_ - low, cv2.LUT(top_, allowed), out=out)  # top_ >= low: no wrap-around
+        out &= low >= 160
+    n = int(candidates.sum())
+    white = np.full(3, 255.0) if fallback is None else np.asarray(fallback, dtype=np.float64)
+    if n < max(50, min_fraction * h * w):
+        return GlassSurvey(white, False, candidates, n)
+    pixels = arr[candidates]
+    if n > 1_000_000:  # an evenly strided subset is plenty for a median colour
+        pixels = pixels[:: n // 1_000_000 + 1]
+    colour = glass_colour(pixels[:, None, :], top=min(1.0, top * h * w / n))
+    if colour.mean() < _MIN_GLASS_LEVEL:
+        return GlassSurvey(white, False, candidates, n)
+    return GlassSurvey(colour, True, candidates, n)

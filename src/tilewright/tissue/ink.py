@@ -1,20 +1,28 @@
 """Marker ink and dark debris in optical density: what is on the slide but is not H&E tissue.
 
 Hematoxylin and eosin optical densities lie, by the Beer–Lambert law, in the plane spanned by the
-two stain vectors; ink drawn on the cover glass adds its own optical density on top. Blue and green
-markers have OD directions well out of that plane, so the signed distance of a pixel's OD from the
-plane (its *residual*) measures the ink, whatever tissue lies beneath. The plane starts at the
-Ruifrok & Johnston (2001) vectors and is refitted to the slide's own tissue (the two leading
-singular vectors of the OD of in-plane pixels, as in Macenko et al. 2009), so a slide stained a
-little differently is not mistaken for ink. Black marker is nearly grey and very dense; dark
-debris and folds are very dense in any hue.
+two stain vectors (:mod:`.plane`); marker ink drawn on the cover glass adds its own optical
+density on top, whatever lies beneath, so its distance from the plane (its *residual*) is the
+same over glass and over tissue. Each pixel of the smoothed thumbnail falls in one class:
+
+- grey: dense and nearly grey (black marker, dust, bubble rims): its smallest channel OD, the
+  part a flat absorber explains, is large and at least the spread between channels (H&E is
+  strongly coloured: hematoxylin's smallest OD is under half its spread);
+- coloured: below the plane (blue marker: more red absorbed than H&E could explain), in it but
+  with a negative amount of eosin (blue marker on a slide whose plane happens to contain it:
+  green passed better than by hematoxylin alone), or above it while hematoxylin-like (green
+  marker: red and blue absorbed, green passed);
+- reddish: above the plane and eosin-like. Red marker and red blood cells both fall here (red
+  cells carry haemoglobin, which absorbs blue and green), so colour alone cannot tell them
+  apart; the shape does. Marker leaves strokes and rings: long, at least ``min_stroke_um`` wide,
+  or lying on glass. Blood fills vessels and haemorrhages inside tissue: compact pieces
+  surrounded by tissue. Only stroke-shaped reddish pieces are ink; the rest is tissue.
 
 References
 ----------
 .. [1] A. C. Ruifrok and D. A. Johnston, "Quantification of histochemical staining by color
-       deconvolution", Analytical and Quantitative Cytology and Histology 23(4):291-299, 2001.
-.. [2] M. Macenko et al., "A method for normalizing histology slides for quantitative analysis",
-       IEEE International Symposium on Biomedical Imaging (ISBI), 1107-1110, 2009.
+       deconvolution", Analytical and Quantitative Cytology and Histology 23(4):291-299, 2001
+       (the stain vectors, hence the plane; :mod:`.plane` fits it to the slide).
 """
 
 from __future__ import annotations
@@ -22,86 +30,19 @@ from __future__ import annotations
 import numpy as np
 
 from .density import channel_max, channel_mean, channel_min
+from .plane import RUIFROK_PLANE_NORMAL, fit_hne_plane, plane_basis
 
-__all__ = ["RUIFROK_PLANE_NORMAL", "hne_plane_normal", "ink_residual", "black_ink", "dark_debris"]
+__all__ = ["RUIFROK_PLANE_NORMAL", "hne_plane_normal", "ink_residual", "ink_classes", "stroke_pieces",
+           "black_ink", "dark_debris", "GREY", "COLOURED", "REDDISH"]
 
-
-def _unit(v) -> np.ndarray:
-    v = np.asarray(v, dtype=np.float64)
-    return v / np.linalg.norm(v)
-
-
-#: Unit normal of the plane spanned by the Ruifrok & Johnston (2001) H and E OD vectors.
-RUIFROK_PLANE_NORMAL = _unit(np.cross(_unit((0.65, 0.70, 0.29)), _unit((0.07, 0.99, 0.11))))
+#: Pixel classes of :func:`ink_classes` (0 is none).
+GREY, COLOURED, REDDISH = 1, 2, 3
 
 
-def hne_plane_normal(od: np.ndarray, *, min_od: float = 0.15, keep: float = 0.8,
-                     iterations: int = 4, min_pixels: int = 200, max_tilt_deg: float = 60.0) -> np.ndarray:
-    """Unit normal of the H&E plane of a slide, fitted to its own stained pixels.
-
-    Only pixels that absorb green the most (true of hematoxylin, eosin and their mixtures, not
-    of blue or green marker on glass) and that are not black ink are used. Starting from the
-    Ruifrok & Johnston plane, the ``keep`` fraction of pixels closest to the current plane is
-    refitted with the two leading right singular vectors of their optical densities (as in
-    Macenko et al. 2009), a few times (trimmed least squares), so ink lying on tissue does not
-    pull the plane towards itself.
-
-    Parameters
-    ----------
-    od : ndarray (..., 3)
-        Optical density (see :func:`~tilewright.tissue.density.optical_density`).
-    min_od : float
-        Pixels with a smaller OD norm are not used (transparent pixels carry no direction;
-        Macenko et al. 2009 use 0.15).
-    keep : float
-        Fraction of pixels closest to the plane kept for each refit.
-    iterations : int
-        Number of refits.
-    min_pixels : int
-        With fewer usable pixels the Ruifrok & Johnston plane is returned.
-    max_tilt_deg : float
-        A fitted plane tilted more than this from the Ruifrok & Johnston plane is not H&E (for
-        example a slide that is mostly ink); the Ruifrok & Johnston plane is returned instead.
-
-    Returns
-    -------
-    ndarray (3,)
-        Unit normal, oriented like :data:`RUIFROK_PLANE_NORMAL`.
-
-    References
-    ----------
-    .. [1] A. C. Ruifrok and D. A. Johnston, Anal. Quant. Cytol. Histol. 23(4):291-299, 2001.
-    .. [2] M. Macenko et al., ISBI 2009, 1107-1110.
-    """
-    x = np.asarray(od).reshape(-1, 3)
-    if x.shape[0] > 1_000_000:  # bounded memory whatever the slide size: a strided subsample first
-        x = x[:: x.shape[0] // 1_000_000 + 1]
-    stained = np.empty(x.shape[0], bool)
-    for start in range(0, x.shape[0], 1 << 16):  # float64 only a chunk at a time
-        c = x[start:start + (1 << 16)].astype(np.float64)
-        norm2 = c[:, 0] * c[:, 0] + c[:, 1] * c[:, 1] + c[:, 2] * c[:, 2]
-        stained[start:start + len(c)] = ((norm2 > min_od * min_od) & (c[:, 1] >= c[:, 0])
-                                         & (c[:, 1] >= c[:, 2]) & ~black_ink(c))
-    idx = np.flatnonzero(stained)
-    if idx.size < min_pixels:
-        return RUIFROK_PLANE_NORMAL.copy()
-    if idx.size > 200_000:  # a deterministic subsample is plenty for a 3x3 fit
-        idx = idx[:: idx.size // 200_000 + 1]
-    x = x[idx].astype(np.float64)
-    normal = RUIFROK_PLANE_NORMAL.copy()
-    for _ in range(iterations):
-        res = np.abs(x @ normal)
-        sub = x[res <= np.quantile(res, keep)]
-        if sub.shape[0] < min_pixels:
-            break
-        # the right singular vector of the smallest singular value of ``sub``: the eigenvector of
-        # the smallest eigenvalue of its 3 x 3 scatter matrix (no tall SVD needed)
-        _, vecs = np.linalg.eigh(sub.T @ sub)
-        v = vecs[:, 0]
-        normal = v if v @ RUIFROK_PLANE_NORMAL >= 0 else -v
-    if np.degrees(np.arccos(min(1.0, abs(float(normal @ RUIFROK_PLANE_NORMAL))))) > max_tilt_deg:
-        return RUIFROK_PLANE_NORMAL.copy()
-    return normal
+def hne_plane_normal(od: np.ndarray, **kw) -> np.ndarray:
+    """Unit normal of the H&E plane fitted to ``od`` (the Ruifrok & Johnston plane when the fit is
+    not plausible); see :func:`tilewright.tissue.plane.fit_hne_plane` for the keywords."""
+    return fit_hne_plane(od, **kw).normal
 
 
 def ink_residual(od: np.ndarray, normal=None) -> np.ndarray:
@@ -124,29 +65,113 @@ def ink_residual(od: np.ndarray, normal=None) -> np.ndarray:
     return od @ np.asarray(normal, dtype=np.float32)
 
 
-def black_ink(od: np.ndarray, *, min_od: float = 0.6, max_spread: float = 0.3) -> np.ndarray:
-    """Pixels of black marker: dense and nearly grey.
+def black_ink(od: np.ndarray, *, min_od: float = 0.3, grey: float = 1.0) -> np.ndarray:
+    """Pixels of black marker (or grey debris): dense and nearly grey.
 
     Parameters
     ----------
     od : ndarray (..., 3)
         Optical density.
     min_od : float
-        Minimum mean OD (0.6 passes 25% of the light).
-    max_spread : float
-        Maximum (max - min) OD over the channels, relative to the mean OD. Dense H&E is strongly
-        coloured (spread near 1 or more); marker black is near 0.1.
+        Smallest channel OD must exceed this (0.3 passes half the light in every channel).
+    grey : float
+        The smallest channel OD must be at least ``grey`` times the spread (max - min) over the
+        channels. A flat absorber over tissue keeps a small spread and a large minimum; H&E alone
+        has a minimum under half its spread (Ruifrok & Johnston hematoxylin: 0.29 vs 0.41).
 
     Returns
     -------
     ndarray (...) bool
     """
     od = np.asarray(od, dtype=np.float32)
-    mean = channel_mean(od)
-    spread = channel_max(od) - channel_min(od)
-    return (mean > min_od) & (spread < max_spread * mean)
+    low = channel_min(od)
+    return (low > min_od) & (low >= grey * (channel_max(od) - low))
 
 
 def dark_debris(od: np.ndarray, *, min_od: float = 0.9) -> np.ndarray:
     """Very dense pixels of any colour (folds, debris, bubbles' edges), mean OD above ``min_od``."""
     return channel_mean(np.asarray(od, dtype=np.float32)) > min_od
+
+
+def ink_classes(od: np.ndarray, normal, *, residual: float = 0.04, relative: float = 0.03,
+                out=None) -> np.ndarray:
+    """Class of each pixel: 0 H&E or glass, :data:`GREY`, :data:`COLOURED` or :data:`REDDISH`.
+
+    Parameters
+    ----------
+    od : ndarray (..., 3) float32
+        Optical density relative to the glass (smoothed).
+    normal : array_like (3,)
+        H&E plane normal.
+    residual, relative : float
+        A pixel is off the plane when its residual exceeds ``residual + relative * |OD|`` (the
+        relative part absorbs a plane that fits dense tissue slightly less well).
+
+    Returns
+    -------
+    ndarray (...) uint8
+    """
+    od = np.asarray(od, dtype=np.float32)
+    unmix = np.linalg.inv(plane_basis(normal)).astype(np.float32)
+    coords = od @ unmix  # hematoxylin-like, eosin-like, off-plane
+    norm = np.sqrt(np.einsum("...c,...c->...", od, od))
+    limit = np.float32(residual) + np.float32(relative) * norm
+    res = coords[..., 2]
+    out = np.zeros(od.shape[:-1], np.uint8) if out is None else out
+    out[...] = 0
+    above = res > limit
+    out[above] = np.where(coords[..., 1][above] >= 0.5 * coords[..., 0][above], REDDISH, COLOURED)
+    out[(res < -limit) | (coords[..., 1] < -limit)] = COLOURED  # below the plane, or less eosin than none
+    out[black_ink(od)] = GREY
+    return out
+
+
+def stroke_pieces(reddish: np.ndarray, glassy: np.ndarray, mpp: float, *, min_stroke_um: float = 100.0,
+                  elongation: float = 3.0, on_glass: float = 0.5) -> np.ndarray:
+    """The reddish pieces that are marker strokes, rings or dots on glass (not blood).
+
+    A piece is ink when it is long (area over squared width at least ``elongation``) and at least
+    ``min_stroke_um`` wide (the width is twice its largest inscribed radius: a ring drawn with a
+    0.5 mm marker is 0.5 mm wide and tens of widths long; a haemorrhage or a cut vessel is about
+    as long as it is wide), or when at least ``on_glass`` of the pixels around it are glass or
+    other ink (a stroke cut into pieces where other strokes cross it).
+
+    Parameters
+    ----------
+    reddish : ndarray (H, W) bool
+        Reddish pixels (see :func:`ink_classes`).
+    glassy : ndarray (H, W) bool
+        Pixels that are not tissue: blank glass, and ink of other classes.
+    mpp : float
+        µm per pixel.
+
+    Returns
+    -------
+    ndarray (H, W) bool
+        The reddish pixels that belong to ink pieces.
+    """
+    import cv2
+
+    if not reddish.any():
+        return np.zeros_like(reddish)
+    n, labels, stats, _ = cv2.connectedComponentsWithStats(reddish.view(np.uint8), connectivity=8,
+                                                           ltype=cv2.CV_32S)
+    area = stats[:, cv2.CC_STAT_AREA].astype(np.float64)
+    ink = np.zeros(n, bool)
+    min_px = min_stroke_um / mpp
+    # only pieces large enough to be a stroke by shape are measured, each in its own box (the
+    # distance map is never slide-sized): the width is twice the largest inscribed radius
+    for k in np.flatnonzero(area[1:] >= elongation * max(min_px, 1.0) ** 2) + 1:
+        x, y, w, h = stats[k, :4]
+        piece = np.pad(labels[y:y + h, x:x + w] == k, 1)  # a background rim: distances to the edge
+        width = 2.0 * float(cv2.distanceTransform(piece.view(np.uint8), cv2.DIST_L2, 5).max())
+        ink[k] = width >= min_px and area[k] / max(width, 1.0) ** 2 >= elongation
+    kernel = cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (7, 7))
+    for k in np.flatnonzero(~ink[1:] & (area[1:] >= 3)) + 1:  # pieces lying on glass
+        x, y, w, h = stats[k, :4]
+        y0, x0 = max(0, y - 4), max(0, x - 4)
+        piece = labels[y0:y + h + 4, x0:x + w + 4] == k
+        ring = cv2.dilate(piece.view(np.uint8), kernel).view(bool) & ~piece
+        if ring.any() and glassy[y0:y + h + 4, x0:x + w + 4][ring].mean() >= on_glass:
+            ink[k] = True
+    return ink[labels]

@@ -16,16 +16,17 @@ import os
 
 import numpy as np
 
-from . import ink as _ink
-from .density import channel_max, channel_min, glass_colour, od_lookup, od_tables
-from .otsu import otsu_threshold
+from .density import find_glass
+from .exclusions import find_exclusions
+from .threshold import _LOG_FLOOR, METHODS, density_threshold, tissue_feature  # noqa: F401 (_LOG_FLOOR re-exported)
 from .raster import box_fractions, summed_area_table
 
 __all__ = ["TissueMask", "tissue_mask", "tissue_feature", "METHODS"]
 
-METHODS = ("od-otsu", "saturation-otsu")
-_LOG_FLOOR = 1e-3  # OD below this is glass noise; keeps log10 finite
-_BAND_ROWS = 256  # whole-slide work runs in bands of rows: float temporaries stay a few MB
+
+#: Warnings: ink over this fraction of (tissue + ink); less tissue than this area (mm²).
+HIGH_INK_FRACTION = 0.25
+LITTLE_TISSUE_MM2 = 1.0
 
 
 class TissueMask:
@@ -44,6 +45,8 @@ class TissueMask:
         The threshold that was applied (units of the method's feature).
     params : dict, optional
         Parameters that made the mask, for provenance.
+    warnings : sequence of str, optional
+        What the user should know about this mask (``code: reason``).
 
     Raises
     ------
@@ -52,7 +55,7 @@ class TissueMask:
     """
 
     def __init__(self, array, mpp: float, *, ink=None, dark=None, threshold: float = math.nan,
-                 params: dict | None = None):
+                 params: dict | None = None, warnings=()):
         array = np.asarray(array, dtype=bool)
         if array.ndim != 2 or array.size == 0:
             raise ValueError(f"a tissue mask must be a non-empty 2-D array, got shape {array.shape}")
@@ -67,6 +70,8 @@ class TissueMask:
                 raise ValueError(f"{name} has shape {extra.shape}, the mask {array.shape}")
         self.threshold = float(threshold)
         self.params = dict(params or {})
+        #: Short messages, each starting with a code (``no-glass: ...``), for the user.
+        self.warnings = list(warnings)
         self._sat = None
 
     @property
@@ -116,6 +121,7 @@ class TissueMask:
                "tissue_fraction": self.tissue_fraction, "ink_fraction": float(self.ink.mean()),
                "dark_fraction": float(self.dark.mean())}
         out.update(self.params)
+        out["warnings"] = list(self.warnings)
         return out
 
     @property
@@ -148,14 +154,6 @@ def _thumbnail(slide, mpp):
 
 def _px(um: float, mpp: float) -> int:
     return int(round(um / mpp)) if um and um > 0 else 0
-
-
-def _smooth(a: np.ndarray, sigma_px: float) -> np.ndarray:
-    if sigma_px <= 0:
-        return a
-    import cv2
-
-    return cv2.GaussianBlur(a, (0, 0), sigma_px, borderType=cv2.BORDER_REPLICATE)
 
 
 def _morph(mask: np.ndarray, op: str, radius: int) -> np.ndarray:
@@ -203,105 +201,28 @@ def _fill_holes(mask: np.ndarray, max_px: float) -> np.ndarray:
     return mask | fill[labels]
 
 
-def tissue_feature(rgb: np.ndarray, mpp: float, *, method: str = "od-otsu", smooth_um: float = 8.0,
-                   glass=None) -> np.ndarray:
-    """The per-pixel quantity a method thresholds (smoothed by a Gaussian of ``smooth_um`` µm).
-
-    ``"od-otsu"``: mean optical density over R, G, B relative to the glass colour.
-    ``"saturation-otsu"``: HSV saturation ``(max - min) / max`` in [0, 1].
-
-    Returns
-    -------
-    ndarray (H, W) float32
-    """
-    if method not in METHODS:
-        raise ValueError(f"unknown tissue method {method!r}; choose one of {METHODS}")
-    sigma = smooth_um / mpp
-    h, w = rgb.shape[:2]
-    feature = np.empty((h, w), np.float32)
-    if method == "od-otsu":
-        tables = od_tables(glass_colour(rgb) if glass is None else glass)
-    for r0, r1, a0, a1 in _bands(h, sigma):
-        band = rgb[a0:a1]
-        if method == "od-otsu":  # mean optical density over R, G, B, from 256-entry tables
-            od = od_lookup(np.ascontiguousarray(band), tables)
-            f = od[..., 0] + od[..., 1]
-            f += od[..., 2]
-            f /= np.float32(3)
-            del od
-        else:
-            top = channel_max(band).astype(np.float32)
-            f = top - channel_min(band)
-            f /= np.maximum(top, np.float32(1.0))
-        feature[r0:r1] = _smooth(f, sigma)[r0 - a0:r1 - a0]
-    return feature
-
-
-def _bands(h: int, sigma_px: float):
-    """Row bands ``(r0, r1, a0, a1)``: rows ``[r0, r1)`` are produced from rows ``[a0, a1)``,
-    which add a halo wide enough for a Gaussian of ``sigma_px`` (OpenCV's kernel reaches about
-    4 sigma), so a band's result equals the whole image's in its own rows."""
-    halo = int(math.ceil(4.0 * sigma_px)) + 2 if sigma_px > 0 else 0
-    for r0 in range(0, h, _BAND_ROWS):
-        r1 = min(h, r0 + _BAND_ROWS)
-        yield r0, r1, max(0, r0 - halo), min(h, r1 + halo)
-
-
-def _smoothed_od(band: np.ndarray, tables: np.ndarray, sigma_px: float) -> np.ndarray:
-    """Per-channel optical density of an RGB band (table look-ups), Gaussian-smoothed."""
-    return _smooth(od_lookup(np.ascontiguousarray(band), tables), sigma_px)
-
-
-def _ink_and_dark(rgb, glass, sigma_px, *, exclude_ink, ink_residual, exclude_dark, dark_od):
-    """Marker ink and dark debris masks from the smoothed OD, band by band (two passes: the
-    H&E plane is fitted to a strided sample of the whole slide first). Returns (ink, dark, normal)."""
-    h, w = rgb.shape[:2]
-    tables = od_tables(glass)
-    ink = np.zeros((h, w), bool)
-    dark = np.zeros((h, w), bool)
-    normal = None
-    if exclude_ink:
-        # the same strided sample of the flattened OD that hne_plane_normal takes of a whole image
-        step = (h * w) // 1_000_000 + 1 if h * w > 1_000_000 else 1
-        sample = np.empty(((h * w + step - 1) // step, 3), np.float32)
-        at = 0
-        for r0, r1, a0, a1 in _bands(h, sigma_px):
-            od = _smoothed_od(rgb[a0:a1], tables, sigma_px)[r0 - a0:r1 - a0].reshape(-1, 3)
-            part = od[(-r0 * w) % step::step]
-            sample[at:at + len(part)] = part
-            at += len(part)
-            del od, part
-        normal = _ink.hne_plane_normal(sample)
-        del sample
-        n32 = np.asarray(normal, dtype=np.float32)
-    for r0, r1, a0, a1 in _bands(h, sigma_px):
-        od = _smoothed_od(rgb[a0:a1], tables, sigma_px)[r0 - a0:r1 - a0]
-        if exclude_ink:
-            ink[r0:r1] = (np.abs(od @ n32) > ink_residual) | _ink.black_ink(od)
-        if exclude_dark:
-            dark[r0:r1] = _ink.dark_debris(od, min_od=dark_od)
-    return ink, dark, normal
-
-
-def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-otsu", min_od_floor: float = 0.04,
-                max_od_ceiling: float = 0.15,
+def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-otsu", sensitivity: float = 1.0,
+                min_od_floor: float | None = None, max_od_ceiling: float = 0.15,
                 min_saturation: float = 0.08, smooth_um: float = 8.0, close_um: float = 24.0,
                 open_um: float = 16.0, fill_holes_um2: float = 20_000.0,
                 min_component_um2: float = 25_000.0, exclude_ink: bool = True,
-                ink_residual: float = 0.04, ink_margin_um: float = 16.0, exclude_dark: bool = False,
-                dark_od: float = 0.9, glass=None) -> TissueMask:
+                ink_residual: float = 0.04, ink_margin_um: float = 16.0, min_stroke_um: float = 100.0,
+                exclude_dark: bool = False, dark_od: float = 0.9, glass=None,
+                glass_fallback=None) -> TissueMask:
     """Find usable H&E tissue on a slide thumbnail.
 
-    Steps: (1) a thumbnail at ``mpp`` µm/px; (2) the feature of ``method`` (default: mean optical
-    density relative to the glass colour, Gaussian-smoothed); (3) Otsu's threshold on the
-    log10 of that density (glass is a narrow peak near zero OD while pale and dense tissue
-    span a decade, so the log scale keeps pale tissue with the tissue class), never below
-    ``min_od_floor`` so blank glass is not split into noise and never above ``max_od_ceiling``
-    so a view covered by tissue edge to edge is not split in two; (4) closing then opening with
-    discs of ``close_um`` and ``open_um``; (5) holes smaller than ``fill_holes_um2`` filled;
-    (6) marker ink (blue and green by their OD residual from the H&E plane, black by being dense
-    and grey), grown by ``ink_margin_um``, and optionally very dense debris removed; (7)
-    components smaller than ``min_component_um2`` dropped.
+    Steps: (1) a thumbnail at ``mpp`` µm/px; (2) the glass: bright, nearly grey pixels
+    (:func:`~tilewright.tissue.density.find_glass`); a slide without any is covered by tissue
+    edge to edge, and its glass colour is ``glass_fallback`` (white when None), never a tissue
+    colour; (3) the feature of ``method`` (default: mean optical density relative to the glass
+    colour, Gaussian-smoothed); (4) Otsu's threshold on the log10 of that density (glass is a
+    narrow peak near zero OD while pale and dense tissue span a decade, so the log scale keeps
+    pale tissue with the tissue class), kept between a floor measured from the glass's own density
+    and noise and ``max_od_ceiling`` (:func:`~tilewright.tissue.threshold.density_threshold`); (5) closing then opening with discs of ``close_um`` and ``open_um``; (6) holes
+    smaller than ``fill_holes_um2`` filled; (7) marker ink, over glass and over tissue, grown by
+    ``ink_margin_um`` (:mod:`~tilewright.tissue.exclusions`: black and grey, blue and green by
+    colour, red by colour and stroke shape so blood stays tissue), and optionally dense debris,
+    removed; (8) pieces smaller than ``min_component_um2`` dropped.
 
     Parameters
     ----------
@@ -313,11 +234,14 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-otsu", min_od_floo
     method : {"od-otsu", "saturation-otsu"}
         Feature to threshold. The saturation method thresholds HSV saturation (floor
         ``min_saturation``) without the log scale.
-    min_od_floor : float
-        Smallest mean optical density (above glass) counted as tissue.
+    sensitivity : float
+        Unitless factor dividing the density threshold's floor and ceiling: 2 keeps tissue half
+        as dense, 0.5 only tissue twice as dense. Default 1.
+    min_od_floor : float, optional
+        A fixed floor (mean OD above glass) instead of the one measured from the glass noise.
     max_od_ceiling : float
-        Largest threshold Otsu may choose: anything denser than this over glass is tissue (blank
-        glass stays below an OD of about 0.15, common practice).
+        Largest threshold Otsu may choose (mean OD): anything denser than this over glass is
+        tissue (blank glass stays below an OD of about 0.15, common practice).
     min_saturation : float
         Floor of the saturation method.
     smooth_um : float
@@ -329,28 +253,37 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-otsu", min_od_floo
     min_component_um2 : float
         Tissue pieces smaller than this area (µm²) are dropped.
     exclude_ink : bool
-        Remove blue, green and black marker ink (default True).
+        Remove marker ink (default True).
     ink_residual : float
-        OD distance from the H&E plane above which a pixel is coloured ink.
+        OD distance from the H&E plane above which a pixel is coloured (plus 3 % of its OD).
     ink_margin_um : float
-        Ink regions are grown by this many µm (their blurred rims are ink too).
+        Ink is grown by this many µm (the blurred rims of strokes and rings are ink too).
+    min_stroke_um : float
+        Narrowest red marker stroke, µm; narrower long red pieces (small vessels) stay tissue.
     exclude_dark : bool
         Also remove very dense pixels of any colour (folds, debris).
     dark_od : float
-        Mean OD above which a pixel is dark debris when ``exclude_dark``.
+        Mean OD above which a pixel is dark debris when ``exclude_dark`` (a fold of two layers of
+        ordinary tissue is about 0.3-0.6).
     glass : array_like (3,), optional
-        RGB of blank glass; estimated from the brightest 2 % of the thumbnail when omitted.
+        RGB of blank glass; found on the thumbnail when omitted.
+    glass_fallback : array_like (3,), optional
+        Glass colour of a slide without visible glass (for example the cohort's median glass);
+        white when None.
 
     Returns
     -------
     TissueMask
+        With ``warnings`` (short codes with a reason): ``no-glass``, ``high-ink``,
+        ``little-tissue``, ``plane-fallback``.
 
     Raises
     ------
     TypeError
         If ``slide`` is neither a slide object nor an ndarray.
     ValueError
-        If the thumbnail is not RGB uint8, ``mpp`` is not positive or ``method`` is unknown.
+        If the thumbnail is not RGB uint8, ``mpp`` or ``sensitivity`` is not positive or
+        ``method`` is unknown.
 
     References
     ----------
@@ -369,44 +302,68 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-otsu", min_od_floo
     >>> 0.05 < mask.tissue_fraction < 0.6
     True
     """
-    if not (isinstance(mpp, (int, float)) and mpp > 0 and math.isfinite(mpp)):
-        raise ValueError(f"mpp must be a positive number of µm/px, got {mpp!r}")
+    for name, value in (("mpp", mpp), ("sensitivity", sensitivity)):
+        if not (isinstance(value, (int, float)) and value > 0 and math.isfinite(value)):
+            raise ValueError(f"{name} must be a positive number, got {value!r}")
     if method not in METHODS:
         raise ValueError(f"unknown tissue method {method!r}; choose one of {METHODS}")
     rgb, path = _thumbnail(slide, mpp)
-    glass = glass_colour(rgb) if glass is None else np.asarray(glass, dtype=np.float64)
-    feature = tissue_feature(rgb, mpp, method=method, smooth_um=smooth_um, glass=glass)
-    if method == "od-otsu":
-        logs = np.maximum(feature, _LOG_FLOOR)
-        otsu = 10.0 ** otsu_threshold(np.log10(logs, out=logs))
-        del logs
-        threshold = min(max(otsu, min_od_floor), max(max_od_ceiling, min_od_floor))
+    survey = find_glass(rgb, fallback=glass_fallback)
+    warnings = []
+    glass_given = glass
+    if glass is not None:
+        glass = np.asarray(glass, dtype=np.float64)
     else:
-        otsu = otsu_threshold(feature)
-        threshold = max(otsu, min_saturation)
+        glass = survey.colour
+        if not survey.found:
+            warnings.append(f"no-glass: no blank glass seen on the slide; glass colour taken as "
+                            f"{tuple(int(round(v)) for v in glass)} ({'given fallback' if glass_fallback is not None else 'white'})")
+    feature = tissue_feature(rgb, mpp, method=method, smooth_um=smooth_um, glass=glass)
+    threshold, otsu, floor, noise = density_threshold(
+        feature, survey if glass_given is None else survey._replace(found=True), method=method,
+        sensitivity=sensitivity, min_od_floor=min_od_floor, max_od_ceiling=max_od_ceiling,
+        min_saturation=min_saturation)
     raw = feature > threshold
     del feature
+    survey = survey._replace(candidates=None)  # not needed past the threshold
+    glassy = ~raw
     raw = _morph(raw, "close", _px(close_um, mpp))
     raw = _morph(raw, "open", _px(open_um, mpp))
     area = mpp * mpp
     tissue = _fill_holes(raw, fill_holes_um2 / area)
     del raw
 
-    ink, dark, normal = _ink_and_dark(rgb, glass, smooth_um / mpp, exclude_ink=exclude_ink,
-                                      ink_residual=ink_residual, exclude_dark=exclude_dark,
-                                      dark_od=dark_od)
+    found = find_exclusions(rgb, glass, smooth_um / mpp, mpp, glassy, exclude_ink=exclude_ink,
+                            ink_residual=ink_residual, exclude_dark=exclude_dark, dark_od=dark_od,
+                            stroke_kw={"min_stroke_um": min_stroke_um})
+    del glassy
+    ink, dark = found.ink, found.dark
     if exclude_ink:
-        ink = _morph(_morph(ink, "open", 1), "dilate", _px(ink_margin_um, mpp))
+        ink = _morph(ink, "dilate", _px(ink_margin_um, mpp))
+    covered = tissue | ink
     tissue = _drop_small(tissue & ~ink & ~dark, min_component_um2 / area)
+    plane = found.plane
+    if plane is not None and not plane.fitted and plane.n_pixels >= 200:
+        warnings.append(f"plane-fallback: implausible H&E plane fit ({plane.reason}); the Ruifrok & "
+                        "Johnston plane was used for ink")
+    ink_share = float((ink & covered).sum()) / max(1, int(covered.sum()))
+    if ink_share > HIGH_INK_FRACTION:
+        warnings.append(f"high-ink: marker ink covers {ink_share:.0%} of the tissue and ink")
+    tissue_mm2 = float(tissue.sum()) * area / 1e6
+    if tissue_mm2 < LITTLE_TISSUE_MM2:
+        warnings.append(f"little-tissue: only {tissue_mm2:.2f} mm² of tissue found")
 
-    params = {"method": method, "source": path, "otsu": float(otsu), "min_od_floor": min_od_floor,
-              "max_od_ceiling": max_od_ceiling,
+    params = {"method": method, "source": path, "otsu": None if math.isnan(otsu) else float(otsu),
+              "sensitivity": sensitivity, "floor": float(floor), "glass_noise_od": None if math.isnan(noise) else noise,
+              "min_od_floor": min_od_floor, "max_od_ceiling": max_od_ceiling,
               "min_saturation": min_saturation, "smooth_um": smooth_um, "close_um": close_um,
               "open_um": open_um, "fill_holes_um2": fill_holes_um2,
               "min_component_um2": min_component_um2, "exclude_ink": exclude_ink,
-              "ink_residual": ink_residual, "ink_margin_um": ink_margin_um,
+              "ink_residual": ink_residual, "ink_margin_um": ink_margin_um, "min_stroke_um": min_stroke_um,
               "exclude_dark": exclude_dark, "dark_od": dark_od,
-              "glass": [float(v) for v in glass],
-              "hne_plane_normal": None if normal is None else [float(v) for v in normal]}
-    return TissueMask(tissue, mpp, ink=ink, dark=dark, threshold=threshold, params=params)
-
+              "glass": [float(v) for v in glass], "glass_found": bool(survey.found or glass is not survey.colour),
+              "blood_fraction": float((found.blood & tissue).sum()) / max(1, int(tissue.sum())),
+              "hne_plane_normal": None if plane is None else [float(v) for v in plane.normal],
+              "hne_plane_fitted": None if plane is None else bool(plane.fitted),
+              "ink_share": ink_share, "tissue_mm2": tissue_mm2}
+    return TissueMask(tissue, mpp, ink=ink, dark=dark, threshold=threshold, params=params, warnings=warnings)
