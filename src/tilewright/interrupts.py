@@ -5,6 +5,9 @@ Two tools, used by the store writer and the command line:
 - :func:`signals_deferred`: a block (cleanup: waiting for in-flight writes, removing a temporary
   store) that a Ctrl-C or a ``kill`` cannot cut in half. A SIGINT or SIGTERM arriving inside it
   is held and delivered, to whatever handler was in place, when the block ends.
+- :func:`ctrl_c_for_this_process_only`: worker processes started inside the block never see
+  SIGINT, so a Ctrl-C (which a terminal sends to every process of the foreground job) reaches
+  only the run, which stops its workers in order: one line, no worker tracebacks.
 - :func:`stop_on_signals`: SIGTERM (what batch schedulers send at a time limit) stops a run the
   way Ctrl-C does, by raising :class:`Stopped` (a ``KeyboardInterrupt``) in the main thread, so
   every ``except BaseException`` cleanup runs alike for both.
@@ -19,7 +22,7 @@ import contextlib
 import signal
 import threading
 
-__all__ = ["Stopped", "signals_deferred", "stop_on_signals", "EXIT_CODES"]
+__all__ = ["Stopped", "signals_deferred", "stop_on_signals", "ctrl_c_for_this_process_only", "EXIT_CODES"]
 
 _SIGNALS = (signal.SIGINT, signal.SIGTERM)
 
@@ -91,3 +94,31 @@ def stop_on_signals():
     finally:
         for sig, handler in previous.items():
             signal.signal(sig, handler if handler is not None else signal.SIG_DFL)
+
+
+@contextlib.contextmanager
+def ctrl_c_for_this_process_only():
+    """Block SIGINT in this thread for the duration of the block; processes and threads started
+    inside it keep SIGINT blocked for good, this thread gets it back (and a Ctrl-C pressed
+    meanwhile is delivered, not lost) when the block ends.
+
+    A terminal sends Ctrl-C to every process of the foreground job, worker processes included;
+    a worker that takes it dies mid-task with a traceback of its own (and leaves semaphores to
+    the resource tracker). A blocked signal stays blocked across ``fork`` and ``exec`` and in
+    threads started by a thread that blocks it, so workers spawned here (by the cluster's own
+    threads, which are started here too) never take it: the run stops them in order instead.
+    A no-op where signal masks do not exist.
+    """
+    if not hasattr(signal, "pthread_sigmask"):
+        yield
+        return
+    from multiprocessing import resource_tracker
+
+    # started here first: starting it unblocks SIGINT in the thread that starts it (bpo-33613's
+    # guard), which inside the block would be the thread that spawns the workers
+    resource_tracker.ensure_running()
+    signal.pthread_sigmask(signal.SIG_BLOCK, {signal.SIGINT})
+    try:
+        yield
+    finally:
+        signal.pthread_sigmask(signal.SIG_UNBLOCK, {signal.SIGINT})

@@ -304,11 +304,10 @@ def build_audit(folder, ok, rows: dict, previews: dict, attrs: dict, skipped: li
             "Only the manifest's source µm/px was tested: give metadata with site, scanner and label "
             "columns (--metadata meta.csv) to see whether colour follows them."
         )
-    if notes.get("_unmatched"):
-        audit.findings.append(
-            f"{len(notes['_unmatched'])} metadata rows match no audited slide "
-            f"(for example {notes['_unmatched'][0]!r}); check the slide_id column."
-        )
+    if metadata is not None:  # ids written as file names, rows of skipped slides, ids matching nothing
+        from tilewright.audit.metadata_match import metadata_findings
+
+        audit.findings.extend(metadata_findings(folder, notes))
     if notes.get("_missing"):
         audit.findings.append(f"{len(notes['_missing'])} audited slides have no metadata row.")
     return audit

@@ -28,6 +28,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from tilewright.audit.metadata_match import match_suffixed_ids
 from tilewright.errors import ConfigError
 
 __all__ = ["read_metadata", "read_table_file", "as_factors", "cohort_factors", "identifier_columns", "alias_groups",
@@ -257,8 +258,9 @@ def cohort_factors(manifest: pd.DataFrame, metadata=None) -> tuple[pd.DataFrame,
     notes : dict
         Column -> how it was treated, plus ``"_unmatched"``: metadata slide ids not in the cohort,
         ``"_missing"``: cohort slides without a metadata row, ``"_dropped"``: factor names
-        left out because they have one level, and ``"_identifiers"``: columns left out because
-        they hold one value a slide.
+        left out because they have one level, ``"_identifiers"``: columns left out because
+        they hold one value a slide, and ``"_renamed"``: metadata ids written as slide file
+        names (``N01.svs``) -> the slide ids they were matched to (``N01``).
     """
     parts = []
     for name, kind in MANIFEST_FACTORS.items():
@@ -269,8 +271,9 @@ def cohort_factors(manifest: pd.DataFrame, metadata=None) -> tuple[pd.DataFrame,
             parts.append(column.rename(name).to_frame())
     unmatched: list[str] = []
     missing: list[str] = []
+    renamed: dict = {}
     if metadata is not None:
-        meta = read_metadata(metadata)
+        meta, renamed = match_suffixed_ids(read_metadata(metadata), manifest.index)  # "N01.svs" is N01
         unmatched = sorted(set(meta.index) - set(manifest.index))
         missing = sorted(set(manifest.index) - set(meta.index))
         meta = meta.reindex(manifest.index)
@@ -286,4 +289,5 @@ def cohort_factors(manifest: pd.DataFrame, metadata=None) -> tuple[pd.DataFrame,
     notes["_dropped"] = dropped
     notes["_identifiers"] = identifiers
     notes["_missing"] = missing
+    notes["_renamed"] = renamed
     return factors, notes

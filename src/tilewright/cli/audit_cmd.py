@@ -95,6 +95,10 @@ def run(args: argparse.Namespace) -> int:
     if args.max_tiles < 1:
         return _fail(f"--max-tiles must be at least 1, got {args.max_tiles}", 2)
     report = Path(args.report) if args.report else out / "audit"
+    if args.metadata is not None:  # checked against the manifest before any metric is computed
+        code = _check_metadata(out, args.metadata, args.label)
+        if code:
+            return code
     options = {"metadata": args.metadata, "label": args.label, "max_tiles": args.max_tiles, "seed": args.seed}
     try:
         audit = audit_cohort(out, source=args.source, **options)
@@ -123,6 +127,29 @@ def run(args: argparse.Namespace) -> int:
         for line in before.comparison_findings(audit):
             print(f"  - {line}")
     print(f"report: {path}")
+    return 0
+
+
+def _check_metadata(out: Path, metadata: str, label: str | None) -> int:
+    """0 when the metadata table can be joined to the cohort, else exit code 2 (the reason printed).
+
+    Refused: no ``slide_id`` column, repeated ids, ids none of which names a slide of the cohort,
+    a ``--label`` that is not a column. How the ids joined (ids written as file names, rows of
+    skipped slides, ids matching nothing) is said in the audit's findings
+    (:func:`tilewright.audit.metadata_match.metadata_findings`).
+    """
+    from tilewright.audit.factors import MANIFEST_FACTORS
+    from tilewright.audit.metadata_match import match_metadata
+    from tilewright.audit.source import read_manifest, resolve_folder
+    from tilewright.errors import ConfigError, StoreError
+
+    try:
+        match = match_metadata(metadata, read_manifest(resolve_folder(out)))
+    except (ConfigError, StoreError) as exc:
+        return _fail(exc.one_line(), 2)
+    columns = list(match.table.columns) + [c for c in MANIFEST_FACTORS if c not in match.table.columns]
+    if label is not None and label not in columns:
+        return _fail(f"--label {label!r} is not a column of {metadata} (columns: {', '.join(columns)})", 2)
     return 0
 
 

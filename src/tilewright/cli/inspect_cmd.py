@@ -1,7 +1,12 @@
-"""``tilewright inspect SLIDE``: what a slide is and what would be cut from it."""
+"""``tilewright inspect SLIDE``: what a slide is and what would be cut from it.
+
+Exit codes (as tile-out's): 0 done; 2 bad arguments (no such slide path, invalid option values, an
+overlay path that cannot be written); 1 the slide cannot be read (the reason is printed).
+"""
 
 from __future__ import annotations
 
+import math
 import sys
 from pathlib import Path
 
@@ -23,11 +28,13 @@ def register(sub) -> None:
 
 def run(args) -> int:
     from tilewright.slide.open import open as open_slide
-    from tilewright.store.layout import slide_stem
     from tilewright.tissue.mask import tissue_mask
     from tilewright.tissue.overlay import render_overlay
     from tilewright.tissue.plan import plan_tiles
 
+    overlay = _overlay_path(args)
+    if isinstance(overlay, int):
+        return overlay
     try:
         with open_slide(args.slide, mpp=args.source_mpp) as slide:
             out = sys.stdout
@@ -50,10 +57,40 @@ def run(args) -> int:
             out.write(f"tiles       {len(plan)} of {args.tile} px with >= {args.min_tissue:.0%} tissue\n")
             for note in mask.warnings:  # no glass, much ink, little tissue, implausible plane
                 out.write(f"warning     {note}\n")
-            overlay = Path(args.overlay or f"{slide_stem(args.slide)}.overlay.png")
             render_overlay(slide, mask, plan, overlay)
             out.write(f"overlay     {overlay}\n")
     except TilewrightError as exc:
-        print(f"tilewright inspect: {exc}", file=sys.stderr)
+        print(f"tilewright inspect: {exc.one_line()}", file=sys.stderr)
+        return 1
+    except OSError as exc:  # the overlay could not be written after all (disk full, permissions)
+        print(f"tilewright inspect: {overlay}: cannot write the overlay ({exc.strerror or exc}); "
+              "choose another --overlay path", file=sys.stderr)
         return 1
     return 0
+
+
+def _overlay_path(args) -> Path | int:
+    """Check the arguments before any work: the overlay path (its folder is created), or exit code 2."""
+    from tilewright.store.layout import slide_stem
+
+    def bad(message):
+        print(f"tilewright inspect: error: {message}", file=sys.stderr)
+        return 2
+
+    if not Path(args.slide).exists():
+        return bad(f"{args.slide}: no such slide file; check the path (and the folder you run in)")
+    for option, value, ok in (("--mpp", args.mpp, args.mpp > 0), ("--tile", args.tile, args.tile >= 1),
+                              ("--min-tissue", args.min_tissue, 0 <= args.min_tissue <= 1)):
+        if not (ok and math.isfinite(value)):
+            return bad(f"{option} {value} is out of range ({'between 0 and 1' if option == '--min-tissue' else 'positive'})")
+    overlay = Path(args.overlay or f"{slide_stem(args.slide)}.overlay.png")
+    if overlay.is_dir():
+        return bad(f"{overlay}: --overlay is a folder; give a file name such as {overlay / 'slide.png'}")
+    try:
+        overlay.parent.mkdir(parents=True, exist_ok=True)
+    except (FileExistsError, NotADirectoryError):
+        return bad(f"{overlay.parent}: a file is in the way of the overlay's folder; choose another --overlay path")
+    except OSError as exc:
+        return bad(f"{overlay.parent}: cannot create the overlay's folder ({exc.strerror or exc}); "
+                   "choose another --overlay path")
+    return overlay

@@ -20,7 +20,9 @@ def main(argv=None) -> int:
         from tilewright.cli.tile_out import main as tile_out
 
         return tile_out(argv[1:])
-    parser = argparse.ArgumentParser(
+    from tilewright.cli.parser import CommandParser
+
+    parser = CommandParser(
         prog="tilewright",
         description="H&E whole-slide cohorts to harmonized, stain-normalized tile stores. "
                     "Research use only; not for diagnosis.")
@@ -31,7 +33,9 @@ def main(argv=None) -> int:
     sub.add_parser("tile", help="tile slides into stores (same as the tile-out command)", add_help=False)
     for name in SUBCOMMANDS:
         importlib.import_module(name).register(sub)
-    args = parser.parse_args(argv)
+    args, extra = parser.parse_known_args(argv)
+    if extra:  # named by the sub-command's own parser: its options are suggested, its usage shown
+        sub.choices.get(getattr(args, "command", None), parser).error("unrecognized arguments: " + " ".join(extra))
     if not getattr(args, "func", None):
         parser.print_help()
         return 2

@@ -6,6 +6,8 @@ import os
 import sys
 from pathlib import Path
 
+from tilewright.run.row_text import row_note, row_seconds, wrapped
+
 __all__ = ["print_summary", "FULL_TABLE_UP_TO"]
 
 #: Runs of at most this many slides list every slide; larger ones list only the failures.
@@ -15,8 +17,8 @@ FULL_TABLE_UP_TO = 20
 def _bytes(rows, out) -> int:
     total = 0
     for r in rows:
-        if r.get("status") != "ok" or float(r.get("seconds") or 0) == 0:
-            continue  # written by this run only (kept stores took no time)
+        if r.get("status") != "ok" or r.get("kept"):
+            continue  # written by this run only (a kept store was written by an earlier one)
         for root, _, files in os.walk(Path(out) / f"{r['slide_id']}.zarr"):
             total += sum(os.path.getsize(os.path.join(root, f)) for f in files)
     return total
@@ -49,12 +51,9 @@ def print_summary(rows, out, *, seconds: float = 0.0, megapixels: float = 0.0, v
     if listed:
         w = max([len("slide")] + [len(str(r["slide_id"])) for r in listed])
         stream.write(f"\n{'slide':<{w}}  {'status':<7}  {'tiles':>7}  {'seconds':>7}  note\n")
-        for r in listed:
-            note = str(r.get("error") or "")
-            if len(note) > 110 and not verbose:
-                note = note[:107] + "..."
-            stream.write(f"{r['slide_id']:<{w}}  {r['status']:<7}  {int(r.get('n_tiles') or 0):>7}  "
-                         f"{float(r.get('seconds') or 0):>7.1f}  {note}\n")
+        for r in listed:  # the note is never cut: wrapped at word boundaries under its column
+            head = f"{r['slide_id']:<{w}}  {r['status']:<7}  {int(r.get('n_tiles') or 0):>7}  {row_seconds(r)}  "
+            stream.write(head + wrapped(row_note(r), len(head)) + "\n")
     where = f"{Path(out) / 'manifest.csv'}"
     if failed and listed is failed:
         stream.write(f"\nOnly failures are listed; every slide is in {where} (--verbose lists all).\n")

@@ -13,6 +13,7 @@ import os
 import sys
 from pathlib import Path
 
+from tilewright.cli.parser import CommandParser
 from tilewright.errors import ConfigError, OutputLockedError
 
 __all__ = ["main", "build_parser"]
@@ -24,8 +25,9 @@ EXIT_TERMINATED = 143
 
 
 def build_parser() -> argparse.ArgumentParser:
-    p = argparse.ArgumentParser(
+    p = CommandParser(
         prog="tile-out",
+        usage="%(prog)s SOURCE OUT [options]   (or: %(prog)s --print-config [options]; %(prog)s --help)",
         description="Cut harmonized, tissue-only (optionally stain-normalized) tiles from H&E slides "
                     "into one zarr store a slide. Research use only; not for diagnosis.",
         epilog="Exit codes: 0 all done, 3 some slides failed (see manifest.csv), 2 bad arguments, "
@@ -173,6 +175,14 @@ def _share_cores(config, args):
     return config.replace(threads=max(1, (os.cpu_count() or 2) // args.workers))
 
 
+def _check_tiles_fit(paths, config, mpp) -> None:
+    from tilewright.run.cohort import _mpp_for
+    from tilewright.run.feasible import check_tiles_fit
+    from tilewright.store.layout import slide_ids
+
+    check_tiles_fit(paths, config, [_mpp_for(mpp, str(p), sid) for p, sid in zip(paths, slide_ids(paths))])
+
+
 def run(args, config) -> int:
     import contextlib
     import time
@@ -196,6 +206,7 @@ def run(args, config) -> int:
 
             for sid, p in zip(slide_ids(paths), paths):
                 mpp.setdefault(sid, args.source_mpp)
+    _check_tiles_fit(paths, config, mpp)  # settings that fit no slide: exit 2, nothing written
     out = Path(args.out)
     try:
         out.mkdir(parents=True, exist_ok=True)

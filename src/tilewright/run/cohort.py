@@ -136,6 +136,8 @@ def _complete_row(final: Path, path: str, slide_id: str, cfg: TilingConfig, mpp,
     if not is_complete(final):
         return None
     changed = identity_changes(store_identity(open_store(final).attrs), run_identity(path, cfg, mpp, target))
+    if changed and not int(open_store(final).attrs.get("n_tiles") or 0):
+        return None  # a skipped slide's store holds no tile: nothing to keep, tiled anew with these settings
     if changed:
         raise ConfigError(f"a complete store made with other settings or another source exists "
                           f"({', '.join(changed[:4])}); it is kept as it is; pass --overwrite to re-tile "
@@ -291,7 +293,7 @@ def tile_cohort(paths, out_dir, config: TilingConfig | None = None, *, scheduler
             ledger.write()
             if ledger.started:
                 tracker.close(state)
-    return [SlideResult(**{k: r[k] for k in SlideResult.__dataclass_fields__}) for r in ledger.rows()]
+    return [SlideResult(**{k: r[k] for k in SlideResult.__dataclass_fields__ if k in r}) for r in ledger.rows()]
 
 
 def _mpp_for(mpp, path, slide_id):

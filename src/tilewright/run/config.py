@@ -36,14 +36,16 @@ class TilingConfig:
         Stain normalization method.
     reference : str, dict or None
         Reference image path, or a fitted normalizer dictionary. None with a normalizer means
-        the cohort's own median target (computed once per output folder).
+        the cohort's own median target (computed once per output folder). Needs ``normalizer``
+        (a reference without one is a :class:`ConfigError`, not silently ignored).
     max_tiles : int or None
         Keep at most this many tiles a slide, sampled reproducibly and spread over the slide.
     seed : int
         Seed for tile sampling and the stain estimation sample.
     mask_mpp : float
-        Resolution asked of the tissue mask, thumbnail and QC overlay. A pyramid level within 5 %
-        of it is used as is; the store's ``mask_mpp`` attribute is the true µm/px of the mask.
+        Resolution asked of the tissue mask, thumbnail and QC overlay, at least as coarse as ``mpp``
+        (a target coarser than the mask is a :class:`ConfigError`). A pyramid level within 5 % of it
+        is used as is; the store's ``mask_mpp`` attribute is the true µm/px of the mask.
     tolerance : float
         Relative difference under which a pyramid level is used as is for the tiles (default
         0.005: the scale error stays under 1.3 px across a 256-px tile); otherwise the nearest
@@ -156,6 +158,10 @@ class TilingConfig:
 
         positive("mpp", self.mpp)
         positive("mask_mpp", self.mask_mpp)
+        if self.mpp > self.mask_mpp:  # the mask that selects tiles must resolve them
+            raise ConfigError(f"mpp= (--mpp) {self.mpp:g} µm/px is coarser than the tissue mask (mask_mpp= / --mask-mpp "
+                              f"{self.mask_mpp:g} µm/px) that chooses the tiles; tiles are usually 0.25-1 µm/px "
+                              f"(common practice); for coarser tiles set --mask-mpp {self.mpp:g} or more")
         positive("tile", self.tile, int)
         positive("shard_tiles", self.shard_tiles, int)
         positive("block", self.block, int)
@@ -196,6 +202,11 @@ class TilingConfig:
             raise ConfigError(f"reference must be an image path or a fitted normalizer dict, got {type(self.reference).__name__}")
         if isinstance(self.reference, os.PathLike):
             self.reference = os.fspath(self.reference)
+        if self.reference is not None and self.normalizer is None:  # never silently ignored
+            method = self.reference.get("method") if isinstance(self.reference, dict) else None
+            raise ConfigError("reference= (--reference) is the target of stain normalization and needs normalizer= "
+                              f"(--normalize {method if method in _NORMALIZERS[1:] else 'macenko or reinhard'}); "
+                              "without it the reference would be ignored")
         return self
 
     def mask_options(self) -> dict:

@@ -226,9 +226,7 @@ class LogProgress:
         elif e.kind == "slide":
             self.done += 1
             row = e.row or {}
-            msg = f"[{self.done}/{self.total}] {row.get('slide_id')}: {row.get('status')}"
-            if row.get("status") == "failed":
-                self.log.warning("%s - %s", msg, row.get("error"))
-            else:
-                self.log.info("%s, %d tiles in %.1f s", msg, int(row.get("n_tiles") or 0),
-                              float(row.get("seconds") or 0.0))
+            from tilewright.run.row_text import row_progress  # "complete, kept" for a kept store
+
+            msg = f"[{self.done}/{self.total}] {row.get('slide_id')}: {row_progress(row)}"
+            (self.log.warning if row.get("status") == "failed" else self.log.info)("%s", msg)

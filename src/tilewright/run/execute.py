@@ -24,17 +24,29 @@ def local_cluster(workers: int):
     dask's default worker environment trims malloc aggressively (``MALLOC_TRIM_THRESHOLD_`` of
     64 KiB), which costs ~20 % in page faults on block-sized buffers; the workers get
     :mod:`tilewright.run.allocator`'s thresholds instead (the rest of dask's environment, such as
-    ``OMP_NUM_THREADS=1``, is kept).
+    ``OMP_NUM_THREADS=1``, is kept). The workers are started with SIGINT blocked
+    (:func:`tilewright.interrupts.ctrl_c_for_this_process_only`): a Ctrl-C stops the run, which
+    stops them.
     """
     import dask
     from distributed import LocalCluster
 
+    from tilewright.interrupts import ctrl_c_for_this_process_only
     from tilewright.run.allocator import ENV
 
     env = {**dask.config.get("distributed.nanny.pre-spawn-environ", {}), **ENV}
-    with dask.config.set({"distributed.nanny.pre-spawn-environ": env}):
-        return LocalCluster(n_workers=int(workers), threads_per_worker=1, processes=True,
-                            dashboard_address=":0", silence_logs=logging.ERROR)
+    cluster = None
+    try:  # the workers never take a Ctrl-C: the run stops them (tilewright.interrupts)
+        with dask.config.set({"distributed.nanny.pre-spawn-environ": env}), ctrl_c_for_this_process_only():
+            # dashboard_address ":0": any free port, so a second run on the machine prints no "port
+            # 8787 is already in use" warning (None still tries 8787)
+            cluster = LocalCluster(n_workers=int(workers), threads_per_worker=1, processes=True,
+                                   dashboard_address=":0", silence_logs=logging.ERROR)
+    except BaseException:  # a Ctrl-C pressed while the workers started arrives here: let them go
+        if cluster is not None:
+            cluster.close()
+        raise
+    return cluster
 
 
 #: How long the client tries to reach a scheduler before giving up.

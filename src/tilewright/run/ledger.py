@@ -54,7 +54,12 @@ class Ledger:
             self.previous = {}
 
     def record(self, row: dict) -> None:
-        """A slide finished (ok, skipped or failed): remember its row and rewrite the manifest."""
+        """A slide finished (ok, skipped or failed): remember its row and rewrite the manifest.
+
+        A store kept from an earlier run keeps that run's timing (this run spent none on it)."""
+        if row.get("kept"):
+            before = self.previous.get(str(row["slide_id"])) or {}
+            row = {**row, "seconds": before.get("seconds") if before.get("status") in ("ok", "skipped") else None}
         self.finished[str(row["slide_id"])] = row
         self.write()
 
@@ -100,8 +105,9 @@ def store_row(out_dir: Path, slide_id: str, path: str) -> dict | None:
     n = int(a.get("n_tiles", 0))
     from tilewright.slide.colour import colour_label
 
-    return SlideResult(slide_id, path, "ok" if n else "skipped", "" if n else skip_reason(a), n, a.get("mpp_source"), a.get("objective"), a.get("source_level"), 0.0,
-                       str(final), colour_label(a.get("colour_profile")), "; ".join(a.get("warnings") or ())).to_row()
+    return SlideResult(slide_id, path, "ok" if n else "skipped", "" if n else skip_reason(a), n, a.get("mpp_source"), a.get("objective"), a.get("source_level"), None,
+                       str(final), colour_label(a.get("colour_profile")), "; ".join(a.get("warnings") or ()),
+                       kept=True).to_row()
 
 
 def _replace_text(path: Path, text: str) -> None:

@@ -36,6 +36,7 @@ class SlideResult:
     store: str = ""
     colour_profile: str = ""  # ColourInfo.label: "none", the applied profile, or "... (ignored)"
     warnings: str = ""  # "; "-joined "code: reason" messages (see tissue_mask, fit_source_checked)
+    kept: bool = False  # a complete store of an earlier run, kept as it is (seconds: that run's)
 
     def to_row(self) -> dict:
         return asdict(self)

@@ -36,8 +36,9 @@ def find_slides(source: str | os.PathLike) -> list[Path]:
     """Slide paths from a slide file, a folder (recursive), or a text/CSV list of paths.
 
     A list file holds one path a line (``#`` starts a comment), or a CSV with a ``path`` column
-    (``source`` and ``slide`` also accepted); relative paths are relative to the list file, and
-    a file listed twice is one slide.
+    (``source`` and ``slide`` also accepted; a first line that is neither a slide path nor such a
+    header is an error, so a metadata table given by mistake is refused, not read line by line);
+    relative paths are relative to the list file, and a file listed twice is one slide.
     Folder searches skip hidden folders and ``*.zarr`` outputs and return paths sorted. DICOM
     files found there are grouped by series (see :func:`dicom_sources`): one path a series.
     """
@@ -96,12 +97,24 @@ def _read_list(path: Path) -> list[Path]:
         raise ConfigError("the list file names no slides", path)
     header = [h.strip().lower() for h in next(csv.reader([lines[0]]))]
     column = next((c for c in ("path", "source", "slide") if c in header), None)
+    if column is None and not _names_a_slide(lines[0], path):
+        raise ConfigError(
+            f"the list has no 'path' column (columns: {', '.join(h for h in header if h)[:200] or 'none'}) and its "
+            "first line is not a slide path; add a 'path' column holding each slide's file, or give a text file "
+            "with one slide path a line, or the slides' folder", path)
     if column is not None:
         rows = list(csv.DictReader(lines, fieldnames=header))[1:]
         entries = [r[column].strip() for r in rows if r.get(column)]
     else:
         entries = lines
     return unique_paths(p if p.is_absolute() else (path.parent / p) for p in map(Path, entries))
+
+
+def _names_a_slide(line: str, list_file: Path) -> bool:
+    """True when a list file's first line is itself an entry (a slide file name or an existing path),
+    not a header: a header never becomes a slide."""
+    entry = Path(line.strip())
+    return is_slide_name(entry) or (entry if entry.is_absolute() else list_file.parent / entry).exists()
 
 
 def read_mpp_table(path: str | os.PathLike) -> dict[str, float]:

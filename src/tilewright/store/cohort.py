@@ -9,7 +9,7 @@ import numpy as np
 
 from tilewright.errors import StoreError
 
-__all__ = ["MANIFEST_COLUMNS", "write_manifest", "read_manifest", "Cohort", "open_cohort"]
+__all__ = ["MANIFEST_COLUMNS", "write_manifest", "read_manifest", "stores_manifest", "Cohort", "open_cohort"]
 
 MANIFEST_COLUMNS = ["slide_id", "source", "status", "error", "n_tiles", "mpp_source", "objective",
                     "source_level", "seconds", "colour_profile", "warnings"]
@@ -57,6 +57,46 @@ def read_manifest(out_dir: str | os.PathLike):
     raise StoreError("no manifest.csv or manifest.parquet; is this a tile-out output folder?", out_dir)
 
 
+def stores_manifest(out_dir: str | os.PathLike):
+    """Manifest rows made from the complete stores of a folder that has no manifest.
+
+    ``tile_slide(path, "out/")`` writes a store but no manifest (only ``tile_cohort`` and
+    ``tile-out`` write one); each complete ``*.zarr`` store of ``out_dir`` becomes one row, ``ok``
+    when it holds tiles and ``skipped`` (with the reason) when it holds none. Unfinished stores
+    are left out.
+
+    Raises
+    ------
+    StoreError
+        When the folder holds no manifest and no complete store.
+    """
+    import pandas as pd
+
+    from tilewright.run.skip_reason import skip_reason
+    from tilewright.slide.colour import colour_label
+    from tilewright.store.reader import TileStore, is_complete
+
+    out_dir = Path(out_dir)
+    rows = []
+    for p in sorted(out_dir.glob("*.zarr")) if out_dir.is_dir() else []:
+        if not is_complete(p):
+            continue
+        a = TileStore(p).attrs
+        n = int(a.get("n_tiles") or 0)
+        rows.append({"slide_id": str(a.get("slide_id") or p.name[: -len(".zarr")]),
+                     "source": str((a.get("source") or {}).get("path") or ""), "status": "ok" if n else "skipped",
+                     "error": "" if n else skip_reason(a), "n_tiles": n, "mpp_source": a.get("mpp_source"),
+                     "objective": a.get("objective"), "source_level": a.get("source_level"), "seconds": None,
+                     "colour_profile": colour_label(a.get("colour_profile")),
+                     "warnings": "; ".join(a.get("warnings") or ())})
+    if not rows:
+        raise StoreError("no manifest.csv, manifest.parquet or complete <slide_id>.zarr store here; give the "
+                         "folder tile-out, tile_cohort or tile_slide wrote", out_dir)
+    df = pd.DataFrame(rows, columns=MANIFEST_COLUMNS)
+    df["seconds"] = df["seconds"].astype("float64")
+    return df
+
+
 class Cohort:
     """Every complete store of a cohort folder, read lazily.
 
@@ -64,7 +104,9 @@ class Cohort:
     ----------
     path : Path
     manifest : DataFrame
-        One row a slide (see :data:`MANIFEST_COLUMNS`).
+        One row a slide (see :data:`MANIFEST_COLUMNS`); for a folder of stores without a
+        manifest (``tile_slide`` output), rows made from its complete stores
+        (:func:`stores_manifest`).
     stores : dict[str, TileStore]
         Complete stores of the manifest's slides, by slide id: those whose status is ``ok``, and
         those whose latest run failed while an earlier complete store was kept (for example a
@@ -77,7 +119,8 @@ class Cohort:
         from tilewright.store.reader import TileStore, is_complete
 
         self.path = Path(path)
-        self.manifest = read_manifest(self.path)
+        has_manifest = (self.path / "manifest.parquet").exists() or (self.path / "manifest.csv").exists()
+        self.manifest = read_manifest(self.path) if has_manifest else stores_manifest(self.path)
         self.stores = {}
         for sid, status in zip(self.manifest["slide_id"], self.manifest["status"]):
             p = store_path(self.path, str(sid))
@@ -126,5 +169,6 @@ class Cohort:
 
 
 def open_cohort(out_dir: str | os.PathLike) -> Cohort:
-    """Open a ``tile-out`` output folder."""
+    """Open a folder of tile stores: a ``tile-out`` / ``tile_cohort`` output folder, or stores
+    written by ``tile_slide`` (no manifest; see :func:`stores_manifest`)."""
     return Cohort(out_dir)
