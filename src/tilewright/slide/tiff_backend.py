@@ -9,7 +9,6 @@ with the colour-space arguments tifffile would pass.
 
 from __future__ import annotations
 
-import os
 
 import numpy as np
 
@@ -115,8 +114,8 @@ class TiffBackend(GridReader):
             raise SlideTooLargeError(
                 f"declares {w0} x {h0} px at level 0, beyond the supported {MAX_SIDE} px a "
                 f"side / {MAX_PIXELS:.0e} px; the header is likely corrupt", path)
-        self._check_extent(os.path.getsize(path))
-        self._open_file()
+        self._check_extent()
+        self._open_files()
 
     # -- structure ---------------------------------------------------------------------
     @staticmethod

@@ -55,19 +55,22 @@ class GridLevel:
     unwrap : callable or None
         Turns the bytes stored at a segment's offset into the coded stream (DICOM frames split
         into several fragments), or None when they are the stream.
+    file : str or None
+        The file holding the level when it is not the reader's ``path`` (DICOM: one file a level).
     """
 
     __slots__ = ("height", "width", "tile_h", "tile_w", "grid_w", "offsets", "counts", "jpegtables", "is_jpeg",
-                 "jpeg", "sentinels", "strict", "stripped", "convert", "unwrap")
+                 "jpeg", "sentinels", "strict", "stripped", "convert", "unwrap", "file", "fd")
 
     def __init__(self, height, width, tile_h, tile_w, offsets, counts, *, jpegtables=None, is_jpeg=False,
-                 jpeg=None, convert=None, stripped=False, unwrap=None):
+                 jpeg=None, convert=None, stripped=False, unwrap=None, file=None):
         self.height, self.width, self.tile_h, self.tile_w = int(height), int(width), int(tile_h), int(tile_w)
         self.grid_w = -(-self.width // self.tile_w)
         self.offsets = np.asarray(offsets, np.int64)
         self.counts = np.asarray(counts, np.int64)
         self.jpegtables, self.is_jpeg, self.jpeg, self.convert = jpegtables, bool(is_jpeg), jpeg, convert
         self.stripped, self.unwrap = bool(stripped), unwrap
+        self.file, self.fd = file, None  # fd: set when the reader opens its files
         self.sentinels = {}  # JPEG header bytes -> SentinelPlan or None (see jpeg_sentinel)
         self.strict = {}  # colour signature or header bytes -> strict decode equals this level's (jpeg_strict)
 
@@ -91,22 +94,36 @@ class GridReader:
     """What the direct backends share: positional reads of the tiles a region touches, decoded once.
 
     Subclasses set ``path``, ``verify_jpeg`` and ``_levels`` (a list of :class:`GridLevel`,
-    finest first), then call :meth:`_open_file`.
+    finest first), then call :meth:`_open_files`.
     """
 
     name = "grid"
     _levels: list
+    _fd = None
 
-    def _open_file(self, check_jpeg: bool = True) -> None:
-        """Open the private descriptor; settle each level's direct JPEG path (see :meth:`_direct_jpeg_agrees`)."""
-        self._fd = os.open(self.path, os.O_RDONLY | getattr(os, "O_BINARY", 0))
+    def _open_files(self) -> None:
+        """Open a private descriptor on each level's file; settle each level's direct JPEG path
+        (see :meth:`_direct_jpeg_agrees`)."""
         self._lock = threading.Lock()  # only used where os.pread is unavailable
         self._scratch = threading.local()  # one decoded-tile buffer per thread and tile shape
-        for lv in self._levels if check_jpeg else ():
+        opened: dict = {}
+        try:
+            for lv in self._levels:
+                name = lv.file or self.path
+                if name not in opened:
+                    opened[name] = os.open(name, os.O_RDONLY | getattr(os, "O_BINARY", 0))
+                lv.fd = opened[name]
+        except OSError:
+            for fd in opened.values():
+                os.close(fd)
+            raise
+        self._fds = list(opened.values())
+        self._fd = self._levels[0].fd
+        for lv in self._levels:
             if lv.jpeg is not None and not self._direct_jpeg_agrees(lv):
                 lv.jpeg = None
 
-    def _check_extent(self, size: int, unit: str = "tile") -> None:
+    def _check_extent(self, unit: str = "tile") -> None:
         """Refuse levels whose segment table does not fit their size or points past the file's end.
 
         Raises
@@ -114,6 +131,7 @@ class GridReader:
         DamagedSlideError
         """
         for i, lv in enumerate(self._levels):
+            size = os.path.getsize(lv.file or self.path)
             expected = lv.grid_h * lv.grid_w
             if len(lv.offsets) != expected:
                 raise DamagedSlideError(
@@ -140,27 +158,29 @@ class GridReader:
         return f"tile ({r}, {c})"
 
     # -- pixels ------------------------------------------------------------------------
-    def _pread(self, n: int, offset: int) -> bytes:
-        """``n`` bytes at ``offset`` (fewer only at the end of the file).
+    def _pread(self, n: int, offset: int, fd: int | None = None) -> bytes:
+        """``n`` bytes at ``offset`` of the level-0 file or of ``fd`` (fewer only at the end of
+        the file).
 
         One ``pread`` returns at most about 2 GiB on Linux (and may return less anywhere), so
         reads are repeated until all bytes arrived or the file ends.
         """
+        fd = self._fd if fd is None else fd
         if hasattr(os, "pread"):
-            data = os.pread(self._fd, n, offset)
+            data = os.pread(fd, n, offset)
             if len(data) == n or not data:
                 return data
             parts, got = [data], len(data)
             while got < n:
-                more = os.pread(self._fd, n - got, offset + got)
+                more = os.pread(fd, n - got, offset + got)
                 if not more:
                     break
                 parts.append(more)
                 got += len(more)
             return b"".join(parts)
         with self._lock:  # pragma: no cover - platforms without pread
-            os.lseek(self._fd, offset, 0)
-            return os.read(self._fd, n)
+            os.lseek(fd, offset, 0)
+            return os.read(fd, n)
 
     def read(self, level: int, y: int, x: int, h: int, w: int, out: np.ndarray) -> None:
         """Decode the region ``[y, y+h) x [x, x+w)`` of a level into ``out`` (h, w, 3).
@@ -181,7 +201,7 @@ class GridReader:
         c0, c1 = x // tw, (x + w - 1) // tw
         for r in range(r0, r1 + 1):
             first, last = r * lv.grid_w + c0, r * lv.grid_w + c1
-            chunks = self._fetch_row(lv.offsets[first : last + 1], lv.counts[first : last + 1])
+            chunks = self._fetch_row(lv.offsets[first : last + 1], lv.counts[first : last + 1], lv.fd)
             ty = r * th
             ya, yb = max(y, ty), min(y + h, ty + th)
             for k, data in enumerate(chunks):
@@ -314,7 +334,7 @@ class GridReader:
             return True
         i = int(nonzero[0])
         try:
-            data = self._pread(int(lv.counts[i]), int(lv.offsets[i]))
+            data = self._pread(int(lv.counts[i]), int(lv.offsets[i]), lv.fd)
             if lv.unwrap is not None:
                 data = lv.unwrap(data)
             want = lv.reference(data, i)
@@ -323,8 +343,9 @@ class GridReader:
         except Exception:  # noqa: BLE001 - damaged first tile: leave it to the general path
             return False
 
-    def _fetch_row(self, offs: np.ndarray, cnts: np.ndarray) -> list[bytes]:
-        """Read a run of tiles, in one positional read when they lie together in the file."""
+    def _fetch_row(self, offs: np.ndarray, cnts: np.ndarray, fd: int | None = None) -> list[bytes]:
+        """Read a run of tiles (of the level-0 file, or of ``fd``), in one positional read when
+        they lie together in the file."""
         if len(offs) == 0:
             return []
         stored = cnts > 0
@@ -334,23 +355,23 @@ class GridReader:
         hi = int((offs + cnts)[stored].max())
         total = int(cnts.sum())
         if len(offs) > 1 and hi - lo <= total + 65536:
-            buf = memoryview(self._pread(hi - lo, lo))
+            buf = memoryview(self._pread(hi - lo, lo, fd))
             if len(buf) < hi - lo:
                 raise DamagedSlideError("truncated tile data", self.path)
             return [buf[o - lo : o - lo + n] if n else b""
                     for o, n in zip(offs.tolist(), cnts.tolist())]
         out = []
         for o, n in zip(offs.tolist(), cnts.tolist()):
-            data = self._pread(n, o) if n else b""
+            data = self._pread(n, o, fd) if n else b""
             if len(data) < n:
                 raise DamagedSlideError("truncated tile data", self.path)
             out.append(data)
         return out
 
     def close(self) -> None:
-        """Release the file descriptor (idempotent)."""
-        fd, self._fd = getattr(self, "_fd", None), None
-        if fd is not None:
+        """Release the file descriptors (idempotent)."""
+        fds, self._fds, self._fd = getattr(self, "_fds", []), [], None
+        for fd in fds:
             os.close(fd)
 
 
