@@ -69,13 +69,13 @@ def _encode(t: np.ndarray, codec: str, photometric: str, quality: int) -> bytes:
     return np.concatenate([pairs[:, :, :, 0].astype(np.uint8), chroma], axis=-1).tobytes()
 
 
-def _tiles(img: np.ndarray, tile: int):
+def _tiles(img: np.ndarray, th: int, tw: int):
     """(row, column, tile pixels) of every frame, row by row; edge frames padded with white."""
     h, w = img.shape[:2]
-    for r, y in enumerate(range(0, h, tile)):
-        for c, x in enumerate(range(0, w, tile)):
-            t = np.full((tile, tile, 3), 255, np.uint8)
-            part = img[y:y + tile, x:x + tile]
+    for r, y in enumerate(range(0, h, th)):
+        for c, x in enumerate(range(0, w, tw)):
+            t = np.full((th, tw, 3), 255, np.uint8)
+            part = img[y:y + th, x:x + tw]
             t[:part.shape[0], :part.shape[1]] = part
             yield r, c, t
 
@@ -146,7 +146,9 @@ def _instance(img, *, image_type, tile, codec, quality, mpp, uids, number, path,
     ds.ImageType = ["ORIGINAL" if image_type == "VOLUME" and number == 1 else "DERIVED", "PRIMARY",
                     image_type, "NONE" if number == 1 or image_type != "VOLUME" else "RESAMPLED"]
     ds.DimensionOrganizationType = "TILED_SPARSE" if sparse else "TILED_FULL"
-    ds.Rows = ds.Columns = tile
+    # levels are tiled; an associated image is one frame of its own size (as readers expect)
+    th, tw = (tile, tile) if image_type == "VOLUME" else (h, w)
+    ds.Rows, ds.Columns = th, tw
     ds.TotalPixelMatrixRows, ds.TotalPixelMatrixColumns = h, w
     ds.TotalPixelMatrixFocalPlanes, ds.NumberOfOpticalPaths = 1, 1
     ds.SamplesPerPixel, ds.PlanarConfiguration = 3, 0
@@ -179,7 +181,7 @@ def _instance(img, *, image_type, tile, codec, quality, mpp, uids, number, path,
     if icc_profile is not None:
         path_ds.ICCProfile = bytes(icc_profile)
     ds.OpticalPathSequence = Seq([path_ds])
-    tiles = [(r, c, t) for r, c, t in _tiles(img, tile) if not (sparse and omit is not None and omit(r, c))]
+    tiles = [(r, c, t) for r, c, t in _tiles(img, th, tw) if not (sparse and omit is not None and omit(r, c))]
     if sparse:  # any order: the positions say where each frame goes
         tiles = [tiles[i] for i in np.random.default_rng(seed).permutation(len(tiles))]
         ds.PerFrameFunctionalGroupsSequence = _plane_positions([(r, c) for r, c, _ in tiles], tile, mpp)
@@ -214,7 +216,7 @@ def write_dicom_series(folder: str | os.PathLike, levels: Sequence[np.ndarray], 
         JPEG quality.
     thumbnail, label, overview : ndarray, optional
         Associated images written as THUMBNAIL, LABEL and OVERVIEW instances (JPEG, one frame
-        per tile like the levels).
+        of the image's size).
     photometric : str
         Photometric interpretation of the levels' frames (see :data:`PHOTOMETRIC`; default the
         first listed for the codec): JPEG "YBR_FULL_422" (4:2:0), "YBR_FULL" (4:4:4) or "RGB";
