@@ -260,3 +260,18 @@ def test_frames_off_the_grid_are_refused_with_both_reasons(series):
     with pytest.raises(UnsupportedSlideError) as e:
         tw.open(folder)
     assert "off the 256 x 256 frame grid" in str(e.value) and "OpenSlide" in str(e.value)
+
+
+@pytest.mark.parametrize("layout", ["svs", "ifd"])
+def test_tiff_tiles_stored_as_frames_read_the_same(write, tmp_path, layout):
+    from tilewright.demo.dicom_series import dicom_series_from_tiff
+
+    path = write(f"jpeg_{layout}.tif", compression="jpeg", quality=90, layout=layout)
+    dicom_series_from_tiff(path, tmp_path / "series")
+    with tw.open(path) as a, tw.open(tmp_path / "series") as b:
+        assert (a.backend, b.backend) == ("tiff", "dicom")
+        assert [(lv.height, lv.width) for lv in a.levels] == [(lv.height, lv.width) for lv in b.levels]
+        assert b.mpp == pytest.approx(a.mpp)
+        for i, lv in enumerate(a.levels):  # ground truth: the same JPEG streams, so the same pixels
+            np.testing.assert_array_equal(a.read_level(i, 0, 0, lv.height, lv.width),
+                                          b.read_level(i, 0, 0, lv.height, lv.width))

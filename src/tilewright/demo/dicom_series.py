@@ -29,7 +29,7 @@ from pathlib import Path
 
 import numpy as np
 
-__all__ = ["write_dicom_series", "WSM_SOP_CLASS"]
+__all__ = ["write_dicom_series", "dicom_series_from_tiff", "WSM_SOP_CLASS"]
 
 #: SOP Class UID of VL Whole Slide Microscopy Image Storage (PS3.4 B.5).
 WSM_SOP_CLASS = "1.2.840.10008.5.1.4.1.1.77.1.6"
@@ -117,18 +117,29 @@ def _plane_positions(placed, tile: int, mpp: float):
     return Seq(items)
 
 
-def _instance(img, *, image_type, tile, codec, quality, mpp, uids, number, path, photometric="",
-              sparse=False, omit=None, seed=0, offset_table="basic", fragments=1, icc_profile=None):
-    """One instance: a whole-slide-image dataset of ``img`` written to ``path``."""
+def _encoded(img, *, image_type, tile, codec, quality, photometric, sparse, omit, seed):
+    """The frames of one instance: (frame shape, frames' bytes, their (row, column) when sparse)."""
+    # levels are tiled; an associated image is one frame of its own size (as readers expect)
+    th, tw = (tile, tile) if image_type == "VOLUME" else img.shape[:2]
+    tiles = [(r, c, t) for r, c, t in _tiles(img, th, tw) if not (sparse and omit is not None and omit(r, c))]
+    if sparse:  # any order: the positions say where each frame goes
+        tiles = [tiles[i] for i in np.random.default_rng(seed).permutation(len(tiles))]
+    frames = [_encode(t, codec, photometric, quality) for _, _, t in tiles]
+    return (th, tw), frames, [(r, c) for r, c, _ in tiles] if sparse else None
+
+
+def _instance(shape, frame, frames, *, image_type, codec, mpp, uids, number, path, photometric,
+              positions=None, offset_table="basic", fragments=1, icc_profile=None):
+    """One instance: a whole-slide-image dataset of ``shape`` (h, w) pixels stored as ``frames`` of
+    ``frame`` (rows, columns) pixels (at ``positions``, (row, column) of the frame grid, when
+    TILED_SPARSE), written to ``path``."""
     import pydicom
     from pydicom.dataset import Dataset, FileMetaDataset
     from pydicom.sequence import Sequence as Seq
     from pydicom.uid import generate_uid
 
-    photometric = photometric or PHOTOMETRIC[codec][0]
-    if photometric not in PHOTOMETRIC[codec]:
-        raise ValueError(f"{codec} frames can be written as {PHOTOMETRIC[codec]}, not {photometric!r}")
-    h, w = img.shape[:2]
+    h, w = shape
+    th, tw = frame
     meta = FileMetaDataset()
     meta.MediaStorageSOPClassUID = WSM_SOP_CLASS
     meta.MediaStorageSOPInstanceUID = generate_uid()
@@ -145,9 +156,7 @@ def _instance(img, *, image_type, tile, codec, quality, mpp, uids, number, path,
     ds.SeriesNumber, ds.InstanceNumber = 1, number
     ds.ImageType = ["ORIGINAL" if image_type == "VOLUME" and number == 1 else "DERIVED", "PRIMARY",
                     image_type, "NONE" if number == 1 or image_type != "VOLUME" else "RESAMPLED"]
-    ds.DimensionOrganizationType = "TILED_SPARSE" if sparse else "TILED_FULL"
-    # levels are tiled; an associated image is one frame of its own size (as readers expect)
-    th, tw = (tile, tile) if image_type == "VOLUME" else (h, w)
+    ds.DimensionOrganizationType = "TILED_FULL" if positions is None else "TILED_SPARSE"
     ds.Rows, ds.Columns = th, tw
     ds.TotalPixelMatrixRows, ds.TotalPixelMatrixColumns = h, w
     ds.TotalPixelMatrixFocalPlanes, ds.NumberOfOpticalPaths = 1, 1
@@ -181,12 +190,9 @@ def _instance(img, *, image_type, tile, codec, quality, mpp, uids, number, path,
     if icc_profile is not None:
         path_ds.ICCProfile = bytes(icc_profile)
     ds.OpticalPathSequence = Seq([path_ds])
-    tiles = [(r, c, t) for r, c, t in _tiles(img, th, tw) if not (sparse and omit is not None and omit(r, c))]
-    if sparse:  # any order: the positions say where each frame goes
-        tiles = [tiles[i] for i in np.random.default_rng(seed).permutation(len(tiles))]
-        ds.PerFrameFunctionalGroupsSequence = _plane_positions([(r, c) for r, c, _ in tiles], tile, mpp)
-    ds.NumberOfFrames = len(tiles)
-    frames = [_encode(t, codec, photometric, quality) for _, _, t in tiles]
+    if positions is not None:
+        ds.PerFrameFunctionalGroupsSequence = _plane_positions(positions, th, mpp)
+    ds.NumberOfFrames = len(frames)
     _pixel_data(ds, frames, codec, offset_table, fragments)
     pydicom.dcmwrite(path, ds, enforce_file_format=True)
 
@@ -257,11 +263,62 @@ def write_dicom_series(folder: str | os.PathLike, levels: Sequence[np.ndarray], 
         path = folder / f"{kind.lower()}_{number:02d}.dcm"
         scale = w0 / img.shape[1]
         volume = kind == "VOLUME"
-        _instance(img, image_type=kind, tile=tile, codec=codec if volume else "jpeg",
-                  quality=quality, mpp=mpp * scale, uids=uids, number=number, path=path,
-                  photometric=photometric if volume else "", sparse=volume and organization == "TILED_SPARSE",
-                  omit=(lambda r, c, k=number - 1: omit(k, r, c)) if volume and omit is not None else None,
-                  seed=seed + number, offset_table=offset_table if volume else "basic",
-                  fragments=fragments if volume else 1, icc_profile=icc_profile)
+        kind_codec = codec if volume else "jpeg"
+        kind_photometric = (photometric if volume else "") or PHOTOMETRIC[kind_codec][0]
+        if kind_photometric not in PHOTOMETRIC[kind_codec]:
+            raise ValueError(f"{kind_codec} frames can be written as {PHOTOMETRIC[kind_codec]}, not {kind_photometric!r}")
+        frame, frames, positions = _encoded(
+            img, image_type=kind, tile=tile, codec=kind_codec, quality=quality, photometric=kind_photometric,
+            sparse=volume and organization == "TILED_SPARSE", seed=seed + number,
+            omit=(lambda r, c, k=number - 1: omit(k, r, c)) if volume and omit is not None else None)
+        _instance(img.shape[:2], frame, frames, image_type=kind, codec=kind_codec, mpp=mpp * scale, uids=uids,
+                  number=number, path=path, photometric=kind_photometric, positions=positions,
+                  offset_table=offset_table if volume else "basic", fragments=fragments if volume else 1,
+                  icc_profile=icc_profile)
         written.append(path)
+    return written
+
+
+def dicom_series_from_tiff(tiff_path: str | os.PathLike, folder: str | os.PathLike) -> list[Path]:
+    """Store the JPEG tiles of a tiled TIFF pyramid as the frames of a DICOM WSI series, unchanged.
+
+    Each tile's JPEG stream (with the page's shared tables spliced in) becomes one frame of a
+    TILED_FULL VOLUME instance a level, so the series decodes to exactly the TIFF's pixels (what a
+    converter that does not re-encode does). Used by the benchmarks to compare the two formats on
+    the same pixels.
+
+    Parameters
+    ----------
+    tiff_path : str or os.PathLike
+        A tiled JPEG pyramid the tiff backend serves (8-bit YCbCr or RGB JPEG tiles, square tiles).
+    folder : str or os.PathLike
+        Created if missing; one ``.dcm`` file a level.
+
+    Returns
+    -------
+    list of Path
+        The files written, level 0 first.
+    """
+    from pydicom.uid import generate_uid
+
+    from tilewright.slide.jpeg_strict import complete_stream
+    from tilewright.slide.tiff_backend import TiffBackend
+
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    backend = TiffBackend(os.fspath(tiff_path))
+    try:
+        uids, written, w0 = (generate_uid(), generate_uid(), generate_uid()), [], backend.level_shapes[0][1]
+        for number, lv in enumerate(backend._levels, start=1):
+            if not lv.is_jpeg or lv.stripped or lv.tile_h != lv.tile_w:
+                raise ValueError(f"level {number - 1} of {tiff_path} is not stored in square JPEG tiles")
+            frames = [complete_stream(backend._pread(int(n), int(o)), lv.jpegtables)
+                      for o, n in zip(lv.offsets.tolist(), lv.counts.tolist())]
+            path = folder / f"volume_{number:02d}.dcm"
+            _instance((lv.height, lv.width), (lv.tile_h, lv.tile_w), frames, image_type="VOLUME", codec="jpeg",
+                      mpp=backend.resolution.mpp * w0 / lv.width, uids=uids, number=number, path=path,
+                      photometric="RGB" if lv.jpeg and lv.jpeg[0] == 2 else "YBR_FULL_422")
+            written.append(path)
+    finally:
+        backend.close()
     return written
