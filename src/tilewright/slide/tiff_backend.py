@@ -17,22 +17,19 @@ from tilewright.slide.sniff import MAX_PIXELS, MAX_SIDE
 from tilewright.slide.tiff_pages import discover
 from tilewright.slide.tiff_pixels import page_converter
 from tilewright.slide.tiff_strips import read_rows, strip_problem
+from tilewright.slide.tiff_vendors import OPENSLIDE_ONLY, philips_pyramid
 from tilewright.slide.tile_grid import GridLevel, GridReader
 
 __all__ = ["TiffBackend"]
-
-# Vendor flavours whose tile grids tifffile exposes but whose geometry needs a vendor
-# reader (overlapping tiles, multiple images, JPEG restart-marker "tiles"): OpenSlide serves them.
-_VENDOR_FLAGS = ("is_ndpi", "is_philips", "is_scn", "is_qpi", "is_bif", "is_mdgel", "is_lsm")
-
 
 class _Level(GridLevel):
     """One pyramid level: a TIFF page and what is needed to decode its segments (tiles or strips)."""
 
     __slots__ = ("decode", "page_index", "raw_rows", "samples")
 
-    def __init__(self, page, index):
-        height, width = int(page.imagelength), int(page.imagewidth)
+    def __init__(self, page, index, size=None):
+        # size: the level's true (height, width) when the page is padded beyond it (Philips)
+        height, width = size or (int(page.imagelength), int(page.imagewidth))
         chunks = page.chunks
         tile_h, tile_w = int(chunks[-3]), int(chunks[-2])
         if not page.is_tiled:  # RowsPerStrip may exceed the image (one strip)
@@ -120,19 +117,23 @@ class TiffBackend(GridReader):
     # -- structure ---------------------------------------------------------------------
     @staticmethod
     def _inspect(tf, path):
-        for flag in _VENDOR_FLAGS:
+        for flag in OPENSLIDE_ONLY:  # vendor layouts without an exact tile grid (see tiff_vendors)
             if getattr(tf, flag, False):
                 raise UnsupportedSlideError(
                     f"{flag[3:].upper()} layout needs the OpenSlide backend", path)
-        pyramid = discover(tf, path)
+        sizes = None
+        if tf.is_philips:
+            pyramid, sizes = philips_pyramid(tf, path)
+        else:
+            pyramid = discover(tf, path)
         levels = []
         for i, page in enumerate(pyramid.levels):
             problem = strip_problem(page, i)
             if problem is not None and i == 0:
                 raise UnsupportedSlideError(problem, path)
             if problem is None:  # a reduced level stored in huge strips: finer levels serve it
-                levels.append(_Level(page, i))
-        flavour = "ome" if tf.is_ome else "svs" if tf.is_svs else "tiff"
+                levels.append(_Level(page, i, None if sizes is None else sizes[i]))
+        flavour = "ome" if tf.is_ome else "svs" if tf.is_svs else "philips" if tf.is_philips else "tiff"
         return levels, pyramid.resolution, flavour, pyramid.associated
 
     # -- pixels ------------------------------------------------------------------------
