@@ -128,3 +128,44 @@ def peak_rss_mib_of(module: str, *args: str) -> tuple[float, str]:
     out = subprocess.run([sys.executable, "-m", module, *args], check=True, capture_output=True, text=True,
                          cwd=Path(__file__).resolve().parent).stdout
     return float(out.split()[-1]) / 1024.0, out
+
+
+def profiled_copy(path: Path, profile: bytes, name: str) -> Path:
+    """A copy of a TIFF slide whose first IFD (level 0) also carries ``profile`` in tag 34675.
+
+    The pixels are the same bytes: the profile is appended, then a copy of the first IFD with the
+    InterColorProfile entry added (entries kept in tag order, TIFF 6.0 section 2), and the header
+    is pointed at it. Classic TIFF and BigTIFF.
+    """
+    import shutil
+    import struct
+
+    out = ROOT / f"{path.stem}_{name}{path.suffix}"
+    if out.exists():
+        return out
+    tmp = out.with_suffix(".tmp")
+    shutil.copyfile(path, tmp)
+    with open(tmp, "r+b") as fh:
+        head = fh.read(16)
+        bo = "<" if head[:2] == b"II" else ">"
+        big = struct.unpack(bo + "H", head[2:4])[0] == 43
+        cnt_f, ent_f, off_f, ent_n, off_pos = ("Q", "HHQQ", "Q", 20, 8) if big else ("H", "HHII", "I", 12, 4)
+        first = struct.unpack(bo + off_f, head[off_pos:off_pos + struct.calcsize(off_f)])[0]
+        fh.seek(first)
+        n = struct.unpack(bo + cnt_f, fh.read(struct.calcsize(cnt_f)))[0]
+        entries = [fh.read(ent_n) for _ in range(n)]
+        next_ifd = fh.read(struct.calcsize(off_f))
+        fh.seek(0, 2)
+        end = fh.tell()
+        fh.write(bytes(-end % 8))
+        where = fh.tell()
+        fh.write(profile)
+        fh.write(bytes(-fh.tell() % 8))
+        entries.append(struct.pack(bo + ent_f, 34675, 7, len(profile), where))
+        entries.sort(key=lambda e: struct.unpack(bo + "H", e[:2])[0])
+        ifd = fh.tell()
+        fh.write(struct.pack(bo + cnt_f, len(entries)) + b"".join(entries) + next_ifd)
+        fh.seek(off_pos)
+        fh.write(struct.pack(bo + off_f, ifd))
+    os.replace(tmp, out)
+    return out

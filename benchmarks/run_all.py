@@ -8,6 +8,8 @@ levels at downsample 1, 4, 16 (so 0.5 µm/px is computed from level 0 by everyon
 * the same pixels as RGB JPEG without subsampling (4:4:4, as some scanners write; 3x the bytes);
 * 4 names (hard links) of main, for the 1-worker / 2-worker comparison;
 * main's own JPEG tiles stored as the frames of a DICOM WSI series (no re-encoding: same pixels);
+* a copy of main whose level 0 also carries an ICC profile (the demo's wide-gamut scanner-B
+  profile): the same pixels, converted to sRGB on reading (colour management's cost);
 * memory: 20480 x 16384 and 61440 x 51200 px, mostly glass with tissue islands of ~1.2 mm.
 
 Rows, all on the main slide's planned tiles (256 px at 0.5 µm/px, min_tissue 0.5):
@@ -16,7 +18,8 @@ raw decode    tifffile: read + JPEG-decode exactly the level-0 tiles under plann
 hand loop     OpenSlide read_region(512 px, level 0) per tile, cv2 INTER_AREA to 256, one zarr
               write per tile (tile-out's default codec, one tile a chunk), 1 thread;
 tile-out      tile_cohort (what the tile-out command runs) with the given workers/threads, QC
-              overlay on, timed end to end (mask, plan, reads, normalization, store, manifest).
+              overlay on, timed end to end (mask, plan, reads, normalization, store, manifest);
+              "progress bar drawn": the same with tile-out's terminal display fed every event.
 read          the planned tiles read as tile-out's reader threads read them (blocks of a view at
               0.5 µm/px), from the TIFF, the DICOM series (frame backend), the series through
               OpenSlide (see benchmarks/formats.py; it also estimates the OpenSlide path's use of
@@ -52,7 +55,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 import numpy as np  # noqa: E402
 
-from fixtures import bench_slide, peak_rss_mib_of, slide_copies  # noqa: E402
+from fixtures import bench_slide, peak_rss_mib_of, profiled_copy, slide_copies  # noqa: E402
 from formats import dicom_copy, read_planned, tiles_of  # noqa: E402
 
 TILE, MPP = 256, 0.5
@@ -132,7 +135,26 @@ def hand_loop(path, yx, scale, out):
     return seconds
 
 
-def cohort(paths, out, cfg, *, client=None, target=None):
+def display():
+    """What tile-out feeds on a terminal: the rich bar (into a terminal-like buffer) and log lines."""
+    import io
+
+    from rich.console import Console
+
+    from tilewright.cli.progress import RichProgress
+    from tilewright.run.events import LogProgress
+
+    bar = RichProgress(1, console=Console(file=io.StringIO(), force_terminal=True, width=120))
+    lines = LogProgress()
+
+    def listen(event):
+        lines(event)
+        bar(event)
+
+    return bar, listen
+
+
+def cohort(paths, out, cfg, *, client=None, target=None, shown=False):
     """Run tile_cohort into a fresh ``out``; ``target`` (a fitted normalizer dict) is saved there
     first, as a resumed or distributed run finds it (so no cohort stain estimate is made)."""
     import json
@@ -144,8 +166,11 @@ def cohort(paths, out, cfg, *, client=None, target=None):
     if target is not None:
         Path(out).mkdir(parents=True)
         stain_target_path(out, target["method"]).write_text(json.dumps(target))
+    bar, listen = display() if shown else (contextlib.nullcontext(), None)
     t0, c0 = time.perf_counter(), time.process_time()
-    res = tw.tile_cohort([str(p) for p in paths], out, cfg, scheduler=client, workers=1, progress=False)
+    with bar:
+        res = tw.tile_cohort([str(p) for p in paths], out, cfg, scheduler=client, workers=1, progress=False,
+                             on_progress=listen)
     seconds = time.perf_counter() - t0
     CPU[0] = None if client is not None else time.process_time() - c0
     bad = [r for r in res if r.status != "ok"]
@@ -213,6 +238,9 @@ def main(argv=None):
     rgb_slide = bench_slide(24576, 20480, jpeg_colours="rgb")
     copies = slide_copies(main_slide, args.copies)
     series = dicom_copy(main_slide)
+    from tilewright.demo.icc import SCANNER_B, matrix_trc_profile
+
+    icc_slide = profiled_copy(main_slide, matrix_trc_profile(**SCANNER_B), "scanner-b-icc")
     yx, scale = plan_for(main_slide)
     n = len(yx)
     src_mp = n * (TILE * scale) ** 2 / 1e6
@@ -236,13 +264,13 @@ def main(argv=None):
             return sec, n, cpu
         return run
 
-    def out(paths, name, cfg, workers=None, target=None):
+    def out(paths, name, cfg, workers=None, target=None, shown=False):
         def run():
             if workers:  # a fresh, warmed-up cluster a round: idle clusters would disturb the other rows
                 clients[workers] = local_client(workers, main_slide, tmp / "warm")
             try:
                 sec, k, res = cohort(paths, tmp / name, cfg, client=clients[workers][0] if workers else None,
-                                     target=target)
+                                     target=target, shown=shown)
             finally:
                 if workers:
                     client, cluster = clients.pop(workers)
@@ -255,6 +283,8 @@ def main(argv=None):
     try:
         # warm-up: page cache holds the slides, modules are imported (as in any long cohort run)
         tw.tile_slide(main_slide, tmp / "warm", tw.TilingConfig(mpp=MPP, max_tiles=8, qc_overlay=False))
+        # the profile's table is built once a process (a cohort from one scanner builds it once)
+        tw.tile_slide(icc_slide, tmp / "warm-icc", tw.TilingConfig(mpp=MPP, max_tiles=8, qc_overlay=False))
         raw_decode(main_slide, yx[:50], scale)
         cohort([main_slide], tmp / "mac-target", mac_cfg)
         target = json.loads((tmp / "mac-target" / "stain_target.macenko.json").read_text())
@@ -264,6 +294,11 @@ def main(argv=None):
             ("loop", "hand loop: OpenSlide 512 px/tile + INTER_AREA + zarr", None, src_mp, "first round only"),
             ("tw", "tile-out, 1 worker (threads=2), no normalization", out([main_slide], "tw", base), src_mp,
              "defaults: lz4, JPEG check on"),
+            ("shown", "tile-out, 1 worker (threads=2), progress bar drawn", out([main_slide], "shown", base,
+                                                                              shown=True),
+             src_mp, "what a terminal run adds: bar + log lines"),
+            ("icc", "tile-out, 1 worker (threads=2), + embedded ICC profile",
+             out([icc_slide], "icc", base), src_mp, "same slide; profile applied (sRGB)"),
             ("nv", "tile-out, 1 worker (threads=2), --no-verify-jpeg",
              out([main_slide], "nv", base.replace(verify_jpeg=False)), src_mp, "without the damaged-JPEG check"),
             ("mac", "tile-out, 1 worker (threads=2), Macenko, new cohort", out([main_slide], "mac", mac_cfg),
@@ -368,7 +403,9 @@ def main(argv=None):
         ("tile-out / raw decode", ratio("tw", "raw"), ">= 0.7", 0.7),
         ("  the same with --no-verify-jpeg", ratio("nv", "raw"), ">= 0.7", 0.7),
         ("  the same on the RGB-JPEG copy", ratio("rgb", "rgbraw"), ">= 0.7", 0.7),
+        ("colour management extra time (ICC), %", 100 * (ratio("tw", "icc") - 1), "<= 15", -15),
         ("Macenko extra time (target known), %", 100 * mac_cost, "<= 35", -35),
+        ("progress display extra time, %", 100 * (ratio("tw", "shown") - 1), "< 2", -2),
         ("2 workers / 1 worker (1 thread each)", ratio("d2", "in1"), ">= 1.7", 1.7),
         ("DICOM fast path / TIFF, tile-out 1 thread", ratio("dcm1", "t1"), ">= 0.8", 0.8),
         ("  the same, reading the planned tiles", ratio("rdcm", "rtif"), ">= 0.8", 0.8),

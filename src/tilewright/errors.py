@@ -22,6 +22,7 @@ __all__ = [
     "SlideTooLargeError",
     "SlideGeometryError",
     "ResolutionUnavailableError",
+    "ColourProfileError",
     "StainEstimationError",
     "RegionError",
     "StoreError",
@@ -96,6 +97,10 @@ class SlideGeometryError(SlideError):
 
 class ResolutionUnavailableError(SlideError, ValueError):
     """The requested µm/px is finer than the slide's finest level (it would need upsampling)."""
+
+
+class ColourProfileError(SlideError):
+    """The slide's embedded ICC profile is damaged or does not describe its RGB pixels."""
 
 
 class StainEstimationError(TilewrightError):

@@ -15,6 +15,7 @@ def test_inspect_reports_levels_and_writes_overlay(tmp_path, capsys):
     assert main(["inspect", str(path), "--overlay", str(png)]) == 0
     out = capsys.readouterr().out
     assert "0.2500 µm/px" in out and "40" in out  # ground truth: written with mpp 0.25, AppMag 40
+    assert "no ICC profile" in out  # ground truth: written without one
     with tw.open(path) as s:
         assert f"{s.dimensions[1]} x {s.dimensions[0]}" in out  # reference: the reader's own levels
     assert png.stat().st_size > 1000
@@ -44,3 +45,11 @@ def test_demo_builds_tiles_and_audits(tmp_path, capsys):
     assert (out / "audit" / "report.html").exists()
     printed = capsys.readouterr().out
     assert "Research use only" in printed and str(out / "tiles") in printed
+    # scanner-B (site-south) embeds its ICC profile, applied by default; scanner-A embeds none
+    from tilewright.demo.icc import SCANNER_B
+
+    profile = dict(zip(m.slide_id, m.colour_profile))
+    site = dict(zip(meta.slide_id, meta.site))
+    assert {profile[s] for s in profile if site[s] == "site-south"} == {SCANNER_B["description"]}
+    assert {profile[s] for s in profile if site[s] == "site-north"} == {"none"}
+    assert "colour management alone closes" in printed

@@ -35,7 +35,7 @@ __all__ = ["read_metadata", "read_table_file", "as_factors", "cohort_factors", "
 
 #: Manifest columns tested as factors (column -> "number" or "text"); a run's new per-slide
 #: property (scanner colour profile, ...) becomes an audit factor by adding its column here.
-MANIFEST_FACTORS = {"mpp_source": "number"}
+MANIFEST_FACTORS = {"mpp_source": "number", "colour_profile": "text"}
 #: Numeric columns with at most this many distinct values are treated as categories.
 MAX_NUMERIC_LEVELS = 10
 #: Words in a column name that mark a numeric column with one value a slide as an identifier.
@@ -235,7 +235,10 @@ def _number_label(value) -> object:
 
 
 def cohort_factors(manifest: pd.DataFrame, metadata=None) -> tuple[pd.DataFrame, dict]:
-    """Factors for every audited slide: the metadata columns plus the manifest's source µm/px.
+    """Factors for every audited slide: the metadata columns plus the manifest's source µm/px and
+    embedded colour profile (``colour_profile``: ``none``, the profile's description, or the
+    description followed by ``(ignored)``), so that colour clusters following a scanner's
+    profile show up.
 
     Parameters
     ----------

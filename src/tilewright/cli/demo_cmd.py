@@ -27,6 +27,7 @@ def run(args) -> int:
                      "--workers", str(args.workers)])
     if code not in (0, 3):
         return code
+    gap = _colour_gap(slides)
     report = _audit(tiles, meta, out)
     print("\nWhat was made:")
     print(f"  slides (pyramidal TIFF)     {slides}/")
@@ -35,10 +36,25 @@ def run(args) -> int:
     print(f"  QC overlays                 {tiles / 'qc'}/  (tissue outline, ink, kept tiles)")
     if report:
         print(f"  colour audit                {report}")
+    if gap is not None:
+        print(f"\nScanner-B embeds an ICC profile: {gap.sentence()}.")
     print("\nRead the tiles lazily:  python -c \"import tilewright as tw; c = tw.open_cohort('%s'); "
           "print(c, c.tiles)\"" % tiles)
     print("Research use only: not for diagnosis or clinical decisions.")
     return 0
+
+
+def _colour_gap(slides: Path):
+    """The between-site colour gap with the scanners' profiles ignored and applied (see
+    :mod:`tilewright.demo.colour_gap`); None when there are not two sites with tissue."""
+    from tilewright.demo.colour_gap import site_colour_gap
+
+    sites = {d.name: sorted(p for p in d.iterdir() if p.is_file() and not p.name.startswith("."))
+             for d in sorted(slides.iterdir()) if d.is_dir()}
+    try:
+        return site_colour_gap(sites)
+    except ValueError:
+        return None
 
 
 def _audit(tiles_dir: Path, meta: Path, out: Path):

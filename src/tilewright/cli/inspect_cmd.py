@@ -35,6 +35,9 @@ def run(args) -> int:
             out.write(f"level-0     {slide.dimensions[1]} x {slide.dimensions[0]} px (w x h), "
                       f"{slide.mpp:.4f} µm/px\n")
             out.write(f"objective   {slide.objective if slide.objective else 'not recorded'}\n")
+            colour = (f"ICC profile {slide.colour.label!r}, converted to sRGB" if slide.colour.applied
+                      else "no ICC profile: pixels as stored")
+            out.write(f"colour      {colour}\n")
             out.write("levels      #  width x height   downsample  µm/px\n")
             for i, lv in enumerate(slide.levels):
                 out.write(f"            {i}  {lv.width} x {lv.height}  {lv.downsample:10.3f}  {lv.mpp:.4f}\n")

@@ -1,5 +1,5 @@
 """The ``tilewright`` umbrella command: ``tile`` (same as tile-out), ``demo``, ``inspect``, ``audit``,
-``split``."""
+``split``, ``status``."""
 
 from __future__ import annotations
 
@@ -11,7 +11,7 @@ __all__ = ["main"]
 
 #: Sub-command modules; each has ``register(subparsers)`` setting ``func`` to ``run(args) -> int``.
 SUBCOMMANDS = ("tilewright.cli.demo_cmd", "tilewright.cli.inspect_cmd", "tilewright.cli.audit_cmd",
-               "tilewright.cli.split_cmd")
+               "tilewright.cli.split_cmd", "tilewright.cli.status_cmd")
 
 
 def main(argv=None) -> int:

@@ -1,4 +1,8 @@
-"""Progress on a terminal (a redrawn bar) or plain log lines when output is not a terminal."""
+"""Progress on a terminal (a rich bar) or plain log lines when output is not a terminal.
+
+Both are listeners of the run's :class:`tilewright.run.events.ProgressEvent` values; the plain
+lines come from :class:`tilewright.run.events.LogProgress`.
+"""
 
 from __future__ import annotations
 
@@ -6,7 +10,7 @@ import logging
 import sys
 import time
 
-__all__ = ["SlideProgress", "setup_logging"]
+__all__ = ["RichProgress", "setup_logging"]
 
 log = logging.getLogger("tilewright")
 
@@ -30,40 +34,60 @@ def setup_logging(log_file=None, *, quiet: bool = False, tty: bool | None = None
     log.propagate = False
 
 
-class SlideProgress:
-    """Counts finished slides; draws a bar on a terminal, logs a line per slide otherwise."""
+class RichProgress:
+    """The terminal display of a run (rich): one bar of tiles read across the cohort, moving with
+    every block of tiles, with slides done/total, failures so far, source MP/s and the time left
+    estimated from planned tiles; each failure is printed above the bar as it happens.
 
-    def __init__(self, total: int, *, stream=None, enabled: bool = True):
-        self.total = total
-        self.done = 0
-        self.failed = 0
-        self.tiles = 0
-        self.t0 = time.perf_counter()
-        self.stream = stream or sys.stderr
-        self.bar = enabled and self.stream.isatty()
+    A listener for :class:`tilewright.run.events.ProgressEvent` (pass it as ``on_progress``).
+    Use as a context manager (the bar is drawn between enter and exit).
+    """
 
-    def __call__(self, row: dict) -> None:
-        self.done += 1
-        self.failed += row["status"] == "failed"
-        self.tiles += int(row.get("n_tiles") or 0)
-        msg = f"[{self.done}/{self.total}] {row['slide_id']}: {row['status']}"
-        if row["status"] == "failed":
-            msg += f" - {row['error']}"
-        else:
-            msg += f", {row.get('n_tiles', 0)} tiles in {row.get('seconds', 0):.1f} s"
-        (log.warning if row["status"] == "failed" else log.info)(msg)
-        if self.bar:
-            self._draw(row["slide_id"])
+    def __init__(self, total: int, *, console=None):
+        from rich.console import Console
+        from rich.progress import BarColumn, Progress, TextColumn
 
-    def _draw(self, last: str) -> None:
-        width = 30
-        frac = self.done / max(self.total, 1)
-        filled = int(round(frac * width))
-        elapsed = time.perf_counter() - self.t0
-        eta = elapsed / self.done * (self.total - self.done) if self.done else 0
-        line = (f"\r{'#' * filled}{'.' * (width - filled)} {self.done}/{self.total} slides, "
-                f"{self.tiles} tiles, {self.failed} failed, {elapsed:5.0f} s elapsed, ~{eta:4.0f} s left  ")
-        self.stream.write(line[:160])
-        if self.done == self.total:
-            self.stream.write("\n")
-        self.stream.flush()
+        from tilewright.run.events import ProgressTracker
+
+        self.counts = ProgressTracker(None, total)
+        self.console = console or Console(stderr=True)
+        self.bar = Progress(TextColumn("[bold]{task.description}"), BarColumn(),
+                            TextColumn("{task.fields[tiles]}"), TextColumn("{task.fields[info]}"),
+                            console=self.console, transient=False, refresh_per_second=2)
+        self.task = self.bar.add_task("tiling", total=None, tiles="", info="")
+
+    def __enter__(self):
+        self.bar.start()
+        return self
+
+    def __exit__(self, *exc):
+        self._update()
+        self.bar.stop()
+        return False
+
+    def __call__(self, event) -> None:
+        self.counts(event)
+        if event.kind == "slide" and (event.row or {}).get("status") == "failed":
+            row = event.row
+            self.console.print(f"[red]failed[/red] {row.get('slide_id')}: {row.get('error')}", highlight=False,
+                               soft_wrap=True)
+        self._update()
+
+    def _update(self) -> None:
+        c = self.counts
+        read = sum(c.read.values()) + c.settled
+        planned = max(c.planned_estimate(), read)
+        elapsed = max(1e-9, time.time() - c.started)
+        eta = c.eta_seconds()
+        left = "" if eta is None else f", ~{_clock(eta)} left"
+        self.bar.update(self.task, completed=read, total=planned or None,
+                        description=f"{c.done}/{c.total} slides",
+                        tiles=f"{read}/{planned} tiles",
+                        info=f"{c.failed} failed, {c.megapixels / elapsed:.0f} MP/s{left}")
+
+
+def _clock(seconds: float) -> str:
+    seconds = int(round(seconds))
+    h, rest = divmod(seconds, 3600)
+    m, s = divmod(rest, 60)
+    return f"{h}:{m:02d}:{s:02d}" if h else f"{m}:{s:02d}"

@@ -1,23 +1,58 @@
-"""The closing summary table of a run."""
+"""The closing summary of a run: counts first, then only what needs attention."""
 
 from __future__ import annotations
 
+import os
 import sys
+from pathlib import Path
 
-__all__ = ["print_summary"]
+__all__ = ["print_summary", "FULL_TABLE_UP_TO"]
+
+#: Runs of at most this many slides list every slide; larger ones list only the failures.
+FULL_TABLE_UP_TO = 20
 
 
-def print_summary(rows, out, stream=None) -> None:
-    stream = stream or sys.stdout
-    w = max([len("slide")] + [len(str(r["slide_id"])) for r in rows])
-    stream.write(f"\n{'slide':<{w}}  {'status':<7}  {'tiles':>7}  {'seconds':>7}  note\n")
+def _bytes(rows, out) -> int:
+    total = 0
     for r in rows:
-        note = str(r.get("error") or "")
-        if len(note) > 90:
-            note = note[:87] + "..."
-        stream.write(f"{r['slide_id']:<{w}}  {r['status']:<7}  {int(r.get('n_tiles') or 0):>7}  "
-                     f"{float(r.get('seconds') or 0):>7.1f}  {note}\n")
+        if r.get("status") != "ok" or float(r.get("seconds") or 0) == 0:
+            continue  # written by this run only (kept stores took no time)
+        for root, _, files in os.walk(Path(out) / f"{r['slide_id']}.zarr"):
+            total += sum(os.path.getsize(os.path.join(root, f)) for f in files)
+    return total
+
+
+def _size(n: float) -> str:
+    for unit in ("B", "kB", "MB", "GB", "TB"):
+        if n < 1000 or unit == "TB":
+            return f"{n:.0f} {unit}" if unit == "B" else f"{n:.1f} {unit}"
+        n /= 1000.0
+    return f"{n} B"  # pragma: no cover
+
+
+def print_summary(rows, out, *, seconds: float = 0.0, megapixels: float = 0.0, verbose: bool = False,
+                  stream=None) -> None:
+    """Counts (ok / skipped / failed), tiles, bytes written, wall time and MP/s; then the failed
+    slides with their one-line reasons, or every slide with ``verbose`` or for small runs."""
+    stream = stream or sys.stdout
     ok = sum(r["status"] == "ok" for r in rows)
-    failed = sum(r["status"] == "failed" for r in rows)
-    stream.write(f"\n{ok} ok, {len(rows) - ok - failed} skipped, {failed} failed. "
-                 f"Stores and manifest.csv are in {out}\n")
+    failed = [r for r in rows if r["status"] == "failed"]
+    tiles = sum(int(r.get("n_tiles") or 0) for r in rows)
+    rate = f", {megapixels / seconds:.0f} MP/s" if seconds > 0 and megapixels > 0 else ""
+    stream.write(f"\n{ok} ok, {len(rows) - ok - len(failed)} skipped, {len(failed)} failed; {tiles} tiles, "
+                 f"{_size(_bytes(rows, out))} written in {seconds:.1f} s{rate}\n")
+    listed = rows if (verbose or len(rows) <= FULL_TABLE_UP_TO) else failed
+    if listed:
+        w = max([len("slide")] + [len(str(r["slide_id"])) for r in listed])
+        stream.write(f"\n{'slide':<{w}}  {'status':<7}  {'tiles':>7}  {'seconds':>7}  note\n")
+        for r in listed:
+            note = str(r.get("error") or "")
+            if len(note) > 110 and not verbose:
+                note = note[:107] + "..."
+            stream.write(f"{r['slide_id']:<{w}}  {r['status']:<7}  {int(r.get('n_tiles') or 0):>7}  "
+                         f"{float(r.get('seconds') or 0):>7.1f}  {note}\n")
+    where = f"{Path(out) / 'manifest.csv'}"
+    if failed and listed is failed:
+        stream.write(f"\nOnly failures are listed; every slide is in {where} (--verbose lists all).\n")
+    else:
+        stream.write(f"\nStores and the manifest ({where}) are in {out}\n")

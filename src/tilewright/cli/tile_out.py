@@ -45,6 +45,9 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--verify-jpeg", action=argparse.BooleanOptionalAction, default=None,
                    help="check every JPEG source tile for damage decoders pass silently; a damaged "
                         "slide fails (default on; --no-verify-jpeg decodes faster and keeps garbage)")
+    g.add_argument("--colour-profile", choices=["apply", "ignore"],
+                   help="apply: convert pixels from each slide's embedded ICC profile to sRGB before anything "
+                        "else sees them (default); ignore: keep the files' raw pixels")
     g = p.add_argument_group("stain")
     g.add_argument("--normalize", choices=["macenko", "reinhard", "none"],
                    help="stain normalization (default none)")
@@ -75,6 +78,8 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--compression", choices=["lz4", "zstd", "zlib", "none"],
                    help="lossless tile compression (default lz4; zstd: ~12%% fewer bytes, ~3x the CPU)")
     g.add_argument("--quiet", action="store_true", help="no progress output (the log file is still written)")
+    g.add_argument("--verbose", action="store_true",
+                   help="the closing summary lists every slide (default: all up to 20 slides, else failures)")
     return p
 
 
@@ -82,7 +87,8 @@ _FIELDS = {"mpp": "mpp", "tile": "tile", "stride": "stride", "min_tissue": "min_
            "max_tiles": "max_tiles", "seed": "seed", "mask_mpp": "mask_mpp", "min_sharpness": "min_sharpness",
            "reference": "reference", "regions": "regions", "min_region": "min_region",
            "threads": "threads", "compression": "compression", "verify_jpeg": "verify_jpeg",
-           "class_property": "class_property", "default_class": "default_class", "object_types": "object_types"}
+           "class_property": "class_property", "default_class": "default_class", "object_types": "object_types",
+           "colour_profile": "colour_profile"}
 
 
 def config_from_args(args):
@@ -150,8 +156,12 @@ def _share_cores(config, args):
 
 
 def run(args, config) -> int:
-    from tilewright.cli.progress import SlideProgress, setup_logging
+    import contextlib
+    import time
+
+    from tilewright.cli.progress import RichProgress, setup_logging
     from tilewright.cli.summary import print_summary
+    from tilewright.run.events import LogProgress, ProgressTracker
     from tilewright.run.cohort import tile_cohort
     from tilewright.run.sources import find_slides, read_mpp_table
 
@@ -178,15 +188,28 @@ def run(args, config) -> int:
     except OSError as exc:
         raise ConfigError(f"cannot write to the output folder ({exc.strerror or exc}); choose a writable folder",
                           out) from None
-    setup_logging(out / "tile-out.log", quiet=args.quiet)
+    tty = sys.stderr.isatty() and not args.quiet
+    setup_logging(out / "tile-out.log", quiet=args.quiet, tty=tty)
     log.info("tile-out: %d slide(s) from %s into %s (target %.3g µm/px, tile %d, normalize %s)",
              len(paths), args.source, out, config.mpp, config.tile, config.normalizer or "none")
-    progress = SlideProgress(len(paths), enabled=not args.quiet)
-    results = tile_cohort(paths, out, config, scheduler=args.scheduler, workers=args.workers,
-                          overwrite=args.overwrite, mpp=mpp, on_result=progress)
+    lines = LogProgress()  # the log file always; stderr too when it is not a terminal (and not --quiet)
+    bar = RichProgress(len(paths)) if tty else contextlib.nullcontext()
+    totals = ProgressTracker(None, len(paths))
+
+    def on_progress(event):
+        totals(event)
+        lines(event)
+        if tty:
+            bar(event)
+
+    t0 = time.perf_counter()
+    with bar:
+        results = tile_cohort(paths, out, config, scheduler=args.scheduler, workers=args.workers,
+                              overwrite=args.overwrite, mpp=mpp, progress=False, on_progress=on_progress)
     rows = [r.to_row() for r in results]
     if not args.quiet:
-        print_summary(rows, out)
+        print_summary(rows, out, seconds=time.perf_counter() - t0, megapixels=totals.megapixels,
+                      verbose=args.verbose)
     failed = sum(r["status"] == "failed" for r in rows)
     log.info("done: %d ok, %d skipped, %d failed", sum(r["status"] == "ok" for r in rows),
              sum(r["status"] == "skipped" for r in rows), failed)

@@ -5,6 +5,11 @@ Scenario (fictional): a colorectal subtype study pools slides from "site-north",
 scanned at 0.5 µm/px ("20x") on "scanner-B" whose hematoxylin is bluer and eosin stronger. The
 label ("subtype-1"/"subtype-2") is independent of site. One slide carries marker-pen strokes and
 one slide is blank glass. Patient ids are invented.
+
+Scanner-B records a wide-gamut device RGB and embeds its ICC profile
+(:data:`tilewright.demo.icc.SCANNER_B`): its files hold the device values of the rendered sRGB
+colours (less saturated numbers), and applying the profile brings them back to sRGB. Scanner-A
+embeds no profile (its files are sRGB).
 """
 
 from __future__ import annotations
@@ -15,9 +20,10 @@ from pathlib import Path
 
 import numpy as np
 
+from tilewright.demo.icc import SCANNER_B, matrix_trc_profile
 from tilewright.demo.synth import RUIFROK_E, RUIFROK_H, random_layout
 
-__all__ = ["DemoSlide", "SITES", "demo_slides", "write_demo_cohort"]
+__all__ = ["DemoSlide", "SITES", "demo_slides", "write_demo_cohort", "device_renderer"]
 
 
 def _rotate_towards(v, w, degrees):
@@ -37,7 +43,7 @@ SITES = {
     "site-south": dict(mpp=0.5, objective=20.0, scanner="scanner-B", layout="ome",
                        stains=np.stack([_rotate_towards(RUIFROK_H, (0.9, 0.3, 0.1), 12.0),
                                         _rotate_towards(RUIFROK_E, (0.05, 0.6, 0.8), -10.0)]),
-                       concentration=(1.15, 1.2), background=(232.0, 234.0, 226.0)),
+                       concentration=(1.15, 1.2), background=(232.0, 234.0, 226.0), profile=SCANNER_B),
 }
 
 
@@ -76,6 +82,23 @@ def _slide_variation(site: dict, seed: int) -> dict:
     return dict(stains=stains, concentration=conc, background=background)
 
 
+def device_renderer(render, profile: bytes):
+    """``render`` (sRGB pixels) as a scanner with ``profile`` records them: sRGB -> the profile's
+    device RGB, relative colorimetric (LittleCMS through Pillow's ImageCms)."""
+    import io
+
+    from PIL import Image, ImageCms
+
+    transform = ImageCms.buildTransform(ImageCms.createProfile("sRGB"), ImageCms.ImageCmsProfile(io.BytesIO(profile)),
+                                        "RGB", "RGB", renderingIntent=ImageCms.Intent.RELATIVE_COLORIMETRIC)
+
+    def device(y, x, h, w):
+        rgb = np.ascontiguousarray(render(y, x, h, w), dtype=np.uint8)
+        return np.asarray(ImageCms.applyTransform(Image.fromarray(rgb), transform))
+
+    return device
+
+
 def write_demo_cohort(out_dir: str | os.PathLike, *, n_per_site: int = 6, size_um=(2400.0, 3000.0),
                       log=print) -> tuple[Path, Path]:
     """Write the demo slides and ``metadata.csv``.
@@ -111,8 +134,12 @@ def write_demo_cohort(out_dir: str | os.PathLike, *, n_per_site: int = 6, size_u
         if not path.exists():
             log(f"  writing {path.relative_to(out_dir)} ({shape[1]} x {shape[0]} px at {site['mpp']} µm/px)")
             tmp = path.with_name(".tmp-" + path.name)
-            write_pyramid(tmp, layout.renderer(site["mpp"]), shape=shape, mpp=site["mpp"], tile=256,
-                          compression="jpeg", quality=90, layout=site["layout"], objective=site["objective"])
+            render, icc = layout.renderer(site["mpp"]), None
+            if site.get("profile"):
+                icc = matrix_trc_profile(**site["profile"])
+                render = device_renderer(render, icc)
+            write_pyramid(tmp, render, shape=shape, mpp=site["mpp"], tile=256, compression="jpeg", quality=90,
+                          layout=site["layout"], objective=site["objective"], icc_profile=icc)
             os.replace(tmp, path)
         rows.append(dict(slide_id=d.slide_id, patient_id=d.patient_id, site=d.site, scanner=site["scanner"],
                          label=d.label, pen_marks=d.pens > 0, blank=d.blank))

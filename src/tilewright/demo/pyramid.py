@@ -97,6 +97,7 @@ def write_pyramid(
     resolution_unit: Literal["cm", "inch"] | None = "cm",
     objective: float | None = None,
     strip_rows: int | None = None,
+    icc_profile: bytes | None = None,
 ) -> list[tuple[int, int]]:
     """Write an RGB whole-slide pyramid as a tiled TIFF.
 
@@ -140,6 +141,9 @@ def write_pyramid(
         Objective power recorded (SVS ``AppMag``, OME ``NominalMagnification``).
     strip_rows : int, optional
         Rows rendered per call of the renderer (default: one row of tiles).
+    icc_profile : bytes, optional
+        An ICC profile for the InterColorProfile tag (34675) of level 0: the pixels are then the
+        device RGB that profile describes (the caller converts them).
 
     Returns
     -------
@@ -244,6 +248,8 @@ def write_pyramid(
         if res is not None:
             extra = dict(resolution=res, resolutionunit=unit)
         sub = len(shapes) - 1 if layout in ("subifd", "ome") else 0
+        if icc_profile is not None:
+            extra["iccprofile"] = bytes(icc_profile)
         tw.write(level_data(0), shape=(H, W, 3), subifds=sub or None, metadata=meta,
                  description=desc, **extra, **common)
         if len(shapes) > 1:

@@ -20,13 +20,17 @@ STAIN_TARGET_FILE = "stain_target.json"
 
 
 def run_one(path: str, out_dir: str, config: dict, slide_id: str, mpp: float | None,
-            target: dict | None, overwrite: bool, stop_name: str | None = None) -> dict:
+            target: dict | None, overwrite: bool, stop_name: str | None = None, report=None) -> dict:
     """Tile one slide and return its manifest row; never raises for a bad slide.
 
     This is the unit of work sent to dask workers (arguments are plain, picklable values).
     ``stop_name`` names a ``distributed.Event``: once set, the slide stops at its next block
-    (its temporary store removed) and its row says it was interrupted.
+    (its temporary store removed) and its row says it was interrupted. ``report`` gets the slide's
+    progress events: a callable (in this process) or the name of a dask event topic (on a worker;
+    see :func:`tilewright.run.reporting.slide_reporter`).
     """
+    from tilewright.run.reporting import slide_reporter
+
     from tilewright.run.allocator import steady_heap
 
     steady_heap()  # this process tiles slides: memory that does not grow with them (run/allocator.py)
@@ -34,6 +38,12 @@ def run_one(path: str, out_dir: str, config: dict, slide_id: str, mpp: float | N
     cfg = TilingConfig.from_dict(config)
     final = store_path(out_dir, slide_id)
     stop = _stop_check(stop_name)
+    on_plan, on_tiles, flush = slide_reporter(report, slide_id)
+
+    def on_block(n):
+        on_tiles(n)
+        stop()
+
     try:
         stop()
         normalizer = None
@@ -44,7 +54,7 @@ def run_one(path: str, out_dir: str, config: dict, slide_id: str, mpp: float | N
         done = None if overwrite else _complete_row(final, path, slide_id, cfg, mpp, normalizer)
         if done is not None:
             return done
-        res = tile_slide_row(path, final, cfg, slide_id, mpp, normalizer, stop)
+        res = tile_slide_row(path, final, cfg, slide_id, mpp, normalizer, on_block, on_plan)
     except KeyboardInterrupt as exc:
         if stop_name is None:
             raise  # in this process: Ctrl-C stops the run
@@ -58,6 +68,7 @@ def run_one(path: str, out_dir: str, config: dict, slide_id: str, mpp: float | N
         res = SlideResult(slide_id, path, "failed", f"{path}: unexpected {type(exc).__name__}: "
                           + " ".join(str(exc).split())[:300])
     res.seconds = round(time.perf_counter() - t0, 3)
+    flush()
     return res.to_row()
 
 
@@ -94,10 +105,11 @@ def failure_row(path, slide_id, exc) -> dict:
     return SlideResult(slide_id, str(path), "failed", reason).to_row()
 
 
-def tile_slide_row(path, final, cfg, slide_id, mpp, normalizer, progress=None) -> SlideResult:
+def tile_slide_row(path, final, cfg, slide_id, mpp, normalizer, progress=None, on_plan=None) -> SlideResult:
     from tilewright.run.slide import tile_slide
 
-    res = tile_slide(path, final, cfg, slide_id=slide_id, mpp=mpp, target=normalizer, progress=progress)
+    res = tile_slide(path, final, cfg, slide_id=slide_id, mpp=mpp, target=normalizer, progress=progress,
+                     on_plan=on_plan)
     if res.n_tiles == 0:
         from tilewright.run.skip_reason import skip_reason
         from tilewright.store.reader import open_store
@@ -169,7 +181,7 @@ def _stain_target(paths, out_dir: Path, config: TilingConfig, mpps, compute) -> 
 
 def tile_cohort(paths, out_dir, config: TilingConfig | None = None, *, scheduler=None, workers=None,
                 progress=True, overwrite: bool = False, mpp: dict | float | None = None,
-                on_result=None) -> list[SlideResult]:
+                on_result=None, on_progress=None) -> list[SlideResult]:
     """Tile every slide into ``out_dir`` and keep the manifest current.
 
     Parameters
@@ -187,13 +199,18 @@ def tile_cohort(paths, out_dir, config: TilingConfig | None = None, *, scheduler
     workers : int, optional
         Local worker processes (default 1).
     progress : bool or callable
-        True shows progress on stderr; a callable gets each finished row.
+        True logs a plain line a slide on stderr (``tilewright`` logger) unless ``on_progress`` or
+        ``on_result`` is given; a callable gets each finished row.
     overwrite : bool
         Re-tile slides whose store is already complete.
     mpp : float or dict, optional
         Level-0 µm/px override for all slides (float) or per slide id / path (dict).
     on_result : callable, optional
         Called with each finished manifest row (dict).
+    on_progress : callable, optional
+        Called with every :class:`tilewright.run.events.ProgressEvent` of the run: slides
+        planned, tiles read per block (also from dask workers), slides finished. The same counts
+        go to ``OUT/progress.json`` (rewritten atomically every few seconds).
 
     Returns
     -------
@@ -210,18 +227,17 @@ def tile_cohort(paths, out_dir, config: TilingConfig | None = None, *, scheduler
     (:mod:`tilewright.run.ledger`). A complete store is kept only when this run would write the
     same one (:mod:`tilewright.run.identity`).
     """
+    from tilewright.run.cluster import run_cluster
+    from tilewright.run.events import LogProgress, ProgressEvent, ProgressTracker
     from tilewright.run.execute import execute
     from tilewright.run.ledger import Ledger
     from tilewright.run.lock import output_lock
+    from tilewright.run.reporting import events_from
     from tilewright.run.sources import unique_paths
 
     config = config or TilingConfig()
     if on_result is None and callable(progress):
         on_result = progress
-    elif on_result is None and progress:
-        from tilewright.cli.progress import SlideProgress
-
-        on_result = SlideProgress(len(paths))
     out_dir = Path(out_dir).absolute()  # workers resolve relative paths in their own folder
     try:
         out_dir.mkdir(parents=True, exist_ok=True)
@@ -233,85 +249,39 @@ def tile_cohort(paths, out_dir, config: TilingConfig | None = None, *, scheduler
     paths = [str(Path(p).absolute()) for p in unique_paths(paths)]
     ids = slide_ids(paths)
     mpps = [_mpp_for(mpp, p, i) for p, i in zip(paths, ids)]
-    with output_lock(out_dir), _cluster(scheduler, workers, paths, out_dir, ids) as (client, stop_name):
+    plain = LogProgress() if progress is True and on_progress is None and on_result is None else None
+    with output_lock(out_dir), run_cluster(scheduler, workers, paths, out_dir, ids) as (client, stop_name):
         ledger = Ledger(out_dir, paths, ids, config.to_toml())
+        tracker = ProgressTracker(out_dir, len(paths), [on_progress, plain])
 
         def compute(fn, args_list, on_error):
             return execute(fn, args_list, scheduler=scheduler, workers=workers, on_error=on_error,
                            stop_name=stop_name, client=client)
 
+        state = "interrupted"
         try:
             target = _stain_target(paths, out_dir, config, mpps, lambda fn, a: [
                 r for _, r in compute(fn, a, lambda i, exc: None)])  # a slide that fails here fails later
-            args = [(p, str(out_dir), config.to_dict(), sid, m, target, overwrite, stop_name)
-                    for p, sid, m in zip(paths, ids, mpps)]
-            ledger.started = True
-            results = compute(run_one, args, lambda i, exc: failure_row(paths[i], ids[i], exc))
-            try:
-                for i, row in results:
-                    ledger.record(row)
-                    if on_result is not None:
-                        on_result(row)
-            finally:
-                results.close()  # running tasks stopped and waited for before the sweep below
+            tracker(ProgressEvent("start", count=len(paths)))
+            with events_from(client, tracker) as report:
+                args = [(p, str(out_dir), config.to_dict(), sid, m, target, overwrite, stop_name, report)
+                        for p, sid, m in zip(paths, ids, mpps)]
+                ledger.started = True
+                results = compute(run_one, args, lambda i, exc: failure_row(paths[i], ids[i], exc))
+                try:
+                    for i, row in results:
+                        ledger.record(row)
+                        tracker(ProgressEvent("slide", row["slide_id"], row=row))
+                        if on_result is not None:
+                            on_result(row)
+                finally:
+                    results.close()  # running tasks stopped and waited for before the sweep
+            state = "finished"
         finally:
             ledger.write()
+            if ledger.started:
+                tracker.close(state)
     return [SlideResult(**{k: r[k] for k in SlideResult.__dataclass_fields__}) for r in ledger.rows()]
-
-
-def _sweep_partials(out_dir: Path, ids) -> None:
-    """Remove temporary stores a stopped or killed worker left (this run holds the folder's lock)."""
-    from tilewright.store.writer import remove_partials
-
-    for sid in ids:
-        remove_partials(store_path(out_dir, sid))
-
-
-class _cluster:
-    """The dask client of a run on workers (None in this process) and the name of its stop event;
-    workers are checked to see the slides and the output folder first."""
-
-    def __init__(self, scheduler, workers, paths, out_dir, ids):
-        self.args = (scheduler, workers, paths, out_dir)
-        self.ids = ids
-        self.client = self.cluster = None
-        self.own = False
-
-    def __enter__(self):
-        import uuid
-
-        scheduler, workers, paths, out_dir = self.args
-        if scheduler is None and (workers or 1) <= 1:
-            return None, None
-        from tilewright.run.execute import connect, local_cluster
-
-        if scheduler is not None:
-            self.client = connect(scheduler)
-            self.own = self.client is not scheduler
-            from tilewright.run.workers_check import check_workers
-
-            try:
-                check_workers(self.client, paths, out_dir)
-            except BaseException:
-                self.__exit__(None, None, None)
-                raise
-        else:
-            from distributed import Client
-
-            self.cluster = local_cluster(workers)
-            self.client, self.own = Client(self.cluster), True
-        return self.client, f"tilewright-stop-{uuid.uuid4().hex}"
-
-    def __exit__(self, *exc):
-        try:
-            if self.own and self.client is not None:
-                self.client.close()
-            if self.cluster is not None:
-                self.cluster.close()  # local workers end here: nothing writes any more
-        finally:
-            if self.client is not None:
-                _sweep_partials(self.args[3], self.ids)
-        return False
 
 
 def _mpp_for(mpp, path, slide_id):

@@ -15,6 +15,7 @@ __all__ = ["TilingConfig"]
 
 _NORMALIZERS = (None, "macenko", "reinhard")
 _COMPRESSIONS = ("lz4", "zstd", "zlib", "none")
+_COLOUR_PROFILES = ("apply", "ignore")
 
 
 @dataclass
@@ -82,6 +83,11 @@ class TilingConfig:
         Check every decoded JPEG source tile for damage decoders pass silently (on by default;
         see :func:`tilewright.open`): a damaged slide fails with the tile named instead of
         storing garbage pixels. ``False`` skips the check (faster JPEG decoding, garbage kept).
+    colour_profile : {"apply", "ignore"}
+        ``"apply"`` converts pixels from each slide's embedded ICC profile to sRGB before the
+        mask, stain estimate and tiles see them (see :mod:`tilewright.slide.colour`);
+        ``"ignore"`` keeps the files' raw pixels. It changes tiles: a complete store made with
+        the other value is not mixed in on resume.
     """
 
     mpp: float = 0.5
@@ -111,6 +117,7 @@ class TilingConfig:
     threads: int = 2
     qc_overlay: bool = True
     verify_jpeg: bool = True
+    colour_profile: str = "apply"
     extra: dict = field(default_factory=dict, repr=False)
 
     def __post_init__(self):
@@ -149,6 +156,8 @@ class TilingConfig:
             raise ConfigError(f"normalizer must be macenko, reinhard or none, got {self.normalizer!r}")
         if self.compression not in _COMPRESSIONS:
             raise ConfigError(f"compression must be one of {', '.join(_COMPRESSIONS)}, got {self.compression!r}")
+        if self.colour_profile not in _COLOUR_PROFILES:
+            raise ConfigError(f"colour_profile must be apply or ignore, got {self.colour_profile!r}")
         self._validate_regions()
         if self.reference is not None and not isinstance(self.reference, (str, dict, os.PathLike)):
             raise ConfigError(f"reference must be an image path or a fitted normalizer dict, got {type(self.reference).__name__}")

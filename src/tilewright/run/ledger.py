@@ -98,8 +98,10 @@ def store_row(out_dir: Path, slide_id: str, path: str) -> dict | None:
     from tilewright.run.skip_reason import skip_reason
 
     n = int(a.get("n_tiles", 0))
+    from tilewright.slide.colour import colour_label
+
     return SlideResult(slide_id, path, "ok" if n else "skipped", "" if n else skip_reason(a), n, a.get("mpp_source"), a.get("objective"), a.get("source_level"), 0.0,
-                       str(final)).to_row()
+                       str(final), colour_label(a.get("colour_profile"))).to_row()
 
 
 def _replace_text(path: Path, text: str) -> None:

@@ -34,6 +34,7 @@ class SlideResult:
     source_level: int | None = None
     seconds: float = 0.0
     store: str = ""
+    colour_profile: str = ""  # ColourInfo.label: "none", the applied profile, or "... (ignored)"
 
     def to_row(self) -> dict:
         return asdict(self)
@@ -89,7 +90,7 @@ def _tile_arrays(view, plan, config, bind, writer, progress):
 
 def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str | None = None,
                mpp: float | None = None, target=None, regions=None, overwrite: bool = True,
-               progress=None) -> SlideResult:
+               progress=None, on_plan=None) -> SlideResult:
     """Tile one slide into a complete zarr store.
 
     Open → tissue mask → tile plan → read in large blocks → normalize with one slide-level stain
@@ -117,6 +118,9 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
         Replace an existing store.
     progress : callable, optional
         Called with the number of tiles done after each block.
+    on_plan : callable, optional
+        Called once, before any tile is read, with the number of planned tiles and the source
+        megapixels (level-0 pixels) one tile covers.
 
     Notes
     -----
@@ -140,11 +144,13 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
     out = Path(out)
     final = out if out.suffix == ".zarr" else out / f"{slide_id}.zarr"
     remove_partials(final)
-    with open_slide(path, mpp=mpp, verify=config.verify_jpeg) as slide:
+    with open_slide(path, mpp=mpp, verify=config.verify_jpeg, colour_profile=config.colour_profile) as slide:
         view = slide.at_mpp(config.mpp, tolerance=config.tolerance)
         survey = _survey(slide, view, config, slide_id, path, regions, target)
         plan, attrs = survey.plan, survey.attrs
         release_free()  # the survey's temporaries are gone: start the tile pipeline on a clean heap
+        if on_plan is not None:
+            on_plan(len(plan), (config.tile * view.scale) ** 2 / 1e6)
         try:
             with StoreWriter(final, len(plan), config.tile, shard_tiles=config.shard_tiles,
                              compression=config.compression, with_region=attrs["regions"] is not None) as writer, \
@@ -171,7 +177,7 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
         return SlideResult(slide_id=slide_id, source=str(path), status="ok", n_tiles=int(n),
                            mpp_source=float(slide.mpp), objective=slide.objective,
                            source_level=int(view.source_level), seconds=round(time.perf_counter() - t0, 3),
-                           store=str(final))
+                           store=str(final), colour_profile=slide.colour.label)
 
 
 def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNamespace:
@@ -219,6 +225,7 @@ def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNames
         "order": "blocks of config.block target px, row-major; row-major inside a block",
         "config": _jsonable(config.to_dict()),
         "library_version": tilewright.__version__,
+        "colour_profile": _colour_provenance(slide),
     }
     mask.clear_cache()
     maps = (thumbnail[: mask_arr.shape[0], : mask_arr.shape[1]], mask_arr, {"ink": np.asarray(mask.ink, dtype=bool)})
@@ -228,6 +235,12 @@ def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNames
 
         draw = overlay_base(thumbnail[..., :3], mask.mpp)
     return SimpleNamespace(plan=plan, glass=glass, attrs=attrs, maps=maps, draw=draw, mask=mask)
+
+
+def _colour_provenance(slide) -> dict:
+    """Whether the slide's ICC profile was applied, its description, SHA-256, ... (store attribute)."""
+    transform = getattr(slide, "colour_transform", None)
+    return transform.provenance() if transform is not None else slide.colour.to_dict()
 
 
 def _aside(writer, maps, draw, mask, plan, path, slide_id):

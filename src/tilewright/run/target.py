@@ -38,7 +38,7 @@ def slide_estimate(path: str, config: dict, mpp: float | None) -> dict | None:
 
     cfg = TilingConfig.from_dict(config)
     try:
-        with open_slide(path, mpp=mpp, verify=cfg.verify_jpeg) as slide:
+        with open_slide(path, mpp=mpp, verify=cfg.verify_jpeg, colour_profile=cfg.colour_profile) as slide:
             view = slide.at_mpp(cfg.mpp, tolerance=cfg.tolerance)
             thumbnail = slide.thumbnail(cfg.mask_mpp)  # read once: the mask and the glass colour share it
             mask = tissue_mask(thumbnail, mpp=cfg.mask_mpp, exclude_ink=cfg.exclude_ink, exclude_dark=cfg.exclude_dark)

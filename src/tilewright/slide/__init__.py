@@ -16,6 +16,10 @@ openslide_backend  every format OpenSlide reads.
 resolution         µm/px and objective from TIFF tags, OME-XML, Aperio descriptions,
                    OpenSlide properties; plausibility checks.
 sniff              missing / empty / not-an-image checks before any decoder runs.
+colour             the embedded ICC profile: read (TIFF tag, OpenSlide), checked, provenance,
+                   and its conversion to sRGB (``colour_transform``: profile bytes in).
+colour_icc         ICC header and tag-table checks (RGB device profile, tags inside, a mapping).
+colour_lut         the conversion as a table of every 8-bit colour, built once with LittleCMS.
 
 Nothing here is imported by ``import tilewright``; openslide is imported only when the
 OpenSlide backend is used.

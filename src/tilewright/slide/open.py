@@ -10,6 +10,7 @@ from tilewright.errors import (
     SlideTooLargeError,
     UnsupportedSlideError,
 )
+from tilewright.slide.colour import MODES, slide_colour
 from tilewright.slide.resolution import checked_mpp
 from tilewright.slide.sniff import MAX_PIXELS, MAX_SIDE, sniff
 from tilewright.slide.wholeslide import WholeSlide
@@ -20,7 +21,7 @@ _BACKENDS = ("auto", "tiff", "dicom", "openslide")
 
 
 def open(path: str | os.PathLike, *, mpp: float | None = None,
-             backend: str = "auto", verify: bool = True) -> WholeSlide:
+             backend: str = "auto", verify: bool = True, colour_profile: str = "apply") -> WholeSlide:
     """Open a whole-slide image.
 
     Parameters
@@ -47,6 +48,11 @@ def open(path: str | os.PathLike, *, mpp: float | None = None,
         subsampling (4:4:4, RGB) and about 65 % for YCbCr 4:2:0 tiles (``benchmarks/jpeg_verify.py``);
         ``False`` returns damaged tiles as the decoder makes them (garbage, no error).
         OpenSlide applies its own strict checks regardless.
+    colour_profile : {"apply", "ignore"}
+        ``"apply"`` converts every pixel read from the file's embedded ICC profile (TIFF tag
+        InterColorProfile, or the profile OpenSlide finds) to sRGB, relative colorimetric (see
+        :mod:`tilewright.slide.colour`); a slide without a profile is read as it is.
+        ``"ignore"`` returns the file's raw pixels, bit for bit.
 
     Returns
     -------
@@ -65,6 +71,9 @@ def open(path: str | os.PathLike, *, mpp: float | None = None,
         No µm/px recorded and none given, or a value outside 0.05-20 µm/px.
     SlideTooLargeError
         Declared dimensions are absurd (refused before any allocation).
+    ColourProfileError
+        ``colour_profile="apply"`` and the embedded profile is damaged or is not an RGB device
+        profile (the message says to use ``"ignore"``).
 
     Examples
     --------
@@ -75,6 +84,8 @@ def open(path: str | os.PathLike, *, mpp: float | None = None,
     """
     if backend not in _BACKENDS:
         raise ValueError(f"backend must be one of {_BACKENDS}, got {backend!r}")
+    if colour_profile not in MODES:
+        raise ValueError(f"colour_profile must be one of {MODES}, got {colour_profile!r}")
     path = os.fspath(path)
     series = None
     if os.path.isdir(path):
@@ -100,10 +111,12 @@ def open(path: str | os.PathLike, *, mpp: float | None = None,
                 f"{MAX_SIDE} px a side / {MAX_PIXELS:.0e} px; the header is likely corrupt",
                 path)
         resolution = checked_mpp(reader.resolution, mpp, path)
+        colour = slide_colour(getattr(reader, "icc_profile", None), colour_profile, path)
     except BaseException:
         reader.close()
         raise
-    return WholeSlide(path, reader, resolution, mpp_override=mpp, requested_backend=backend, verify=verify)
+    return WholeSlide(path, reader, resolution, mpp_override=mpp, requested_backend=backend, verify=verify,
+                      colour=colour, colour_mode=colour_profile)
 
 
 def _open_reader(path: str, kind: str, backend: str, mpp: float | None, verify: bool = True,
@@ -181,5 +194,5 @@ def _dicom_reader(series, path: str, backend: str, verify: bool, shown: str):
             "series; convert it to pyramidal tiled TIFF or OME-TIFF", shown) from exc
 
 
-def _reopen(path, mpp, backend, verify=True):
-    return open(path, mpp=mpp, backend=backend, verify=verify)
+def _reopen(path, mpp, backend, verify=True, colour_profile="apply"):
+    return open(path, mpp=mpp, backend=backend, verify=verify, colour_profile=colour_profile)

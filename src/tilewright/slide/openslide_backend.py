@@ -22,6 +22,7 @@ import threading
 import numpy as np
 
 from tilewright.errors import DamagedSlideError, UnsupportedSlideError
+from tilewright.slide.colour import openslide_profile
 from tilewright.slide.resolution import Resolution, mpp_from_openslide
 
 __all__ = ["OpenSlideBackend"]
@@ -62,6 +63,7 @@ class OpenSlideBackend:
         self._downsamples = [float(d) for d in self._slide.level_downsamples]
         self.resolution: Resolution = mpp_from_openslide(self._slide.properties)
         self.flavour = self._slide.properties.get("openslide.vendor", "unknown")
+        self.icc_profile = openslide_profile(self._slide)  # what OpenSlide found, or None
         self._scratch = threading.local()  # per reader thread: the ARGB buffer OpenSlide fills
         self._fill = _region_filler(self._slide)
 

@@ -13,6 +13,7 @@ from __future__ import annotations
 import numpy as np
 
 from tilewright.errors import DamagedSlideError, SlideError, SlideTooLargeError, UnsupportedSlideError
+from tilewright.slide import colour as _colour
 from tilewright.slide.sniff import MAX_PIXELS, MAX_SIDE
 from tilewright.slide.tiff_pages import discover
 from tilewright.slide.tiff_pixels import page_converter
@@ -96,7 +97,7 @@ class TiffBackend(GridReader):
         except Exception as exc:  # the header said TIFF: any parse failure means damage
             raise DamagedSlideError(f"the TIFF structure cannot be parsed ({exc})", path) from exc
         try:
-            self._levels, self.resolution, self.flavour, found = self._inspect(tf, path)
+            self._levels, self.resolution, self.flavour, found, self.icc_profile = self._inspect(tf, path)
             #: Associated images kept apart from the pyramid: name -> (height, width).
             self.associated = {k: (int(p.imagelength), int(p.imagewidth)) for k, p in found.items()}
         except SlideError:
@@ -134,7 +135,8 @@ class TiffBackend(GridReader):
             if problem is None:  # a reduced level stored in huge strips: finer levels serve it
                 levels.append(_Level(page, i, None if sizes is None else sizes[i]))
         flavour = "ome" if tf.is_ome else "svs" if tf.is_svs else "philips" if tf.is_philips else "tiff"
-        return levels, pyramid.resolution, flavour, pyramid.associated
+        icc = _colour.tiff_profile(pyramid.levels[0])  # InterColorProfile of level 0, or None
+        return levels, pyramid.resolution, flavour, pyramid.associated, icc
 
     # -- pixels ------------------------------------------------------------------------
     def read(self, level: int, y: int, x: int, h: int, w: int, out: np.ndarray) -> None:

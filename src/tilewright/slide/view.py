@@ -125,12 +125,12 @@ class ResampledView:
                 bw = min(cols, w - bx)
                 sx0, sx1 = source_span(x + bx, bw, s)
                 src = self.slide.read_level(level, sy0, sx0, sy1 - sy0, sx1 - sx0,
-                                            out=self._strip(sy1 - sy0, sx1 - sx0))
+                                            out=self._strip(sy1 - sy0, sx1 - sx0), raw=True)
                 dst = out[by : by + bh, bx : bx + bw]
                 area_downsample(src, y + by, x + bx, bh, bw, s, sy0, sx0, out=dst,
                                 weights=weights)
             by += bh
-        return out
+        return self.slide.to_srgb(out)  # device RGB averaged, then converted (as the file's own levels)
 
     def _strip(self, h: int, w: int) -> np.ndarray:
         """A (h, w, 3) uint8 work array of this thread, reused from read to read."""
@@ -202,7 +202,7 @@ class ResampledView:
 
         adapter = _DaskAdapter(self)
         name = "tilewright-view-" + tokenize(self.slide.path, self.mpp, self.source_level,
-                                             self.scale, chunk)
+                                             self.scale, chunk, self.slide.colour.applied)
         return da.from_array(adapter, chunks=(chunk, chunk, 3), name=name, lock=False,
                              asarray=False, fancy=False,
                              meta=np.empty((0, 0, 0), np.uint8))

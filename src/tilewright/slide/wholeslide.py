@@ -9,6 +9,7 @@ from typing import NamedTuple
 import numpy as np
 
 from tilewright.errors import ResolutionUnavailableError, SlideError  # noqa: F401 (re-exported)
+from tilewright.slide.colour import ColourInfo
 from tilewright.slide.resolution import Resolution
 
 __all__ = ["WholeSlide", "Level", "ResolutionUnavailableError"]
@@ -51,6 +52,13 @@ class WholeSlide:
         (height, width) of level 0.
     levels : tuple of Level
         Every pyramid level, finest first.
+    colour_profile : str or None
+        Description of the file's embedded ICC profile (None without one).
+    colour : ColourInfo
+        The profile's provenance: embedded, applied, SHA-256, ... (see
+        :mod:`tilewright.slide.colour`). When applied, every pixel read is sRGB.
+    colour_transform : ColourTransform or None
+        The conversion reads apply (None: pixels as stored).
 
     Notes
     -----
@@ -60,14 +68,17 @@ class WholeSlide:
     """
 
     def __init__(self, path: str, reader, resolution: Resolution, *,
-                 mpp_override: float | None = None, requested_backend: str = "auto", verify: bool = True):
+                 mpp_override: float | None = None, requested_backend: str = "auto", verify: bool = True,
+                 colour=None, colour_mode: str = "apply"):
         self.path = path
         self._reader = reader
         self.backend = reader.name
         self.mpp = float(resolution.mpp)
         self.objective = resolution.objective
         self.mpp_source = resolution.source
-        self._open_args = (mpp_override, requested_backend, verify)
+        self._open_args = (mpp_override, requested_backend, verify, colour_mode)
+        self.colour, self.colour_transform = colour if colour is not None else (ColourInfo(), None)
+        self.colour_profile = self.colour.description if self.colour.embedded else None
         h0, w0 = reader.level_shapes[0]
         self.dimensions = (h0, w0)
         levels = []
@@ -108,7 +119,7 @@ class WholeSlide:
         return self._reader.tile_shape(level)
 
     def read_level(self, level: int, y: int, x: int, h: int, w: int,
-                   out: np.ndarray | None = None) -> np.ndarray:
+                   out: np.ndarray | None = None, *, raw: bool = False) -> np.ndarray:
         """Pixels ``[y, y+h) x [x, x+w)`` of one level, white outside the level.
 
         Parameters
@@ -119,6 +130,9 @@ class WholeSlide:
             Box in that level's pixels; may extend past the edges.
         out : ndarray, optional
             uint8 (h, w, 3) array to fill (may be a view).
+        raw : bool
+            Return the file's device RGB even when its profile is applied (views average these
+            and convert their output with :meth:`to_srgb`).
 
         Returns
         -------
@@ -146,7 +160,15 @@ class WholeSlide:
         if ya < yb and xa < xb:
             self._reader.read(level, ya, xa, yb - ya, xb - xa,
                               out[ya - y : yb - y, xa - x : xb - x])
-        return out
+        return out if raw else self.to_srgb(out)
+
+    def to_srgb(self, rgb: np.ndarray) -> np.ndarray:
+        """Convert device RGB read with ``raw=True`` to what reads return, in place.
+
+        sRGB when the slide's profile is applied (see :mod:`tilewright.slide.colour`); a no-op
+        without a profile or with ``colour_profile="ignore"``. Returns ``rgb``.
+        """
+        return rgb if self.colour_transform is None else self.colour_transform.apply(rgb)
 
     # -- resolution ---------------------------------------------------------------------
     def choose_level(self, mpp: float, tolerance: float = 0.05) -> int:

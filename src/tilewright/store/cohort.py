@@ -12,7 +12,7 @@ from tilewright.errors import StoreError
 __all__ = ["MANIFEST_COLUMNS", "write_manifest", "read_manifest", "Cohort", "open_cohort"]
 
 MANIFEST_COLUMNS = ["slide_id", "source", "status", "error", "n_tiles", "mpp_source", "objective",
-                    "source_level", "seconds"]
+                    "source_level", "seconds", "colour_profile"]
 
 
 def write_manifest(out_dir: str | os.PathLike, rows: list[dict]) -> "object":
@@ -26,6 +26,7 @@ def write_manifest(out_dir: str | os.PathLike, rows: list[dict]) -> "object":
             df[col] = None
     df = df[MANIFEST_COLUMNS].copy()
     df["error"] = df["error"].fillna("").astype(str)
+    df["colour_profile"] = df["colour_profile"].fillna("").astype(str)
     df["n_tiles"] = df["n_tiles"].fillna(0).astype("int64")
     for col in ("mpp_source", "objective", "seconds"):
         df[col] = pd.to_numeric(df[col], errors="coerce").astype("float64")
