@@ -183,15 +183,26 @@ def test_thumbnail_instance_is_associated_not_a_level(series):
             assert s._reader.associated == {"thumbnail": want} == {"thumbnail": vc.reduce_to(IMG, 32).shape[:2]}
 
 
-def test_icc_profile_of_the_optical_path_is_exposed(series):
-    from PIL import ImageCms
+@pytest.mark.parametrize("backend", ["dicom", "openslide"])
+def test_icc_profile_of_the_optical_path_converts_reads(series, backend):
+    import hashlib
 
-    icc = ImageCms.ImageCmsProfile(ImageCms.createProfile("sRGB")).tobytes()  # LittleCMS's sRGB profile
-    folder, _ = series("icc", levels=LEVELS[:2], icc_profile=icc)
-    with tw.open(folder, backend="dicom") as s:
-        assert s._reader.icc_profile == icc  # ground truth: the bytes written into OpticalPathSequence
+    from colour_refs import delta_e, lcms_reference
+    from tilewright.demo import icc
+
+    wide = icc.matrix_trc_profile(**icc.SCANNER_B)
+    folder, _ = series("icc", levels=LEVELS[:2], codec="jpeg2000", icc_profile=wide)
+    with tw.open(folder, backend=backend) as s:
+        # ground truth: the bytes written into the optical path (OpenSlide: an independent reader of them)
+        assert s.colour.sha256 == hashlib.sha256(wide).hexdigest() and s.colour.applied
+        assert s.colour_profile == icc.SCANNER_B["description"]
+        got = s.read_level(0, 0, 0, 1200, 1610)
+    d = delta_e(got, lcms_reference(wide, IMG))  # reference: LittleCMS via Pillow ImageCms on the pixels written
+    assert d.mean() <= 1.0 and np.percentile(d, 99) <= 2.5
+    with tw.open(folder, backend=backend, colour_profile="ignore") as s:
+        np.testing.assert_array_equal(s.read_level(0, 0, 0, 1200, 1610), IMG)  # raw: lossless frames as written
     with tw.open(series("jpeg-full")[0]) as s:
-        assert s._reader.icc_profile is None
+        assert s._reader.icc_profile is None and s.colour_profile is None
 
 
 def test_reads_touch_only_the_frames_needed(series, monkeypatch):
