@@ -71,16 +71,17 @@ def dicom_copy(tiff: Path) -> Path:
     return folder
 
 
-def plan(path):
-    """Planned tile corners at 0.5 µm/px on ``path`` (the same for every copy of the pixels)."""
+def plan_for(path):
+    """Planned tile corners at 0.5 µm/px on ``path`` (the same for every copy of the pixels), and
+    the view's scale (level-0 px per target px)."""
     import tilewright as tw
 
     cfg = tw.TilingConfig(mpp=MPP, tile=TILE)
     with tw.open(path) as slide:
         view = slide.at_mpp(cfg.mpp)
         mask = tw.tissue_mask(slide, mpp=cfg.mask_mpp)
-        p = tw.plan_tiles(view, mask, tile=cfg.tile, min_tissue=cfg.min_tissue)
-        return p.yx, view.scale
+        plan = tw.plan_tiles(view, mask, tile=cfg.tile, min_tissue=cfg.min_tissue)
+        return plan.yx, view.scale
 
 
 def read_planned(path, yx, *, backend="auto", threads=1, compare=None, sample_states=False):
@@ -152,7 +153,7 @@ def main(argv=None):
     args = ap.parse_args(argv)
     tiff = bench_slide(24576, 20480)
     series = dicom_copy(tiff)
-    yx, _ = plan(tiff)
+    yx, _ = plan_for(tiff)
     ref = tiles_of(tiff, yx)
     print(f"{len(yx)} planned tiles; max |tile difference| from the TIFF path: DICOM fast path "
           f"{read_planned(series, yx, compare=ref)[2]}, OpenSlide on the series "

@@ -56,21 +56,10 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 import numpy as np  # noqa: E402
 
 from fixtures import bench_slide, peak_rss_mib_of, profiled_copy, slide_copies  # noqa: E402
-from formats import dicom_copy, read_planned, tiles_of  # noqa: E402
+from formats import dicom_copy, plan_for, read_planned, tiles_of  # noqa: E402
 
 TILE, MPP = 256, 0.5
 CPU = [None]  # CPU seconds of this process during the last measurement (None: other processes worked)
-
-
-def plan_for(path):
-    import tilewright as tw
-
-    cfg = tw.TilingConfig(mpp=MPP, tile=TILE)
-    with tw.open(path) as slide:
-        view = slide.at_mpp(cfg.mpp)
-        mask = tw.tissue_mask(slide, mpp=cfg.mask_mpp)
-        plan = tw.plan_tiles(view, mask, tile=cfg.tile, min_tissue=cfg.min_tissue)
-        return plan.yx, view.scale
 
 
 def raw_decode(path, yx, scale):
