@@ -45,7 +45,8 @@ class WholeSlide:
     mpp : float
         Level-0 µm/px.
     mpp_source : str
-        Where ``mpp`` came from: "override", "ome", "aperio", "tiff-tags", "dicom" or "openslide".
+        Where ``mpp`` came from: "override", "ome", "aperio", "tiff-tags", "imagej", "philips", "dicom" or
+        "openslide".
     objective : float or None
         Objective power recorded by the scanner.
     dimensions : (int, int)
