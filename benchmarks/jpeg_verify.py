@@ -148,10 +148,11 @@ def _sentinel_only(backend, lv, tile) -> bool:
 
 
 def main() -> int:
-    import tilewright.slide.tiff_backend as tb
-    from tilewright.slide.tiff_backend import TiffBackend, _jpeg_intact
+    import tilewright.slide.jpeg_strict as strict
+    from tilewright.slide.tiff_backend import TiffBackend
+    from tilewright.slide.tile_grid import _jpeg_intact
 
-    strict, available = tb._strict, tb._strict.available
+    available = strict.available
 
     with tempfile.TemporaryDirectory() as tmp:
         slides = _slides(Path(tmp))

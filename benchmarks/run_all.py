@@ -7,6 +7,7 @@ levels at downsample 1, 4, 16 (so 0.5 µm/px is computed from level 0 by everyon
 * main: 24576 x 20480 px, ~1/3 tissue (4 islands), JPEG in YCbCr 4:2:0 (tifffile's default);
 * the same pixels as RGB JPEG without subsampling (4:4:4, as some scanners write; 3x the bytes);
 * 4 names (hard links) of main, for the 1-worker / 2-worker comparison;
+* main's own JPEG tiles stored as the frames of a DICOM WSI series (no re-encoding: same pixels);
 * a copy of main whose level 0 also carries an ICC profile (the demo's wide-gamut scanner-B
   profile): the same pixels, converted to sRGB on reading (colour management's cost);
 * memory: 20480 x 16384 and 61440 x 51200 px, mostly glass with tissue islands of ~1.2 mm.
@@ -19,6 +20,11 @@ hand loop     OpenSlide read_region(512 px, level 0) per tile, cv2 INTER_AREA to
 tile-out      tile_cohort (what the tile-out command runs) with the given workers/threads, QC
               overlay on, timed end to end (mask, plan, reads, normalization, store, manifest);
               "progress bar drawn": the same with tile-out's terminal display fed every event.
+read          the planned tiles read as tile-out's reader threads read them (blocks of a view at
+              0.5 µm/px), from the TIFF, the DICOM series (frame backend), the series through
+              OpenSlide (see benchmarks/formats.py; it also estimates the OpenSlide path's use of
+              two threads from the reader threads' states, which the load of a shared machine
+              does not change).
 
 Then, on the stores the lz4 and jpeg rows wrote: random reads against the chunk codec alone and
 zarr-python's own read (``store_reads.py``); and the codec table on the demo tiles: bytes,
@@ -56,20 +62,10 @@ import numpy as np  # noqa: E402
 import compression  # noqa: E402
 import store_reads  # noqa: E402
 from fixtures import bench_slide, demo_tiles, peak_rss_mib_of, profiled_copy, slide_copies  # noqa: E402
+from formats import dicom_copy, plan_for, read_planned, tiles_of  # noqa: E402
 
 TILE, MPP = 256, 0.5
 CPU = [None]  # CPU seconds of this process during the last measurement (None: other processes worked)
-
-
-def plan_for(path):
-    import tilewright as tw
-
-    cfg = tw.TilingConfig(mpp=MPP, tile=TILE)
-    with tw.open(path) as slide:
-        view = slide.at_mpp(cfg.mpp)
-        mask = tw.tissue_mask(slide, mpp=cfg.mask_mpp)
-        plan = tw.plan_tiles(view, mask, tile=cfg.tile, min_tissue=cfg.min_tissue)
-        return plan.yx, view.scale
 
 
 def raw_decode(path, yx, scale):
@@ -183,6 +179,20 @@ def store_bytes(store):
     return sum(f.stat().st_size for f in files)
 
 
+def _largest_difference(tiff, series, yx, tiff_store, dicom_store):
+    """Largest absolute difference of the planned tiles read from the DICOM series (fast path, then
+    OpenSlide) and of the stored tiles, against the TIFF path's."""
+    import tilewright as tw
+
+    ref = tiles_of(tiff, yx)
+    fast = read_planned(series, yx, compare=ref)[2]
+    slow = read_planned(series, yx, backend="openslide", compare=ref)[2]
+    a, b = tw.open_store(tiff_store), tw.open_store(dicom_store)
+    stored = max(int(np.abs(a[i:i + 64].astype(np.int16) - b[i:i + 64]).max()) for i in range(0, len(a), 64)) \
+        if len(a) == len(b) and np.array_equal(a.yx, b.yx) else "plans differ"
+    return fast, slow, stored
+
+
 def local_client(n, warm_slide, warm_dir):
     """The local cluster ``tile-out --workers n`` starts, its workers warmed up like this process
     (modules imported, a few tiles cut), as they are through most of a long cohort run."""
@@ -222,6 +232,7 @@ def main(argv=None):
         big = bench_slide(61440, 51200, islands=6, island_um=1200)
     rgb_slide = bench_slide(24576, 20480, jpeg_colours="rgb")
     copies = slide_copies(main_slide, args.copies)
+    series = dicom_copy(main_slide)
     from tilewright.demo.icc import SCANNER_B, matrix_trc_profile
 
     icc_slide = profiled_copy(main_slide, matrix_trc_profile(**SCANNER_B), "scanner-b-icc")
@@ -240,6 +251,12 @@ def main(argv=None):
         def run():
             sec, _ = raw_decode(path, yx, scale)
             return sec, n, CPU[0]
+        return run
+
+    def reader(path, backend, threads):
+        def run():
+            sec, cpu, _ = read_planned(path, yx, backend=backend, threads=threads)
+            return sec, n, cpu
         return run
 
     def out(paths, name, cfg, workers=None, target=None, shown=False):
@@ -300,6 +317,15 @@ def main(argv=None):
             ("rgbraw", "raw decode, RGB-JPEG copy of the slide, 1 thread", raw(rgb_slide), src_mp,
              "same pixels, RGB JPEG 4:4:4"),
             ("rgb", "tile-out, 1 worker (threads=2), RGB-JPEG copy", out([rgb_slide], "rgb", base), src_mp, "defaults"),
+            ("t1", "tile-out, 1 worker (threads=1), tiled TIFF", out([main_slide], "t1", one), src_mp, "one core"),
+            ("dcm1", "tile-out, 1 worker (threads=1), DICOM series", out([series], "dcm1", one), src_mp,
+             "same JPEG tiles as frames"),
+            ("rtif", "read planned tiles, tiled TIFF, 1 thread", reader(main_slide, "auto", 1), src_mp, "tiff backend"),
+            ("rdcm", "read planned tiles, DICOM series, 1 thread", reader(series, "auto", 1), src_mp, "dicom backend"),
+            ("ros1", "read planned tiles, DICOM via OpenSlide, 1 thread", reader(series, "openslide", 1), src_mp,
+             "OpenSlide backend"),
+            ("ros2", "read planned tiles, DICOM via OpenSlide, 2 threads", reader(series, "openslide", 2), src_mp,
+             "wall clock: starved on a loaded machine"),
         ]
         for r in range(args.rounds):  # every row once a round: drifting load hits all rows alike
             for key, _, run, _, _ in rows:
@@ -309,6 +335,9 @@ def main(argv=None):
                         results[key] = [(sec, n, CPU[0])]
                     continue
                 results.setdefault(key, []).append(run())
+        same_tiles = _largest_difference(main_slide, series, yx, results["t1:res"][0].store, results["dcm1:res"][0].store)
+        _, _, two = read_planned(series, yx, backend="openslide", threads=2, sample_states=True)
+        _, _, single = read_planned(series, yx, backend="openslide", threads=1, sample_states=True)
         bytes_per_tile = store_bytes(results["tw:res"][0].store) / n
         zstd_bytes = store_bytes(results["zstd:res"][0].store) / n
         codec_bytes = {k: store_bytes(results[k + ":res"][0].store) / n for k in ("jpeg", "webp")}
@@ -354,6 +383,11 @@ def main(argv=None):
         print(f"{label:<58}{tiles:>6d}{sec:>7.2f}{tiles / sec:>8.0f}{mp / sec:>9.1f}{mp / sec / loop_rate:>7.2f}"
               f"{mp / sec / raw_rate:>6.2f}{cpu_txt}  {note}")
     print("-" * len(head))
+    print(f"same pixels, other readers: largest |tile difference| from the TIFF path: DICOM fast path "
+          f"{same_tiles[0]}, DICOM through OpenSlide {same_tiles[1]}; stored tiles (tile-out, TIFF vs DICOM) "
+          f"{same_tiles[2]}")
+    print(f"OpenSlide path, share of the time each reader thread is runnable (not waiting for the GIL or a "
+          f"lock): 2 threads {', '.join(f'{v:.2f}' for v in two)}; 1 thread {single[0]:.2f}")
     print(f"stored bytes per tile: default blosc-lz4 {bytes_per_tile:,.0f} "
           f"({100 * bytes_per_tile / (TILE * TILE * 3):.0f} % of raw {TILE * TILE * 3:,}); "
           f"blosc-zstd {zstd_bytes:,.0f} ({100 * zstd_bytes / (TILE * TILE * 3):.0f} %); "
@@ -383,6 +417,10 @@ def main(argv=None):
         ("tile-out jpeg q90 / tile-out lz4", ratio("jpeg", "tw"), ">= 0.8", 0.8),
         ("progress display extra time, %", 100 * (ratio("tw", "shown") - 1), "< 2", -2),
         ("2 workers / 1 worker (1 thread each)", ratio("d2", "in1"), ">= 1.7", 1.7),
+        ("DICOM fast path / TIFF, tile-out 1 thread", ratio("dcm1", "t1"), ">= 0.8", 0.8),
+        ("  the same, reading the planned tiles", ratio("rdcm", "rtif"), ">= 0.8", 0.8),
+        ("OpenSlide path 2 / 1 threads, from thread states", sum(two) / max(single[0], 1e-9), ">= 1.7", 1.7),
+        ("  the same, wall clock (load starves it)", ratio("ros2", "ros1"), ">= 1.7", 1.7),
         ("  the same, both on dask", ratio("d2", "d1"), ">= 1.7", 1.7),
     ]
     if memory:

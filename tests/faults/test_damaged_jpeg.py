@@ -133,7 +133,7 @@ def checker(request, monkeypatch):
     """Both routes of the default check: a strict decode first (libjpeg warnings as errors,
     jpeg_strict), or (strict decoding unavailable) the sentinel with the probes behind it."""
     if request.param == "sentinel":
-        monkeypatch.setattr("tilewright.slide.tiff_backend._strict.available", lambda: False)
+        monkeypatch.setattr("tilewright.slide.jpeg_strict.available", lambda: False)
     return request.param
 
 
@@ -214,7 +214,7 @@ def test_intact_jpeg_slides_never_flagged(slide, tmp_path, layout, monkeypatch, 
     def no_fallback(*args):
         raise AssertionError("the sentinel rejected an intact tile")
 
-    monkeypatch.setattr("tilewright.slide.tiff_backend._jpeg_intact", no_fallback)
+    monkeypatch.setattr("tilewright.slide.tile_grid._jpeg_intact", no_fallback)
     import tilewright.slide.jpeg_strict as strict
 
     refused, decode = [], strict.decode_strict
@@ -287,7 +287,7 @@ def test_noisy_tiles_settled_by_probes(tmp_path, monkeypatch):
     """Tiles whose last block ends with a coefficient instead of an end-of-block code (strong
     chroma noise, constructed): the sentinel cannot place its bits and fails; the probe check
     then accepts the intact tiles and the read equals tifffile's decode (reference)."""
-    import tilewright.slide.tiff_backend as backend
+    import tilewright.slide.tile_grid as backend
 
     path = _tifffile_slide(tmp_path / "noisy.tif", _noise(), subsampling=(1, 1))
     settled = []

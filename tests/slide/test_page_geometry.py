@@ -24,9 +24,9 @@ def test_single_raw_strip_reads_only_the_rows_needed(tmp_path, monkeypatch):
     sizes = []
     orig = TiffBackend._pread
 
-    def spy(self, n, offset):
+    def spy(self, n, offset, *fd):
         sizes.append(n)
-        return orig(self, n, offset)
+        return orig(self, n, offset, *fd)
 
     monkeypatch.setattr(TiffBackend, "_pread", spy)
     with tw.open(path) as s:

@@ -75,9 +75,9 @@ def test_region_reads_touch_only_needed_tiles(write, monkeypatch):
     seen = []
     orig = TiffBackend._fetch_row
 
-    def spy(self, offs, cnts):
+    def spy(self, offs, cnts, *fd):
         seen.append(len(offs))
-        return orig(self, offs, cnts)
+        return orig(self, offs, cnts, *fd)
 
     monkeypatch.setattr(TiffBackend, "_fetch_row", spy)
     with tw.open(path, backend="tiff") as s:

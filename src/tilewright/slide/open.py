@@ -17,7 +17,7 @@ from tilewright.slide.wholeslide import WholeSlide
 
 __all__ = ["open"]
 
-_BACKENDS = ("auto", "tiff", "openslide")
+_BACKENDS = ("auto", "tiff", "dicom", "openslide")
 
 
 def open(path: str | os.PathLike, *, mpp: float | None = None,
@@ -33,11 +33,13 @@ def open(path: str | os.PathLike, *, mpp: float | None = None,
     mpp : float, optional
         Level-0 µm/px to use instead of what the file records (for files that lack or
         misstate it).
-    backend : {"auto", "tiff", "openslide"}
+    backend : {"auto", "tiff", "dicom", "openslide"}
         ``"tiff"`` decodes TIFF-family pyramids (tiled TIFF, OME-TIFF, Aperio-style SVS)
-        directly, touching only the tiles a read needs; ``"openslide"`` serves every format
-        OpenSlide reads. ``"auto"`` uses ``"tiff"`` when it serves the file with its levels
-        and a resolution, else ``"openslide"``.
+        directly, touching only the tiles a read needs; ``"dicom"`` does the same for the frames
+        of a DICOM WSI series (JPEG, JPEG 2000 or uncompressed, TILED_FULL or TILED_SPARSE, see
+        :mod:`tilewright.slide.dicom_backend`); ``"openslide"`` serves every format OpenSlide
+        reads. ``"auto"`` uses ``"tiff"`` (TIFF files) or ``"dicom"`` (DICOM series) when it
+        serves the slide with its levels and a resolution, else ``"openslide"``.
     verify : bool
         Check every JPEG tile the tiff backend decodes for a desynchronized entropy-coded stream
         (damage that decoders pass silently as garbage pixels, see
@@ -96,7 +98,8 @@ def open(path: str | os.PathLike, *, mpp: float | None = None,
         series = find_series(path)
     if series is not None:
         path, kind = os.fspath(series.source), "dicom"
-        reader = _open_reader(os.fspath(series.volumes[0].path), kind, backend, mpp, verify, shown=path)
+        reader = _open_reader(os.fspath(series.volumes[0].path), kind, backend, mpp, verify, shown=path,
+                              series=series)
     else:
         kind = sniff(path)
         reader = _open_reader(path, kind, backend, mpp, verify)
@@ -117,8 +120,9 @@ def open(path: str | os.PathLike, *, mpp: float | None = None,
 
 
 def _open_reader(path: str, kind: str, backend: str, mpp: float | None, verify: bool = True,
-                 shown: str | None = None):
-    """The backend serving ``path``; errors name ``shown`` (a DICOM series' folder) if given."""
+                 shown: str | None = None, series=None):
+    """The backend serving ``path``; errors name ``shown`` (a DICOM series' folder) if given;
+    ``series`` is the DicomSeries of a DICOM slide (``path`` its level-0 file)."""
     from tilewright.slide.openslide_backend import OpenSlideBackend
     from tilewright.slide.tiff_backend import TiffBackend
 
@@ -129,8 +133,10 @@ def _open_reader(path: str, kind: str, backend: str, mpp: float | None, verify: 
                 shown or path)
         return TiffBackend(path, verify_jpeg=verify)
     if kind == "dicom":
-        # OpenSlide opens one instance and finds the rest of the series in its folder
-        return OpenSlideBackend(path)
+        return _dicom_reader(series, path, backend, verify, shown or path)
+    if backend == "dicom":
+        raise UnsupportedSlideError(
+            f"the dicom backend reads DICOM whole-slide series only (this is {kind}); use backend='auto'", path)
     if backend == "openslide":
         return OpenSlideBackend(path)
     tiff_error = None
@@ -163,6 +169,29 @@ def _open_reader(path: str, kind: str, backend: str, mpp: float | None, verify: 
         raise UnsupportedSlideError(
             f"neither the tiff backend nor OpenSlide can read it as a whole-slide "
             f"pyramid{reason}; convert it to pyramidal tiled TIFF or OME-TIFF", path) from exc
+
+
+def _dicom_reader(series, path: str, backend: str, verify: bool, shown: str):
+    """The frame backend when it serves the series, else OpenSlide (which opens the level-0
+    instance and finds the rest of the series in its folder). A damaged series is refused by
+    either: it is not handed on."""
+    from tilewright.slide.dicom_backend import DicomBackend
+    from tilewright.slide.openslide_backend import OpenSlideBackend
+
+    if backend == "openslide":
+        return OpenSlideBackend(path)
+    try:
+        return DicomBackend(series, verify_jpeg=verify)
+    except UnsupportedSlideError as exc:
+        if backend == "dicom":
+            raise
+        frame_error = exc
+    try:
+        return OpenSlideBackend(path)
+    except SlideError as exc:  # OpenSlide says "damaged" for layouts it does not handle, too
+        raise UnsupportedSlideError(
+            f"neither the dicom backend ({frame_error.reason}) nor OpenSlide ({exc.reason}) reads this "
+            "series; convert it to pyramidal tiled TIFF or OME-TIFF", shown) from exc
 
 
 def _reopen(path, mpp, backend, verify=True, colour_profile="apply"):

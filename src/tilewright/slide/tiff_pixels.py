@@ -32,7 +32,7 @@ from collections.abc import Callable
 
 import numpy as np
 
-__all__ = ["page_problem", "page_converter"]
+__all__ = ["page_problem", "page_converter", "jfif_ycbcr_to_rgb"]
 
 _RGB, _YCBCR, _SEPARATED = 2, 6, 5
 _JPEG, _OJPEG = 7, 6
@@ -99,7 +99,7 @@ def page_converter(page) -> Callable[[np.ndarray], np.ndarray] | None:
     """
     photometric, compression = int(page.photometric), int(page.compression)
     if compression == _J2K_YCBCR:
-        return _jfif_ycbcr_to_rgb
+        return jfif_ycbcr_to_rgb
     if photometric == _YCBCR and compression != _JPEG:
         return _tiff_ycbcr(page)
     alpha = _alpha_kind(page)
@@ -108,7 +108,7 @@ def page_converter(page) -> Callable[[np.ndarray], np.ndarray] | None:
     return None
 
 
-def _jfif_ycbcr_to_rgb(seg: np.ndarray) -> np.ndarray:
+def jfif_ycbcr_to_rgb(seg: np.ndarray) -> np.ndarray:
     """Full-range YCbCr → RGB (T.871: R = Y + 1.402 Cr', G = Y − 0.344136 Cb' − 0.714136 Cr',
     B = Y + 1.772 Cb', with Cb' = Cb − 128)."""
     return _ycbcr(seg, 0.0, 255.0, (0.299, 0.587, 0.114))

@@ -37,7 +37,7 @@ def read_rows(pread, lv, level: int, box, out: np.ndarray, path) -> None:
     ----------
     pread : callable
         ``pread(n, offset) -> bytes`` on the slide file.
-    lv : tiff_backend._Level
+    lv : tiff_backend._Level (a tile_grid.GridLevel)
         The level (strip offsets and byte counts, width, samples, colour conversion).
     box : (int, int, int, int)
         ``(y, x, h, w)`` inside the level.

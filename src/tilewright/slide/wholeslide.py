@@ -57,12 +57,13 @@ class WholeSlide:
     ----------
     path : str
         The slide file.
-    backend : {"tiff", "openslide"}
+    backend : {"tiff", "dicom", "openslide"}
         The reader serving it.
     mpp : float
         Level-0 µm/px.
     mpp_source : str
-        Where ``mpp`` came from: "override", "ome", "aperio", "tiff-tags" or "openslide".
+        Where ``mpp`` came from: "override", "ome", "aperio", "tiff-tags", "imagej", "philips", "dicom" or
+        "openslide".
     objective : float or None
         Objective power recorded by the scanner.
     dimensions : (int, int)

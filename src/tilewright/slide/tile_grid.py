@@ -1,0 +1,400 @@
+"""Reading a pyramid stored as grids of separately compressed tiles: only the tiles a read touches.
+
+Both direct backends keep their levels this way: TIFF pages (tiles, or strips, which are tiles as
+wide as the page) and DICOM whole-slide instances (frames). A level lists where each tile's bytes
+lie (offset, byte count; a count of 0 is a tile never stored, read as glass). A read fetches the
+tiles the region touches with ``os.pread`` on a private file descriptor (no shared file position,
+so concurrent reads from several threads need no lock), decodes each once and copies it straight
+into the output array.
+
+8-bit RGB JPEG tiles are decoded by imagecodecs directly into a scratch tile kept per thread, with
+the colour-space arguments of the level (checked against the level's reference decoder on its
+first stored tile when the slide is opened). This avoids a fresh array per tile: allocating and
+freeing them costs page faults, many under allocators told to return memory eagerly
+(dask.distributed workers set ``MALLOC_TRIM_THRESHOLD_``). Every JPEG tile is checked for a
+desynchronized entropy-coded stream in the decode that reads it (see :meth:`GridReader._decode_verified`).
+"""
+
+from __future__ import annotations
+
+import os
+import threading
+
+import numpy as np
+
+from tilewright.errors import DamagedSlideError
+from tilewright.slide import jpeg_strict as _strict
+
+__all__ = ["GridLevel", "GridReader"]
+
+# JPEG headers remembered per level (sentinel plans, strict-decode verdicts); bounds memory when
+# every tile carries its own tables.
+_HEADER_CACHE = 1024
+
+
+class GridLevel:
+    """One pyramid level stored as a grid of separately decoded segments (tiles, strips, frames).
+
+    Attributes
+    ----------
+    height, width : int
+        Level size in pixels.
+    tile_h, tile_w : int
+        Stored segment size; ``grid_w`` segments a row, row-major.
+    offsets, counts : ndarray of int64
+        File offset and byte count of each segment in grid order (count 0: never stored, glass).
+    jpegtables : bytes or None
+        Tables shared by abbreviated JPEG segments (TIFF JPEGTables).
+    is_jpeg : bool
+        Segments are JPEG streams (checked for damage when verifying).
+    jpeg : (colorspace, outcolorspace) or None
+        Arguments of imagecodecs.jpeg_decode for the direct 8-bit RGB JPEG path; None: the
+        reference decoder serves.
+    convert : callable or None
+        Turns a reference-decoded segment (h, w, samples) into RGB.
+    unwrap : callable or None
+        Turns the bytes stored at a segment's offset into the coded stream (DICOM frames split
+        into several fragments), or None when they are the stream.
+    file : str or None
+        The file holding the level when it is not the reader's ``path`` (DICOM: one file a level).
+    """
+
+    __slots__ = ("height", "width", "tile_h", "tile_w", "grid_w", "offsets", "counts", "jpegtables", "is_jpeg",
+                 "jpeg", "sentinels", "strict", "stripped", "convert", "unwrap", "file", "fd")
+
+    def __init__(self, height, width, tile_h, tile_w, offsets, counts, *, jpegtables=None, is_jpeg=False,
+                 jpeg=None, convert=None, stripped=False, unwrap=None, file=None):
+        self.height, self.width, self.tile_h, self.tile_w = int(height), int(width), int(tile_h), int(tile_w)
+        self.grid_w = -(-self.width // self.tile_w)
+        self.offsets = np.asarray(offsets, np.int64)
+        self.counts = np.asarray(counts, np.int64)
+        self.jpegtables, self.is_jpeg, self.jpeg, self.convert = jpegtables, bool(is_jpeg), jpeg, convert
+        self.stripped, self.unwrap = bool(stripped), unwrap
+        self.file, self.fd = file, None  # fd: set when the reader opens its files
+        self.sentinels = {}  # JPEG header bytes -> SentinelPlan or None (see jpeg_sentinel)
+        self.strict = {}  # colour signature or header bytes -> strict decode equals this level's (jpeg_strict)
+
+    @property
+    def grid_h(self) -> int:
+        """Rows of segments."""
+        return -(-self.height // self.tile_h)
+
+    def segment_shape(self, index: int) -> tuple[int, int]:
+        """(height, width) of one stored segment: a full tile, or a strip (the last may be short)."""
+        if not self.stripped:
+            return self.tile_h, self.tile_w
+        return min(self.tile_h, self.height - (index // self.grid_w) * self.tile_h), self.tile_w
+
+    def reference(self, data, index: int) -> np.ndarray | None:
+        """One segment as the format's own decoder returns it, (h, w, samples), or None (no data)."""
+        raise NotImplementedError
+
+
+class GridReader:
+    """What the direct backends share: positional reads of the tiles a region touches, decoded once.
+
+    Subclasses set ``path``, ``verify_jpeg`` and ``_levels`` (a list of :class:`GridLevel`,
+    finest first), then call :meth:`_open_files`.
+    """
+
+    name = "grid"
+    _levels: list
+    _fd = None
+
+    def _open_files(self) -> None:
+        """Open a private descriptor on each level's file; settle each level's direct JPEG path
+        (see :meth:`_direct_jpeg_agrees`)."""
+        self._lock = threading.Lock()  # only used where os.pread is unavailable
+        self._scratch = threading.local()  # one decoded-tile buffer per thread and tile shape
+        opened: dict = {}
+        try:
+            for lv in self._levels:
+                name = lv.file or self.path
+                if name not in opened:
+                    opened[name] = os.open(name, os.O_RDONLY | getattr(os, "O_BINARY", 0))
+                lv.fd = opened[name]
+        except OSError:
+            for fd in opened.values():
+                os.close(fd)
+            raise
+        self._fds = list(opened.values())
+        self._fd = self._levels[0].fd
+        for lv in self._levels:
+            if lv.jpeg is not None and not self._direct_jpeg_agrees(lv):
+                lv.jpeg = None
+
+    def _check_extent(self, unit: str = "tile") -> None:
+        """Refuse levels whose segment table does not fit their size or points past the file's end.
+
+        Raises
+        ------
+        DamagedSlideError
+        """
+        for i, lv in enumerate(self._levels):
+            size = os.path.getsize(lv.file or self.path)
+            expected = lv.grid_h * lv.grid_w
+            if len(lv.offsets) != expected:
+                raise DamagedSlideError(
+                    f"level {i} lists {len(lv.offsets)} {unit}s where its size needs {expected}; "
+                    "the file is damaged", self.path)
+            ends = lv.offsets + lv.counts
+            if len(ends) and int(ends.max()) > size:
+                raise DamagedSlideError(
+                    f"truncated: {unit} data of level {i} extends past the end of the file ({size} bytes); "
+                    "copy the slide again", self.path)
+
+    @property
+    def level_shapes(self) -> list[tuple[int, int]]:
+        """(height, width) of every level, finest first."""
+        return [(lv.height, lv.width) for lv in self._levels]
+
+    def tile_shape(self, level: int) -> tuple[int, int]:
+        """(height, width) of the stored tiles (or strips, or frames) of a level."""
+        lv = self._levels[level]
+        return lv.tile_h, lv.tile_w
+
+    def _tile_name(self, lv: GridLevel, r: int, c: int) -> str:
+        """How errors name a stored segment."""
+        return f"tile ({r}, {c})"
+
+    # -- pixels ------------------------------------------------------------------------
+    def _pread(self, n: int, offset: int, fd: int | None = None) -> bytes:
+        """``n`` bytes at ``offset`` of the level-0 file or of ``fd`` (fewer only at the end of
+        the file).
+
+        One ``pread`` returns at most about 2 GiB on Linux (and may return less anywhere), so
+        reads are repeated until all bytes arrived or the file ends.
+        """
+        fd = self._fd if fd is None else fd
+        if hasattr(os, "pread"):
+            data = os.pread(fd, n, offset)
+            if len(data) == n or not data:
+                return data
+            parts, got = [data], len(data)
+            while got < n:
+                more = os.pread(fd, n - got, offset + got)
+                if not more:
+                    break
+                parts.append(more)
+                got += len(more)
+            return b"".join(parts)
+        with self._lock:  # pragma: no cover - platforms without pread
+            os.lseek(fd, offset, 0)
+            return os.read(fd, n)
+
+    def read(self, level: int, y: int, x: int, h: int, w: int, out: np.ndarray) -> None:
+        """Decode the region ``[y, y+h) x [x, x+w)`` of a level into ``out`` (h, w, 3).
+
+        The region must lie inside the level. Only the tiles it touches are read; tiles never
+        stored are glass (white).
+
+        Raises
+        ------
+        DamagedSlideError
+            A tile cannot be read or decoded (names the file, level and region).
+        """
+        if self._fd is None:
+            raise ValueError("the slide is closed")
+        lv = self._levels[level]
+        th, tw = lv.tile_h, lv.tile_w
+        r0, r1 = y // th, (y + h - 1) // th
+        c0, c1 = x // tw, (x + w - 1) // tw
+        for r in range(r0, r1 + 1):
+            first, last = r * lv.grid_w + c0, r * lv.grid_w + c1
+            chunks = self._fetch_row(lv.offsets[first : last + 1], lv.counts[first : last + 1], lv.fd)
+            ty = r * th
+            ya, yb = max(y, ty), min(y + h, ty + th)
+            for k, data in enumerate(chunks):
+                c = c0 + k
+                tx = c * tw
+                xa, xb = max(x, tx), min(x + w, tx + tw)
+                dst = out[ya - y : yb - y, xa - x : xb - x]
+                if not data:
+                    dst[...] = 255  # a tile never stored: background
+                    continue
+                try:
+                    if lv.unwrap is not None:
+                        data = lv.unwrap(data)
+                    if self.verify_jpeg and lv.is_jpeg:
+                        seg, intact = self._decode_verified(lv, data, first + k)
+                    else:
+                        seg, intact = self._decode(lv, data, first + k), True
+                except Exception as exc:
+                    raise DamagedSlideError(
+                        f"{self._tile_name(lv, r, c)} of level {level} cannot be decoded while reading "
+                        f"region y={y}, x={x}, h={h}, w={w} ({type(exc).__name__}: {exc}); "
+                        "the file is damaged", self.path) from exc
+                if not intact:
+                    ty0, tx0 = r * th, c * tw
+                    raise DamagedSlideError(
+                        f"{self._tile_name(lv, r, c)} of level {level} (pixels y={ty0}-{ty0 + th}, "
+                        f"x={tx0}-{tx0 + tw} of that level) holds corrupt JPEG data (the decoder "
+                        f"lost sync) while reading region y={y}, x={x}, h={h}, w={w}; "
+                        "the file is damaged, copy the slide again", self.path)
+                if seg is None:
+                    dst[...] = 255
+                    continue
+                dst[...] = seg[ya - ty : yb - ty, xa - tx : xb - tx, :3]
+
+    def _decode(self, lv: GridLevel, data, index: int) -> np.ndarray | None:
+        """One tile as RGB(+) pixels (a per-thread buffer on the direct JPEG path)."""
+        if lv.jpeg is not None:
+            import imagecodecs
+
+            key = lv.segment_shape(index)
+            return imagecodecs.jpeg_decode(data, tables=lv.jpegtables, colorspace=lv.jpeg[0], outcolorspace=lv.jpeg[1],
+                                           shape=key, bitspersample=8, out=self._scratch_tile(key))
+        seg = lv.reference(data, index)
+        if seg is None:
+            return None
+        return seg if lv.convert is None else lv.convert(seg)
+
+    def _strict_agrees(self, lv: GridLevel, stream: bytes, data, index: int, header: bytes | None = None) -> bool:
+        """Whether strict decodes of streams with this one's colour signature equal the level's
+        decode (checked on the first such tile that decodes cleanly; see jpeg_strict). The answer
+        is also kept under the tile's ``header`` bytes, so tiles sharing a header skip parsing."""
+        ok = lv.strict.get(header) if header is not None else None
+        if ok is not None:
+            return ok
+        sig = _strict.colour_signature(stream)
+        if sig is None:
+            return False
+        ok = lv.strict.get(sig)
+        if ok is None:
+            got = _strict.decode_strict(stream, np.empty((lv.tile_h, lv.tile_w, 3), np.uint8))
+            if got is None:
+                return False  # undecided (this tile may be damaged): the next clean tile decides
+            want = self._decode(lv, data, index)
+            ok = lv.strict[sig] = want is not None and np.array_equal(want, got)
+        if header is not None:
+            if len(lv.strict) >= _HEADER_CACHE:
+                lv.strict.clear()
+            lv.strict[header] = ok
+        return ok
+
+    def _decode_verified(self, lv: GridLevel, data, index: int):
+        """One JPEG tile and whether its entropy-coded stream is intact.
+
+        Without vertical chroma subsampling, the pixels come from the one decode of the
+        sentinel-extended stream (see jpeg_sentinel). Otherwise (a sentinel there would change
+        the last pixel row, and streams with restart markers get none), from a strict decode
+        (libjpeg's warnings as errors, see jpeg_strict): pixels and verdict in one decode. A tile
+        the strict decoder refuses or cannot judge (another colour interpretation) gets a plain
+        decode whose sentinel-extended stream is checked at 1/8 scale. Whatever fails is settled
+        by the probe check (jpeg_check), so a refusal is never a false alarm.
+        """
+        from tilewright.slide import jpeg_sentinel as js
+
+        if lv.segment_shape(index) != (lv.tile_h, lv.tile_w):  # a short last strip: probe check
+            seg = self._decode(lv, data, index)
+            return seg, seg is None or _jpeg_intact(lv, index, data, seg)
+        data, plan = bytes(data), None  # a memoryview into a row read: the helpers search bytes
+        start = js.header_length(data) if lv.jpeg is not None else None
+        if start is not None:
+            header = data[:start]
+            plan = lv.sentinels.get(header, False)
+            if plan is False:
+                if len(lv.sentinels) >= _HEADER_CACHE:  # headers differ tile by tile (own tables)
+                    lv.sentinels.clear()
+                plan = lv.sentinels[header] = js.sentinel_plan(header, lv.jpegtables)
+        fits = plan is not None and (plan.height, plan.width) == (lv.tile_h, lv.tile_w)
+        if fits and not plan.vertical:
+            ext = js.sentinel_stream(data, plan)
+            seg = None if ext is None else js.decode_with_sentinel(
+                ext, plan, self._scratch_tile((plan.ext_height, lv.tile_w)), tables=lv.jpegtables,
+                colorspace=lv.jpeg[0], outcolorspace=lv.jpeg[1])
+            if seg is not None:
+                return seg, True
+        elif lv.jpeg is not None and _strict.available():
+            stream = _strict.complete_stream(data, lv.jpegtables)
+            if self._strict_agrees(lv, stream, data, index, None if start is None else header):
+                seg = _strict.decode_strict(stream, self._scratch_tile((lv.tile_h, lv.tile_w)))
+                if seg is not None:
+                    return seg, True
+        ext = js.sentinel_stream(data, plan) if fits else None  # built only when needed
+        seg = self._decode(lv, data, index)
+        if ext is not None and plan.vertical and js.reduced_sentinel_intact(ext, lv.jpegtables, plan):
+            return seg, True
+        return seg, seg is None or _jpeg_intact(lv, index, data, seg)
+
+    def _scratch_tile(self, key) -> np.ndarray:
+        """This thread's (h, w, 3) decode buffer of that size (see :func:`_offset_tile_buffer`)."""
+        tiles = getattr(self._scratch, "tiles", {})
+        buf = tiles.get(key)
+        if buf is None:
+            buf = _offset_tile_buffer(key)
+            self._scratch.tiles = {**tiles, key: buf}
+        return buf
+
+    def _direct_jpeg_agrees(self, lv: GridLevel) -> bool:
+        """Whether the direct JPEG path decodes the level's first stored tile as its reference
+        decoder does."""
+        nonzero = np.flatnonzero(lv.counts)
+        if not len(nonzero):
+            return True
+        i = int(nonzero[0])
+        try:
+            data = self._pread(int(lv.counts[i]), int(lv.offsets[i]), lv.fd)
+            if lv.unwrap is not None:
+                data = lv.unwrap(data)
+            want = lv.reference(data, i)
+            got = self._decode(lv, data, i)
+            return want is not None and np.array_equal(want[..., :3], got)
+        except Exception:  # noqa: BLE001 - damaged first tile: leave it to the general path
+            return False
+
+    def _fetch_row(self, offs: np.ndarray, cnts: np.ndarray, fd: int | None = None) -> list[bytes]:
+        """Read a run of tiles (of the level-0 file, or of ``fd``), in one positional read when
+        they lie together in the file."""
+        if len(offs) == 0:
+            return []
+        stored = cnts > 0
+        if not stored.any():
+            return [b""] * len(offs)
+        lo = int(offs[stored].min())
+        hi = int((offs + cnts)[stored].max())
+        total = int(cnts.sum())
+        if len(offs) > 1 and hi - lo <= total + 65536:
+            buf = memoryview(self._pread(hi - lo, lo, fd))
+            if len(buf) < hi - lo:
+                raise DamagedSlideError("truncated tile data", self.path)
+            return [buf[o - lo : o - lo + n] if n else b""
+                    for o, n in zip(offs.tolist(), cnts.tolist())]
+        out = []
+        for o, n in zip(offs.tolist(), cnts.tolist()):
+            data = self._pread(n, o, fd) if n else b""
+            if len(data) < n:
+                raise DamagedSlideError("truncated tile data", self.path)
+            out.append(data)
+        return out
+
+    def close(self) -> None:
+        """Release the file descriptors (idempotent)."""
+        fds, self._fds, self._fd = getattr(self, "_fds", []), [], None
+        for fd in fds:
+            os.close(fd)
+
+
+def _offset_tile_buffer(shape) -> np.ndarray:
+    """An empty (h, w, 3) uint8 tile buffer whose start is 16 bytes off a 32-byte boundary.
+
+    libjpeg-turbo's SIMD colour conversion writes 32-byte-aligned output with non-temporal
+    stores, which bypass the cache: decoding a tile into an aligned buffer measured about 30 %
+    slower than into one 16 bytes off alignment (``benchmarks/jpeg_verify.py`` decodes into
+    these buffers on both paths, so its comparison does not depend on where malloc put them).
+    """
+    n = shape[0] * shape[1] * 3
+    raw = np.empty(n + 48, np.uint8)
+    start = (16 - raw.ctypes.data) % 32
+    return raw[start:start + n].reshape(shape[0], shape[1], 3)
+
+
+def _jpeg_intact(lv: GridLevel, index: int, data, seg) -> bool:
+    """Whether a decoded JPEG tile came from an intact entropy-coded stream (see jpeg_check)."""
+    from tilewright.slide.jpeg_check import jpeg_in_sync
+
+    def decode(buf):
+        out = lv.reference(buf, index)
+        return None if out is None else out[..., :3]
+
+    return jpeg_in_sync(bytes(data), seg[..., :3], decode)
