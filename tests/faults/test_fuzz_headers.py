@@ -1,8 +1,8 @@
 """Property-based fuzzing of TIFF headers and tags through ``open``: only typed errors.
 
 Every example either opens (and then reads a thumbnail and a region) or raises a subclass of
-TilewrightError; never another exception, a crash or a hang (each example has a deadline and
-the test a timeout).
+TilewrightError; never another exception, a crash or a hang (the test has a timeout; no
+per-example deadline, which a loaded CI machine can exceed on a sound example).
 """
 
 from __future__ import annotations
@@ -65,7 +65,7 @@ def _apply(raw: bytearray, entries, order, m) -> bytearray:
     return raw
 
 
-@settings(max_examples=150, derandomize=True, deadline=5000,
+@settings(max_examples=150, derandomize=True, deadline=None,
           suppress_health_check=[HealthCheck.too_slow, HealthCheck.function_scoped_fixture])
 @given(mutations=st.lists(mutation, min_size=1, max_size=4))
 def test_fuzzed_tiffs_raise_only_typed_errors(base, mutations):

@@ -62,7 +62,7 @@ def _apply(raw: bytearray, m) -> bytearray:
     return raw
 
 
-@settings(max_examples=200, derandomize=True, deadline=5000,
+@settings(max_examples=200, derandomize=True, deadline=None,
           suppress_health_check=[HealthCheck.too_slow, HealthCheck.function_scoped_fixture])
 @given(base=st.integers(0, len(_BASES) - 1), mutations=st.lists(mutation, min_size=1, max_size=3),
        through_file=st.integers(0, 3))
