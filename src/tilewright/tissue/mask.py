@@ -173,7 +173,9 @@ def _morph(mask: np.ndarray, op: str, radius: int) -> np.ndarray:
             "erode": cv2.MORPH_ERODE}[op]
     # pad so closing does not glue tissue to the slide border and opening is not eroded by it
     pad = radius + 1
-    m = np.pad(mask.astype(np.uint8), pad, mode="edge" if op != "close" else "constant")
+    # (erosion: outside the slide counts as glass, so a thin glass strip along the slide's edge
+    # that smoothing filled in is in the border band of _edges_at_half_step)
+    m = np.pad(mask.astype(np.uint8), pad, mode="constant" if op in ("close", "erode") else "edge")
     out = cv2.morphologyEx(m, code, kernel)
     return out[pad:-pad, pad:-pad].astype(bool)
 
