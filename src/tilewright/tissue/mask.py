@@ -180,7 +180,7 @@ def _morph(mask: np.ndarray, op: str, radius: int) -> np.ndarray:
     return out[pad:-pad, pad:-pad].astype(bool)
 
 
-def _edges_at_half_step(feature: np.ndarray, tissue: np.ndarray, sigma: float) -> np.ndarray:
+def _edges_at_half_step(feature: np.ndarray, tissue: np.ndarray, sigma: float, glassy: np.ndarray) -> np.ndarray:
     """Put the edges of ``tissue`` where the smoothed density is half-way from glass to the tissue.
 
     The threshold is low so that pale tissue is found, but a Gaussian-blurred step crosses a
@@ -189,18 +189,19 @@ def _edges_at_half_step(feature: np.ndarray, tissue: np.ndarray, sigma: float) -
     smoothing), which inflates every edge tile's tissue fraction. The step's edge lies where the
     blurred profile is at half its height (edge localization of a blurred step; e.g. Canny,
     IEEE TPAMI 8(6):679-698, 1986). So pixels within ``3 sigma`` of the mask's border are kept
-    only where the density is at least half-way between the glass level (median density off the
-    mask) and the local tissue level: a normalized convolution (Knutsson & Westin, CVPR 1993) of
+    only where the density is at least half-way between the glass level (median density of the
+    ``glassy`` pixels, those under the detection threshold) and the local tissue level: a
+    normalized convolution (Knutsson & Westin, CVPR 1993) of
     the density over the mask's core (eroded by ``3 sigma``, where the blur has reached the
     plateau), or over the whole mask for pieces too thin to have a core. Which pieces are found
-    does not change: a piece's core stays whatever its density.
+    does not change (it is applied last, after small pieces are dropped): a piece's core stays.
     """
-    if sigma < 0.5 or not tissue.any() or tissue.all():
+    if sigma < 0.5 or not tissue.any() or not glassy.any():
         return tissue
     import cv2
 
     r = int(math.ceil(3 * sigma))
-    glass = float(np.median(feature[~tissue]))
+    glass = float(np.median(feature[glassy]))
     inner = _morph(tissue, "erode", r)
     band = tissue & ~inner
     if not band.any():
@@ -380,8 +381,6 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-otsu", sensitivity
         min_saturation=min_saturation)
     raw = feature > threshold
     glassy = ~raw
-    raw = _edges_at_half_step(feature, raw, smooth_um / mpp)
-    del feature
     survey = survey._replace(candidates=None)  # not needed past the threshold
     raw = _morph(raw, "close", _px(close_um, mpp))
     raw = _morph(raw, "open", _px(open_um, mpp))
@@ -392,12 +391,14 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-otsu", sensitivity
     found = find_exclusions(rgb, glass, smooth_um / mpp, mpp, glassy, exclude_ink=exclude_ink,
                             ink_residual=ink_residual, exclude_dark=exclude_dark, dark_od=dark_od,
                             stroke_kw={"min_stroke_um": min_stroke_um})
-    del glassy
     ink, dark = found.ink, found.dark
     if exclude_ink:
         ink = _morph(ink, "dilate", _px(ink_margin_um, mpp))
     covered = tissue | ink
     tissue = _drop_small(tissue & ~ink & ~dark, min_component_um2 / area)
+    # the pieces are decided at the detection threshold; only then are their edges placed
+    tissue = _edges_at_half_step(feature, tissue, smooth_um / mpp, glassy)
+    del feature, glassy
     plane = found.plane
     if plane is not None and not plane.fitted and plane.n_pixels >= 200:
         warnings.append(f"plane-fallback: implausible H&E plane fit ({plane.reason}); the Ruifrok & "
