@@ -13,9 +13,9 @@ import numpy as np
 import pytest
 
 import tilewright as tw
+from colour_refs import RUIFROK_E, RUIFROK_H
 
-RUIFROK_H = np.array([0.65, 0.70, 0.29]) / np.linalg.norm([0.65, 0.70, 0.29])
-RUIFROK_E = np.array([0.07, 0.99, 0.11]) / np.linalg.norm([0.07, 0.99, 0.11])
+H, E = RUIFROK_H / np.linalg.norm(RUIFROK_H), RUIFROK_E / np.linalg.norm(RUIFROK_E)
 GLASS = np.array([243.0, 241.0, 245.0])
 MPP = 4.0
 
@@ -23,7 +23,7 @@ MPP = 4.0
 def _slide(rects, c_h, c_e, shape=(400, 500), seed=0):
     rng = np.random.default_rng(seed)
     img = np.broadcast_to(GLASS, (*shape, 3)).copy()
-    tissue = GLASS * 10.0 ** -(c_h * RUIFROK_H + c_e * RUIFROK_E)
+    tissue = GLASS * 10.0 ** -(c_h * H + c_e * E)
     truth = np.zeros(shape, bool)
     for y0, x0, y1, x1 in rects:
         img[y0:y1, x0:x1] = tissue
