@@ -10,12 +10,12 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from tilewright.errors import ConfigError
+from tilewright.slide.colour_icc import MODES as _COLOUR_PROFILES
+from tilewright.store.compression import COMPRESSIONS as _COMPRESSIONS
 
 __all__ = ["TilingConfig"]
 
 _NORMALIZERS = (None, "macenko", "reinhard")
-_COMPRESSIONS = ("lz4", "zstd", "zlib", "none", "webp", "jpeg")
-_COLOUR_PROFILES = ("apply", "ignore")
 
 
 @dataclass

@@ -43,8 +43,7 @@ def local_cluster(workers: int):
             cluster = LocalCluster(n_workers=int(workers), threads_per_worker=1, processes=True,
                                    dashboard_address=":0", silence_logs=logging.ERROR)
     except BaseException:  # a Ctrl-C pressed while the workers started arrives here: let them go
-        if cluster is not None:
-            cluster.close()
+        _let_go(None, cluster)
         raise
     return cluster
 

@@ -42,15 +42,13 @@ from dataclasses import asdict, dataclass
 
 import numpy as np
 
-from tilewright.slide.colour_icc import ProfileFacts, check_profile, profile_error
+from tilewright.slide.colour_icc import MODES, ProfileFacts, check_profile, profile_error
 
 __all__ = ["ICC_TAG", "MODES", "SRGB", "ColourInfo", "ColourTransform", "ProfileFacts", "check_profile",
            "colour_transform", "slide_colour", "colour_label", "tiff_profile", "openslide_profile"]
 
 #: TIFF tag InterColorProfile (TIFF/EP, ICC.1 annex B).
 ICC_TAG = 34675
-#: Accepted values of ``colour_profile``.
-MODES = ("apply", "ignore")
 #: What applied profiles convert to.
 SRGB = "sRGB (IEC 61966-2-1)"
 INTENT = "relative colorimetric"

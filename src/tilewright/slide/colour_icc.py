@@ -18,7 +18,11 @@ from dataclasses import dataclass
 
 from tilewright.errors import ColourProfileError
 
-__all__ = ["ProfileFacts", "check_profile", "profile_error"]
+__all__ = ["MODES", "ProfileFacts", "check_profile", "profile_error"]
+
+#: Accepted values of ``colour_profile`` (here, a light module the settings and the command line
+#: can import without the slide readers).
+MODES = ("apply", "ignore")
 
 _MAX_BYTES = 64 << 20  # a scanner profile is KB to a few MB
 FIX = "; re-run with --colour-profile ignore (tw.open(..., colour_profile='ignore')) to use the file's raw pixels"
