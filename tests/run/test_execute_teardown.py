@@ -38,3 +38,23 @@ def test_a_stop_propagates_through_a_failing_teardown():
     with pytest.raises(Stopped) as e:
         run()
     assert e.value.exit_code == 143 and calls == ["client", "cluster"]
+
+
+def test_a_cohort_run_lets_its_cluster_go_and_sweeps_even_when_closing_raises(tmp_path):
+    # the teardown tile-out runs (tile_cohort hands execute a client it owns through run_cluster)
+    from tilewright.run.cluster import run_cluster
+
+    calls = []
+    leftover = tmp_path / "s1.zarr.partial-0a1b"  # what a killed worker leaves behind
+    leftover.mkdir()
+    kept = tmp_path / "s10.zarr"  # another slide's complete store: not a leftover of s1
+    kept.mkdir()
+    rc = run_cluster(None, 2, [], tmp_path, ["s1", "s2"])
+    rc.client, rc.own = _Closing(calls, "client", RuntimeError("comm closed")), True
+    rc.cluster = _Closing(calls, "cluster", TimeoutError("worker restarting"))
+    try:
+        raise Stopped(15)  # SIGTERM arrives mid-run
+    except Stopped:
+        assert rc.__exit__(Stopped, None, None) is False  # the stop propagates
+    assert calls == ["client", "cluster"]
+    assert not leftover.exists() and kept.exists()

@@ -13,8 +13,7 @@ def _sweep_partials(out_dir: Path, ids) -> None:
     """Remove temporary stores a stopped or killed worker left (this run holds the folder's lock)."""
     from tilewright.store.writer import remove_partials
 
-    for sid in ids:
-        remove_partials(store_path(out_dir, sid))
+    remove_partials(*(store_path(out_dir, sid) for sid in ids))
 
 
 class run_cluster:
@@ -33,7 +32,7 @@ class run_cluster:
         scheduler, workers, paths, out_dir = self.args
         if scheduler is None and (workers or 1) <= 1:
             return None, None
-        from tilewright.run.execute import connect, local_cluster
+        from tilewright.run.execute import _client, connect, local_cluster
 
         if scheduler is not None:
             self.client = connect(scheduler)
@@ -46,19 +45,20 @@ class run_cluster:
                 self.__exit__(None, None, None)
                 raise
         else:
-            from distributed import Client
-
             self.cluster = local_cluster(workers)
-            self.client, self.own = Client(self.cluster), True
+            try:
+                self.client, self.own = _client(self.cluster), True
+            except BaseException:
+                self.__exit__(None, None, None)
+                raise
         return self.client, f"tilewright-stop-{uuid.uuid4().hex}"
 
     def __exit__(self, *exc):
-        try:
-            if self.own and self.client is not None:
-                self.client.close()
-            if self.cluster is not None:
-                self.cluster.close()  # local workers end here: nothing writes any more
-        finally:
-            if self.client is not None:
-                _sweep_partials(self.args[3], self.ids)
+        from tilewright.run.execute import _let_go
+
+        # local workers end here: nothing writes any more; a close that raises (a worker killed a
+        # moment before a SIGTERM) is logged by _let_go and never replaces the run's outcome
+        _let_go(self.client if self.own else None, self.cluster)
+        if self.client is not None:
+            _sweep_partials(self.args[3], self.ids)
         return False

@@ -31,18 +31,23 @@ _PARTIAL = ".partial-"
 _MAP_CHUNK = 512  # chunk side of the slide-level pictures (thumbnail, masks)
 
 
-def remove_partials(final: str | os.PathLike) -> None:
-    """Delete temporary folders left by interrupted writes of ``final``."""
+def remove_partials(*finals: str | os.PathLike) -> None:
+    """Delete temporary folders left by interrupted writes of each of ``finals`` (each folder is
+    listed once, however many stores it holds)."""
     from tilewright.interrupts import signals_deferred
 
-    final = Path(final)
-    if not final.parent.exists():
-        return
-    prefix = final.name + _PARTIAL  # compared as text: a name is not a pattern (``a[1]`` vs ``a1``)
+    prefixes: dict[Path, list[str]] = {}
+    for final in map(Path, finals):
+        # compared as text: a name is not a pattern (``a[1]`` vs ``a1``)
+        prefixes.setdefault(final.parent, []).append(final.name + _PARTIAL)
     with signals_deferred():  # a Ctrl-C here would leave half a folder behind
-        for name in os.listdir(final.parent):
-            if name.startswith(prefix):
-                shutil.rmtree(final.parent / name, ignore_errors=True)
+        for folder, names in prefixes.items():
+            if not folder.exists():
+                continue
+            starts = tuple(names)
+            for name in os.listdir(folder):
+                if name.startswith(starts):
+                    shutil.rmtree(folder / name, ignore_errors=True)
 
 
 class StoreWriter:
