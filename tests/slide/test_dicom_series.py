@@ -136,3 +136,8 @@ def test_cohort_run_writes_one_store_a_series(series, tmp_path):
     assert row["slide_id"] == "case-017" and row["source"] == str(folder)  # the series folder
     store = tw.open_store(tmp_path / "out" / "case-017.zarr")
     assert store.attrs["source"]["digest"].startswith("sha256f:") and len(store) > 0
+    # run again: the complete store of the series is kept (its recorded size is the series' bytes,
+    # the sum over its files, not the folder entry's size)
+    again = tile_cohort(paths, tmp_path / "out", TilingConfig(mpp=1.0, tile=128, min_tissue=0.0, max_tiles=8,
+                                                              qc_overlay=False), progress=False)
+    assert [(r.status, r.kept) for r in again] == [("ok", True)], again

@@ -56,17 +56,17 @@ def run_identity(path, config, mpp: float | None, target) -> dict:
     Parameters
     ----------
     path : path
-        The slide file.
+        The slide file, or a DICOM series folder.
     config : TilingConfig
     mpp : float or None
         The level-0 µm/px override of this run (None: the file's own value, read from its header).
     target : normalizer or dict or None
         The cohort's stain target (None: none, or each slide's own).
     """
-    from tilewright.store.provenance import source_digest
+    from tilewright.store.provenance import source_digest, source_size
 
     ident = _settings(config.to_dict())
-    ident[SOURCE_SIZE] = os.path.getsize(path)
+    ident[SOURCE_SIZE] = source_size(path)  # a file's bytes, or all files of a DICOM series folder
     ident[SOURCE_DIGEST] = source_digest(path)
     ident[LEVEL0_MPP] = float(mpp) if mpp is not None else _file_mpp(path, config)
     ident[STAIN_TARGET] = target_digest(target)
