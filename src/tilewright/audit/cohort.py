@@ -131,6 +131,11 @@ class CohortAudit:
 
         return write_report(self, folder, before=before, names=names)
 
+    @property
+    def normalized(self) -> bool:
+        """Whether any audited slide's store holds stain-normalized tiles."""
+        return any(bool(a.get("normalizer")) for a in self.notes.get("_attrs", {}).values())
+
     def comparison_findings(self, other: "CohortAudit", names=None) -> list[str]:
         """Sentences on how associations changed from this audit to ``other``."""
         names = names or (_source_name(self), _source_name(other))
@@ -138,12 +143,28 @@ class CohortAudit:
 
 
 def _source_name(audit: CohortAudit) -> str:
-    normalized = any(bool(a.get("normalizer")) for a in audit.notes.get("_attrs", {}).values())
     if audit.source == "thumbnail":
         return "raw thumbnails"
     if audit.source == "source":
         return "raw tiles"
-    return "normalized tiles" if normalized else "tiles"
+    return "normalized tiles" if audit.normalized else "tiles"
+
+
+def normalized_run(cohort_or_dir) -> bool:
+    """Whether any ok slide's complete store holds stain-normalized tiles, from the stores'
+    attributes alone (no pixels read; stores that cannot be opened are left out, as the audit
+    leaves them out)."""
+    import zarr
+
+    folder, ok = ok_slides(cohort_or_dir)
+    for slide_id in ok.index:
+        try:
+            attrs = zarr.open_group(str(folder / f"{slide_id}.zarr"), mode="r").attrs
+        except Exception:  # noqa: BLE001 - missing or damaged: the audit skips it too
+            continue
+        if attrs.get("complete", False) and attrs.get("normalizer"):
+            return True
+    return False
 
 
 def ok_slides(cohort_or_dir):

@@ -167,8 +167,7 @@ def audit_findings(audit) -> list[str]:
     if len(found):
         names = ", ".join(name(f) for f in found["factor"])
         site = str(found.iloc[0]["factor"])
-        normalized = audit.source == "tiles" and any(bool(a.get("normalizer"))
-                                                    for a in (notes.get("_attrs") or {}).values())
+        normalized = audit.source == "tiles" and audit.normalized
         advice = ("stain normalization did not remove it" if normalized
                   else "normalize stain, re-run this audit on the normalized tiles")
         out.append(

@@ -83,7 +83,7 @@ def run(args: argparse.Namespace) -> int:
     int
         0 on success, 2 for bad arguments, 1 for other failures.
     """
-    from tilewright.audit.cohort import audit_cohort
+    from tilewright.audit.cohort import audit_cohort, normalized_run
     from tilewright.audit.compare import audit_before_after
     from tilewright.errors import ConfigError, StoreError, TilewrightError
 
@@ -101,14 +101,15 @@ def run(args: argparse.Namespace) -> int:
             return code
     options = {"metadata": args.metadata, "label": args.label, "max_tiles": args.max_tiles, "seed": args.seed}
     try:
-        audit = audit_cohort(out, source=args.source, **options)
-        before = None
-        normalized = any(bool(a.get("normalizer")) for a in audit.notes.get("_attrs", {}).values())
-        if args.source == "tiles" and normalized and not args.no_compare:
+        before = audit = None
+        # a normalized run is audited raw and as stored: the stored side is the audit itself
+        if args.source == "tiles" and not args.no_compare and normalized_run(out):
             try:
                 before, audit = audit_before_after(out, **options)
             except StoreError as exc:  # source slides gone: the audit of the stored tiles still stands
                 print(f"tilewright audit: no before/after comparison: {exc.one_line()}", file=sys.stderr)
+        if audit is None:
+            audit = audit_cohort(out, source=args.source, **options)
         path = audit.write_report(report, before=before)
     except ConfigError as exc:
         return _fail(exc.one_line(), 2)
