@@ -87,21 +87,15 @@ def open(path: str | os.PathLike, *, mpp: float | None = None,
     if colour_profile not in MODES:
         raise ValueError(f"colour_profile must be one of {MODES}, got {colour_profile!r}")
     path = os.fspath(path)
-    series = None
-    if os.path.isdir(path):
-        from tilewright.slide.dicom_series import find_series
-
-        series = find_series(path)  # a folder is a slide only as one DICOM series
-    elif sniff(path) == "dicom":
+    kind = "dicom" if os.path.isdir(path) else sniff(path)  # a folder is a slide only as one DICOM series
+    if kind == "dicom":
         from tilewright.slide.dicom_series import find_series
 
         series = find_series(path)
-    if series is not None:
-        path, kind = os.fspath(series.source), "dicom"
+        path = os.fspath(series.source)
         reader = _open_reader(os.fspath(series.volumes[0].path), kind, backend, mpp, verify, shown=path,
                               series=series)
     else:
-        kind = sniff(path)
         reader = _open_reader(path, kind, backend, mpp, verify)
     try:
         h0, w0 = reader.level_shapes[0]

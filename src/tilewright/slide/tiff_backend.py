@@ -26,9 +26,9 @@ __all__ = ["TiffBackend"]
 class _Level(GridLevel):
     """One pyramid level: a TIFF page and what is needed to decode its segments (tiles or strips)."""
 
-    __slots__ = ("decode", "page_index", "raw_rows", "samples")
+    __slots__ = ("decode", "raw_rows", "samples")
 
-    def __init__(self, page, index, size=None):
+    def __init__(self, page, size=None):
         # size: the level's true (height, width) when the page is padded beyond it (Philips)
         height, width = size or (int(page.imagelength), int(page.imagewidth))
         chunks = page.chunks
@@ -42,7 +42,6 @@ class _Level(GridLevel):
                          convert=page_converter(page),  # segment -> RGB (YCbCr, alpha), or None
                          stripped=not page.is_tiled)
         self.decode = page.decode
-        self.page_index = index
         self.samples = int(page.samplesperpixel)
         # uncompressed strips: read only the rows a region needs, whatever the strip length
         self.raw_rows = self.stripped and int(page.compression) == 1 and page.fillorder == 1
@@ -133,7 +132,7 @@ class TiffBackend(GridReader):
             if problem is not None and i == 0:
                 raise UnsupportedSlideError(problem, path)
             if problem is None:  # a reduced level stored in huge strips: finer levels serve it
-                levels.append(_Level(page, i, None if sizes is None else sizes[i]))
+                levels.append(_Level(page, None if sizes is None else sizes[i]))
         flavour = "ome" if tf.is_ome else "svs" if tf.is_svs else "philips" if tf.is_philips else "tiff"
         icc = _colour.tiff_profile(pyramid.levels[0])  # InterColorProfile of level 0, or None
         return levels, pyramid.resolution, flavour, pyramid.associated, icc

@@ -33,6 +33,7 @@ from typing import NamedTuple
 from tilewright.errors import SlideGeometryError, UnsupportedSlideError
 from tilewright.slide.resolution import (
     Resolution,
+    _mean_xy,
     mpp_from_aperio,
     mpp_xy_from_imagej,
     mpp_xy_from_ome,
@@ -204,17 +205,12 @@ def _discover_ome(tf, path) -> Pyramid:
     for j, other, other_pages in images:
         if other is series or resolution.mpp is None:
             continue
-        mpp = _mean(mpp_xy_from_ome(tf.ome_metadata, _ome_index(tf, j, other)))
+        mpp = _mean_xy(*mpp_xy_from_ome(tf.ome_metadata, _ome_index(tf, j, other)))
         p = other_pages[0]
         if mpp is not None and abs(mpp * int(p.imagewidth) - resolution.mpp * w0) <= mpp and \
                 abs(mpp * int(p.imagelength) - resolution.mpp * h0) <= mpp:
             candidates.append(p)  # same physical extent: a reduced copy stored as its own Image
     return Pyramid(_levels_from(level0, candidates), associated, resolution)
-
-
-def _mean(xy):
-    vals = [v for v in xy if v is not None]
-    return sum(vals) / len(vals) if vals else None
 
 
 def _resolution(tf, level0, first, ome_image: int | None = None) -> Resolution:

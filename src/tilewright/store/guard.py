@@ -60,10 +60,6 @@ class WriteGuard:
             while self._busy:
                 self._cond.wait(0.5)
 
-    @property
-    def closed(self) -> bool:
-        return self._closed
-
 
 class GuardedLocalStore(LocalStore):
     """A zarr ``LocalStore`` whose every change goes through a :class:`WriteGuard`."""
