@@ -225,18 +225,12 @@ def run(args, config) -> int:
              len(paths), args.source, out, config.mpp, config.tile, config.normalizer or "none")
     lines = LogProgress()  # the log file always; stderr too when it is not a terminal (and not --quiet)
     bar = RichProgress(len(paths)) if tty else contextlib.nullcontext()
-    totals = ProgressTracker(None, len(paths))
-
-    def on_progress(event):
-        totals(event)
-        lines(event)
-        if tty:
-            bar(event)
+    totals = ProgressTracker(None, len(paths), listeners=[lines, bar if tty else None])  # counts, then tells them
 
     t0 = time.perf_counter()
     with bar:
         results = tile_cohort(paths, out, config, scheduler=args.scheduler, workers=args.workers,
-                              overwrite=args.overwrite, mpp=mpp, progress=False, on_progress=on_progress)
+                              overwrite=args.overwrite, mpp=mpp, progress=False, on_progress=totals)
     rows = [r.to_row() for r in results]
     if not args.quiet:
         print_summary(rows, out, seconds=time.perf_counter() - t0, megapixels=totals.megapixels,
