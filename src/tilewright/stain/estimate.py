@@ -19,6 +19,7 @@ from typing import NamedTuple
 import numpy as np
 
 from ..errors import StainEstimationError
+from ..tissue.plane import RUIFROK_E, RUIFROK_H
 from .tissue_pixels import DEFAULT_BETA, MAX_STAT_PIXELS, tissue_od
 
 __all__ = [
@@ -36,8 +37,7 @@ MIN_TISSUE_PIXELS = 500
 #: Two estimated stain vectors closer than this (degrees) mean a single-stain image.
 MIN_STAIN_ANGLE_DEG = 2.0
 #: Ruifrok & Johnston (2001) hematoxylin and eosin optical-density vectors (unit rows).
-RUIFROK_STAINS = np.array([[0.65, 0.70, 0.29], [0.07, 0.99, 0.11]]) / np.linalg.norm(
-    [[0.65, 0.70, 0.29], [0.07, 0.99, 0.11]], axis=1, keepdims=True)
+RUIFROK_STAINS = np.stack([RUIFROK_H, RUIFROK_E])
 #: Plausibility of a slide's own estimate (see :func:`implausible`). Stain pairs measured on real
 #: H&E slides lie 20-45 degrees apart (the Ruifrok & Johnston pair 39; a widely used Macenko
 #: reference pair, (0.5626, 0.7201, 0.4062) and (0.2159, 0.8012, 0.5581), 22).
