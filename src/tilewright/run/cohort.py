@@ -130,13 +130,14 @@ def _complete_row(final: Path, path: str, slide_id: str, cfg: TilingConfig, mpp,
     """
     from tilewright.errors import ConfigError
     from tilewright.run.identity import identity_changes, run_identity, store_identity
-    from tilewright.run.ledger import store_row
+    from tilewright.run.ledger import kept_row
     from tilewright.store.reader import is_complete, open_store
 
     if not is_complete(final):
         return None
-    changed = identity_changes(store_identity(open_store(final).attrs), run_identity(path, cfg, mpp, target))
-    if changed and not int(open_store(final).attrs.get("n_tiles") or 0):
+    attrs = open_store(final).attrs
+    changed = identity_changes(store_identity(attrs), run_identity(path, cfg, mpp, target))
+    if changed and not int(attrs.get("n_tiles") or 0):
         return None  # a skipped slide's store holds no tile: nothing to keep, tiled anew with these settings
     if changed:
         raise ConfigError(f"a complete store made with other settings or another source exists "
@@ -145,11 +146,11 @@ def _complete_row(final: Path, path: str, slide_id: str, cfg: TilingConfig, mpp,
     if cfg.keep:  # region files are part of a store's identity: edited annotations are re-tiled
         from tilewright.regions.load import region_change
 
-        why = region_change(open_store(final).attrs.get("regions"), cfg.regions, slide_id)
+        why = region_change(attrs.get("regions"), cfg.regions, slide_id)
         if why:
             raise ConfigError(f"a complete store made with other settings exists ({why}); it is kept as it "
                               "is; pass --overwrite to re-tile or choose another output folder", final)
-    return store_row(Path(final).parent, slide_id, path)
+    return kept_row(final, slide_id, path, attrs)
 
 
 def stain_target_path(out_dir, method: str) -> Path:

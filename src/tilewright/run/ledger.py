@@ -89,7 +89,6 @@ class Ledger:
 
 def store_row(out_dir: Path, slide_id: str, path: str) -> dict | None:
     """The row of a complete store already in the folder (a slide this run did not reach)."""
-    from tilewright.run.slide import SlideResult
     from tilewright.store.layout import store_path
     from tilewright.store.reader import is_complete, open_store
 
@@ -100,7 +99,13 @@ def store_row(out_dir: Path, slide_id: str, path: str) -> dict | None:
         a = open_store(final).attrs
     except Exception:  # noqa: BLE001 - an unreadable store is not a row to keep
         return None
+    return kept_row(final, slide_id, path, a)
+
+
+def kept_row(final, slide_id: str, path: str, a: dict) -> dict:
+    """The manifest row of the complete store ``final`` kept from an earlier run (``a``: its attributes)."""
     from tilewright.run.skip_reason import skip_reason
+    from tilewright.run.slide import SlideResult
 
     n = int(a.get("n_tiles", 0))
     from tilewright.slide.colour import colour_label
