@@ -107,7 +107,7 @@ def kept_row(final, slide_id: str, path: str, a: dict) -> dict:
     from tilewright.run.skip_reason import skip_reason
     from tilewright.run.slide import SlideResult
 
-    n = int(a.get("n_tiles", 0))
+    n = int(a.get("n_tiles") or 0)
     from tilewright.slide.colour import colour_label
 
     return SlideResult(slide_id, path, "ok" if n else "skipped", "" if n else skip_reason(a), n, a.get("mpp_source"), a.get("objective"), a.get("source_level"), None,

@@ -72,8 +72,7 @@ def stores_manifest(out_dir: str | os.PathLike):
     """
     import pandas as pd
 
-    from tilewright.run.skip_reason import skip_reason
-    from tilewright.slide.colour import colour_label
+    from tilewright.run.ledger import kept_row
     from tilewright.store.reader import TileStore, is_complete
 
     out_dir = Path(out_dir)
@@ -82,13 +81,8 @@ def stores_manifest(out_dir: str | os.PathLike):
         if not is_complete(p):
             continue
         a = TileStore(p).attrs
-        n = int(a.get("n_tiles") or 0)
-        rows.append({"slide_id": str(a.get("slide_id") or p.name[: -len(".zarr")]),
-                     "source": str((a.get("source") or {}).get("path") or ""), "status": "ok" if n else "skipped",
-                     "error": "" if n else skip_reason(a), "n_tiles": n, "mpp_source": a.get("mpp_source"),
-                     "objective": a.get("objective"), "source_level": a.get("source_level"), "seconds": None,
-                     "colour_profile": colour_label(a.get("colour_profile")),
-                     "warnings": "; ".join(a.get("warnings") or ())})
+        rows.append(kept_row(p, str(a.get("slide_id") or p.name[: -len(".zarr")]),
+                             str((a.get("source") or {}).get("path") or ""), a))
     if not rows:
         raise StoreError("no manifest.csv, manifest.parquet or complete <slide_id>.zarr store here; give the "
                          "folder tile-out, tile_cohort or tile_slide wrote", out_dir)
