@@ -177,12 +177,11 @@ def _share_cores(config, args):
     return config.replace(threads=max(1, (os.cpu_count() or 2) // args.workers))
 
 
-def _check_tiles_fit(paths, config, mpp) -> None:
+def _check_tiles_fit(paths, ids, config, mpp) -> None:
     from tilewright.run.cohort import _mpp_for
     from tilewright.run.feasible import check_tiles_fit
-    from tilewright.store.layout import slide_ids
 
-    check_tiles_fit(paths, config, [_mpp_for(mpp, str(p), sid) for p, sid in zip(paths, slide_ids(paths))])
+    check_tiles_fit(paths, config, [_mpp_for(mpp, str(p), sid) for p, sid in zip(paths, ids)])
 
 
 def run(args, config) -> int:
@@ -193,22 +192,25 @@ def run(args, config) -> int:
     from tilewright.cli.summary import print_summary
     from tilewright.run.events import LogProgress, ProgressTracker
     from tilewright.run.cohort import tile_cohort
-    from tilewright.run.sources import find_slides, read_mpp_table
+    from tilewright.run.naming import cohort_ids
+    from tilewright.run.sources import read_mpp_table, slide_list, unique_paths
 
-    paths = find_slides(args.source)
+    found = slide_list(args.source)
+    paths = found.paths
     if not paths:
         raise ConfigError("no slide files found (looked for .svs .tif .tiff .ndpi .mrxs .scn .bif .dcm ...)",
                           args.source)
+    # the ids the run will use (tile_cohort settles them again under the output folder's lock)
+    ids = cohort_ids([Path(p).absolute() for p in unique_paths(paths)], args.out, root=found.root,
+                     given=found.ids, where=args.source)
     mpp = args.source_mpp
     if args.mpp_table:
         table = read_mpp_table(args.mpp_table)
         mpp = {k: v for k, v in table.items()}
         if args.source_mpp is not None:
-            from tilewright.store.layout import slide_ids
-
-            for sid, p in zip(slide_ids(paths), paths):
+            for sid in ids:
                 mpp.setdefault(sid, args.source_mpp)
-    _check_tiles_fit(paths, config, mpp)  # settings that fit no slide: exit 2, nothing written
+    _check_tiles_fit(paths, ids, config, mpp)  # settings that fit no slide: exit 2, nothing written
     out = Path(args.out)
     try:
         out.mkdir(parents=True, exist_ok=True)
@@ -230,7 +232,8 @@ def run(args, config) -> int:
     t0 = time.perf_counter()
     with bar:
         results = tile_cohort(paths, out, config, scheduler=args.scheduler, workers=args.workers,
-                              overwrite=args.overwrite, mpp=mpp, progress=False, on_progress=totals)
+                              overwrite=args.overwrite, mpp=mpp, progress=False, on_progress=totals,
+                              ids=found.ids, root=found.root)
     rows = [r.to_row() for r in results]
     if not args.quiet:
         print_summary(rows, out, seconds=time.perf_counter() - t0, megapixels=totals.megapixels,

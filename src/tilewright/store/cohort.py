@@ -105,21 +105,29 @@ class Cohort:
         Complete stores of the manifest's slides, by slide id: those whose status is ``ok``, and
         those whose latest run failed while an earlier complete store was kept (for example a
         re-run with other settings, refused without ``--overwrite``; the row says why).
-        Slides ``skipped`` for lack of tissue have no tiles and are left out.
+        Slides ``skipped`` for lack of tissue have no tiles and are left out. A source file is
+        served once: where two stores record the same source (a folder written by a version whose
+        ids changed as slides were added), the one completed last.
+    left_out : DataFrame
+        Complete stores not served, with the reason (``slide_id``, ``reason``); also logged.
     """
 
     def __init__(self, path: str | os.PathLike):
-        from tilewright.store.layout import store_path
-        from tilewright.store.reader import TileStore, is_complete
+        from tilewright.store.selection import LEFT_OUT_COLUMNS, select_stores
+
+        import pandas as pd
 
         self.path = Path(path)
         has_manifest = (self.path / "manifest.parquet").exists() or (self.path / "manifest.csv").exists()
         self.manifest = read_manifest(self.path) if has_manifest else stores_manifest(self.path)
-        self.stores = {}
-        for sid, status in zip(self.manifest["slide_id"], self.manifest["status"]):
-            p = store_path(self.path, str(sid))
-            if status != "skipped" and is_complete(p):
-                self.stores[str(sid)] = TileStore(p)
+        self.stores, left = select_stores(self.path, self.manifest)
+        self.left_out = pd.DataFrame(left, columns=LEFT_OUT_COLUMNS)
+        if left:
+            import logging
+
+            logging.getLogger("tilewright").warning(
+                "%s: %d complete store(s) left out: %s", self.path, len(left),
+                "; ".join(f"{sid}: {why}" for sid, why in left[:5]) + (" ..." if len(left) > 5 else ""))
 
     @property
     def slide_ids(self) -> list[str]:
