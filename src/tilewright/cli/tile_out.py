@@ -96,6 +96,10 @@ def build_parser() -> argparse.ArgumentParser:
                    help="tile compression (default lz4, lossless; zstd: ~12%% fewer bytes, ~3x the CPU; webp: "
                         "lossless, ~half the bytes, slower; jpeg: lossy, ~14%% of the raw bytes at --quality 90)")
     g.add_argument("--quality", type=int, help="JPEG quality 1-100 with --compression jpeg (default 90)")
+    g.add_argument("--source-digest", choices=("sampled", "full"),
+                   help="sampled (default): each store records a digest of 16 MiB of its source (the resume check; "
+                        "equals no archive checksum); full: also the SHA-256 of every byte (what sha256sum prints), "
+                        "read once beside the tiles")
     g.add_argument("--quiet", action="store_true", help="no progress output (the log file is still written)")
     g.add_argument("--verbose", action="store_true",
                    help="the closing summary lists every slide (default: all up to 20 slides, else failures)")
@@ -110,7 +114,7 @@ _FIELDS = {"mpp": "mpp", "tile": "tile", "stride": "stride", "min_tissue": "min_
            "exclude_dark": "exclude_dark", "dark_od": "dark_od", "ink_margin_um": "ink_margin_um",
            "class_property": "class_property", "default_class": "default_class", "object_types": "object_types",
            "colour_profile": "colour_profile", "mpp_tolerance": "tolerance",
-           "quality": "quality"}
+           "quality": "quality", "source_digest": "source_digest"}
 
 
 def config_from_args(args):

@@ -103,6 +103,12 @@ class TilingConfig:
         Check every decoded JPEG source tile for damage decoders pass silently (on by default;
         see :func:`tilewright.open`): a damaged slide fails with the tile named instead of
         storing garbage pixels. ``False`` skips the check (faster JPEG decoding, garbage kept).
+    source_digest : {"sampled", "full"}
+        ``"sampled"`` (default): each store records the sampled digest of its source (16 MiB
+        read; the resume check). ``"full"`` also records the SHA-256 of every byte
+        (``source.sha256``, the manifest's ``source_sha256``: what ``sha256sum`` prints, to compare
+        with an archive's checksums), read once beside the tiles. See
+        :mod:`tilewright.store.provenance` for what each can and cannot prove.
     colour_profile : {"apply", "ignore"}
         ``"apply"`` converts pixels from each slide's embedded ICC profile to sRGB before the
         mask, stain estimate and tiles see them (see :mod:`tilewright.slide.colour`);
@@ -143,6 +149,7 @@ class TilingConfig:
     qc_overlay: bool = True
     verify_jpeg: bool = True
     colour_profile: str = "apply"
+    source_digest: str = "sampled"
     extra: dict = field(default_factory=dict, repr=False)
 
     def __post_init__(self):
@@ -193,6 +200,10 @@ class TilingConfig:
             self.compression = self.compression.lower()
         if self.compression not in _COMPRESSIONS:
             raise ConfigError(f"compression must be one of {', '.join(_COMPRESSIONS)}, got {self.compression!r}")
+        from tilewright.store.provenance import DIGESTS
+
+        if self.source_digest not in DIGESTS:
+            raise ConfigError(f"source_digest must be sampled or full, got {self.source_digest!r}")
         if self.colour_profile not in _COLOUR_PROFILES:
             raise ConfigError(f"colour_profile must be apply or ignore, got {self.colour_profile!r}")
         if isinstance(self.quality, bool) or not isinstance(self.quality, int) or not 1 <= self.quality <= 100:

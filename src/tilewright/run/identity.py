@@ -22,7 +22,7 @@ __all__ = ["RUN_ONLY", "run_identity", "store_identity", "identity_changes", "ta
 #: whichever codec, and each store names its codec in its metadata, so a cohort may mix them; a
 #: lossy codec and its quality do change the tiles: they count as the field ``compression``
 #: (``tile_identity``: "lossless" or "jpeg quality 90").
-RUN_ONLY = ("threads", "verify_jpeg", "qc_overlay", "compression", "quality")
+RUN_ONLY = ("threads", "verify_jpeg", "qc_overlay", "compression", "quality", "source_digest")
 
 #: Field names (they appear in the messages of refused resumes).
 SOURCE_SIZE, SOURCE_DIGEST, LEVEL0_MPP, STAIN_TARGET = (

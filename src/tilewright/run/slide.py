@@ -36,6 +36,7 @@ class SlideResult:
     store: str = ""
     colour_profile: str = ""  # ColourInfo.label: "none", the applied profile, or "... (ignored)"
     warnings: str = ""  # "; "-joined "code: reason" messages (see tissue_mask, fit_source_checked)
+    source_sha256: str = ""  # the source's full SHA-256 (TilingConfig.source_digest = "full"), else ""
     kept: bool = False  # a complete store of an earlier run, kept as it is (seconds: that run's)
 
     def to_row(self) -> dict:
@@ -163,7 +164,8 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
                         if config.normalizer else None)
                 # the slide-sized pictures go to the store, the QC picture is drawn and the source is
                 # digested beside the tile pipeline; the pictures are freed once written
-                aside = pool.submit(_aside, writer, survey.maps, survey.draw, survey.mask, plan, path, slide_id)
+                aside = pool.submit(_aside, writer, survey.maps, survey.draw, survey.mask, plan, path, slide_id,
+                                    config.source_digest == "full")
                 survey.maps = survey.draw = survey.mask = None
                 kept = _tile_arrays(view, plan, config, bind, writer, progress)
                 bound, used, stain_note = (None, None, "") if bind is None else bind.result()
@@ -171,7 +173,8 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
                 attrs["stain_target"] = target_digest(used)  # what a resumed run must match
                 if stain_note:
                     attrs["warnings"].append(f"stain-replaced: {stain_note}")
-                png, attrs["source"]["digest"] = aside.result()
+                png, digests = aside.result()
+                attrs["source"].update(digests)
                 writer.commit(attrs, overwrite=overwrite, expected=kept)
                 n = writer.n
         except BaseException:  # nothing half-written survives, whatever stopped the slide
@@ -183,7 +186,7 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
                            mpp_source=float(slide.mpp), objective=slide.objective,
                            source_level=int(view.source_level), seconds=round(time.perf_counter() - t0, 3),
                            store=str(final), colour_profile=slide.colour.label,
-                           warnings="; ".join(attrs["warnings"]))
+                           warnings="; ".join(attrs["warnings"]), source_sha256=attrs["source"].get("sha256") or "")
 
 
 def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNamespace:
@@ -252,18 +255,18 @@ def _colour_provenance(slide) -> dict:
     return transform.provenance() if transform is not None else slide.colour.to_dict()
 
 
-def _aside(writer, maps, draw, mask, plan, path, slide_id):
-    """Work beside the tile pipeline: the store's pictures, the QC picture, the source digest.
+def _aside(writer, maps, draw, mask, plan, path, slide_id, full_digest=False):
+    """Work beside the tile pipeline: the store's pictures, the QC picture, the source digests.
 
     ``maps`` are :meth:`StoreWriter.write_maps`'s arguments; ``draw`` is the QC picture's base
     ``(rgb, mpp)`` (see :func:`tilewright.tissue.overlay.overlay_base`), or None. Returns
-    ``(png bytes or None, digest)``. Holds the only references to the thumbnail and the mask
+    ``(png bytes or None, {"digest": sampled digest[, "sha256": full SHA-256, "files": ...]})``. Holds the only references to the thumbnail and the mask
     once the caller dropped its own, so they are freed on return.
     """
     writer.write_maps(*maps)
     del maps  # the thumbnail goes as soon as it is on disk
     png = None if draw is None else _overlay(draw[0], mask, plan, slide_id, draw[1])
-    return png, _digest(path)
+    return png, _digest(path, full_digest)
 
 
 def _glass(thumbnail, mask):
@@ -368,10 +371,10 @@ def _source_size(path):
     return source_size(path)
 
 
-def _digest(path):
-    from tilewright.store.provenance import source_digest
+def _digest(path, full=False) -> dict:
+    from tilewright.store.provenance import source_digest, source_sha256
 
-    return source_digest(path)
+    return {"digest": source_digest(path), **(source_sha256(path) if full else {})}
 
 
 def _region_info(regions, config, absent=None):

@@ -12,7 +12,7 @@ from tilewright.errors import StoreError
 __all__ = ["MANIFEST_COLUMNS", "write_manifest", "read_manifest", "stores_manifest", "Cohort", "open_cohort"]
 
 MANIFEST_COLUMNS = ["slide_id", "source", "status", "error", "n_tiles", "mpp_source", "objective",
-                    "source_level", "seconds", "colour_profile", "warnings"]
+                    "source_level", "seconds", "colour_profile", "warnings", "source_sha256"]
 
 
 def write_manifest(out_dir: str | os.PathLike, rows: list[dict]) -> "object":
@@ -28,6 +28,7 @@ def write_manifest(out_dir: str | os.PathLike, rows: list[dict]) -> "object":
     df["error"] = df["error"].fillna("").astype(str)
     df["colour_profile"] = df["colour_profile"].fillna("").astype(str)
     df["warnings"] = df["warnings"].fillna("").astype(str)  # "; "-joined "code: reason" messages
+    df["source_sha256"] = df["source_sha256"].fillna("").astype(str)  # "" unless source_digest = "full"
     df["n_tiles"] = df["n_tiles"].fillna(0).astype("int64")
     for col in ("mpp_source", "objective", "seconds"):
         df[col] = pd.to_numeric(df[col], errors="coerce").astype("float64")
@@ -53,7 +54,7 @@ def read_manifest(out_dir: str | os.PathLike):
         return pd.read_parquet(pq)
     if csv.exists():  # ids and texts stay strings ("001" is not the number 1)
         return pd.read_csv(csv, keep_default_na=False, na_values=[""],
-                           dtype={"slide_id": str, "source": str, "status": str, "error": str})
+                           dtype={"slide_id": str, "source": str, "status": str, "error": str, "source_sha256": str})
     raise StoreError("no manifest.csv or manifest.parquet; is this a tile-out output folder?", out_dir)
 
 
