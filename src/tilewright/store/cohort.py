@@ -103,17 +103,21 @@ class Cohort:
         manifest (``tile_slide`` output), rows made from its complete stores
         (:func:`stores_manifest`).
     stores : dict[str, TileStore]
-        Complete stores of the manifest's slides, by slide id: those whose status is ``ok``, and
-        those whose latest run failed while an earlier complete store was kept (for example a
-        re-run with other settings, refused without ``--overwrite``; the row says why).
-        Slides ``skipped`` for lack of tissue have no tiles and are left out. A source file is
-        served once: where two stores record the same source (a folder written by a version whose
-        ids changed as slides were added), the one completed last.
+        Complete stores of the manifest's slides made with the cohort's settings (see
+        :func:`open_cohort`), by slide id: those whose status is ``ok``, and those whose latest
+        run failed while an earlier complete store was kept (a store of the same settings, for
+        example after a source file changed; the row says why). Slides ``skipped`` for lack of
+        tissue have no tiles and are left out. A source file is served once: where two stores
+        record the same source (a folder written by a version whose ids changed as slides were
+        added), the one completed last.
     left_out : DataFrame
         Complete stores not served, with the reason (``slide_id``, ``reason``); also logged.
+    settings : dict or None
+        The settings every served store was made with (see :func:`open_cohort`), None when
+        unchecked.
     """
 
-    def __init__(self, path: str | os.PathLike):
+    def __init__(self, path: str | os.PathLike, settings="cohort"):
         from tilewright.store.selection import LEFT_OUT_COLUMNS, select_stores
 
         import pandas as pd
@@ -121,7 +125,7 @@ class Cohort:
         self.path = Path(path)
         has_manifest = (self.path / "manifest.parquet").exists() or (self.path / "manifest.csv").exists()
         self.manifest = read_manifest(self.path) if has_manifest else stores_manifest(self.path)
-        self.stores, left = select_stores(self.path, self.manifest)
+        self.stores, left, self.settings = select_stores(self.path, self.manifest, settings)
         self.left_out = pd.DataFrame(left, columns=LEFT_OUT_COLUMNS)
         if left:
             import logging
@@ -171,7 +175,21 @@ class Cohort:
         return f"Cohort({str(self.path)!r}, slides={len(self.stores)}, tiles={len(self)})"
 
 
-def open_cohort(out_dir: str | os.PathLike) -> Cohort:
+def open_cohort(out_dir: str | os.PathLike, *, settings="cohort") -> Cohort:
     """Open a folder of tile stores: a ``tile-out`` / ``tile_cohort`` output folder, or stores
-    written by ``tile_slide`` (no manifest; see :func:`stores_manifest`)."""
-    return Cohort(out_dir)
+    written by ``tile_slide`` (no manifest; see :func:`stores_manifest`).
+
+    Parameters
+    ----------
+    out_dir : path
+    settings : "cohort", None, TilingConfig, dict or path
+        Serve only stores made with these settings: the tiles' true µm/px (within the
+        settings' tolerance), tile size and stride, normalization and its stain target, codec
+        (lossless, or JPEG at a quality), and every other tile-changing setting both record.
+        ``"cohort"`` (default): the folder's ``config.toml`` (its latest run's settings); a
+        folder without one (``tile_slide`` output) must hold stores of one set of settings,
+        else a :class:`StoreError` names the difference. A ``TilingConfig``, its dict or a TOML
+        file: those settings. None: every complete store, unchecked. Stores left out are listed
+        in ``Cohort.left_out`` with the reason, and logged.
+    """
+    return Cohort(out_dir, settings=settings)

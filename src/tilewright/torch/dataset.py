@@ -10,10 +10,16 @@ import numpy as np
 __all__ = ["TileStoreDataset", "store_paths", "to_tensor"]
 
 
-def store_paths(source) -> list[str]:
-    """Store paths of a ``*.zarr`` path, a ``tile-out`` output folder, a TileStore, a Cohort or a list."""
+def store_paths(source, settings="cohort") -> list[str]:
+    """Store paths of a ``*.zarr`` path, a ``tile-out`` output folder, a TileStore, a Cohort or a list.
+
+    A folder serves the stores :func:`tilewright.open_cohort` serves with ``settings`` (by default
+    those made with its ``config.toml``; the others are logged with the reason); stores of a list
+    must agree with each other (or with ``settings``; None: unchecked).
+    """
     from tilewright.store.cohort import Cohort, open_cohort
     from tilewright.store.reader import TileStore
+    from tilewright.store.selection import check_stores
 
     if isinstance(source, Cohort):
         return [str(s.path) for s in source.stores.values()]
@@ -22,8 +28,10 @@ def store_paths(source) -> list[str]:
     if isinstance(source, (str, os.PathLike)):
         if str(source).rstrip("/\\").endswith(".zarr"):
             return [os.fspath(source)]
-        return [str(s.path) for s in open_cohort(source).stores.values()]
-    return [str(getattr(p, "path", p)) for p in source]
+        return [str(s.path) for s in open_cohort(source, settings=settings).stores.values()]
+    stores = [p if isinstance(p, TileStore) else TileStore(getattr(p, "path", p)) for p in source]
+    check_stores(stores, settings)
+    return [str(s.path) for s in stores]
 
 
 def to_tensor(tiles: np.ndarray):
@@ -59,6 +67,11 @@ class TileStoreDataset:
     with_info : bool
         Add a third item part: ``{"slide_id", "slide", "tile", "y", "x"}`` (tile corner in target
         pixels).
+    settings : "cohort", None, TilingConfig, dict or path
+        Which stores to serve: an output folder's stores made with its ``config.toml`` (default;
+        see :func:`tilewright.open_cohort`), and a list's stores only when they agree on µm/px,
+        tile, normalization and codec (a ``StoreError`` names the one that differs); given
+        settings: stores made with them; None: unchecked.
 
     Items are ``(image, label)`` with labels, else ``(image, (slide_index, tile_index))``; with
     ``with_info`` the info dict follows. Attributes: ``slide_ids``, ``offsets`` (first dataset
@@ -66,10 +79,10 @@ class TileStoreDataset:
     """
 
     def __init__(self, source, *, labels=None, label_column: str = "label", missing: str = "error",
-                 transform=None, augment=None, with_info: bool = False):
+                 transform=None, augment=None, with_info: bool = False, settings="cohort"):
         from tilewright.store.reader import TileStore
 
-        paths = store_paths(source)
+        paths = store_paths(source, settings)
         stores = [TileStore(p) for p in paths]
         self.classes = None
         self.slide_labels = None
