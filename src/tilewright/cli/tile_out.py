@@ -42,6 +42,10 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--mpp-tolerance", type=float,
                    help="relative difference under which a pyramid level is used as is instead of "
                         "resampled (default 0.005 = 0.5 %%; the store records the true µm/px)")
+    g.add_argument("--from-level0", action="store_true", default=None,
+                   help="compute every tile from level 0 (area-averaged), never from a scanner's own lower "
+                        "level: tiles of every scanner made one way (default: a level within --mpp-tolerance is "
+                        "used as is)")
     g.add_argument("--tile", type=int, help="tile side in pixels (default 256)")
     g.add_argument("--stride", type=int, help="grid step in pixels (default: the tile side, no overlap)")
     g.add_argument("--min-tissue", type=float, help="minimum tissue fraction of a tile (default 0.5)")
@@ -64,6 +68,9 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--dark-od", type=float,
                    help="mean optical density above which --exclude-dark cuts a pixel out (default 0.9; a fold ~0.3-0.6)")
     g.add_argument("--ink-margin-um", type=float, help="grow marker ink by this many µm before cutting it out (default 16)")
+    g.add_argument("--max-ink", type=float,
+                   help="drop tiles more than this share marker ink (0-1; default: no cap; each store keeps every "
+                        "tile's ink share)")
     g = p.add_argument_group("stain")
     g.add_argument("--normalize", choices=["macenko", "reinhard", "none"],
                    help="stain normalization (default none)")
@@ -114,7 +121,8 @@ _FIELDS = {"mpp": "mpp", "tile": "tile", "stride": "stride", "min_tissue": "min_
            "exclude_dark": "exclude_dark", "dark_od": "dark_od", "ink_margin_um": "ink_margin_um",
            "class_property": "class_property", "default_class": "default_class", "object_types": "object_types",
            "colour_profile": "colour_profile", "mpp_tolerance": "tolerance",
-           "quality": "quality", "source_digest": "source_digest"}
+           "quality": "quality", "source_digest": "source_digest", "from_level0": "from_level0",
+           "max_ink": "max_ink"}
 
 
 def config_from_args(args):

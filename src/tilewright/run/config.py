@@ -50,6 +50,16 @@ class TilingConfig:
         Relative difference under which a pyramid level is used as is for the tiles (default
         0.005: the scale error stays under 1.3 px across a 256-px tile); otherwise the nearest
         finer level is area-averaged down to ``mpp``. The store records the true µm/px.
+    from_level0 : bool
+        Take every tile from level 0 (area-averaged to ``mpp``, or as is within ``tolerance``),
+        whatever the pyramid offers (default False: the nearest level, see ``tolerance``). Scanners
+        make their own lower levels with their own filters and JPEG settings, so tiles taken
+        from them differ in sharpness by scanner; from level 0 every slide's tiles are made
+        one way. Costs decoding up to 4x the pixels where a level would have served.
+    max_ink : float or None
+        Drop tiles whose footprint is more than this share marker ink (the tissue mask's ink,
+        grown by ``ink_margin_um``); None keeps them (default). Every store keeps each tile's ink
+        share (``ink``).
     min_sharpness : float or None
         Drop tiles whose variance of the Laplacian is lower (blur).
     exclude_ink, exclude_dark : bool
@@ -126,6 +136,8 @@ class TilingConfig:
     seed: int = 0
     mask_mpp: float = 8.0
     tolerance: float = 0.005
+    from_level0: bool = False
+    max_ink: float | None = None
     min_sharpness: float | None = None
     exclude_ink: bool = True
     exclude_dark: bool = False
@@ -184,6 +196,11 @@ class TilingConfig:
             positive("stride", self.stride, int)
         if self.max_tiles is not None:
             positive("max_tiles", self.max_tiles, int)
+        if self.max_ink is not None and (isinstance(self.max_ink, bool) or not isinstance(self.max_ink, (int, float))
+                                         or not 0 <= self.max_ink <= 1):
+            raise ConfigError(f"max_ink must lie between 0 and 1 (a share of the tile), got {self.max_ink!r}")
+        if not isinstance(self.from_level0, bool):
+            raise ConfigError(f"from_level0 must be true or false, got {self.from_level0!r}")
         for name in ("min_tissue", "min_region"):
             v = getattr(self, name)
             if not isinstance(v, (int, float)) or not 0 <= v <= 1:
@@ -219,6 +236,10 @@ class TilingConfig:
                               f"(--normalize {method if method in _NORMALIZERS[1:] else 'macenko or reinhard'}); "
                               "without it the reference would be ignored")
         return self
+
+    def view(self, slide):
+        """The view of ``slide`` these settings cut tiles from (µm/px, tolerance, from_level0)."""
+        return slide.at_mpp(self.mpp, tolerance=self.tolerance, from_level0=self.from_level0)
 
     def mask_options(self) -> dict:
         """Keyword arguments of :func:`tilewright.tissue.mask.tissue_mask` these settings choose."""

@@ -88,8 +88,19 @@ def identity_changes(old: dict, new: dict) -> list[str]:
         if key not in old:
             if key in (SOURCE_SIZE, SOURCE_DIGEST, LEVEL0_MPP, STAIN_TARGET):
                 continue  # not recorded by the store's version
-            if new.get(key) is None:
-                continue  # a setting added later, at its unset default
+            if new.get(key) is None or _is_default(key, new.get(key)):
+                continue  # a setting added later, at its default: the store was made as it would be now
         if not _same(old.get(key), new.get(key)):
             out.append(f"{key} {_short(old.get(key))} -> {_short(new.get(key))}")
     return out
+
+
+def _is_default(key: str, value) -> bool:
+    """Whether ``value`` is :class:`TilingConfig`'s default for the setting ``key``."""
+    import dataclasses
+
+    from tilewright.run.config import TilingConfig
+
+    field = TilingConfig.__dataclass_fields__.get(key)
+    return field is not None and field.default is not dataclasses.MISSING and _same(field.default, value)
+

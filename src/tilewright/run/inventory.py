@@ -75,7 +75,7 @@ def survey_slide(path: str, config: dict, slide_id: str, mpp: float | None = Non
         row["file_bytes"] = int(source_size(path))
         with open_slide(path, mpp=mpp, verify=False, colour_profile=cfg.colour_profile) as slide:
             h0, w0 = slide.dimensions
-            view = slide.at_mpp(cfg.mpp, tolerance=cfg.tolerance)
+            view = cfg.view(slide)
             row.update(backend=slide.backend, width=int(w0), height=int(h0), level0_mpp=float(slide.mpp),
                        mpp_origin=str(getattr(slide, "mpp_origin", None) or slide.mpp_source or ""),
                        objective=slide.objective, levels=len(slide.levels),
@@ -85,7 +85,7 @@ def survey_slide(path: str, config: dict, slide_id: str, mpp: float | None = Non
             thumbnail = slide.thumbnail(cfg.mask_mpp)
             mask = tissue_mask(thumbnail, mpp=float(getattr(thumbnail, "mpp", cfg.mask_mpp)), **cfg.mask_options())
             plan = plan_tiles(view, mask, tile=cfg.tile, stride=cfg.stride, min_tissue=cfg.min_tissue,
-                              max_tiles=cfg.max_tiles, seed=cfg.seed)
+                              max_tiles=cfg.max_tiles, seed=cfg.seed, max_ink=cfg.max_ink)
             area = np.count_nonzero(mask.array) * (mask.mpp / 1000.0) ** 2
             row.update(tissue_mm2=float(area), tissue_fraction=float(np.mean(mask.array)) if mask.array.size else 0.0,
                        planned_tiles=len(plan), warnings="; ".join(mask.warnings))

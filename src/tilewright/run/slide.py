@@ -148,7 +148,7 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
     final = out if out.suffix == ".zarr" else out / f"{slide_id}.zarr"
     remove_partials(final)
     with open_slide(path, mpp=mpp, verify=config.verify_jpeg, colour_profile=config.colour_profile) as slide:
-        view = slide.at_mpp(config.mpp, tolerance=config.tolerance)
+        view = config.view(slide)
         survey = _survey(slide, view, config, slide_id, path, regions, target)
         plan, attrs = survey.plan, survey.attrs
         release_free()  # the survey's temporaries are gone: start the tile pipeline on a clean heap
@@ -175,7 +175,8 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
                     attrs["warnings"].append(f"stain-replaced: {stain_note}")
                 png, digests = aside.result()
                 attrs["source"].update(digests)
-                writer.commit(attrs, overwrite=overwrite, expected=kept)
+                writer.commit(attrs, overwrite=overwrite, expected=kept,
+                              per_tile=_per_tile(plan, writer.stored_yx, attrs.get("regions")))
                 n = writer.n
         except BaseException:  # nothing half-written survives, whatever stopped the slide
             remove_partials(final)
@@ -187,6 +188,22 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
                            source_level=int(view.source_level), seconds=round(time.perf_counter() - t0, 3),
                            store=str(final), colour_profile=slide.colour.label,
                            warnings="; ".join(attrs["warnings"]), source_sha256=attrs["source"].get("sha256") or "")
+
+
+def _per_tile(plan, stored_yx, regions_info) -> dict:
+    """The plan's per-tile values for the tiles stored (a subset of the plan, in store order): each
+    tile's ink share (``ink_share``; the store's ``ink`` is the slide's ink mask picture), and with regions each kept class's fraction (``region_fractions``, one column a
+    class of ``regions_info["classes_stored"]``; kept classes a slide lacks are columns of zeros)."""
+    from tilewright.run.tile_rows import rows_of
+
+    rows = rows_of(plan.yx, stored_yx)
+    out = {"ink_share": plan.ink[rows]}
+    if regions_info is not None and plan.class_fractions is not None:
+        absent = list(regions_info.get("absent") or [])
+        fractions = plan.class_fractions[rows]
+        out["region_fractions"] = np.concatenate([fractions, np.zeros((len(rows), len(absent)), np.float32)], axis=1)
+        regions_info["classes_stored"] = list(plan.classes) + absent
+    return out
 
 
 def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNamespace:
@@ -217,7 +234,8 @@ def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNames
         regions, keep, absent = _regions_for(regions, config, slide_id, slide, path)
     plan = plan_tiles(view, mask, tile=config.tile, stride=config.stride, min_tissue=config.min_tissue,
                       regions=regions if config.keep else None, keep=keep,
-                      min_region=config.min_region, max_tiles=config.max_tiles, seed=config.seed)
+                      min_region=config.min_region, max_tiles=config.max_tiles, seed=config.seed,
+                      max_ink=config.max_ink)
     glass = _glass(thumbnail, mask) if config.normalizer else None
     mask_arr = np.asarray(mask.array, dtype=bool)
     attrs = {
@@ -226,6 +244,7 @@ def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNames
                    "digest": None, "backend": slide.backend},  # digest: computed aside (see _aside)
         "mpp": float(view.mpp), "mpp_source": float(slide.mpp), "objective": slide.objective,
         "source_level": int(view.source_level), "scale": float(view.scale),
+        "from_level0": bool(config.from_level0),  # every tile computed from level 0, whatever the pyramid
         "dimensions": list(slide.dimensions), "shape": list(view.shape),
         "tile": int(config.tile), "stride": int(config.step), "mask_mpp": float(mask.mpp),
         "tissue_fraction": float(mask_arr.mean()) if mask_arr.size else 0.0,

@@ -192,13 +192,14 @@ class WholeSlide:
         return rgb if self.colour_transform is None else self.colour_transform.apply(rgb)
 
     # -- resolution ---------------------------------------------------------------------
-    def choose_level(self, mpp: float, tolerance: float = VIEW_TOLERANCE) -> int:
+    def choose_level(self, mpp: float, tolerance: float = VIEW_TOLERANCE, *, from_level0: bool = False) -> int:
         """Level a view at ``mpp`` reads from.
 
         A level whose µm/px lies within ``tolerance`` (relative) of ``mpp`` is used as is
         (the closest such level); otherwise the coarsest level finer than ``mpp``. Only levels
         the backend reads at whole-pixel positions are candidates (every level of the tiff
         backend; see :class:`~tilewright.slide.openslide_backend.OpenSlideBackend`).
+        ``from_level0``: level 0 only.
 
         Raises
         ------
@@ -211,7 +212,7 @@ class WholeSlide:
         tolerance = float(tolerance)
         if not (0 <= tolerance < 1):
             raise ValueError(f"tolerance must lie in [0, 1), got {tolerance!r}")
-        usable = [i for i in range(len(self.levels)) if self._exact[i]]
+        usable = [0] if from_level0 else [i for i in range(len(self.levels)) if self._exact[i]]
         near = [(abs(self.levels[i].mpp / mpp - 1.0), i) for i in usable
                 if abs(self.levels[i].mpp / mpp - 1.0) <= tolerance]
         if near:
@@ -223,7 +224,7 @@ class WholeSlide:
                 "choose a coarser target mpp (no upsampling is done)", self.path)
         return max(finer, key=lambda i: self.levels[i].mpp)
 
-    def at_mpp(self, mpp: float, *, tolerance: float = VIEW_TOLERANCE):
+    def at_mpp(self, mpp: float, *, tolerance: float = VIEW_TOLERANCE, from_level0: bool = False):
         """A lazy view of the whole slide at ``mpp`` µm/px.
 
         Parameters
@@ -234,6 +235,11 @@ class WholeSlide:
             Relative difference under which a pyramid level is used as is (default 0.5 %);
             otherwise the view area-averages the nearest finer level down to ``mpp``. The
             view's ``mpp`` is the true µm/px of its pixels either way.
+        from_level0 : bool
+            Compute every pixel from level 0 (area-averaged, or level 0 as is within
+            ``tolerance``), whatever other levels the pyramid offers: a cohort's tiles then come
+            from one kind of source whatever each scanner stored (its own downsampled levels
+            differ in filter and compression from one scanner to the next).
 
         Returns
         -------
@@ -246,7 +252,7 @@ class WholeSlide:
         """
         from tilewright.slide.view import ResampledView
 
-        return ResampledView(self, float(mpp), tolerance=tolerance)
+        return ResampledView(self, float(mpp), tolerance=tolerance, from_level0=from_level0)
 
     def thumbnail(self, mpp: float = 8.0, *, tolerance: float = THUMBNAIL_TOLERANCE):
         """The whole slide at about ``mpp`` µm/px, read from the coarsest adequate level.

@@ -94,6 +94,22 @@ class TileStore:
         return self._small("region") if "region" in self._group else None
 
     @property
+    def ink_share(self) -> np.ndarray | None:
+        """(N,) share of each tile's footprint that is marker ink (None in stores of older versions)."""
+        return self._small("ink_share") if "ink_share" in self._group else None
+
+    @property
+    def region_fractions(self):
+        """Each tile's fraction inside each kept region class: a DataFrame, one column a class
+        (``attrs["regions"]["classes_stored"]``), one row a tile; None without regions."""
+        if "region_fractions" not in self._group:
+            return None
+        import pandas as pd
+
+        names = (self.attrs.get("regions") or {}).get("classes_stored") or []
+        return pd.DataFrame(self._small("region_fractions"), columns=names)
+
+    @property
     def thumbnail(self) -> np.ndarray:
         return self._small("thumbnail")
 
