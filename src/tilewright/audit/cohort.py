@@ -87,6 +87,15 @@ class CohortAudit:
     quality_findings: list = field(default_factory=list)
 
     @property
+    def by_level(self) -> pd.DataFrame:
+        """Sharpness beside colour for every level of every factor: median sharpness (quartiles,
+        ratio to the other levels) and median tissue CIELAB with its CIEDE2000 distance from the
+        other levels' (see :func:`tilewright.audit.by_level.level_table`)."""
+        from tilewright.audit.by_level import level_table
+
+        return level_table(self.metrics, self.factors)
+
+    @property
     def clusters(self) -> pd.Series:
         """Colour cluster of every slide."""
         return self.embedding.clusters
