@@ -77,6 +77,9 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--reference", help="reference image (PNG/JPEG/TIFF), slide (a sample of its tissue tiles is read, "
                                        "never all of it) or fitted-normalizer JSON; without it "
                                        "the cohort's own median stain is the target, saved as OUT/stain_target.<method>.json")
+    g.add_argument("--estimate-stains", action="store_true", default=None,
+                   help="store un-normalized tiles plus each slide's Macenko and Reinhard stain estimates, to "
+                        "normalize when reading (open_store/open_cohort/datasets normalize=...) to any target")
     g = p.add_argument_group("regions")
     g.add_argument("--regions", help="region annotations: a GeoJSON/tile-table file, or a folder with one file a slide id")
     g.add_argument("--keep", help="region classes to keep, comma separated (needed with --regions; case and "
@@ -122,7 +125,7 @@ _FIELDS = {"mpp": "mpp", "tile": "tile", "stride": "stride", "min_tissue": "min_
            "class_property": "class_property", "default_class": "default_class", "object_types": "object_types",
            "colour_profile": "colour_profile", "mpp_tolerance": "tolerance",
            "quality": "quality", "source_digest": "source_digest", "from_level0": "from_level0",
-           "max_ink": "max_ink"}
+           "max_ink": "max_ink", "estimate_stains": "estimate_stains"}
 
 
 def config_from_args(args):

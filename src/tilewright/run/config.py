@@ -105,6 +105,12 @@ class TilingConfig:
         Tiles sampled to estimate a slide's own stain once.
     per_tile_stain : bool
         Estimate the source stain per tile instead of once per slide.
+    estimate_stains : bool
+        Store un-normalized tiles plus the slide's stain estimates (Macenko and Reinhard, from the
+        same ``stain_sample`` tiles a normalizing run uses, against the slide's glass) and a
+        sample of its tissue pixels, so readers normalize when reading (``open_store(...,
+        normalize=...)``, ``open_cohort``, the datasets) to any target, without re-tiling. Not with
+        ``normalizer`` (tiles are normalized once, either way).
     threads : int
         Reader threads inside one slide.
     qc_overlay : bool
@@ -157,6 +163,7 @@ class TilingConfig:
     block: int = 2048
     stain_sample: int = 64
     per_tile_stain: bool = False
+    estimate_stains: bool = False
     threads: int = 2
     qc_overlay: bool = True
     verify_jpeg: bool = True
@@ -230,6 +237,9 @@ class TilingConfig:
             raise ConfigError(f"reference must be an image path or a fitted normalizer dict, got {type(self.reference).__name__}")
         if isinstance(self.reference, os.PathLike):
             self.reference = os.fspath(self.reference)
+        if self.estimate_stains and self.normalizer is not None:
+            raise ConfigError("estimate_stains= (--estimate-stains) stores un-normalized tiles for normalizing when "
+                              f"reading; normalizer= (--normalize {self.normalizer}) normalizes them now: choose one")
         if self.reference is not None and self.normalizer is None:  # never silently ignored
             method = self.reference.get("method") if isinstance(self.reference, dict) else None
             raise ConfigError("reference= (--reference) is the target of stain normalization and needs normalizer= "

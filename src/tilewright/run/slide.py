@@ -14,6 +14,8 @@ import numpy as np
 from tilewright.errors import TilewrightError
 from tilewright.run.config import TilingConfig
 from tilewright.run.identity import target_digest
+from tilewright.run.stain_record import stain_record
+from tilewright.run.tile_rows import per_tile_arrays
 from tilewright.store.layout import slide_ids
 from tilewright.store.writer import StoreWriter, remove_partials
 
@@ -162,6 +164,8 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
                 # the slide's stain estimate is fitted while the first blocks are read and decoded
                 bind = (pool.submit(_bind_normalizer, view, plan, config, target, path, survey.glass)
                         if config.normalizer else None)
+                record = (pool.submit(stain_record, view, plan, config, survey.glass)
+                          if config.estimate_stains else None)
                 # the slide-sized pictures go to the store, the QC picture is drawn and the source is
                 # digested beside the tile pipeline; the pictures are freed once written
                 aside = pool.submit(_aside, writer, survey.maps, survey.draw, survey.mask, plan, path, slide_id,
@@ -175,8 +179,12 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
                     attrs["warnings"].append(f"stain-replaced: {stain_note}")
                 png, digests = aside.result()
                 attrs["source"].update(digests)
-                writer.commit(attrs, overwrite=overwrite, expected=kept,
-                              per_tile=_per_tile(plan, writer.stored_yx, attrs.get("regions")))
+                arrays = None
+                if record is not None:  # the slide's stain estimates, for normalizing when reading
+                    pixels, attrs["stain_estimates"], attrs["stain_glass"] = record.result()
+                    arrays = {"stain_sample": pixels}
+                writer.commit(attrs, overwrite=overwrite, expected=kept, arrays=arrays,
+                              per_tile=per_tile_arrays(plan, writer.stored_yx, attrs.get("regions")))
                 n = writer.n
         except BaseException:  # nothing half-written survives, whatever stopped the slide
             remove_partials(final)
@@ -188,22 +196,6 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
                            source_level=int(view.source_level), seconds=round(time.perf_counter() - t0, 3),
                            store=str(final), colour_profile=slide.colour.label,
                            warnings="; ".join(attrs["warnings"]), source_sha256=attrs["source"].get("sha256") or "")
-
-
-def _per_tile(plan, stored_yx, regions_info) -> dict:
-    """The plan's per-tile values for the tiles stored (a subset of the plan, in store order): each
-    tile's ink share (``ink_share``; the store's ``ink`` is the slide's ink mask picture), and with regions each kept class's fraction (``region_fractions``, one column a
-    class of ``regions_info["classes_stored"]``; kept classes a slide lacks are columns of zeros)."""
-    from tilewright.run.tile_rows import rows_of
-
-    rows = rows_of(plan.yx, stored_yx)
-    out = {"ink_share": plan.ink[rows]}
-    if regions_info is not None and plan.class_fractions is not None:
-        absent = list(regions_info.get("absent") or [])
-        fractions = plan.class_fractions[rows]
-        out["region_fractions"] = np.concatenate([fractions, np.zeros((len(rows), len(absent)), np.float32)], axis=1)
-        regions_info["classes_stored"] = list(plan.classes) + absent
-    return out
 
 
 def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNamespace:
@@ -236,7 +228,7 @@ def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNames
                       regions=regions if config.keep else None, keep=keep,
                       min_region=config.min_region, max_tiles=config.max_tiles, seed=config.seed,
                       max_ink=config.max_ink)
-    glass = _glass(thumbnail, mask) if config.normalizer else None
+    glass = _glass(thumbnail, mask) if config.normalizer or config.estimate_stains else None
     mask_arr = np.asarray(mask.array, dtype=bool)
     attrs = {
         "slide_id": slide_id,

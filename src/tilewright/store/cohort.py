@@ -115,9 +115,11 @@ class Cohort:
     settings : dict or None
         The settings every served store was made with (see :func:`open_cohort`), None when
         unchecked.
+    normalization : dict or None
+        With ``normalize=``: the method and the target's digest every store's reads apply.
     """
 
-    def __init__(self, path: str | os.PathLike, settings="cohort"):
+    def __init__(self, path: str | os.PathLike, settings="cohort", normalize: str | None = None, target="cohort"):
         from tilewright.store.selection import LEFT_OUT_COLUMNS, select_stores
 
         import pandas as pd
@@ -126,6 +128,9 @@ class Cohort:
         has_manifest = (self.path / "manifest.parquet").exists() or (self.path / "manifest.csv").exists()
         self.manifest = read_manifest(self.path) if has_manifest else stores_manifest(self.path)
         self.stores, left, self.settings = select_stores(self.path, self.manifest, settings)
+        self.normalization = None
+        if normalize is not None and self.stores:
+            self.normalization = _normalize_stores(self.stores, left, str(normalize).lower(), target, self.path)
         self.left_out = pd.DataFrame(left, columns=LEFT_OUT_COLUMNS)
         if left:
             import logging
@@ -175,7 +180,26 @@ class Cohort:
         return f"Cohort({str(self.path)!r}, slides={len(self.stores)}, tiles={len(self)})"
 
 
-def open_cohort(out_dir: str | os.PathLike, *, settings="cohort") -> Cohort:
+def _normalize_stores(stores: dict, left: list, method: str, target, path) -> dict:
+    """Replace each store by one whose reads normalize to ``target`` ("cohort": the median of the
+    stores' own estimates); a store that cannot be normalized when read is left out, with why."""
+    from tilewright.store.read_normalize import median_target, resolve_target
+    from tilewright.store.settings import target_digest
+
+    target = median_target(stores.values(), method) if target == "cohort" else resolve_target(target, method)
+    for sid, store in list(stores.items()):
+        try:
+            stores[sid] = store.normalized(method, target)
+        except StoreError as exc:
+            left.append((sid, exc.reason if hasattr(exc, "reason") else str(exc)))
+            del stores[sid]
+    if not stores:
+        raise StoreError(f"no store can be normalized when read ({left[-1][1] if left else 'none'})", path)
+    return {"method": method, "target": target_digest(target), "target_dict": target}
+
+
+def open_cohort(out_dir: str | os.PathLike, *, settings="cohort", normalize: str | None = None,
+                target="cohort") -> Cohort:
     """Open a folder of tile stores: a ``tile-out`` / ``tile_cohort`` output folder, or stores
     written by ``tile_slide`` (no manifest; see :func:`stores_manifest`).
 
@@ -191,5 +215,12 @@ def open_cohort(out_dir: str | os.PathLike, *, settings="cohort") -> Cohort:
         else a :class:`StoreError` names the difference. A ``TilingConfig``, its dict or a TOML
         file: those settings. None: every complete store, unchecked. Stores left out are listed
         in ``Cohort.left_out`` with the reason, and logged.
+    normalize : {"macenko", "reinhard"}, optional
+        Normalize every tile read (stores tiled with ``estimate_stains``; see
+        :mod:`tilewright.store.read_normalize`). None: tiles as stored.
+    target : "cohort", normalizer, dict or path
+        The target of ``normalize``: ``"cohort"`` (default) the median of the served stores' own
+        estimates (what a normalizing run uses without ``--reference``), or a fitted normalizer,
+        its dict, or a JSON file of one.
     """
-    return Cohort(out_dir, settings=settings)
+    return Cohort(out_dir, settings=settings, normalize=normalize, target=target)

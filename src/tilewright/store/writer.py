@@ -223,7 +223,7 @@ class StoreWriter:
 
     def commit(self, attrs: dict, thumbnail: np.ndarray | None = None, mask: np.ndarray | None = None, *,
                overwrite: bool = True, extra: dict | None = None, expected: int | None = None,
-               per_tile: dict | None = None) -> Path:
+               per_tile: dict | None = None, arrays: dict | None = None) -> Path:
         """Write coordinates (and the pictures, unless :meth:`write_maps` did), mark complete, check
         the store is whole (:func:`tilewright.store.verify.check_store`), rename into place.
 
@@ -231,7 +231,7 @@ class StoreWriter:
         dropped on purpose); a store holding another number is refused, never committed with
         holes. Without it, the tiles appended count (the capacity is trimmed to them).
         ``per_tile`` adds arrays whose first axis is the tile (one row a stored tile, in store
-        order), e.g. each tile's ink share.
+        order), e.g. each tile's ink share; ``arrays`` other small arrays (one chunk each).
         """
         from tilewright.store.verify import check_store
 
@@ -254,6 +254,8 @@ class StoreWriter:
                 if data.shape[:1] != (self.n,):
                     raise StoreError(f"per-tile array {name!r} has {data.shape[:1]} rows for {self.n} tiles", self.final)
                 self._small(name, data)
+            for name, data in (arrays or {}).items():
+                self._small(name, np.asarray(data))
             if thumbnail is not None:
                 self.write_maps(thumbnail, mask, extra)
             full = dict(attrs)

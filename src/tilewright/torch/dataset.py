@@ -72,6 +72,12 @@ class TileStoreDataset:
         see :func:`tilewright.open_cohort`), and a list's stores only when they agree on µm/px,
         tile, normalization and codec (a ``StoreError`` names the one that differs); given
         settings: stores made with them; None: unchecked.
+    normalize : {"macenko", "reinhard"}, optional
+        Normalize tiles when read (stores tiled with ``estimate_stains``; see
+        :func:`tilewright.open_cohort`), before ``augment`` and ``transform``.
+    target : "cohort", normalizer, dict or path
+        The target of ``normalize``: ``"cohort"`` (default) the median of the served stores' own
+        estimates, or a fitted normalizer, its dict or a JSON file of one.
 
     Items are ``(image, label)`` with labels, else ``(image, (slide_index, tile_index))``; with
     ``with_info`` the info dict follows. Attributes: ``slide_ids``, ``offsets`` (first dataset
@@ -79,11 +85,20 @@ class TileStoreDataset:
     """
 
     def __init__(self, source, *, labels=None, label_column: str = "label", missing: str = "error",
-                 transform=None, augment=None, with_info: bool = False, settings="cohort"):
+                 transform=None, augment=None, with_info: bool = False, settings="cohort",
+                 normalize: str | None = None, target="cohort"):
         from tilewright.store.reader import TileStore
 
         paths = store_paths(source, settings)
         stores = [TileStore(p) for p in paths]
+        self._normalize = self._target = None
+        if normalize is not None:
+            from tilewright.store.read_normalize import median_target, resolve_target
+
+            self._normalize = str(normalize).lower()
+            self._target = (median_target(stores, self._normalize) if target == "cohort"
+                            else resolve_target(target, self._normalize))
+            stores = [s.normalized(self._normalize, self._target) for s in stores]  # refuses stores it cannot
         self.classes = None
         self.slide_labels = None
         if labels is not None:
@@ -123,7 +138,7 @@ class TileStoreDataset:
         if self._stores is None:
             self._stores = [None] * len(self.paths)
         if self._stores[s] is None:
-            self._stores[s] = TileStore(self.paths[s])
+            self._stores[s] = TileStore(self.paths[s], normalize=self._normalize, target=self._target)
         return self._stores[s]
 
     def __getitem__(self, index: int):
