@@ -77,7 +77,7 @@ def survey_slide(path: str, config: dict, slide_id: str, mpp: float | None = Non
             h0, w0 = slide.dimensions
             view = cfg.view(slide)
             row.update(backend=slide.backend, width=int(w0), height=int(h0), level0_mpp=float(slide.mpp),
-                       mpp_origin=str(getattr(slide, "mpp_origin", None) or slide.mpp_source or ""),
+                       mpp_origin=str(slide.mpp_origin or ""),
                        objective=slide.objective, levels=len(slide.levels),
                        downsamples=",".join(f"{lv.downsample:g}" for lv in slide.levels),
                        colour_profile=slide.colour.label, source_level=int(view.source_level),

@@ -39,6 +39,7 @@ class SlideResult:
     colour_profile: str = ""  # ColourInfo.label: "none", the applied profile, or "... (ignored)"
     warnings: str = ""  # "; "-joined "code: reason" messages (see tissue_mask, fit_source_checked)
     source_sha256: str = ""  # the source's full SHA-256 (TilingConfig.source_digest = "full"), else ""
+    mpp_origin: str = ""  # where mpp_source (the level-0 µm/px) came from: "aperio", "override", ...
     kept: bool = False  # a complete store of an earlier run, kept as it is (seconds: that run's)
 
     def to_row(self) -> dict:
@@ -195,7 +196,8 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
                            mpp_source=float(slide.mpp), objective=slide.objective,
                            source_level=int(view.source_level), seconds=round(time.perf_counter() - t0, 3),
                            store=str(final), colour_profile=slide.colour.label,
-                           warnings="; ".join(attrs["warnings"]), source_sha256=attrs["source"].get("sha256") or "")
+                           warnings="; ".join(attrs["warnings"]), source_sha256=attrs["source"].get("sha256") or "",
+                           mpp_origin=slide.mpp_origin or "")
 
 
 def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNamespace:
@@ -234,7 +236,8 @@ def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNames
         "slide_id": slide_id,
         "source": {"path": str(path.resolve()), "size": _source_size(path),
                    "digest": None, "backend": slide.backend},  # digest: computed aside (see _aside)
-        "mpp": float(view.mpp), "mpp_source": float(slide.mpp), "objective": slide.objective,
+        "mpp": float(view.mpp), "mpp_source": float(slide.mpp), "mpp_origin": slide.mpp_origin,
+        "objective": slide.objective,
         "source_level": int(view.source_level), "scale": float(view.scale),
         "from_level0": bool(config.from_level0),  # every tile computed from level 0, whatever the pyramid
         "dimensions": list(slide.dimensions), "shape": list(view.shape),

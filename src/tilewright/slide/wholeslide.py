@@ -61,9 +61,10 @@ class WholeSlide:
         The reader serving it.
     mpp : float
         Level-0 µm/px.
-    mpp_source : str
+    mpp_origin : str
         Where ``mpp`` came from: "override", "ome", "aperio", "tiff-tags", "imagej", "philips", "dicom" or
-        "openslide".
+        "openslide". (Called ``mpp_source`` before; that name now warns: in stores and manifests
+        ``mpp_source`` is the level-0 µm/px itself.)
     objective : float or None
         Objective power recorded by the scanner.
     dimensions : (int, int)
@@ -93,7 +94,7 @@ class WholeSlide:
         self.backend = reader.name
         self.mpp = float(resolution.mpp)
         self.objective = resolution.objective
-        self.mpp_source = resolution.source
+        self.mpp_origin = resolution.source
         self._open_args = (mpp_override, requested_backend, verify, colour_mode)
         self.colour, self.colour_transform = colour if colour is not None else (ColourInfo(), None)
         self.colour_profile = self.colour.description if self.colour.embedded else None
@@ -192,6 +193,15 @@ class WholeSlide:
         return rgb if self.colour_transform is None else self.colour_transform.apply(rgb)
 
     # -- resolution ---------------------------------------------------------------------
+    @property
+    def mpp_source(self) -> str | None:
+        """Deprecated name of :attr:`mpp_origin` (where ``mpp`` came from)."""
+        import warnings
+
+        warnings.warn("WholeSlide.mpp_source is now mpp_origin (where the µm/px came from); in stores and "
+                      "manifests mpp_source is the level-0 µm/px itself", DeprecationWarning, stacklevel=2)
+        return self.mpp_origin
+
     def choose_level(self, mpp: float, tolerance: float = VIEW_TOLERANCE, *, from_level0: bool = False) -> int:
         """Level a view at ``mpp`` reads from.
 

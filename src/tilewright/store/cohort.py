@@ -11,7 +11,7 @@ from tilewright.errors import StoreError
 
 __all__ = ["MANIFEST_COLUMNS", "write_manifest", "read_manifest", "stores_manifest", "Cohort", "open_cohort"]
 
-MANIFEST_COLUMNS = ["slide_id", "source", "status", "error", "n_tiles", "mpp_source", "objective",
+MANIFEST_COLUMNS = ["slide_id", "source", "status", "error", "n_tiles", "mpp_source", "mpp_origin", "objective",
                     "source_level", "seconds", "colour_profile", "warnings", "source_sha256"]
 
 
@@ -29,6 +29,7 @@ def write_manifest(out_dir: str | os.PathLike, rows: list[dict]) -> "object":
     df["colour_profile"] = df["colour_profile"].fillna("").astype(str)
     df["warnings"] = df["warnings"].fillna("").astype(str)  # "; "-joined "code: reason" messages
     df["source_sha256"] = df["source_sha256"].fillna("").astype(str)  # "" unless source_digest = "full"
+    df["mpp_origin"] = df["mpp_origin"].fillna("").astype(str)  # where mpp_source (a number) was read
     df["n_tiles"] = df["n_tiles"].fillna(0).astype("int64")
     for col in ("mpp_source", "objective", "seconds"):
         df[col] = pd.to_numeric(df[col], errors="coerce").astype("float64")
@@ -54,7 +55,8 @@ def read_manifest(out_dir: str | os.PathLike):
         return pd.read_parquet(pq)
     if csv.exists():  # ids and texts stay strings ("001" is not the number 1)
         return pd.read_csv(csv, keep_default_na=False, na_values=[""],
-                           dtype={"slide_id": str, "source": str, "status": str, "error": str, "source_sha256": str})
+                           dtype={"slide_id": str, "source": str, "status": str, "error": str, "source_sha256": str,
+                                                                   "mpp_origin": str})
     raise StoreError("no manifest.csv or manifest.parquet; is this a tile-out output folder?", out_dir)
 
 
