@@ -309,9 +309,10 @@ def build_audit(folder, ok, rows: dict, previews: dict, attrs: dict, skipped: li
         warnings.simplefilter("ignore", category=FutureWarning)
         embedding = embed_slides(metrics[list(COLOUR_METRICS)], seed=seed, tsne=tsne, n_clusters=n_clusters)
     tests = {"seed": seed, "n_resamples": max(1, int(n_resamples))}
-    associations = association_table(embedding.clusters, factors, **tests)
+    # an alias group (site = scanner = µm/px ...) is one test: counted once when p-values are adjusted
+    associations = association_table(embedding.clusters, factors, aliases=notes["_aliases"], **tests)
     sections = {**dict.fromkeys(COLOUR_METRICS, "colour"), **dict.fromkeys(QUALITY_METRICS, "quality")}
-    kruskal = kruskal_table(metrics, factors, sections=sections, **tests)
+    kruskal = kruskal_table(metrics, factors, sections=sections, aliases=notes["_aliases"], **tests)
     notes["_attrs"] = attrs
     notes["_tests"] = tests
     audit = CohortAudit(
