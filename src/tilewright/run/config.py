@@ -5,7 +5,6 @@ from __future__ import annotations
 import dataclasses
 import math
 import os
-import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -300,14 +299,10 @@ class TilingConfig:
     @classmethod
     def from_toml(cls, path: str | os.PathLike) -> "TilingConfig":
         """Load from a TOML file (keys as the field names; a ``[tiling]`` table is also accepted)."""
+        from tilewright.store.settings import read_settings_toml
+
         path = Path(path)
-        try:
-            data = tomllib.loads(path.read_text(encoding="utf-8"))
-        except FileNotFoundError:
-            raise ConfigError("configuration file not found", path) from None
-        except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
-            raise ConfigError(f"not valid TOML ({exc})", path) from None
-        data = data.get("tiling", data)
+        data = read_settings_toml(path)
         try:
             return cls.from_dict(data)
         except ConfigError as exc:

@@ -11,7 +11,7 @@ from __future__ import annotations
 import os
 from pathlib import Path
 
-from tilewright.store.settings import expected_target, settings_mismatch
+from tilewright.store.settings import expected_target, read_settings_toml, settings_mismatch
 
 __all__ = ["select_stores", "newest_store", "cohort_settings", "check_stores", "LEFT_OUT_COLUMNS"]
 
@@ -129,28 +129,14 @@ def cohort_settings(path: Path, settings) -> tuple[dict | None, str | None]:
         file = Path(path) / "config.toml"
         if not file.exists():
             return None, None
-        return _read_toml(file), "the cohort's config.toml"
+        return read_settings_toml(file), "the cohort's config.toml"
     if isinstance(settings, dict):
         return dict(settings), "the settings given"
     if hasattr(settings, "to_dict"):
         return settings.to_dict(), "the settings given"
     if isinstance(settings, (str, os.PathLike)):
-        return _read_toml(Path(settings)), str(settings)
+        return read_settings_toml(Path(settings)), str(settings)
     raise ConfigError(f"settings= must be 'cohort', None, a TilingConfig, a dict or a TOML file, got {settings!r}")
-
-
-def _read_toml(file: Path) -> dict:
-    import tomllib
-
-    from tilewright.errors import ConfigError
-
-    try:
-        data = tomllib.loads(file.read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise ConfigError("settings file not found", file) from None
-    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
-        raise ConfigError(f"not valid TOML ({exc})", file) from None
-    return dict(data.get("tiling", data))
 
 
 def _target_for(path: Path, expected: dict, stores: dict):

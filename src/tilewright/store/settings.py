@@ -12,7 +12,7 @@ import hashlib
 import json
 import math
 
-__all__ = ["RUN_ONLY", "target_digest", "settings_mismatch", "expected_target"]
+__all__ = ["RUN_ONLY", "target_digest", "settings_mismatch", "expected_target", "read_settings_toml"]
 
 #: Settings that do not change what a store contains. Lossless compression gives the same pixels
 #: whichever codec, and each store names its codec in its metadata, so a cohort may mix them; a
@@ -109,3 +109,23 @@ def _same(a, b) -> bool:
         except (TypeError, ValueError):
             return False
     return a == b
+
+
+def read_settings_toml(path) -> dict:
+    """The settings a TOML file holds (keys as ``TilingConfig`` fields, at the top or in a
+    ``[tiling]`` table), as a dict; a :class:`ConfigError` naming the file when it is missing or
+    not TOML."""
+    import tomllib
+    from pathlib import Path
+
+    from tilewright.errors import ConfigError
+
+    path = Path(path)
+    try:
+        data = tomllib.loads(path.read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise ConfigError("configuration file not found", path) from None
+    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
+        raise ConfigError(f"not valid TOML ({exc})", path) from None
+    return dict(data.get("tiling", data))
+
