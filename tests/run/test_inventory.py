@@ -96,6 +96,8 @@ def test_table_estimates_and_the_printed_table(cohort, tmp_path, capsys):
     for codec, ratio in BYTES_PER_RAW.items():  # ground truth: the documented ratios times the tiles
         assert (ok[f"bytes_{codec}"] == (ok["planned_tiles"] * raw * ratio).round().astype("int64")).all()
     assert (out / "plan_sites.csv").exists()
+    totals = pd.read_csv(out / "plan_totals.csv").iloc[0]
+    assert totals["planned_tiles"] == ok["planned_tiles"].sum() and totals["failed"] == 1
     # JPEG at another quality than the ratio was measured at: not guessed
     plan2 = tw.plan_cohort(src, CFG.replace(compression="jpeg", quality=70))
     assert plan2.slides["bytes_jpeg"].isna().all() and plan2.totals["bytes_jpeg"] is None

@@ -182,11 +182,9 @@ def plan_cohort(source, config: TilingConfig | None = None, *, out_dir=None, sit
         paths, given, root = found.paths, found.ids, found.root
     else:
         paths, given, root = list(source), None, None
-    if given is not None:
-        by = {os.path.realpath(p): g for p, g in zip(paths, given)}
-    paths = [str(Path(p).absolute()) for p in unique_paths(paths)]
-    given = [by.get(os.path.realpath(p)) for p in paths] if given is not None else None
-    ids = cohort_ids(paths, out_dir, root=root, given=given)
+    paths = [str(Path(p).absolute()) for p in unique_paths(paths)]  # slide_list's paths are unique already
+    # ids as a run into out_dir would give them (a slide it holds keeps its id)
+    ids = cohort_ids(paths, out_dir, root=root, given=given if given is not None and len(given) == len(paths) else None)
     items = [(p, sid, _mpp_for(mpp, p, sid)) for p, sid in zip(paths, ids)]
     batches = [items[i:i + BATCH] for i in range(0, len(items), BATCH)]
     rows: list = [None] * len(batches)

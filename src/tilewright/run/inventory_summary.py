@@ -11,8 +11,9 @@ from tilewright.errors import ConfigError
 
 __all__ = ["CohortPlan", "read_sites"]
 
-#: Files :meth:`CohortPlan.write` writes.
-PLAN_FILES = ("plan.csv", "plan.parquet", "plan_sites.csv", "plan_sites.parquet")
+#: Files :meth:`CohortPlan.write` writes (``plan_sites.*`` only with sites).
+PLAN_FILES = ("plan.csv", "plan.parquet", "plan_totals.csv", "plan_totals.parquet", "plan_sites.csv",
+              "plan_sites.parquet")
 
 
 def read_sites(sites, slide_ids, site_column: str = "site") -> dict:
@@ -134,12 +135,17 @@ class CohortPlan:
         return pd.DataFrame(rows)
 
     def write(self, folder) -> list[Path]:
-        """Write ``plan.csv``/``plan.parquet`` (and ``plan_sites.*`` with sites) into ``folder``,
-        each atomically (temporary file, then rename). Returns the paths written."""
+        """Write ``plan.csv``/``plan.parquet``, ``plan_totals.*`` (one row) and, with sites,
+        ``plan_sites.*`` into ``folder``, each atomically (temporary file, then rename). Returns the
+        paths written."""
         folder = Path(folder)
         folder.mkdir(parents=True, exist_ok=True)
         written = []
-        tables = [("plan", self.slides)] + ([("plan_sites", self.sites)] if self.sites is not None else [])
+        totals = pd.DataFrame([{k: (", ".join(f"{a} {b}" for a, b in v.items()) if isinstance(v, dict) else
+                                    ", ".join(f"{x:g}" for x in v) if isinstance(v, list) else v)
+                                for k, v in self.totals.items()}])
+        tables = [("plan", self.slides), ("plan_totals", totals)] + (
+            [("plan_sites", self.sites)] if self.sites is not None else [])
         for name, table in tables:
             for ext in ("csv", "parquet"):
                 final = folder / f"{name}.{ext}"
