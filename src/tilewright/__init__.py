@@ -40,6 +40,8 @@ _PUBLIC = {
     "tile_slide": "tilewright.run.slide",
     "SlideResult": "tilewright.run.slide",
     "tile_cohort": "tilewright.run.cohort",
+    "plan_cohort": "tilewright.run.inventory",
+    "CohortPlan": "tilewright.run.inventory_summary",
     "open_store": "tilewright.store.reader",
     "TileStore": "tilewright.store.reader",
     "open_cohort": "tilewright.store.cohort",

@@ -120,3 +120,35 @@ def test_audit_findings_skip_identifiers_and_group_aliases(raw_cohort):
     assert audit.association("scanner") == pytest.approx(audit.association("site"))
     with pytest.raises(ConfigError, match="identifier"):
         audit_cohort(out, metadata=table, source="thumbnail", tsne=False, label="patient_id")
+
+
+def test_an_alias_group_is_tested_once():
+    """site = scanner = batch (one scanner a site): one test, counted once when p-values are
+    adjusted; the aliases repeat its row (ground truth: scipy's Benjamini-Hochberg over the two
+    factors really tested)."""
+    from scipy.stats import false_discovery_control
+
+    from tilewright.audit.association import association_table
+    from tilewright.audit.metric_tests import kruskal_table
+
+    rng = np.random.default_rng(4)
+    n = 24
+    site = np.repeat(["north", "south"], n // 2)
+    clusters = pd.Series(np.where(site == "north", 0, 1), index=[f"s{i}" for i in range(n)])
+    clusters.iloc[[0, 13]] = 1 - clusters.iloc[[0, 13]]  # not a perfect split
+    factors = pd.DataFrame({"site": site, "scanner": np.where(site == "north", "A", "B"),
+                            "batch": np.where(site == "north", "7", "9"),
+                            "stain_lot": rng.choice(["x", "y"], n)}, index=clusters.index)
+    aliases = alias_groups(factors)
+    assert aliases == {"site": ["scanner", "batch"]}
+    table = association_table(clusters, factors, aliases=aliases, n_resamples=2000).set_index("factor")
+    assert list(table.loc[["scanner", "batch"], "alias_of"]) == ["site", "site"]
+    assert table.loc["site", "alias_of"] is None and table.loc["stain_lot", "alias_of"] is None
+    tested = table.loc[["site", "stain_lot"], "p_value"].to_numpy()
+    np.testing.assert_allclose(table.loc[["site", "stain_lot"], "p_adjusted"], false_discovery_control(tested))
+    for col in ("cramers_v", "p_value", "p_adjusted"):
+        assert table.loc["scanner", col] == table.loc["site", col] == table.loc["batch", col]
+    metrics = pd.DataFrame({"lab_l_mean": rng.normal(size=n)}, index=clusters.index)
+    k = kruskal_table(metrics, factors, aliases=aliases, n_resamples=500)
+    assert sorted(k.loc[k["alias_of"].isna(), "factor"]) == ["site", "stain_lot"]
+    assert set(k.loc[k["alias_of"] == "site", "factor"]) == {"scanner", "batch"}

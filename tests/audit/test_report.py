@@ -46,6 +46,12 @@ def test_report_files_and_tables(report, audits):
     assert table["slide_id"].tolist() == after.metrics.index.tolist()
     np.testing.assert_allclose(table["lab_l_mean"], after.metrics["lab_l_mean"])  # round trip of what was computed
     assert pd.read_csv(folder / "associations.csv")["factor"].tolist() == after.associations["factor"].tolist()
+    # sharpness beside colour, one row a site: the medians of the slides' own metrics
+    by_level = pd.read_csv(folder / "by_level.csv")
+    sites = by_level[by_level["factor"] == "site"].set_index("level")
+    for site, slides in after.factors.groupby("site").groups.items():
+        assert sites.loc[site, "sharpness_median"] == pytest.approx(after.metrics.loc[slides, "sharpness"].median())
+    assert "Sharpness beside colour" in path.read_text()
     assert not list(folder.glob(".report-*"))  # temporary folder removed
 
 

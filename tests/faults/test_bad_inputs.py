@@ -123,5 +123,5 @@ def test_unusable_resolution_is_a_typed_error_and_override_works(tmp_path, kind)
     _named(e.value, path)
     assert "mpp" in str(e.value)  # says how to fix it
     with tw.open(path, mpp=0.25) as s:
-        assert s.mpp == 0.25 and s.mpp_source == "override"
+        assert s.mpp == 0.25 and s.mpp_origin == "override"
         assert np.array_equal(s.read_level(0, 0, 0, 512, 768), _IMG)

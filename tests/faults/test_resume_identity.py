@@ -78,8 +78,11 @@ def test_runs_with_other_settings_keep_earlier_slides(slide, tmp_path, fast_conf
     assert res["b"].status == "ok" and res["a"].status == "failed"  # a: kept with its own settings
     cohort = tw.open_cohort(out)
     assert sorted(cohort.manifest.slide_id) == ["a", "b"]
-    assert sorted(cohort.stores) == ["a", "b"]
-    assert cohort.stores["a"].tile_size == 128 and cohort.stores["b"].tile_size == 64
+    # readers serve one set of settings (config.toml: the latest run's, tile 64); a is named as left out
+    assert sorted(cohort.stores) == ["b"]
+    assert list(cohort.left_out["slide_id"]) == ["a"] and "tile 128 -> 64" in cohort.left_out["reason"][0]
+    everything = tw.open_cohort(out, settings=None)
+    assert everything.stores["a"].tile_size == 128 and everything.stores["b"].tile_size == 64
     c = slide("c.tif", seed=4)
     tile_cohort([c], out, fast_config, progress=False)  # a third run naming only c
     assert sorted(tw.open_cohort(out).manifest.slide_id) == ["a", "b", "c"]

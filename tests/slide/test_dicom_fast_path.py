@@ -92,7 +92,7 @@ def test_levels_mpp_and_pixels_equal_openslide(series, name):
         assert [(lv.height, lv.width) for lv in s.levels] == ref_levels  # reference: OpenSlide's level list
         assert [(lv.height, lv.width) for lv in s.levels] == [im.shape[:2] for im in LEVELS]  # ground truth
         assert s.mpp == pytest.approx(ref_mpp) == pytest.approx(mpp)  # OpenSlide; Pixel Spacing written
-        assert s.mpp_source == "dicom"
+        assert s.mpp_origin == "dicom"
         for i, lv in enumerate(s.levels):
             got = s.read_level(i, 0, 0, lv.height, lv.width).astype(int)
             want = _openslide_level(files[0], i)

@@ -97,7 +97,7 @@ def test_imagej_units_in_the_description(tmp_path):
     with tifffile.TiffFile(path) as tf:  # what ImageJ writes: unit NONE, unit named in the description
         assert tf.pages[0].tags["ResolutionUnit"].value == 1 and "unit=micron" in tf.pages[0].description
     with tw.open(path) as s:
-        assert s.mpp == pytest.approx(0.2265, rel=1e-5) and s.mpp_source == "imagej"
+        assert s.mpp == pytest.approx(0.2265, rel=1e-5) and s.mpp_origin == "imagej"
         np.testing.assert_array_equal(s.read_level(0, 10, 20, 30, 40), IMG[10:40, 20:60])
 
 

@@ -50,7 +50,7 @@ def test_ome_subifd_levels_are_area_reductions(write, image):
 
     path = write("ome_zlib.ome.tif", compression="zlib", layout="ome")
     with tw.open(path) as s:
-        assert s.backend == "tiff" and len(s.levels) == 3 and s.mpp_source == "ome"
+        assert s.backend == "tiff" and len(s.levels) == 3 and s.mpp_origin == "ome"
         lv1 = s.levels[1]
         assert (lv1.height, lv1.width, lv1.downsample) == (768, 1024, 2.0)
         got = s.read_level(1, 0, 0, lv1.height, lv1.width)
@@ -65,7 +65,7 @@ def test_auto_prefers_tiff_and_falls_back(write):
     # SubIFD pyramid without resolution tags: tiff has no µm/px; OpenSlide sees the same tags
     nores = write("nores.tif", compression="zlib", mpp=None, n_levels=2)
     with tw.open(nores, mpp=0.5) as s:
-        assert s.backend == "tiff" and s.mpp == 0.5 and s.mpp_source == "override"
+        assert s.backend == "tiff" and s.mpp == 0.5 and s.mpp_origin == "override"
 
 
 def test_region_reads_touch_only_needed_tiles(write, monkeypatch):

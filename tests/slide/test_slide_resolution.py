@@ -39,7 +39,7 @@ def test_tiff_resolution_tags(tmp_path, unit, mpp):
         assert num / den == pytest.approx(per_unit / mpp, rel=1e-6)
         assert tags["ResolutionUnit"].value == (3 if unit == "cm" else 2)
     with tw.open(path) as s:
-        assert s.mpp == pytest.approx(mpp, rel=1e-6) and s.mpp_source == "tiff-tags"
+        assert s.mpp == pytest.approx(mpp, rel=1e-6) and s.mpp_origin == "tiff-tags"
     with tw.open(path, backend="openslide") as s:
         assert s.mpp == pytest.approx(mpp, rel=1e-5)  # reference: OpenSlide's own parsing
 
@@ -62,7 +62,7 @@ def test_unit_none_is_unknown(tmp_path):
         tw.open(path)
     assert "mpp=" in str(err.value) and str(path) in str(err.value)  # names file and fix
     with tw.open(path, mpp=0.25) as s:
-        assert s.mpp == 0.25 and s.mpp_source == "override"
+        assert s.mpp == 0.25 and s.mpp_origin == "override"
 
 
 def test_ome_physical_size(tmp_path):
@@ -72,7 +72,7 @@ def test_ome_physical_size(tmp_path):
     write_pyramid(path, SMALL, mpp=0.2465, layout="ome", compression="zlib", n_levels=2,
                   objective=40)
     with tw.open(path) as s:
-        assert s.mpp == pytest.approx(0.2465) and s.mpp_source == "ome"  # written above
+        assert s.mpp == pytest.approx(0.2465) and s.mpp_origin == "ome"  # written above
         assert s.objective == 40.0 and len(s.levels) == 2
 
 
@@ -97,7 +97,7 @@ def test_aperio_description(write):
     # Aperio-style description "...|AppMag = 40|MPP = 0.2500" (constructed by the writer)
     path = write("lossless_svs.tif", compression="zlib", layout="svs", objective=40)
     with tw.open(path) as s:
-        assert s.mpp == pytest.approx(0.25) and s.objective == 40.0 and s.mpp_source == "aperio"
+        assert s.mpp == pytest.approx(0.25) and s.objective == 40.0 and s.mpp_origin == "aperio"
     with tw.open(path, backend="openslide") as s:
         # reference: OpenSlide's aperio reader exposes openslide.mpp-x / objective-power
         assert s.mpp == pytest.approx(0.25) and s.objective == 40.0
@@ -137,3 +137,15 @@ def test_implausible_tags_refused(tmp_path):
         tw.open(path)
     with tw.open(path, mpp=0.5) as s:  # the override repairs a misstated file
         assert s.mpp == 0.5
+
+
+def test_mpp_source_is_the_old_name_of_mpp_origin(tmp_path):
+    """In stores and manifests ``mpp_source`` is a number; on a slide the word for where the value
+    came from is ``mpp_origin``; the old attribute still answers, with a DeprecationWarning."""
+    from helpers import write_slide
+
+    path, _ = write_slide(tmp_path / "a.tif", mpp=0.2428, size_um=(300.0, 300.0), seed=3)
+    with tw.open(path) as s:
+        assert s.mpp_origin == "tiff-tags"  # ground truth: written as TIFF resolution tags (cm)
+        with pytest.warns(DeprecationWarning, match="mpp_origin"):
+            assert s.mpp_source == "tiff-tags"

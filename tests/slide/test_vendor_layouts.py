@@ -117,5 +117,5 @@ def test_ome_other_images_are_not_levels(corpus):
         assert (450, 604) not in _levels(s)  # ground truth: the second scene written
     case = corpus("ome_macro_first")
     with tw.open(case.path) as s:
-        assert s.mpp == pytest.approx(0.2265) and s.mpp_source == "ome"  # 226.5 nm written
+        assert s.mpp == pytest.approx(0.2265) and s.mpp_origin == "ome"  # 226.5 nm written
         assert s.dimensions == (vc.H0, vc.W0)

@@ -74,7 +74,12 @@ def test_warnings_name_what_a_person_should_check(masks):
     tiny = HardSlide("speck", 6000, 8000, (Piece(3000, 4000, 300, 400),))
     little = tissue_mask(tiny.render(MPP), mpp=MPP)
     assert little.array.sum() * MPP ** 2 / 1e6 < 1.0  # ground truth: one 0.38 mm² piece
-    assert any(w.startswith("little-tissue:") for w in little.warnings)
+    assert any(w.startswith("little-tissue:") for w in little.warnings)  # 0.8 % of a 48 mm² scan
+    # a small biopsy scanned tightly (0.38 mm² on a 1.2 x 1.6 mm scan, 20 %): nothing to check
+    tight = HardSlide("biopsy", 1200, 1600, (Piece(600, 800, 300, 400),))
+    snug = tissue_mask(tight.render(MPP), mpp=MPP)
+    assert snug.array.sum() * MPP ** 2 / 1e6 < 1.0 and snug.array.mean() > 0.02  # ground truth: as built
+    assert not any(w.startswith("little-tissue:") for w in snug.warnings)
 
 
 def test_plane_fit_refused_when_ink_is_all_there_is():

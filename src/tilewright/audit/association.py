@@ -47,7 +47,7 @@ __all__ = [
 
 #: Columns of :func:`association_table`.
 ASSOCIATION_COLUMNS = ["factor", "cramers_v", "p_value", "p_adjusted", "cramers_v_uncorrected", "exact",
-                       "n_rearrangements", "chi2", "dof", "n_slides", "n_levels", "n_clusters"]
+                       "n_rearrangements", "chi2", "dof", "n_slides", "n_levels", "n_clusters", "alias_of"]
 
 
 @dataclass(frozen=True)
@@ -315,7 +315,8 @@ def _log_cells(tables: np.ndarray) -> np.ndarray:
 
 
 def association_table(clusters: pd.Series, factors: pd.DataFrame, *, seed: int = 0,
-                      exact_limit: int = EXACT_LIMIT, n_resamples: int = N_RESAMPLES) -> pd.DataFrame:
+                      exact_limit: int = EXACT_LIMIT, n_resamples: int = N_RESAMPLES,
+                      aliases: dict | None = None) -> pd.DataFrame:
     """Exact or permutation test and bias-corrected Cramér's V of clusters against every factor.
 
     Parameters
@@ -330,16 +331,24 @@ def association_table(clusters: pd.Series, factors: pd.DataFrame, *, seed: int =
         does not depend on which other factors are tested).
     exact_limit, n_resamples :
         See :func:`association_test`.
+    aliases : dict, optional
+        First factor -> factors splitting the slides exactly like it
+        (:func:`tilewright.audit.factors.alias_groups`): a group is tested once, under its first
+        factor, and counted once in the adjustment; the others get its row, with ``alias_of``.
 
     Returns
     -------
     DataFrame
         Columns ``factor, cramers_v`` (Bergsma-corrected)``, p_value, p_adjusted``
-        (Benjamini-Hochberg over the factors)``, cramers_v_uncorrected, exact, n_rearrangements,
-        chi2, dof, n_slides, n_levels, n_clusters``, sorted by decreasing corrected V.
+        (Benjamini-Hochberg over the factors tested)``, cramers_v_uncorrected, exact,
+        n_rearrangements, chi2, dof, n_slides, n_levels, n_clusters, alias_of`` (the factor whose
+        test a row repeats, or None), sorted by decreasing corrected V.
     """
     rows = []
+    members = {m: lead for lead, ms in (aliases or {}).items() for m in ms}
     for name in factors.columns:
+        if name in members:
+            continue
         aligned = factors[name].reindex(clusters.index)
         test = association_test(clusters.to_numpy(), aligned.to_numpy(), exact_limit=exact_limit,
                                 n_resamples=n_resamples, seed=stable_seed(seed, name))
@@ -350,7 +359,17 @@ def association_table(clusters: pd.Series, factors: pd.DataFrame, *, seed: int =
             "n_slides": test.n, "n_levels": int(aligned.dropna().nunique()),
             "n_clusters": int(clusters[aligned.notna()].nunique()),
         })  # fmt: skip
-    out = pd.DataFrame(rows, columns=[c for c in ASSOCIATION_COLUMNS if c != "p_adjusted"])
+    out = pd.DataFrame(rows, columns=[c for c in ASSOCIATION_COLUMNS if c not in ("p_adjusted", "alias_of")])
     out.insert(3, "p_adjusted", bh_adjust(out["p_value"].to_numpy(dtype=np.float64)))
+    out = repeat_for_aliases(out, members)
     return out.sort_values(["cramers_v", "p_value"], ascending=[False, True], na_position="last",
                            kind="stable").reset_index(drop=True)
+
+
+def repeat_for_aliases(table: pd.DataFrame, members: dict) -> pd.DataFrame:
+    """``table`` (one row a tested factor, column ``factor``) with each alias given its group's
+    rows, marked ``alias_of``; tested rows get ``alias_of`` None."""
+    table = table.assign(alias_of=None)
+    extra = [table[table["factor"] == lead].assign(factor=m, alias_of=lead) for m, lead in members.items()]
+    return pd.concat([table, *extra], ignore_index=True) if extra else table
+

@@ -87,6 +87,15 @@ class CohortAudit:
     quality_findings: list = field(default_factory=list)
 
     @property
+    def by_level(self) -> pd.DataFrame:
+        """Sharpness beside colour for every level of every factor: median sharpness (quartiles,
+        ratio to the other levels) and median tissue CIELAB with its CIEDE2000 distance from the
+        other levels' (see :func:`tilewright.audit.by_level.level_table`)."""
+        from tilewright.audit.by_level import level_table
+
+        return level_table(self.metrics, self.factors)
+
+    @property
     def clusters(self) -> pd.Series:
         """Colour cluster of every slide."""
         return self.embedding.clusters
@@ -300,9 +309,10 @@ def build_audit(folder, ok, rows: dict, previews: dict, attrs: dict, skipped: li
         warnings.simplefilter("ignore", category=FutureWarning)
         embedding = embed_slides(metrics[list(COLOUR_METRICS)], seed=seed, tsne=tsne, n_clusters=n_clusters)
     tests = {"seed": seed, "n_resamples": max(1, int(n_resamples))}
-    associations = association_table(embedding.clusters, factors, **tests)
+    # an alias group (site = scanner = µm/px ...) is one test: counted once when p-values are adjusted
+    associations = association_table(embedding.clusters, factors, aliases=notes["_aliases"], **tests)
     sections = {**dict.fromkeys(COLOUR_METRICS, "colour"), **dict.fromkeys(QUALITY_METRICS, "quality")}
-    kruskal = kruskal_table(metrics, factors, sections=sections, **tests)
+    kruskal = kruskal_table(metrics, factors, sections=sections, aliases=notes["_aliases"], **tests)
     notes["_attrs"] = attrs
     notes["_tests"] = tests
     audit = CohortAudit(

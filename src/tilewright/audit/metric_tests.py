@@ -28,7 +28,8 @@ from tilewright.audit.permutation import EXACT_LIMIT, N_RESAMPLES, rearrangement
 
 __all__ = ["kruskal_h", "kruskal_test", "kruskal_table"]
 
-KRUSKAL_COLUMNS = ["factor", "metric", "section", "h", "p_value", "p_adjusted", "exact", "n_groups", "n_slides"]
+KRUSKAL_COLUMNS = ["factor", "metric", "section", "h", "p_value", "p_adjusted", "exact", "n_groups", "n_slides",
+                   "alias_of"]
 
 
 def kruskal_h(values, codes) -> np.ndarray:
@@ -127,7 +128,8 @@ def _tests(table: np.ndarray, codes: np.ndarray, null) -> tuple[np.ndarray, np.n
 
 
 def kruskal_table(metrics: pd.DataFrame, factors: pd.DataFrame, *, sections: dict | None = None, seed: int = 0,
-                  exact_limit: int = EXACT_LIMIT, n_resamples: int = N_RESAMPLES) -> pd.DataFrame:
+                  exact_limit: int = EXACT_LIMIT, n_resamples: int = N_RESAMPLES,
+                  aliases: dict | None = None) -> pd.DataFrame:
     """Kruskal–Wallis test of every metric across the levels of every factor.
 
     Parameters
@@ -143,17 +145,25 @@ def kruskal_table(metrics: pd.DataFrame, factors: pd.DataFrame, *, sections: dic
         Seed of the random rearrangements (mixed with the factor's name).
     exact_limit, n_resamples :
         See :func:`kruskal_test`.
+    aliases : dict, optional
+        As for :func:`tilewright.audit.association.association_table`: an alias group is tested
+        once; its other factors repeat the first one's rows (``alias_of``).
 
     Returns
     -------
     DataFrame
         Columns ``factor, metric, section, h, p_value, p_adjusted`` (Benjamini–Hochberg within
-        each factor × section)``, exact, n_groups, n_slides``, sorted by factor then p-value. H and
-        p are NaN when fewer than two groups have data or all values are equal.
+        each factor × section)``, exact, n_groups, n_slides, alias_of``, sorted by factor then
+        p-value. H and p are NaN when fewer than two groups have data or all values are equal.
     """
+    from tilewright.audit.association import repeat_for_aliases
+
     rows = []
+    members = {m: lead for lead, ms in (aliases or {}).items() for m in ms}
     table = metrics.apply(pd.to_numeric, errors="coerce").to_numpy(dtype=np.float64)
     for factor in factors.columns:
+        if factor in members:
+            continue
         levels = factors[factor].reindex(metrics.index)
         all_codes = pd.factorize(levels.astype(object), sort=True)[0].astype(np.int64)
         cache: dict = {}
@@ -179,10 +189,11 @@ def kruskal_table(metrics: pd.DataFrame, factors: pd.DataFrame, *, sections: dic
             h, p, exact, groups, slides = results[j]
             rows.append({"factor": factor, "metric": metric, "section": (sections or {}).get(metric, "all"),
                          "h": float(h), "p_value": float(p), "exact": exact, "n_groups": groups, "n_slides": slides})
-    out = pd.DataFrame(rows, columns=[c for c in KRUSKAL_COLUMNS if c != "p_adjusted"])
+    out = pd.DataFrame(rows, columns=[c for c in KRUSKAL_COLUMNS if c not in ("p_adjusted", "alias_of")])
     adjusted = np.full(len(out), np.nan)
     for _, family in out.groupby(["factor", "section"], sort=False).groups.items():
         index = np.asarray(family)
         adjusted[index] = bh_adjust(out["p_value"].to_numpy(dtype=np.float64)[index])
     out.insert(5, "p_adjusted", adjusted)
+    out = repeat_for_aliases(out, members)
     return out.sort_values(["factor", "p_value"], na_position="last", kind="stable").reset_index(drop=True)

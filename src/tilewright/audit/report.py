@@ -153,7 +153,13 @@ def _html(audit, figures: dict, before, names) -> str:
         '<ol class="findings">', *[f"<li>{html.escape(s)}</li>" for s in audit.quality_findings], "</ol>",
         _table(_quality_rows(audit.kruskal)),
         '<p class="muted">Not part of the colour clusters: a biopsy and a resection differ in tissue amount, '
-        "not in colour.</p></section>",
+        "not in colour.</p>",
+        "<h3>Sharpness beside colour, by factor level</h3>",
+        _table(audit.by_level, digits=4),
+        '<p class="muted">Median sharpness (variance of the Laplacian of tissue tiles; quartiles) and its ratio to '
+        "the other levels' slides; median tissue colour (CIELAB) and its CIEDE2000 distance from the other levels' "
+        "median. A site whose tiles are softer or whose colour differs offers a shortcut either way (also in "
+        "by_level.csv).</p></section>",
         '<section id="clusters"><h2>Slides in each cluster</h2>',
         *[_img(n, a) for n, a in figures["clusters"]],
         "</section>",
@@ -161,7 +167,7 @@ def _html(audit, figures: dict, before, names) -> str:
         _table(audit.skipped),
         "</section>",
         '<p class="muted">Files: audit.parquet (metrics, cluster, coordinates), associations.csv, kruskal.csv, '
-        "findings.txt and the PNG figures beside this page.</p>",
+        "by_level.csv, findings.txt and the PNG figures beside this page.</p>",
         "</main></body></html>",
     ]
     return "\n".join(parts)
@@ -214,6 +220,7 @@ def write_report(audit, folder, *, before=None, names=None) -> Path:
         table.reset_index().to_parquet(tmp / "audit.parquet", index=False)
         audit.associations.to_csv(tmp / "associations.csv", index=False)
         audit.kruskal.to_csv(tmp / "kruskal.csv", index=False)
+        audit.by_level.to_csv(tmp / "by_level.csv", index=False)
         (tmp / "findings.txt").write_text(_findings_text(audit, before, names), encoding="utf-8")
         figures = _draw(audit, tmp)
         (tmp / "report.html").write_text(_html(audit, figures, before, names), encoding="utf-8")

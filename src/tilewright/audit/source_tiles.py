@@ -62,7 +62,8 @@ def read_source_tiles(attrs: dict, yx: np.ndarray, tile: int, store: Path) -> np
         options["colour_profile"] = config["colour_profile"]
     try:
         with open_slide(path, **options) as slide:
-            view = slide.at_mpp(float(attrs["mpp"]), tolerance=float(config.get("tolerance", 0.005)))
+            view = slide.at_mpp(float(attrs["mpp"]), tolerance=float(config.get("tolerance", 0.005)),
+                                from_level0=bool(config.get("from_level0", False)))
             recorded = attrs.get("source_level")
             if recorded is not None and int(view.source_level) != int(recorded):
                 raise StoreError(f"source slide {path} now resamples from level {view.source_level}, the store "

@@ -1,5 +1,5 @@
-"""The ``tilewright`` umbrella command: ``tile`` (same as tile-out), ``demo``, ``inspect``, ``audit``,
-``split``, ``status``."""
+"""The ``tilewright`` umbrella command: ``tile`` (same as tile-out), ``plan``, ``demo``, ``inspect``,
+``audit``, ``split``, ``status``."""
 
 from __future__ import annotations
 
@@ -20,6 +20,10 @@ def main(argv=None) -> int:
         from tilewright.cli.tile_out import main as tile_out
 
         return tile_out(argv[1:])
+    if argv[:1] == ["plan"]:  # takes tile-out's options: its own parser
+        from tilewright.cli.plan_cmd import main as plan
+
+        return plan(argv[1:])
     from tilewright.cli.parser import CommandParser
 
     parser = CommandParser(
@@ -31,6 +35,8 @@ def main(argv=None) -> int:
     parser.add_argument("--version", action="version", version=f"tilewright {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
     sub.add_parser("tile", help="tile slides into stores (same as the tile-out command)", add_help=False)
+    sub.add_parser("plan", help="survey a cohort before tiling it: µm/px, tissue, planned tiles, bytes a codec "
+                                "(takes tile-out's SOURCE, OUT and options)", add_help=False)
     for name in SUBCOMMANDS:
         importlib.import_module(name).register(sub)
     args, extra = parser.parse_known_args(argv)

@@ -42,6 +42,10 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--mpp-tolerance", type=float,
                    help="relative difference under which a pyramid level is used as is instead of "
                         "resampled (default 0.005 = 0.5 %%; the store records the true µm/px)")
+    g.add_argument("--from-level0", action="store_true", default=None,
+                   help="compute every tile from level 0 (area-averaged), never from a scanner's own lower "
+                        "level: tiles of every scanner made one way (default: a level within --mpp-tolerance is "
+                        "used as is)")
     g.add_argument("--tile", type=int, help="tile side in pixels (default 256)")
     g.add_argument("--stride", type=int, help="grid step in pixels (default: the tile side, no overlap)")
     g.add_argument("--min-tissue", type=float, help="minimum tissue fraction of a tile (default 0.5)")
@@ -64,12 +68,18 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--dark-od", type=float,
                    help="mean optical density above which --exclude-dark cuts a pixel out (default 0.9; a fold ~0.3-0.6)")
     g.add_argument("--ink-margin-um", type=float, help="grow marker ink by this many µm before cutting it out (default 16)")
+    g.add_argument("--max-ink", type=float,
+                   help="drop tiles more than this share marker ink (0-1; default: no cap; each store keeps every "
+                        "tile's ink share)")
     g = p.add_argument_group("stain")
     g.add_argument("--normalize", choices=["macenko", "reinhard", "none"],
                    help="stain normalization (default none)")
     g.add_argument("--reference", help="reference image (PNG/JPEG/TIFF), slide (a sample of its tissue tiles is read, "
                                        "never all of it) or fitted-normalizer JSON; without it "
                                        "the cohort's own median stain is the target, saved as OUT/stain_target.<method>.json")
+    g.add_argument("--estimate-stains", action="store_true", default=None,
+                   help="store un-normalized tiles plus each slide's Macenko and Reinhard stain estimates, to "
+                        "normalize when reading (open_store/open_cohort/datasets normalize=...) to any target")
     g = p.add_argument_group("regions")
     g.add_argument("--regions", help="region annotations: a GeoJSON/tile-table file, or a folder with one file a slide id")
     g.add_argument("--keep", help="region classes to keep, comma separated (needed with --regions; case and "
@@ -96,6 +106,10 @@ def build_parser() -> argparse.ArgumentParser:
                    help="tile compression (default lz4, lossless; zstd: ~12%% fewer bytes, ~3x the CPU; webp: "
                         "lossless, ~half the bytes, slower; jpeg: lossy, ~14%% of the raw bytes at --quality 90)")
     g.add_argument("--quality", type=int, help="JPEG quality 1-100 with --compression jpeg (default 90)")
+    g.add_argument("--source-digest", choices=("sampled", "full"),
+                   help="sampled (default): each store records a digest of 16 MiB of its source (the resume check; "
+                        "equals no archive checksum); full: also the SHA-256 of every byte (what sha256sum prints), "
+                        "read once beside the tiles")
     g.add_argument("--quiet", action="store_true", help="no progress output (the log file is still written)")
     g.add_argument("--verbose", action="store_true",
                    help="the closing summary lists every slide (default: all up to 20 slides, else failures)")
@@ -110,7 +124,8 @@ _FIELDS = {"mpp": "mpp", "tile": "tile", "stride": "stride", "min_tissue": "min_
            "exclude_dark": "exclude_dark", "dark_od": "dark_od", "ink_margin_um": "ink_margin_um",
            "class_property": "class_property", "default_class": "default_class", "object_types": "object_types",
            "colour_profile": "colour_profile", "mpp_tolerance": "tolerance",
-           "quality": "quality"}
+           "quality": "quality", "source_digest": "source_digest", "from_level0": "from_level0",
+           "max_ink": "max_ink", "estimate_stains": "estimate_stains"}
 
 
 def config_from_args(args):
@@ -177,12 +192,11 @@ def _share_cores(config, args):
     return config.replace(threads=max(1, (os.cpu_count() or 2) // args.workers))
 
 
-def _check_tiles_fit(paths, config, mpp) -> None:
+def _check_tiles_fit(paths, ids, config, mpp) -> None:
     from tilewright.run.cohort import _mpp_for
     from tilewright.run.feasible import check_tiles_fit
-    from tilewright.store.layout import slide_ids
 
-    check_tiles_fit(paths, config, [_mpp_for(mpp, str(p), sid) for p, sid in zip(paths, slide_ids(paths))])
+    check_tiles_fit(paths, config, [_mpp_for(mpp, str(p), sid) for p, sid in zip(paths, ids)])
 
 
 def run(args, config) -> int:
@@ -193,22 +207,25 @@ def run(args, config) -> int:
     from tilewright.cli.summary import print_summary
     from tilewright.run.events import LogProgress, ProgressTracker
     from tilewright.run.cohort import tile_cohort
-    from tilewright.run.sources import find_slides, read_mpp_table
+    from tilewright.run.naming import cohort_ids
+    from tilewright.run.sources import read_mpp_table, slide_list, unique_paths
 
-    paths = find_slides(args.source)
+    found = slide_list(args.source)
+    paths = found.paths
     if not paths:
         raise ConfigError("no slide files found (looked for .svs .tif .tiff .ndpi .mrxs .scn .bif .dcm ...)",
                           args.source)
+    # the ids the run will use (tile_cohort settles them again under the output folder's lock)
+    ids = cohort_ids([Path(p).absolute() for p in unique_paths(paths)], args.out, root=found.root,
+                     given=found.ids, where=args.source)
     mpp = args.source_mpp
     if args.mpp_table:
         table = read_mpp_table(args.mpp_table)
         mpp = {k: v for k, v in table.items()}
         if args.source_mpp is not None:
-            from tilewright.store.layout import slide_ids
-
-            for sid, p in zip(slide_ids(paths), paths):
+            for sid in ids:
                 mpp.setdefault(sid, args.source_mpp)
-    _check_tiles_fit(paths, config, mpp)  # settings that fit no slide: exit 2, nothing written
+    _check_tiles_fit(paths, ids, config, mpp)  # settings that fit no slide: exit 2, nothing written
     out = Path(args.out)
     try:
         out.mkdir(parents=True, exist_ok=True)
@@ -230,7 +247,8 @@ def run(args, config) -> int:
     t0 = time.perf_counter()
     with bar:
         results = tile_cohort(paths, out, config, scheduler=args.scheduler, workers=args.workers,
-                              overwrite=args.overwrite, mpp=mpp, progress=False, on_progress=totals)
+                              overwrite=args.overwrite, mpp=mpp, progress=False, on_progress=totals,
+                              ids=found.ids, root=found.root)
     rows = [r.to_row() for r in results]
     if not args.quiet:
         print_summary(rows, out, seconds=time.perf_counter() - t0, megapixels=totals.megapixels,

@@ -12,7 +12,7 @@ from tilewright.errors import TilewrightError
 from tilewright.run.config import TilingConfig
 from tilewright.run.ledger import INTERRUPTED
 from tilewright.run.slide import SlideResult
-from tilewright.store.layout import slide_ids, store_path
+from tilewright.store.layout import store_path
 
 __all__ = ["tile_cohort", "run_one", "stain_target_path", "STAIN_TARGET_FILE"]
 
@@ -187,7 +187,7 @@ def _stain_target(paths, out_dir: Path, config: TilingConfig, mpps, compute, ref
 
 def tile_cohort(paths, out_dir, config: TilingConfig | None = None, *, scheduler=None, workers=None,
                 progress=True, overwrite: bool = False, mpp: dict | float | None = None,
-                on_result=None, on_progress=None) -> list[SlideResult]:
+                on_result=None, on_progress=None, ids=None, root=None) -> list[SlideResult]:
     """Tile every slide into ``out_dir`` and keep the manifest current.
 
     Parameters
@@ -217,6 +217,13 @@ def tile_cohort(paths, out_dir, config: TilingConfig | None = None, *, scheduler
         Called with every :class:`tilewright.run.events.ProgressEvent` of the run: slides
         planned, tiles read per block (also from dask workers), slides finished. The same counts
         go to ``OUT/progress.json`` (rewritten atomically every few seconds).
+    ids : list or dict, optional
+        Slide ids chosen by the caller: a list aligned with ``paths``, or a dict path → id (None
+        or missing: derived). A slide the folder already holds keeps its id.
+    root : path, optional
+        The folder derived ids are relative to when file names are shared (see
+        :func:`tilewright.run.naming.cohort_ids`; default: the deepest folder holding every path).
+        Give the slides' top folder so that ids do not depend on which slides a run lists.
 
     Returns
     -------
@@ -231,13 +238,15 @@ def tile_cohort(paths, out_dir, config: TilingConfig | None = None, *, scheduler
     slides this run did not reach and of earlier runs into the same folder; a run that stops
     before any slide finished leaves the manifest and ``config.toml`` as they were
     (:mod:`tilewright.run.ledger`). A complete store is kept only when this run would write the
-    same one (:mod:`tilewright.run.identity`).
+    same one (:mod:`tilewright.run.identity`). A slide the folder already holds keeps its id
+    (:func:`tilewright.run.naming.cohort_ids`): adding slides never renames a store.
     """
     from tilewright.run.cluster import run_cluster
     from tilewright.run.events import LogProgress, ProgressEvent, ProgressTracker
     from tilewright.run.execute import execute
     from tilewright.run.ledger import Ledger
     from tilewright.run.lock import output_lock
+    from tilewright.run.naming import cohort_ids, given_ids
     from tilewright.run.reporting import events_from
     from tilewright.run.sources import unique_paths
 
@@ -252,16 +261,18 @@ def tile_cohort(paths, out_dir, config: TilingConfig | None = None, *, scheduler
 
         raise StoreError(f"cannot create the output folder ({exc.strerror or exc}); choose a writable "
                          "folder path", out_dir) from None
+    given = given_ids(paths, ids)
     paths = [str(Path(p).absolute()) for p in unique_paths(paths)]
-    ids = slide_ids(paths)
-    mpps = [_mpp_for(mpp, p, i) for p, i in zip(paths, ids)]
     reference = None
     if config.normalizer and config.reference is not None:  # a bad reference stops the run before any slide
         from tilewright.run.reference import make_target
 
         reference = make_target(config.normalizer, config.reference, config).to_dict()
     plain = LogProgress() if progress is True and on_progress is None and on_result is None else None
-    with output_lock(out_dir), run_cluster(scheduler, workers, paths, out_dir, ids) as (client, stop_name):
+    # ids are chosen once the folder is locked (what it holds cannot change under them)
+    with output_lock(out_dir), run_cluster(scheduler, workers, paths, out_dir, ids := cohort_ids(
+            paths, out_dir, root=root, given=given(paths))) as (client, stop_name):
+        mpps = [_mpp_for(mpp, p, i) for p, i in zip(paths, ids)]
         ledger = Ledger(out_dir, paths, ids, config.to_toml())
         tracker = ProgressTracker(out_dir, len(paths), [on_progress, plain])
 

@@ -5,7 +5,6 @@ from __future__ import annotations
 import dataclasses
 import math
 import os
-import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -50,6 +49,16 @@ class TilingConfig:
         Relative difference under which a pyramid level is used as is for the tiles (default
         0.005: the scale error stays under 1.3 px across a 256-px tile); otherwise the nearest
         finer level is area-averaged down to ``mpp``. The store records the true µm/px.
+    from_level0 : bool
+        Take every tile from level 0 (area-averaged to ``mpp``, or as is within ``tolerance``),
+        whatever the pyramid offers (default False: the nearest level, see ``tolerance``). Scanners
+        make their own lower levels with their own filters and JPEG settings, so tiles taken
+        from them differ in sharpness by scanner; from level 0 every slide's tiles are made
+        one way. Costs decoding up to 4x the pixels where a level would have served.
+    max_ink : float or None
+        Drop tiles whose footprint is more than this share marker ink (the tissue mask's ink,
+        grown by ``ink_margin_um``); None keeps them (default). Every store keeps each tile's ink
+        share (``ink``).
     min_sharpness : float or None
         Drop tiles whose variance of the Laplacian is lower (blur).
     exclude_ink, exclude_dark : bool
@@ -95,6 +104,12 @@ class TilingConfig:
         Tiles sampled to estimate a slide's own stain once.
     per_tile_stain : bool
         Estimate the source stain per tile instead of once per slide.
+    estimate_stains : bool
+        Store un-normalized tiles plus the slide's stain estimates (Macenko and Reinhard, from the
+        same ``stain_sample`` tiles a normalizing run uses, against the slide's glass) and a
+        sample of its tissue pixels, so readers normalize when reading (``open_store(...,
+        normalize=...)``, ``open_cohort``, the datasets) to any target, without re-tiling. Not with
+        ``normalizer`` (tiles are normalized once, either way).
     threads : int
         Reader threads inside one slide.
     qc_overlay : bool
@@ -103,6 +118,12 @@ class TilingConfig:
         Check every decoded JPEG source tile for damage decoders pass silently (on by default;
         see :func:`tilewright.open`): a damaged slide fails with the tile named instead of
         storing garbage pixels. ``False`` skips the check (faster JPEG decoding, garbage kept).
+    source_digest : {"sampled", "full"}
+        ``"sampled"`` (default): each store records the sampled digest of its source (16 MiB
+        read; the resume check). ``"full"`` also records the SHA-256 of every byte
+        (``source.sha256``, the manifest's ``source_sha256``: what ``sha256sum`` prints, to compare
+        with an archive's checksums), read once beside the tiles. See
+        :mod:`tilewright.store.provenance` for what each can and cannot prove.
     colour_profile : {"apply", "ignore"}
         ``"apply"`` converts pixels from each slide's embedded ICC profile to sRGB before the
         mask, stain estimate and tiles see them (see :mod:`tilewright.slide.colour`);
@@ -120,6 +141,8 @@ class TilingConfig:
     seed: int = 0
     mask_mpp: float = 8.0
     tolerance: float = 0.005
+    from_level0: bool = False
+    max_ink: float | None = None
     min_sharpness: float | None = None
     exclude_ink: bool = True
     exclude_dark: bool = False
@@ -139,10 +162,12 @@ class TilingConfig:
     block: int = 2048
     stain_sample: int = 64
     per_tile_stain: bool = False
+    estimate_stains: bool = False
     threads: int = 2
     qc_overlay: bool = True
     verify_jpeg: bool = True
     colour_profile: str = "apply"
+    source_digest: str = "sampled"
     extra: dict = field(default_factory=dict, repr=False)
 
     def __post_init__(self):
@@ -177,6 +202,11 @@ class TilingConfig:
             positive("stride", self.stride, int)
         if self.max_tiles is not None:
             positive("max_tiles", self.max_tiles, int)
+        if self.max_ink is not None and (isinstance(self.max_ink, bool) or not isinstance(self.max_ink, (int, float))
+                                         or not 0 <= self.max_ink <= 1):
+            raise ConfigError(f"max_ink must lie between 0 and 1 (a share of the tile), got {self.max_ink!r}")
+        if not isinstance(self.from_level0, bool):
+            raise ConfigError(f"from_level0 must be true or false, got {self.from_level0!r}")
         for name in ("min_tissue", "min_region"):
             v = getattr(self, name)
             if not isinstance(v, (int, float)) or not 0 <= v <= 1:
@@ -193,6 +223,10 @@ class TilingConfig:
             self.compression = self.compression.lower()
         if self.compression not in _COMPRESSIONS:
             raise ConfigError(f"compression must be one of {', '.join(_COMPRESSIONS)}, got {self.compression!r}")
+        from tilewright.store.provenance import DIGESTS
+
+        if self.source_digest not in DIGESTS:
+            raise ConfigError(f"source_digest must be sampled or full, got {self.source_digest!r}")
         if self.colour_profile not in _COLOUR_PROFILES:
             raise ConfigError(f"colour_profile must be apply or ignore, got {self.colour_profile!r}")
         if isinstance(self.quality, bool) or not isinstance(self.quality, int) or not 1 <= self.quality <= 100:
@@ -202,12 +236,19 @@ class TilingConfig:
             raise ConfigError(f"reference must be an image path or a fitted normalizer dict, got {type(self.reference).__name__}")
         if isinstance(self.reference, os.PathLike):
             self.reference = os.fspath(self.reference)
+        if self.estimate_stains and self.normalizer is not None:
+            raise ConfigError("estimate_stains= (--estimate-stains) stores un-normalized tiles for normalizing when "
+                              f"reading; normalizer= (--normalize {self.normalizer}) normalizes them now: choose one")
         if self.reference is not None and self.normalizer is None:  # never silently ignored
             method = self.reference.get("method") if isinstance(self.reference, dict) else None
             raise ConfigError("reference= (--reference) is the target of stain normalization and needs normalizer= "
                               f"(--normalize {method if method in _NORMALIZERS[1:] else 'macenko or reinhard'}); "
                               "without it the reference would be ignored")
         return self
+
+    def view(self, slide):
+        """The view of ``slide`` these settings cut tiles from (µm/px, tolerance, from_level0)."""
+        return slide.at_mpp(self.mpp, tolerance=self.tolerance, from_level0=self.from_level0)
 
     def mask_options(self) -> dict:
         """Keyword arguments of :func:`tilewright.tissue.mask.tissue_mask` these settings choose."""
@@ -258,14 +299,10 @@ class TilingConfig:
     @classmethod
     def from_toml(cls, path: str | os.PathLike) -> "TilingConfig":
         """Load from a TOML file (keys as the field names; a ``[tiling]`` table is also accepted)."""
+        from tilewright.store.settings import read_settings_toml
+
         path = Path(path)
-        try:
-            data = tomllib.loads(path.read_text(encoding="utf-8"))
-        except FileNotFoundError:
-            raise ConfigError("configuration file not found", path) from None
-        except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
-            raise ConfigError(f"not valid TOML ({exc})", path) from None
-        data = data.get("tiling", data)
+        data = read_settings_toml(path)
         try:
             return cls.from_dict(data)
         except ConfigError as exc:

@@ -37,7 +37,7 @@ def check_tiles_fit(paths, config, mpps=None) -> None:
     for path, mpp in zip(paths, mpps):
         try:
             with open_slide(path, mpp=mpp, verify=False) as slide:
-                shape = tuple(int(s) for s in slide.at_mpp(config.mpp, tolerance=config.tolerance).shape)
+                shape = tuple(int(s) for s in config.view(slide).shape)
         except TilewrightError:
             continue
         if min(shape) >= config.tile:

@@ -11,35 +11,15 @@ more field in both builders.
 
 from __future__ import annotations
 
-import hashlib
-import json
-import math
 import os
 
-__all__ = ["RUN_ONLY", "run_identity", "store_identity", "identity_changes", "target_digest"]
+from tilewright.store.settings import RUN_ONLY, _same, _short, target_digest  # noqa: F401 - public here too
 
-#: Settings that do not change what a store contains. Lossless compression gives the same pixels
-#: whichever codec, and each store names its codec in its metadata, so a cohort may mix them; a
-#: lossy codec and its quality do change the tiles: they count as the field ``compression``
-#: (``tile_identity``: "lossless" or "jpeg quality 90").
-RUN_ONLY = ("threads", "verify_jpeg", "qc_overlay", "compression", "quality")
+__all__ = ["RUN_ONLY", "run_identity", "store_identity", "identity_changes", "target_digest"]
 
 #: Field names (they appear in the messages of refused resumes).
 SOURCE_SIZE, SOURCE_DIGEST, LEVEL0_MPP, STAIN_TARGET = (
     "source size", "source digest", "level-0 µm/px", "stain target")
-
-
-def target_digest(target) -> str | None:
-    """SHA-256 of a fitted normalizer's dictionary (canonical JSON), or None for no target."""
-    if target is None:
-        return None
-    if isinstance(target, dict):  # through the normalizer, as a run binds it: one form per target
-        from tilewright.stain.registry import normalizer_from_dict
-
-        target = normalizer_from_dict(target)
-    d = target.to_dict()
-    text = json.dumps(d, sort_keys=True, separators=(",", ":"), default=float)
-    return "sha256:" + hashlib.sha256(text.encode()).hexdigest()
 
 
 def _settings(config: dict) -> dict:
@@ -99,15 +79,6 @@ def store_identity(attrs: dict) -> dict:
     return ident
 
 
-def _same(a, b) -> bool:
-    if isinstance(a, float) or isinstance(b, float):
-        try:
-            return math.isclose(float(a), float(b), rel_tol=1e-9)
-        except (TypeError, ValueError):
-            return False
-    return a == b
-
-
 def identity_changes(old: dict, new: dict) -> list[str]:
     """What differs between a store's identity and this run's, one ``"name old -> new"`` text a
     field (fields the store does not record are not compared)."""
@@ -117,15 +88,19 @@ def identity_changes(old: dict, new: dict) -> list[str]:
         if key not in old:
             if key in (SOURCE_SIZE, SOURCE_DIGEST, LEVEL0_MPP, STAIN_TARGET):
                 continue  # not recorded by the store's version
-            if new.get(key) is None:
-                continue  # a setting added later, at its unset default
+            if new.get(key) is None or _is_default(key, new.get(key)):
+                continue  # a setting added later, at its default: the store was made as it would be now
         if not _same(old.get(key), new.get(key)):
             out.append(f"{key} {_short(old.get(key))} -> {_short(new.get(key))}")
     return out
 
 
-def _short(value) -> str:
-    text = repr(value)
-    if isinstance(value, str) and value.startswith("sha256"):
-        text = repr(value.split(":", 1)[-1][:12])
-    return text if len(text) <= 40 else text[:37] + "..."
+def _is_default(key: str, value) -> bool:
+    """Whether ``value`` is :class:`TilingConfig`'s default for the setting ``key``."""
+    import dataclasses
+
+    from tilewright.run.config import TilingConfig
+
+    field = TilingConfig.__dataclass_fields__.get(key)
+    return field is not None and field.default is not dataclasses.MISSING and _same(field.default, value)
+

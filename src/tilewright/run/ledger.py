@@ -112,6 +112,7 @@ def kept_row(final, slide_id: str, path: str, a: dict) -> dict:
 
     return SlideResult(slide_id, path, "ok" if n else "skipped", "" if n else skip_reason(a), n, a.get("mpp_source"), a.get("objective"), a.get("source_level"), None,
                        str(final), colour_label(a.get("colour_profile")), "; ".join(a.get("warnings") or ()),
+                       source_sha256=(a.get("source") or {}).get("sha256") or "", mpp_origin=a.get("mpp_origin") or "",
                        kept=True).to_row()
 
 

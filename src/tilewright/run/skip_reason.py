@@ -28,6 +28,10 @@ def skip_reason(attrs: dict) -> str:
     if n_tissue == 0:
         return (f"no tile met the tissue criteria (blank slide or too little tissue; --min-tissue "
                 f"{config.get('min_tissue')}): lower --min-tissue or check the tissue mask in qc/")
+    n_ink = plan.get("n_ink")
+    if n_ink == 0 and n_tissue:
+        return (f"the ink cap removed all {n_tissue} tissue tiles (each more than --max-ink {plan.get('max_ink')} "
+                "marker ink): raise --max-ink or check the ink mask in qc/")
     regions = attrs.get("regions") or {}
     if regions and n_region == 0:
         where = regions.get("path") or "the regions given"

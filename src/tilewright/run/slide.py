@@ -14,6 +14,8 @@ import numpy as np
 from tilewright.errors import TilewrightError
 from tilewright.run.config import TilingConfig
 from tilewright.run.identity import target_digest
+from tilewright.run.stain_record import stain_record
+from tilewright.run.tile_rows import per_tile_arrays
 from tilewright.store.layout import slide_ids
 from tilewright.store.writer import StoreWriter, remove_partials
 
@@ -36,6 +38,8 @@ class SlideResult:
     store: str = ""
     colour_profile: str = ""  # ColourInfo.label: "none", the applied profile, or "... (ignored)"
     warnings: str = ""  # "; "-joined "code: reason" messages (see tissue_mask, fit_source_checked)
+    source_sha256: str = ""  # the source's full SHA-256 (TilingConfig.source_digest = "full"), else ""
+    mpp_origin: str = ""  # where mpp_source (the level-0 µm/px) came from: "aperio", "override", ...
     kept: bool = False  # a complete store of an earlier run, kept as it is (seconds: that run's)
 
     def to_row(self) -> dict:
@@ -147,7 +151,7 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
     final = out if out.suffix == ".zarr" else out / f"{slide_id}.zarr"
     remove_partials(final)
     with open_slide(path, mpp=mpp, verify=config.verify_jpeg, colour_profile=config.colour_profile) as slide:
-        view = slide.at_mpp(config.mpp, tolerance=config.tolerance)
+        view = config.view(slide)
         survey = _survey(slide, view, config, slide_id, path, regions, target)
         plan, attrs = survey.plan, survey.attrs
         release_free()  # the survey's temporaries are gone: start the tile pipeline on a clean heap
@@ -161,9 +165,12 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
                 # the slide's stain estimate is fitted while the first blocks are read and decoded
                 bind = (pool.submit(_bind_normalizer, view, plan, config, target, path, survey.glass)
                         if config.normalizer else None)
+                record = (pool.submit(stain_record, view, plan, config, survey.glass)
+                          if config.estimate_stains else None)
                 # the slide-sized pictures go to the store, the QC picture is drawn and the source is
                 # digested beside the tile pipeline; the pictures are freed once written
-                aside = pool.submit(_aside, writer, survey.maps, survey.draw, survey.mask, plan, path, slide_id)
+                aside = pool.submit(_aside, writer, survey.maps, survey.draw, survey.mask, plan, path, slide_id,
+                                    config.source_digest == "full")
                 survey.maps = survey.draw = survey.mask = None
                 kept = _tile_arrays(view, plan, config, bind, writer, progress)
                 bound, used, stain_note = (None, None, "") if bind is None else bind.result()
@@ -171,8 +178,14 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
                 attrs["stain_target"] = target_digest(used)  # what a resumed run must match
                 if stain_note:
                     attrs["warnings"].append(f"stain-replaced: {stain_note}")
-                png, attrs["source"]["digest"] = aside.result()
-                writer.commit(attrs, overwrite=overwrite, expected=kept)
+                png, digests = aside.result()
+                attrs["source"].update(digests)
+                arrays = None
+                if record is not None:  # the slide's stain estimates, for normalizing when reading
+                    pixels, attrs["stain_estimates"], attrs["stain_glass"] = record.result()
+                    arrays = {"stain_sample": pixels}
+                writer.commit(attrs, overwrite=overwrite, expected=kept, arrays=arrays,
+                              per_tile=per_tile_arrays(plan, writer.stored_yx, attrs.get("regions")))
                 n = writer.n
         except BaseException:  # nothing half-written survives, whatever stopped the slide
             remove_partials(final)
@@ -183,7 +196,8 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
                            mpp_source=float(slide.mpp), objective=slide.objective,
                            source_level=int(view.source_level), seconds=round(time.perf_counter() - t0, 3),
                            store=str(final), colour_profile=slide.colour.label,
-                           warnings="; ".join(attrs["warnings"]))
+                           warnings="; ".join(attrs["warnings"]), source_sha256=attrs["source"].get("sha256") or "",
+                           mpp_origin=slide.mpp_origin or "")
 
 
 def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNamespace:
@@ -214,15 +228,18 @@ def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNames
         regions, keep, absent = _regions_for(regions, config, slide_id, slide, path)
     plan = plan_tiles(view, mask, tile=config.tile, stride=config.stride, min_tissue=config.min_tissue,
                       regions=regions if config.keep else None, keep=keep,
-                      min_region=config.min_region, max_tiles=config.max_tiles, seed=config.seed)
-    glass = _glass(thumbnail, mask) if config.normalizer else None
+                      min_region=config.min_region, max_tiles=config.max_tiles, seed=config.seed,
+                      max_ink=config.max_ink)
+    glass = _glass(thumbnail, mask) if config.normalizer or config.estimate_stains else None
     mask_arr = np.asarray(mask.array, dtype=bool)
     attrs = {
         "slide_id": slide_id,
         "source": {"path": str(path.resolve()), "size": _source_size(path),
                    "digest": None, "backend": slide.backend},  # digest: computed aside (see _aside)
-        "mpp": float(view.mpp), "mpp_source": float(slide.mpp), "objective": slide.objective,
+        "mpp": float(view.mpp), "mpp_source": float(slide.mpp), "mpp_origin": slide.mpp_origin,
+        "objective": slide.objective,
         "source_level": int(view.source_level), "scale": float(view.scale),
+        "from_level0": bool(config.from_level0),  # every tile computed from level 0, whatever the pyramid
         "dimensions": list(slide.dimensions), "shape": list(view.shape),
         "tile": int(config.tile), "stride": int(config.step), "mask_mpp": float(mask.mpp),
         "tissue_fraction": float(mask_arr.mean()) if mask_arr.size else 0.0,
@@ -252,18 +269,18 @@ def _colour_provenance(slide) -> dict:
     return transform.provenance() if transform is not None else slide.colour.to_dict()
 
 
-def _aside(writer, maps, draw, mask, plan, path, slide_id):
-    """Work beside the tile pipeline: the store's pictures, the QC picture, the source digest.
+def _aside(writer, maps, draw, mask, plan, path, slide_id, full_digest=False):
+    """Work beside the tile pipeline: the store's pictures, the QC picture, the source digests.
 
     ``maps`` are :meth:`StoreWriter.write_maps`'s arguments; ``draw`` is the QC picture's base
     ``(rgb, mpp)`` (see :func:`tilewright.tissue.overlay.overlay_base`), or None. Returns
-    ``(png bytes or None, digest)``. Holds the only references to the thumbnail and the mask
+    ``(png bytes or None, {"digest": sampled digest[, "sha256": full SHA-256, "files": ...]})``. Holds the only references to the thumbnail and the mask
     once the caller dropped its own, so they are freed on return.
     """
     writer.write_maps(*maps)
     del maps  # the thumbnail goes as soon as it is on disk
     png = None if draw is None else _overlay(draw[0], mask, plan, slide_id, draw[1])
-    return png, _digest(path)
+    return png, _digest(path, full_digest)
 
 
 def _glass(thumbnail, mask):
@@ -368,10 +385,10 @@ def _source_size(path):
     return source_size(path)
 
 
-def _digest(path):
-    from tilewright.store.provenance import source_digest
+def _digest(path, full=False) -> dict:
+    from tilewright.store.provenance import source_digest, source_sha256
 
-    return source_digest(path)
+    return {"digest": source_digest(path), **(source_sha256(path) if full else {})}
 
 
 def _region_info(regions, config, absent=None):

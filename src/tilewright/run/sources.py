@@ -4,12 +4,13 @@ from __future__ import annotations
 
 import csv
 import os
+from dataclasses import dataclass
 from pathlib import Path
 
 from tilewright.errors import ConfigError
 from tilewright.store.layout import SLIDE_SUFFIXES
 
-__all__ = ["find_slides", "read_mpp_table", "is_slide_name", "unique_paths"]
+__all__ = ["find_slides", "slide_list", "SlideList", "read_mpp_table", "is_slide_name", "unique_paths"]
 
 _LIST_SUFFIXES = (".txt", ".csv", ".lst", ".list", ".tsv")
 
@@ -58,8 +59,33 @@ def find_slides(source: str | os.PathLike) -> list[Path]:
 
         return [find_series(source).source]  # one file of a series: the series is the slide
     if source.suffix.lower() in _LIST_SUFFIXES and not is_slide_name(source):
-        return _read_list(source)
+        return _read_list(source)[0]
     return [source]
+
+
+@dataclass
+class SlideList:
+    """A SOURCE's slides: ``paths``; ``ids`` given by the user (a list CSV's ``slide_id`` column,
+    None where not given) or None; ``root``, the folder slide paths are taken relative to when
+    ids are derived from them (a folder SOURCE itself, a list file's folder, a file's folder)."""
+
+    paths: list
+    ids: list | None
+    root: Path
+
+
+def slide_list(source: str | os.PathLike) -> SlideList:
+    """:func:`find_slides` with the ids a list CSV gives (``slide_id`` column) and the root that
+    derived ids are relative to (see :func:`tilewright.store.layout.slide_ids`)."""
+    source = Path(source)
+    if source.is_file() and source.suffix.lower() in _LIST_SUFFIXES and not is_slide_name(source):
+        paths, ids = _read_list(source)
+        return SlideList(paths, ids, source.parent)
+    paths = find_slides(source)
+    root = source if source.is_dir() else source.parent
+    if len(paths) == 1 and Path(paths[0]) == source:  # a DICOM series folder given itself
+        root = source.parent
+    return SlideList(paths, None, root)
 
 
 def _is_dicom(path: Path) -> bool:
@@ -90,7 +116,7 @@ def dicom_sources(paths: list[Path], folders: list[Path] = ()) -> list[Path]:
     return out
 
 
-def _read_list(path: Path) -> list[Path]:
+def _read_list(path: Path) -> tuple[list[Path], list | None]:
     text = path.read_text(encoding="utf-8-sig")
     lines = [ln.strip() for ln in text.splitlines() if ln.strip() and not ln.strip().startswith("#")]
     if not lines:
@@ -102,12 +128,32 @@ def _read_list(path: Path) -> list[Path]:
             f"the list has no 'path' column (columns: {', '.join(h for h in header if h)[:200] or 'none'}) and its "
             "first line is not a slide path; add a 'path' column holding each slide's file, or give a text file "
             "with one slide path a line, or the slides' folder", path)
+    ids = None
     if column is not None:
-        rows = list(csv.DictReader(lines, fieldnames=header))[1:]
-        entries = [r[column].strip() for r in rows if r.get(column)]
+        rows = [r for r in list(csv.DictReader(lines, fieldnames=header))[1:] if r.get(column)]
+        entries = [r[column].strip() for r in rows]
+        if "slide_id" in header:  # ids given by the user, taken as written ("" or absent: derived)
+            ids = [(r.get("slide_id") or "").strip() or None for r in rows]
     else:
         entries = lines
-    return unique_paths(p if p.is_absolute() else (path.parent / p) for p in map(Path, entries))
+    full = [p if p.is_absolute() else (path.parent / p) for p in map(Path, entries)]
+    paths = unique_paths(full)
+    if ids is not None:
+        ids = _ids_of_unique(full, ids, paths, path)
+    return paths, ids
+
+
+def _ids_of_unique(full: list[Path], ids: list, paths: list[Path], list_file: Path) -> list:
+    """The given id of each of ``paths`` (a file listed twice must be given one id, or one left blank)."""
+    by_file: dict = {}
+    for p, sid in zip(full, ids):
+        key = os.path.realpath(p)
+        if sid is not None and by_file.get(key) not in (None, sid):
+            raise ConfigError(f"{p} is listed twice with slide_id {by_file[key]!r} and {sid!r}; a file is one "
+                              "slide: keep one row", list_file)
+        if sid is not None or key not in by_file:
+            by_file[key] = sid
+    return [by_file.get(os.path.realpath(p)) for p in paths]
 
 
 def _names_a_slide(line: str, list_file: Path) -> bool:

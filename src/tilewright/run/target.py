@@ -44,7 +44,7 @@ def slide_estimate(path: str, config: dict, mpp: float | None) -> dict | None:
     cfg = TilingConfig.from_dict(config)
     try:
         with open_slide(path, mpp=mpp, verify=cfg.verify_jpeg, colour_profile=cfg.colour_profile) as slide:
-            view = slide.at_mpp(cfg.mpp, tolerance=cfg.tolerance)
+            view = cfg.view(slide)
             thumbnail = slide.thumbnail(cfg.mask_mpp)  # read once: the mask and the glass colour share it
             mask = tissue_mask(thumbnail, mpp=getattr(thumbnail, "mpp", cfg.mask_mpp), **cfg.mask_options())
             plan = plan_tiles(view, mask, tile=cfg.tile, stride=cfg.stride, min_tissue=cfg.min_tissue,

@@ -53,11 +53,11 @@ class ResampledView:
     the slide the view is white. Reads are thread-safe.
     """
 
-    def __init__(self, slide, mpp: float, *, tolerance: float = 0.005):
+    def __init__(self, slide, mpp: float, *, tolerance: float = 0.005, from_level0: bool = False):
         self.slide = slide
         self.tolerance = float(tolerance)
         self.requested_mpp = float(mpp)
-        self.source_level = slide.choose_level(mpp, self.tolerance)
+        self.source_level = slide.choose_level(mpp, self.tolerance, from_level0=from_level0)
         level = slide.levels[self.source_level]
         if abs(level.mpp / mpp - 1.0) <= self.tolerance:
             self.level_scale = 1.0

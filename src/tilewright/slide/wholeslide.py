@@ -61,9 +61,10 @@ class WholeSlide:
         The reader serving it.
     mpp : float
         Level-0 µm/px.
-    mpp_source : str
+    mpp_origin : str
         Where ``mpp`` came from: "override", "ome", "aperio", "tiff-tags", "imagej", "philips", "dicom" or
-        "openslide".
+        "openslide". (Called ``mpp_source`` before; that name now warns: in stores and manifests
+        ``mpp_source`` is the level-0 µm/px itself.)
     objective : float or None
         Objective power recorded by the scanner.
     dimensions : (int, int)
@@ -93,7 +94,7 @@ class WholeSlide:
         self.backend = reader.name
         self.mpp = float(resolution.mpp)
         self.objective = resolution.objective
-        self.mpp_source = resolution.source
+        self.mpp_origin = resolution.source
         self._open_args = (mpp_override, requested_backend, verify, colour_mode)
         self.colour, self.colour_transform = colour if colour is not None else (ColourInfo(), None)
         self.colour_profile = self.colour.description if self.colour.embedded else None
@@ -192,13 +193,23 @@ class WholeSlide:
         return rgb if self.colour_transform is None else self.colour_transform.apply(rgb)
 
     # -- resolution ---------------------------------------------------------------------
-    def choose_level(self, mpp: float, tolerance: float = VIEW_TOLERANCE) -> int:
+    @property
+    def mpp_source(self) -> str | None:
+        """Deprecated name of :attr:`mpp_origin` (where ``mpp`` came from)."""
+        import warnings
+
+        warnings.warn("WholeSlide.mpp_source is now mpp_origin (where the µm/px came from); in stores and "
+                      "manifests mpp_source is the level-0 µm/px itself", DeprecationWarning, stacklevel=2)
+        return self.mpp_origin
+
+    def choose_level(self, mpp: float, tolerance: float = VIEW_TOLERANCE, *, from_level0: bool = False) -> int:
         """Level a view at ``mpp`` reads from.
 
         A level whose µm/px lies within ``tolerance`` (relative) of ``mpp`` is used as is
         (the closest such level); otherwise the coarsest level finer than ``mpp``. Only levels
         the backend reads at whole-pixel positions are candidates (every level of the tiff
         backend; see :class:`~tilewright.slide.openslide_backend.OpenSlideBackend`).
+        ``from_level0``: level 0 only.
 
         Raises
         ------
@@ -211,7 +222,7 @@ class WholeSlide:
         tolerance = float(tolerance)
         if not (0 <= tolerance < 1):
             raise ValueError(f"tolerance must lie in [0, 1), got {tolerance!r}")
-        usable = [i for i in range(len(self.levels)) if self._exact[i]]
+        usable = [0] if from_level0 else [i for i in range(len(self.levels)) if self._exact[i]]
         near = [(abs(self.levels[i].mpp / mpp - 1.0), i) for i in usable
                 if abs(self.levels[i].mpp / mpp - 1.0) <= tolerance]
         if near:
@@ -223,7 +234,7 @@ class WholeSlide:
                 "choose a coarser target mpp (no upsampling is done)", self.path)
         return max(finer, key=lambda i: self.levels[i].mpp)
 
-    def at_mpp(self, mpp: float, *, tolerance: float = VIEW_TOLERANCE):
+    def at_mpp(self, mpp: float, *, tolerance: float = VIEW_TOLERANCE, from_level0: bool = False):
         """A lazy view of the whole slide at ``mpp`` µm/px.
 
         Parameters
@@ -234,6 +245,11 @@ class WholeSlide:
             Relative difference under which a pyramid level is used as is (default 0.5 %);
             otherwise the view area-averages the nearest finer level down to ``mpp``. The
             view's ``mpp`` is the true µm/px of its pixels either way.
+        from_level0 : bool
+            Compute every pixel from level 0 (area-averaged, or level 0 as is within
+            ``tolerance``), whatever other levels the pyramid offers: a cohort's tiles then come
+            from one kind of source whatever each scanner stored (its own downsampled levels
+            differ in filter and compression from one scanner to the next).
 
         Returns
         -------
@@ -246,7 +262,7 @@ class WholeSlide:
         """
         from tilewright.slide.view import ResampledView
 
-        return ResampledView(self, float(mpp), tolerance=tolerance)
+        return ResampledView(self, float(mpp), tolerance=tolerance, from_level0=from_level0)
 
     def thumbnail(self, mpp: float = 8.0, *, tolerance: float = THUMBNAIL_TOLERANCE):
         """The whole slide at about ``mpp`` µm/px, read from the coarsest adequate level.

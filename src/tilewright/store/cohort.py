@@ -11,8 +11,8 @@ from tilewright.errors import StoreError
 
 __all__ = ["MANIFEST_COLUMNS", "write_manifest", "read_manifest", "stores_manifest", "Cohort", "open_cohort"]
 
-MANIFEST_COLUMNS = ["slide_id", "source", "status", "error", "n_tiles", "mpp_source", "objective",
-                    "source_level", "seconds", "colour_profile", "warnings"]
+MANIFEST_COLUMNS = ["slide_id", "source", "status", "error", "n_tiles", "mpp_source", "mpp_origin", "objective",
+                    "source_level", "seconds", "colour_profile", "warnings", "source_sha256"]
 
 
 def write_manifest(out_dir: str | os.PathLike, rows: list[dict]) -> "object":
@@ -28,6 +28,8 @@ def write_manifest(out_dir: str | os.PathLike, rows: list[dict]) -> "object":
     df["error"] = df["error"].fillna("").astype(str)
     df["colour_profile"] = df["colour_profile"].fillna("").astype(str)
     df["warnings"] = df["warnings"].fillna("").astype(str)  # "; "-joined "code: reason" messages
+    df["source_sha256"] = df["source_sha256"].fillna("").astype(str)  # "" unless source_digest = "full"
+    df["mpp_origin"] = df["mpp_origin"].fillna("").astype(str)  # where mpp_source (a number) was read
     df["n_tiles"] = df["n_tiles"].fillna(0).astype("int64")
     for col in ("mpp_source", "objective", "seconds"):
         df[col] = pd.to_numeric(df[col], errors="coerce").astype("float64")
@@ -53,7 +55,8 @@ def read_manifest(out_dir: str | os.PathLike):
         return pd.read_parquet(pq)
     if csv.exists():  # ids and texts stay strings ("001" is not the number 1)
         return pd.read_csv(csv, keep_default_na=False, na_values=[""],
-                           dtype={"slide_id": str, "source": str, "status": str, "error": str})
+                           dtype={"slide_id": str, "source": str, "status": str, "error": str, "source_sha256": str,
+                                                                   "mpp_origin": str})
     raise StoreError("no manifest.csv or manifest.parquet; is this a tile-out output folder?", out_dir)
 
 
@@ -102,24 +105,41 @@ class Cohort:
         manifest (``tile_slide`` output), rows made from its complete stores
         (:func:`stores_manifest`).
     stores : dict[str, TileStore]
-        Complete stores of the manifest's slides, by slide id: those whose status is ``ok``, and
-        those whose latest run failed while an earlier complete store was kept (for example a
-        re-run with other settings, refused without ``--overwrite``; the row says why).
-        Slides ``skipped`` for lack of tissue have no tiles and are left out.
+        Complete stores of the manifest's slides made with the cohort's settings (see
+        :func:`open_cohort`), by slide id: those whose status is ``ok``, and those whose latest
+        run failed while an earlier complete store was kept (a store of the same settings, for
+        example after a source file changed; the row says why). Slides ``skipped`` for lack of
+        tissue have no tiles and are left out. A source file is served once: where two stores
+        record the same source (a folder written by a version whose ids changed as slides were
+        added), the one completed last.
+    left_out : DataFrame
+        Complete stores not served, with the reason (``slide_id``, ``reason``); also logged.
+    settings : dict or None
+        The settings every served store was made with (see :func:`open_cohort`), None when
+        unchecked.
+    normalization : dict or None
+        With ``normalize=``: the method and the target's digest every store's reads apply.
     """
 
-    def __init__(self, path: str | os.PathLike):
-        from tilewright.store.layout import store_path
-        from tilewright.store.reader import TileStore, is_complete
+    def __init__(self, path: str | os.PathLike, settings="cohort", normalize: str | None = None, target="cohort"):
+        from tilewright.store.selection import LEFT_OUT_COLUMNS, select_stores
+
+        import pandas as pd
 
         self.path = Path(path)
         has_manifest = (self.path / "manifest.parquet").exists() or (self.path / "manifest.csv").exists()
         self.manifest = read_manifest(self.path) if has_manifest else stores_manifest(self.path)
-        self.stores = {}
-        for sid, status in zip(self.manifest["slide_id"], self.manifest["status"]):
-            p = store_path(self.path, str(sid))
-            if status != "skipped" and is_complete(p):
-                self.stores[str(sid)] = TileStore(p)
+        self.stores, left, self.settings = select_stores(self.path, self.manifest, settings)
+        self.normalization = None
+        if normalize is not None and self.stores:
+            self.normalization = _normalize_stores(self.stores, left, str(normalize).lower(), target, self.path)
+        self.left_out = pd.DataFrame(left, columns=LEFT_OUT_COLUMNS)
+        if left:
+            import logging
+
+            logging.getLogger("tilewright").warning(
+                "%s: %d complete store(s) left out: %s", self.path, len(left),
+                "; ".join(f"{sid}: {why}" for sid, why in left[:5]) + (" ..." if len(left) > 5 else ""))
 
     @property
     def slide_ids(self) -> list[str]:
@@ -162,7 +182,47 @@ class Cohort:
         return f"Cohort({str(self.path)!r}, slides={len(self.stores)}, tiles={len(self)})"
 
 
-def open_cohort(out_dir: str | os.PathLike) -> Cohort:
+def _normalize_stores(stores: dict, left: list, method: str, target, path) -> dict:
+    """Replace each store by one whose reads normalize to ``target`` ("cohort": the median of the
+    stores' own estimates); a store that cannot be normalized when read is left out, with why."""
+    from tilewright.store.read_normalize import median_target, resolve_target
+    from tilewright.store.settings import target_digest
+
+    target = median_target(stores.values(), method) if target == "cohort" else resolve_target(target, method)
+    for sid, store in list(stores.items()):
+        try:
+            stores[sid] = store.normalized(method, target)
+        except StoreError as exc:
+            left.append((sid, exc.reason if hasattr(exc, "reason") else str(exc)))
+            del stores[sid]
+    if not stores:
+        raise StoreError(f"no store can be normalized when read ({left[-1][1] if left else 'none'})", path)
+    return {"method": method, "target": target_digest(target), "target_dict": target}
+
+
+def open_cohort(out_dir: str | os.PathLike, *, settings="cohort", normalize: str | None = None,
+                target="cohort") -> Cohort:
     """Open a folder of tile stores: a ``tile-out`` / ``tile_cohort`` output folder, or stores
-    written by ``tile_slide`` (no manifest; see :func:`stores_manifest`)."""
-    return Cohort(out_dir)
+    written by ``tile_slide`` (no manifest; see :func:`stores_manifest`).
+
+    Parameters
+    ----------
+    out_dir : path
+    settings : "cohort", None, TilingConfig, dict or path
+        Serve only stores made with these settings: the tiles' true µm/px (within the
+        settings' tolerance), tile size and stride, normalization and its stain target, codec
+        (lossless, or JPEG at a quality), and every other tile-changing setting both record.
+        ``"cohort"`` (default): the folder's ``config.toml`` (its latest run's settings); a
+        folder without one (``tile_slide`` output) must hold stores of one set of settings,
+        else a :class:`StoreError` names the difference. A ``TilingConfig``, its dict or a TOML
+        file: those settings. None: every complete store, unchecked. Stores left out are listed
+        in ``Cohort.left_out`` with the reason, and logged.
+    normalize : {"macenko", "reinhard"}, optional
+        Normalize every tile read (stores tiled with ``estimate_stains``; see
+        :mod:`tilewright.store.read_normalize`). None: tiles as stored.
+    target : "cohort", normalizer, dict or path
+        The target of ``normalize``: ``"cohort"`` (default) the median of the served stores' own
+        estimates (what a normalizing run uses without ``--reference``), or a fitted normalizer,
+        its dict, or a JSON file of one.
+    """
+    return Cohort(out_dir, settings=settings, normalize=normalize, target=target)

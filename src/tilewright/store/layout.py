@@ -96,55 +96,84 @@ def _shorten(text: str) -> str:
     return f"{head}_{hashlib.sha1(raw).hexdigest()[:8]}"
 
 
-def slide_ids(paths) -> list[str]:
-    """Unique slide ids for a list of paths.
+def slide_ids(paths, root: str | os.PathLike | None = None, reserved=()) -> list[str]:
+    """Slide ids for a list of paths, each a function of its own path relative to ``root``.
 
-    The id is the file name without extension(s). When several files share one, each gets its
-    parent folder's name as a prefix (``sub_b``); if that still collides, more parent folders are
-    added, then a counter that skips ids already taken. Glob/shell-special characters
-    (``[ ] * ? { } ! $ ; & ( ) #`` ...) and separators become ``_``; ids longer than
-    :data:`MAX_ID_BYTES` keep their head and gain a stable hash suffix. Pass each slide once
-    (:func:`tilewright.run.sources.unique_paths` drops repeats).
+    The id is the file name without extension(s) (a DICOM series folder: the folder's name).
+    Slides whose ids would be equal (ignoring case: ``B`` and ``b`` are one folder on
+    case-insensitive file systems), or equal to one of ``reserved`` (ids already taken, for
+    example by the stores of an output folder), take an id from their path relative to ``root``
+    instead: its folders and the name joined by ``_`` (``north/b.tif`` → ``north_b``); if that
+    is still shared, the extension is added (``north_b_svs``); if that is still shared, 8 hex
+    digits of the SHA-1 of the relative path. No counter and no order is involved: a slide's id
+    depends on its own relative path, and on other slides only in whether its name is shared.
+
+    Glob/shell-special characters (``[ ] * ? { } ! $ ; & ( ) #`` ...) and separators become
+    ``_``; ids longer than :data:`MAX_ID_BYTES` keep their head and gain a stable hash suffix.
+    Pass each slide once (:func:`tilewright.run.sources.unique_paths` drops repeats).
+
+    Parameters
+    ----------
+    paths : list of path
+    root : path, optional
+        The folder relative paths start from (``tile-out``'s SOURCE folder, or a list file's
+        folder). Default: the deepest folder holding every path.
+    reserved : iterable of str
+        Ids taken already; a slide named like one takes its path id.
     """
     paths = [Path(p) for p in paths]
-    ids = [_safe(slide_stem(p)) for p in paths]
-    counts = Counter(ids)
+    rel = _relative_parts(paths, root)
+    taken = Counter(_key(r) for r in reserved)
+    levels = [0] * len(paths)
+    ids = [_id_at(p, r, 0) for p, r in zip(paths, rel)]
+    while True:
+        counts = Counter(map(_key, ids)) + taken
+        clash = [i for i, sid in enumerate(ids) if counts[_key(sid)] > 1 and levels[i] < 3]
+        if not clash:
+            return ids
+        for i in clash:  # a level may give a path the same id (no folder, no extension): next round
+            levels[i] += 1
+            ids[i] = _id_at(paths[i], rel[i], levels[i])
+
+
+def _key(sid: str) -> str:
+    """The form in which two ids name one store folder on a case-insensitive file system."""
+    return sid.casefold()
+
+
+def _relative_parts(paths: list[Path], root) -> list[tuple[str, ...]]:
+    """Each path's parts relative to ``root`` (default: the deepest folder holding every path); a
+    path outside ``root`` keeps its absolute parts without the anchor."""
+    if root is None:
+        parents = [os.path.abspath(p.parent) for p in paths]
+        root = os.path.commonpath(parents) if parents else "."
+    root = os.path.abspath(root)
     out = []
-    for p, sid in zip(paths, ids):
-        if counts[sid] > 1:
-            parts = [_safe(x) for x in p.parent.parts[-1:]]
-            sid = _shorten("_".join(parts + [sid])) if parts else sid
-        out.append(sid)
-    depth = 2
-    while len(set(out)) < len(out) and depth < 6:
-        counts = Counter(out)
-        out = [
-            _shorten("_".join([_safe(x) for x in p.parent.parts[-depth:]] + [_safe(slide_stem(p))]))
-            if counts[o] > 1 else o
-            for p, o in zip(paths, out)
-        ]
-        depth += 1
-    return _numbered(out)
+    for p in paths:
+        a = os.path.abspath(p)
+        r = os.path.relpath(a, root) if a == root or a.startswith(root.rstrip(os.sep) + os.sep) else None
+        parts = Path(r).parts if r not in (None, ".") else Path(a).parts[1:]
+        out.append(tuple(parts) or (p.name,))
+    return out
 
 
-def _numbered(ids: list[str]) -> list[str]:
-    """Ids made unique by a counter (``b``, ``b_2``, ...), skipping counters that would hit another
-    id of the list (``b_2`` when a slide is already called ``b_2``)."""
-    taken = set(ids)
-    seen: set = set()
-    final = []
-    for o in ids:
-        if o not in seen:
-            seen.add(o)
-            final.append(o)
-            continue
-        k = 2
-        while _shorten(f"{o}_{k}") in taken or _shorten(f"{o}_{k}") in seen:
-            k += 1
-        new = _shorten(f"{o}_{k}")
-        seen.add(new)
-        final.append(new)
-    return final
+def _id_at(path: Path, rel: tuple[str, ...], level: int) -> str:
+    """The id of ``path`` (parts ``rel`` relative to the root) at collision level 0-3."""
+    stem = slide_stem(path)
+    if level == 0:
+        return _safe(stem)
+    folders = [_safe(x) for x in rel[:-1]]
+    sid = "_".join(folders + [_safe(stem)])
+    if level >= 2:
+        ext = path.name[len(stem):].lstrip(".") if path.name.startswith(stem) else ""
+        if ext:
+            sid = f"{sid}_{_safe(ext.replace('.', '_'))}"
+    if level >= 3:
+        import hashlib
+
+        digest = hashlib.sha1("/".join(rel).encode("utf-8")).hexdigest()[:8]
+        return _shorten(f"{sid}_{digest}")
+    return _shorten(sid)
 
 
 def store_path(out_dir: str | os.PathLike, slide_id: str) -> Path:

@@ -40,9 +40,13 @@ class TileStore:
     not know. ``.tiles`` is the zarr array; ``.yx``, ``.yx_level0``, ``.tissue``,
     ``.sharpness`` are small ndarrays; ``.attrs`` the provenance dictionary. Picklable (re-opens
     from its path), so it can be handed to dask or DataLoader workers.
+
+    ``normalize`` ("macenko" or "reinhard") with ``target`` normalizes every tile read, for a
+    store tiled with ``estimate_stains`` (see :mod:`tilewright.store.read_normalize`);
+    ``.normalization`` then says how (None: tiles as stored).
     """
 
-    def __init__(self, path: str | os.PathLike):
+    def __init__(self, path: str | os.PathLike, *, normalize: str | None = None, target=None):
         import zarr
 
         self.path = Path(path)
@@ -63,6 +67,18 @@ class TileStore:
         self._cache: dict[str, np.ndarray] = {}
         layout = ShardLayout.of(self.tiles)
         self._reader = ShardReader(layout) if layout is not None else None  # None: zarr reads
+        self.normalization = None
+        if normalize is not None:
+            if target is None:
+                raise StoreError("normalize= needs target= (a fitted normalizer, its dict or JSON file; "
+                                 "open_cohort defaults to the cohort's median of its stores' estimates)", self.path)
+            from tilewright.store.read_normalize import bind_to_store
+
+            self.normalization = bind_to_store(self, normalize, target)
+
+    def normalized(self, method: str, target) -> "TileStore":
+        """This store read with its tiles normalized to ``target`` by ``method`` (a new reader)."""
+        return TileStore(self.path, normalize=method, target=target)
 
     def _small(self, name: str) -> np.ndarray:
         if name not in self._cache:
@@ -94,6 +110,22 @@ class TileStore:
         return self._small("region") if "region" in self._group else None
 
     @property
+    def ink_share(self) -> np.ndarray | None:
+        """(N,) share of each tile's footprint that is marker ink (None in stores of older versions)."""
+        return self._small("ink_share") if "ink_share" in self._group else None
+
+    @property
+    def region_fractions(self):
+        """Each tile's fraction inside each kept region class: a DataFrame, one column a class
+        (``attrs["regions"]["classes_stored"]``), one row a tile; None without regions."""
+        if "region_fractions" not in self._group:
+            return None
+        import pandas as pd
+
+        names = (self.attrs.get("regions") or {}).get("classes_stored") or []
+        return pd.DataFrame(self._small("region_fractions"), columns=names)
+
+    @property
     def thumbnail(self) -> np.ndarray:
         return self._small("thumbnail")
 
@@ -109,6 +141,14 @@ class TileStore:
         return int(self.tiles.shape[0])
 
     def __getitem__(self, index):
+        tiles = self._get(index)
+        if isinstance(index, tuple) or index is Ellipsis:
+            return tiles  # whole tiles were read (and normalized) through this method first
+        if self.normalization is not None and tiles.size:
+            tiles = self.normalization(tiles)
+        return tiles
+
+    def _get(self, index):
         """Tiles by position: ``store[i]`` (T, T, 3); ``store[a:b]``, ``store[int_array]`` (any order,
         repeats allowed) or ``store[bool_mask]`` (k, T, T, 3), in the order asked; a tuple indexes
         further into the tiles (``store[i, :16]``)."""
@@ -174,17 +214,20 @@ class TileStore:
         shards = self.tiles.shards or self.tiles.chunks
         k = max(1, int(chunk or shards[0]))
         chunks = (k,) + tuple(self.tiles.shape[1:])
-        if self._reader is None:
+        if self._reader is None and self.normalization is None:
             return da.from_zarr(self.tiles, chunks=chunks)
-        name = "tilewright-tiles-" + tokenize(str(self.path.resolve()), self.attrs.get("created"), len(self), k)
+        name = "tilewright-tiles-" + tokenize(str(self.path.resolve()), self.attrs.get("created"), len(self), k,
+                                              None if self.normalization is None else self.normalization.to_dict())
         return da.from_array(self, chunks=chunks, name=name, lock=False, fancy=False,
                              meta=np.empty((0, 0, 0, 0), np.uint8))
 
     def __getstate__(self):
-        return {"path": str(self.path)}
+        n = self.normalization
+        return {"path": str(self.path), "normalize": None if n is None else n.method,
+                "target": None if n is None else n.target}
 
     def __setstate__(self, state):
-        self.__init__(state["path"])
+        self.__init__(state["path"], normalize=state.get("normalize"), target=state.get("target"))
 
     def __repr__(self) -> str:
         return (f"TileStore({str(self.path)!r}, tiles={len(self)}, tile={self.tile_size}, "
@@ -195,8 +238,18 @@ def _is_int(x) -> bool:
     return isinstance(x, (int, np.integer)) and not isinstance(x, (bool, np.bool_))
 
 
-def open_store(path: str | os.PathLike) -> TileStore:
+def open_store(path: str | os.PathLike, *, normalize: str | None = None, target=None) -> TileStore:
     """Open a complete tile store.
+
+    Parameters
+    ----------
+    path : path
+    normalize : {"macenko", "reinhard"}, optional
+        Normalize every tile read to ``target`` (a store tiled with ``estimate_stains``: un-normalized
+        tiles plus the slide's stain estimate). Tiles as stored when None.
+    target : normalizer, dict or path, optional
+        A fitted normalizer, its ``to_dict()``, or a JSON file of one (for example a cohort's
+        ``stain_target.macenko.json``). Needed with ``normalize``.
 
     Raises
     ------
@@ -205,4 +258,4 @@ def open_store(path: str | os.PathLike) -> TileStore:
     IncompleteStoreError
         The store was never completed.
     """
-    return TileStore(path)
+    return TileStore(path, normalize=normalize, target=target)

@@ -215,14 +215,23 @@ class StoreWriter:
             raise StoreError(f"writing the slide pictures failed ({exc.strerror or exc}); check free space",
                              self.final) from exc
 
+    @property
+    def stored_yx(self) -> np.ndarray:
+        """(n, 2) top-left corners of the tiles appended so far, in store order."""
+        parts = self._meta["yx"]
+        return np.concatenate(parts) if parts else np.zeros((0, 2), np.int64)
+
     def commit(self, attrs: dict, thumbnail: np.ndarray | None = None, mask: np.ndarray | None = None, *,
-               overwrite: bool = True, extra: dict | None = None, expected: int | None = None) -> Path:
+               overwrite: bool = True, extra: dict | None = None, expected: int | None = None,
+               per_tile: dict | None = None, arrays: dict | None = None) -> Path:
         """Write coordinates (and the pictures, unless :meth:`write_maps` did), mark complete, check
         the store is whole (:func:`tilewright.store.verify.check_store`), rename into place.
 
         ``expected`` is the number of tiles the caller meant to store (the plan less the tiles it
         dropped on purpose); a store holding another number is refused, never committed with
         holes. Without it, the tiles appended count (the capacity is trimmed to them).
+        ``per_tile`` adds arrays whose first axis is the tile (one row a stored tile, in store
+        order), e.g. each tile's ink share; ``arrays`` other small arrays (one chunk each).
         """
         from tilewright.store.verify import check_store
 
@@ -240,6 +249,13 @@ class StoreWriter:
             for name in ("tissue", "sharpness") + (("region",) if self.with_region else ()):
                 parts = self._meta[name]
                 self._small(name, np.concatenate(parts) if parts else np.zeros((0,), np.float32))
+            for name, data in (per_tile or {}).items():
+                data = np.asarray(data)
+                if data.shape[:1] != (self.n,):
+                    raise StoreError(f"per-tile array {name!r} has {data.shape[:1]} rows for {self.n} tiles", self.final)
+                self._small(name, data)
+            for name, data in (arrays or {}).items():
+                self._small(name, np.asarray(data))
             if thumbnail is not None:
                 self.write_maps(thumbnail, mask, extra)
             full = dict(attrs)

@@ -24,9 +24,12 @@ from .raster import box_fractions, summed_area_table
 __all__ = ["TissueMask", "tissue_mask", "tissue_feature", "METHODS"]
 
 
-#: Warnings: ink over this fraction of (tissue + ink); less tissue than this area (mm²).
+#: Warnings: ink over this fraction of (tissue + ink); less tissue than this area (mm²) *and* than
+#: this share of the scanned area (a speck on a large scan, or a mask that missed faint tissue; a
+#: small biopsy scanned tightly is not flagged).
 HIGH_INK_FRACTION = 0.25
 LITTLE_TISSUE_MM2 = 1.0
+LITTLE_TISSUE_SHARE = 0.02
 
 
 class TissueMask:
@@ -407,8 +410,9 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-otsu", sensitivity
     if ink_share > HIGH_INK_FRACTION:
         warnings.append(f"high-ink: marker ink covers {ink_share:.0%} of the tissue and ink")
     tissue_mm2 = float(tissue.sum()) * area / 1e6
-    if tissue_mm2 < LITTLE_TISSUE_MM2:
-        warnings.append(f"little-tissue: only {tissue_mm2:.2f} mm² of tissue found")
+    share = float(tissue.mean()) if tissue.size else 0.0
+    if tissue_mm2 < LITTLE_TISSUE_MM2 and share < LITTLE_TISSUE_SHARE:
+        warnings.append(f"little-tissue: only {tissue_mm2:.2f} mm² of tissue found, {share:.1%} of the scanned area")
 
     params = {"method": method, "source": path, "otsu": None if math.isnan(otsu) else float(otsu),
               "sensitivity": sensitivity, "floor": float(floor), "glass_noise_od": None if math.isnan(noise) else noise,

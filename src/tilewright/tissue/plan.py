@@ -26,6 +26,12 @@ class TilePlan:
         Tissue fraction of each tile.
     region : ndarray (N,) float32 or None
         Fraction of each tile inside the kept region classes (None without regions).
+    ink : ndarray (N,) float32
+        Share of each tile's footprint that is marker ink (the mask's ``ink``; zeros without).
+    classes : list of str
+        The kept region classes of ``class_fractions`` (empty without regions).
+    class_fractions : ndarray (N, K) float32 or None
+        Each tile's fraction inside each class of ``classes`` (None without regions).
     tile, stride : int
         Tile size and grid step in target pixels.
     mpp : float
@@ -39,10 +45,16 @@ class TilePlan:
     """
 
     def __init__(self, yx, tissue, *, tile: int, stride: int, mpp: float, scale: float = 1.0,
-                 shape=(0, 0), region=None, params: dict | None = None):
+                 shape=(0, 0), region=None, params: dict | None = None, ink=None, classes=(),
+                 class_fractions=None):
         self.yx = np.asarray(yx, dtype=np.int64).reshape(-1, 2)
         self.tissue = np.asarray(tissue, dtype=np.float32).reshape(-1)
         self.region = None if region is None else np.asarray(region, dtype=np.float32).reshape(-1)
+        n = self.yx.shape[0]
+        self.ink = np.zeros(n, np.float32) if ink is None else np.asarray(ink, dtype=np.float32).reshape(-1)
+        self.classes = list(classes)
+        self.class_fractions = (None if class_fractions is None
+                                else np.asarray(class_fractions, dtype=np.float32).reshape(n, len(self.classes)))
         if self.tissue.shape[0] != self.yx.shape[0] or (self.region is not None and self.region.shape[0] != self.yx.shape[0]):
             raise ValueError("yx, tissue and region must have one entry per tile")
         self.tile = int(tile)
@@ -68,7 +80,9 @@ class TilePlan:
         idx = np.flatnonzero(which) if which.dtype == bool else np.sort(which.astype(np.int64))
         return TilePlan(self.yx[idx], self.tissue[idx], tile=self.tile, stride=self.stride,
                         mpp=self.mpp, scale=self.scale, shape=self.shape,
-                        region=None if self.region is None else self.region[idx], params=self.params)
+                        region=None if self.region is None else self.region[idx], params=self.params,
+                        ink=self.ink[idx], classes=self.classes,
+                        class_fractions=None if self.class_fractions is None else self.class_fractions[idx])
 
     def to_dict(self) -> dict:
         """JSON-safe description of the plan (not the coordinates)."""
@@ -147,7 +161,7 @@ def spread_sample(yx: np.ndarray, n: int, step: int, seed: int = 0) -> np.ndarra
 
 def plan_tiles(view, mask, *, tile: int = 256, stride: int | None = None, min_tissue: float = 0.5,
                regions=None, keep=None, min_region: float = 0.5, max_tiles: int | None = None,
-               seed: int = 0) -> TilePlan:
+               seed: int = 0, max_ink: float | None = None) -> TilePlan:
     """Plan the tiles of ``view`` that hold enough tissue (and lie in the wanted regions).
 
     Parameters
@@ -173,9 +187,13 @@ def plan_tiles(view, mask, *, tile: int = 256, stride: int | None = None, min_ti
     min_region : float
         Minimum region fraction of a kept tile.
     max_tiles : int, optional
-        At most this many tiles, chosen with :func:`spread_sample` from ``seed``.
+        At most this many tiles, chosen with :func:`spread_sample` from ``seed`` (after every
+        other filter).
     seed : int
         Seed of the ``max_tiles`` choice.
+    max_ink : float, optional
+        Drop tiles whose footprint is more than this share marker ink (``mask.ink``); every
+        planned tile's share is in ``TilePlan.ink`` either way.
 
     Returns
     -------
@@ -201,7 +219,9 @@ def plan_tiles(view, mask, *, tile: int = 256, stride: int | None = None, min_ti
     stride = tile if stride is None else int(stride)
     if tile <= 0 or stride <= 0:
         raise ValueError(f"tile and stride must be positive, got tile={tile}, stride={stride}")
-    for name, value in (("min_tissue", min_tissue), ("min_region", min_region)):
+    for name, value in (("min_tissue", min_tissue), ("min_region", min_region), ("max_ink", max_ink)):
+        if value is None:
+            continue
         if not 0.0 <= value <= 1.0:
             raise ValueError(f"{name} must lie in [0, 1], got {value}")
     if max_tiles is not None and int(max_tiles) < 0:
@@ -218,23 +238,53 @@ def plan_tiles(view, mask, *, tile: int = 256, stride: int | None = None, min_ti
     ok = tissue >= np.float32(min_tissue)
     yx, tissue = yx[ok], tissue[ok]
     n_tissue = yx.shape[0]
-    region = None
+    ink = _ink_shares(mask, yx, tile, mpp)
+    if max_ink is not None:
+        ok = ink <= np.float32(max_ink)
+        yx, tissue, ink = yx[ok], tissue[ok], ink[ok]
+    n_ink = yx.shape[0]
+    region = fractions = None
+    classes: list = []
     if regions is not None:
         regions = _bound_to_slide(regions, view)
         region = np.asarray(regions.fractions(keep, yx, tile, tile, mpp), dtype=np.float32).reshape(-1)
         ok = region >= np.float32(min_region)
-        yx, tissue, region = yx[ok], tissue[ok], region[ok]
+        yx, tissue, ink, region = yx[ok], tissue[ok], ink[ok], region[ok]
+        classes, fractions = _class_fractions(regions, keep, yx, tile, mpp)
     n_region = yx.shape[0]
     if max_tiles is not None and yx.shape[0] > int(max_tiles):
         idx = spread_sample(yx, int(max_tiles), stride, seed)
-        yx, tissue = yx[idx], tissue[idx]
+        yx, tissue, ink = yx[idx], tissue[idx], ink[idx]
         region = None if region is None else region[idx]
+        fractions = None if fractions is None else fractions[idx]
     params = {"min_tissue": float(min_tissue), "min_region": float(min_region) if regions is not None else None,
               "keep": None if keep is None else list(keep), "max_tiles": None if max_tiles is None else int(max_tiles),
               "seed": int(seed), "n_grid": int(n_grid), "n_tissue": int(n_tissue), "n_region": int(n_region),
+              "max_ink": None if max_ink is None else float(max_ink), "n_ink": int(n_ink),
               "edge_rule": "drop tiles past the slide edge"}
     return TilePlan(yx, tissue, tile=tile, stride=stride, mpp=mpp, scale=float(getattr(view, "scale", 1.0)),
-                    shape=shape, region=region, params=params)
+                    shape=shape, region=region, params=params, ink=ink, classes=classes, class_fractions=fractions)
+
+
+def _ink_shares(mask, yx, tile: int, mpp: float) -> np.ndarray:
+    """Share of each tile's footprint under ``mask.ink`` (exact box fractions of the ink raster)."""
+    ink = getattr(mask, "ink", None)
+    if ink is None or not len(yx) or not np.any(ink):
+        return np.zeros(len(yx), np.float32)
+    from tilewright.tissue.raster import box_fractions, summed_area_table
+
+    return box_fractions(summed_area_table(np.asarray(ink, bool)), float(mask.mpp), yx, tile, tile, mpp)
+
+
+def _class_fractions(regions, keep, yx, tile: int, mpp: float) -> tuple[list, np.ndarray | None]:
+    """Each tile's fraction inside each kept class (its own column), for multi-class labels."""
+    if keep is None or not hasattr(regions, "resolve"):
+        return [], None
+    names = list(regions.resolve(keep))
+    if not names:
+        return [], None
+    cols = [np.asarray(regions.fractions([n], yx, tile, tile, mpp), np.float32).reshape(-1) for n in names]
+    return names, np.stack(cols, axis=1) if cols else np.zeros((len(yx), 0), np.float32)
 
 
 def _bound_to_slide(regions, view):

@@ -19,7 +19,7 @@ class SlideBagDataset:
 
     Parameters
     ----------
-    source, labels, label_column, missing, augment
+    source, labels, label_column, missing, augment, settings, normalize, target
         As for :class:`TileStoreDataset`.
     max_tiles : int, optional
         Draw at most this many tiles of a slide an item, without replacement; the draw depends
@@ -42,11 +42,13 @@ class SlideBagDataset:
     """
 
     def __init__(self, source, *, labels=None, label_column: str = "label", missing: str = "error",
-                 max_tiles: int | None = None, seed: int = 0, transform=None, augment=None):
+                 max_tiles: int | None = None, seed: int = 0, transform=None, augment=None, settings="cohort",
+                 normalize: str | None = None, target="cohort"):
         if max_tiles is not None and (isinstance(max_tiles, bool) or not isinstance(max_tiles, (int, np.integer))
                                       or max_tiles < 1):
             raise ConfigError(f"max_tiles must be a positive whole number or None, got {max_tiles!r}")
-        self.tiles = TileStoreDataset(source, labels=labels, label_column=label_column, missing=missing)
+        self.tiles = TileStoreDataset(source, labels=labels, label_column=label_column, missing=missing,
+                                      settings=settings, normalize=normalize, target=target)
         self.slide_ids = self.tiles.slide_ids
         self.classes = self.tiles.classes
         self.max_tiles = None if max_tiles is None else int(max_tiles)

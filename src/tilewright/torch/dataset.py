@@ -10,10 +10,16 @@ import numpy as np
 __all__ = ["TileStoreDataset", "store_paths", "to_tensor"]
 
 
-def store_paths(source) -> list[str]:
-    """Store paths of a ``*.zarr`` path, a ``tile-out`` output folder, a TileStore, a Cohort or a list."""
+def store_paths(source, settings="cohort") -> list[str]:
+    """Store paths of a ``*.zarr`` path, a ``tile-out`` output folder, a TileStore, a Cohort or a list.
+
+    A folder serves the stores :func:`tilewright.open_cohort` serves with ``settings`` (by default
+    those made with its ``config.toml``; the others are logged with the reason); stores of a list
+    must agree with each other (or with ``settings``; None: unchecked).
+    """
     from tilewright.store.cohort import Cohort, open_cohort
     from tilewright.store.reader import TileStore
+    from tilewright.store.selection import check_stores
 
     if isinstance(source, Cohort):
         return [str(s.path) for s in source.stores.values()]
@@ -22,8 +28,10 @@ def store_paths(source) -> list[str]:
     if isinstance(source, (str, os.PathLike)):
         if str(source).rstrip("/\\").endswith(".zarr"):
             return [os.fspath(source)]
-        return [str(s.path) for s in open_cohort(source).stores.values()]
-    return [str(getattr(p, "path", p)) for p in source]
+        return [str(s.path) for s in open_cohort(source, settings=settings).stores.values()]
+    stores = [p if isinstance(p, TileStore) else TileStore(getattr(p, "path", p)) for p in source]
+    check_stores(stores, settings)
+    return [str(s.path) for s in stores]
 
 
 def to_tensor(tiles: np.ndarray):
@@ -59,6 +67,17 @@ class TileStoreDataset:
     with_info : bool
         Add a third item part: ``{"slide_id", "slide", "tile", "y", "x"}`` (tile corner in target
         pixels).
+    settings : "cohort", None, TilingConfig, dict or path
+        Which stores to serve: an output folder's stores made with its ``config.toml`` (default;
+        see :func:`tilewright.open_cohort`), and a list's stores only when they agree on µm/px,
+        tile, normalization and codec (a ``StoreError`` names the one that differs); given
+        settings: stores made with them; None: unchecked.
+    normalize : {"macenko", "reinhard"}, optional
+        Normalize tiles when read (stores tiled with ``estimate_stains``; see
+        :func:`tilewright.open_cohort`), before ``augment`` and ``transform``.
+    target : "cohort", normalizer, dict or path
+        The target of ``normalize``: ``"cohort"`` (default) the median of the served stores' own
+        estimates, or a fitted normalizer, its dict or a JSON file of one.
 
     Items are ``(image, label)`` with labels, else ``(image, (slide_index, tile_index))``; with
     ``with_info`` the info dict follows. Attributes: ``slide_ids``, ``offsets`` (first dataset
@@ -66,11 +85,20 @@ class TileStoreDataset:
     """
 
     def __init__(self, source, *, labels=None, label_column: str = "label", missing: str = "error",
-                 transform=None, augment=None, with_info: bool = False):
+                 transform=None, augment=None, with_info: bool = False, settings="cohort",
+                 normalize: str | None = None, target="cohort"):
         from tilewright.store.reader import TileStore
 
-        paths = store_paths(source)
+        paths = store_paths(source, settings)
         stores = [TileStore(p) for p in paths]
+        self._normalize = self._target = None
+        if normalize is not None:
+            from tilewright.store.read_normalize import median_target, resolve_target
+
+            self._normalize = str(normalize).lower()
+            self._target = (median_target(stores, self._normalize) if target == "cohort"
+                            else resolve_target(target, self._normalize))
+            stores = [s.normalized(self._normalize, self._target) for s in stores]  # refuses stores it cannot
         self.classes = None
         self.slide_labels = None
         if labels is not None:
@@ -110,7 +138,7 @@ class TileStoreDataset:
         if self._stores is None:
             self._stores = [None] * len(self.paths)
         if self._stores[s] is None:
-            self._stores[s] = TileStore(self.paths[s])
+            self._stores[s] = TileStore(self.paths[s], normalize=self._normalize, target=self._target)
         return self._stores[s]
 
     def __getitem__(self, index: int):

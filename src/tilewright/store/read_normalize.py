@@ -1,0 +1,112 @@
+"""Stain normalization applied when tiles are read, from the estimates a run stored beside them.
+
+A store written with ``estimate_stains`` holds un-normalized tiles, the slide's stain estimates
+(``attrs["stain_estimates"]``), its glass colour and a sample of its tissue pixels
+(``stain_sample``). :func:`bind_to_store` binds a target (Macenko or Reinhard) to that slide the
+way a normalizing run binds it (:meth:`StainNormalizer.fit_source_checked` on the stored sample,
+with the same fallback for an implausible estimate); every tile read is then normalized with it.
+:func:`median_target` builds a cohort's own target from the stores' estimates, without reading a
+pixel (the median a normalizing run computes from its slides).
+"""
+
+from __future__ import annotations
+
+import json
+import os
+from pathlib import Path
+
+from tilewright.errors import ConfigError, StoreError
+
+__all__ = ["bind_to_store", "median_target", "resolve_target", "ReadNormalization"]
+
+
+class ReadNormalization:
+    """What a store's reads apply: ``method``, the ``target`` dict, the bound normalizer, and the
+    note of a replaced estimate ("" when the slide's own was used)."""
+
+    def __init__(self, method: str, target: dict, bound, note: str):
+        self.method, self.target, self.bound, self.note = method, target, bound, note
+
+    def to_dict(self) -> dict:
+        from tilewright.store.settings import target_digest
+
+        return {"method": self.method, "target": target_digest(self.target), "note": self.note}
+
+    def __call__(self, tiles):
+        return self.bound.transform(tiles, out=tiles if tiles.flags.writeable else None)
+
+
+def resolve_target(target, method: str) -> dict:
+    """A target as a fitted normalizer dictionary: from a normalizer, its dict, or a JSON file of
+    one (``OUT/stain_target.macenko.json``, a ``--reference`` fitted and saved)."""
+    from tilewright.stain.registry import normalizer_from_dict
+
+    if isinstance(target, (str, os.PathLike)):
+        path = Path(target)
+        try:
+            target = json.loads(path.read_text())
+        except (OSError, ValueError) as exc:
+            raise ConfigError(f"cannot read the stain target JSON ({exc})", path) from None
+    if hasattr(target, "to_dict"):
+        target = target.to_dict()
+    if not isinstance(target, dict):
+        raise ConfigError(f"target= must be a fitted normalizer, its dict or a JSON file of one, got {target!r}")
+    if target.get("method") != method:
+        raise ConfigError(f"the target is for {target.get('method')!r}, not {method!r}")
+    d = normalizer_from_dict(target).to_dict()
+    d["source"], d["glass"] = None, None  # a target: no slide's source bound to it
+    return d
+
+
+def median_target(stores, method: str) -> dict:
+    """The cohort's own target: the median of the stores' recorded ``method`` estimates (slides whose
+    estimate failed or was implausible are left out, as a normalizing run leaves them out).
+
+    Raises
+    ------
+    StoreError
+        No store holds a usable estimate (none was tiled with ``estimate_stains``).
+    """
+    from tilewright.stain.registry import normalizer_from_dict
+
+    fitted = []
+    for store in stores:
+        est = (store.attrs.get("stain_estimates") or {}).get(method) or {}
+        if "error" not in est and est.get("method") == method:
+            fitted.append(normalizer_from_dict(est))
+    if not fitted:
+        raise StoreError(f"no store holds a usable {method} stain estimate; tile with --estimate-stains "
+                         "(TilingConfig(estimate_stains=True)), or give target=")
+    return resolve_target(type(fitted[0]).from_median(fitted), method)
+
+
+def bind_to_store(store, method: str, target) -> ReadNormalization:
+    """The normalization of ``store``'s tiles to ``target`` (see the module notes).
+
+    Raises
+    ------
+    StoreError
+        The tiles are normalized already, or the store holds no stain sample.
+    ConfigError
+        An unknown method or a target of another method.
+    """
+    from tilewright.stain.registry import METHODS
+
+    method = str(method).lower()
+    if method not in METHODS:
+        raise ConfigError(f"normalize= must be one of {', '.join(METHODS)}, got {method!r}")
+    attrs = store.attrs
+    if attrs.get("normalizer"):
+        raise StoreError(f"the tiles are stain-normalized already ({attrs['normalizer'].get('method')}); open the "
+                         "store without normalize=, or tile with --estimate-stains to normalize when reading",
+                         store.path)
+    if "stain_sample" not in store._group:
+        raise StoreError("the store holds no stain estimate; tile with --estimate-stains (TilingConfig("
+                         "estimate_stains=True)) to normalize when reading", store.path)
+    from tilewright.stain.registry import normalizer_from_dict
+
+    target = resolve_target(target, method)
+    pixels = store._small("stain_sample")
+    bound, note = normalizer_from_dict(target).fit_source_checked(pixels.reshape(1, -1, 3),
+                                                                  glass=attrs.get("stain_glass"))
+    return ReadNormalization(method, target, bound, note)
