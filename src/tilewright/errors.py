@@ -29,6 +29,8 @@ __all__ = [
     "IncompleteStoreError",
     "ConfigError",
     "OutputLockedError",
+    "ObjectStoreError",
+    "ObjectNotFoundError",
 ]
 
 
@@ -125,3 +127,18 @@ class ConfigError(TilewrightError, ValueError):
 
 class OutputLockedError(TilewrightError):
     """Another run holds the output folder's lock."""
+
+
+class ObjectStoreError(TilewrightError):
+    """An object-store request failed (refused credentials, access denied, missing bucket, unreachable
+    endpoint, timeout, server failure); ``.path`` is the URL and ``.cause`` one word for the kind
+    (``credentials``, ``denied``, ``bucket``, ``missing``, ``connection``, ``timeout``, ``server``,
+    ``other``)."""
+
+    def __init__(self, message: str, path: str | os.PathLike | None = None, *, cause: str = "other"):
+        super().__init__(message, path)
+        self.cause = cause
+
+
+class ObjectNotFoundError(ObjectStoreError, FileNotFoundError):
+    """The object (or the prefix) the URL names does not exist."""
