@@ -71,7 +71,7 @@ class ObjectServer:
         if self.proc.poll() is None:
             self.proc.send_signal(signal.SIGTERM)
             try:
-                self.proc.wait(15)
+                self.proc.wait(5)
             except subprocess.TimeoutExpired:
                 self.proc.kill()
                 self.proc.wait(15)
@@ -132,7 +132,7 @@ def start_server(timeout: float = 60.0) -> ObjectServer:
     cmd = [weed, "server", f"-dir={folder / 'data'}", "-ip=127.0.0.1", "-ip.bind=127.0.0.1",
            f"-master.port={master}", f"-master.port.grpc={g1}", "-master.telemetry=false",
            "-master.volumeSizeLimitMB=64", f"-volume.port={volume}", f"-volume.port.grpc={g2}",
-           "-volume.max=0", "-filer", f"-filer.port={filer}", f"-filer.port.grpc={g3}",
+           "-volume.max=0", "-volume.preStopSeconds=0", "-filer", f"-filer.port={filer}", f"-filer.port.grpc={g3}",
            "-s3", f"-s3.port={s3}", f"-s3.port.grpc={g4}", f"-s3.config={folder / 's3.json'}",
            "-s3.port.iceberg=0", "-s3.port.lance=0"]
     log = open(folder / "weed.log", "wb")

@@ -42,11 +42,12 @@ class TilewrightError(Exception):
     message : str
         What went wrong and what to do about it.
     path : str or os.PathLike, optional
-        The file or folder the error concerns; prefixed to the message.
+        The file or folder (or object-store URL) the error concerns; prefixed to the message.
     """
 
     def __init__(self, message: str, path: str | os.PathLike | None = None):
-        self.path = None if path is None else os.fspath(path)
+        # a local path, or an object-store URL (text, or an ObjectPath, which has no fspath)
+        self.path = None if path is None else (path.url if hasattr(path, "url") else os.fspath(path))
         self.reason = message
         super().__init__(f"{self.path}: {message}" if self.path else message)
 

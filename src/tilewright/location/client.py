@@ -21,6 +21,10 @@ Credentials and endpoints come only from each cloud SDK's standard places, never
   SAS token or the other ``AZURE_*`` variables the Azure SDKs read.
 - ``https://``: no credentials (public files, or pre-signed URLs).
 
+The client's I/O threads do not survive ``fork``: a process forked from one that used it refuses
+with a clear error instead of hanging (start such workers with ``spawn`` or ``forkserver``; dask
+workers are spawned).
+
 Transient failures (5xx answers, dropped connections, timeouts of reads) are retried with
 exponential backoff and jitter, up to :data:`RETRIES` times within :data:`RETRY_SECONDS`. A
 request that gets no answer within ``TILEWRIGHT_OBJECT_TIMEOUT`` seconds (default 120) fails.
@@ -36,7 +40,7 @@ import threading
 from tilewright.errors import ObjectNotFoundError, ObjectStoreError
 from tilewright.location.url import split_url
 
-__all__ = ["store_for", "object_error", "RETRIES", "RETRY_SECONDS"]
+__all__ = ["store_for", "prefixed_store", "object_error", "RETRIES", "RETRY_SECONDS"]
 
 #: Retries of a failed request (5xx, dropped connection, read timeout), with exponential backoff.
 RETRIES = 6
@@ -63,12 +67,31 @@ def store_for(url: str):
         The cloud client is missing, or no credentials can be found where the SDKs look.
     """
     scheme, bucket, key = split_url(url)
-    cache_key = (os.getpid(), scheme, bucket, tuple(os.environ.get(n) for n in _SETTINGS))
+    return _cached(scheme, bucket, None, url), key
+
+
+def prefixed_store(url: str):
+    """The obstore store whose keys are relative to the URL's key (a store's folder, for zarr)."""
+    scheme, bucket, key = split_url(url)
+    return _cached(scheme, bucket, key or None, url)
+
+
+def _cached(scheme: str, bucket: str, prefix: str | None, url: str):
+    pid = os.getpid()
+    cache_key = (pid, scheme, bucket, prefix, tuple(os.environ.get(n) for n in _SETTINGS))
     with _stores_lock:
         store = _stores.get(cache_key)
         if store is None:
-            store = _stores[cache_key] = _make_store(scheme, bucket, url)
-    return store, key
+            if any(k[0] != pid for k in _stores):
+                raise ObjectStoreError(
+                    "this process was forked from one that had used the object-store client, whose I/O "
+                    "threads do not survive a fork (requests would hang); start worker processes with "
+                    "'spawn' or 'forkserver' (PyTorch: DataLoader(..., multiprocessing_context='spawn'))",
+                    url, cause="fork")
+            if len(_stores) > 256:  # many store folders opened in one process: start afresh
+                _stores.clear()
+            store = _stores[cache_key] = _make_store(scheme, bucket, url, prefix)
+    return store
 
 
 def _retry():
@@ -93,7 +116,7 @@ def _client(endpoint: str | None = None) -> dict:
     return options
 
 
-def _make_store(scheme: str, bucket: str, url: str):
+def _make_store(scheme: str, bucket: str, url: str, prefix: str | None = None):
     try:
         from obstore import store as stores
     except ImportError:  # pragma: no cover - obstore is a dependency
@@ -101,13 +124,13 @@ def _make_store(scheme: str, bucket: str, url: str):
                                "pip install obstore", url) from None
     if scheme == "s3":
         config = _s3_config(url)
-        return stores.S3Store(bucket, config=config, client_options=_client(config.get("endpoint")),
+        return stores.S3Store(bucket, prefix=prefix, config=config, client_options=_client(config.get("endpoint")),
                               retry_config=_retry())
     if scheme == "gs":
-        return stores.GCSStore(bucket, client_options=_client(), retry_config=_retry())
+        return stores.GCSStore(bucket, prefix=prefix, client_options=_client(), retry_config=_retry())
     if scheme == "az":
-        return stores.AzureStore(bucket, client_options=_client(), retry_config=_retry())
-    base = f"{scheme}://{bucket}"
+        return stores.AzureStore(bucket, prefix=prefix, client_options=_client(), retry_config=_retry())
+    base = f"{scheme}://{bucket}" + (f"/{prefix}" if prefix else "")
     return stores.HTTPStore.from_url(base, client_options=_client(base), retry_config=_retry())
 
 

@@ -15,7 +15,7 @@ from tilewright.errors import ObjectNotFoundError, ObjectStoreError
 from tilewright.location.client import object_error, store_for
 from tilewright.location.url import split_url, url_join
 
-__all__ = ["head", "get_bytes", "get_range", "get_ranges", "put", "put_new", "put_if_unchanged", "delete",
+__all__ = ["head", "get_bytes", "get_range", "get_tail", "get_ranges", "put", "put_new", "put_if_unchanged", "delete",
            "delete_prefix", "list_prefix", "list_children", "exists", "is_prefix"]
 
 
@@ -88,6 +88,17 @@ def get_range(url: str, start: int, length: int) -> bytes:
     store, key = store_for(url)
     try:
         return bytes(obstore.get_range(store, key, start=int(start), length=int(length)))
+    except Exception as exc:  # noqa: BLE001
+        raise _fail(exc, url, "reading") from None
+
+
+def get_tail(url: str, n: int) -> bytes:
+    """The last ``n`` bytes of the object (all of it when it is shorter), in one request."""
+    import obstore
+
+    store, key = store_for(url)
+    try:
+        return bytes(obstore.get(store, key, options={"range": {"suffix": int(n)}}).bytes())
     except Exception as exc:  # noqa: BLE001
         raise _fail(exc, url, "reading") from None
 

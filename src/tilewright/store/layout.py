@@ -55,11 +55,20 @@ _COMPOUND = (".ome.tiff", ".ome.tif", ".ome.zarr")
 def slide_stem(path: str | os.PathLike) -> str:
     """File name without its extension(s): ``b.ome.tif`` → ``b``, ``a.svs`` → ``a``.
 
-    A folder (a DICOM whole-slide series) keeps its whole name: ``case.07/`` → ``case.07``.
+    A folder (a DICOM whole-slide series) keeps its whole name: ``case.07/`` → ``case.07``; a key
+    prefix in a bucket is named with a trailing ``/`` (``s3://b/case.07/``).
     """
-    name = Path(path).name
-    if os.path.isdir(path):
-        return name
+    from tilewright.location.url import is_url
+
+    if is_url(path):
+        text = str(path)
+        name = text.rstrip("/").rsplit("/", 1)[-1]
+        if text.endswith("/"):
+            return name
+    else:
+        name = Path(path).name
+        if os.path.isdir(path):
+            return name
     lower = name.lower()
     for suffix in _COMPOUND:
         if lower.endswith(suffix):
@@ -147,6 +156,8 @@ def _numbered(ids: list[str]) -> list[str]:
     return final
 
 
-def store_path(out_dir: str | os.PathLike, slide_id: str) -> Path:
-    """Path of a slide's store inside a cohort folder."""
-    return Path(out_dir) / f"{slide_id}.zarr"
+def store_path(out_dir: str | os.PathLike, slide_id: str):
+    """Path of a slide's store inside a cohort folder (an ``ObjectPath`` when the folder is a URL)."""
+    from tilewright.location.objpath import as_path
+
+    return as_path(out_dir) / f"{slide_id}.zarr"

@@ -1,0 +1,58 @@
+"""Where a tile store's bytes live: a local folder, or a key prefix in a bucket.
+
+zarr reads and writes a local store through its ``LocalStore`` (given the folder's path) and a
+store in a bucket through :class:`UrlObjectStore`, zarr's own ``ObjectStore`` over an obstore
+client whose keys are relative to the store's prefix (``s3://bucket/out/a.zarr``), which also
+remembers that URL so the direct shard reader and writer find the shard objects. Plain
+zarr-python reads such a store with ``zarr.storage.ObjectStore`` (or ``FsspecStore``) the way it
+reads a folder on disk.
+"""
+
+from __future__ import annotations
+
+from zarr.storage import ObjectStore
+
+from tilewright.location.objpath import ObjectPath, as_path
+from tilewright.location.url import is_url
+
+__all__ = ["UrlObjectStore", "zarr_store", "has_store"]
+
+
+class UrlObjectStore(ObjectStore):
+    """zarr's ``ObjectStore`` for the store at ``url`` (keys relative to it)."""
+
+    def __init__(self, url: str, *, read_only: bool = False):
+        from tilewright.location.client import prefixed_store
+
+        super().__init__(prefixed_store(url), read_only=read_only)
+        self.url = str(url).rstrip("/")
+
+    def with_read_only(self, read_only: bool = False) -> "UrlObjectStore":
+        return type(self)(self.url, read_only=read_only)
+
+    def __reduce__(self):
+        # re-made from the URL where it is unpickled: credentials come from that process's
+        # environment, never travel in a pickle
+        return _url_object_store, (self.url, self.read_only)
+
+
+def _url_object_store(url: str, read_only: bool) -> UrlObjectStore:
+    return UrlObjectStore(url, read_only=read_only)
+
+
+def zarr_store(path, *, read_only: bool = True):
+    """What ``zarr.open_group`` takes for the store at ``path``: its folder's path as text, or a
+    :class:`UrlObjectStore` for a URL."""
+    if is_url(path):
+        return UrlObjectStore(str(path), read_only=read_only)
+    return str(path)
+
+
+def has_store(path) -> bool:
+    """Whether a zarr group's metadata (``zarr.json``) is at ``path`` (one request for a URL)."""
+    return (as_path(path) / "zarr.json").is_file()
+
+
+def is_remote(path) -> bool:
+    """Whether ``path`` is a URL or an :class:`~tilewright.location.objpath.ObjectPath`."""
+    return isinstance(path, ObjectPath) or is_url(path)
