@@ -92,13 +92,15 @@ def get_range(url: str, start: int, length: int) -> bytes:
         raise _fail(exc, url, "reading") from None
 
 
-def get_tail(url: str, n: int) -> bytes:
-    """The last ``n`` bytes of the object (all of it when it is shorter), in one request."""
+def get_tail(url: str, n: int) -> tuple[bytes, int]:
+    """The last ``n`` bytes of the object (all of it when it is shorter) and the object's size, in
+    one request."""
     import obstore
 
     store, key = store_for(url)
     try:
-        return bytes(obstore.get(store, key, options={"range": {"suffix": int(n)}}).bytes())
+        got = obstore.get(store, key, options={"range": {"suffix": int(n)}})
+        return bytes(got.bytes()), int(got.meta["size"])
     except Exception as exc:  # noqa: BLE001
         raise _fail(exc, url, "reading") from None
 

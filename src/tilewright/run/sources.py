@@ -22,9 +22,17 @@ def is_slide_name(path: str | os.PathLike) -> bool:
 def unique_paths(paths) -> list[Path]:
     """``paths`` in their order with repeats dropped: a file named twice (even as ``a/../b.svs``
     and ``b.svs``, or through a symbolic link) is one slide, tiled once."""
+    from tilewright.location.url import is_url
+
     seen: set = set()
     out = []
-    for p in map(Path, paths):
+    for p in paths:
+        if is_url(p):  # a URL names its object: kept as text
+            if str(p) not in seen:
+                seen.add(str(p))
+                out.append(str(p))
+            continue
+        p = Path(p)
         key = os.path.realpath(p)
         if key not in seen:
             seen.add(key)
@@ -41,7 +49,15 @@ def find_slides(source: str | os.PathLike) -> list[Path]:
     relative paths are relative to the list file, and a file listed twice is one slide.
     Folder searches skip hidden folders and ``*.zarr`` outputs and return paths sorted. DICOM
     files found there are grouped by series (see :func:`dicom_sources`): one path a series.
+    An object-store URL (``s3://bucket/prefix/``) is searched the same way (see
+    :func:`tilewright.run.url_sources.find_url_slides`); slides in a bucket are URLs (text).
     """
+    from tilewright.location.url import is_url
+
+    if is_url(source):
+        from tilewright.run.url_sources import find_url_slides
+
+        return find_url_slides(source)
     source = Path(source)
     if not source.exists():
         raise ConfigError("SOURCE does not exist; give a slide file, a folder of slides or a list file", source)
@@ -107,7 +123,10 @@ def _read_list(path: Path) -> list[Path]:
         entries = [r[column].strip() for r in rows if r.get(column)]
     else:
         entries = lines
-    return unique_paths(p if p.is_absolute() else (path.parent / p) for p in map(Path, entries))
+    from tilewright.location.url import is_url
+
+    return unique_paths(e if is_url(e) else (Path(e) if Path(e).is_absolute() else path.parent / e)
+                        for e in entries)
 
 
 def _names_a_slide(line: str, list_file: Path) -> bool:

@@ -30,10 +30,44 @@ class UrlObjectStore(ObjectStore):
     def with_read_only(self, read_only: bool = False) -> "UrlObjectStore":
         return type(self)(self.url, read_only=read_only)
 
+    # obstore's exceptions become tilewright's one-line errors naming the object's URL
+    async def get(self, key, prototype, byte_range=None):
+        try:
+            return await super().get(key, prototype, byte_range)
+        except Exception as exc:
+            raise _mapped(exc, self.url, key, "reading") from None
+
+    async def exists(self, key) -> bool:
+        try:
+            return await super().exists(key)
+        except Exception as exc:
+            raise _mapped(exc, self.url, key, "reading") from None
+
+    async def set(self, key, value) -> None:
+        try:
+            return await super().set(key, value)
+        except Exception as exc:
+            raise _mapped(exc, self.url, key, "writing") from None
+
+    async def delete(self, key) -> None:
+        try:
+            return await super().delete(key)
+        except Exception as exc:
+            raise _mapped(exc, self.url, key, "deleting") from None
+
     def __reduce__(self):
         # re-made from the URL where it is unpickled: credentials come from that process's
         # environment, never travel in a pickle
         return _url_object_store, (self.url, self.read_only)
+
+
+def _mapped(exc: Exception, url: str, key: str, doing: str) -> Exception:
+    """An obstore exception as :class:`~tilewright.errors.ObjectStoreError`; others unchanged."""
+    if type(exc).__module__.split(".")[0] != "obstore":
+        return exc  # not found (a FileNotFoundError zarr handles), or not the client's
+    from tilewright.location.client import object_error
+
+    return object_error(exc, f"{url}/{key}", doing)
 
 
 def _url_object_store(url: str, read_only: bool) -> UrlObjectStore:

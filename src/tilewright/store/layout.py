@@ -115,8 +115,10 @@ def slide_ids(paths) -> list[str]:
     :data:`MAX_ID_BYTES` keep their head and gain a stable hash suffix. Pass each slide once
     (:func:`tilewright.run.sources.unique_paths` drops repeats).
     """
-    paths = [Path(p) for p in paths]
-    ids = [_safe(slide_stem(p)) for p in paths]
+    given = list(paths)
+    paths = [_as_pure(g) for g in given]
+    stems = [slide_stem(g) for g in given]
+    ids = [_safe(stem) for stem in stems]
     counts = Counter(ids)
     out = []
     for p, sid in zip(paths, ids):
@@ -128,12 +130,22 @@ def slide_ids(paths) -> list[str]:
     while len(set(out)) < len(out) and depth < 6:
         counts = Counter(out)
         out = [
-            _shorten("_".join([_safe(x) for x in p.parent.parts[-depth:]] + [_safe(slide_stem(p))]))
+            _shorten("_".join([_safe(x) for x in p.parent.parts[-depth:]] + [_safe(stem)]))
             if counts[o] > 1 else o
-            for p, o in zip(paths, out)
+            for p, o, stem in zip(paths, out, stems)
         ]
         depth += 1
     return _numbered(out)
+
+
+def _as_pure(path) -> Path:
+    """The path whose parent folders name colliding ids (a URL's key parts, its bucket first)."""
+    from tilewright.location.url import is_url, split_url
+
+    if is_url(path):
+        scheme, bucket, key = split_url(str(path))
+        return Path(bucket, *[k for k in key.split("/") if k])
+    return Path(path)
 
 
 def _numbered(ids: list[str]) -> list[str]:

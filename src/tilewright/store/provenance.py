@@ -5,29 +5,51 @@ from __future__ import annotations
 import hashlib
 import os
 
+from tilewright.location.byte_source import open_binary
+from tilewright.location.url import is_url
+
 __all__ = ["source_digest", "source_size"]
 
 _SAMPLE = 1 << 20  # bytes read at each sampled position
 _POSITIONS = 16
 
 
+def _is_folder(path) -> bool:
+    """A folder (a DICOM series): on disk, or a key prefix named with a trailing ``/``."""
+    return str(path).endswith("/") if is_url(path) else os.path.isdir(path)
+
+
 def _files(path) -> list[str]:
     """The files a source consists of: itself, or a folder's files (a DICOM series), sorted."""
+    if is_url(path):
+        if not _is_folder(path):
+            return [str(path)]
+        from tilewright.location.objects import list_children
+
+        return [u for u, _ in list_children(str(path))[0] if not u.rsplit("/", 1)[-1].startswith(".")]
     if not os.path.isdir(path):
         return [os.fspath(path)]
     return sorted(os.path.join(path, f) for f in os.listdir(path)
                   if os.path.isfile(os.path.join(path, f)) and not f.startswith("."))
 
 
+def _size(path: str) -> int:
+    if is_url(path):
+        from tilewright.location.objects import head
+
+        return head(path)["size"]
+    return os.path.getsize(path)
+
+
 def source_size(path: str | os.PathLike) -> int:
-    """Bytes of a source file, or of all files of a source folder."""
-    return sum(os.path.getsize(f) for f in _files(path))
+    """Bytes of a source file, or of all files of a source folder (a local path or a URL)."""
+    return sum(_size(f) for f in _files(path))
 
 
 def source_digest(path: str | os.PathLike) -> str:
     """Digest of a source: :func:`file_digest` of a file; of a folder (a DICOM series), SHA-256 over
     each file's name and digest, in name order (prefix ``sha256f:``)."""
-    if not os.path.isdir(path):
+    if not _is_folder(path):
         return file_digest(path)
     h = hashlib.sha256()
     for f in _files(path):
@@ -42,9 +64,9 @@ def file_digest(path: str | os.PathLike) -> str:
     the head, tail and interior still tells a changed or swapped file from the original. Files up
     to 16 MiB are hashed whole. The result is prefixed ``sha256s:`` (sampled) or ``sha256:``.
     """
-    size = os.path.getsize(path)
+    size = _size(path)
     h = hashlib.sha256()
-    with open(path, "rb") as fh:
+    with open_binary(path) as fh:  # in a bucket: one range request a sample
         if size <= _SAMPLE * _POSITIONS:
             for block in iter(lambda: fh.read(1 << 22), b""):
                 h.update(block)

@@ -303,7 +303,7 @@ class _ObjectShard:
     def tail(self, n: int) -> bytes:
         from tilewright.location.objects import get_tail
 
-        return get_tail(self.url, n)
+        return get_tail(self.url, n)[0]
 
     def whole(self) -> bytes:
         from tilewright.location.objects import get_bytes
