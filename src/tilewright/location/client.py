@@ -228,6 +228,9 @@ def object_error(exc: BaseException, url: str, doing: str = "reading") -> Object
                                 url, cause="denied")
     if kind in ("NotFoundError", "FileNotFoundError") or status == 404:
         return ObjectNotFoundError(f"no such object while {doing}; check the URL", url, cause="missing")
+    if "Range request not supported" in text:
+        return ObjectStoreError("the server does not answer byte-range requests, which tilewright reads slides "
+                                "with; copy the file into a bucket or onto a local disk", url, cause="other")
     if "kind: Connect" in text or "error trying to connect" in text or "dns error" in text.lower():
         return ObjectStoreError(f"cannot connect to the object store while {doing} ({_retries(first)}); check the "
                                 "endpoint (AWS_ENDPOINT_URL) and the network", url, cause="connection")
@@ -237,7 +240,8 @@ def object_error(exc: BaseException, url: str, doing: str = "reading") -> Object
     if status is not None and status >= 500:
         return ObjectStoreError(f"the object store failed while {doing} (HTTP {status}, {_retries(first)}); "
                                 "run again later", url, cause="server")
-    if "kind: Body" in text or "kind: Decode" in text or "connection closed" in text.lower():
+    if ("kind: Body" in text or "kind: Decode" in text or "kind: Request" in text
+            or "connection closed" in text.lower() or "error sending request" in text):
         return ObjectStoreError(f"the connection dropped while {doing} ({_retries(first)}); run again",
                                 url, cause="connection")
     detail = re.sub(r"\s+", " ", first)[:200]
@@ -256,4 +260,4 @@ def _status(text: str) -> int | None:
 
 def _retries(first_line: str) -> str:
     m = re.search(r"after (\d+) retries", first_line)
-    return f"after {m.group(1)} retries" if m else "no retry left"
+    return f"after {m.group(1)} retries" if m else "after retrying"
