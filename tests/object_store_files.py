@@ -42,3 +42,11 @@ def listing(url: str) -> dict[str, bytes]:
             rel = meta["path"][len(key) + 1:] if key else meta["path"]
             out[rel] = bytes(obstore.get(store, meta["path"]).bytes())
     return out
+
+
+def fetch(url: str) -> bytes:
+    """One object's bytes."""
+    import obstore
+
+    store, key = _store(url)
+    return bytes(obstore.get(store, key).bytes())

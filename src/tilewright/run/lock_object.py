@@ -70,6 +70,8 @@ def _read(url: str) -> tuple[dict, str, float] | None:
 
 
 def _stale(holder: dict, age: float) -> bool:
+    if not holder.get("run"):
+        return True  # not a lock this code wrote (objects are written whole, so never a half-written one)
     if age > float(holder.get("lease_seconds") or LEASE_SECONDS):
         return True
     pid = holder.get("pid")
