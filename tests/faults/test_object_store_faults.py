@@ -125,3 +125,14 @@ def test_a_dropped_connection_fails_in_one_line_naming_the_url(served, monkeypat
         tw.open(url)
     assert url in str(e.value) and e.value.cause == "connection" and "\n" not in str(e.value)
     assert handler.seen.count("GET") > 1 and "retr" in str(e.value)  # retried before giving up (server's count)
+
+
+def test_request_counts_are_what_the_server_sees(served):
+    """The byte sources' request counts (the benchmark's requests per tile) against the server's own count."""
+    path, url, handler = served
+    with tw.open(url) as s:
+        sources = s._reader._fds
+        for region in ((0, 0, 700, 900), (300, 300, 10, 10), (0, 0, 1600, 1950)):
+            seen, counted = handler.seen.count("GET"), sum(src.requests for src in sources)
+            s.read_level(0, *region)
+            assert handler.seen.count("GET") - seen == sum(src.requests for src in sources) - counted

@@ -136,6 +136,15 @@ class ObjectSource(ByteSource):
             self.requests += 1
         return get_range(self.name, offset, n)
 
+    def pread_many(self, offsets, lengths) -> list:
+        """Several ranges at once: requested concurrently, ranges close together in one request
+        (obstore's coalescing); one buffer a range, in the order asked."""
+        from tilewright.location.objects import get_ranges
+
+        with self._lock:
+            self.requests += _requests_for(offsets, lengths)
+        return get_ranges(self.name, offsets, lengths)
+
     def read_cached(self, n: int, offset: int) -> bytes:
         """``n`` bytes at ``offset`` through the block cache (large reads go straight through)."""
         n = min(int(n), self.size - int(offset))
@@ -166,6 +175,23 @@ class ObjectSource(ByteSource):
     def close(self) -> None:
         with self._lock:
             self._blocks.clear()
+
+
+#: Ranges less than this far apart are fetched in one request (obstore's default coalescing).
+COALESCE = 1 << 20
+
+
+def _requests_for(offsets, lengths) -> int:
+    """How many requests obstore's ``get_ranges`` makes for these ranges (its coalescing rule)."""
+    spans = sorted(zip(offsets, lengths))
+    count, end = 0, None
+    for start, n in spans:
+        if end is None or start - end > COALESCE:
+            count += 1
+            end = start + n
+        else:
+            end = max(end, start + n)
+    return count
 
 
 class SourceFile(io.RawIOBase):

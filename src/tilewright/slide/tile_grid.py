@@ -189,9 +189,10 @@ class GridReader:
         th, tw = lv.tile_h, lv.tile_w
         r0, r1 = y // th, (y + h - 1) // th
         c0, c1 = x // tw, (x + w - 1) // tw
+        fetched = self._fetch_rows(lv, r0, r1, c0, c1)
         for r in range(r0, r1 + 1):
             first, last = r * lv.grid_w + c0, r * lv.grid_w + c1
-            chunks = self._fetch_row(lv.offsets[first : last + 1], lv.counts[first : last + 1], lv.fd)
+            chunks = fetched[r - r0]
             ty = r * th
             ya, yb = max(y, ty), min(y + h, ty + th)
             for k, data in enumerate(chunks):
@@ -332,6 +333,38 @@ class GridReader:
             return want is not None and np.array_equal(want[..., :3], got)
         except Exception:  # noqa: BLE001 - damaged first tile: leave it to the general path
             return False
+
+    def _fetch_rows(self, lv: GridLevel, r0: int, r1: int, c0: int, c1: int) -> list[list]:
+        """The tiles of columns ``c0..c1`` in rows ``r0..r1``, row by row (see :meth:`_fetch_row`).
+
+        From a file in an object store, the rows are requested together (one range a row whose
+        tiles lie together, all in flight at once, neighbours coalesced by the client), so a read
+        waits about one request's latency however many rows it touches.
+        """
+        spans = [(lv.offsets[r * lv.grid_w + c0: r * lv.grid_w + c1 + 1],
+                  lv.counts[r * lv.grid_w + c0: r * lv.grid_w + c1 + 1]) for r in range(r0, r1 + 1)]
+        if len(spans) == 1 or not getattr(lv.fd, "remote", False):
+            return [self._fetch_row(offs, cnts, lv.fd) for offs, cnts in spans]
+        ranges = []
+        for offs, cnts in spans:
+            stored = cnts > 0
+            if not stored.any():
+                ranges.append(None)
+                continue
+            lo, hi = int(offs[stored].min()), int((offs + cnts)[stored].max())
+            ranges.append((lo, hi) if hi - lo <= int(cnts.sum()) + 65536 else None)  # else tile by tile
+        wanted = [r for r in ranges if r is not None]
+        got = iter(lv.fd.pread_many([lo for lo, _ in wanted], [hi - lo for lo, hi in wanted]) if wanted else [])
+        out = []
+        for (offs, cnts), span in zip(spans, ranges):
+            if span is None:
+                out.append(self._fetch_row(offs, cnts, lv.fd))
+                continue
+            buf = memoryview(next(got))
+            if len(buf) < span[1] - span[0]:
+                raise DamagedSlideError("truncated tile data", self.path)
+            out.append([buf[o - span[0]: o - span[0] + n] if n else b"" for o, n in zip(offs.tolist(), cnts.tolist())])
+        return out
 
     def _fetch_row(self, offs: np.ndarray, cnts: np.ndarray, fd=None) -> list[bytes]:
         """Read a run of tiles (of the level-0 file, or of ``fd``), in one positional read when
