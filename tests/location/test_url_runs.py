@@ -8,6 +8,7 @@ credentials, a missing bucket or a denied write stop the command with exit 2 and
 
 from __future__ import annotations
 
+import json
 import os
 import signal
 import subprocess
@@ -23,7 +24,7 @@ from tilewright.store.reader import is_complete
 
 from helpers import write_slide
 from object_server import READER
-from object_store_files import _store, listing, upload
+from object_store_files import _store, fetch, listing, upload
 
 pytestmark = pytest.mark.timeout(600)
 
@@ -160,3 +161,21 @@ def test_workers_that_cannot_read_the_bucket_are_named_before_any_work(cohort, b
     with LocalCluster(n_workers=1, threads_per_worker=1, processes=True, dashboard_address=":0") as cl:
         rows = tile_cohort(paths, f"{bucket}/tiles", cfg, scheduler=cl.scheduler_address, progress=False)
     assert [r.status for r in rows] == ["ok"] and is_complete(f"{bucket}/tiles/n-01.zarr")
+
+
+def test_the_cohort_stain_target_is_saved_in_the_bucket_and_reused(cohort, bucket):
+    src, _ = cohort
+    upload(src / "site-north", f"{bucket}/slides")
+    args = [*ARGS, "--normalize", "macenko"]
+    done = _tile_out(f"{bucket}/slides/", f"{bucket}/tiles", *args)
+    assert done.returncode == 0, done.stderr[-3000:]
+    target = json.loads(fetch(f"{bucket}/tiles/stain_target.macenko.json"))
+    assert target["method"] == "macenko"
+    store = tw.open_store(f"{bucket}/tiles/n-01.zarr")
+    assert store.attrs["normalizer"] is not None
+    before = _versions(f"{bucket}/tiles")
+    again = _tile_out(f"{bucket}/slides/", f"{bucket}/tiles", *args)  # the saved target is read back...
+    assert again.returncode == 0, again.stderr[-3000:]
+    after = _versions(f"{bucket}/tiles")
+    assert {k: v for k, v in after.items() if ".zarr/" in k} == {k: v for k, v in before.items() if ".zarr/" in k}
+    assert after["tiles/stain_target.macenko.json"] == before["tiles/stain_target.macenko.json"]  # ...not rewritten

@@ -100,10 +100,13 @@ def check_workers(client, paths, out_dir) -> None:
         problems = []
         for addr, r in sorted(report.items()):
             wrote_ok = r["wrote"] is not None and _read(out_dir / r["wrote"]) == token
-            why = f" ({r['why'][0]})" if r.get("why") else ""
-            if r["n_missing"]:
+            if r["n_missing"] and is_url(r["missing"][0]):
+                why = f" ({r['why'][0]})" if r.get("why") else ""
                 problems.append(f"worker {addr} on {r['host']} cannot read {r['n_missing']} slide(s), "
                                 f"e.g. {r['missing'][0]}{why}")
+            elif r["n_missing"]:
+                problems.append(f"worker {addr} on {r['host']} cannot see {r['n_missing']} slide file(s), "
+                                f"e.g. {r['missing'][0]}")
             if not r["sees_out"]:
                 problems.append(f"worker {addr} on {r['host']} does not see the output folder {out_dir}"
                                 + (f" ({r['out_error']})" if r.get("out_error") else ""))
