@@ -29,6 +29,8 @@ __all__ = [
     "IncompleteStoreError",
     "ConfigError",
     "OutputLockedError",
+    "ObjectStoreError",
+    "ObjectNotFoundError",
 ]
 
 
@@ -40,11 +42,12 @@ class TilewrightError(Exception):
     message : str
         What went wrong and what to do about it.
     path : str or os.PathLike, optional
-        The file or folder the error concerns; prefixed to the message.
+        The file or folder (or object-store URL) the error concerns; prefixed to the message.
     """
 
     def __init__(self, message: str, path: str | os.PathLike | None = None):
-        self.path = None if path is None else os.fspath(path)
+        # a local path, or an object-store URL (text, or an ObjectPath, which has no fspath)
+        self.path = None if path is None else (path.url if hasattr(path, "url") else os.fspath(path))
         self.reason = message
         super().__init__(f"{self.path}: {message}" if self.path else message)
 
@@ -125,3 +128,18 @@ class ConfigError(TilewrightError, ValueError):
 
 class OutputLockedError(TilewrightError):
     """Another run holds the output folder's lock."""
+
+
+class ObjectStoreError(TilewrightError):
+    """An object-store request failed (refused credentials, access denied, missing bucket, unreachable
+    endpoint, timeout, server failure); ``.path`` is the URL and ``.cause`` one word for the kind
+    (``credentials``, ``denied``, ``bucket``, ``missing``, ``connection``, ``timeout``, ``server``,
+    ``other``)."""
+
+    def __init__(self, message: str, path: str | os.PathLike | None = None, *, cause: str = "other"):
+        super().__init__(message, path)
+        self.cause = cause
+
+
+class ObjectNotFoundError(ObjectStoreError, FileNotFoundError):
+    """The object (or the prefix) the URL names does not exist."""

@@ -11,6 +11,8 @@ import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from tilewright.store.backing import zarr_store
+
 import pandas as pd
 
 from tilewright.audit.association import association_table
@@ -168,7 +170,7 @@ def normalized_run(cohort_or_dir) -> bool:
     folder, ok = ok_slides(cohort_or_dir)
     for slide_id in ok.index:
         try:
-            attrs = zarr.open_group(str(folder / f"{slide_id}.zarr"), mode="r").attrs
+            attrs = zarr.open_group(zarr_store(folder / f"{slide_id}.zarr"), mode="r").attrs
         except Exception:  # noqa: BLE001 - missing or damaged: the audit skips it too
             continue
         if attrs.get("complete", False) and attrs.get("normalizer"):

@@ -21,6 +21,7 @@ Two kinds of column are not tested as they are:
 
 from __future__ import annotations
 
+import io
 import os
 import re
 from pathlib import Path
@@ -30,6 +31,7 @@ import pandas as pd
 
 from tilewright.audit.metadata_match import match_suffixed_ids
 from tilewright.errors import ConfigError
+from tilewright.location.objpath import as_path
 
 __all__ = ["read_metadata", "read_table_file", "as_factors", "cohort_factors", "identifier_columns", "alias_groups",
            "MANIFEST_FACTORS"]
@@ -65,7 +67,7 @@ def read_metadata(metadata) -> pd.DataFrame:
     """
     path = None
     if isinstance(metadata, (str, os.PathLike)):
-        path = Path(metadata)
+        path = as_path(metadata)  # a local file, or an object in a bucket
         table = read_table_file(path, text=False, need="a slide_id column")
     elif isinstance(metadata, pd.DataFrame):
         table = metadata.copy()
@@ -97,15 +99,19 @@ def read_table_file(path: Path, *, text: bool, need: str) -> pd.DataFrame:
     ConfigError
         When the file is missing or unreadable; ``need`` says what the table should hold.
     """
+    from tilewright.location.objpath import ObjectPath
+
+    path = as_path(path)
     if not path.is_file():
         raise ConfigError(f"metadata file not found; give a CSV with {need}", path)
     try:
+        source = io.BytesIO(path.read_bytes()) if isinstance(path, ObjectPath) else path  # a bucket: its bytes
         if path.suffix.lower() == ".parquet":
-            return pd.read_parquet(path)
+            return pd.read_parquet(source)
         sep = "\t" if path.suffix.lower() in (".tsv", ".tab") else ","
         if text:
-            return pd.read_csv(path, sep=sep, dtype=str, keep_default_na=False)
-        return pd.read_csv(path, sep=sep, dtype={"slide_id": str})
+            return pd.read_csv(source, sep=sep, dtype=str, keep_default_na=False)
+        return pd.read_csv(source, sep=sep, dtype={"slide_id": str})
     except (ValueError, OSError, UnicodeDecodeError) as exc:
         raise ConfigError(f"cannot read the metadata table ({exc}); save it as CSV", path) from exc
 

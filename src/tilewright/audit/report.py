@@ -15,6 +15,8 @@ from pathlib import Path
 
 import pandas as pd
 
+from tilewright.location.objpath import as_path
+from tilewright.location.url import is_url
 from tilewright.audit import plots
 from tilewright.audit.compare import compare_audits
 from tilewright.audit.findings import comparison_findings
@@ -203,6 +205,8 @@ def write_report(audit, folder, *, before=None, names=None) -> Path:
     StoreError
         When the folder cannot be created or written.
     """
+    if is_url(folder):  # a bucket: the report is made in a local folder, then each file written whole
+        return _report_to_bucket(audit, as_path(folder), before, names)
     folder = Path(folder)
     if before is not None and names is None:
         from tilewright.audit.cohort import _source_name
@@ -233,4 +237,19 @@ def write_report(audit, folder, *, before=None, names=None) -> Path:
         raise StoreError(f"cannot write the report ({exc}); check free space and permissions", folder) from exc
     finally:
         shutil.rmtree(tmp, ignore_errors=True)
+    return folder / "report.html"
+
+
+def _report_to_bucket(audit, folder, before, names):
+    """:func:`write_report` into a prefix of a bucket (``report.html`` written last)."""
+    from tilewright.location.objpath import replace_bytes
+
+    local = Path(tempfile.mkdtemp(prefix="tilewright-report-"))
+    try:
+        write_report(audit, local / "report", before=before, names=names)
+        files = sorted((local / "report").iterdir(), key=lambda p: p.name == "report.html")
+        for path in files:
+            replace_bytes(folder / path.name, path.read_bytes())
+    finally:
+        shutil.rmtree(local, ignore_errors=True)
     return folder / "report.html"

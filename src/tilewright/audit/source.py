@@ -24,6 +24,9 @@ from __future__ import annotations
 import os
 from pathlib import Path
 
+from tilewright.location.objpath import ObjectPath, as_path
+from tilewright.store.backing import zarr_store
+
 import numpy as np
 import pandas as pd
 
@@ -55,13 +58,13 @@ def resolve_folder(cohort_or_dir) -> Path:
     StoreError
         When the folder does not exist or holds no manifest.
     """
-    if isinstance(cohort_or_dir, (str, os.PathLike)):
-        folder = Path(cohort_or_dir)
+    if isinstance(cohort_or_dir, (str, os.PathLike, ObjectPath)):
+        folder = as_path(cohort_or_dir)
     else:
         for name in ("path", "root", "out_dir", "folder", "directory"):
             value = getattr(cohort_or_dir, name, None)
-            if isinstance(value, (str, os.PathLike)):
-                folder = Path(value)
+            if isinstance(value, (str, os.PathLike, ObjectPath)):
+                folder = as_path(value)
                 break
         else:
             raise StoreError(
@@ -85,9 +88,9 @@ def read_manifest(folder: Path) -> pd.DataFrame:
     csv = folder / "manifest.csv"
     try:
         if csv.is_file():
-            manifest = pd.read_csv(csv, dtype={"slide_id": str, "status": str, "error": str})
+            manifest = pd.read_csv(_readable(csv), dtype={"slide_id": str, "status": str, "error": str})
         else:
-            manifest = pd.read_parquet(folder / "manifest.parquet")
+            manifest = pd.read_parquet(_readable(folder / "manifest.parquet"))
     except (ValueError, OSError) as exc:
         raise StoreError(f"cannot read the manifest ({exc}); re-run tile-out to rewrite it", csv) from exc
     missing = {"slide_id", "status"} - set(manifest.columns)
@@ -95,6 +98,13 @@ def read_manifest(folder: Path) -> pd.DataFrame:
         raise StoreError(f"manifest lacks column(s) {sorted(missing)}; re-run tile-out to rewrite it", csv)
     manifest["slide_id"] = manifest["slide_id"].astype(str)
     return manifest.drop_duplicates("slide_id", keep="last").set_index("slide_id")
+
+
+def _readable(path):
+    """What pandas reads: a local path, or the object's bytes."""
+    import io
+
+    return io.BytesIO(path.read_bytes()) if isinstance(path, ObjectPath) else path
 
 
 def _open(folder: Path, slide_id: str, needs_tiles: bool):
@@ -105,7 +115,7 @@ def _open(folder: Path, slide_id: str, needs_tiles: bool):
     if not path.is_dir():
         raise StoreError("store listed as ok in the manifest is missing; re-run tile-out", path)
     try:
-        group = zarr.open_group(str(path), mode="r")
+        group = zarr.open_group(zarr_store(path), mode="r")
     except Exception as exc:  # zarr raises several types for a damaged group
         raise StoreError(f"cannot open the store ({exc}); re-run tile-out with --overwrite", path) from exc
     attrs = dict(group.attrs)

@@ -9,12 +9,12 @@ were before normalization: the two sides of the comparison then differ by normal
 from __future__ import annotations
 
 import inspect
-import os
 from pathlib import Path
 
 import numpy as np
 
 from tilewright.errors import StoreError, TilewrightError
+from tilewright.location.objpath import as_path
 
 __all__ = ["read_source_tiles"]
 
@@ -47,11 +47,11 @@ def read_source_tiles(attrs: dict, yx: np.ndarray, tile: int, store: Path) -> np
 
     source = attrs.get("source") or {}
     path = source.get("path") if isinstance(source, dict) else None
-    if not path or not Path(path).is_file():
+    if not path or not as_path(path).is_file():
         raise StoreError(f"source slide not found at {path!r}; the before/after comparison re-reads the sampled "
                          "tiles from it (keep the slides where tile-out read them, or audit without it)", store)
     size = source.get("size")
-    if size is not None and os.path.getsize(path) != int(size):
+    if size is not None and as_path(path).stat().st_size != int(size):
         raise StoreError(f"source slide {path} changed since it was tiled (size differs); re-run tile-out", store)
     config = attrs.get("config") or {}
     options = {"mpp": attrs.get("mpp_source"), "verify": bool(config.get("verify_jpeg", True))}

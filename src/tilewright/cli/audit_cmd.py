@@ -10,6 +10,8 @@ import argparse
 import sys
 from pathlib import Path
 
+from tilewright.location.objpath import as_path
+
 __all__ = ["register", "run", "build_parser"]
 
 DESCRIPTION = (
@@ -87,14 +89,14 @@ def run(args: argparse.Namespace) -> int:
     from tilewright.audit.compare import audit_before_after
     from tilewright.errors import ConfigError, StoreError, TilewrightError
 
-    out = Path(args.out)
+    out = as_path(args.out)  # a folder, or a prefix in a bucket
     if not out.is_dir():
         return _fail(f"{out}: output folder not found; give the folder tile-out wrote", 2)
-    if args.metadata is not None and not Path(args.metadata).is_file():
+    if args.metadata is not None and not as_path(args.metadata).is_file():
         return _fail(f"{args.metadata}: metadata file not found; give a CSV with a slide_id column", 2)
     if args.max_tiles < 1:
         return _fail(f"--max-tiles must be at least 1, got {args.max_tiles}", 2)
-    report = Path(args.report) if args.report else out / "audit"
+    report = as_path(args.report) if args.report else out / "audit"
     if args.metadata is not None:  # checked against the manifest before any metric is computed
         code = _check_metadata(out, args.metadata, args.label)
         if code:

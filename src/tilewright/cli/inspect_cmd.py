@@ -77,7 +77,9 @@ def _overlay_path(args) -> Path | int:
         print(f"tilewright inspect: error: {message}", file=sys.stderr)
         return 2
 
-    if not Path(args.slide).exists():
+    from tilewright.location.url import is_url
+
+    if not is_url(args.slide) and not Path(args.slide).exists():  # a URL: tw.open says what is wrong
         return bad(f"{args.slide}: no such slide file; check the path (and the folder you run in)")
     for option, value, ok in (("--mpp", args.mpp, args.mpp > 0), ("--tile", args.tile, args.tile >= 1),
                               ("--min-tissue", args.min_tissue, 0 <= args.min_tissue <= 1)):

@@ -62,10 +62,16 @@ def run(args) -> int:
     from tilewright.run.events import read_progress
     from tilewright.run.lock import lock_holder
 
+    from tilewright.errors import TilewrightError
+
     try:
         status = read_progress(args.out)
+        holder = lock_holder(args.out)
     except (OSError, ValueError) as exc:
         print(f"tilewright status: cannot read {args.out}/progress.json ({exc})", file=sys.stderr)
         return 2
-    sys.stdout.write(describe(status, lock_holder(args.out)))
+    except TilewrightError as exc:  # a bucket that cannot be read: one line
+        print(f"tilewright status: error: {exc.one_line()}", file=sys.stderr)
+        return 2
+    sys.stdout.write(describe(status, holder))
     return 0

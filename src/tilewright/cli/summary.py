@@ -6,6 +6,7 @@ import os
 import sys
 from pathlib import Path
 
+from tilewright.location.objpath import as_path
 from tilewright.run.row_text import row_note, row_seconds, wrapped
 
 __all__ = ["print_summary", "FULL_TABLE_UP_TO"]
@@ -15,10 +16,17 @@ FULL_TABLE_UP_TO = 20
 
 
 def _bytes(rows, out) -> int:
+    from tilewright.location.url import is_url
+
     total = 0
     for r in rows:
         if r.get("status") != "ok" or r.get("kept"):
             continue  # written by this run only (a kept store was written by an earlier one)
+        if is_url(out):
+            from tilewright.location.objects import list_prefix
+
+            total += sum(size for _, size in list_prefix(f"{str(out).rstrip('/')}/{r['slide_id']}.zarr"))
+            continue
         for root, _, files in os.walk(Path(out) / f"{r['slide_id']}.zarr"):
             total += sum(os.path.getsize(os.path.join(root, f)) for f in files)
     return total
@@ -54,7 +62,7 @@ def print_summary(rows, out, *, seconds: float = 0.0, megapixels: float = 0.0, v
         for r in listed:  # the note is never cut: wrapped at word boundaries under its column
             head = f"{r['slide_id']:<{w}}  {r['status']:<7}  {int(r.get('n_tiles') or 0):>7}  {row_seconds(r)}  "
             stream.write(head + wrapped(row_note(r), len(head)) + "\n")
-    where = f"{Path(out) / 'manifest.csv'}"
+    where = f"{as_path(out) / 'manifest.csv'}"
     if failed and listed is failed:
         stream.write(f"\nOnly failures are listed; every slide is in {where} (--verbose lists all).\n")
     else:

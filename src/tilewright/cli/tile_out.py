@@ -14,7 +14,7 @@ import sys
 from pathlib import Path
 
 from tilewright.cli.parser import CommandParser
-from tilewright.errors import ConfigError, OutputLockedError
+from tilewright.errors import ConfigError, ObjectStoreError, OutputLockedError
 from tilewright.slide.colour_icc import MODES
 from tilewright.store.compression import COMPRESSIONS
 
@@ -175,6 +175,9 @@ def main(argv=None) -> int:
     except OutputLockedError as exc:
         print(f"tile-out: {exc}", file=sys.stderr)
         return EXIT_LOCKED
+    except ObjectStoreError as exc:  # credentials, bucket, access, connection: one line, before any work
+        print(f"tile-out: error: {exc.one_line()}", file=sys.stderr)
+        return EXIT_BAD_ARGS
     except KeyboardInterrupt as exc:
         what = "stopped (SIGTERM)" if getattr(exc, "signum", None) == EXIT_TERMINATED - 128 else "interrupted"
         print(f"\ntile-out: {what}; finished stores and the manifest are kept, run the same command again "
@@ -200,13 +203,8 @@ def _check_tiles_fit(paths, ids, config, mpp) -> None:
 
 
 def run(args, config) -> int:
-    import contextlib
-    import time
-
-    from tilewright.cli.progress import RichProgress, setup_logging
-    from tilewright.cli.summary import print_summary
-    from tilewright.run.events import LogProgress, ProgressTracker
-    from tilewright.run.cohort import tile_cohort
+    from tilewright.cli.out_place import checked_out, run_log
+    from tilewright.location.url import is_url
     from tilewright.run.naming import cohort_ids
     from tilewright.run.sources import read_mpp_table, slide_list, unique_paths
 
@@ -216,8 +214,8 @@ def run(args, config) -> int:
         raise ConfigError("no slide files found (looked for .svs .tif .tiff .ndpi .mrxs .scn .bif .dcm ...)",
                           args.source)
     # the ids the run will use (tile_cohort settles them again under the output folder's lock)
-    ids = cohort_ids([Path(p).absolute() for p in unique_paths(paths)], args.out, root=found.root,
-                     given=found.ids, where=args.source)
+    ids = cohort_ids([p if is_url(p) else Path(p).absolute() for p in unique_paths(paths)], args.out,
+                     root=found.root, given=found.ids, where=args.source)
     mpp = args.source_mpp
     if args.mpp_table:
         table = read_mpp_table(args.mpp_table)
@@ -226,18 +224,23 @@ def run(args, config) -> int:
             for sid in ids:
                 mpp.setdefault(sid, args.source_mpp)
     _check_tiles_fit(paths, ids, config, mpp)  # settings that fit no slide: exit 2, nothing written
-    out = Path(args.out)
-    try:
-        out.mkdir(parents=True, exist_ok=True)
-        import tempfile
+    out = checked_out(args.out)  # a folder or a bucket prefix, written to once before any work
+    with run_log(out) as log_file:
+        return _run(args, config, found, mpp, out, log_file)
 
-        with tempfile.NamedTemporaryFile(dir=out, prefix=".write-test-"):  # unique: runs may race
-            pass
-    except OSError as exc:
-        raise ConfigError(f"cannot write to the output folder ({exc.strerror or exc}); choose a writable folder",
-                          out) from None
+
+def _run(args, config, found, mpp, out, log_file) -> int:
+    import contextlib
+    import time
+
+    from tilewright.cli.progress import RichProgress, setup_logging
+    from tilewright.cli.summary import print_summary
+    from tilewright.run.events import LogProgress, ProgressTracker
+    from tilewright.run.cohort import tile_cohort
+
+    paths = found.paths
     tty = sys.stderr.isatty() and not args.quiet
-    setup_logging(out / "tile-out.log", quiet=args.quiet, tty=tty)
+    setup_logging(log_file, quiet=args.quiet, tty=tty)
     log.info("tile-out: %d slide(s) from %s into %s (target %.3g µm/px, tile %d, normalize %s)",
              len(paths), args.source, out, config.mpp, config.tile, config.normalizer or "none")
     lines = LogProgress()  # the log file always; stderr too when it is not a terminal (and not --quiet)

@@ -9,6 +9,8 @@ import time
 from pathlib import Path
 
 from tilewright.errors import TilewrightError
+from tilewright.location.objpath import as_path, replace_text
+from tilewright.location.url import is_url
 from tilewright.run.config import TilingConfig
 from tilewright.run.ledger import INTERRUPTED
 from tilewright.run.slide import SlideResult
@@ -156,7 +158,7 @@ def _complete_row(final: Path, path: str, slide_id: str, cfg: TilingConfig, mpp,
 def stain_target_path(out_dir, method: str) -> Path:
     """Where the cohort's own stain target for ``method`` is saved: one file a method, so a run
     with another method never replaces the target the existing stores were normalized to."""
-    return Path(out_dir) / f"stain_target.{method}.json"
+    return as_path(out_dir) / f"stain_target.{method}.json"
 
 
 def _stain_target(paths, out_dir: Path, config: TilingConfig, mpps, compute, reference=None) -> dict | None:
@@ -170,7 +172,7 @@ def _stain_target(paths, out_dir: Path, config: TilingConfig, mpps, compute, ref
         return reference or make_target(config.normalizer, config.reference, config).to_dict()
     saved = stain_target_path(out_dir, config.normalizer)
     for candidate in (saved, out_dir / STAIN_TARGET_FILE):  # STAIN_TARGET_FILE: written by earlier versions
-        if candidate.exists():
+        if candidate.is_file():
             d = json.loads(candidate.read_text())
             if d.get("method") == config.normalizer:
                 return d
@@ -179,9 +181,7 @@ def _stain_target(paths, out_dir: Path, config: TilingConfig, mpps, compute, ref
     d = cohort_target(paths, config, mpps, compute)
     if d is None:
         return None
-    tmp = saved.with_name(f".{saved.name}.{os.getpid()}.tmp")
-    tmp.write_text(json.dumps(d, indent=1))
-    os.replace(tmp, saved)
+    replace_text(saved, json.dumps(d, indent=1))
     return d
 
 
@@ -253,16 +253,16 @@ def tile_cohort(paths, out_dir, config: TilingConfig | None = None, *, scheduler
     config = config or TilingConfig()
     if on_result is None and callable(progress):
         on_result = progress
-    out_dir = Path(out_dir).absolute()  # workers resolve relative paths in their own folder
+    out_dir = as_path(out_dir).absolute()  # workers resolve relative paths in their own folder
     try:
-        out_dir.mkdir(parents=True, exist_ok=True)
+        out_dir.mkdir(parents=True, exist_ok=True)  # a prefix in a bucket needs none
     except OSError as exc:
         from tilewright.errors import StoreError
 
         raise StoreError(f"cannot create the output folder ({exc.strerror or exc}); choose a writable "
                          "folder path", out_dir) from None
     given = given_ids(paths, ids)
-    paths = [str(Path(p).absolute()) for p in unique_paths(paths)]
+    paths = [p if is_url(p) else str(Path(p).absolute()) for p in unique_paths(paths)]
     reference = None
     if config.normalizer and config.reference is not None:  # a bad reference stops the run before any slide
         from tilewright.run.reference import make_target
@@ -270,7 +270,7 @@ def tile_cohort(paths, out_dir, config: TilingConfig | None = None, *, scheduler
         reference = make_target(config.normalizer, config.reference, config).to_dict()
     plain = LogProgress() if progress is True and on_progress is None and on_result is None else None
     # ids are chosen once the folder is locked (what it holds cannot change under them)
-    with output_lock(out_dir), run_cluster(scheduler, workers, paths, out_dir, ids := cohort_ids(
+    with output_lock(out_dir) as held, run_cluster(scheduler, workers, paths, out_dir, ids := cohort_ids(
             paths, out_dir, root=root, given=given(paths))) as (client, stop_name):
         mpps = [_mpp_for(mpp, p, i) for p, i in zip(paths, ids)]
         ledger = Ledger(out_dir, paths, ids, config.to_toml())
@@ -293,6 +293,7 @@ def tile_cohort(paths, out_dir, config: TilingConfig | None = None, *, scheduler
                 try:
                     for i, row in results:
                         ledger.record(row)
+                        getattr(held, "check", _nothing)()  # a lease in a bucket lost to another run stops here
                         for note in filter(None, str(row.get("warnings") or "").split("; ")):
                             _log.warning("%s: %s", row.get("slide_id"), note)  # reaches tile-out.log
                         tracker(ProgressEvent("slide", row["slide_id"], row=row))
@@ -306,6 +307,10 @@ def tile_cohort(paths, out_dir, config: TilingConfig | None = None, *, scheduler
             if ledger.started:
                 tracker.close(state)
     return [SlideResult(**{k: r[k] for k in SlideResult.__dataclass_fields__ if k in r}) for r in ledger.rows()]
+
+
+def _nothing() -> None:
+    return None
 
 
 def _mpp_for(mpp, path, slide_id):

@@ -21,7 +21,9 @@ import threading
 import time
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
-from pathlib import Path
+
+from tilewright.errors import TilewrightError
+from tilewright.location.objpath import as_path, replace_text
 
 __all__ = ["ProgressEvent", "ProgressTracker", "LogProgress", "PROGRESS_FILE", "read_progress", "WRITE_EVERY"]
 
@@ -83,7 +85,7 @@ class ProgressTracker:
     """
 
     def __init__(self, out_dir, total: int, listeners=()):
-        self.path = None if out_dir is None else Path(out_dir) / PROGRESS_FILE
+        self.path = None if out_dir is None else as_path(out_dir) / PROGRESS_FILE
         self.total = int(total)
         self.listeners = [f for f in listeners if f is not None]
         self.lock = threading.Lock()
@@ -170,11 +172,9 @@ class ProgressTracker:
     def _write(self) -> None:
         self._last_write = time.monotonic()
         data = json.dumps(self.snapshot(), indent=1)
-        tmp = self.path.with_name(f".{self.path.name}.{os.getpid()}.tmp")
         try:
-            tmp.write_text(data, encoding="utf-8")
-            os.replace(tmp, self.path)
-        except OSError:
+            replace_text(self.path, data)  # whole: a temporary name and a rename, or one object write
+        except (OSError, TilewrightError):
             pass  # a status file must never stop the run
 
     def close(self, state: str = "finished") -> None:
@@ -188,7 +188,7 @@ def _iso(t: float) -> str:
 
 def read_progress(out_dir) -> dict | None:
     """The run status in ``OUT/progress.json`` (None when there is none)."""
-    path = Path(out_dir) / PROGRESS_FILE
+    path = as_path(out_dir) / PROGRESS_FILE
     try:
         return json.loads(path.read_text(encoding="utf-8"))
     except FileNotFoundError:

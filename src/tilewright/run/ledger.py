@@ -12,10 +12,10 @@
 from __future__ import annotations
 
 import math
-import os
 from pathlib import Path
 
 from tilewright.errors import StoreError
+from tilewright.location.objpath import as_path
 
 __all__ = ["Ledger", "INTERRUPTED", "store_row"]
 
@@ -41,7 +41,7 @@ class Ledger:
     def __init__(self, out_dir, paths, ids, config_toml: str):
         from tilewright.store.cohort import read_manifest
 
-        self.out_dir = Path(out_dir)
+        self.out_dir = as_path(out_dir)
         self.paths, self.ids = list(paths), list(ids)
         self.config_toml = config_toml
         self.finished: dict[str, dict] = {}
@@ -116,7 +116,7 @@ def kept_row(final, slide_id: str, path: str, a: dict) -> dict:
                        kept=True).to_row()
 
 
-def _replace_text(path: Path, text: str) -> None:
-    tmp = path.with_name(f".{path.name}.{os.getpid()}.tmp")
-    tmp.write_text(text, encoding="utf-8")
-    os.replace(tmp, path)
+def _replace_text(path, text: str) -> None:
+    from tilewright.location.objpath import replace_text
+
+    replace_text(path, text)

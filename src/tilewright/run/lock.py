@@ -9,6 +9,9 @@ falls back to creating ``OUT/.tilewright.lock.held`` exclusively (``O_CREAT | O_
 holder's host and pid, removed when the run ends. A run killed with SIGKILL leaves that file
 behind: a later run on the same host removes it when that pid is gone; from another host the
 message names the holder and says to delete the file once no run is active.
+
+An output prefix in a bucket has neither: its lock is an object taken by a conditional write,
+with a lease (see :mod:`tilewright.run.lock_object`).
 """
 
 from __future__ import annotations
@@ -49,6 +52,14 @@ def output_lock(out_dir):
     """
     import fcntl
 
+    from tilewright.location.url import is_url
+
+    if is_url(out_dir):  # a bucket: an object taken by a conditional write, with a lease
+        from tilewright.run.lock_object import ObjectLock
+
+        with ObjectLock(str(out_dir), LOCK_NAME) as held:
+            yield held
+        return
     path = Path(out_dir) / LOCK_NAME
     fd = os.open(path, os.O_RDWR | os.O_CREAT, 0o644)
     try:
@@ -104,6 +115,12 @@ def lock_holder(out_dir) -> str | None:
     """``"host pid"`` of the run holding ``out_dir``'s lock, or None when no run holds it."""
     import fcntl
 
+    from tilewright.location.url import is_url
+
+    if is_url(out_dir):
+        from tilewright.run.lock_object import object_lock_holder
+
+        return object_lock_holder(str(out_dir), LOCK_NAME)
     out_dir = Path(out_dir)
     held = out_dir / HELD_NAME
     if held.exists():

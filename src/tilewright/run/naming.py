@@ -39,9 +39,10 @@ def recorded_sources(out_dir) -> dict[str, list[str]]:
     (a folder written by ``tile_slide``, or a run stopped before its manifest named them).
     """
     from tilewright.errors import StoreError
+    from tilewright.location.objpath import as_path
     from tilewright.store.cohort import read_manifest
 
-    out_dir = Path(out_dir)
+    out_dir = as_path(out_dir)
     by_source: dict[str, list[str]] = {}
     named = set()
     if not out_dir.is_dir():

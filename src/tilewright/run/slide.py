@@ -12,6 +12,8 @@ from pathlib import Path
 import numpy as np
 
 from tilewright.errors import TilewrightError
+from tilewright.location.objpath import as_path
+from tilewright.location.url import is_url
 from tilewright.run.config import TilingConfig
 from tilewright.run.identity import target_digest
 from tilewright.run.stain_record import stain_record
@@ -106,9 +108,11 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
     Parameters
     ----------
     path : path
-        Slide file.
+        Slide file (or an object-store URL).
     out : path
-        Store path (``*.zarr``) or a folder, in which ``<slide_id>.zarr`` is written.
+        Store path (``*.zarr``) or a folder, in which ``<slide_id>.zarr`` is written; a URL
+        (``s3://bucket/out/``) writes the store into the bucket, made complete by its marker
+        (see :mod:`tilewright.store.writer`).
     config : TilingConfig
     slide_id : str, optional
         Defaults to the file name without extension(s).
@@ -145,9 +149,9 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
 
     config = config or TilingConfig()
     t0 = time.perf_counter()
-    path = Path(path)
+    path = str(path) if is_url(path) else Path(path)  # a slide in a bucket stays a URL
     slide_id = slide_id or slide_ids([path])[0]
-    out = Path(out)
+    out = as_path(out)
     final = out if out.suffix == ".zarr" else out / f"{slide_id}.zarr"
     remove_partials(final)
     with open_slide(path, mpp=mpp, verify=config.verify_jpeg, colour_profile=config.colour_profile) as slide:
@@ -160,7 +164,7 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
         try:
             with StoreWriter(final, len(plan), config.tile, shard_tiles=config.shard_tiles,
                              compression=config.compression, quality=config.quality,
-                             with_region=attrs["regions"] is not None) as writer, \
+                             with_region=attrs["regions"] is not None, overwrite=overwrite) as writer, \
                     ThreadPoolExecutor(2, thread_name_prefix="tilewright-aside") as pool:
                 # the slide's stain estimate is fitted while the first blocks are read and decoded
                 bind = (pool.submit(_bind_normalizer, view, plan, config, target, path, survey.glass)
@@ -234,7 +238,7 @@ def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNames
     mask_arr = np.asarray(mask.array, dtype=bool)
     attrs = {
         "slide_id": slide_id,
-        "source": {"path": str(path.resolve()), "size": _source_size(path),
+        "source": {"path": str(path) if is_url(path) else str(path.resolve()), "size": _source_size(path),
                    "digest": None, "backend": slide.backend},  # digest: computed aside (see _aside)
         "mpp": float(view.mpp), "mpp_source": float(slide.mpp), "mpp_origin": slide.mpp_origin,
         "objective": slide.objective,
@@ -369,7 +373,7 @@ def _write_png(png: bytes, path: Path, slide_id: str) -> None:
     try:
         path.parent.mkdir(parents=True, exist_ok=True)
         write_png(path, png)
-    except OSError as exc:
+    except (OSError, TilewrightError) as exc:  # a bucket's refusal too: a picture never fails the slide
         _warn_png(slide_id, exc)
 
 

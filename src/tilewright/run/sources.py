@@ -23,9 +23,17 @@ def is_slide_name(path: str | os.PathLike) -> bool:
 def unique_paths(paths) -> list[Path]:
     """``paths`` in their order with repeats dropped: a file named twice (even as ``a/../b.svs``
     and ``b.svs``, or through a symbolic link) is one slide, tiled once."""
+    from tilewright.location.url import is_url
+
     seen: set = set()
     out = []
-    for p in map(Path, paths):
+    for p in paths:
+        if is_url(p):  # a URL names its object: kept as text
+            if str(p) not in seen:
+                seen.add(str(p))
+                out.append(str(p))
+            continue
+        p = Path(p)
         key = os.path.realpath(p)
         if key not in seen:
             seen.add(key)
@@ -42,7 +50,15 @@ def find_slides(source: str | os.PathLike) -> list[Path]:
     relative paths are relative to the list file, and a file listed twice is one slide.
     Folder searches skip hidden folders and ``*.zarr`` outputs and return paths sorted. DICOM
     files found there are grouped by series (see :func:`dicom_sources`): one path a series.
+    An object-store URL (``s3://bucket/prefix/``) is searched the same way (see
+    :func:`tilewright.run.url_sources.find_url_slides`); slides in a bucket are URLs (text).
     """
+    from tilewright.location.url import is_url
+
+    if is_url(source):
+        from tilewright.run.url_sources import find_url_slides
+
+        return find_url_slides(source)
     source = Path(source)
     if not source.exists():
         raise ConfigError("SOURCE does not exist; give a slide file, a folder of slides or a list file", source)
@@ -76,7 +92,15 @@ class SlideList:
 
 def slide_list(source: str | os.PathLike) -> SlideList:
     """:func:`find_slides` with the ids a list CSV gives (``slide_id`` column) and the root that
-    derived ids are relative to (see :func:`tilewright.store.layout.slide_ids`)."""
+    derived ids are relative to (see :func:`tilewright.store.layout.slide_ids`). In a bucket the
+    root is the SOURCE prefix (a list file's or a slide's own prefix) and lists give no ids."""
+    from tilewright.location.url import is_url, url_parent
+
+    if is_url(source):
+        paths = find_slides(source)
+        text = str(source)
+        root = text if text.endswith("/") and not (len(paths) == 1 and paths[0] == text) else url_parent(text)
+        return SlideList(paths, None, root)
     source = Path(source)
     if source.is_file() and source.suffix.lower() in _LIST_SUFFIXES and not is_slide_name(source):
         paths, ids = _read_list(source)
@@ -136,7 +160,9 @@ def _read_list(path: Path) -> tuple[list[Path], list | None]:
             ids = [(r.get("slide_id") or "").strip() or None for r in rows]
     else:
         entries = lines
-    full = [p if p.is_absolute() else (path.parent / p) for p in map(Path, entries)]
+    from tilewright.location.url import is_url
+
+    full = [e if is_url(e) else (Path(e) if Path(e).is_absolute() else path.parent / e) for e in entries]
     paths = unique_paths(full)
     if ids is not None:
         ids = _ids_of_unique(full, ids, paths, path)
@@ -145,15 +171,17 @@ def _read_list(path: Path) -> tuple[list[Path], list | None]:
 
 def _ids_of_unique(full: list[Path], ids: list, paths: list[Path], list_file: Path) -> list:
     """The given id of each of ``paths`` (a file listed twice must be given one id, or one left blank)."""
+    from tilewright.run.naming import source_key
+
     by_file: dict = {}
     for p, sid in zip(full, ids):
-        key = os.path.realpath(p)
+        key = source_key(p)
         if sid is not None and by_file.get(key) not in (None, sid):
             raise ConfigError(f"{p} is listed twice with slide_id {by_file[key]!r} and {sid!r}; a file is one "
                               "slide: keep one row", list_file)
         if sid is not None or key not in by_file:
             by_file[key] = sid
-    return [by_file.get(os.path.realpath(p)) for p in paths]
+    return [by_file.get(source_key(p)) for p in paths]
 
 
 def _names_a_slide(line: str, list_file: Path) -> bool:

@@ -48,7 +48,8 @@ import os
 
 import numpy as np
 
-from tilewright.errors import DamagedSlideError, UnsupportedSlideError
+from tilewright.errors import DamagedSlideError, TilewrightError, UnsupportedSlideError
+from tilewright.location.byte_source import open_source
 from tilewright.slide.dicom_frames import find_pixel_data, frame_table, join_fragments
 from tilewright.slide.resolution import Resolution, resolution_from_xy
 from tilewright.slide.tiff_pixels import jfif_ycbcr_to_rgb
@@ -82,8 +83,8 @@ class _Frames(GridLevel):
             h, w, th, tw, offsets, counts, is_jpeg=codec == "jpeg",
             jpeg=(jpeg_colour, _JCS_RGB) if codec == "jpeg" else None,
             convert=jfif_ycbcr_to_rgb if codec != "jpeg" and photometric in ("YBR_FULL", "YBR_FULL_422") else None,
-            unwrap=join_fragments if table.fragmented else None, file=os.fspath(path))
-        self.codec, self.photometric, self.name = codec, photometric, os.path.basename(path)
+            unwrap=join_fragments if table.fragmented else None, file=str(path))
+        self.codec, self.photometric, self.name = codec, photometric, os.path.basename(str(path))
         self.jpeg_colour = jpeg_colour  # colour space of the JPEG components (None: libjpeg infers it)
         self.frame_of = np.full(cells, -1, np.int64)
         self.frame_of[grid_index] = np.arange(len(grid_index))
@@ -131,7 +132,7 @@ class DicomBackend(GridReader):
     name = "dicom"
 
     def __init__(self, series, *, verify_jpeg: bool = True):
-        self.path = os.fspath(series.source)
+        self.path = series.name
         self.verify_jpeg = bool(verify_jpeg)
         self.flavour = "dicom"
         self.associated = {kind: (inst.height, inst.width) for kind, inst in series.associated.items()}
@@ -140,19 +141,24 @@ class DicomBackend(GridReader):
             raise UnsupportedSlideError(
                 "two VOLUME instances of one size (a concatenation, or focal planes or optical paths "
                 "stored apart): which frames make the level is not decided here", self.path)
-        self._levels, head = [], None
-        for inst in series.volumes:
-            ds, position = _header(inst.path)
-            head = head or ds
-            self._levels.append(self._level(ds, position, inst.path))
+        self._levels, head, sources = [], None, {}
+        try:
+            for inst in series.volumes:
+                src = sources[str(inst.path)] = open_source(str(inst.path))
+                ds, position = _header(src, inst.path)
+                head = head or ds
+                self._levels.append(self._level(ds, position, inst.path, src))
+        except BaseException:
+            for src in sources.values():
+                src.close()
+            raise
         self.resolution = _resolution(head)
         self.icc_profile = _icc_profile(head)
-        self._check_extent(unit="frame")
-        self._open_files()
+        self._open_files(unit="frame", sources=sources)
 
-    def _level(self, ds, position: int, path) -> _Frames:
-        """The frames of one instance on its grid, with their table read from the file."""
-        name = os.path.basename(path)
+    def _level(self, ds, position: int, path, src) -> _Frames:
+        """The frames of one instance on its grid, with their table read from the file ``src``."""
+        name = os.path.basename(str(path))
         syntax = str(ds.file_meta.TransferSyntaxUID)
         codec = _CODECS.get(syntax)
         photometric = str(ds.get("PhotometricInterpretation", "")).strip()
@@ -162,14 +168,12 @@ class DicomBackend(GridReader):
         th, tw = int(ds.Rows), int(ds.Columns)
         n = int(ds.get("NumberOfFrames", 1) or 1)
         grid_index = _grid_index(ds, n, th, tw, name, self.path)
-        with open(path, "rb") as fh:
-            fd = fh.fileno()
-            pixels = find_pixel_data(fd, position, path)
-            ext = (ds.ExtendedOffsetTable, ds.ExtendedOffsetTableLengths) \
-                if "ExtendedOffsetTable" in ds and "ExtendedOffsetTableLengths" in ds else None
-            table = frame_table(fd, pixels, n, th * tw * (2 if photometric == "YBR_FULL_422" and codec == "none" else 3),
-                                path, extended=ext)
-            colour = _jpeg_colour(fd, table, photometric) if codec == "jpeg" else None
+        pixels = find_pixel_data(src, position, path)
+        ext = (ds.ExtendedOffsetTable, ds.ExtendedOffsetTableLengths) \
+            if "ExtendedOffsetTable" in ds and "ExtendedOffsetTableLengths" in ds else None
+        table = frame_table(src, pixels, n, th * tw * (2 if photometric == "YBR_FULL_422" and codec == "none" else 3),
+                            path, extended=ext)
+        colour = _jpeg_colour(src, table, photometric) if codec == "jpeg" else None
         if len(grid_index) < n:  # TILED_FULL: the frames past the first plane are not read
             table = table._replace(offsets=table.offsets[:len(grid_index)], counts=table.counts[:len(grid_index)])
         return _Frames(ds, path, table, grid_index, codec=codec, photometric=photometric, jpeg_colour=colour)
@@ -179,17 +183,22 @@ class DicomBackend(GridReader):
         return f"frame {frame + 1} (tile row {r}, column {c}) of {lv.name}"
 
 
-def _header(path):
+def _header(src, path):
     """The instance's attributes up to the pixel data, and the file offset where they stop (the
     Pixel Data element follows there)."""
     import pydicom
 
+    from tilewright.location.byte_source import SourceFile
+
     try:
-        with open(path, "rb") as fh:
+        with SourceFile(src, own=False) as fh:
             ds = pydicom.dcmread(fh, stop_before_pixels=True)
             return ds, fh.tell()
+    except TilewrightError:
+        raise  # an object-store failure says why
     except Exception as exc:  # pydicom raises several types on malformed headers
-        raise DamagedSlideError(f"the DICOM header of {os.path.basename(path)} cannot be parsed ({exc})", path) from exc
+        raise DamagedSlideError(f"the DICOM header of {os.path.basename(str(path))} cannot be parsed ({exc})",
+                                str(path)) from exc
 
 
 def _problem(ds, codec, syntax: str, photometric: str) -> str | None:
@@ -252,7 +261,7 @@ def _grid_index(ds, n: int, th: int, tw: int, name: str, where) -> np.ndarray:
     return cells
 
 
-def _jpeg_colour(fd: int, table, photometric: str):
+def _jpeg_colour(src, table, photometric: str):
     """Colour space to decode the JPEG frames of a level from: None (libjpeg infers it from the
     stream's markers) when the first frame's stream says what its components are, else the
     photometric interpretation's (RGB: no colour transform)."""
@@ -262,12 +271,13 @@ def _jpeg_colour(fd: int, table, photometric: str):
     if not len(stored):
         return None
     i = int(stored[0])
-    data = os.pread(fd, int(min(table.counts[i], 1 << 16)), int(table.offsets[i]))
     if table.fragmented:
         try:
-            data = join_fragments(os.pread(fd, int(table.counts[i]), int(table.offsets[i])))
+            data = join_fragments(src.pread(int(table.counts[i]), int(table.offsets[i])))
         except ValueError:
             return None
+    else:
+        data = src.pread(int(min(table.counts[i], 1 << 16)), int(table.offsets[i]))
     sig = colour_signature(bytes(data))
     if sig is not None:
         jfif, adobe, comps = sig

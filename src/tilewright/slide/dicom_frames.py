@@ -9,6 +9,9 @@ The table of a level is taken, in this order, from:
 
 - the Extended Offset Table (7FE0,0001) and its lengths (7FE0,0002), when every frame is one
   fragment (offset to the next frame = 8 + length): no reading at all;
+- for a file in an object store, the Basic Offset Table when it lists every frame: each frame is
+  the span of items up to the next frame's offset, its item structure checked when it is read
+  (reading every item header would read the whole file there);
 - otherwise one pass over the item headers (8 bytes read a fragment), which also settles where
   the Pixel Data ends (a truncated file has fewer complete items than frames). Fragments are
   grouped into frames by the Basic Offset Table when it is present, one a frame when there are
@@ -28,7 +31,6 @@ References
 
 from __future__ import annotations
 
-import os
 import struct
 from typing import NamedTuple
 
@@ -61,7 +63,7 @@ class FrameTable(NamedTuple):
     fragmented: bool
 
 
-def find_pixel_data(fd: int, position: int, path) -> PixelData:
+def find_pixel_data(src, position: int, path) -> PixelData:
     """The Pixel Data element at ``position`` (where a header read stopping before the pixels ended).
 
     Raises
@@ -69,7 +71,7 @@ def find_pixel_data(fd: int, position: int, path) -> PixelData:
     UnsupportedSlideError
         No Pixel Data element there (then another reader must parse the file).
     """
-    head = os.pread(fd, 12, position)
+    head = src.read_cached(12, position)
     if head[:4] != _PIXEL_DATA_TAG or len(head) < 8:
         raise UnsupportedSlideError("the Pixel Data element is not where its header ends", path)
     if head[4:6] in (b"OB", b"OW"):  # explicit VR: 2 reserved bytes, 4-byte length
@@ -81,11 +83,11 @@ def find_pixel_data(fd: int, position: int, path) -> PixelData:
     return PixelData(start, None if length == _UNDEFINED else length)
 
 
-def _items(fd: int, start: int, size: int, path) -> list[tuple[int, int]]:
+def _items(src, start: int, size: int, path) -> list[tuple[int, int]]:
     """(header offset, value length) of every item from ``start`` to the sequence delimiter."""
     items, pos = [], start
     while pos + 8 <= size:
-        head = os.pread(fd, 8, pos)
+        head = src.read_cached(8, pos)
         if head[:4] == _DELIMITER:
             return items
         if head[:4] != _ITEM:
@@ -102,14 +104,14 @@ def _items(fd: int, start: int, size: int, path) -> list[tuple[int, int]]:
     return items  # the file ends right after the last item (no delimiter): tolerated
 
 
-def frame_table(fd: int, pixels: PixelData, n_frames: int, frame_bytes: int, path, *,
+def frame_table(src, pixels: PixelData, n_frames: int, frame_bytes: int, path, *,
                 extended: tuple[bytes, bytes] | None = None) -> FrameTable:
     """Offsets and byte counts of the ``n_frames`` frames of one instance.
 
     Parameters
     ----------
-    fd : int
-        Open descriptor of the instance file.
+    src : ByteSource
+        The instance file (see :mod:`tilewright.location.byte_source`).
     pixels : PixelData
         See :func:`find_pixel_data`.
     n_frames : int
@@ -124,7 +126,7 @@ def frame_table(fd: int, pixels: PixelData, n_frames: int, frame_bytes: int, pat
     DamagedSlideError
         Truncated file, broken item structure, or fewer frames than the header declares.
     """
-    size = os.fstat(fd).st_size
+    size = src.size
     if pixels.length is not None:  # native: frames back to back
         if pixels.length < n_frames * frame_bytes or pixels.value_offset + n_frames * frame_bytes > size:
             raise DamagedSlideError(
@@ -132,7 +134,7 @@ def frame_table(fd: int, pixels: PixelData, n_frames: int, frame_bytes: int, pat
                 f"need (file of {size} bytes); copy the slide again", path)
         offsets = pixels.value_offset + np.arange(n_frames, dtype=np.int64) * frame_bytes
         return FrameTable(offsets, np.full(n_frames, frame_bytes, np.int64), False)
-    head = os.pread(fd, 8, pixels.value_offset)
+    head = src.read_cached(8, pixels.value_offset)
     if len(head) < 8 or head[:4] != _ITEM:
         raise DamagedSlideError("the encapsulated pixel data has no Basic Offset Table item; the file is damaged", path)
     bot_len = struct.unpack("<I", head[4:8])[0]
@@ -141,19 +143,23 @@ def frame_table(fd: int, pixels: PixelData, n_frames: int, frame_bytes: int, pat
         table = _from_extended(extended, base, n_frames)
         if table is not None:
             return table
-    items = _items(fd, base, size, path)
+    if src.remote and bot_len == 4 * n_frames and n_frames:
+        table = _from_basic(src, src.read_cached(bot_len, pixels.value_offset + 8), base, size, path)
+        if table is not None:
+            return table
+    items = _items(src, base, size, path)
     if len(items) == n_frames:
         heads = np.array([o for o, _ in items], np.int64)
         return FrameTable(heads + 8, np.array([n for _, n in items], np.int64), False)
     if bot_len:
-        bot = np.frombuffer(os.pread(fd, bot_len, pixels.value_offset + 8), "<u4").astype(np.int64)
+        bot = np.frombuffer(src.read_cached(bot_len, pixels.value_offset + 8), "<u4").astype(np.int64)
         starts = [base + int(o) for o in bot]
         where = {o: i for i, (o, _) in enumerate(items)}
         firsts = [where.get(o) for o in starts]
         if None in firsts:
             raise DamagedSlideError("the Basic Offset Table points between fragments; the file is damaged", path)
     else:
-        firsts = [i for i, (o, n) in enumerate(items) if n >= 2 and os.pread(fd, 2, o + 8) in _STARTS]
+        firsts = [i for i, (o, n) in enumerate(items) if n >= 2 and src.read_cached(2, o + 8) in _STARTS]
     if len(firsts) < n_frames:
         raise DamagedSlideError(
             f"the encapsulated pixel data holds {len(firsts)} frames where the header declares "
@@ -166,6 +172,20 @@ def frame_table(fd: int, pixels: PixelData, n_frames: int, frame_bytes: int, pat
     last = [items[b - 1] for b in ends]
     counts = np.array([o + 8 + n for o, n in last], np.int64) - offsets
     return FrameTable(offsets, counts, True)
+
+
+def _from_basic(src, bot: bytes, base: int, size: int, path) -> FrameTable | None:
+    """The frame table of a remote file from its Basic Offset Table: each frame the span of items
+    from its offset to the next frame's, checked when read (``join_fragments``), so opening costs
+    a request or two instead of reading every item header of the file. None when the table is not
+    strictly increasing from 0 (then the item pass decides)."""
+    starts = base + np.frombuffer(bot, "<u4").astype(np.int64)
+    if starts[0] != base or (len(starts) > 1 and (np.diff(starts) < 8).any()) or starts[-1] + 8 > size:
+        return None
+    last = _items(src, int(starts[-1]), size, path)  # the last frame's items, to the delimiter
+    end = last[-1][0] + 8 + last[-1][1] if last else int(starts[-1])
+    counts = np.append(np.diff(starts), end - starts[-1]).astype(np.int64)
+    return FrameTable(starts.astype(np.int64), counts, True)
 
 
 def _from_extended(extended, base: int, n_frames: int) -> FrameTable | None:

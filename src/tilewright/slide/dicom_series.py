@@ -21,7 +21,10 @@ import os
 from pathlib import Path
 from typing import NamedTuple
 
-from tilewright.errors import DamagedSlideError, SlideNotFoundError, UnsupportedSlideError
+from tilewright.errors import DamagedSlideError, SlideNotFoundError, TilewrightError, UnsupportedSlideError
+from tilewright.location.byte_source import open_binary
+from tilewright.location.objpath import ObjectPath, as_path
+from tilewright.location.url import is_url
 
 __all__ = ["DicomInstance", "DicomSeries", "WSM_SOP_CLASS", "is_dicom_file", "read_instance",
            "find_series", "series_in_folder"]
@@ -64,13 +67,20 @@ class DicomSeries(NamedTuple):
         """What names the slide: the folder when it holds only this series, else the level-0 file."""
         return self.folder if self.alone else self.volumes[0].path
 
+    @property
+    def name(self) -> str:
+        """:attr:`source` as text; a folder in an object store ends with ``/`` (a key prefix)."""
+        if is_url(self.source):
+            return str(self.source) + ("/" if self.alone else "")
+        return os.fspath(self.source)
+
 
 def is_dicom_file(path: str | os.PathLike) -> bool:
-    """True when the file carries the DICOM Part 10 preamble (``DICM`` at byte 128)."""
+    """True when the file (a path or URL) carries the DICOM Part 10 preamble (``DICM`` at byte 128)."""
     try:
-        with open(path, "rb") as fh:
+        with open_binary(path) as fh:
             head = fh.read(132)
-    except OSError:
+    except (OSError, TilewrightError):
         return False
     return len(head) == 132 and head[128:132] == b"DICM"
 
@@ -85,9 +95,12 @@ def read_instance(path: str | os.PathLike) -> DicomInstance | None:
     """
     import pydicom
 
-    path = Path(path)
+    path = as_path(path)
     try:
-        ds = pydicom.dcmread(path, stop_before_pixels=True)
+        with open_binary(path) as fh:
+            ds = pydicom.dcmread(fh, stop_before_pixels=True)
+    except TilewrightError:
+        raise  # an object-store failure says why
     except Exception as exc:  # pydicom raises several types on malformed headers
         raise DamagedSlideError(f"the DICOM header cannot be parsed ({exc})", path) from exc
     if str(ds.get("SOPClassUID", "")) != WSM_SOP_CLASS:
@@ -121,8 +134,14 @@ def _candidates(folder: Path) -> list[Path]:
     """Files of a folder that may be DICOM: ``.dcm`` names, and names without a suffix that carry
     the DICOM preamble (archives often export without extensions)."""
     out = []
-    for entry in sorted(folder.iterdir()):
-        if not entry.is_file() or entry.name.startswith("."):
+    if isinstance(folder, ObjectPath):  # one listing says which keys are objects
+        from tilewright.location.objects import list_children
+
+        entries = [ObjectPath(url) for url, _ in list_children(folder.url)[0]]
+    else:
+        entries = [e for e in sorted(folder.iterdir()) if e.is_file()]
+    for entry in entries:
+        if entry.name.startswith("."):
             continue
         if entry.suffix.lower() == ".dcm" or (not entry.suffix and is_dicom_file(entry)):
             out.append(entry)
@@ -135,7 +154,7 @@ def series_in_folder(folder: str | os.PathLike) -> list[DicomSeries]:
     Series holding only THUMBNAIL, LABEL or OVERVIEW instances are not slides and are left out,
     as are DICOM files of other kinds (CT, reports, ...). Sorted by their level-0 file name.
     """
-    folder = Path(folder)
+    folder = as_path(folder)
     groups: dict[str, list[DicomInstance]] = {}
     for path in _candidates(folder):
         inst = read_instance(path)
@@ -169,8 +188,13 @@ def find_series(path: str | os.PathLike) -> DicomSeries:
         A folder holding several series (open one of their files), a file that is not a WSI
         instance, or a series without VOLUME instances (only a label or overview).
     """
-    path = Path(path)
-    if path.is_dir():
+    given = path
+    path = as_path(path)
+    if isinstance(path, ObjectPath):  # a key prefix (named with a trailing "/", or no object of that name)
+        folder = str(given).endswith("/") or not path.is_file()
+    else:
+        folder = path.is_dir()
+    if folder:
         found = series_in_folder(path)
         if not found:
             raise SlideNotFoundError(

@@ -10,6 +10,7 @@ from tilewright.errors import (
     SlideTooLargeError,
     UnsupportedSlideError,
 )
+from tilewright.location.url import is_url
 from tilewright.slide.colour import MODES, slide_colour
 from tilewright.slide.resolution import checked_mpp
 from tilewright.slide.sniff import MAX_PIXELS, MAX_SIDE, sniff
@@ -29,7 +30,12 @@ def open(path: str | os.PathLike, *, mpp: float | None = None,
     path : str or os.PathLike
         The slide file; for a DICOM whole-slide series, its folder or any file of the series
         (the slide's ``path`` is then the folder, or the level-0 file when other series share
-        the folder).
+        the folder). May be an object-store URL (``s3://bucket/a.svs``, ``gs://``, ``az://``,
+        ``https://``; a DICOM series' folder is a key prefix): TIFF-family files and DICOM
+        series are then read by range requests, only the byte ranges a read touches (see
+        :mod:`tilewright.location`); credentials come from each cloud's standard environment
+        variables and config files. Formats only OpenSlide reads are refused for URLs
+        (OpenSlide reads local files): copy them to a local disk.
     mpp : float, optional
         Level-0 µm/px to use instead of what the file records (for files that lack or
         misstate it).
@@ -86,14 +92,18 @@ def open(path: str | os.PathLike, *, mpp: float | None = None,
         raise ValueError(f"backend must be one of {_BACKENDS}, got {backend!r}")
     if colour_profile not in MODES:
         raise ValueError(f"colour_profile must be one of {MODES}, got {colour_profile!r}")
-    path = os.fspath(path)
-    kind = "dicom" if os.path.isdir(path) else sniff(path)  # a folder is a slide only as one DICOM series
+    if is_url(path):  # an object-store URL: read by range requests (tilewright.location)
+        path = str(path)
+        kind = _url_kind(path)
+    else:
+        path = os.fspath(path)
+        kind = "dicom" if os.path.isdir(path) else sniff(path)  # a folder is a slide only as one DICOM series
     if kind == "dicom":
         from tilewright.slide.dicom_series import find_series
 
         series = find_series(path)
-        path = os.fspath(series.source)
-        reader = _open_reader(os.fspath(series.volumes[0].path), kind, backend, mpp, verify, shown=path,
+        path = series.name
+        reader = _open_reader(str(series.volumes[0].path), kind, backend, mpp, verify, shown=path,
                               series=series)
     else:
         reader = _open_reader(path, kind, backend, mpp, verify)
@@ -113,12 +123,38 @@ def open(path: str | os.PathLike, *, mpp: float | None = None,
                       colour=colour, colour_mode=colour_profile)
 
 
+def _url_kind(url: str) -> str:
+    """What a URL names: a slide file (its sniffed kind), or a key prefix, which is a slide only as
+    one DICOM series (a trailing ``/`` says so without asking the store)."""
+    from tilewright.errors import SlideNotFoundError
+    from tilewright.location.objects import is_prefix
+    from tilewright.location.url import LISTABLE, split_url
+
+    if url.endswith("/"):
+        return "dicom"
+    try:
+        return sniff(url)
+    except SlideNotFoundError:
+        if split_url(url)[0] in LISTABLE and is_prefix(url):
+            return "dicom"
+        raise
+
+
+#: Why a URL is refused when only OpenSlide could read the slide.
+OPENSLIDE_NEEDS_A_FILE = ("only OpenSlide reads this slide, and OpenSlide reads local files only; copy it to a local "
+                          "disk and give that path, or convert it to pyramidal tiled TIFF or OME-TIFF, which are "
+                          "read from the bucket directly")
+
+
 def _open_reader(path: str, kind: str, backend: str, mpp: float | None, verify: bool = True,
                  shown: str | None = None, series=None):
     """The backend serving ``path``; errors name ``shown`` (a DICOM series' folder) if given;
     ``series`` is the DicomSeries of a DICOM slide (``path`` its level-0 file)."""
     from tilewright.slide.openslide_backend import OpenSlideBackend
     from tilewright.slide.tiff_backend import TiffBackend
+
+    if is_url(path):
+        return _url_reader(path, kind, backend, verify, shown, series)
 
     if backend == "tiff":
         if kind != "tiff":
@@ -163,6 +199,34 @@ def _open_reader(path: str, kind: str, backend: str, mpp: float | None, verify: 
         raise UnsupportedSlideError(
             f"neither the tiff backend nor OpenSlide can read it as a whole-slide "
             f"pyramid{reason}; convert it to pyramidal tiled TIFF or OME-TIFF", path) from exc
+
+
+def _url_reader(path: str, kind: str, backend: str, verify: bool, shown: str | None, series):
+    """The direct backend serving a slide in an object store; OpenSlide (local files only) is
+    never tried: a slide only it could read is refused with the reason."""
+    from tilewright.slide.dicom_backend import DicomBackend
+    from tilewright.slide.tiff_backend import TiffBackend
+
+    if backend == "openslide":
+        raise UnsupportedSlideError(f"backend='openslide' cannot read a URL: {OPENSLIDE_NEEDS_A_FILE}", shown or path)
+    if kind == "dicom" and backend in ("auto", "dicom"):
+        try:
+            return DicomBackend(series, verify_jpeg=verify)
+        except UnsupportedSlideError as exc:
+            raise UnsupportedSlideError(f"the dicom backend does not serve this series ({exc.reason}); "
+                                        f"{OPENSLIDE_NEEDS_A_FILE}", shown or path) from exc
+    if kind == "tiff" and backend in ("auto", "tiff"):
+        try:
+            return TiffBackend(path, verify_jpeg=verify)
+        except UnsupportedSlideError as exc:
+            raise UnsupportedSlideError(f"the tiff backend does not serve this file ({exc.reason}); "
+                                        f"{OPENSLIDE_NEEDS_A_FILE}", path) from exc
+    if backend != "auto":
+        raise UnsupportedSlideError(f"the {backend} backend does not read {kind} files; use backend='auto'", path)
+    if kind == "other":
+        raise NotAnImageError("no backend recognizes this object as an image (tiff or DICOM)", path)
+    raise UnsupportedSlideError(f"a {kind} file is not a whole-slide pyramid the direct backends read; "
+                                f"{OPENSLIDE_NEEDS_A_FILE}", path)
 
 
 def _dicom_reader(series, path: str, backend: str, verify: bool, shown: str):

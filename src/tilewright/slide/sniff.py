@@ -34,6 +34,7 @@ def sniff(path: str | os.PathLike) -> str:
     Parameters
     ----------
     path : str or os.PathLike
+        A local path or an object-store URL.
 
     Returns
     -------
@@ -51,15 +52,14 @@ def sniff(path: str | os.PathLike) -> str:
         A TIFF-family suffix on a file that does not start with a TIFF header, or a file
         whose first bytes are plain text with no image format of its own.
     """
-    p = os.fspath(path)
-    if not os.path.exists(p):
-        raise SlideNotFoundError("no such file; check the path (and the folder you run in)", p)
-    if os.path.isdir(p):
-        raise SlideNotFoundError("is a folder, not a slide file; give the slide file itself", p)
-    if os.path.getsize(p) == 0:
-        raise EmptyFileError("the file is empty (0 bytes); copy the slide again", p)
-    with open(p, "rb") as fh:
-        head = fh.read(512)
+    from tilewright.location.url import is_url
+
+    if is_url(path):
+        p = str(path)
+        head = _url_head(p)
+    else:
+        p = os.fspath(path)
+        head = _local_head(p)
     kind = "other"
     for magic, name in _MAGIC:
         if head.startswith(magic):
@@ -76,6 +76,31 @@ def sniff(path: str | os.PathLike) -> str:
                                                                           ".vmu")):
         raise NotAnImageError("the file holds text, not image data", p)
     return kind
+
+
+def _local_head(p: str) -> bytes:
+    if not os.path.exists(p):
+        raise SlideNotFoundError("no such file; check the path (and the folder you run in)", p)
+    if os.path.isdir(p):
+        raise SlideNotFoundError("is a folder, not a slide file; give the slide file itself", p)
+    if os.path.getsize(p) == 0:
+        raise EmptyFileError("the file is empty (0 bytes); copy the slide again", p)
+    with open(p, "rb") as fh:
+        return fh.read(512)
+
+
+def _url_head(url: str) -> bytes:
+    """The first 512 bytes of an object (a HEAD request for its size, then one range request)."""
+    from tilewright.errors import ObjectNotFoundError
+    from tilewright.location import objects
+
+    try:
+        size = objects.head(url)["size"]
+    except ObjectNotFoundError:
+        raise SlideNotFoundError("no such object; check the URL (bucket, prefix and name)", url) from None
+    if size == 0:
+        raise EmptyFileError("the object is empty (0 bytes); upload the slide again", url)
+    return objects.get_range(url, 0, min(512, size))
 
 
 def _looks_like_text(head: bytes) -> bool:

@@ -12,7 +12,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from tilewright.errors import DamagedSlideError, SlideError, SlideTooLargeError, UnsupportedSlideError
+from tilewright.errors import DamagedSlideError, SlideTooLargeError, TilewrightError, UnsupportedSlideError
 from tilewright.slide import colour as _colour
 from tilewright.slide.sniff import MAX_PIXELS, MAX_SIDE
 from tilewright.slide.tiff_pages import discover
@@ -88,31 +88,47 @@ class TiffBackend(GridReader):
     def __init__(self, path: str, *, verify_jpeg: bool = True):
         import tifffile
 
+        from tilewright.location.url import is_url
+
         self.path = path
         self.associated = {}
         self.verify_jpeg = bool(verify_jpeg)
+        source = None
         try:
-            tf = tifffile.TiffFile(path)
+            if is_url(path):  # the structure is read through the source's block cache
+                from tilewright.location.byte_source import SourceFile, open_source
+                from tilewright.location.url import url_name
+
+                source = open_source(path)
+                tf = tifffile.TiffFile(SourceFile(source, own=False), name=url_name(path))
+            else:
+                tf = tifffile.TiffFile(path)
         except Exception as exc:  # the header said TIFF: any parse failure means damage
+            if source is not None:
+                source.close()
+            if isinstance(exc, TilewrightError):  # an object-store failure: it says why
+                raise
             raise DamagedSlideError(f"the TIFF structure cannot be parsed ({exc})", path) from exc
         try:
             self._levels, self.resolution, self.flavour, found, self.icc_profile = self._inspect(tf, path)
             #: Associated images kept apart from the pyramid: name -> (height, width).
             self.associated = {k: (int(p.imagelength), int(p.imagewidth)) for k, p in found.items()}
-        except SlideError:
+        except BaseException as exc:
             tf.close()
-            raise
-        except Exception as exc:  # tifffile raises many types on malformed IFDs
-            tf.close()
+            if source is not None:
+                source.close()
+            if isinstance(exc, TilewrightError) or not isinstance(exc, Exception):
+                raise  # typed (slide or object-store) errors, Ctrl-C
             raise DamagedSlideError(f"the TIFF structure cannot be parsed ({exc})", path) from exc
         tf.close()
         h0, w0 = self._levels[0].height, self._levels[0].width
         if max(h0, w0) > MAX_SIDE or h0 * w0 > MAX_PIXELS:
+            if source is not None:
+                source.close()
             raise SlideTooLargeError(
                 f"declares {w0} x {h0} px at level 0, beyond the supported {MAX_SIDE} px a "
                 f"side / {MAX_PIXELS:.0e} px; the header is likely corrupt", path)
-        self._check_extent()
-        self._open_files()
+        self._open_files(sources=None if source is None else {path: source})
 
     # -- structure ---------------------------------------------------------------------
     @staticmethod

@@ -3,9 +3,10 @@
 Both direct backends keep their levels this way: TIFF pages (tiles, or strips, which are tiles as
 wide as the page) and DICOM whole-slide instances (frames). A level lists where each tile's bytes
 lie (offset, byte count; a count of 0 is a tile never stored, read as glass). A read fetches the
-tiles the region touches with ``os.pread`` on a private file descriptor (no shared file position,
-so concurrent reads from several threads need no lock), decodes each once and copies it straight
-into the output array.
+tiles the region touches, a row of adjacent tiles in one positional read (``os.pread`` on a private
+descriptor, so concurrent reads from several threads need no lock; or one range request when the
+file is a URL, see :mod:`tilewright.location.byte_source`), decodes each once and copies it
+straight into the output array.
 
 8-bit RGB JPEG tiles are decoded by imagecodecs directly into a scratch tile kept per thread, with
 the colour-space arguments of the level (checked against the level's reference decoder on its
@@ -17,13 +18,13 @@ desynchronized entropy-coded stream in the decode that reads it (see :meth:`Grid
 
 from __future__ import annotations
 
-import os
 import threading
 
 import numpy as np
 
 from tilewright.errors import DamagedSlideError
 from tilewright.slide import jpeg_strict as _strict
+from tilewright.slide.grid_fetch import RowFetch
 
 __all__ = ["GridLevel", "GridReader"]
 
@@ -56,7 +57,10 @@ class GridLevel:
         Turns the bytes stored at a segment's offset into the coded stream (DICOM frames split
         into several fragments), or None when they are the stream.
     file : str or None
-        The file holding the level when it is not the reader's ``path`` (DICOM: one file a level).
+        The file (path or URL) holding the level when it is not the reader's ``path`` (DICOM: one
+        file a level).
+    fd : ByteSource
+        Set when the reader opens its files: where the level's segments are read from.
     """
 
     __slots__ = ("height", "width", "tile_h", "tile_w", "grid_w", "offsets", "counts", "jpegtables", "is_jpeg",
@@ -90,7 +94,7 @@ class GridLevel:
         raise NotImplementedError
 
 
-class GridReader:
+class GridReader(RowFetch):
     """What the direct backends share: positional reads of the tiles a region touches, decoded once.
 
     Subclasses set ``path``, ``verify_jpeg`` and ``_levels`` (a list of :class:`GridLevel`,
@@ -101,24 +105,30 @@ class GridReader:
     _levels: list
     _fd = None
 
-    def _open_files(self) -> None:
-        """Open a private descriptor on each level's file; settle each level's direct JPEG path
-        (see :meth:`_direct_jpeg_agrees`)."""
-        self._lock = threading.Lock()  # only used where os.pread is unavailable
+    def _open_files(self, unit: str = "tile", sources: dict | None = None) -> None:
+        """Open a byte source on each level's file (a local path: a private descriptor read with
+        ``os.pread``; a URL: range requests, see :mod:`tilewright.location.byte_source`), refuse
+        levels whose segment table points past their file's end (see :meth:`_check_extent`) and
+        settle each level's direct JPEG path (see :meth:`_direct_jpeg_agrees`). ``sources`` maps
+        names to sources already open (the reader then owns them)."""
+        from tilewright.location.byte_source import open_source
+
         self._scratch = threading.local()  # one decoded-tile buffer per thread and tile shape
-        opened: dict = {}
+        opened: dict = dict(sources or {})
         try:
             for lv in self._levels:
                 name = lv.file or self.path
                 if name not in opened:
-                    opened[name] = os.open(name, os.O_RDONLY | getattr(os, "O_BINARY", 0))
-                lv.fd = opened[name]
-        except OSError:
-            for fd in opened.values():
-                os.close(fd)
+                    opened[name] = open_source(name)
+                lv.fd = opened[name]  # the level's ByteSource
+            self._fds = list(opened.values())
+            self._fd = self._levels[0].fd
+            self._check_extent(unit)
+        except BaseException:
+            for src in opened.values():
+                src.close()
+            self._fds, self._fd = [], None
             raise
-        self._fds = list(opened.values())
-        self._fd = self._levels[0].fd
         for lv in self._levels:
             if lv.jpeg is not None and not self._direct_jpeg_agrees(lv):
                 lv.jpeg = None
@@ -131,7 +141,7 @@ class GridReader:
         DamagedSlideError
         """
         for i, lv in enumerate(self._levels):
-            size = os.path.getsize(lv.file or self.path)
+            size = lv.fd.size
             expected = lv.grid_h * lv.grid_w
             if len(lv.offsets) != expected:
                 raise DamagedSlideError(
@@ -158,29 +168,10 @@ class GridReader:
         return f"tile ({r}, {c})"
 
     # -- pixels ------------------------------------------------------------------------
-    def _pread(self, n: int, offset: int, fd: int | None = None) -> bytes:
-        """``n`` bytes at ``offset`` of the level-0 file or of ``fd`` (fewer only at the end of
-        the file).
-
-        One ``pread`` returns at most about 2 GiB on Linux (and may return less anywhere), so
-        reads are repeated until all bytes arrived or the file ends.
-        """
-        fd = self._fd if fd is None else fd
-        if hasattr(os, "pread"):
-            data = os.pread(fd, n, offset)
-            if len(data) == n or not data:
-                return data
-            parts, got = [data], len(data)
-            while got < n:
-                more = os.pread(fd, n - got, offset + got)
-                if not more:
-                    break
-                parts.append(more)
-                got += len(more)
-            return b"".join(parts)
-        with self._lock:  # pragma: no cover - platforms without pread
-            os.lseek(fd, offset, 0)
-            return os.read(fd, n)
+    def _pread(self, n: int, offset: int, fd=None) -> bytes:
+        """``n`` bytes at ``offset`` of the level-0 file or of the byte source ``fd`` (fewer only
+        at the end of the file): one positional read, or one range request for a URL."""
+        return (self._fd if fd is None else fd).pread(n, offset)
 
     def read(self, level: int, y: int, x: int, h: int, w: int, out: np.ndarray) -> None:
         """Decode the region ``[y, y+h) x [x, x+w)`` of a level into ``out`` (h, w, 3).
@@ -199,9 +190,10 @@ class GridReader:
         th, tw = lv.tile_h, lv.tile_w
         r0, r1 = y // th, (y + h - 1) // th
         c0, c1 = x // tw, (x + w - 1) // tw
+        fetched = self._fetch_rows(lv, r0, r1, c0, c1)
         for r in range(r0, r1 + 1):
             first, last = r * lv.grid_w + c0, r * lv.grid_w + c1
-            chunks = self._fetch_row(lv.offsets[first : last + 1], lv.counts[first : last + 1], lv.fd)
+            chunks = fetched[r - r0]
             ty = r * th
             ya, yb = max(y, ty), min(y + h, ty + th)
             for k, data in enumerate(chunks):
@@ -343,7 +335,7 @@ class GridReader:
         except Exception:  # noqa: BLE001 - damaged first tile: leave it to the general path
             return False
 
-    def _fetch_row(self, offs: np.ndarray, cnts: np.ndarray, fd: int | None = None) -> list[bytes]:
+    def _fetch_row(self, offs: np.ndarray, cnts: np.ndarray, fd=None) -> list[bytes]:
         """Read a run of tiles (of the level-0 file, or of ``fd``), in one positional read when
         they lie together in the file."""
         if len(offs) == 0:
@@ -369,10 +361,10 @@ class GridReader:
         return out
 
     def close(self) -> None:
-        """Release the file descriptors (idempotent)."""
+        """Release the byte sources (idempotent)."""
         fds, self._fds, self._fd = getattr(self, "_fds", []), [], None
-        for fd in fds:
-            os.close(fd)
+        for src in fds:
+            src.close()
 
 
 def _offset_tile_buffer(shape) -> np.ndarray:

@@ -126,6 +126,11 @@ class ResampledView:
         rows = unit * max(1, round(_STRIP_SOURCE_ROWS / (unit * s)))
         cols = w if w * s * rows * s <= limit else max(1, int(limit // (rows * s * s)))
         weights: dict = {}
+        sy0, sy1 = source_span(y, h, s)
+        sx0, sx1 = source_span(x, w, s)
+        prefetch = getattr(self.slide, "prefetch", None)
+        if prefetch is not None:  # a slide in a bucket: one wait for the region, not one a strip
+            prefetch(level, sy0, sx0, sy1 - sy0, sx1 - sx0)
         by = 0
         while by < h:
             bh = min(h - by, rows - (y + by) % rows)

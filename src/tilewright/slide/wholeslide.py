@@ -184,6 +184,13 @@ class WholeSlide:
                               out[ya - y : yb - y, xa - x : xb - x])
         return out if raw else self.to_srgb(out)
 
+    def prefetch(self, level: int, y: int, x: int, h: int, w: int) -> None:
+        """Fetch a region's stored tiles at once before it is read piece by piece (a slide in an
+        object store: all its rows of tiles in flight together); a no-op for local files."""
+        prefetch = getattr(self._reader, "prefetch", None)
+        if prefetch is not None and not self._closed:
+            prefetch(level, int(y), int(x), int(h), int(w))
+
     def to_srgb(self, rgb: np.ndarray) -> np.ndarray:
         """Convert device RGB read with ``raw=True`` to what reads return, in place.
 

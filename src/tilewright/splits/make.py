@@ -62,7 +62,13 @@ class Splits:
     seed: int
 
     def to_csv(self, path) -> Path:
-        """Write :attr:`table` as CSV (temporary file, then rename: never half-written)."""
+        """Write :attr:`table` as CSV (temporary file, then rename: never half-written; into a bucket,
+        one request writes the object whole)."""
+        from tilewright.location.objpath import ObjectPath, as_path, replace_bytes
+
+        if isinstance(as_path(path), ObjectPath):
+            replace_bytes(path, self.table.to_csv(index=False).encode("utf-8"))
+            return as_path(path)
         path = Path(path)
         path.parent.mkdir(parents=True, exist_ok=True)
         handle, tmp = tempfile.mkstemp(prefix=".splits-", suffix=".csv", dir=path.parent)

@@ -8,6 +8,7 @@ from pathlib import Path
 import pandas as pd
 
 from tilewright.errors import ConfigError
+from tilewright.location.objpath import as_path
 
 __all__ = ["read_table", "check_table"]
 
@@ -34,7 +35,7 @@ def read_table(metadata) -> tuple[pd.DataFrame, Path | None]:
 
     path = None
     if isinstance(metadata, (str, os.PathLike)):
-        path = Path(metadata)
+        path = as_path(metadata)  # a local file, or an object in a bucket
         table = read_table_file(path, text=True, need="one row a slide")
     elif isinstance(metadata, pd.DataFrame):
         table = metadata.reset_index() if metadata.index.name == "slide_id" else metadata.copy()

@@ -2,12 +2,13 @@
 
 from __future__ import annotations
 
+import io
 import os
-from pathlib import Path
 
 import numpy as np
 
 from tilewright.errors import StoreError
+from tilewright.location.objpath import ObjectPath, as_path, replace_bytes
 
 __all__ = ["MANIFEST_COLUMNS", "write_manifest", "read_manifest", "stores_manifest", "Cohort", "open_cohort"]
 
@@ -16,10 +17,10 @@ MANIFEST_COLUMNS = ["slide_id", "source", "status", "error", "n_tiles", "mpp_sou
 
 
 def write_manifest(out_dir: str | os.PathLike, rows: list[dict]) -> "object":
-    """Write ``manifest.csv`` and ``manifest.parquet`` atomically (temp file + rename)."""
+    """Write ``manifest.csv`` and ``manifest.parquet`` atomically (a local folder: temporary file and
+    rename; a bucket: one request each, which replaces the object whole)."""
     import pandas as pd
 
-    out_dir = Path(out_dir)
     df = pd.DataFrame(rows)
     for col in MANIFEST_COLUMNS:
         if col not in df.columns:
@@ -35,12 +36,11 @@ def write_manifest(out_dir: str | os.PathLike, rows: list[dict]) -> "object":
         df[col] = pd.to_numeric(df[col], errors="coerce").astype("float64")
     df["source_level"] = pd.to_numeric(df["source_level"], errors="coerce").astype("Int64")
     df = df.sort_values("slide_id", kind="stable").reset_index(drop=True)
-    tmp_csv = out_dir / ".manifest.csv.tmp"
-    tmp_pq = out_dir / ".manifest.parquet.tmp"
-    df.to_csv(tmp_csv, index=False)
-    df.to_parquet(tmp_pq, index=False)
-    os.replace(tmp_csv, out_dir / "manifest.csv")
-    os.replace(tmp_pq, out_dir / "manifest.parquet")
+    out_dir = as_path(out_dir)
+    parquet = io.BytesIO()
+    df.to_parquet(parquet, index=False)
+    replace_bytes(out_dir / "manifest.csv", df.to_csv(index=False).encode("utf-8"))
+    replace_bytes(out_dir / "manifest.parquet", parquet.getvalue())
     return df
 
 
@@ -48,15 +48,16 @@ def read_manifest(out_dir: str | os.PathLike):
     """The manifest of a cohort folder as a DataFrame (Parquet preferred, CSV as fallback)."""
     import pandas as pd
 
-    out_dir = Path(out_dir)
+    out_dir = as_path(out_dir)
     pq = out_dir / "manifest.parquet"
     csv = out_dir / "manifest.csv"
-    if pq.exists():
-        return pd.read_parquet(pq)
-    if csv.exists():  # ids and texts stay strings ("001" is not the number 1)
-        return pd.read_csv(csv, keep_default_na=False, na_values=[""],
-                           dtype={"slide_id": str, "source": str, "status": str, "error": str, "source_sha256": str,
-                                                                   "mpp_origin": str})
+    if pq.is_file():
+        return pd.read_parquet(io.BytesIO(pq.read_bytes()) if isinstance(pq, ObjectPath) else pq)
+    if csv.is_file():  # ids and texts stay strings ("001" is not the number 1)
+        return pd.read_csv(io.BytesIO(csv.read_bytes()) if isinstance(csv, ObjectPath) else csv,
+                           keep_default_na=False, na_values=[""],
+                           dtype={"slide_id": str, "source": str, "status": str, "error": str,
+                                  "source_sha256": str, "mpp_origin": str})
     raise StoreError("no manifest.csv or manifest.parquet; is this a tile-out output folder?", out_dir)
 
 
@@ -78,7 +79,7 @@ def stores_manifest(out_dir: str | os.PathLike):
     from tilewright.run.ledger import kept_row
     from tilewright.store.reader import TileStore, is_complete
 
-    out_dir = Path(out_dir)
+    out_dir = as_path(out_dir)
     rows = []
     for p in sorted(out_dir.glob("*.zarr")) if out_dir.is_dir() else []:
         if not is_complete(p):
@@ -126,8 +127,8 @@ class Cohort:
 
         import pandas as pd
 
-        self.path = Path(path)
-        has_manifest = (self.path / "manifest.parquet").exists() or (self.path / "manifest.csv").exists()
+        self.path = as_path(path)
+        has_manifest = (self.path / "manifest.parquet").is_file() or (self.path / "manifest.csv").is_file()
         self.manifest = read_manifest(self.path) if has_manifest else stores_manifest(self.path)
         self.stores, left, self.settings = select_stores(self.path, self.manifest, settings)
         self.normalization = None

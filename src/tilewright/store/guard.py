@@ -21,20 +21,25 @@ from pathlib import Path
 from zarr.storage import LocalStore
 
 from tilewright.errors import StoreError
+from tilewright.store.backing import UrlObjectStore
 
-__all__ = ["WriteGuard", "GuardedLocalStore"]
+__all__ = ["WriteGuard", "GuardedLocalStore", "GuardedObjectStore"]
 
 
 class WriteGuard:
     """Counts writes in flight into ``root``; see the module docstring."""
 
     def __init__(self, root, final=None):
-        self.root = Path(root)
-        self.final = Path(final) if final is not None else self.root
+        from tilewright.location.objpath import as_path
+
+        self.root = as_path(root)
+        self.final = as_path(final) if final is not None else self.root
         self._cond = threading.Condition()
         self._busy = 0
         self._closed = False
-        self.created = False  # set by the owner once the folder is made: from then on it must stay
+        # set by the owner once a local folder is made: from then on it must stay (a store in a bucket
+        # has no folder to vanish, and asking would cost a request a write)
+        self.created = False
 
     @contextlib.contextmanager
     def writing(self):
@@ -104,3 +109,31 @@ class GuardedLocalStore(LocalStore):
     async def clear(self) -> None:
         with self.guard.writing():
             await super().clear()
+
+
+class GuardedObjectStore(UrlObjectStore):
+    """zarr's object store for a store being written in a bucket; every change goes through a
+    :class:`WriteGuard`, so an aborted store is removed with nothing left writing into it."""
+
+    def __init__(self, url: str, *, read_only: bool = False, guard: WriteGuard | None = None):
+        super().__init__(url, read_only=read_only)
+        self.guard = guard if guard is not None else WriteGuard(url)
+
+    def with_read_only(self, read_only: bool = False):
+        return type(self)(self.url, read_only=read_only, guard=self.guard)
+
+    async def set(self, key, value) -> None:
+        with self.guard.writing():
+            return await super().set(key, value)
+
+    async def set_if_not_exists(self, key, value) -> None:
+        with self.guard.writing():
+            return await super().set_if_not_exists(key, value)
+
+    async def delete(self, key) -> None:
+        with self.guard.writing():
+            await super().delete(key)
+
+    async def delete_dir(self, prefix) -> None:
+        with self.guard.writing():
+            await super().delete_dir(prefix)

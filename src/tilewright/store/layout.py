@@ -55,11 +55,20 @@ _COMPOUND = (".ome.tiff", ".ome.tif", ".ome.zarr")
 def slide_stem(path: str | os.PathLike) -> str:
     """File name without its extension(s): ``b.ome.tif`` → ``b``, ``a.svs`` → ``a``.
 
-    A folder (a DICOM whole-slide series) keeps its whole name: ``case.07/`` → ``case.07``.
+    A folder (a DICOM whole-slide series) keeps its whole name: ``case.07/`` → ``case.07``; a key
+    prefix in a bucket is named with a trailing ``/`` (``s3://b/case.07/``).
     """
-    name = Path(path).name
-    if os.path.isdir(path):
-        return name
+    from tilewright.location.url import is_url
+
+    if is_url(path):
+        text = str(path)
+        name = text.rstrip("/").rsplit("/", 1)[-1]
+        if text.endswith("/"):
+            return name
+    else:
+        name = Path(path).name
+        if os.path.isdir(path):
+            return name
     lower = name.lower()
     for suffix in _COMPOUND:
         if lower.endswith(suffix):
@@ -121,7 +130,7 @@ def slide_ids(paths, root: str | os.PathLike | None = None, reserved=()) -> list
     reserved : iterable of str
         Ids taken already; a slide named like one takes its path id.
     """
-    paths = [Path(p) for p in paths]
+    paths = list(paths)
     rel = _relative_parts(paths, root)
     taken = Counter(_key(r) for r in reserved)
     levels = [0] * len(paths)
@@ -141,25 +150,40 @@ def _key(sid: str) -> str:
     return sid.casefold()
 
 
-def _relative_parts(paths: list[Path], root) -> list[tuple[str, ...]]:
+def _relative_parts(paths: list, root) -> list[tuple[str, ...]]:
     """Each path's parts relative to ``root`` (default: the deepest folder holding every path); a
-    path outside ``root`` keeps its absolute parts without the anchor."""
+    path outside ``root`` keeps its absolute parts without the anchor. A URL's parts are its
+    bucket and key parts (:func:`_as_pure`)."""
+    full = [_full(p) for p in paths]
     if root is None:
-        parents = [os.path.abspath(p.parent) for p in paths]
-        root = os.path.commonpath(parents) if parents else "."
-    root = os.path.abspath(root)
+        parents = [os.path.dirname(a) for a in full]
+        try:
+            root = os.path.commonpath(parents) if parents else ""
+        except ValueError:  # URLs mixed with local paths: no common folder
+            root = ""
+    else:
+        root = _full(root)
     out = []
-    for p in paths:
-        a = os.path.abspath(p)
-        r = os.path.relpath(a, root) if a == root or a.startswith(root.rstrip(os.sep) + os.sep) else None
+    for p, a in zip(paths, full):
+        r = os.path.relpath(a, root) if root and (a == root or a.startswith(root.rstrip(os.sep) + os.sep)) else None
         parts = Path(r).parts if r not in (None, ".") else Path(a).parts[1:]
-        out.append(tuple(parts) or (p.name,))
+        out.append(tuple(parts) or (_as_pure(p).name,))
     return out
 
 
-def _id_at(path: Path, rel: tuple[str, ...], level: int) -> str:
+def _full(path) -> str:
+    """A local path made absolute; a URL as ``/<bucket>/<key>`` (compared with other URLs only)."""
+    from tilewright.location.url import is_url
+
+    if is_url(path):
+        return "/" + str(_as_pure(path))
+    return os.path.abspath(path)
+
+
+def _id_at(path, rel: tuple[str, ...], level: int) -> str:
     """The id of ``path`` (parts ``rel`` relative to the root) at collision level 0-3."""
     stem = slide_stem(path)
+    path = _as_pure(path)
     if level == 0:
         return _safe(stem)
     folders = [_safe(x) for x in rel[:-1]]
@@ -176,6 +200,18 @@ def _id_at(path: Path, rel: tuple[str, ...], level: int) -> str:
     return _shorten(sid)
 
 
-def store_path(out_dir: str | os.PathLike, slide_id: str) -> Path:
-    """Path of a slide's store inside a cohort folder."""
-    return Path(out_dir) / f"{slide_id}.zarr"
+def _as_pure(path) -> Path:
+    """The path whose parent folders name colliding ids (a URL's key parts, its bucket first)."""
+    from tilewright.location.url import is_url, split_url
+
+    if is_url(path):
+        scheme, bucket, key = split_url(str(path))
+        return Path(bucket, *[k for k in key.split("/") if k])
+    return Path(path)
+
+
+def store_path(out_dir: str | os.PathLike, slide_id: str):
+    """Path of a slide's store inside a cohort folder (an ``ObjectPath`` when the folder is a URL)."""
+    from tilewright.location.objpath import as_path
+
+    return as_path(out_dir) / f"{slide_id}.zarr"

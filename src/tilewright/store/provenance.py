@@ -25,6 +25,9 @@ import queue
 import threading
 from concurrent.futures import ThreadPoolExecutor
 
+from tilewright.location.byte_source import open_binary
+from tilewright.location.url import is_url
+
 __all__ = ["source_digest", "source_size", "sampled_digest", "file_digest", "file_sha256", "source_sha256",
            "DIGESTS"]
 
@@ -36,23 +39,42 @@ _POSITIONS = 16
 _BLOCK = 8 << 20  # bytes a read of the full digest
 
 
+def _is_folder(path) -> bool:
+    """A folder (a DICOM series): on disk, or a key prefix named with a trailing ``/``."""
+    return str(path).endswith("/") if is_url(path) else os.path.isdir(path)
+
+
 def _files(path) -> list[str]:
     """The files a source consists of: itself, or a folder's files (a DICOM series), sorted."""
+    if is_url(path):
+        if not _is_folder(path):
+            return [str(path)]
+        from tilewright.location.objects import list_children
+
+        return [u for u, _ in list_children(str(path))[0] if not u.rsplit("/", 1)[-1].startswith(".")]
     if not os.path.isdir(path):
         return [os.fspath(path)]
     return sorted(os.path.join(path, f) for f in os.listdir(path)
                   if os.path.isfile(os.path.join(path, f)) and not f.startswith("."))
 
 
+def _size(path: str) -> int:
+    if is_url(path):
+        from tilewright.location.objects import head
+
+        return head(path)["size"]
+    return os.path.getsize(path)
+
+
 def source_size(path: str | os.PathLike) -> int:
-    """Bytes of a source file, or of all files of a source folder."""
-    return sum(os.path.getsize(f) for f in _files(path))
+    """Bytes of a source file, or of all files of a source folder (a local path or a URL)."""
+    return sum(_size(f) for f in _files(path))
 
 
 def source_digest(path: str | os.PathLike) -> str:
     """Sampled digest of a source: :func:`sampled_digest` of a file; of a folder (a DICOM series),
     SHA-256 over each file's name and sampled digest, in name order (prefix ``sha256f:``)."""
-    if not os.path.isdir(path):
+    if not _is_folder(path):
         return sampled_digest(path)
     h = hashlib.sha256()
     for f in _files(path):
@@ -68,9 +90,9 @@ def sampled_digest(path: str | os.PathLike) -> str:
     to 16 MiB are hashed whole. The result is prefixed ``sha256s:`` (sampled: not the file's
     SHA-256, see the module notes) or ``sha256:`` (the whole file's SHA-256).
     """
-    size = os.path.getsize(path)
+    size = _size(path)
     h = hashlib.sha256()
-    with open(path, "rb") as fh:
+    with open_binary(path) as fh:  # in a bucket: one range request a sample
         if size <= _SAMPLE * _POSITIONS:
             for block in iter(lambda: fh.read(1 << 22), b""):
                 h.update(block)
@@ -100,7 +122,7 @@ def file_sha256(path: str | os.PathLike, block: int = _BLOCK) -> str:
 
     def read():
         try:
-            with open(path, "rb", buffering=0) as fh:
+            with (open_binary(path) if is_url(path) else open(path, "rb", buffering=0)) as fh:
                 k = 0
                 while not stop.is_set():
                     buf = buffers[k % 4]
@@ -139,7 +161,7 @@ def source_sha256(path: str | os.PathLike, threads: int = 2) -> dict:
     is its own ``sha256sum``, the folder's value is not (it digests the list). Files are hashed
     ``threads`` at a time.
     """
-    if not os.path.isdir(path):
+    if not _is_folder(path):
         return {"sha256": file_sha256(path)}
     files = _files(path)
     with ThreadPoolExecutor(max(1, int(threads)), thread_name_prefix="tilewright-sha256") as pool:
@@ -148,5 +170,5 @@ def source_sha256(path: str | os.PathLike, threads: int = 2) -> dict:
     for f, d in zip(files, digests):
         h.update(os.path.basename(f).encode("utf-8") + b"\0" + d.encode() + b"\0")
     return {"sha256": h.hexdigest(),
-            "files": [{"name": os.path.basename(f), "size": os.path.getsize(f), "sha256": d}
+            "files": [{"name": os.path.basename(f), "size": _size(f), "sha256": d}
                       for f, d in zip(files, digests)]}

@@ -3,11 +3,12 @@
 from __future__ import annotations
 
 import os
-from pathlib import Path
 
 import numpy as np
 
-from tilewright.errors import IncompleteStoreError, StoreError
+from tilewright.errors import IncompleteStoreError, StoreError, TilewrightError
+from tilewright.location.objpath import as_path
+from tilewright.store.backing import has_store, zarr_store
 from tilewright.store.layout import FORMAT_NAME
 from tilewright.store.shard_reader import ShardReader
 from tilewright.store.shards import ShardLayout
@@ -16,14 +17,13 @@ __all__ = ["TileStore", "open_store", "is_complete"]
 
 
 def is_complete(path: str | os.PathLike) -> bool:
-    """True when ``path`` is a tile store whose ``complete`` attribute is set."""
+    """True when ``path`` (a folder or a URL) is a tile store whose ``complete`` attribute is set."""
     import zarr
 
-    path = Path(path)
-    if not (path / "zarr.json").exists():
+    if not has_store(path):
         return False
     try:
-        attrs = zarr.open_group(str(path), mode="r").attrs
+        attrs = zarr.open_group(zarr_store(path), mode="r").attrs
         return bool(attrs.get("complete")) and attrs.get("format") == FORMAT_NAME
     except Exception:  # unreadable metadata means "not complete", never a crash
         return False
@@ -49,13 +49,15 @@ class TileStore:
     def __init__(self, path: str | os.PathLike, *, normalize: str | None = None, target=None):
         import zarr
 
-        self.path = Path(path)
-        if not self.path.exists():
-            raise StoreError("no such tile store; run tile-out first", self.path)
+        self.path = as_path(path)
         try:
-            self._group = zarr.open_group(str(self.path), mode="r")
+            self._group = zarr.open_group(zarr_store(self.path), mode="r")
             attrs = dict(self._group.attrs)
+        except TilewrightError:
+            raise  # an object-store failure says why
         except Exception as exc:
+            if not self.path.exists():
+                raise StoreError("no such tile store; run tile-out first", self.path) from None
             raise StoreError(f"not a readable zarr v3 tile store ({exc})", self.path) from exc
         if attrs.get("format") != FORMAT_NAME:
             raise StoreError(f"not a tilewright tile store (format {attrs.get('format')!r})", self.path)

@@ -11,6 +11,7 @@ from __future__ import annotations
 import os
 from pathlib import Path
 
+from tilewright.location.objpath import as_path
 from tilewright.store.settings import expected_target, read_settings_toml, settings_mismatch
 
 __all__ = ["select_stores", "newest_store", "cohort_settings", "check_stores", "LEFT_OUT_COLUMNS"]
@@ -126,7 +127,7 @@ def cohort_settings(path: Path, settings) -> tuple[dict | None, str | None]:
     from tilewright.errors import ConfigError
 
     if settings == "cohort":
-        file = Path(path) / "config.toml"
+        file = as_path(path) / "config.toml"
         if not file.exists():
             return None, None
         return read_settings_toml(file), "the cohort's config.toml"
@@ -135,7 +136,7 @@ def cohort_settings(path: Path, settings) -> tuple[dict | None, str | None]:
     if hasattr(settings, "to_dict"):
         return settings.to_dict(), "the settings given"
     if isinstance(settings, (str, os.PathLike)):
-        return read_settings_toml(Path(settings)), str(settings)
+        return read_settings_toml(as_path(settings)), str(settings)
     raise ConfigError(f"settings= must be 'cohort', None, a TilingConfig, a dict or a TOML file, got {settings!r}")
 
 
@@ -149,7 +150,7 @@ def _target_for(path: Path, expected: dict, stores: dict):
     saved = None
     if method and expected.get("reference") is None:
         for name in (f"stain_target.{method}.json", "stain_target.json"):
-            f = Path(path) / name
+            f = as_path(path) / name
             if f.exists():
                 d = json.loads(f.read_text())
                 if d.get("method") == method:

@@ -116,11 +116,11 @@ def read_settings_toml(path) -> dict:
     ``[tiling]`` table), as a dict; a :class:`ConfigError` naming the file when it is missing or
     not TOML."""
     import tomllib
-    from pathlib import Path
 
     from tilewright.errors import ConfigError
+    from tilewright.location.objpath import as_path
 
-    path = Path(path)
+    path = as_path(path)
     try:
         data = tomllib.loads(path.read_text(encoding="utf-8"))
     except FileNotFoundError:

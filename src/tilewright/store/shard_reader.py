@@ -7,7 +7,8 @@ many a shard; :class:`~tilewright.store.shards.ShardLayout`), so this reader doe
 
 - a shard's index (offset and length of each chunk) is read once, its CRC-32C checked, and kept
   (8 bytes a tile);
-- each chunk is one positioned read (``os.preadv``) of exactly its bytes into a buffer the thread
+- each chunk is one positioned read (``os.preadv``; in a bucket, one range request) of exactly its
+  bytes into a buffer the thread
   reuses (a fresh buffer per chunk would cost more than the read: allocations this large are
   fresh pages from the kernel), decoded straight into the output array, allocated once per
   call; chunks of one shard share one open file;
@@ -28,6 +29,7 @@ from __future__ import annotations
 
 import os
 import threading
+from pathlib import Path
 
 import numpy as np
 
@@ -93,20 +95,21 @@ class ShardReader:
         self._length[base:base + lay.shard] = lengths
         self._loaded[s] = True
 
-    def _load_index(self, fd: int, s: int, path) -> None:
+    def _load_index(self, fd, s: int, path) -> None:
         lay = self.layout
         if lay.index_at_start:
-            raw = os.pread(fd, lay.index_size, 0)
+            raw = fd.pread(lay.index_size, 0)
         else:
-            size = os.fstat(fd).st_size
-            raw = os.pread(fd, lay.index_size, max(0, size - lay.index_size)) if size >= lay.index_size else b""
+            raw = fd.tail(lay.index_size)
         self._keep_index(s, raw, path)
 
     def _open(self, s: int):
-        """(fd or None when the shard file does not exist, path)."""
+        """(shard file handle or None when the shard file does not exist, path)."""
         path = self.layout.path(s)
+        if not isinstance(path, Path):
+            return _ObjectShard(str(path)), path  # no request yet: a missing object shows on the first read
         try:
-            return os.open(path, os.O_RDONLY | getattr(os, "O_BINARY", 0)), path
+            return _FileShard(os.open(path, os.O_RDONLY | getattr(os, "O_BINARY", 0))), path
         except FileNotFoundError:
             return None, path
         except OSError as exc:
@@ -124,12 +127,21 @@ class ShardReader:
             out.fill(lay.fill_value)
             return out
         try:
-            if not self._loaded[s]:
-                self._load_index(fd, s, path)
+            if not self._loaded[s] and not self._index_or_absent(fd, s, path):
+                out.fill(lay.fill_value)
+                return out
             self._chunk(fd, i, out, path)
         finally:
-            os.close(fd)
+            fd.close()
         return out
+
+    def _index_or_absent(self, fd, s: int, path) -> bool:
+        """Load shard ``s``'s index; False when its object does not exist (a shard never written)."""
+        try:
+            self._load_index(fd, s, path)
+        except FileNotFoundError:
+            return False
+        return True
 
     def read(self, indices) -> np.ndarray:
         """Tiles at ``indices`` (ints in [0, n), any order, repeats allowed) as a (k, T, T, C) array."""
@@ -157,10 +169,14 @@ class ShardReader:
             unique = len(np.unique(tiles)) if len(tiles) > 1 else 1
             in_shard = min(lay.shard, lay.n - s * lay.shard)
             whole = None
-            if unique >= _WHOLE * in_shard or (self._loaded[s] and unique > 1 and self._span_is_dense(tiles)):
-                whole = self._read_span(fd, s, tiles, path)
-            elif not self._loaded[s]:
-                self._load_index(fd, s, path)
+            try:
+                if unique >= _WHOLE * in_shard or (self._loaded[s] and unique > 1 and self._span_is_dense(tiles)):
+                    whole = self._read_span(fd, s, tiles, path)
+                elif not self._loaded[s]:
+                    self._load_index(fd, s, path)
+            except FileNotFoundError:  # a shard object never written
+                out[places] = lay.fill_value
+                return
             prev = -1
             for t, p in zip(tiles.tolist(), places.tolist()):
                 if t == prev:  # a repeated index: decoded once
@@ -172,7 +188,7 @@ class ShardReader:
                     self._chunk_from(whole, t, out[p], path)
                 prev, last = t, p
         finally:
-            os.close(fd)
+            fd.close()
 
     def _span_is_dense(self, tiles: np.ndarray) -> bool:
         """Whether the bytes between the first and last needed chunk are mostly needed ones."""
@@ -185,14 +201,13 @@ class ShardReader:
         need = int(np.unique(np.stack([off, length], 1)[present], axis=0)[:, 1].sum())
         return span <= 2 * need
 
-    def _read_span(self, fd: int, s: int, tiles: np.ndarray, path):
+    def _read_span(self, fd, s: int, tiles: np.ndarray, path):
         """One read covering the chunks of ``tiles``: the whole file when the index is not cached
         yet (index parsed from it), else the byte span from the first to the last chunk needed.
         Returns (buffer, its file offset)."""
         lay = self.layout
         if not self._loaded[s]:
-            size = os.fstat(fd).st_size
-            data = os.pread(fd, size, 0)
+            data = fd.whole()
             if len(data) < lay.index_size:
                 self._keep_index(s, data, path)  # raises: too short
             raw = data[:lay.index_size] if lay.index_at_start else memoryview(data)[len(data) - lay.index_size:]
@@ -205,9 +220,9 @@ class ShardReader:
             return b"", 0
         start = int(off[present].min())
         stop = int((off + length)[present].max())
-        return os.pread(fd, stop - start, start), start
+        return fd.pread(stop - start, start), start
 
-    def _chunk(self, fd: int, t: int, out: np.ndarray, path) -> None:
+    def _chunk(self, fd, t: int, out: np.ndarray, path) -> None:
         """Tile ``t`` from the open shard file ``fd`` into ``out`` (one positioned read)."""
         length = int(self._length[t])
         if length == 0:
@@ -215,7 +230,7 @@ class ShardReader:
             return
         offset = int(self._offset[t])
         if self.layout.codec.raw and length == out.nbytes:  # uncompressed: read into the tile itself
-            got = os.preadv(fd, [out.reshape(-1)], offset)
+            got = fd.readinto(out.reshape(-1), offset)
             if got != length:
                 raise StoreError(f"shard file ends inside tile {t}; the store is damaged: re-run tile-out "
                                  "with --overwrite for this slide", path)
@@ -224,7 +239,7 @@ class ShardReader:
         if scratch is None or len(scratch) < length:
             scratch = self._local.buffer = bytearray(max(length, 2 * out.nbytes))
         data = memoryview(scratch)[:length]
-        got = os.preadv(fd, [data], offset)
+        got = fd.readinto(data, offset)
         self._decode(data[:got], t, out, path, length)
 
     def _chunk_from(self, whole, t: int, out: np.ndarray, path) -> None:
@@ -245,3 +260,61 @@ class ShardReader:
         except Exception as exc:  # each codec library has its own error types
             raise StoreError(f"tile {t} does not decode ({self.layout.codec.name}: {exc}); the store is "
                              "damaged: re-run tile-out with --overwrite for this slide", path) from exc
+
+
+class _FileShard:
+    """A shard file opened for positioned reads."""
+
+    __slots__ = ("fd",)
+
+    def __init__(self, fd: int):
+        self.fd = fd
+
+    def pread(self, n: int, offset: int) -> bytes:
+        return os.pread(self.fd, n, offset)
+
+    def tail(self, n: int) -> bytes:
+        size = os.fstat(self.fd).st_size
+        return os.pread(self.fd, n, max(0, size - n)) if size >= n else b""
+
+    def whole(self) -> bytes:
+        return os.pread(self.fd, os.fstat(self.fd).st_size, 0)
+
+    def readinto(self, buffer, offset: int) -> int:
+        return os.preadv(self.fd, [buffer], offset)
+
+    def close(self) -> None:
+        os.close(self.fd)
+
+
+class _ObjectShard:
+    """A shard object in a bucket: each read one range request (the index: one suffix request)."""
+
+    __slots__ = ("url",)
+
+    def __init__(self, url: str):
+        self.url = url
+
+    def pread(self, n: int, offset: int) -> bytes:
+        from tilewright.location.objects import get_range
+
+        return get_range(self.url, offset, n)
+
+    def tail(self, n: int) -> bytes:
+        from tilewright.location.objects import get_tail
+
+        return get_tail(self.url, n)[0]
+
+    def whole(self) -> bytes:
+        from tilewright.location.objects import get_bytes
+
+        return get_bytes(self.url)
+
+    def readinto(self, buffer, offset: int) -> int:
+        view = memoryview(buffer).cast("B")
+        data = self.pread(len(view), offset)
+        view[:len(data)] = data
+        return len(data)
+
+    def close(self) -> None:
+        """Nothing is held open."""

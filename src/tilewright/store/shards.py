@@ -42,8 +42,8 @@ class ShardLayout:
 
     Attributes
     ----------
-    folder : Path
-        The array's folder on the local file system.
+    folder : Path or ObjectPath
+        The array's folder on the local file system, or its prefix in a bucket.
     key : callable
         ``key(shard_coords) -> str``, the shard file's key (zarr's chunk key encoding).
     shard : int
@@ -63,7 +63,9 @@ class ShardLayout:
     """
 
     def __init__(self, folder, key, shard, tile_shape, n, codec, index_at_start, index_crc, fill_value):
-        self.folder = Path(folder)
+        from tilewright.location.objpath import as_path
+
+        self.folder = as_path(folder)
         self.key = key
         self.shard = int(shard)
         self.tile_shape = tuple(int(s) for s in tile_shape)
@@ -78,20 +80,30 @@ class ShardLayout:
         """Bytes of a shard's index (16 a chunk, plus 4 for its CRC-32C)."""
         return 16 * self.shard + (4 if self.index_crc else 0)
 
-    def path(self, shard_index: int) -> Path:
+    def path(self, shard_index: int):
+        """The shard's file (a ``Path``) or object (an ``ObjectPath``)."""
         return self.folder / self.key((int(shard_index),) + (0,) * len(self.tile_shape))
 
     @classmethod
     def of(cls, arr) -> "ShardLayout | None":
         """The layout of a zarr v3 array of tiles, or None unless it is one tile a chunk, many a
-        shard, a chunk chain :class:`ChunkCodec` knows, on a local folder."""
+        shard, a chunk chain :class:`ChunkCodec` knows, in a local folder or a bucket
+        (:class:`~tilewright.store.backing.UrlObjectStore`)."""
         try:
             from zarr.storage import LocalStore
 
             meta = arr.metadata
             codecs = [c.to_dict() for c in meta.codecs]
             store = arr.store_path.store
-            if len(codecs) != 1 or codecs[0]["name"] != "sharding_indexed" or not isinstance(store, LocalStore):
+            if isinstance(store, LocalStore):
+                folder = Path(store.root) / arr.store_path.path
+            elif isinstance(getattr(store, "url", None), str):  # a store in a bucket (store/backing.py)
+                from tilewright.location.objpath import ObjectPath
+
+                folder = ObjectPath(store.url) / arr.store_path.path
+            else:
+                return None
+            if len(codecs) != 1 or codecs[0]["name"] != "sharding_indexed":
                 return None
             cfg = codecs[0]["configuration"]
             index = [c["name"] for c in cfg["index_codecs"]]
@@ -106,7 +118,7 @@ class ShardLayout:
             if codec is None:
                 return None
             fill = int(np.uint8(arr.fill_value if arr.fill_value is not None else 0))
-            return cls(Path(store.root) / arr.store_path.path, meta.encode_chunk_key, arr.shards[0],
+            return cls(folder, meta.encode_chunk_key, arr.shards[0],
                        arr.shape[1:], arr.shape[0], codec, where == "start", len(index) == 2, fill)
         except (AttributeError, KeyError, TypeError, ValueError, ImportError):
             return None
@@ -155,9 +167,15 @@ class ShardEncoder:
         return [*chunks, raw, crc]
 
     def write_chunks(self, shard_index: int, chunks: list) -> None:
-        """Write encoded chunks (at most ``shard``) as shard ``shard_index``, replacing any earlier file."""
+        """Write encoded chunks (at most ``shard``) as shard ``shard_index``, replacing any earlier file
+        (in a bucket: one request, the object appears whole or not at all)."""
         parts = self.shard_parts(chunks)
         path = self.layout.path(shard_index)
+        if not isinstance(path, Path):
+            from tilewright.location.objects import put
+
+            put(str(path), b"".join(bytes(p) if not isinstance(p, bytes) else p for p in parts))
+            return
         path.parent.mkdir(parents=True, exist_ok=True)
         fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_TRUNC | getattr(os, "O_BINARY", 0), 0o666)
         try:

@@ -20,7 +20,7 @@ __all__ = ["check_store"]
 _EMPTY = 2**64 - 1
 
 
-def check_store(folder, final, *, n_tiles: int, arrays, shard_index: bool = True) -> None:
+def check_store(folder, final, *, n_tiles: int, arrays, shard_index: bool = True, marked: bool = True) -> None:
     """Raise :class:`StoreError` unless ``folder`` holds a whole store of ``n_tiles`` tiles.
 
     Parameters
@@ -36,20 +36,26 @@ def check_store(folder, final, *, n_tiles: int, arrays, shard_index: bool = True
     shard_index : bool
         Whether the tile shards have the layout :mod:`tilewright.store.shards` writes (index with
         CRC-32C at the end; then each shard's index is checked), else their files are counted.
+    marked : bool
+        Whether the completion marker is already written (on disk, before the rename); a store in
+        a bucket is checked before its marker, which is written only if the check passes.
     """
     import zarr
 
-    folder = Path(folder)
+    from tilewright.location.objpath import as_path
+    from tilewright.store.backing import zarr_store
+
+    folder = as_path(folder)
 
     def fail(what):
         raise StoreError(f"the finished store is not whole ({what}); nothing was committed; run again", final)
 
     try:
-        group = zarr.open_group(str(folder), mode="r")
+        group = zarr.open_group(zarr_store(folder), mode="r")
         attrs = dict(group.attrs)
     except Exception as exc:  # noqa: BLE001 - any unreadable metadata means "not whole"
         fail(f"group metadata unreadable: {type(exc).__name__}")
-    if int(attrs.get("n_tiles", -1)) != n_tiles or not attrs.get("complete"):
+    if int(attrs.get("n_tiles", -1)) != n_tiles or bool(attrs.get("complete")) != marked:
         fail("group attributes do not record the tiles written")
     for name in arrays:
         try:
@@ -87,14 +93,11 @@ def _check_shards(folder: Path, tiles, n: int, fail) -> None:
     for s in range(-(-n // shard)):
         path = folder / key((s, 0, 0, 0))
         try:
-            with open(path, "rb") as fh:
-                size = fh.seek(0, 2)
-                if size < index_bytes:
-                    fail(f"shard file {path.name} of shard {s} is truncated")
-                fh.seek(size - index_bytes)
-                raw = fh.read(index_bytes)
+            raw, size = _tail(path, index_bytes)
         except FileNotFoundError:
             fail(f"shard file of tiles {s * shard}-{min(n, (s + 1) * shard) - 1} missing")
+        if size < index_bytes:
+            fail(f"shard file {path.name} of shard {s} is truncated")
         body, crc = raw[:-4], int.from_bytes(raw[-4:], "little")
         if google_crc32c.value(body) != crc:
             fail(f"shard {s} index checksum does not match")
@@ -102,3 +105,15 @@ def _check_shards(folder: Path, tiles, n: int, fail) -> None:
         present = min(n - s * shard, shard)
         if (index[:present, 0] == _EMPTY).any() or (index[:present, 0] + index[:present, 1] > size - index_bytes).any():
             fail(f"shard {s} lacks some of its tiles")
+
+
+def _tail(path, n: int) -> tuple[bytes, int]:
+    """The last ``n`` bytes of a shard file (or object: one request) and its size."""
+    if not isinstance(path, Path):
+        from tilewright.location.objects import get_tail
+
+        return get_tail(str(path), n)
+    with open(path, "rb") as fh:
+        size = fh.seek(0, 2)
+        fh.seek(max(0, size - n))
+        return fh.read(n), size

@@ -4,6 +4,16 @@ Nothing that is not finished ever carries the final name, and the ``complete`` a
 last thing written, so a reader (or a resumed run) can never mistake a partial store for a
 finished one.
 
+A store in a bucket (``s3://bucket/out/a.zarr``) cannot be renamed: it is written in place, and
+its completion marker is what makes it complete. An earlier store there loses its marker first
+(the group's ``zarr.json`` is deleted, then every object under the prefix); the new store's
+group is written with ``complete: false``; the shards and small arrays follow, each object
+written whole in one request; :func:`~tilewright.store.verify.check_store` then reads the
+metadata back and checks every shard's index; only then is ``zarr.json`` rewritten with
+``complete: true``, in one request, which the store replaces atomically. A reader, a resumed
+run or ``is_complete`` sees a complete store or none, never part of one; a write stopped at any
+point leaves a prefix without the marker, which the next run removes.
+
 Whole shards of tiles are encoded here (see :mod:`tilewright.store.shards`) and written as one
 file each, in the zarr v3 ``sharding_indexed`` layout the array's metadata declares; zarr itself
 writes only the metadata and the small arrays. Any zarr v3 reader reads the result.
@@ -20,7 +30,8 @@ from pathlib import Path
 
 import numpy as np
 
-from tilewright.errors import StoreError
+from tilewright.errors import StoreError, TilewrightError
+from tilewright.location.objpath import ObjectPath, as_path
 from tilewright.store.compression import compressor, describe, tile_codecs  # noqa: F401 (compressor: public)
 from tilewright.store.layout import FORMAT_NAME, FORMAT_VERSION
 from tilewright.store.shards import ShardEncoder
@@ -36,8 +47,11 @@ def remove_partials(*finals: str | os.PathLike) -> None:
     listed once, however many stores it holds)."""
     from tilewright.interrupts import signals_deferred
 
+    remote = [f for f in map(as_path, finals) if isinstance(f, ObjectPath)]
+    if remote:
+        _remove_unfinished(remote)
     prefixes: dict[Path, list[str]] = {}
-    for final in map(Path, finals):
+    for final in (f for f in map(as_path, finals) if not isinstance(f, ObjectPath)):
         # compared as text: a name is not a pattern (``a[1]`` vs ``a1``)
         prefixes.setdefault(final.parent, []).append(final.name + _PARTIAL)
     with signals_deferred():  # a Ctrl-C here would leave half a folder behind
@@ -50,8 +64,27 @@ def remove_partials(*finals: str | os.PathLike) -> None:
                     shutil.rmtree(folder / name, ignore_errors=True)
 
 
+def _remove_unfinished(finals: list) -> None:
+    """Remove the stores in a bucket that lack their completion marker (one listing a parent
+    prefix, then only the stores found there are looked at)."""
+    from tilewright.location.objects import delete_prefix, list_children
+    from tilewright.store.reader import is_complete
+
+    by_parent: dict[str, list] = {}
+    for final in finals:
+        by_parent.setdefault(str(final.parent), []).append(final)
+    for parent, stores in by_parent.items():
+        present = set(list_children(parent)[1])
+        for final in stores:
+            if str(final) in present and not is_complete(final):
+                delete_prefix(str(final))
+
+
 class StoreWriter:
     """Create one slide's store under a temporary name; :meth:`commit` renames it into place.
+
+    In a bucket the store is written in place and made complete by its marker, written last (see
+    the module docstring).
 
     Parameters
     ----------
@@ -69,25 +102,39 @@ class StoreWriter:
         JPEG quality (1-100, default 90) when ``compression="jpeg"``.
     with_region : bool
         Whether to keep a per-tile ``region`` array.
+    overwrite : bool
+        In a bucket (where the old store must go before the new one is written): replace a
+        complete store already there (else StoreError, before anything is removed). On disk
+        :meth:`commit` decides.
     """
 
     def __init__(self, final, capacity: int, tile: int, *, shard_tiles: int = 64,
-                 compression: str = "lz4", with_region: bool = False, quality: int | None = None):
+                 compression: str = "lz4", with_region: bool = False, quality: int | None = None,
+                 overwrite: bool = True):
         import zarr
 
-        from tilewright.store.guard import GuardedLocalStore, WriteGuard
+        from tilewright.store.guard import GuardedLocalStore, GuardedObjectStore, WriteGuard
 
-        self.final = Path(final)
-        self.tmp = self.final.with_name(self.final.name + _PARTIAL + uuid.uuid4().hex[:8])
+        self.final = as_path(final)
+        self.remote = isinstance(self.final, ObjectPath)
+        # in a bucket the store is written in place (no rename); the marker makes it complete
+        self.tmp = self.final if self.remote else \
+            self.final.with_name(self.final.name + _PARTIAL + uuid.uuid4().hex[:8])
         self.guard = WriteGuard(self.tmp, self.final)  # abort waits for the writes in flight
         self.tile = int(tile)
         self.n = 0
         cap = max(int(capacity), 1)
         codecs = tile_codecs(compression, quality)  # bad names raise before anything is created
         self.codec = describe(compression, quality)
+        if self.remote:  # before anything is written: a refusal here leaves the old store as it is
+            self._clear_remote(overwrite)
         try:
-            self.final.parent.mkdir(parents=True, exist_ok=True)
-            self.group = zarr.open_group(GuardedLocalStore(self.tmp, guard=self.guard), mode="w", zarr_format=3)
+            if self.remote:
+                backing = GuardedObjectStore(str(self.tmp), guard=self.guard)
+            else:
+                self.final.parent.mkdir(parents=True, exist_ok=True)
+                backing = GuardedLocalStore(self.tmp, guard=self.guard)
+            self.group = zarr.open_group(backing, mode="w", zarr_format=3)
             shard = max(1, min(int(shard_tiles), cap))
             self.tiles = self.group.create_array(
                 "tiles", shape=(cap, tile, tile, 3), chunks=(1, tile, tile, 3),
@@ -99,7 +146,7 @@ class StoreWriter:
             self.shard = int(self.tiles.shards[0])
             self._encoder = ShardEncoder.for_array(self.tiles)  # None: let zarr write the tiles
             self._pending: list = []  # encoded chunks of a shard not yet full
-            self.guard.created = True  # from now on a vanished folder fails every write
+            self.guard.created = not self.remote  # from now on a vanished folder fails every write
         except OSError as exc:
             self.abort()
             if exc.errno == errno.ENAMETOOLONG:
@@ -110,6 +157,17 @@ class StoreWriter:
         except BaseException:  # e.g. Ctrl-C while the folder is being made: __exit__ will not run
             self.abort()
             raise
+
+    def _clear_remote(self, overwrite: bool) -> None:
+        """Before writing in a bucket: take the completion marker off any store there, then remove
+        its objects (refused for a complete store unless ``overwrite``)."""
+        from tilewright.location.objects import delete, delete_prefix
+        from tilewright.store.reader import is_complete
+
+        if not overwrite and is_complete(self.final):
+            raise StoreError("a store already exists; pass overwrite to replace it", self.final)
+        delete(str(self.final / "zarr.json"))  # from here on no reader takes it for complete
+        delete_prefix(str(self.final))
 
     @property
     def encodes(self) -> bool:
@@ -264,6 +322,13 @@ class StoreWriter:
                         created=datetime.now(timezone.utc).isoformat(timespec="seconds"))
             full["complete"] = False
             self.group.update_attributes(full)  # one metadata write (attrs.update writes per key)
+            if self.remote:  # checked first, then the marker: the one write that makes it complete
+                check_store(self.tmp, self.final, n_tiles=self.n, arrays=self._arrays,
+                            shard_index=self._encoder is not None, marked=False)
+                with self.guard.writing():
+                    self.group.update_attributes({"complete": True})
+                self.guard.close()
+                return self.final
             self.group.update_attributes({"complete": True})  # the last thing written
             with self.guard.writing():  # fails here if the folder vanished meanwhile
                 check_store(self.tmp, self.final, n_tiles=self.n, arrays=self._arrays,
@@ -304,7 +369,15 @@ class StoreWriter:
 
         with signals_deferred():
             self.guard.close()
-            shutil.rmtree(self.tmp, ignore_errors=True)
+            if not self.remote:
+                shutil.rmtree(self.tmp, ignore_errors=True)
+                return
+            from tilewright.location.objects import delete_prefix
+
+            try:  # the marker was never written: what is left is removed by the next run if not now
+                delete_prefix(str(self.tmp))
+            except TilewrightError:
+                pass
 
     def __enter__(self):
         return self

@@ -174,6 +174,13 @@ def write_png(path, png: bytes) -> str:
 
     Returns the path written; raises OSError if it cannot be written.
     """
+    from tilewright.location.url import is_url
+
+    if is_url(path):  # one request writes the object whole: no temporary name needed
+        from tilewright.location.objpath import replace_bytes
+
+        replace_bytes(path, png)
+        return str(path)
     path = os.fspath(path)
     tmp = path + ".part"
     try:
