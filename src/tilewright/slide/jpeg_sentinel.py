@@ -236,6 +236,8 @@ def sentinel_stream(data, plan: SentinelPlan) -> bytes | None:
         None when the stream does not end with its entropy-coded data and EOI.
     """
     end = len(data) - 2
+    if end >= 5 and data[end + 1] in (0x00, 0xFF) and data[end - 1] == 0xFF and data[end] == 0xD9:
+        end -= 1  # one byte padding the stream to an even length (DICOM fragments, PS3.5 A.4)
     if end < 4 or data[end] != 0xFF or data[end + 1] != 0xD9:
         return None
     last = data[end - 1]
