@@ -182,11 +182,25 @@ class GridReader:
             os.lseek(fd, offset, 0)
             return os.read(fd, n)
 
-    def read(self, level: int, y: int, x: int, h: int, w: int, out: np.ndarray) -> None:
+    def reduces(self, level: int, factor: int) -> bool:
+        """Whether :meth:`read` can area-average this level ``factor``-fold tile by tile: the
+        stored segments are whole multiples of ``factor`` in both axes, so no target pixel
+        straddles two of them."""
+        lv = self._levels[level]
+        return factor > 1 and lv.tile_h % factor == 0 and lv.tile_w % factor == 0
+
+    def read(self, level: int, y: int, x: int, h: int, w: int, out: np.ndarray, factor: int = 1) -> None:
         """Decode the region ``[y, y+h) x [x, x+w)`` of a level into ``out`` (h, w, 3).
 
         The region must lie inside the level. Only the tiles it touches are read; tiles never
         stored are glass (white).
+
+        With ``factor`` k > 1 (where :meth:`reduces`; ``y, x, h, w`` multiples of k) ``out`` is
+        (h / k, w / k, 3) and receives the k x k block means of the region (OpenCV ``INTER_AREA``
+        at a whole factor: each target pixel the rounded mean of its block), each tile reduced
+        straight after its decode, while it is still in cache, into its place in ``out``: no
+        level-resolution copy of the region is made. The pixels equal those of reducing a
+        full-resolution read, since every block lies inside one tile.
 
         Raises
         ------
@@ -197,6 +211,9 @@ class GridReader:
             raise ValueError("the slide is closed")
         lv = self._levels[level]
         th, tw = lv.tile_h, lv.tile_w
+        f = int(factor)
+        if f > 1 and not (self.reduces(level, f) and y % f == x % f == h % f == w % f == 0):
+            raise ValueError(f"cannot reduce {(y, x, h, w)} of level {level} {f}-fold tile by tile")
         r0, r1 = y // th, (y + h - 1) // th
         c0, c1 = x // tw, (x + w - 1) // tw
         for r in range(r0, r1 + 1):
@@ -208,7 +225,7 @@ class GridReader:
                 c = c0 + k
                 tx = c * tw
                 xa, xb = max(x, tx), min(x + w, tx + tw)
-                dst = out[ya - y : yb - y, xa - x : xb - x]
+                dst = out[(ya - y) // f : (yb - y) // f, (xa - x) // f : (xb - x) // f]
                 if not data:
                     dst[...] = 255  # a tile never stored: background
                     continue
@@ -233,8 +250,10 @@ class GridReader:
                         "the file is damaged, copy the slide again", self.path)
                 if seg is None:
                     dst[...] = 255
-                    continue
-                dst[...] = seg[ya - ty : yb - ty, xa - tx : xb - tx, :3]
+                elif f == 1:
+                    dst[...] = seg[ya - ty : yb - ty, xa - tx : xb - tx, :3]
+                else:
+                    _reduce_into(seg[ya - ty : yb - ty, xa - tx : xb - tx, :3], dst)
 
     def _decode(self, lv: GridLevel, data, index: int) -> np.ndarray | None:
         """One tile as RGB(+) pixels (a per-thread buffer on the direct JPEG path)."""
@@ -373,6 +392,16 @@ class GridReader:
         fds, self._fds, self._fd = getattr(self, "_fds", []), [], None
         for fd in fds:
             os.close(fd)
+
+
+def _reduce_into(src: np.ndarray, dst: np.ndarray) -> None:
+    """``dst`` = the whole-factor block means of ``src`` (OpenCV ``INTER_AREA``), written in place
+    when OpenCV can address ``dst`` (a row-strided view of a larger array), else copied."""
+    import cv2
+
+    got = cv2.resize(src, (dst.shape[1], dst.shape[0]), dst=dst, interpolation=cv2.INTER_AREA)
+    if got is not dst and not np.shares_memory(got, dst):
+        dst[...] = got
 
 
 def _offset_tile_buffer(shape) -> np.ndarray:
