@@ -23,6 +23,7 @@ import threading
 import numpy as np
 
 from tilewright.errors import DamagedSlideError
+from tilewright.slide import jpeg_sentinel as js
 from tilewright.slide import jpeg_strict as _strict
 
 __all__ = ["GridLevel", "GridReader"]
@@ -60,7 +61,7 @@ class GridLevel:
     """
 
     __slots__ = ("height", "width", "tile_h", "tile_w", "grid_w", "offsets", "counts", "jpegtables", "is_jpeg",
-                 "jpeg", "sentinels", "strict", "stripped", "convert", "unwrap", "file", "fd")
+                 "jpeg", "sentinels", "strict", "stripped", "convert", "unwrap", "file", "fd", "header")
 
     def __init__(self, height, width, tile_h, tile_w, offsets, counts, *, jpegtables=None, is_jpeg=False,
                  jpeg=None, convert=None, stripped=False, unwrap=None, file=None):
@@ -73,6 +74,7 @@ class GridLevel:
         self.file, self.fd = file, None  # fd: set when the reader opens its files
         self.sentinels = {}  # JPEG header bytes -> SentinelPlan or None (see jpeg_sentinel)
         self.strict = {}  # colour signature or header bytes -> strict decode equals this level's (jpeg_strict)
+        self.header = None  # the last tile's JPEG header (tiles of a level mostly share one)
 
     @property
     def grid_h(self) -> int:
@@ -302,15 +304,20 @@ class GridReader:
         decode whose sentinel-extended stream is checked at 1/8 scale. Whatever fails is settled
         by the probe check (jpeg_check), so a refusal is never a false alarm.
         """
-        from tilewright.slide import jpeg_sentinel as js
-
         if lv.segment_shape(index) != (lv.tile_h, lv.tile_w):  # a short last strip: probe check
             seg = self._decode(lv, data, index)
             return seg, seg is None or _jpeg_intact(lv, index, data, seg)
-        data, plan = bytes(data), None  # a memoryview into a row read: the helpers search bytes
-        start = js.header_length(data) if lv.jpeg is not None else None
+        data, plan, start = bytes(data), None, None  # a memoryview into a row read: the helpers search bytes
+        if lv.jpeg is not None:
+            header = lv.header
+            # a stream that starts with a whole header parses as that header (same segments up to
+            # its SOS), so one comparison replaces parsing the markers of most tiles
+            if header is not None and data.startswith(header):
+                start = len(header)
+            else:
+                start = js.header_length(data)
+                header = lv.header = None if start is None else data[:start]
         if start is not None:
-            header = data[:start]
             plan = lv.sentinels.get(header, False)
             if plan is False:
                 if len(lv.sentinels) >= _HEADER_CACHE:  # headers differ tile by tile (own tables)
