@@ -8,11 +8,12 @@ clock; every row runs once a round, rows interleaved, and each ratio is taken wi
 (median and range over the rounds are printed). Rows, on the main bench slide (planned 256-px
 tiles at 0.5 µm/px, computed from level-0 JPEG 4:2:0 tiles):
 
-raw      the limit: imagecodecs (libjpeg-turbo) decodes exactly the level-0 JPEG tiles under the
-         planned tiles, from bytes read beforehand, each into a fresh array (a plain call);
+raw      imagecodecs (libjpeg-turbo) decodes exactly the level-0 JPEG tiles under the planned
+         tiles, from bytes read beforehand, each into a fresh array (a plain call);
 best     the same decodes into one reused buffer 16 bytes off a 32-byte boundary, as tilewright's
          reader decodes (libjpeg-turbo writes 32-byte-aligned rows with non-temporal stores that
-         bypass the cache, so fresh, aligned arrays cost more; informative, not the aim's limit);
+         bypass the cache, so a fresh array costs more when malloc happens to align it);
+         the limit the aims are set against is the faster of the two in each round;
 tile     ``tile_slide(threads=1)``, defaults: damaged-JPEG check on, lz4, QC picture;
 fixed    the same with one tile (``max_tiles=1``): what a slide costs besides its tiles (open,
          thumbnail, tissue mask, plan, store pictures, QC picture, source digest, commit);
@@ -243,8 +244,9 @@ def _spread(values) -> str:
 
 def ratios(res: dict, a: str, b: str, extra: bool = False) -> list[float]:
     """Per round: CPU(a) / CPU(b) (a rate of b over a rate of a), or CPU(b) / CPU(a) - 1 in % with
-    ``extra`` (the extra time b takes)."""
-    t = res["times"]
+    ``extra`` (the extra time b takes). ``a = "limit"``: the faster of raw and best that round."""
+    t = dict(res["times"])
+    t["limit"] = [min(r, b_) for r, b_ in zip(t["raw"], t["best"])]
     if extra:
         return [100 * (y[0] / x[0] - 1) for x, y in zip(t[a], t[b])]
     return [x[0] / y[0] for x, y in zip(t[a], t[b])]
@@ -255,9 +257,9 @@ def report(res: dict) -> list:
     t, n = res["times"], res["tiles"]
     src_mp = n * (2 * TILE) ** 2 / 1e6
     print(f"one core (a process pinned to CPU {res['cpu'][0]}; CPU seconds of all its threads, median "
-          f"(min-max) over {len(t['raw'])} rounds; x raw: raw decode's CPU / the row's, same round)")
+          f"(min-max) over {len(t['raw'])} rounds; x limit: the faster raw decode's CPU / the row's, same round)")
     labels = [
-        ("raw", f"raw decode: imagecodecs, the {res['jpeg_tiles']} level-0 tiles, fresh arrays (the limit)"),
+        ("raw", f"raw decode: imagecodecs, the {res['jpeg_tiles']} level-0 tiles, fresh arrays"),
         ("best", "the same decodes into one reused, 16-byte-offset buffer"),
         ("tile", "tile_slide(threads=1), defaults (check on, lz4, QC picture)"),
         ("fixed", "  the same, one tile: a slide's cost besides its tiles"),
@@ -265,14 +267,14 @@ def report(res: dict) -> list:
         ("icc", "  the same slide with an embedded ICC profile, applied"),
         ("mac", "  Macenko, the cohort's stain target known"),
     ]
-    print(f"{'':<66}{'CPU s':>18}{'src MP/CPU-s':>14}{'x raw':>18}")
+    print(f"{'':<66}{'CPU s':>18}{'src MP/CPU-s':>14}{'x limit':>18}")
     for key, label in labels:
         cpu = [c for c, _ in t[key]]
-        x = ratios(res, "raw", key)
+        x = ratios(res, "limit", key)
         print(f"{label:<66}{_spread(cpu):>18}{src_mp / statistics.median(cpu):>14.0f}{_spread(x):>18}")
-    tile_part = [r[0] / (a[0] - f[0]) for r, a, f in zip(t["raw"], t["tile"], t["fixed"])]
-    print(f"tile pipeline alone (tile less fixed) / raw decode: {_spread(tile_part)}: what slides with "
-          f"many more tiles approach; tile / best decode: {_spread(ratios(res, 'best', 'tile'))}")
+    tile_part = [min(r[0], b[0]) / (a[0] - f[0]) for r, b, a, f in zip(t["raw"], t["best"], t["tile"], t["fixed"])]
+    print(f"tile pipeline alone (tile less fixed) / limit: {_spread(tile_part)}: what slides with many more "
+          f"tiles approach; tile / raw decode into fresh arrays: {_spread(ratios(res, 'raw', 'tile'))}")
     check = {k: ratios(res, f"plain {k}", f"check {k}", extra=True) for k in ("420", "444")}
     print(f"damaged-JPEG check's own cost, % of a plain decode of the same tiles: 4:2:0 (strict decode) "
           f"{_spread(check['420'])}; 4:4:4 (sentinel row) {_spread(check['444'])}")
@@ -284,8 +286,8 @@ def report(res: dict) -> list:
           "; ".join(f"{k[6:]} {_spread(v)}" for k, v in dicom.items()))
     if "stages" in res:
         print_stages(res)
-    aims = [("one core: tile-out / raw decode", ratios(res, "raw", "tile"), ">= 0.8", 0.8),
-            ("  the same, damaged-JPEG check off", ratios(res, "raw", "nv"), ">= 0.8", 0.8),
+    aims = [("one core: tile-out / raw decode", ratios(res, "limit", "tile"), ">= 0.8", 0.8),
+            ("  the same, damaged-JPEG check off", ratios(res, "limit", "nv"), ">= 0.8", 0.8),
             ("one core: Macenko extra time (target known), %", ratios(res, "tile", "mac", True), "<= 30", -30),
             ("one core: ICC profile extra time, %", ratios(res, "tile", "icc", True), "<= 15", -15),
             ("JPEG check's own cost, 4:2:0, %", check["420"], "<= 5", -5),
@@ -295,10 +297,11 @@ def report(res: dict) -> list:
 
 
 def print_stages(res: dict) -> None:
-    raw = statistics.median(c for c, _ in res["times"]["raw"])
+    t = res["times"]
+    raw = statistics.median(min(r[0], b[0]) for r, b in zip(t["raw"], t["best"]))
     st = res["stages"]
-    print(f"where one core's time goes (one instrumented tile_slide, CPU s; % of the raw decode's "
-          f"{raw:.2f} s; 0.8 of the limit leaves {raw / 0.8 - raw:.2f} s beside a decode as fast as raw):")
+    print(f"where one core's time goes (one instrumented tile_slide, CPU s; % of the limit's {raw:.2f} s; "
+          f"0.8 of the limit leaves {raw / 0.8 - raw:.2f} s beside a decode as fast as it):")
     for name, sec in st.items():
         print(f"  {name:<66}{sec:>7.3f}{100 * sec / raw:>7.0f} %")
 

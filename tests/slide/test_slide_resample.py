@@ -201,3 +201,16 @@ def test_tile_by_tile_reduction_equals_cv2_inter_area(write, k):
         for y, x, h, w in boxes:
             got = view.read(y, x, h, w)
             np.testing.assert_array_equal(got, ref[y:y + h, x:x + w], err_msg=str((y, x, h, w)))  # reference: cv2
+
+
+def test_reduced_read_refuses_boxes_off_the_factor_grid(write):
+    """A box whose edges are not multiples of the factor has target pixels straddling tiles'
+    blocks: refused (ValueError) rather than averaged over the wrong source pixels."""
+    path = write("odd-2.tif", img=make_image(1001, 1290, seed=3), compression="zlib", n_levels=1, mpp=0.25)
+    with tw.open(path) as s:
+        assert s.reduces(0, 2, 0, 0, 512, 512) and not s.reduces(0, 2, 1, 0, 512, 512)
+        assert not s.reduces(0, 3, 0, 0, 768, 768)  # 256-px tiles are not a multiple of 3
+        with pytest.raises(ValueError):
+            s.read_level(0, 1, 0, 512, 512, factor=2)
+        with pytest.raises(ValueError):
+            s._reader.read(0, 2, 0, 6, 6, np.empty((2, 2, 3), np.uint8), 3)
