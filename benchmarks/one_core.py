@@ -92,7 +92,7 @@ def _child(rounds: int, stages: bool) -> dict:
 
     import tilewright as tw
     from formats import plan_for, read_planned
-    from tilewright.slide.tile_grid import _offset_tile_buffer
+    from tilewright.slide.tile_pixels import offset_tile_buffer
     from tilewright.stain.registry import normalizer_from_dict
 
     paths = slides()
@@ -100,7 +100,7 @@ def _child(rounds: int, stages: bool) -> dict:
     backend, lv, data = needed_tiles(paths["main"], yx, scale)
     b444, lv444, data444 = needed_tiles(paths["444"], yx, scale)
     tables = lv.jpegtables
-    buf = _offset_tile_buffer((lv.tile_h, lv.tile_w))
+    buf = offset_tile_buffer((lv.tile_h, lv.tile_w))
     tmp = Path(tempfile.mkdtemp(prefix="tw-one-core-"))
     base = tw.TilingConfig(mpp=MPP, tile=TILE, threads=1)
     mac = base.replace(normalizer="macenko")
@@ -193,7 +193,7 @@ def _stages(path, cfg, tmp) -> dict:
         setattr(owner, name, timed)
 
     wrap(tile_grid.GridReader, "_decode_verified", "decode")
-    wrap(tile_grid, "_reduce_into", "reduce")
+    wrap(tile_grid, "reduce_into", "reduce")
     wrap(tile_grid.GridReader, "read", "grid read")
     wrap(run_slide, "_tile_arrays", "tile loop")
     wrap(sharpness, "sharpness", "sharpness")

@@ -25,6 +25,7 @@ import numpy as np
 from tilewright.errors import DamagedSlideError
 from tilewright.slide import jpeg_sentinel as js
 from tilewright.slide import jpeg_strict as _strict
+from tilewright.slide.tile_pixels import offset_tile_buffer, reduce_into
 
 __all__ = ["GridLevel", "GridReader"]
 
@@ -255,7 +256,7 @@ class GridReader:
                 elif f == 1:
                     dst[...] = seg[ya - ty : yb - ty, xa - tx : xb - tx, :3]
                 else:
-                    _reduce_into(seg[ya - ty : yb - ty, xa - tx : xb - tx, :3], dst)
+                    reduce_into(seg[ya - ty : yb - ty, xa - tx : xb - tx, :3], dst)
 
     def _decode(self, lv: GridLevel, data, index: int) -> np.ndarray | None:
         """One tile as RGB(+) pixels (a per-thread buffer on the direct JPEG path)."""
@@ -269,29 +270,6 @@ class GridReader:
         if seg is None:
             return None
         return seg if lv.convert is None else lv.convert(seg)
-
-    def _strict_agrees(self, lv: GridLevel, stream: bytes, data, index: int, header: bytes | None = None) -> bool:
-        """Whether strict decodes of streams with this one's colour signature equal the level's
-        decode (checked on the first such tile that decodes cleanly; see jpeg_strict). The answer
-        is also kept under the tile's ``header`` bytes, so tiles sharing a header skip parsing."""
-        ok = lv.strict.get(header) if header is not None else None
-        if ok is not None:
-            return ok
-        sig = _strict.colour_signature(stream)
-        if sig is None:
-            return False
-        ok = lv.strict.get(sig)
-        if ok is None:
-            got = _strict.decode_strict(stream, np.empty((lv.tile_h, lv.tile_w, 3), np.uint8))
-            if got is None:
-                return False  # undecided (this tile may be damaged): the next clean tile decides
-            want = self._decode(lv, data, index)
-            ok = lv.strict[sig] = want is not None and np.array_equal(want, got)
-        if header is not None:
-            if len(lv.strict) >= _HEADER_CACHE:
-                lv.strict.clear()
-            lv.strict[header] = ok
-        return ok
 
     def _decode_verified(self, lv: GridLevel, data, index: int):
         """One JPEG tile and whether its entropy-coded stream is intact.
@@ -333,7 +311,8 @@ class GridReader:
                 return seg, True
         elif lv.jpeg is not None and _strict.available():
             stream = _strict.complete_stream(data, lv.jpegtables)
-            if self._strict_agrees(lv, stream, data, index, None if start is None else header):
+            if _strict.agrees(lv.strict, stream, None if start is None else header, (lv.tile_h, lv.tile_w),
+                              lambda: self._decode(lv, data, index), _HEADER_CACHE):
                 seg = _strict.decode_strict(stream, self._scratch_tile((lv.tile_h, lv.tile_w)))
                 if seg is not None:
                     return seg, True
@@ -344,11 +323,11 @@ class GridReader:
         return seg, seg is None or _jpeg_intact(lv, index, data, seg)
 
     def _scratch_tile(self, key) -> np.ndarray:
-        """This thread's (h, w, 3) decode buffer of that size (see :func:`_offset_tile_buffer`)."""
+        """This thread's (h, w, 3) decode buffer of that size (see :func:`offset_tile_buffer`)."""
         tiles = getattr(self._scratch, "tiles", {})
         buf = tiles.get(key)
         if buf is None:
-            buf = _offset_tile_buffer(key)
+            buf = offset_tile_buffer(key)
             self._scratch.tiles = {**tiles, key: buf}
         return buf
 
@@ -399,30 +378,6 @@ class GridReader:
         fds, self._fds, self._fd = getattr(self, "_fds", []), [], None
         for fd in fds:
             os.close(fd)
-
-
-def _reduce_into(src: np.ndarray, dst: np.ndarray) -> None:
-    """``dst`` = the whole-factor block means of ``src`` (OpenCV ``INTER_AREA``), written in place
-    when OpenCV can address ``dst`` (a row-strided view of a larger array), else copied."""
-    import cv2
-
-    got = cv2.resize(src, (dst.shape[1], dst.shape[0]), dst=dst, interpolation=cv2.INTER_AREA)
-    if got is not dst and not np.shares_memory(got, dst):
-        dst[...] = got
-
-
-def _offset_tile_buffer(shape) -> np.ndarray:
-    """An empty (h, w, 3) uint8 tile buffer whose start is 16 bytes off a 32-byte boundary.
-
-    libjpeg-turbo's SIMD colour conversion writes 32-byte-aligned output with non-temporal
-    stores, which bypass the cache: decoding a tile into an aligned buffer measured about 30 %
-    slower than into one 16 bytes off alignment (``benchmarks/jpeg_verify.py`` decodes into
-    these buffers on both paths, so its comparison does not depend on where malloc put them).
-    """
-    n = shape[0] * shape[1] * 3
-    raw = np.empty(n + 48, np.uint8)
-    start = (16 - raw.ctypes.data) % 32
-    return raw[start:start + n].reshape(shape[0], shape[1], 3)
 
 
 def _jpeg_intact(lv: GridLevel, index: int, data, seg) -> bool:
