@@ -1,7 +1,7 @@
 """One core, like for like: ``tile_slide`` on one thread against raw JPEG decoding, on one CPU.
 
-Everything here runs in a child process pinned to one CPU (``sched_setaffinity`` before it
-starts, so every thread it creates shares that CPU: the reader, the side threads that draw the
+Everything here runs in a child process pinned to one CPU (``sched_setaffinity`` before any
+thread starts, so every thread it creates shares that CPU: the reader, the side threads that draw the
 QC picture and fit the stain estimate, the codec's own threads). Times are CPU seconds of the
 whole process (all its threads), which a shared machine's load disturbs far less than the wall
 clock; every row runs once a round, rows interleaved, and each ratio is taken within a round
@@ -237,10 +237,9 @@ def measure(rounds: int = 5, stages: bool = False) -> dict:
     """Run the child on one CPU (the last this process may use) and return its results."""
     cpu = max(os.sched_getaffinity(0))
     env = {**os.environ, "OMP_NUM_THREADS": "1", "OPENBLAS_NUM_THREADS": "1", "MKL_NUM_THREADS": "1"}
-    cmd = [sys.executable, str(Path(__file__).resolve()), "--child", "--rounds", str(rounds)] + \
+    cmd = [sys.executable, str(Path(__file__).resolve()), "--child", "--cpu", str(cpu), "--rounds", str(rounds)] + \
         (["--stages"] if stages else [])
-    done = subprocess.run(cmd, check=True, capture_output=True, text=True, env=env,
-                          preexec_fn=lambda: os.sched_setaffinity(0, {cpu}))
+    done = subprocess.run(cmd, check=True, capture_output=True, text=True, env=env)
     return json.loads(done.stdout.strip().splitlines()[-1])
 
 
@@ -350,8 +349,11 @@ def main(argv=None) -> int:
     ap.add_argument("--stages", action="store_true", help="also time each stage of one tile_slide run")
     ap.add_argument("--callgrind", action="store_true", help="also count instructions under valgrind")
     ap.add_argument("--child", action="store_true", help=argparse.SUPPRESS)
+    ap.add_argument("--cpu", type=int, help=argparse.SUPPRESS)
     args = ap.parse_args(argv)
     if args.child:
+        # pinned before anything starts a thread: every thread of the process inherits the CPU
+        os.sched_setaffinity(0, {args.cpu})
         print(json.dumps(_child(args.rounds, args.stages)))
         return 0
     aims = report(measure(args.rounds, args.stages))
