@@ -255,8 +255,8 @@ def sentinel_stream(data, plan: SentinelPlan) -> bytes | None:
     fill = -nbits % 8
     bits = ((((last >> pad) << plan.nbits) | plan.bits) << fill) | ((1 << fill) - 1)
     tail = bits.to_bytes((nbits + fill) // 8, "big").replace(b"\xff", b"\xff\x00")
-    at = plan.sof_height_at
-    return b"".join((data[:at], plan.ext_height.to_bytes(2, "big"), data[at + 2:cut], tail, b"\xff\xd9"))
+    at, view = plan.sof_height_at, memoryview(data)  # the tile's bytes copied once, by the join
+    return b"".join((view[:at], plan.ext_height.to_bytes(2, "big"), view[at + 2:cut], tail, b"\xff\xd9"))
 
 
 def sentinel_intact(rows: np.ndarray, stripe: int, grey_step: int) -> bool:

@@ -53,7 +53,7 @@ def complete_stream(data, tables) -> bytes:
     """
     if not tables:
         return bytes(data)
-    return b"".join((bytes(tables)[:-2], bytes(data)[2:]))
+    return b"".join((memoryview(tables)[:-2], memoryview(data)[2:]))  # one copy of the tile
 
 
 def colour_signature(stream: bytes) -> tuple | None:

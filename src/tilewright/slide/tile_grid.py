@@ -285,16 +285,16 @@ class GridReader:
         if lv.segment_shape(index) != (lv.tile_h, lv.tile_w):  # a short last strip: probe check
             seg = self._decode(lv, data, index)
             return seg, seg is None or _jpeg_intact(lv, index, data, seg)
-        data, plan, start = bytes(data), None, None  # a memoryview into a row read: the helpers search bytes
+        plan = start = None  # data: bytes, or a memoryview into a row read (the helpers take both)
         if lv.jpeg is not None:
             header = lv.header
             # a stream that starts with a whole header parses as that header (same segments up to
             # its SOS), so one comparison replaces parsing the markers of most tiles
-            if header is not None and data.startswith(header):
+            if header is not None and data[:len(header)] == header:
                 start = len(header)
             else:
                 start = js.header_length(data)
-                header = lv.header = None if start is None else data[:start]
+                header = lv.header = None if start is None else bytes(data[:start])
         if start is not None:
             plan = lv.sentinels.get(header, False)
             if plan is False:
