@@ -69,7 +69,7 @@ def _jpeg(quality, subsampling):
 
 def store_codecs():
     """(label, ChunkCodec, chosen) of the settings ``compression`` offers."""
-    return [('"lz4" (default): Blosc lz4 5, bit shuffle', _store_chain("lz4"), True),
+    return [('"lz4" (default): Blosc lz4 1, bit shuffle', _store_chain("lz4"), True),
             ('"zstd": Blosc zstd 1, bit shuffle', _store_chain("zstd"), True),
             ('"zlib": gzip 5', _store_chain("zlib"), True),
             ('"webp": lossless WebP, quality 0, method 0', _store_chain("webp"), True),
@@ -92,7 +92,7 @@ def blosc_variants():
     import numcodecs
 
     out = []
-    for cname, level in (("zstd", 1), ("zstd", 3), ("zstd", 5), ("lz4", 5)):
+    for cname, level in (("zstd", 1), ("zstd", 3), ("zstd", 5), ("lz4", 1), ("lz4", 5), ("lz4", 9)):
         for shuffle, sname in ((0, "noshuffle"), (2, "bitshuffle")):
             out.append((f"Blosc {cname} {level} {sname}", _numcodec(numcodecs.Blosc(cname=cname, clevel=level,
                                                                                   shuffle=shuffle)), False))

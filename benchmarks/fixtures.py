@@ -78,13 +78,15 @@ def bench_slide(width: int = 24576, height: int = 20480, *, mpp: float = 0.25, s
     """A synthetic H&E slide of ``width x height`` level-0 px, JPEG tiles, SVS pyramid (cached).
 
     ``island_um`` (radius of tissue islands in µm) makes a mostly-glass slide with small islands;
-    by default the islands scale with the slide (about 40 % tissue). ``jpeg_colours="rgb"`` stores
-    the same pixels as RGB JPEG tiles without chroma subsampling (see ``write_pyramid``).
+    by default the islands scale with the slide (about 40 % tissue). ``jpeg_colours="rgb"`` or
+    ``"ycbcr444"`` stores the same pixels as RGB or YCbCr JPEG tiles without chroma subsampling
+    (see ``write_pyramid``).
     """
     from tilewright.demo.pyramid import write_pyramid
 
     ROOT.mkdir(parents=True, exist_ok=True)
-    tag = ("" if island_um is None else f"_i{int(island_um)}") + ("" if jpeg_colours == "ycbcr420" else "_rgb")
+    tag = ("" if island_um is None else f"_i{int(island_um)}") + \
+        {"ycbcr420": "", "rgb": "_rgb", "ycbcr444": "_444"}[jpeg_colours]
     path = ROOT / f"synthetic_{width}x{height}_{mpp}_{seed}_q{quality}_f4{tag}.svs"
     if path.exists():
         return path

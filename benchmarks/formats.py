@@ -24,6 +24,7 @@ from __future__ import annotations
 
 import argparse
 import os
+import shutil
 import subprocess
 import sys
 import threading
@@ -56,15 +57,17 @@ print(json.dumps(counts))
 """
 
 
-def dicom_copy(tiff: Path) -> Path:
-    """The DICOM series of ``tiff``'s tiles (cached in bench-out/ beside it)."""
+def dicom_copy(tiff: Path, photometric: str | None = None) -> Path:
+    """The DICOM series of ``tiff``'s tiles (cached in bench-out/ beside it), labelled
+    ``photometric`` (default: see ``dicom_series_from_tiff``)."""
     from tilewright.demo.dicom_series import dicom_series_from_tiff
 
-    folder = ROOT / f"{tiff.stem}_dicom"
+    folder = ROOT / (f"{tiff.stem}_dicom" + (f"_{photometric}" if photometric else ""))
     if not (folder / "volume_01.dcm").exists():
         tmp = folder.with_name(folder.name + ".tmp")
+        shutil.rmtree(tmp, ignore_errors=True)
         t0 = time.perf_counter()
-        dicom_series_from_tiff(tiff, tmp)
+        dicom_series_from_tiff(tiff, tmp, photometric=photometric)
         os.replace(tmp, folder)
         print(f"# wrote {folder.name} ({sum(f.stat().st_size for f in folder.iterdir()) / 1e6:.0f} MB) "
               f"in {time.perf_counter() - t0:.0f} s", flush=True)

@@ -125,12 +125,53 @@ def _probe_refuses(frame) -> bool:
     return not jpeg_in_sync(frame, dec, imagecodecs.jpeg8_decode)
 
 
-def test_detection_agrees_with_the_probes_and_openslide(tmp_path):
+def _relabelled(folder, files, label):
+    """The series with the photometric label of its levels replaced (converters do this)."""
+    import pydicom
+
+    for path in files if label else ():
+        ds = pydicom.dcmread(path)
+        if "VOLUME" in ds.ImageType:
+            ds.PhotometricInterpretation = label
+            ds.save_as(path)
+    return folder
+
+
+# 4:2:0 streams (strict decode); 4:4:4 streams as YBR_FULL and mislabelled YBR_FULL_422 (sentinel)
+STREAMS = [("YBR_FULL_422", None), ("YBR_FULL", None), ("YBR_FULL", "YBR_FULL_422")]
+
+
+@pytest.mark.parametrize("stored, label", STREAMS)
+def test_intact_padded_frames_need_no_probe_check(tmp_path, monkeypatch, stored, label):
+    """JPEG frames are padded to an even length after their EOI (DICOM PS3.5 A.4: a trailing 00H);
+    the in-decode check must read through the padding, so an intact frame costs one decode: the
+    probe check (two more decodes) is never reached, and the pixels equal a plain decode."""
+    import tilewright.slide.tile_grid as tile_grid
+
+    folder = _relabelled(*_series(tmp_path / "s", photometric=stored), label)
+    offs, cnts, _ = _frames(folder)
+    raw = (folder / "volume_01.dcm").read_bytes()
+    padded = [raw[o:o + n] for o, n in zip(offs.tolist(), cnts.tolist()) if n and raw[o + n - 1] == 0]
+    assert padded and all(f[-3:-1] == b"\xff\xd9" for f in padded)  # the case checked: EOI then one pad byte
+
+    def probes(*_):
+        raise AssertionError("the probe check ran on an intact frame")
+
+    monkeypatch.setattr(tile_grid, "_jpeg_intact", probes)
+    with tw.open(folder) as s:
+        assert s.backend == "dicom"
+        got = s.read_level(0, 0, 0, H, W)
+    with tw.open(folder, verify=False) as s:  # reference: the same frames decoded without any check
+        assert np.array_equal(got, s.read_level(0, 0, 0, H, W))
+
+
+@pytest.mark.parametrize("stored, label", [STREAMS[0], STREAMS[2]])  # OpenSlide opens no JPEG YBR_FULL
+def test_detection_agrees_with_the_probes_and_openslide(tmp_path, stored, label):
     """Seeded byte damage in tissue frames: the frame path refuses what the probe check refuses
     (the strict 4:2:0 decode may miss a desync ending within libjpeg's buffered bytes, ~2 % on the
     tiff path), never an intact stream, and every frame OpenSlide refuses; a refused frame really
     decodes to garbage."""
-    good, _ = _series(tmp_path / "good")
+    good = _relabelled(*_series(tmp_path / "good", photometric=stored), label)
     offs, cnts, gw = _frames(good)
     tissue = np.flatnonzero(cnts > np.median(cnts))
     rng = np.random.default_rng(21)

@@ -11,7 +11,7 @@ import pytest
 import tilewright as tw
 from tilewright.slide.downsample import area_downsample
 
-from .conftest import H0, W0
+from .conftest import H0, W0, make_image
 
 
 @pytest.fixture(scope="module")
@@ -178,3 +178,39 @@ def test_block_size_aligns_with_source_tiles(single_level):
         view = s.at_mpp(0.5)
         b = view.block_size(1000)
         assert (b * 2) % 256 == 0  # ground truth: 256 px stored tiles, factor 2
+
+
+@pytest.mark.parametrize("k", [2, 4])
+def test_tile_by_tile_reduction_equals_cv2_inter_area(write, k):
+    """Whole-factor views reduce each source tile as it is decoded (no level-resolution strip);
+    every box, inside, across the far edges (odd level sizes: those fall back to the strip path)
+    and past them, equals OpenCV INTER_AREA of the level-0 pixels padded with white."""
+    img = make_image(1001, 1290, seed=3)  # odd height: the last block row straddles the level edge
+    path = write(f"odd-{k}.tif", img=img, compression="zlib", n_levels=1, mpp=0.25)
+    pad = np.full((-(-1001 // k) * k + 320, -(-1290 // k) * k + 320, 3), 255, np.uint8)
+    pad[:1001, :1290] = img
+    ref = cv2.resize(pad, (pad.shape[1] // k, pad.shape[0] // k), interpolation=cv2.INTER_AREA)
+    rng = np.random.default_rng(k)
+    with tw.open(path) as s:
+        view = s.at_mpp(0.25 * k)
+        assert view.level_scale == k and s.reduces(0, k, 0, 0, 512, 512)
+        assert not s.reduces(0, k, 0, 0, 1001 + k - 1001 % k, 256 * k)  # crosses the odd edge: strip path
+        boxes = [(0, 0, *view.shape), (view.shape[0] - 3, 5, 7, 40)]
+        boxes += [tuple(int(v) for v in (rng.integers(0, 1001 // k), rng.integers(0, 1290 // k),
+                                         rng.integers(1, 300 // k), rng.integers(1, 300 // k))) for _ in range(12)]
+        for y, x, h, w in boxes:
+            got = view.read(y, x, h, w)
+            np.testing.assert_array_equal(got, ref[y:y + h, x:x + w], err_msg=str((y, x, h, w)))  # reference: cv2
+
+
+def test_reduced_read_refuses_boxes_off_the_factor_grid(write):
+    """A box whose edges are not multiples of the factor has target pixels straddling tiles'
+    blocks: refused (ValueError) rather than averaged over the wrong source pixels."""
+    path = write("odd-2.tif", img=make_image(1001, 1290, seed=3), compression="zlib", n_levels=1, mpp=0.25)
+    with tw.open(path) as s:
+        assert s.reduces(0, 2, 0, 0, 512, 512) and not s.reduces(0, 2, 1, 0, 512, 512)
+        assert not s.reduces(0, 3, 0, 0, 768, 768)  # 256-px tiles are not a multiple of 3
+        with pytest.raises(ValueError):
+            s.read_level(0, 1, 0, 512, 512, factor=2)
+        with pytest.raises(ValueError):
+            s._reader.read(0, 2, 0, 6, 6, np.empty((2, 2, 3), np.uint8), 3)

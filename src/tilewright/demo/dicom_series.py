@@ -279,7 +279,8 @@ def write_dicom_series(folder: str | os.PathLike, levels: Sequence[np.ndarray], 
     return written
 
 
-def dicom_series_from_tiff(tiff_path: str | os.PathLike, folder: str | os.PathLike) -> list[Path]:
+def dicom_series_from_tiff(tiff_path: str | os.PathLike, folder: str | os.PathLike, *,
+                           photometric: str | None = None) -> list[Path]:
     """Store the JPEG tiles of a tiled TIFF pyramid as the frames of a DICOM WSI series, unchanged.
 
     Each tile's JPEG stream (with the page's shared tables spliced in) becomes one frame of a
@@ -293,6 +294,10 @@ def dicom_series_from_tiff(tiff_path: str | os.PathLike, folder: str | os.PathLi
         A tiled JPEG pyramid the tiff backend serves (8-bit YCbCr or RGB JPEG tiles, square tiles).
     folder : str or os.PathLike
         Created if missing; one ``.dcm`` file a level.
+    photometric : str, optional
+        The photometric interpretation written. Default: "RGB" for RGB JPEG tiles, otherwise
+        "YBR_FULL_422" whatever the tiles' chroma sampling (as converters label scanner output;
+        YCbCr 4:4:4 tiles then carry a label that disagrees with their streams).
 
     Returns
     -------
@@ -317,7 +322,7 @@ def dicom_series_from_tiff(tiff_path: str | os.PathLike, folder: str | os.PathLi
             path = folder / f"volume_{number:02d}.dcm"
             _instance((lv.height, lv.width), (lv.tile_h, lv.tile_w), frames, image_type="VOLUME", codec="jpeg",
                       mpp=backend.resolution.mpp * w0 / lv.width, uids=uids, number=number, path=path,
-                      photometric="RGB" if lv.jpeg and lv.jpeg[0] == 2 else "YBR_FULL_422")
+                      photometric=photometric or ("RGB" if lv.jpeg and lv.jpeg[0] == 2 else "YBR_FULL_422"))
             written.append(path)
     finally:
         backend.close()

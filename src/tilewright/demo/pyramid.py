@@ -93,7 +93,7 @@ def write_pyramid(
     tile: int = 256,
     compression: Literal["jpeg", "zlib", "deflate", "lzw", "zstd", "none"] | None = "jpeg",
     quality: int = 90,
-    jpeg_colours: Literal["ycbcr420", "rgb"] = "ycbcr420",
+    jpeg_colours: Literal["ycbcr420", "ycbcr444", "rgb"] = "ycbcr420",
     n_levels: int | None = None,
     min_size: int = 512,
     factor: int = 2,
@@ -124,9 +124,10 @@ def write_pyramid(
         TIFF compression of the tiles; ``"none"``/None for uncompressed.
     quality : int
         JPEG quality.
-    jpeg_colours : {"ycbcr420", "rgb"}
+    jpeg_colours : {"ycbcr420", "ycbcr444", "rgb"}
         How JPEG tiles store colour: YCbCr with 2x2 chroma subsampling (tifffile's default and
-        the most common scanner output), or RGB without subsampling (as some scanners write).
+        the most common scanner output), YCbCr without subsampling, or RGB without subsampling
+        (as some scanners write).
     n_levels : int, optional
         Number of levels; default: reduce until the longer side is at most ``min_size``.
     min_size : int
@@ -186,12 +187,11 @@ def write_pyramid(
     comp = None if compression in (None, "none") else compression
     if comp == "zlib":
         comp = "deflate"
-    if jpeg_colours not in ("ycbcr420", "rgb"):
-        raise ValueError(f"jpeg_colours must be 'ycbcr420' or 'rgb', got {jpeg_colours!r}")
+    if jpeg_colours not in ("ycbcr420", "ycbcr444", "rgb"):
+        raise ValueError(f"jpeg_colours must be 'ycbcr420', 'ycbcr444' or 'rgb', got {jpeg_colours!r}")
     compressionargs = None
     if comp == "jpeg":
-        compressionargs = {"level": quality} if jpeg_colours == "ycbcr420" else {"level": quality,
-                                                                                 "outcolorspace": "rgb"}
+        compressionargs = {"level": quality} if jpeg_colours != "rgb" else {"level": quality, "outcolorspace": "rgb"}
     rows = strip_rows or tile
     rows = max(tile, rows - rows % tile)
     if rows % factor:
@@ -232,6 +232,8 @@ def write_pyramid(
         compressionargs=compressionargs,
         dtype=np.uint8,
     )
+    if comp == "jpeg" and jpeg_colours == "ycbcr444":
+        common["subsampling"] = (1, 1)
 
     def level_data(k):
         if k == 0:

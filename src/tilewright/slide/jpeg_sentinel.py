@@ -236,6 +236,8 @@ def sentinel_stream(data, plan: SentinelPlan) -> bytes | None:
         None when the stream does not end with its entropy-coded data and EOI.
     """
     end = len(data) - 2
+    if end >= 5 and data[end + 1] in (0x00, 0xFF) and data[end - 1] == 0xFF and data[end] == 0xD9:
+        end -= 1  # one byte padding the stream to an even length (DICOM fragments, PS3.5 A.4)
     if end < 4 or data[end] != 0xFF or data[end + 1] != 0xD9:
         return None
     last = data[end - 1]
@@ -253,8 +255,8 @@ def sentinel_stream(data, plan: SentinelPlan) -> bytes | None:
     fill = -nbits % 8
     bits = ((((last >> pad) << plan.nbits) | plan.bits) << fill) | ((1 << fill) - 1)
     tail = bits.to_bytes((nbits + fill) // 8, "big").replace(b"\xff", b"\xff\x00")
-    at = plan.sof_height_at
-    return b"".join((data[:at], plan.ext_height.to_bytes(2, "big"), data[at + 2:cut], tail, b"\xff\xd9"))
+    at, view = plan.sof_height_at, memoryview(data)  # the tile's bytes copied once, by the join
+    return b"".join((view[:at], plan.ext_height.to_bytes(2, "big"), view[at + 2:cut], tail, b"\xff\xd9"))
 
 
 def sentinel_intact(rows: np.ndarray, stripe: int, grey_step: int) -> bool:

@@ -32,7 +32,7 @@ import numpy as np
 
 from tilewright.slide.jpeg_sentinel import marker_segments
 
-__all__ = ["available", "colour_signature", "complete_stream", "decode_strict"]
+__all__ = ["agrees", "available", "colour_signature", "complete_stream", "decode_strict"]
 
 try:  # an install without it falls back to the slower checks of the tiff backend
     import simplejpeg as _simplejpeg
@@ -53,7 +53,7 @@ def complete_stream(data, tables) -> bytes:
     """
     if not tables:
         return bytes(data)
-    return b"".join((bytes(tables)[:-2], bytes(data)[2:]))
+    return b"".join((memoryview(tables)[:-2], memoryview(data)[2:]))  # one copy of the tile
 
 
 def colour_signature(stream: bytes) -> tuple | None:
@@ -105,3 +105,50 @@ def decode_strict(stream: bytes, out: np.ndarray) -> np.ndarray | None:
     if img.shape != out.shape:
         return None
     return img
+
+
+def agrees(cache: dict, stream: bytes, header: bytes | None, shape, plain, limit: int = 1024) -> bool:
+    """Whether strict decodes of streams with ``stream``'s colour signature equal the reader's own.
+
+    libjpeg infers the colour space from markers the reader may interpret otherwise (see the
+    module notes), so the first tile of each :func:`colour_signature` that decodes cleanly is
+    decoded both ways and compared; the verdict is kept in ``cache`` under the signature and under
+    the tile's ``header`` bytes (tiles sharing a header then skip parsing it; the cache is emptied
+    when it holds ``limit`` entries, for levels whose tiles each carry their own tables).
+
+    Parameters
+    ----------
+    cache : dict
+        The level's verdicts.
+    stream : bytes
+        The tile's interchange stream (:func:`complete_stream`).
+    header : bytes or None
+        The tile's header bytes, when known.
+    shape : (int, int)
+        The tile's (height, width).
+    plain : callable
+        ``plain()`` returns the reader's own decode of the tile (or None).
+
+    Returns
+    -------
+    bool
+        False also while undecided (the tile may be damaged: the next clean tile decides).
+    """
+    ok = cache.get(header) if header is not None else None
+    if ok is not None:
+        return ok
+    sig = colour_signature(stream)
+    if sig is None:
+        return False
+    ok = cache.get(sig)
+    if ok is None:
+        got = decode_strict(stream, np.empty((*shape, 3), np.uint8))
+        if got is None:
+            return False
+        want = plain()
+        ok = cache[sig] = want is not None and np.array_equal(want, got)
+    if header is not None:
+        if len(cache) >= limit:
+            cache.clear()
+        cache[header] = ok
+    return ok

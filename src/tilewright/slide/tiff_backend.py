@@ -154,10 +154,15 @@ class TiffBackend(GridReader):
         return levels, pyramid.resolution, flavour, pyramid.associated, icc
 
     # -- pixels ------------------------------------------------------------------------
-    def read(self, level: int, y: int, x: int, h: int, w: int, out: np.ndarray) -> None:
+    def reduces(self, level: int, factor: int) -> bool:
+        """See :meth:`GridReader.reduces`; never for uncompressed strips (read row by row)."""
+        return not self._levels[level].raw_rows and super().reduces(level, factor)
+
+    def read(self, level: int, y: int, x: int, h: int, w: int, out: np.ndarray, factor: int = 1) -> None:
         """Decode the region ``[y, y+h) x [x, x+w)`` of a level into ``out`` (h, w, 3).
 
         The region must lie inside the level. Only the tiles (or strip rows) it touches are read.
+        ``factor``: see :meth:`GridReader.read`.
 
         Raises
         ------
@@ -165,7 +170,7 @@ class TiffBackend(GridReader):
             A tile cannot be read or decoded (names the file, level and region).
         """
         lv = self._levels[level]
-        if lv.raw_rows and self._fd is not None:
+        if lv.raw_rows and self._fd is not None and factor == 1:
             read_rows(self._pread, lv, level, (y, x, h, w), out, self.path)
             return
-        super().read(level, y, x, h, w, out)
+        super().read(level, y, x, h, w, out, factor)

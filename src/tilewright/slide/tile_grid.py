@@ -23,8 +23,10 @@ import threading
 import numpy as np
 
 from tilewright.errors import DamagedSlideError
+from tilewright.slide import jpeg_sentinel as js
 from tilewright.slide import jpeg_strict as _strict
 from tilewright.slide.grid_fetch import RowFetch
+from tilewright.slide.tile_pixels import offset_tile_buffer, reduce_into
 
 __all__ = ["GridLevel", "GridReader"]
 
@@ -64,7 +66,7 @@ class GridLevel:
     """
 
     __slots__ = ("height", "width", "tile_h", "tile_w", "grid_w", "offsets", "counts", "jpegtables", "is_jpeg",
-                 "jpeg", "sentinels", "strict", "stripped", "convert", "unwrap", "file", "fd")
+                 "jpeg", "sentinels", "strict", "stripped", "convert", "unwrap", "file", "fd", "header")
 
     def __init__(self, height, width, tile_h, tile_w, offsets, counts, *, jpegtables=None, is_jpeg=False,
                  jpeg=None, convert=None, stripped=False, unwrap=None, file=None):
@@ -77,6 +79,7 @@ class GridLevel:
         self.file, self.fd = file, None  # fd: set when the reader opens its files
         self.sentinels = {}  # JPEG header bytes -> SentinelPlan or None (see jpeg_sentinel)
         self.strict = {}  # colour signature or header bytes -> strict decode equals this level's (jpeg_strict)
+        self.header = None  # the last tile's JPEG header (tiles of a level mostly share one)
 
     @property
     def grid_h(self) -> int:
@@ -173,11 +176,25 @@ class GridReader(RowFetch):
         at the end of the file): one positional read, or one range request for a URL."""
         return (self._fd if fd is None else fd).pread(n, offset)
 
-    def read(self, level: int, y: int, x: int, h: int, w: int, out: np.ndarray) -> None:
+    def reduces(self, level: int, factor: int) -> bool:
+        """Whether :meth:`read` can area-average this level ``factor``-fold tile by tile: the
+        stored segments are whole multiples of ``factor`` in both axes, so no target pixel
+        straddles two of them."""
+        lv = self._levels[level]
+        return factor > 1 and lv.tile_h % factor == 0 and lv.tile_w % factor == 0
+
+    def read(self, level: int, y: int, x: int, h: int, w: int, out: np.ndarray, factor: int = 1) -> None:
         """Decode the region ``[y, y+h) x [x, x+w)`` of a level into ``out`` (h, w, 3).
 
         The region must lie inside the level. Only the tiles it touches are read; tiles never
         stored are glass (white).
+
+        With ``factor`` k > 1 (where :meth:`reduces`; ``y, x, h, w`` multiples of k) ``out`` is
+        (h / k, w / k, 3) and receives the k x k block means of the region (OpenCV ``INTER_AREA``
+        at a whole factor: each target pixel the rounded mean of its block), each tile reduced
+        straight after its decode, while it is still in cache, into its place in ``out``: no
+        level-resolution copy of the region is made. The pixels equal those of reducing a
+        full-resolution read, since every block lies inside one tile.
 
         Raises
         ------
@@ -188,6 +205,9 @@ class GridReader(RowFetch):
             raise ValueError("the slide is closed")
         lv = self._levels[level]
         th, tw = lv.tile_h, lv.tile_w
+        f = int(factor)
+        if f > 1 and not (self.reduces(level, f) and y % f == x % f == h % f == w % f == 0):
+            raise ValueError(f"cannot reduce {(y, x, h, w)} of level {level} {f}-fold tile by tile")
         r0, r1 = y // th, (y + h - 1) // th
         c0, c1 = x // tw, (x + w - 1) // tw
         fetched = self._fetch_rows(lv, r0, r1, c0, c1)
@@ -200,7 +220,7 @@ class GridReader(RowFetch):
                 c = c0 + k
                 tx = c * tw
                 xa, xb = max(x, tx), min(x + w, tx + tw)
-                dst = out[ya - y : yb - y, xa - x : xb - x]
+                dst = out[(ya - y) // f : (yb - y) // f, (xa - x) // f : (xb - x) // f]
                 if not data:
                     dst[...] = 255  # a tile never stored: background
                     continue
@@ -225,8 +245,10 @@ class GridReader(RowFetch):
                         "the file is damaged, copy the slide again", self.path)
                 if seg is None:
                     dst[...] = 255
-                    continue
-                dst[...] = seg[ya - ty : yb - ty, xa - tx : xb - tx, :3]
+                elif f == 1:
+                    dst[...] = seg[ya - ty : yb - ty, xa - tx : xb - tx, :3]
+                else:
+                    reduce_into(seg[ya - ty : yb - ty, xa - tx : xb - tx, :3], dst)
 
     def _decode(self, lv: GridLevel, data, index: int) -> np.ndarray | None:
         """One tile as RGB(+) pixels (a per-thread buffer on the direct JPEG path)."""
@@ -241,29 +263,6 @@ class GridReader(RowFetch):
             return None
         return seg if lv.convert is None else lv.convert(seg)
 
-    def _strict_agrees(self, lv: GridLevel, stream: bytes, data, index: int, header: bytes | None = None) -> bool:
-        """Whether strict decodes of streams with this one's colour signature equal the level's
-        decode (checked on the first such tile that decodes cleanly; see jpeg_strict). The answer
-        is also kept under the tile's ``header`` bytes, so tiles sharing a header skip parsing."""
-        ok = lv.strict.get(header) if header is not None else None
-        if ok is not None:
-            return ok
-        sig = _strict.colour_signature(stream)
-        if sig is None:
-            return False
-        ok = lv.strict.get(sig)
-        if ok is None:
-            got = _strict.decode_strict(stream, np.empty((lv.tile_h, lv.tile_w, 3), np.uint8))
-            if got is None:
-                return False  # undecided (this tile may be damaged): the next clean tile decides
-            want = self._decode(lv, data, index)
-            ok = lv.strict[sig] = want is not None and np.array_equal(want, got)
-        if header is not None:
-            if len(lv.strict) >= _HEADER_CACHE:
-                lv.strict.clear()
-            lv.strict[header] = ok
-        return ok
-
     def _decode_verified(self, lv: GridLevel, data, index: int):
         """One JPEG tile and whether its entropy-coded stream is intact.
 
@@ -275,15 +274,20 @@ class GridReader(RowFetch):
         decode whose sentinel-extended stream is checked at 1/8 scale. Whatever fails is settled
         by the probe check (jpeg_check), so a refusal is never a false alarm.
         """
-        from tilewright.slide import jpeg_sentinel as js
-
         if lv.segment_shape(index) != (lv.tile_h, lv.tile_w):  # a short last strip: probe check
             seg = self._decode(lv, data, index)
             return seg, seg is None or _jpeg_intact(lv, index, data, seg)
-        data, plan = bytes(data), None  # a memoryview into a row read: the helpers search bytes
-        start = js.header_length(data) if lv.jpeg is not None else None
+        plan = start = None  # data: bytes, or a memoryview into a row read (the helpers take both)
+        if lv.jpeg is not None:
+            header = lv.header
+            # a stream that starts with a whole header parses as that header (same segments up to
+            # its SOS), so one comparison replaces parsing the markers of most tiles
+            if header is not None and data[:len(header)] == header:
+                start = len(header)
+            else:
+                start = js.header_length(data)
+                header = lv.header = None if start is None else bytes(data[:start])
         if start is not None:
-            header = data[:start]
             plan = lv.sentinels.get(header, False)
             if plan is False:
                 if len(lv.sentinels) >= _HEADER_CACHE:  # headers differ tile by tile (own tables)
@@ -299,7 +303,8 @@ class GridReader(RowFetch):
                 return seg, True
         elif lv.jpeg is not None and _strict.available():
             stream = _strict.complete_stream(data, lv.jpegtables)
-            if self._strict_agrees(lv, stream, data, index, None if start is None else header):
+            if _strict.agrees(lv.strict, stream, None if start is None else header, (lv.tile_h, lv.tile_w),
+                              lambda: self._decode(lv, data, index), _HEADER_CACHE):
                 seg = _strict.decode_strict(stream, self._scratch_tile((lv.tile_h, lv.tile_w)))
                 if seg is not None:
                     return seg, True
@@ -310,11 +315,11 @@ class GridReader(RowFetch):
         return seg, seg is None or _jpeg_intact(lv, index, data, seg)
 
     def _scratch_tile(self, key) -> np.ndarray:
-        """This thread's (h, w, 3) decode buffer of that size (see :func:`_offset_tile_buffer`)."""
+        """This thread's (h, w, 3) decode buffer of that size (see :func:`offset_tile_buffer`)."""
         tiles = getattr(self._scratch, "tiles", {})
         buf = tiles.get(key)
         if buf is None:
-            buf = _offset_tile_buffer(key)
+            buf = offset_tile_buffer(key)
             self._scratch.tiles = {**tiles, key: buf}
         return buf
 
@@ -365,20 +370,6 @@ class GridReader(RowFetch):
         fds, self._fds, self._fd = getattr(self, "_fds", []), [], None
         for src in fds:
             src.close()
-
-
-def _offset_tile_buffer(shape) -> np.ndarray:
-    """An empty (h, w, 3) uint8 tile buffer whose start is 16 bytes off a 32-byte boundary.
-
-    libjpeg-turbo's SIMD colour conversion writes 32-byte-aligned output with non-temporal
-    stores, which bypass the cache: decoding a tile into an aligned buffer measured about 30 %
-    slower than into one 16 bytes off alignment (``benchmarks/jpeg_verify.py`` decodes into
-    these buffers on both paths, so its comparison does not depend on where malloc put them).
-    """
-    n = shape[0] * shape[1] * 3
-    raw = np.empty(n + 48, np.uint8)
-    start = (16 - raw.ctypes.data) % 32
-    return raw[start:start + n].reshape(shape[0], shape[1], 3)
 
 
 def _jpeg_intact(lv: GridLevel, index: int, data, seg) -> bool:

@@ -118,6 +118,10 @@ class ResampledView:
         if h == 0 or w == 0:
             return out
         k = integer_factor(s)
+        if k and self.slide.reduces(level, k, y * k, x * k, h * k, w * k):
+            # each source tile is reduced as it is decoded: no source strip is made at all
+            self.slide.read_level(level, y * k, x * k, h * k, w * k, out=out, raw=True, factor=k)
+            return self.slide.to_srgb(out)
         limit = _STEP_SOURCE_PX if k else _STEP_SOURCE_PX_FRACTIONAL
         # Work in strips of view rows whose source rows start on stored tile rows: the
         # decoded strip stays in cache while it is resampled (and each tile is decoded once).

@@ -141,7 +141,7 @@ class WholeSlide:
         return self._reader.tile_shape(level)
 
     def read_level(self, level: int, y: int, x: int, h: int, w: int,
-                   out: np.ndarray | None = None, *, raw: bool = False) -> np.ndarray:
+                   out: np.ndarray | None = None, *, raw: bool = False, factor: int = 1) -> np.ndarray:
         """Pixels ``[y, y+h) x [x, x+w)`` of one level, white outside the level.
 
         Parameters
@@ -151,15 +151,20 @@ class WholeSlide:
         y, x, h, w : int
             Box in that level's pixels; may extend past the edges.
         out : ndarray, optional
-            uint8 (h, w, 3) array to fill (may be a view).
+            uint8 (h, w, 3) array to fill (may be a view); (h / factor, w / factor, 3) with
+            ``factor``.
         raw : bool
             Return the file's device RGB even when its profile is applied (views average these
             and convert their output with :meth:`to_srgb`).
+        factor : int
+            Return the ``factor x factor`` block means of the box instead, computed tile by
+            tile by the backend as it decodes (only where :meth:`reduces` says so; views use
+            it for whole-factor downsampling).
 
         Returns
         -------
         ndarray
-            uint8 (h, w, 3).
+            uint8 (h, w, 3), or (h / factor, w / factor, 3).
 
         Raises
         ------
@@ -171,17 +176,24 @@ class WholeSlide:
         y, x, h, w = int(y), int(x), int(h), int(w)
         if h < 0 or w < 0:
             raise ValueError("h and w must be >= 0")
+        k = int(factor)
+        if k != 1 and not self.reduces(level, k, y, x, h, w):
+            raise ValueError(f"level {level} cannot be read {k}-fold reduced at {(y, x, h, w)}")
         lh, lw = self.levels[level].height, self.levels[level].width
         ya, yb = max(y, 0), min(y + h, lh)
         xa, xb = max(x, 0), min(x + w, lw)
         inside = ya == y and xa == x and yb == y + h and xb == x + w
+        shape = (h // k, w // k, 3)
         if out is None:
-            out = np.empty((h, w, 3), np.uint8) if inside else np.full((h, w, 3), 255, np.uint8)
+            out = np.empty(shape, np.uint8) if inside else np.full(shape, 255, np.uint8)
         elif not inside:
             out[...] = 255
         if ya < yb and xa < xb:
-            self._reader.read(level, ya, xa, yb - ya, xb - xa,
-                              out[ya - y : yb - y, xa - x : xb - x])
+            dst = out[(ya - y) // k : (yb - y) // k, (xa - x) // k : (xb - x) // k]
+            if k == 1:
+                self._reader.read(level, ya, xa, yb - ya, xb - xa, dst)
+            else:
+                self._reader.read(level, ya, xa, yb - ya, xb - xa, dst, k)
         return out if raw else self.to_srgb(out)
 
     def prefetch(self, level: int, y: int, x: int, h: int, w: int) -> None:
@@ -190,6 +202,18 @@ class WholeSlide:
         prefetch = getattr(self._reader, "prefetch", None)
         if prefetch is not None and not self._closed:
             prefetch(level, int(y), int(x), int(h), int(w))
+
+    def reduces(self, level: int, factor: int, y: int, x: int, h: int, w: int) -> bool:
+        """Whether :meth:`read_level` can return the ``factor``-fold block means of this box:
+        the backend reduces tiles of the level (:meth:`GridReader.reduces`) and the box and its
+        part inside the level start and end on multiples of ``factor``."""
+        k = int(factor)
+        reduces = getattr(self._reader, "reduces", None)
+        if k < 2 or reduces is None or not reduces(level, k):
+            return False
+        lh, lw = self.levels[level].height, self.levels[level].width
+        edges = (y, x, h, w, max(y, 0), max(x, 0), min(y + h, lh), min(x + w, lw))
+        return all(int(v) % k == 0 for v in edges)
 
     def to_srgb(self, rgb: np.ndarray) -> np.ndarray:
         """Convert device RGB read with ``raw=True`` to what reads return, in place.

@@ -21,8 +21,10 @@ from .density import LN10, WHITE, check_glass, check_rgb, glass_od_lut, od_lut
 
 __all__ = ["apply_od_affine", "BLOCK_PIXELS"]
 
-#: Pixels per block (keeps float32 temporaries around 3 MB, inside the CPU cache hierarchy).
-BLOCK_PIXELS = 1 << 18
+#: Pixels per block: one 256-px tile; the two float32 temporaries (0.8 MB each) stay in the
+#: core's own cache. Blocks four times larger ran the tile pipeline's Macenko transform about a
+#: third slower (97 against 143 ms of CPU for 628 tiles, ``benchmarks/run_all.py`` slide).
+BLOCK_PIXELS = 1 << 16
 
 
 def apply_od_affine(rgb, matrix, offset=None, *, out=None, glass=None) -> np.ndarray:
