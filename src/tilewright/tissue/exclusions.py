@@ -74,7 +74,7 @@ def _split(classes, rgb, tables, mpp, stroke_kw, noise_od):
 
 def _fit_exclusions(classes, glassy, rgb, tables, mpp, stroke_kw, noise_od):
     """Pass 1 (against the prior plane, which may not be the slide's): the pixels left out of the
-    plane fit. Grey pixels, strokes, red cells (granular cores: blood should not pull the plane)
+    plane fit, and the share of the stained area re-read as tissue (0 when none). Grey pixels, strokes, red cells (granular cores: blood should not pull the plane)
     and compact off-plane pieces lying on glass (marker dots). But when what is off the prior
     plane and not a stroke is most of the stained area, the prior is not this slide's plane: that
     is its tissue (textured, and granular for all we know), and only grey pixels and strokes are
@@ -85,10 +85,10 @@ def _fit_exclusions(classes, glassy, rgb, tables, mpp, stroke_kw, noise_od):
     # strokes with their blurred rims: mixtures of ink and tissue lie off every plane
     rims = cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (5, 5))
     sure = grey | cv2.dilate((coloured.strokes | reddish.strokes).view(np.uint8), rims).view(bool)
-    off = coloured.compact | reddish.compact | reddish.grains
-    if off.sum() >= REREAD_SHARE * max(1, int((~(glassy | sure)).sum())):
-        return sure
-    return sure | reddish.grains | lying_on_glass(coloured.compact | reddish.compact, glassy | sure)
+    share = float((coloured.compact | reddish.compact | reddish.grains).sum()) / max(1, int((~(glassy | sure)).sum()))
+    if share >= REREAD_SHARE:
+        return sure, share
+    return sure | reddish.grains | lying_on_glass(coloured.compact | reddish.compact, glassy | sure), 0.0
 
 
 def _resolve(classes, glassy, rgb, tables, mpp, stroke_kw, noise_od, normal, sigma_px):
@@ -160,7 +160,7 @@ def find_exclusions(rgb, glass, sigma_px: float, mpp: float, glassy, *, exclude_
         return SimpleNamespace(ink=np.zeros((h, w), bool), dark=dark, blood=np.zeros((h, w), bool), plane=None,
                                reread=0.0)
     # the plane is fitted to sampled pixels that are neither stroke-shaped ink nor glass nor dark
-    left_out = _fit_exclusions(classes, glassy, rgb, tables, mpp, stroke_kw, noise_od)
+    left_out, reread = _fit_exclusions(classes, glassy, rgb, tables, mpp, stroke_kw, noise_od)
     usable = ~(left_out | glassy | dark).reshape(-1)[::step][:at]
     del left_out
     plane = fit_hne_plane(sample[:at][usable])
@@ -174,11 +174,10 @@ def find_exclusions(rgb, glass, sigma_px: float, mpp: float, glassy, *, exclude_
                                        sigma_px)
     del classes
     stained = int((~(glassy | sure)).sum())  # the stained area that is not ink by shape or greyness
-    reread = float(blobs.sum()) / max(1, stained)
-    if reread >= REREAD_SHARE:  # "ink" over most of the coloured area: the stain, not ink
+    share = float(blobs.sum()) / max(1, stained)
+    if share >= REREAD_SHARE:  # "ink" over most of the stained area: the stain, not ink
         ink &= ~blobs
-    else:
-        reread = 0.0
+        reread = max(reread, share)
     return SimpleNamespace(ink=ink, dark=dark, blood=blood, plane=plane, reread=reread)
 
 

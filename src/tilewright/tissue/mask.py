@@ -363,9 +363,10 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-noise", sensitivit
         warnings.append(f"plane-fallback: implausible H&E plane fit ({plane.reason}); the Ruifrok & "
                         "Johnston plane was used for ink")
     if found.reread:
-        warnings.append(f"unusual-stain: {found.reread:.0%} of the stained area lies off the H&E plane in "
-                        "compact pieces that would have been taken for marker ink; read as tissue of an "
-                        "unusual colour (a phloxine-rich eosin or a scanner's colour?): check the QC picture")
+        tilt = f", the H&E plane refitted {plane.tilt_deg:.0f} degrees off it" if plane is not None and plane.fitted else ""
+        warnings.append(f"unusual-stain: {found.reread:.0%} of the stained area lies off the Ruifrok & Johnston H&E "
+                        f"plane where marker ink would (not in strokes); read as tissue of an unusual colour{tilt} "
+                        "(a phloxine-rich eosin, or a scanner's colour?): check the QC picture")
     ink_share = float((ink & covered).sum()) / max(1, int(covered.sum()))
     if ink_share > HIGH_INK_FRACTION:
         warnings.append(f"high-ink: marker ink covers {ink_share:.0%} of the tissue and ink")
