@@ -27,14 +27,14 @@ from hard_slides import H_RJ, Area, HardSlide, Piece
 MAGENTA_EOSIN = np.array([0.24, 0.87, 0.43]) / np.linalg.norm([0.24, 0.87, 0.43])
 
 
-def haemorrhage(height=2000.0, width=2600.0, seed=31) -> HardSlide:
+def haemorrhage(height=1600.0, width=2000.0, seed=31) -> HardSlide:
     """One piece; a cap of packed red cells beyond a chord, about 40 % of it, on its right."""
     piece = Piece(height / 2, width / 2, 0.36 * height, 0.36 * width, 0.0, 0.05)
     cap = Area("blood", height / 2, width / 2 + 0.55 * width, 0.6 * height, 0.52 * width)
     return HardSlide("haemorrhage", height, width, (piece,), areas=(cap,), blood_od=1.4, seed=seed)
 
 
-def faint(height=2000.0, width=2600.0, seed=32) -> HardSlide:
+def faint(height=1600.0, width=2000.0, seed=32) -> HardSlide:
     """Light-eosin tissue over nine tenths of the slide, mean about (227, 209, 231) on glass
     (232, 230, 235).
 
@@ -47,7 +47,7 @@ def faint(height=2000.0, width=2600.0, seed=32) -> HardSlide:
                      noise=2.5, seed=seed)
 
 
-def magenta(height=2000.0, width=2600.0, seed=33) -> HardSlide:
+def magenta(height=1600.0, width=2000.0, seed=33) -> HardSlide:
     """Two pieces of flat magenta tissue, mean about (190, 110, 170) on white glass."""
     pieces = (Piece(0.55 * height, 0.62 * width, 0.33 * height, 0.3 * width, 0.4, 0.05),
               Piece(0.3 * height, 0.2 * width, 0.2 * height, 0.14 * width, 0.0, 0.08))

@@ -20,11 +20,12 @@ ARTEFACTS = Path(os.environ.get("TILEWRIGHT_ARTEFACTS", Path(__file__).parents[2
 KEPT, ON_INK, BLOOD, FAINT, SHARE = 0.9, 0.05, 0.9, 0.8, 0.95
 
 
-def score(mask, truth) -> dict:
+def score(mask, truth, spare=None) -> dict:
     """Per-draw figures: kept share of ink-free tissue, share of the mask on ink, kept blood and
-    faint tissue (NaN when the slide has none)."""
+    faint tissue (NaN when the slide has none). ``spare``: tissue no aim asks for (fainter than
+    0.03 OD above glass), left out of every figure but the share on ink."""
     m, ink = mask.array, truth["ink"]
-    free = truth["tissue"] & ~ink
+    free = truth["tissue"] & ~ink & (True if spare is None else ~spare)
     out = {"kept": float(m[free].mean()) if free.any() else float("nan"),
            "on_ink": float((m & ink).sum()) / max(1, int(m.sum()))}
     for key in ("blood", "faint"):
