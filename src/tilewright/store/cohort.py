@@ -118,7 +118,7 @@ class Cohort:
         self.stores = {}
         for sid, status in zip(self.manifest["slide_id"], self.manifest["status"]):
             p = store_path(self.path, str(sid))
-            if status != "skipped" and is_complete(p):
+            if status not in ("skipped", "all-ink") and is_complete(p):  # stores holding tiles
                 self.stores[str(sid)] = TileStore(p)
 
     @property

@@ -25,8 +25,11 @@ from .raster import box_fractions, summed_area_table
 __all__ = ["TissueMask", "tissue_mask", "tissue_feature", "METHODS"]
 
 
-#: Warnings: ink over this fraction of (tissue + ink); less tissue than this area (mm²).
+#: Warnings: marker ink (``high-ink``) or the dark-region filter (``dark-removed``) removed more
+#: than this share of what the density threshold found (tissue, and ink lying on glass); less
+#: tissue than this area (mm²).
 HIGH_INK_FRACTION = 0.25
+HIGH_DARK_FRACTION = 0.25
 LITTLE_TISSUE_MM2 = 1.0
 
 
@@ -284,8 +287,11 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-noise", sensitivit
     Returns
     -------
     TissueMask
-        With ``warnings`` (short codes with a reason): ``no-glass``, ``high-ink``,
-        ``little-tissue``, ``plane-fallback``.
+        With ``warnings`` (short codes with a reason): ``no-glass``, ``high-ink`` and
+        ``dark-removed`` (the filters removed more than :data:`HIGH_INK_FRACTION` and
+        :data:`HIGH_DARK_FRACTION` of what was found), ``unusual-stain`` (tissue off the H&E
+        plane read as tissue, not ink), ``little-tissue``, ``plane-fallback``; ``params`` hold
+        ``ink_share``, ``dark_share`` and ``removed_share`` (their sum).
 
     Raises
     ------
@@ -353,7 +359,7 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-noise", sensitivit
     ink, dark = found.ink, found.dark
     if exclude_ink:
         ink = morph(ink, "dilate", px(ink_margin_um, mpp))
-    covered = tissue | ink
+    covered = tissue | ink  # what the density threshold found, and ink beyond it
     tissue = drop_small(tissue & ~ink & ~dark, min_component_um2 / area)
     # the pieces are decided at the detection threshold; only then are their edges placed
     tissue = _edges_at_half_step(feature, tissue, smooth_um / mpp, glassy)
@@ -367,9 +373,15 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-noise", sensitivit
         warnings.append(f"unusual-stain: {found.reread:.0%} of the stained area lies off the Ruifrok & Johnston H&E "
                         f"plane where marker ink would (not in strokes); read as tissue of an unusual colour{tilt} "
                         "(a phloxine-rich eosin, or a scanner's colour?): check the QC picture")
-    ink_share = float((ink & covered).sum()) / max(1, int(covered.sum()))
+    n_covered = max(1, int(covered.sum()))
+    ink_share = float((ink & covered).sum()) / n_covered
+    dark_share = float((dark & covered & ~ink).sum()) / n_covered
     if ink_share > HIGH_INK_FRACTION:
-        warnings.append(f"high-ink: marker ink covers {ink_share:.0%} of the tissue and ink")
+        warnings.append(f"high-ink: marker ink removed {ink_share:.0%} of what was found on the slide (tissue, "
+                        "and ink on glass): check the QC picture")
+    if dark_share > HIGH_DARK_FRACTION:
+        warnings.append(f"dark-removed: the dark-region filter (mean OD over {dark_od:g}) removed {dark_share:.0%} "
+                        "of the tissue found: check the QC picture, or raise --dark-od")
     tissue_mm2 = float(tissue.sum()) * area / 1e6
     if tissue_mm2 < LITTLE_TISSUE_MM2:
         warnings.append(f"little-tissue: only {tissue_mm2:.2f} mm² of tissue found")
@@ -386,5 +398,6 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-noise", sensitivit
               "blood_fraction": float((found.blood & tissue).sum()) / max(1, int(tissue.sum())),
               "hne_plane_normal": None if plane is None else [float(v) for v in plane.normal],
               "hne_plane_fitted": None if plane is None else bool(plane.fitted),
-              "ink_share": ink_share, "tissue_mm2": tissue_mm2}
+              "ink_share": ink_share, "dark_share": dark_share, "removed_share": ink_share + dark_share,
+              "reread_share": float(found.reread), "tissue_mm2": tissue_mm2}
     return TissueMask(tissue, mpp, ink=ink, dark=dark, threshold=threshold, params=params, warnings=warnings)
