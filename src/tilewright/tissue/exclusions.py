@@ -24,7 +24,7 @@ import numpy as np
 
 from . import ink as _ink
 from .density import od_lookup, od_tables
-from .pieces import ink_over_cells, lying_on_glass, split_pieces
+from .pieces import GrainMap, ink_over_cells, lying_on_glass, split_pieces
 from .plane import RUIFROK_PLANE_NORMAL, PlaneFit, fit_hne_plane
 
 __all__ = ["find_exclusions", "BAND_ROWS"]
@@ -63,16 +63,16 @@ def _open(mask: np.ndarray, radius: int) -> np.ndarray:
     return cv2.morphologyEx(mask.view(np.uint8), cv2.MORPH_OPEN, kernel).view(bool)
 
 
-def _split(classes, rgb, tables, mpp, stroke_kw, noise_od):
+def _split(classes, mpp, stroke_kw, grains_of):
     """Grey pixels and the :class:`~.pieces.OffPlane` split of the coloured and reddish classes
     (granular cores only for the reddish class: red cells are never blue or green)."""
     grey = _open(classes == _ink.GREY, 1)
-    coloured = split_pieces(_open(classes == _ink.COLOURED, 1), rgb, tables, mpp, grain=False, **stroke_kw)
-    reddish = split_pieces(_open(classes == _ink.REDDISH, 1), rgb, tables, mpp, noise_od=noise_od, **stroke_kw)
+    coloured = split_pieces(_open(classes == _ink.COLOURED, 1), mpp, **stroke_kw)
+    reddish = split_pieces(_open(classes == _ink.REDDISH, 1), mpp, grains_of=grains_of, **stroke_kw)
     return grey, coloured, reddish
 
 
-def _fit_exclusions(classes, glassy, rgb, tables, mpp, stroke_kw, noise_od):
+def _fit_exclusions(split, glassy):
     """Pass 1 (against the prior plane, which may not be the slide's): the pixels left out of the
     plane fit, and the share of the stained area re-read as tissue (0 when none). Grey pixels, strokes, red cells (granular cores: blood should not pull the plane)
     and compact off-plane pieces lying on glass (marker dots). But when what is off the prior
@@ -81,7 +81,7 @@ def _fit_exclusions(classes, glassy, rgb, tables, mpp, stroke_kw, noise_od):
     left out (see :data:`REREAD_SHARE`)."""
     import cv2
 
-    grey, coloured, reddish = _split(classes, rgb, tables, mpp, stroke_kw, noise_od)
+    grey, coloured, reddish = split
     # strokes with their blurred rims: mixtures of ink and tissue lie off every plane
     rims = cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (5, 5))
     sure = grey | cv2.dilate((coloured.strokes | reddish.strokes).view(np.uint8), rims).view(bool)
@@ -91,13 +91,13 @@ def _fit_exclusions(classes, glassy, rgb, tables, mpp, stroke_kw, noise_od):
     return sure | reddish.grains | lying_on_glass(coloured.compact | reddish.compact, glassy | sure), 0.0
 
 
-def _resolve(classes, glassy, rgb, tables, mpp, stroke_kw, noise_od, normal, sigma_px):
+def _resolve(split, glassy, rgb, tables, normal, sigma_px):
     """Ink from pixel classes (see :mod:`.pieces`): grey pixels; strokes of either off-plane
     class, and the red cells a reddish stroke runs across; compact coloured pieces (blue, green:
     never blood); compact reddish pieces lying on glass. Other red cells (granular cores) and
     compact reddish pieces in or against tissue are tissue. Returns (ink, ink by greyness or
     shape, compact pieces taken for ink by colour and place, reddish pixels kept)."""
-    grey, coloured, reddish = _split(classes, rgb, tables, mpp, stroke_kw, noise_od)
+    grey, coloured, reddish = split
     sure = grey | coloured.strokes | reddish.strokes
     sure |= ink_over_cells(reddish.grains, reddish.strokes, rgb, tables, normal, sigma_px)
     blobs = coloured.compact | lying_on_glass(reddish.compact, glassy | sure | coloured.compact)
@@ -160,7 +160,9 @@ def find_exclusions(rgb, glass, sigma_px: float, mpp: float, glassy, *, exclude_
         return SimpleNamespace(ink=np.zeros((h, w), bool), dark=dark, blood=np.zeros((h, w), bool), plane=None,
                                reread=0.0)
     # the plane is fitted to sampled pixels that are neither stroke-shaped ink nor glass nor dark
-    left_out, reread = _fit_exclusions(classes, glassy, rgb, tables, mpp, stroke_kw, noise_od)
+    grains_of = GrainMap(rgb, tables, noise_od)  # texture is measured once, where it is asked about
+    split = _split(classes, mpp, stroke_kw, grains_of)
+    left_out, reread = _fit_exclusions(split, glassy)
     usable = ~(left_out | glassy | dark).reshape(-1)[::step][:at]
     del left_out
     plane = fit_hne_plane(sample[:at][usable])
@@ -170,9 +172,10 @@ def find_exclusions(rgb, glass, sigma_px: float, mpp: float, glassy, *, exclude_
             od = _smoothed_od(rgb[a0:a1], tables, sigma_px)[r0 - a0:r1 - a0]
             _ink.ink_classes(od, plane.normal, residual=ink_residual, out=classes[r0:r1])
             del od
-    ink, sure, blobs, blood = _resolve(classes, glassy, rgb, tables, mpp, stroke_kw, noise_od, plane.normal,
-                                       sigma_px)
-    del classes
+        split = _split(classes, mpp, stroke_kw, grains_of)
+    del classes, grains_of
+    ink, sure, blobs, blood = _resolve(split, glassy, rgb, tables, plane.normal, sigma_px)
+    del split
     stained = int((~(glassy | sure)).sum())  # the stained area that is not ink by shape or greyness
     share = float(blobs.sum()) / max(1, stained)
     if share >= REREAD_SHARE:  # "ink" over most of the stained area: the stain, not ink

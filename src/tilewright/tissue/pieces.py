@@ -24,7 +24,7 @@ import numpy as np
 
 from .density import od_lookup
 
-__all__ = ["OffPlane", "split_pieces", "lying_on_glass", "ink_over_cells", "granularity", "band_shape", "GRANULAR"]
+__all__ = ["OffPlane", "GrainMap", "split_pieces", "lying_on_glass", "ink_over_cells", "granularity", "band_shape", "GRANULAR"]
 
 #: Fine-detail spread of at least this share of the density: granular (red cells), not a film of dye.
 GRANULAR = 0.06
@@ -99,30 +99,59 @@ class OffPlane(NamedTuple):
     grains: np.ndarray  #: granular cores: red cells
 
 
-def split_pieces(candidates: np.ndarray, rgb: np.ndarray, tables: np.ndarray, mpp: float, *,
-                 grain: bool = True, noise_od: float = 0.0, min_stroke_um: float = 100.0,
+class GrainMap:
+    """Granular pixels of a thumbnail (:func:`granularity` at least :data:`GRANULAR`), computed
+    on demand, band by band (float temporaries stay a few MB), over the box of the pixels asked
+    about, and kept for the next question."""
+
+    def __init__(self, rgb: np.ndarray, tables: np.ndarray, noise_od: float = 0.0):
+        self.rgb, self.tables, self.noise_od = rgb, tables, noise_od
+        self.map = np.zeros(rgb.shape[:2], bool)
+        self.box = None  # (y0, y1, x0, x1) computed so far
+
+    def __call__(self, where: np.ndarray) -> np.ndarray:
+        """The granular-pixel map, valid at least over the box of ``where`` (False elsewhere)."""
+        rows, cols = np.flatnonzero(where.any(axis=1)), np.flatnonzero(where.any(axis=0))
+        if rows.size:
+            want = (rows[0], rows[-1] + 1, cols[0], cols[-1] + 1)
+            have = self.box
+            if have is None or not (have[0] <= want[0] and want[1] <= have[1] and have[2] <= want[2]
+                                    and want[3] <= have[3]):
+                box = want if have is None else (min(have[0], want[0]), max(have[1], want[1]),
+                                                 min(have[2], want[2]), max(have[3], want[3]))
+                self._compute(*box)
+                self.box = box
+        return self.map
+
+    def _compute(self, y0, y1, x0, x1):
+        h, w = self.map.shape
+        halo = 16  # a 3 x 3 median and two Gaussians of 1.5 px reach 14 px
+        cx0, cx1 = max(0, x0 - halo), min(w, x1 + halo)
+        for r0 in range(y0, y1, 256):
+            r1 = min(y1, r0 + 256)
+            a0, a1 = max(0, r0 - halo), min(h, r1 + halo)
+            g = granularity(self.rgb[a0:a1, cx0:cx1], self.tables, self.noise_od)
+            self.map[r0:r1, x0:x1] = g[r0 - a0:r1 - a0, x0 - cx0:x1 - cx0] >= GRANULAR
+
+
+def split_pieces(candidates: np.ndarray, mpp: float, *, grains_of=None, min_stroke_um: float = 100.0,
                  elongation: float = 3.0) -> OffPlane:
     """Split off-plane pixels into strokes, compact parts and granular cores.
 
-    With ``grain``, each connected piece's granular core (pixels whose :func:`granularity` is at
-    least :data:`GRANULAR`, opened by a disc of 2 pixels) is cut out first. The rest is split
-    into connected parts; a part at least ``min_stroke_um`` wide and ``elongation`` times longer
-    than wide (:func:`band_shape`) is a stroke, any other part compact.
+    With ``grains_of`` (a :class:`GrainMap`), the granular core of the pixels (granular pixels
+    among them, opened by a disc of 2 pixels so that lone grainy pixels and thin rims do not
+    count) is cut out first. The rest is split into connected parts; a part at least
+    ``min_stroke_um`` wide and ``elongation`` times longer than wide (:func:`band_shape`) is a
+    stroke, any other part compact.
 
     Parameters
     ----------
     candidates : ndarray (H, W) bool
         Off-plane pixels of one class (see :func:`tilewright.tissue.ink.ink_classes`).
-    rgb : ndarray (H, W, 3) uint8
-        The thumbnail (texture is measured on it).
-    tables : ndarray (3, 256)
-        Optical-density tables of the glass.
     mpp : float
         µm per pixel.
-    grain : bool
+    grains_of : GrainMap, optional
         Cut out granular cores (for the reddish class, which red cells fall in).
-    noise_od : float
-        Glass noise for :func:`granularity`.
     min_stroke_um, elongation : float
         See above.
 
@@ -132,36 +161,24 @@ def split_pieces(candidates: np.ndarray, rgb: np.ndarray, tables: np.ndarray, mp
     """
     import cv2
 
-    strokes, compact, grains = (np.zeros_like(candidates) for _ in range(3))
+    strokes = np.zeros_like(candidates)
+    grains = np.zeros_like(candidates)
     if not candidates.any():
-        return OffPlane(strokes, compact, grains)
-    n, labels, stats, _ = cv2.connectedComponentsWithStats(candidates.view(np.uint8), connectivity=8,
-                                                           ltype=cv2.CV_32S)
+        return OffPlane(strokes, candidates.copy(), grains)
+    if grains_of is not None:
+        disc = cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (5, 5))
+        grains = cv2.morphologyEx((candidates & grains_of(candidates)).view(np.uint8), cv2.MORPH_OPEN,
+                                  disc).view(bool)
+    rest = candidates & ~grains
+    n, labels, stats, _ = cv2.connectedComponentsWithStats(rest.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
     min_px = max(min_stroke_um / mpp, 1.0)
-    h, w = candidates.shape
-    disc = cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (5, 5))
-    for k in range(1, n):
-        x, y, bw, bh, area = stats[k]
-        y0, x0 = max(0, y - _HALO), max(0, x - _HALO)
-        y1, x1 = min(h, y + bh + _HALO), min(w, x + bw + _HALO)
-        piece = labels[y0:y1, x0:x1] == k
-        parts = [piece]
-        if grain and area >= 9:
-            grainy = piece & (granularity(rgb[y0:y1, x0:x1], tables, noise_od) >= GRANULAR)
-            core = cv2.morphologyEx(grainy.view(np.uint8), cv2.MORPH_OPEN, disc).view(bool)
-            if core.any():
-                grains[y0:y1, x0:x1] |= core
-                m, part_labels = cv2.connectedComponents((piece & ~core).view(np.uint8), connectivity=8,
-                                                         ltype=cv2.CV_32S)
-                parts = [part_labels == j for j in range(1, m)]
-        for part in parts:
-            if part.sum() >= elongation * min_px ** 2:
-                width, stretch = band_shape(part)
-                if width >= min_px and stretch >= elongation:
-                    strokes[y0:y1, x0:x1] |= part
-                    continue
-            compact[y0:y1, x0:x1] |= part
-    return OffPlane(strokes, compact, grains)
+    for k in np.flatnonzero(stats[1:, cv2.CC_STAT_AREA] >= elongation * min_px ** 2) + 1:
+        x, y, bw, bh, _ = stats[k]
+        part = labels[y:y + bh, x:x + bw] == k
+        width, stretch = band_shape(part)
+        if width >= min_px and stretch >= elongation:
+            strokes[y:y + bh, x:x + bw] |= part
+    return OffPlane(strokes, rest & ~strokes, grains)
 
 
 def lying_on_glass(compact: np.ndarray, away: np.ndarray, *, share: float = 0.5) -> np.ndarray:
