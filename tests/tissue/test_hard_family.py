@@ -19,6 +19,7 @@ from hard_family import draw
 from tilewright.tissue.mask import tissue_mask
 
 DRAWS = int(os.environ.get("TILEWRIGHT_FAMILY_DRAWS", "30"))
+pytestmark = pytest.mark.timeout(max(600, 30 * DRAWS))  # the full run renders each draw
 FAINT_OD = 0.03
 
 

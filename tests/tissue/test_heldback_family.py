@@ -15,8 +15,9 @@ from family_scores import SHARE, score, shares, summary, worst, write_qc
 from heldback_slides import draw
 from tilewright.tissue.mask import tissue_mask
 
-pytestmark = pytest.mark.skipif(os.environ.get("TILEWRIGHT_HELDBACK") != "1",
-                                reason="held-back family: confirmation only, set TILEWRIGHT_HELDBACK=1")
+pytestmark = [pytest.mark.skipif(os.environ.get("TILEWRIGHT_HELDBACK") != "1",
+                                 reason="held-back family: confirmation only, set TILEWRIGHT_HELDBACK=1"),
+              pytest.mark.timeout(3600)]
 
 
 def test_heldback_family_meets_the_aims():
