@@ -30,6 +30,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from red_cells import red_cell_od
+
 H_RJ = np.array([0.65, 0.70, 0.29]) / np.linalg.norm([0.65, 0.70, 0.29])
 E_RJ = np.array([0.07, 0.99, 0.11]) / np.linalg.norm([0.07, 0.99, 0.11])
 HAEMOGLOBIN = np.array([0.02, 0.57, 0.82]) / np.linalg.norm([0.02, 0.57, 0.82])
@@ -69,7 +71,8 @@ class Area:
 
 @dataclass(frozen=True)
 class Stroke:
-    """A marker stroke along a polyline of (y, x) points in µm, ``width`` µm wide."""
+    """A marker stroke along a polyline of (y, x) points in µm, ``width`` µm wide; ``ink`` is a
+    name of :data:`INKS` or a transmission (R, G, B)."""
 
     points: tuple
     width: float
@@ -78,7 +81,7 @@ class Stroke:
 
 @dataclass(frozen=True)
 class Ring:
-    """A marker ring (circle drawn around a region), radius and width in µm."""
+    """A marker ring (circle drawn around a region), radius and width in µm (radius 0: a dot)."""
 
     cy: float
     cx: float
@@ -106,6 +109,9 @@ class HardSlide:
     hema: float = 1.0  # scale of the hematoxylin (nuclei) field
     eosin: float = 1.0  # scale of the eosin field
     noise: float = 1.5
+    faint: tuple = (0.8, 0.15)  # hematoxylin and eosin scales of the faint areas
+    texture: float = 1.0  # scale of the stain fields' variation about their means (0: flat)
+    blood_od: float = 1.0  # optical density scale of a red cell (1: dark red when packed)
     seed: int = 0
 
     def shape_at(self, mpp):
@@ -194,6 +200,10 @@ class HardSlide:
             nuclei = smooth(40.0, 0.08, 0.22) + rng.uniform(-0.03, 0.03, shape).astype(np.float32)
         hema = 0.08 + 0.85 * nuclei
         eosin = smooth(150.0, 0.25, 0.6) + smooth(20.0, -0.05, 0.05)
+        if self.texture != 1.0:  # 0: flat (every pixel the mean concentrations)
+            t = np.float32(self.texture)
+            hema = np.float32(0.2075) + t * (hema - np.float32(0.2075))
+            eosin = np.float32(0.425) + t * (eosin - np.float32(0.425))
         return hema * np.float32(self.hema), eosin * np.float32(self.eosin), smooth
 
     def render(self, mpp, box=None):
@@ -206,8 +216,8 @@ class HardSlide:
         tissue = t["tissue"]
         hema = np.where(tissue, hema, 0)
         eosin = np.where(tissue, eosin, 0)
-        hema[t["faint"]] *= 0.8
-        eosin[t["faint"]] *= 0.15
+        hema[t["faint"]] *= np.float32(self.faint[0])
+        eosin[t["faint"]] *= np.float32(self.faint[1])
         if t["fat"].any():  # adipocytes ~70 µm across: membranes 3 µm thick, empty inside
             cell = 70.0
             gy, gx = np.abs(np.sin(np.pi * yy / cell)), np.abs(np.sin(np.pi * (xx + 0.3 * yy) / cell))
@@ -224,9 +234,9 @@ class HardSlide:
         stains = np.asarray(self.stains, np.float32)
         od = hema[..., None] * stains[0] + eosin[..., None] * stains[1]
         blood = t["blood"]
-        if blood.any():  # red cells: much eosin and their own haemoglobin
-            amount = smooth(30.0, 0.6, 1.1)[blood][:, None]
-            od[blood] = amount * (0.9 * stains[1] + 0.5 * HAEMOGLOBIN.astype(np.float32)) + 0.05 * stains[0]
+        if blood.any():  # packed red cells, one disc each: much eosin and their own haemoglobin
+            cell = self.blood_od * (0.9 * stains[1] + 0.6 * HAEMOGLOBIN)
+            od[blood] = red_cell_od(yy, xx, mpp, blood, cell, 0.12 * stains[1] + 0.03 * stains[0], seed=self.seed)
         for cy, cx, r in self.bubbles:  # a refracting rim, grey
             d = np.sqrt((yy - cy) ** 2 + (xx - cx) ** 2)
             od += (np.float32(0.45) * np.exp(-((d - r) / 12.0) ** 2))[..., None]
@@ -237,7 +247,8 @@ class HardSlide:
             cover = self._ink_cover(ink, yy, xx, mpp)
             if cover.any():
                 thickness = smooth(200.0, 0.85, 1.15)
-                od += (cover * thickness)[..., None] * -np.log10(np.asarray(INKS[ink.ink], np.float32))
+                passed = INKS[ink.ink] if isinstance(ink.ink, str) else ink.ink
+                od += (cover * thickness)[..., None] * -np.log10(np.asarray(passed, np.float32))
         rgb = np.asarray(self.glass, np.float32) * np.power(np.float32(10), -od)
         rgb += rng.standard_normal(rgb.shape).astype(np.float32) * np.float32(self.noise)
         return np.clip(rgb + 0.5, 0, 255).astype(np.uint8)

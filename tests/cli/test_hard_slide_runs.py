@@ -85,3 +85,25 @@ def test_reference_slide_is_sampled_not_read_whole(slides, monkeypatch):
 
     cos = np.abs(np.asarray(norm.stain_matrix) @ np.stack([H_RJ, E_RJ]).T).diagonal()
     assert np.all(np.degrees(np.arccos(np.clip(cos, -1, 1))) < 15)
+
+
+def test_a_slide_whose_tissue_is_all_under_ink_is_all_ink_not_skipped(tmp_path, capsys):
+    from hard_slides import Stroke
+
+    src = tmp_path / "src"
+    src.mkdir()
+    # ground truth: one piece wholly under a broad black marker stroke; and a blank slide
+    _write(src / "inked.tif", HardSlide("inked", 1500, 2000, (Piece(750, 1000, 300, 400),), inks=(
+        Stroke(((750, 100), (750, 1900)), 900, "black"),), seed=23))
+    _write(src / "blank.tif", HardSlide("blank", 1500, 2000, (), seed=24))
+    out = tmp_path / "out"
+    assert tile_out([str(src), str(out), "--tile", "128"]) == 0
+    m = pd.read_csv(out / "manifest.csv", keep_default_na=False).set_index("slide_id")
+    assert m.loc["inked", "status"] == "all-ink" and m.loc["inked", "n_tiles"] == 0
+    assert m.loc["inked", "error"].startswith("all tissue is ink:") and "qc/" in m.loc["inked", "error"]
+    assert m.loc["inked", "warnings"].startswith("high-ink:")
+    assert m.loc["blank", "status"] == "skipped" and "blank slide" in m.loc["blank", "error"]
+    printed = capsys.readouterr().out
+    assert "1 skipped, 1 ALL INK, 0 failed" in printed and "lost all their tissue" in printed
+    assert "1 all ink" in (out / "tile-out.log").read_text()
+    assert tw.open_cohort(out).slide_ids == []  # neither store holds tiles

@@ -157,7 +157,7 @@ def test_provenance_and_repr(he_slide):
     import json
 
     json.dumps(d)  # JSON-safe
-    assert d["method"] == "od-otsu" and d["mpp"] == 8.0 and d["source"] == "fake/slide-a.tif"
+    assert d["method"] == "od-noise" and d["mpp"] == 8.0 and d["source"] == "fake/slide-a.tif"
     assert d["tissue_fraction"] == pytest.approx(mask.tissue_fraction)
     # glass estimate near the layout's background (ground truth: 238, 236, 240 plus noise)
     np.testing.assert_allclose(d["glass"], (238, 236, 240), atol=4)

@@ -31,7 +31,7 @@ def test_constant_and_nonfinite():
 
 def test_mask_threshold_is_otsu_of_its_feature(he_layout):
     rgb = he_layout.render(8.0, 0, 0, *he_layout.shape_at(8.0))
-    mask = tissue_mask(rgb, mpp=8.0)
+    mask = tissue_mask(rgb, mpp=8.0, method="od-otsu")
     feature = tissue_feature(rgb, 8.0, glass=mask.params["glass"])
     values = np.log10(np.maximum(feature, _LOG_FLOOR)).astype(np.float64)
     want = 10.0 ** threshold_otsu(values)

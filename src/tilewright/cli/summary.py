@@ -47,15 +47,22 @@ def print_summary(rows, out, *, seconds: float = 0.0, megapixels: float = 0.0, v
     stream = stream or sys.stdout
     ok = sum(r["status"] == "ok" for r in rows)
     failed = [r for r in rows if r["status"] == "failed"]
+    inked = [r for r in rows if r["status"] == "all-ink"]
     tiles = sum(int(r.get("n_tiles") or 0) for r in rows)
     rate = f", {megapixels / seconds:.0f} MP/s" if seconds > 0 and megapixels > 0 else ""
-    stream.write(f"\n{ok} ok, {len(rows) - ok - len(failed)} skipped, {len(failed)} failed; {tiles} tiles, "
-                 f"{_size(_bytes(rows, out))} written in {seconds:.1f} s{rate}\n")
+    all_ink = f", {len(inked)} ALL INK" if inked else ""
+    stream.write(f"\n{ok} ok, {len(rows) - ok - len(failed) - len(inked)} skipped{all_ink}, {len(failed)} failed; "
+                 f"{tiles} tiles, {_size(_bytes(rows, out))} written in {seconds:.1f} s{rate}\n")
+    if inked:  # not blank slides: their tissue (or what was taken for it) went to the ink filter
+        stream.write(f"{len(inked)} slide(s) lost all their tissue to marker ink or the dark-region filter (status "
+                     f"all-ink: {', '.join(str(r['slide_id']) for r in inked[:5])}{', ...' if len(inked) > 5 else ''}): "
+                     "look at their QC pictures in qc/\n")
     warned = sum(bool(r.get("warnings")) for r in rows)
     if warned:
         stream.write(f"{warned} slide(s) with warnings (no glass, much ink, little tissue, stain estimate "
                      f"replaced, ...): see the warnings column of manifest.csv and tile-out.log\n")
-    listed = rows if (verbose or len(rows) <= FULL_TABLE_UP_TO) else failed
+    short = not (verbose or len(rows) <= FULL_TABLE_UP_TO)
+    listed = failed + inked if short else rows
     if listed:
         w = max([len("slide")] + [len(str(r["slide_id"])) for r in listed])
         stream.write(f"\n{'slide':<{w}}  {'status':<7}  {'tiles':>7}  {'seconds':>7}  note\n")
@@ -63,7 +70,8 @@ def print_summary(rows, out, *, seconds: float = 0.0, megapixels: float = 0.0, v
             head = f"{r['slide_id']:<{w}}  {r['status']:<7}  {int(r.get('n_tiles') or 0):>7}  {row_seconds(r)}  "
             stream.write(head + wrapped(row_note(r), len(head)) + "\n")
     where = f"{as_path(out) / 'manifest.csv'}"
-    if failed and listed is failed:
-        stream.write(f"\nOnly failures are listed; every slide is in {where} (--verbose lists all).\n")
+    if short and listed:
+        stream.write(f"\nOnly failures and all-ink slides are listed; every slide is in {where} (--verbose lists "
+                     "all).\n")
     else:
         stream.write(f"\nStores and the manifest ({where}) are in {out}\n")

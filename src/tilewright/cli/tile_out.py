@@ -257,8 +257,8 @@ def _run(args, config, found, mpp, out, log_file) -> int:
         print_summary(rows, out, seconds=time.perf_counter() - t0, megapixels=totals.megapixels,
                       verbose=args.verbose)
     failed = sum(r["status"] == "failed" for r in rows)
-    log.info("done: %d ok, %d skipped, %d failed", sum(r["status"] == "ok" for r in rows),
-             sum(r["status"] == "skipped" for r in rows), failed)
+    log.info("done: %d ok, %d skipped, %d all ink, %d failed", sum(r["status"] == "ok" for r in rows),
+             sum(r["status"] == "skipped" for r in rows), sum(r["status"] == "all-ink" for r in rows), failed)
     return EXIT_SOME_FAILED if failed else EXIT_OK
 
 

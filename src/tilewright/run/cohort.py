@@ -115,11 +115,10 @@ def tile_slide_row(path, final, cfg, slide_id, mpp, normalizer, progress=None, o
     res = tile_slide(path, final, cfg, slide_id=slide_id, mpp=mpp, target=normalizer, progress=progress,
                      on_plan=on_plan)
     if res.n_tiles == 0:
-        from tilewright.run.skip_reason import skip_reason
+        from tilewright.run.skip_reason import skip_status
         from tilewright.store.reader import open_store
 
-        res.status = "skipped"
-        res.error = skip_reason(open_store(res.store).attrs)
+        res.status, res.error = skip_status(open_store(res.store).attrs)
     return res
 
 

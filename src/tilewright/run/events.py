@@ -126,7 +126,7 @@ class ProgressTracker:
             self.done += 1
             status = row.get("status")
             self.failed += status == "failed"
-            self.skipped += status == "skipped"
+            self.skipped += status in ("skipped", "all-ink")
             self.written += int(row.get("n_tiles") or 0)
             self.in_flight.discard(sid)
             # a slide kept from an earlier run was not planned here; a failed one reads no more

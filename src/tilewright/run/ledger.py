@@ -59,7 +59,7 @@ class Ledger:
         A store kept from an earlier run keeps that run's timing (this run spent none on it)."""
         if row.get("kept"):
             before = self.previous.get(str(row["slide_id"])) or {}
-            row = {**row, "seconds": before.get("seconds") if before.get("status") in ("ok", "skipped") else None}
+            row = {**row, "seconds": before.get("seconds") if before.get("status") in ("ok", "skipped", "all-ink") else None}
         self.finished[str(row["slide_id"])] = row
         self.write()
 
@@ -104,13 +104,14 @@ def store_row(out_dir: Path, slide_id: str, path: str) -> dict | None:
 
 def kept_row(final, slide_id: str, path: str, a: dict) -> dict:
     """The manifest row of the complete store ``final`` kept from an earlier run (``a``: its attributes)."""
-    from tilewright.run.skip_reason import skip_reason
+    from tilewright.run.skip_reason import skip_status
     from tilewright.run.slide import SlideResult
 
     n = int(a.get("n_tiles") or 0)
     from tilewright.slide.colour import colour_label
 
-    return SlideResult(slide_id, path, "ok" if n else "skipped", "" if n else skip_reason(a), n, a.get("mpp_source"), a.get("objective"), a.get("source_level"), None,
+    status, reason = ("ok", "") if n else skip_status(a)
+    return SlideResult(slide_id, path, status, reason, n, a.get("mpp_source"), a.get("objective"), a.get("source_level"), None,
                        str(final), colour_label(a.get("colour_profile")), "; ".join(a.get("warnings") or ()),
                        source_sha256=(a.get("source") or {}).get("sha256") or "", mpp_origin=a.get("mpp_origin") or "",
                        kept=True).to_row()

@@ -1,8 +1,34 @@
-"""Why a slide's store holds no tile: the filter that removed the last tiles, in the manifest's words."""
+"""Why a slide's store holds no tile: the filter that removed the last tiles, in the manifest's words,
+and the manifest status that says so (``skipped``, or ``all-ink`` when ink took the tissue)."""
 
 from __future__ import annotations
 
-__all__ = ["skip_reason"]
+__all__ = ["skip_reason", "skip_status", "NO_TILE_STATUSES", "ALL_INK_SHARE"]
+
+#: Statuses of a slide whose store holds no tile: ``skipped`` (blank, too little tissue, filters)
+#: and ``all-ink`` (marker ink or the dark-region filter removed what was found: not a blank slide).
+NO_TILE_STATUSES = ("skipped", "all-ink")
+#: A slide without tiles whose tissue mask lost at least this share of what was found on it to
+#: marker ink or the dark-region filter is ``all-ink``.
+ALL_INK_SHARE = 0.5
+
+
+def skip_status(attrs: dict) -> tuple[str, str]:
+    """Manifest status and reason of a store that holds no tile.
+
+    ``all-ink`` when no tile met the tissue criteria and marker ink or the dark-region filter
+    removed at least :data:`ALL_INK_SHARE` of what the density threshold found (the store's
+    ``tissue_mask`` attributes): the slide is not blank, its tissue (or what was taken for it)
+    went to the filters, and a person should look. Else ``skipped`` with :func:`skip_reason`.
+    """
+    mask = attrs.get("tissue_mask") or {}
+    removed = mask.get("removed_share")
+    if (attrs.get("plan") or {}).get("n_tissue") == 0 and removed is not None and removed >= ALL_INK_SHARE:
+        return "all-ink", (f"all tissue is ink: marker ink (or the dark-region filter) removed {removed:.0%} of what "
+                           f"was found on the slide ({mask.get('ink_share', 0):.0%} ink), leaving no tile; it is not "
+                           "blank: look at its QC picture in qc/, and if the 'ink' is tissue, tile it with "
+                           "exclude_ink = false (exclude_dark = false) in a --config file")
+    return "skipped", skip_reason(attrs)
 
 
 def skip_reason(attrs: dict) -> str:

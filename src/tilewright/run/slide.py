@@ -30,7 +30,7 @@ class SlideResult:
 
     slide_id: str
     source: str
-    status: str  # "ok" | "failed" | "skipped"
+    status: str  # "ok" | "failed" | "skipped" | "all-ink" (no tile: ink took the tissue; run/skip_reason.py)
     error: str = ""
     n_tiles: int = 0
     mpp_source: float | None = None

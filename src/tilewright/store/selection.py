@@ -99,7 +99,7 @@ def select_stores(path: Path, manifest, settings="cohort") -> tuple[dict, list[t
     stores = {}
     for sid, status in zip(manifest["slide_id"], manifest["status"]):
         p = store_path(path, str(sid))
-        if status != "skipped" and is_complete(p):
+        if status not in ("skipped", "all-ink") and is_complete(p):  # stores holding tiles
             stores[str(sid)] = TileStore(p)
     stores, left = one_store_a_source(stores)
     if settings is None or not stores:

@@ -24,6 +24,7 @@ import numpy as np
 
 from . import ink as _ink
 from .density import od_lookup, od_tables
+from .pieces import GrainMap, ink_over_cells, lying_on_glass, split_pieces
 from .plane import RUIFROK_PLANE_NORMAL, PlaneFit, fit_hne_plane
 
 __all__ = ["find_exclusions", "BAND_ROWS"]
@@ -62,29 +63,57 @@ def _open(mask: np.ndarray, radius: int) -> np.ndarray:
     return cv2.morphologyEx(mask.view(np.uint8), cv2.MORPH_OPEN, kernel).view(bool)
 
 
-def _strokes_only(classes, glassy, mpp, stroke_kw):
-    """Pass 1 (against the prior plane, which may not be the slide's): only grey pixels and the
-    stroke-shaped pieces of each off-plane class are ink, so that tissue stained a little off the
-    prior (compact pieces) still takes part in the plane fit."""
+def _split(classes, mpp, stroke_kw, grains_of):
+    """Grey pixels and the :class:`~.pieces.OffPlane` split of the coloured and reddish classes
+    (granular cores only for the reddish class: red cells are never blue or green)."""
     grey = _open(classes == _ink.GREY, 1)
-    out = grey.copy()
-    for cls in (_ink.COLOURED, _ink.REDDISH):  # apart: tissue of one class and a pen of the other
-        out |= _ink.stroke_pieces(_open(classes == cls, 1), glassy | grey, mpp, **stroke_kw)  # do not merge
-    return out
+    coloured = split_pieces(_open(classes == _ink.COLOURED, 1), mpp, **stroke_kw)
+    reddish = split_pieces(_open(classes == _ink.REDDISH, 1), mpp, grains_of=grains_of, **stroke_kw)
+    return grey, coloured, reddish
 
 
-def _resolve(classes, glassy, mpp, stroke_kw):
-    """Ink from pixel classes: grey and coloured pixels, and the stroke-shaped reddish pieces.
-    Returns (ink, blood-like reddish pixels kept as tissue)."""
-    sure = _open((classes == _ink.GREY) | (classes == _ink.COLOURED), 1)
-    reddish = _open(classes == _ink.REDDISH, 1)
-    strokes = _ink.stroke_pieces(reddish, glassy | sure, mpp, **stroke_kw)
-    return sure | strokes, reddish & ~strokes
+def _fit_exclusions(split, glassy):
+    """Pass 1 (against the prior plane, which may not be the slide's): the pixels left out of the
+    plane fit, and the share of the stained area re-read as tissue (0 when none). Grey pixels, strokes, red cells (granular cores: blood should not pull the plane)
+    and compact off-plane pieces lying on glass (marker dots). But when what is off the prior
+    plane and not a stroke is most of the stained area, the prior is not this slide's plane: that
+    is its tissue (textured, and granular for all we know), and only grey pixels and strokes are
+    left out (see :data:`REREAD_SHARE`)."""
+    import cv2
+
+    grey, coloured, reddish = split
+    # strokes with their blurred rims: mixtures of ink and tissue lie off every plane
+    rims = cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (5, 5))
+    sure = grey | cv2.dilate((coloured.strokes | reddish.strokes).view(np.uint8), rims).view(bool)
+    share = float((coloured.compact | reddish.compact | reddish.grains).sum()) / max(1, int((~(glassy | sure)).sum()))
+    if share >= REREAD_SHARE:
+        return sure, share
+    return sure | reddish.grains | lying_on_glass(coloured.compact | reddish.compact, glassy | sure), 0.0
+
+
+def _resolve(split, glassy, rgb, tables, normal, sigma_px):
+    """Ink from pixel classes (see :mod:`.pieces`): grey pixels; strokes of either off-plane
+    class, and the red cells a reddish stroke runs across; compact coloured pieces (blue, green:
+    never blood); compact reddish pieces lying on glass. Other red cells (granular cores) and
+    compact reddish pieces in or against tissue are tissue. Returns (ink, ink by greyness or
+    shape, compact pieces taken for ink by colour and place, reddish pixels kept)."""
+    grey, coloured, reddish = split
+    sure = grey | coloured.strokes | reddish.strokes
+    sure |= ink_over_cells(reddish.grains, reddish.strokes, rgb, tables, normal, sigma_px)
+    blobs = coloured.compact | lying_on_glass(reddish.compact, glassy | sure | coloured.compact)
+    ink = sure | blobs
+    return ink, sure, blobs, (reddish.grains | reddish.compact) & ~(blobs | sure)
+
+
+#: Compact off-plane pieces taken for ink by colour over at least this share of the stained area
+#: (all but glass, grey ink and strokes) mean the H&E plane is not the slide's: they are read as
+#: tissue instead (a marker does not cover most of what is on a slide but in strokes).
+REREAD_SHARE = 0.7
 
 
 def find_exclusions(rgb, glass, sigma_px: float, mpp: float, glassy, *, exclude_ink: bool = True,
                     ink_residual: float = 0.04, exclude_dark: bool = False, dark_od: float = 0.9,
-                    stroke_kw: dict | None = None) -> SimpleNamespace:
+                    stroke_kw: dict | None = None, noise_od: float = 0.0) -> SimpleNamespace:
     """Ink, dark debris and the H&E plane of a thumbnail.
 
     Parameters
@@ -128,9 +157,14 @@ def find_exclusions(rgb, glass, sigma_px: float, mpp: float, glassy, *, exclude_
             at += len(part)
         del od
     if not exclude_ink:
-        return SimpleNamespace(ink=np.zeros((h, w), bool), dark=dark, blood=np.zeros((h, w), bool), plane=None)
+        return SimpleNamespace(ink=np.zeros((h, w), bool), dark=dark, blood=np.zeros((h, w), bool), plane=None,
+                               reread=0.0)
     # the plane is fitted to sampled pixels that are neither stroke-shaped ink nor glass nor dark
-    usable = ~(_strokes_only(classes, glassy, mpp, stroke_kw) | glassy | dark).reshape(-1)[::step][:at]
+    grains_of = GrainMap(rgb, tables, noise_od)  # texture is measured once, where it is asked about
+    split = _split(classes, mpp, stroke_kw, grains_of)
+    left_out, reread = _fit_exclusions(split, glassy)
+    usable = ~(left_out | glassy | dark).reshape(-1)[::step][:at]
+    del left_out
     plane = fit_hne_plane(sample[:at][usable])
     del sample
     if plane.fitted and plane.tilt_deg > 1.0:  # the prior was not the slide's plane: class again
@@ -138,8 +172,16 @@ def find_exclusions(rgb, glass, sigma_px: float, mpp: float, glassy, *, exclude_
             od = _smoothed_od(rgb[a0:a1], tables, sigma_px)[r0 - a0:r1 - a0]
             _ink.ink_classes(od, plane.normal, residual=ink_residual, out=classes[r0:r1])
             del od
-    ink, blood = _resolve(classes, glassy, mpp, stroke_kw)
-    return SimpleNamespace(ink=ink, dark=dark, blood=blood, plane=plane)
+        split = _split(classes, mpp, stroke_kw, grains_of)
+    del classes, grains_of
+    ink, sure, blobs, blood = _resolve(split, glassy, rgb, tables, plane.normal, sigma_px)
+    del split
+    stained = int((~(glassy | sure)).sum())  # the stained area that is not ink by shape or greyness
+    share = float(blobs.sum()) / max(1, stained)
+    if share >= REREAD_SHARE:  # "ink" over most of the stained area: the stain, not ink
+        ink &= ~blobs
+        reread = max(reread, share)
+    return SimpleNamespace(ink=ink, dark=dark, blood=blood, plane=plane, reread=reread)
 
 
 __all__ += ["bands", "smooth", "PlaneFit"]

@@ -18,16 +18,19 @@ import numpy as np
 
 from .density import find_glass
 from .exclusions import find_exclusions
+from .morphology import drop_small, fill_holes, morph, px
 from .threshold import _LOG_FLOOR, METHODS, density_threshold, tissue_feature  # noqa: F401 (_LOG_FLOOR re-exported)
 from .raster import box_fractions, summed_area_table
 
 __all__ = ["TissueMask", "tissue_mask", "tissue_feature", "METHODS"]
 
 
-#: Warnings: ink over this fraction of (tissue + ink); less tissue than this area (mm²) *and* than
-#: this share of the scanned area (a speck on a large scan, or a mask that missed faint tissue; a
-#: small biopsy scanned tightly is not flagged).
+#: Warnings: marker ink (``high-ink``) or the dark-region filter (``dark-removed``) removed more
+#: than this share of what the density threshold found (tissue, and ink lying on glass); less
+#: tissue than this area (mm²) *and* than this share of the scanned area (a speck on a large scan,
+#: or a mask that missed faint tissue; a small biopsy scanned tightly is not flagged).
 HIGH_INK_FRACTION = 0.25
+HIGH_DARK_FRACTION = 0.25
 LITTLE_TISSUE_MM2 = 1.0
 LITTLE_TISSUE_SHARE = 0.02
 
@@ -162,27 +165,6 @@ def _thumbnail(slide, mpp):
     return np.ascontiguousarray(rgb), mpp, None if path is None else os.fspath(path)
 
 
-def _px(um: float, mpp: float) -> int:
-    return int(round(um / mpp)) if um and um > 0 else 0
-
-
-def _morph(mask: np.ndarray, op: str, radius: int) -> np.ndarray:
-    if radius <= 0:
-        return mask
-    import cv2
-
-    kernel = cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (2 * radius + 1, 2 * radius + 1))
-    code = {"open": cv2.MORPH_OPEN, "close": cv2.MORPH_CLOSE, "dilate": cv2.MORPH_DILATE,
-            "erode": cv2.MORPH_ERODE}[op]
-    # pad so closing does not glue tissue to the slide border and opening is not eroded by it
-    pad = radius + 1
-    # (erosion: outside the slide counts as glass, so a thin glass strip along the slide's edge
-    # that smoothing filled in is in the border band of _edges_at_half_step)
-    m = np.pad(mask.astype(np.uint8), pad, mode="constant" if op in ("close", "erode") else "edge")
-    out = cv2.morphologyEx(m, code, kernel)
-    return out[pad:-pad, pad:-pad].astype(bool)
-
-
 def _edges_at_half_step(feature: np.ndarray, tissue: np.ndarray, sigma: float, glassy: np.ndarray) -> np.ndarray:
     """Put the edges of ``tissue`` where the smoothed density is half-way from glass to the tissue.
 
@@ -205,7 +187,7 @@ def _edges_at_half_step(feature: np.ndarray, tissue: np.ndarray, sigma: float, g
 
     r = int(math.ceil(3 * sigma))
     glass = float(np.median(feature[glassy]))
-    inner = _morph(tissue, "erode", r)
+    inner = morph(tissue, "erode", r)
     band = tissue & ~inner
     if not band.any():
         return tissue
@@ -227,38 +209,7 @@ def _edges_at_half_step(feature: np.ndarray, tissue: np.ndarray, sigma: float, g
     return tissue & ~(band & (f < half))
 
 
-def _drop_small(mask: np.ndarray, min_px: float) -> np.ndarray:
-    """Remove 8-connected components smaller than ``min_px`` pixels."""
-    if min_px <= 1 or not mask.any():
-        return mask
-    import cv2
-
-    # OpenCV labels with int32 and counts areas itself (no int64 copy of the labels)
-    n, labels, stats, _ = cv2.connectedComponentsWithStats(np.ascontiguousarray(mask).view(np.uint8), connectivity=8,
-                                                           ltype=cv2.CV_32S)
-    small = stats[:, cv2.CC_STAT_AREA] < min_px
-    small[0] = False
-    return mask & ~small[labels]
-
-
-def _fill_holes(mask: np.ndarray, max_px: float) -> np.ndarray:
-    """Fill 4-connected background regions smaller than ``max_px`` that do not touch the border."""
-    if max_px <= 0 or mask.all():
-        return mask
-    import cv2
-
-    background = ~mask
-    n, labels, stats, _ = cv2.connectedComponentsWithStats(background.view(np.uint8), connectivity=4,
-                                                           ltype=cv2.CV_32S)
-    del background
-    border = np.unique(np.r_[labels[0], labels[-1], labels[:, 0], labels[:, -1]])
-    fill = stats[:, cv2.CC_STAT_AREA] < max_px
-    fill[0] = False  # label 0 is the tissue itself
-    fill[border] = False
-    return mask | fill[labels]
-
-
-def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-otsu", sensitivity: float = 1.0,
+def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-noise", sensitivity: float = 1.0,
                 min_od_floor: float | None = None, max_od_ceiling: float = 0.15,
                 min_saturation: float = 0.08, smooth_um: float = 8.0, close_um: float = 24.0,
                 open_um: float = 16.0, fill_holes_um2: float = 20_000.0,
@@ -272,14 +223,17 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-otsu", sensitivity
     (:func:`~tilewright.tissue.density.find_glass`); a slide without any is covered by tissue
     edge to edge, and its glass colour is ``glass_fallback`` (white when None), never a tissue
     colour; (3) the feature of ``method`` (default: mean optical density relative to the glass
-    colour, Gaussian-smoothed); (4) Otsu's threshold on the log10 of that density (glass is a
-    narrow peak near zero OD while pale and dense tissue span a decade, so the log scale keeps
-    pale tissue with the tissue class), kept between a floor measured from the glass's own density
-    and noise and ``max_od_ceiling`` (:func:`~tilewright.tissue.threshold.density_threshold`); (5) closing then opening with discs of ``close_um`` and ``open_um``; (6) holes
-    smaller than ``fill_holes_um2`` filled; (7) marker ink, over glass and over tissue, grown by
-    ``ink_margin_um`` (:mod:`~tilewright.tissue.exclusions`: black and grey, blue and green by
-    colour, red by colour and stroke shape so blood stays tissue), and optionally dense debris,
-    removed; (8) pieces smaller than ``min_component_um2`` dropped.
+    colour, Gaussian-smoothed); (4) a threshold that clears the glass's own density noise
+    (:func:`~tilewright.tissue.threshold.density_threshold`: the glass level plus six robust
+    standard deviations, so faint tissue is found; ``"od-otsu"`` uses Otsu's threshold above
+    that floor instead); (5) closing then opening with discs of ``close_um`` and ``open_um``;
+    (6) holes smaller than ``fill_holes_um2`` filled; (7) marker ink, over glass and over tissue,
+    grown by ``ink_margin_um`` (:mod:`~tilewright.tissue.exclusions` and
+    :mod:`~tilewright.tissue.pieces`: black and grey, blue and green by colour, red by shape,
+    texture and context so that blood stays tissue; compact "ink" over most of the stained
+    area is read as tissue of an unusual colour), and optionally dense debris, removed; (8)
+    pieces smaller than ``min_component_um2`` dropped; (9) their edges placed half-way up the
+    density step.
 
     Parameters
     ----------
@@ -290,17 +244,19 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-otsu", sensitivity
         µm/px asked of the mask (and of ``slide`` when it is an array without ``.mpp``).
         Default 8. The mask takes the true µm/px of the thumbnail's pixels, which may differ
         from this by the thumbnail tolerance (a pyramid level reused as is).
-    method : {"od-otsu", "saturation-otsu"}
-        Feature to threshold. The saturation method thresholds HSV saturation (floor
-        ``min_saturation``) without the log scale.
+    method : {"od-noise", "od-otsu", "saturation-otsu"}
+        How tissue is told from glass: mean optical density over the glass's noise floor
+        (default), Otsu's threshold on its log10 kept between that floor and ``max_od_ceiling``
+        (drops tissue fainter than Otsu's split on slides with much dense tissue), or Otsu on
+        the HSV saturation (floor ``min_saturation``).
     sensitivity : float
         Unitless factor dividing the density threshold's floor and ceiling: 2 keeps tissue half
         as dense, 0.5 only tissue twice as dense. Default 1.
     min_od_floor : float, optional
         A fixed floor (mean OD above glass) instead of the one measured from the glass noise.
     max_od_ceiling : float
-        Largest threshold Otsu may choose (mean OD): anything denser than this over glass is
-        tissue (blank glass stays below an OD of about 0.15, common practice).
+        Largest threshold Otsu may choose with ``"od-otsu"`` (mean OD): anything denser than this
+        over glass is tissue (blank glass stays below an OD of about 0.15, common practice).
     min_saturation : float
         Floor of the saturation method.
     smooth_um : float
@@ -333,8 +289,11 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-otsu", sensitivity
     Returns
     -------
     TissueMask
-        With ``warnings`` (short codes with a reason): ``no-glass``, ``high-ink``,
-        ``little-tissue``, ``plane-fallback``.
+        With ``warnings`` (short codes with a reason): ``no-glass``, ``high-ink`` and
+        ``dark-removed`` (the filters removed more than :data:`HIGH_INK_FRACTION` and
+        :data:`HIGH_DARK_FRACTION` of what was found), ``unusual-stain`` (tissue off the H&E
+        plane read as tissue, not ink), ``little-tissue``, ``plane-fallback``; ``params`` hold
+        ``ink_share``, ``dark_share`` and ``removed_share`` (their sum).
 
     Raises
     ------
@@ -385,20 +344,25 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-otsu", sensitivity
     raw = feature > threshold
     glassy = ~raw
     survey = survey._replace(candidates=None)  # not needed past the threshold
-    raw = _morph(raw, "close", _px(close_um, mpp))
-    raw = _morph(raw, "open", _px(open_um, mpp))
+    raw = morph(raw, "close", px(close_um, mpp))
+    raw = morph(raw, "open", px(open_um, mpp))
     area = mpp * mpp
-    tissue = _fill_holes(raw, fill_holes_um2 / area)
+    tissue = fill_holes(raw, fill_holes_um2 / area)
     del raw
 
-    found = find_exclusions(rgb, glass, smooth_um / mpp, mpp, glassy, exclude_ink=exclude_ink,
+    # the glass's pixel-to-pixel noise in one channel's OD, from that of the smoothed mean density
+    # (a mean of 3 channels, smoothed by a Gaussian of sigma px: white noise falls by sqrt(3) and
+    # by 2 sqrt(pi) sigma)
+    sigma = smooth_um / mpp
+    pixel_noise = 0.0 if math.isnan(noise) else noise * math.sqrt(3.0) * 2.0 * math.sqrt(math.pi) * max(sigma, 0.5)
+    found = find_exclusions(rgb, glass, sigma, mpp, glassy, exclude_ink=exclude_ink,
                             ink_residual=ink_residual, exclude_dark=exclude_dark, dark_od=dark_od,
-                            stroke_kw={"min_stroke_um": min_stroke_um})
+                            stroke_kw={"min_stroke_um": min_stroke_um}, noise_od=pixel_noise)
     ink, dark = found.ink, found.dark
     if exclude_ink:
-        ink = _morph(ink, "dilate", _px(ink_margin_um, mpp))
-    covered = tissue | ink
-    tissue = _drop_small(tissue & ~ink & ~dark, min_component_um2 / area)
+        ink = morph(ink, "dilate", px(ink_margin_um, mpp))
+    covered = tissue | ink  # what the density threshold found, and ink beyond it
+    tissue = drop_small(tissue & ~ink & ~dark, min_component_um2 / area)
     # the pieces are decided at the detection threshold; only then are their edges placed
     tissue = _edges_at_half_step(feature, tissue, smooth_um / mpp, glassy)
     del feature, glassy
@@ -406,9 +370,20 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-otsu", sensitivity
     if plane is not None and not plane.fitted and plane.n_pixels >= 200:
         warnings.append(f"plane-fallback: implausible H&E plane fit ({plane.reason}); the Ruifrok & "
                         "Johnston plane was used for ink")
-    ink_share = float((ink & covered).sum()) / max(1, int(covered.sum()))
+    if found.reread:
+        tilt = f", the H&E plane refitted {plane.tilt_deg:.0f} degrees off it" if plane is not None and plane.fitted else ""
+        warnings.append(f"unusual-stain: {found.reread:.0%} of the stained area lies off the Ruifrok & Johnston H&E "
+                        f"plane where marker ink would (not in strokes); read as tissue of an unusual colour{tilt} "
+                        "(a phloxine-rich eosin, or a scanner's colour?): check the QC picture")
+    n_covered = max(1, int(covered.sum()))
+    ink_share = float((ink & covered).sum()) / n_covered
+    dark_share = float((dark & covered & ~ink).sum()) / n_covered
     if ink_share > HIGH_INK_FRACTION:
-        warnings.append(f"high-ink: marker ink covers {ink_share:.0%} of the tissue and ink")
+        warnings.append(f"high-ink: marker ink removed {ink_share:.0%} of what was found on the slide (tissue, "
+                        "and ink on glass): check the QC picture")
+    if dark_share > HIGH_DARK_FRACTION:
+        warnings.append(f"dark-removed: the dark-region filter (mean OD over {dark_od:g}) removed {dark_share:.0%} "
+                        "of the tissue found: check the QC picture, or raise --dark-od")
     tissue_mm2 = float(tissue.sum()) * area / 1e6
     share = float(tissue.mean()) if tissue.size else 0.0
     if tissue_mm2 < LITTLE_TISSUE_MM2 and share < LITTLE_TISSUE_SHARE:
@@ -426,5 +401,6 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-otsu", sensitivity
               "blood_fraction": float((found.blood & tissue).sum()) / max(1, int(tissue.sum())),
               "hne_plane_normal": None if plane is None else [float(v) for v in plane.normal],
               "hne_plane_fitted": None if plane is None else bool(plane.fitted),
-              "ink_share": ink_share, "tissue_mm2": tissue_mm2}
+              "ink_share": ink_share, "dark_share": dark_share, "removed_share": ink_share + dark_share,
+              "reread_share": float(found.reread), "tissue_mm2": tissue_mm2}
     return TissueMask(tissue, mpp, ink=ink, dark=dark, threshold=threshold, params=params, warnings=warnings)

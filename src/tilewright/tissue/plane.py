@@ -57,7 +57,7 @@ def _tilt(normal) -> float:
 
 def fit_hne_plane(od, *, min_od: float = 0.15, keep: float = 0.8, iterations: int = 4,
                   min_pixels: int = 200, max_tilt_deg: float = 60.0, min_inliers: float = 0.5,
-                  inlier_od: float = 0.03) -> PlaneFit:
+                  inlier_od: float = 0.03, flat: float = 4.0, min_share: float = 0.1) -> PlaneFit:
     """Fit the H&E plane to optical densities of pixels believed to be H&E.
 
     Pixels with an OD norm below ``min_od`` carry no direction and are not used (Macenko et al.
@@ -65,9 +65,15 @@ def fit_hne_plane(od, *, min_od: float = 0.15, keep: float = 0.8, iterations: in
     eosin and their mixtures) or that are grey and dense (black marker). Starting from the Ruifrok
     & Johnston plane, the ``keep`` fraction of pixels closest to the current plane is refitted
     (the eigenvector of the smallest eigenvalue of their 3 x 3 scatter matrix), ``iterations``
-    times (trimmed least squares).
+    times (trimmed least squares). Pixels of nearly one colour (a flat stain, or one stain only:
+    their spread across that colour is the same in every direction, the middle eigenvalue under
+    ``flat`` times the smallest) fix only one direction of the plane; the fit is then the plane
+    nearest the prior that holds that direction (the prior turned about the least angle), not a
+    plane through noise.
 
-    The fit is accepted only when it is plausible: at least ``min_pixels`` pixels, a tilt from
+    The fit is accepted only when it is plausible: at least ``min_pixels`` pixels, and at least
+    ``min_share`` of all the pixels given (on a faint slide a few dense spots, a marker dot among
+    them, would set the plane for all; faint tissue lies close to any H&E plane), a tilt from
     the Ruifrok & Johnston plane of at most ``max_tilt_deg`` (stain pairs measured on real slides
     differ from it by up to about 45 degrees), and at least ``min_inliers`` of the pixels within
     ``inlier_od`` (plus 5 % of their own OD norm) of the plane: a plane pulled by ink lying on
@@ -77,7 +83,7 @@ def fit_hne_plane(od, *, min_od: float = 0.15, keep: float = 0.8, iterations: in
     ----------
     od : ndarray (..., 3)
         Optical densities (ink and artefacts already removed as far as known).
-    min_od, keep, iterations, min_pixels, max_tilt_deg, min_inliers, inlier_od
+    min_od, keep, iterations, min_pixels, max_tilt_deg, min_inliers, inlier_od, flat, min_share
         See above.
 
     Returns
@@ -104,6 +110,9 @@ def fit_hne_plane(od, *, min_od: float = 0.15, keep: float = 0.8, iterations: in
     prior = RUIFROK_PLANE_NORMAL.copy()
     if idx.size < min_pixels:
         return PlaneFit(prior, False, int(idx.size), 0.0, 0.0, f"only {idx.size} stained pixels to fit")
+    if idx.size < min_share * x.shape[0]:
+        return PlaneFit(prior, False, 0, 0.0, 0.0,  # no fit made: a faint slide, the prior is fine
+                        f"only {idx.size / x.shape[0]:.0%} of the tissue is dense enough to fit")
     if idx.size > 200_000:  # a deterministic subsample is plenty for a 3x3 fit
         idx = idx[:: idx.size // 200_000 + 1]
     x = x[idx].astype(np.float64)
@@ -113,8 +122,13 @@ def fit_hne_plane(od, *, min_od: float = 0.15, keep: float = 0.8, iterations: in
         sub = x[res <= np.quantile(res, keep)]
         if sub.shape[0] < min_pixels:
             break
-        _, vecs = np.linalg.eigh(sub.T @ sub)
-        v = vecs[:, 0]
+        vals, vecs = np.linalg.eigh(sub.T @ sub)
+        if vals[1] < flat * vals[0]:  # one colour only: the plane nearest the prior that holds it
+            d = vecs[:, 2]
+            v = prior - (prior @ d) * d
+            v /= np.linalg.norm(v)
+        else:
+            v = vecs[:, 0]
         normal = v if v @ prior >= 0 else -v
     tilt = _tilt(normal)
     norm = np.sqrt((x * x).sum(axis=1))

@@ -19,11 +19,11 @@ from .density import channel_max, channel_min, find_glass, od_lookup, od_tables
 from .exclusions import bands as _bands, smooth as _smooth
 from .otsu import otsu_threshold
 
-__all__ = ["tissue_feature", "density_threshold", "METHODS", "NOISE_SIGMAS", "MIN_FLOOR_OD", "NO_GLASS_FLOOR_OD"]
+__all__ = ["tissue_feature", "density_threshold", "glass_noise", "METHODS", "NOISE_SIGMAS", "MIN_FLOOR_OD", "NO_GLASS_FLOOR_OD"]
 
-METHODS = ("od-otsu", "saturation-otsu")
+METHODS = ("od-noise", "od-otsu", "saturation-otsu")
 _LOG_FLOOR = 1e-3  # OD below this is glass noise; keeps log10 finite
-#: The floor of the density threshold is the glass's own median density plus this many robust
+#: The floor of the density threshold is the glass's own density level (its mode) plus this many robust
 #: standard deviations of it (its noise), and never below MIN_FLOOR_OD (mean OD).
 NOISE_SIGMAS = 6.0
 MIN_FLOOR_OD = 0.008
@@ -31,11 +31,11 @@ MIN_FLOOR_OD = 0.008
 NO_GLASS_FLOOR_OD = 0.02
 
 
-def tissue_feature(rgb: np.ndarray, mpp: float, *, method: str = "od-otsu", smooth_um: float = 8.0,
+def tissue_feature(rgb: np.ndarray, mpp: float, *, method: str = "od-noise", smooth_um: float = 8.0,
                    glass=None) -> np.ndarray:
     """The per-pixel quantity a method thresholds (smoothed by a Gaussian of ``smooth_um`` µm).
 
-    ``"od-otsu"``: mean optical density over R, G, B relative to the glass colour.
+    ``"od-noise"``, ``"od-otsu"``: mean optical density over R, G, B relative to the glass colour.
     ``"saturation-otsu"``: HSV saturation ``(max - min) / max`` in [0, 1].
 
     Returns
@@ -47,11 +47,12 @@ def tissue_feature(rgb: np.ndarray, mpp: float, *, method: str = "od-otsu", smoo
     sigma = smooth_um / mpp
     h, w = rgb.shape[:2]
     feature = np.empty((h, w), np.float32)
-    if method == "od-otsu":
+    density = method != "saturation-otsu"
+    if density:
         tables = od_tables(find_glass(rgb).colour if glass is None else glass)
     for r0, r1, a0, a1 in _bands(h, sigma):
         band = rgb[a0:a1]
-        if method == "od-otsu":  # mean optical density over R, G, B, from 256-entry tables
+        if density:  # mean optical density over R, G, B, from 256-entry tables
             od = od_lookup(np.ascontiguousarray(band), tables)
             f = od[..., 0] + od[..., 1]
             f += od[..., 2]
@@ -65,20 +66,57 @@ def tissue_feature(rgb: np.ndarray, mpp: float, *, method: str = "od-otsu", smoo
     return feature
 
 
-def density_threshold(feature: np.ndarray, survey, *, method: str = "od-otsu", sensitivity: float = 1.0,
+def glass_noise(values) -> tuple[float, float]:
+    """Level and noise of the glass's density from the values of glass-like pixels.
+
+    Faint tissue can look like glass pixel by pixel (bright and nearly grey), so some of the
+    candidates are tissue, on a slide mostly covered by faint tissue most of them; tissue only
+    ever adds density. The level is therefore the lowest peak of the values' histogram (64 bins
+    from the 0.5th to the 95th percentile, smoothed over 7; a peak holding at least a tenth of
+    the highest, not in the lowest bin, where densities clipped at zero pile up),
+    not their median, and the noise is the robust standard deviation of the values *below* it
+    (1.4826 times their median distance to the level): glass noise is symmetric, and that side
+    holds no tissue.
+
+    Returns
+    -------
+    level, noise : float
+    """
+    g = np.asarray(values, dtype=np.float64).reshape(-1)
+    if g.size > 1_000_000:  # an evenly strided subset is plenty for a mode and a deviation
+        g = g[:: g.size // 1_000_000 + 1]
+    lo, hi = (float(v) for v in np.quantile(g, [0.005, 0.95]))
+    if hi - lo <= 1e-9:
+        return float(np.median(g)), 0.0
+    counts, edges = np.histogram(g, bins=64, range=(lo, hi))
+    counts = np.convolve(counts, [1, 2, 3, 4, 3, 2, 1], mode="same")
+    padded = np.r_[-1, counts, -1]
+    peaks = (counts >= padded[:-2]) & (counts >= padded[2:]) & (counts >= 0.1 * counts.max())
+    peaks[0] = False  # the lowest bin is no peak of its own (clipped densities pile up there)
+    peaks[int(np.argmax(counts))] = True
+    k = int(np.flatnonzero(peaks)[0])
+    level = 0.5 * (edges[k] + edges[k + 1])
+    below = level - g[g <= level]
+    noise = 1.4826 * float(np.median(below)) if below.size >= 20 else 1.4826 * float(np.median(np.abs(g - level)))
+    return level, noise
+
+
+def density_threshold(feature: np.ndarray, survey, *, method: str = "od-noise", sensitivity: float = 1.0,
                       min_od_floor: float | None = None, max_od_ceiling: float = 0.15,
                       min_saturation: float = 0.08):
     """The tissue threshold of a feature map and how it was reached.
 
-    ``"od-otsu"``: Otsu's threshold on the log10 of the mean optical density (glass is a narrow
-    peak near zero OD while pale and dense tissue span a decade, so the log scale keeps pale
-    tissue with the tissue class), kept between a floor and ``max_od_ceiling``. The floor is the
-    glass candidates' median density plus :data:`NOISE_SIGMAS` robust standard deviations
-    (1.4826 median absolute deviations) of it, at least :data:`MIN_FLOOR_OD`: it follows the
-    slide's own glass noise, so pale tissue on clean glass is kept and grainy glass is not split
-    (or ``min_od_floor`` when given). Without glass, Otsu would split tissue from tissue: the
-    threshold is :data:`NO_GLASS_FLOOR_OD`. Floor, ceiling and that level are divided by
-    ``sensitivity``. ``"saturation-otsu"``: Otsu on the saturation, at least ``min_saturation``.
+    ``"od-noise"`` (default): the mean optical density over glass must clear the glass's own
+    noise: the floor is the glass candidates' density level plus :data:`NOISE_SIGMAS` robust
+    standard deviations of it (:func:`glass_noise`), at least :data:`MIN_FLOOR_OD` (or
+    ``min_od_floor`` when given). Pale tissue on clean glass is kept (light eosin about 0.04 OD
+    above glass in green is a mean OD of about 0.02), grainy glass is not split. ``"od-otsu"``:
+    Otsu's threshold on the log10 of the mean optical density (glass is a narrow peak near zero
+    OD while pale and dense tissue span a decade), kept between that floor and
+    ``max_od_ceiling``; on a slide with much dense tissue it lies above faint tissue, which is
+    then lost. Without glass either would split tissue from tissue: the threshold is
+    :data:`NO_GLASS_FLOOR_OD`. Floor, ceiling and that level are divided by ``sensitivity``.
+    ``"saturation-otsu"``: Otsu on the saturation, at least ``min_saturation``.
 
     Parameters
     ----------
@@ -96,19 +134,16 @@ def density_threshold(feature: np.ndarray, survey, *, method: str = "od-otsu", s
     ----------
     .. [1] N. Otsu, IEEE Trans. Systems, Man, and Cybernetics 9(1):62-66, 1979.
     """
-    if method != "od-otsu":
+    if method not in METHODS:
+        raise ValueError(f"unknown tissue method {method!r}; choose one of {METHODS}")
+    if method == "saturation-otsu":
         otsu = otsu_threshold(feature)
         threshold = max(otsu, min_saturation)
         return threshold, otsu, threshold, math.nan
     level, noise = 0.0, math.nan
     found = bool(survey.found)
     if found and survey.candidates.any():  # the glass's own density: its level and noise (robust)
-        g = feature[survey.candidates]
-        if g.size > 1_000_000:  # an evenly strided subset is plenty for a median and a MAD
-            g = g[:: g.size // 1_000_000 + 1]
-        level = float(np.median(g))
-        noise = float(1.4826 * np.median(np.abs(g - level)))
-        del g
+        level, noise = glass_noise(feature[survey.candidates])
     if min_od_floor is not None:
         floor = min_od_floor
     elif found:
@@ -116,7 +151,7 @@ def density_threshold(feature: np.ndarray, survey, *, method: str = "od-otsu", s
     else:
         floor = NO_GLASS_FLOOR_OD
     floor /= sensitivity
-    if not found:
+    if not found or method == "od-noise":
         return floor, math.nan, floor, noise
     logs = np.maximum(feature, _LOG_FLOOR)
     otsu = 10.0 ** otsu_threshold(np.log10(logs, out=logs))

@@ -1,0 +1,85 @@
+"""Scores of a tissue mask against a generated slide's ground truth, and the aims of the hard-slide
+families as shares of draws (issue 28). Shared by the tuning family (test_hard_family.py) and
+the held-back family (test_heldback_family.py); only the scoring is shared, not the slides.
+
+Aims, each over the draws where it applies (ground truth: the layouts the generators drew):
+
+- ink-free tissue kept >= 0.9 and at most 5 % of the mask on ink, in >= 95 % of draws;
+- red blood cells (tissue) kept >= 0.9, in >= 95 % of the draws with blood;
+- faint tissue (>= 0.03 OD above glass in green) kept >= 0.8, in >= 95 % of the draws with it.
+"""
+
+from __future__ import annotations
+
+import os
+from pathlib import Path
+
+import numpy as np
+
+ARTEFACTS = Path(os.environ.get("TILEWRIGHT_ARTEFACTS", Path(__file__).parents[2] / "test-artefacts"))
+KEPT, ON_INK, BLOOD, FAINT, SHARE = 0.9, 0.05, 0.9, 0.8, 0.95
+
+
+def score(mask, truth, spare=None) -> dict:
+    """Per-draw figures: kept share of ink-free tissue, share of the mask on ink, kept blood and
+    faint tissue (NaN when the slide has none). ``spare``: tissue no aim asks for (fainter than
+    0.03 OD above glass), left out of every figure but the share on ink."""
+    m, ink = mask.array, truth["ink"]
+    free = truth["tissue"] & ~ink & (True if spare is None else ~spare)
+    out = {"kept": float(m[free].mean()) if free.any() else float("nan"),
+           "on_ink": float((m & ink).sum()) / max(1, int(m.sum()))}
+    for key in ("blood", "faint"):
+        t = truth.get(key)
+        t = None if t is None else t & ~ink
+        out[key] = float(m[t].mean()) if t is not None and t.sum() >= 20 else float("nan")
+    out["warnings"] = list(mask.warnings)
+    return out
+
+
+def passes(s: dict) -> dict:
+    """Which aims a draw meets (None where an aim does not apply)."""
+    return {"tissue": (s["kept"] >= KEPT and s["on_ink"] <= ON_INK) if s["kept"] == s["kept"] else None,
+            "blood": s["blood"] >= BLOOD if s["blood"] == s["blood"] else None,
+            "faint": s["faint"] >= FAINT if s["faint"] == s["faint"] else None}
+
+
+def shares(scores: list[dict]) -> dict:
+    """Share of draws meeting each aim, and how many draws each aim applied to."""
+    out = {}
+    for aim in ("tissue", "blood", "faint"):
+        got = [p[aim] for p in map(passes, scores) if p[aim] is not None]
+        out[aim] = (float(np.mean(got)) if got else float("nan"), len(got))
+    return out
+
+
+def worst(scores: list[dict], n: int = 5) -> list[dict]:
+    """The ``n`` draws farthest below an aim (by the largest shortfall of any aim)."""
+    def shortfall(s):
+        gaps = [KEPT - s["kept"], (s["on_ink"] - ON_INK) * 4, BLOOD - s["blood"], FAINT - s["faint"]]
+        return max(g for g in gaps if g == g)
+    return sorted(scores, key=shortfall, reverse=True)[:n]
+
+
+def summary(name: str, scores: list[dict]) -> str:
+    """A few lines for the test log: shares, quantiles and the worst draws."""
+    lines = [f"{name}: {len(scores)} draws"]
+    for aim, (share, n) in shares(scores).items():
+        lines.append(f"  {aim}: {share:.3f} of {n} draws meet the aim")
+    for key in ("kept", "on_ink", "blood", "faint"):
+        v = np.array([s[key] for s in scores if s[key] == s[key]])
+        if v.size:
+            q = np.quantile(v, [0.0, 0.05, 0.5])
+            lines.append(f"  {key}: min {q[0]:.3f}, 5th percentile {q[1]:.3f}, median {q[2]:.3f}")
+    for s in worst(scores):
+        lines.append(f"  worst: {s['name']}: kept {s['kept']:.3f}, on ink {s['on_ink']:.3f}, blood "
+                     f"{s['blood']:.3f}, faint {s['faint']:.3f} {s['warnings']}")
+    return "\n".join(lines)
+
+
+def write_qc(folder: str, name: str, rgb, mask) -> Path:
+    """The QC picture of one draw in ``test-artefacts/<folder>/`` (gitignored)."""
+    from tilewright.tissue.overlay import overlay_png, write_png
+
+    out = ARTEFACTS / folder
+    out.mkdir(parents=True, exist_ok=True)
+    return Path(write_png(out / f"{name}.png", overlay_png(rgb, mask, None, mpp=mask.mpp, title=name)))
