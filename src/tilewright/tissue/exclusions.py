@@ -166,6 +166,13 @@ def find_exclusions(rgb, glass, sigma_px: float, mpp: float, glassy, *, exclude_
     usable = ~(left_out | glassy | dark).reshape(-1)[::step][:at]
     del left_out
     plane = fit_hne_plane(sample[:at][usable])
+    if not plane.fitted and plane.n_pixels > 0:
+        # a fit was made and refused: what pass 1 left out (off the prior and not on tissue) may be
+        # the slide's own stain; a fit to every stained pixel but grey ones holds when it is H&E
+        # (trimmed, and refused again when most pixels do not lie close to it)
+        retry = fit_hne_plane(sample[:at][~(split[0] | glassy | dark).reshape(-1)[::step][:at]])
+        if retry.fitted:
+            plane = retry
     del sample
     if plane.fitted and plane.tilt_deg > 1.0:  # the prior was not the slide's plane: class again
         for r0, r1, a0, a1 in bands(h, sigma_px):
