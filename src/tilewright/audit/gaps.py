@@ -31,7 +31,8 @@ import pandas as pd
 
 from tilewright.audit.permutation import stable_seed
 
-__all__ = ["LAB_COLUMNS", "colour_gaps", "paired_gaps", "gap_words", "gap_sentence", "gap_summary", "N_BOOTSTRAP"]
+__all__ = ["LAB_COLUMNS", "colour_gaps", "paired_gaps", "gap_words", "gap_sentence", "gap_summary", "gap_aim", "N_BOOTSTRAP",
+           "AIM_SHARE", "AIM_MAX"]
 
 LAB_COLUMNS = ("lab_l_mean", "lab_a_mean", "lab_b_mean")
 #: Bootstrap redraws of the slides for each gap's interval.
@@ -169,3 +170,35 @@ def gap_sentence(row, aliases: dict | None = None, names=("raw", "normalized")) 
     return (f"The {factor} colour gap ({pair}, CIEDE2000 of mean tissue colour, 95 % interval over slides) "
             f"{verdict} from {_interval(row, 'gap_before')} in the {names[0]} to {_interval(row, 'gap_after')} in "
             f"the {names[1]}{pct}: now {gap_words(row['gap_after'])}.")
+
+
+#: Aims of a normalization (issue 27): every level pair's gap after at most AIM_SHARE of before and
+#: at most AIM_MAX (CIEDE2000), and no pair wider than before.
+AIM_SHARE = 0.30
+AIM_MAX = 3.0
+
+
+def gap_aim(table: pd.DataFrame, factor: str = "site") -> tuple[bool, list[str]]:
+    """Whether normalization closed ``factor``'s colour gaps, and one line a level pair.
+
+    Parameters
+    ----------
+    table : DataFrame
+        :func:`paired_gaps` (or :func:`tilewright.audit.compare.compare_gaps`) output.
+    factor : str
+
+    Returns
+    -------
+    (bool, list of str)
+        True when every pair of ``factor``'s levels meets the aim (after <= AIM_SHARE x before,
+        after <= AIM_MAX, not wider); lines like ``"site-north / site-south: site gap 5.6 -> 0.9
+        (-84 %)"``. (False, []) when the factor is absent.
+    """
+    rows = table[table["factor"] == factor]
+    lines, met = [], len(rows) > 0
+    for _, row in rows.iterrows():
+        before, after = float(row["gap_before"]), float(row["gap_after"])
+        change = f" ({100 * (after / before - 1):+.0f} %)" if before > 0 else ""
+        lines.append(f"{row['level_a']} / {row['level_b']}: {factor} gap {before:.1f} → {after:.1f}{change}")
+        met &= after <= AIM_SHARE * before and after <= AIM_MAX and after <= before
+    return met, lines
