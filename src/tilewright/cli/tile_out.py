@@ -70,6 +70,10 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--reference", help="reference image (PNG/JPEG/TIFF), slide (a sample of its tissue tiles is read, "
                                        "never all of it) or fitted-normalizer JSON; without it "
                                        "the cohort's own median stain is the target, saved as OUT/stain_target.<method>.json")
+    g.add_argument("--stain-groups", metavar="META.csv",
+                   help="without --reference: build the cohort's target from an equal share of each group's slides, "
+                        "groups from this CSV (slide_id and --stain-group-column; default: each folder and file format)")
+    g.add_argument("--stain-group-column", metavar="COL", help="column of --stain-groups to balance over (default site)")
     g = p.add_argument_group("regions")
     g.add_argument("--regions", help="region annotations: a GeoJSON/tile-table file, or a folder with one file a slide id")
     g.add_argument("--keep", help="region classes to keep, comma separated (needed with --regions; case and "
@@ -110,7 +114,7 @@ _FIELDS = {"mpp": "mpp", "tile": "tile", "stride": "stride", "min_tissue": "min_
            "exclude_dark": "exclude_dark", "dark_od": "dark_od", "ink_margin_um": "ink_margin_um",
            "class_property": "class_property", "default_class": "default_class", "object_types": "object_types",
            "colour_profile": "colour_profile", "mpp_tolerance": "tolerance",
-           "quality": "quality"}
+           "quality": "quality", "stain_groups": "stain_groups", "stain_group_column": "stain_group_column"}
 
 
 def config_from_args(args):

@@ -95,6 +95,12 @@ class TilingConfig:
         Tiles sampled to estimate a slide's own stain once.
     per_tile_stain : bool
         Estimate the source stain per tile instead of once per slide.
+    stain_groups : str or None
+        A CSV with ``slide_id`` and a grouping column (``stain_group_column``, default ``site``):
+        the cohort's default stain target is then built from an equal share of each group's
+        slides. Default: groups by folder and file format (:mod:`tilewright.run.target`).
+    stain_group_column : str
+        The column of ``stain_groups`` to balance the target over.
     threads : int
         Reader threads inside one slide.
     qc_overlay : bool
@@ -139,6 +145,8 @@ class TilingConfig:
     block: int = 2048
     stain_sample: int = 64
     per_tile_stain: bool = False
+    stain_groups: str | None = None
+    stain_group_column: str = "site"
     threads: int = 2
     qc_overlay: bool = True
     verify_jpeg: bool = True

@@ -21,8 +21,9 @@ __all__ = ["RUN_ONLY", "run_identity", "store_identity", "identity_changes", "ta
 #: Settings that do not change what a store contains. Lossless compression gives the same pixels
 #: whichever codec, and each store names its codec in its metadata, so a cohort may mix them; a
 #: lossy codec and its quality do change the tiles: they count as the field ``compression``
-#: (``tile_identity``: "lossless" or "jpeg quality 90").
-RUN_ONLY = ("threads", "verify_jpeg", "qc_overlay", "compression", "quality")
+#: (``tile_identity``: "lossless" or "jpeg quality 90"). The stain-target groups choose which slides
+#: build the cohort's target; the target itself counts (its digest, ``stain target``).
+RUN_ONLY = ("threads", "verify_jpeg", "qc_overlay", "compression", "quality", "stain_groups", "stain_group_column")
 
 #: Field names (they appear in the messages of refused resumes).
 SOURCE_SIZE, SOURCE_DIGEST, LEVEL0_MPP, STAIN_TARGET = (

@@ -106,13 +106,14 @@ def kept_row(final, slide_id: str, path: str, a: dict) -> dict:
     """The manifest row of the complete store ``final`` kept from an earlier run (``a``: its attributes)."""
     from tilewright.run.skip_reason import skip_reason
     from tilewright.run.slide import SlideResult
+    from tilewright.run.stain_bind import stain_columns
 
     n = int(a.get("n_tiles") or 0)
     from tilewright.slide.colour import colour_label
 
     return SlideResult(slide_id, path, "ok" if n else "skipped", "" if n else skip_reason(a), n, a.get("mpp_source"), a.get("objective"), a.get("source_level"), None,
                        str(final), colour_label(a.get("colour_profile")), "; ".join(a.get("warnings") or ()),
-                       kept=True).to_row()
+                       kept=True, **stain_columns(a)).to_row()
 
 
 def _replace_text(path: Path, text: str) -> None:

@@ -14,6 +14,7 @@ import numpy as np
 from tilewright.errors import TilewrightError
 from tilewright.run.config import TilingConfig
 from tilewright.run.identity import target_digest
+from tilewright.run.stain_bind import bind_normalizer, stain_columns
 from tilewright.store.layout import slide_ids
 from tilewright.store.writer import StoreWriter, remove_partials
 
@@ -37,6 +38,9 @@ class SlideResult:
     colour_profile: str = ""  # ColourInfo.label: "none", the applied profile, or "... (ignored)"
     warnings: str = ""  # "; "-joined "code: reason" messages (see tissue_mask, fit_source_checked)
     kept: bool = False  # a complete store of an earlier run, kept as it is (seconds: that run's)
+    stain_check: str = ""  # the normalized sample against the target: ok, off-target, not-normalized (run/stain_bind.py)
+    stain_delta_e_raw: float | None = None  # CIEDE2000 of the sample's mean tissue colour to the target's, raw
+    stain_delta_e: float | None = None  # ... and normalized
 
     def to_row(self) -> dict:
         return asdict(self)
@@ -159,18 +163,17 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
                              with_region=attrs["regions"] is not None) as writer, \
                     ThreadPoolExecutor(2, thread_name_prefix="tilewright-aside") as pool:
                 # the slide's stain estimate is fitted while the first blocks are read and decoded
-                bind = (pool.submit(_bind_normalizer, view, plan, config, target, path, survey.glass)
+                bind = (pool.submit(bind_normalizer, view, plan, config, target, path, survey.glass)
                         if config.normalizer else None)
                 # the slide-sized pictures go to the store, the QC picture is drawn and the source is
                 # digested beside the tile pipeline; the pictures are freed once written
                 aside = pool.submit(_aside, writer, survey.maps, survey.draw, survey.mask, plan, path, slide_id)
                 survey.maps = survey.draw = survey.mask = None
                 kept = _tile_arrays(view, plan, config, bind, writer, progress)
-                bound, used, stain_note = (None, None, "") if bind is None else bind.result()
+                bound, used, stain_notes, attrs["stain_outcome"] = (None, None, [], None) if bind is None else bind.result()
                 attrs["normalizer"] = None if bound is None else bound.to_dict()
                 attrs["stain_target"] = target_digest(used)  # what a resumed run must match
-                if stain_note:
-                    attrs["warnings"].append(f"stain-replaced: {stain_note}")
+                attrs["warnings"].extend(stain_notes)
                 png, attrs["source"]["digest"] = aside.result()
                 writer.commit(attrs, overwrite=overwrite, expected=kept)
                 n = writer.n
@@ -183,7 +186,7 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
                            mpp_source=float(slide.mpp), objective=slide.objective,
                            source_level=int(view.source_level), seconds=round(time.perf_counter() - t0, 3),
                            store=str(final), colour_profile=slide.colour.label,
-                           warnings="; ".join(attrs["warnings"]))
+                           warnings="; ".join(attrs["warnings"]), **stain_columns(attrs))
 
 
 def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNamespace:
@@ -270,29 +273,6 @@ def _glass(thumbnail, mask):
     from tilewright.run.target import slide_glass
 
     return slide_glass(thumbnail, mask)
-
-
-def _bind_normalizer(view, plan, config, target, path, glass=None):
-    """Fit the target (if needed) and bind the slide's own stain estimate from a tile sample,
-    optical density measured against the slide's glass colour ``glass``. Returns
-    ``(normalizer or None, shared target or None, note)``: a failed or implausible estimate of the
-    slide is replaced by a documented fallback
-    (:meth:`~tilewright.stain.normalizer.StainNormalizer.fit_source_checked`) and ``note`` says so."""
-    from tilewright.run.reference import make_target, own_target, sample_tiles
-
-    sample = sample_tiles(view, plan.yx, config.tile, config.stain_sample, config.seed, threads=config.threads)
-    if len(sample) == 0:
-        return None, None, ""  # nothing will be stored; no estimate needed
-    if target is None and config.reference is not None:
-        target = make_target(config.normalizer, config.reference, config)
-    used = target  # the shared target (None: the slide's own estimate is its target)
-    note = ""
-    if target is None:
-        target, note = own_target(config.normalizer, sample, glass, path)
-    if config.per_tile_stain:
-        return target.with_glass(glass), used, note
-    bound, replaced = target.fit_source_checked(sample, glass=glass)
-    return bound, used, "; ".join(n for n in (note, replaced) if n)
 
 
 def _regions_for(regions, config, slide_id, slide, path):

@@ -13,11 +13,12 @@ import numpy as np
 
 from ..errors import ConfigError
 from .estimate import (PLAUSIBLE_MAX_RANGE, StainProfile, estimate_stain_profile, estimate_stains, implausible,
-                       max_concentrations, MIN_TISSUE_PIXELS)
+                       sample_maxima, MIN_TISSUE_PIXELS)
+from .estimate_od import estimate_od
 from .density import glass_od
 from .normalizer import StainNormalizer, as_float_list, glass_list
 from .od_transform import apply_od_affine
-from .tissue_pixels import DEFAULT_BETA, tissue_od
+from .tissue_pixels import DEFAULT_BETA, MAX_STAT_PIXELS
 
 #: Each stain's concentration is scaled by the target's maximum over the source's, at most
 #: MAX_GAIN: a failed source estimate (maxima near 0) is not blown up, with its noise and JPEG
@@ -163,14 +164,15 @@ class MacenkoNormalizer(StainNormalizer):
 
     def _fallback_source(self, rgb, glass):
         """The target's stains with the slide's own 99th-percentile concentrations under them
-        (the slide keeps its intensity range), or the target's maxima too when the slide has too
-        few tissue pixels or its maxima are out of range."""
-        od, _ = tissue_od(rgb, beta=self.beta, glass=glass)
-        if od.shape[0] >= MIN_TISSUE_PIXELS:
-            maxima = max_concentrations(od, self.stain_matrix)
+        (the slide keeps its intensity range), read like an estimate (clipped pixels left out,
+        :func:`~tilewright.stain.estimate.sample_maxima`), or the target's maxima too when the
+        slide has too few tissue pixels or its maxima are out of range."""
+        sample = estimate_od(rgb, beta=self.beta, glass=glass, max_pixels=MAX_STAT_PIXELS)
+        if sample.single.shape[0] >= MIN_TISSUE_PIXELS:
+            maxima = sample_maxima(sample, self.stain_matrix)
             lo, hi = PLAUSIBLE_MAX_RANGE
             if np.all(np.isfinite(maxima)) and np.all((maxima >= lo) & (maxima <= hi)):
-                return (StainProfile(np.asarray(self.stain_matrix, np.float32), maxima, int(od.shape[0])),
+                return (StainProfile(np.asarray(self.stain_matrix, np.float32), maxima, int(sample.n_tissue)),
                         "the target's stain vectors with the slide's own concentration maxima")
         return self._target_stats(), "the target's stain vectors and concentration maxima"
 

@@ -12,7 +12,10 @@ from tilewright.errors import StoreError
 __all__ = ["MANIFEST_COLUMNS", "write_manifest", "read_manifest", "stores_manifest", "Cohort", "open_cohort"]
 
 MANIFEST_COLUMNS = ["slide_id", "source", "status", "error", "n_tiles", "mpp_source", "objective",
-                    "source_level", "seconds", "colour_profile", "warnings"]
+                    "source_level", "seconds", "colour_profile", "warnings",
+                    # the stain outcome check (tilewright.run.stain_bind): ok / off-target / not-normalized, and
+                    # the CIEDE2000 of the slide's sample's mean tissue colour to the target's, raw and stored
+                    "stain_check", "stain_delta_e_raw", "stain_delta_e"]
 
 
 def write_manifest(out_dir: str | os.PathLike, rows: list[dict]) -> "object":
@@ -28,8 +31,9 @@ def write_manifest(out_dir: str | os.PathLike, rows: list[dict]) -> "object":
     df["error"] = df["error"].fillna("").astype(str)
     df["colour_profile"] = df["colour_profile"].fillna("").astype(str)
     df["warnings"] = df["warnings"].fillna("").astype(str)  # "; "-joined "code: reason" messages
+    df["stain_check"] = df["stain_check"].fillna("").astype(str)
     df["n_tiles"] = df["n_tiles"].fillna(0).astype("int64")
-    for col in ("mpp_source", "objective", "seconds"):
+    for col in ("mpp_source", "objective", "seconds", "stain_delta_e_raw", "stain_delta_e"):
         df[col] = pd.to_numeric(df[col], errors="coerce").astype("float64")
     df["source_level"] = pd.to_numeric(df["source_level"], errors="coerce").astype("Int64")
     df = df.sort_values("slide_id", kind="stable").reset_index(drop=True)
