@@ -101,7 +101,8 @@ def concentrations(rng, shape, mpp):
     hema = np.maximum(hema, np.maximum(dense, loose))
     in_dense = dense > 0
     eosin = np.where(in_dense, eosin * 0.05, np.where(cytoplasm > 0, np.maximum(cytoplasm, eosin * 0.6), eosin))
-    glass = _smooth(rng, shape, int(60 / sub) or 1, 0, 1) < 0.2
+    field = _smooth(rng, shape, int(30 / sub) or 1, 0, 1)
+    glass = field < np.percentile(field, 20.0)  # a fifth of the field is blank glass
     conc = np.stack([hema, eosin]).astype(np.float32)
     conc[:, glass] = 0.0
     return conc, glass

@@ -125,6 +125,7 @@ def _html(audit, figures: dict, before, names) -> str:
             *[f"<li>{html.escape(s)}</li>" for s in gap_findings(before, audit, names)],
             *[f"<li>{html.escape(s)}</li>" for s in comparison_findings(table, names, before.notes.get("_aliases"))],
             "</ol>",
+            *[_img(n, a) for n, a in figures.get("before_after", [])],
             _table(table.rename(columns={"cramers_v_before": f"V {names[0]}", "cramers_v_after": f"V {names[1]}",
                                          "p_adjusted_before": f"adj. p {names[0]}",
                                          "p_adjusted_after": f"adj. p {names[1]}",
@@ -167,6 +168,24 @@ def _html(audit, figures: dict, before, names) -> str:
         "</main></body></html>",
     ]
     return "\n".join(parts)
+
+
+def _level_tiles(before, after, tmp: Path) -> list:
+    """Raw and normalized tiles of each level of the batch factor with the widest raw colour gap."""
+    from tilewright.audit.gaps import gap_summary
+    from tilewright.audit.level_tiles import level_tiles_picture
+
+    gaps = compare_gaps(before, after)
+    hidden = {m for members in (before.notes.get("_aliases") or {}).values() for m in members}
+    summary = gap_summary(gaps)
+    summary = summary[(summary["factor"] != before.label) & ~summary["factor"].isin(hidden)]
+    if summary.empty:
+        return []
+    factor = str(summary.sort_values("gap_before", ascending=False).iloc[0]["factor"])
+    name = plots.file_name("tiles", factor)
+    if level_tiles_picture(before, after, factor, tmp / name, gaps=gaps) is None:
+        return []
+    return [(name, f"tiles of each {factor}, raw and normalized")]
 
 
 def _gap_section(audit, before, names) -> list:
@@ -234,6 +253,8 @@ def write_report(audit, folder, *, before=None, names=None) -> Path:
         audit.kruskal.to_csv(tmp / "kruskal.csv", index=False)
         (tmp / "findings.txt").write_text(_findings_text(audit, before, names), encoding="utf-8")
         figures = _draw(audit, tmp)
+        if before is not None:
+            figures["before_after"] = _level_tiles(before, audit, tmp)
         (tmp / "report.html").write_text(_html(audit, figures, before, names), encoding="utf-8")
         gaps = audit.gaps if before is None else compare_gaps(before, audit)
         gaps.to_csv(tmp / "gaps.csv", index=False)

@@ -17,8 +17,10 @@ import numpy as np
 
 __all__ = ["bind_normalizer", "stain_columns", "CHECKS"]
 
-#: Values of the manifest's ``stain_check``: "" (not normalized by choice, or per-tile mode).
-CHECKS = ("ok", "off-target", "not-normalized")
+#: Values of the manifest's ``stain_check`` ("" when not checked: no normalization, per-tile mode):
+#: ``uncertain`` is within the limits but from an estimate flagged by
+#: :func:`tilewright.stain.estimate.uncertain` (the reason is in the store's ``stain_outcome``).
+CHECKS = ("ok", "uncertain", "off-target", "not-normalized")
 
 
 def _measure(target, bound, sample, glass) -> dict:
@@ -58,7 +60,16 @@ def _checked(target, bound, replaced: str, sample, glass):
     reason = off_target_reason(outcome)
     if reason:
         notes.append(f"stain-off-target: {reason}")
-    return bound, {**outcome, "check": "off-target" if reason else "ok"}, notes
+    doubt = _uncertain(bound.source)
+    check = "off-target" if reason else ("uncertain" if doubt else "ok")
+    return bound, {**outcome, "uncertain": doubt or None, "check": check}, notes
+
+
+def _uncertain(source) -> str:
+    """Why the bound Macenko estimate may be off (:func:`tilewright.stain.estimate.uncertain`)."""
+    from tilewright.stain.estimate import StainProfile, uncertain
+
+    return uncertain(source) if isinstance(source, StainProfile) else ""
 
 
 def bind_normalizer(view, plan, config, target, path, glass=None):

@@ -172,7 +172,8 @@ class MacenkoNormalizer(StainNormalizer):
             maxima = sample_maxima(sample, self.stain_matrix)
             lo, hi = PLAUSIBLE_MAX_RANGE
             if np.all(np.isfinite(maxima)) and np.all((maxima >= lo) & (maxima <= hi)):
-                return (StainProfile(np.asarray(self.stain_matrix, np.float32), maxima, int(sample.n_tissue)),
+                return (StainProfile(np.asarray(self.stain_matrix, np.float32), maxima, int(sample.n_tissue),
+                                     float(sample.clipped_share)),
                         "the target's stain vectors with the slide's own concentration maxima")
         return self._target_stats(), "the target's stain vectors and concentration maxima"
 
