@@ -23,9 +23,14 @@ __all__ = ["bind_normalizer", "stain_columns", "CHECKS"]
 CHECKS = ("ok", "uncertain", "off-target", "not-normalized")
 
 
+#: Tiles of the sample the outcome is measured on (every k-th tile; the estimate reads them all).
+OUTCOME_TILES = 16
+
+
 def _measure(target, bound, sample, glass) -> dict:
     from tilewright.stain.outcome import measure_outcome
 
+    sample = sample[:: max(1, len(sample) // OUTCOME_TILES)]
     stains = getattr(target, "stain_matrix", None)
     maxima = getattr(target, "max_concentrations", None)
     return measure_outcome(sample, bound.transform(sample), glass=glass, target_colour=target.target_colour,
