@@ -60,7 +60,11 @@ def test_every_site_pair_closes(cohorts, seed, method):
                      "--workers", "1"])
     assert code == 0
     manifest = pd.read_csv(out / "manifest.csv")
-    assert (manifest["status"] == "ok").all() and len(manifest) == len(metadata)
+    assert len(manifest) == len(metadata) and manifest["status"].isin(["ok", "skipped"]).all()
+    # a small random layout may hold no tile with enough tissue (skipped, as tile-out should);
+    # each site keeps at least two slides to compare
+    ok = metadata.set_index("slide_id").loc[manifest.loc[manifest["status"] == "ok", "slide_id"], "site"]
+    assert ok.value_counts().min() >= 2 and ok.nunique() == 3
     gaps = site_gaps(out, metadata)
     assert len(gaps) == 3  # three sites, three pairs
     report = gaps[["level_a", "level_b", "gap_before", "gap_after"]].round(2).to_string()
