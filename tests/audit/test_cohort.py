@@ -45,9 +45,15 @@ def test_raw_tiles_show_the_same_site_effect(raw_cohort):
 
 def test_macenko_normalization_removes_the_site_association(audits):
     before, after = audits
-    # Macenko et al. (2009) normalization of the stored tiles removes the site stain difference
+    # Macenko et al. (2009) normalization of the stored tiles removes the site stain difference:
+    # issue 27's aim on the size of the gap (CIEDE2000 of mean tissue colour, skimage), and no
+    # evidence left of an association (k-means may still split 5 + 5 slides along a gap below 1,
+    # which is why the gap, not V, is the measure of the effect)
+    gaps = before.compare(after).set_index("factor")
+    assert gaps.loc["site", "gap_after"] <= 0.3 * gaps.loc["site", "gap_before"]
+    assert gaps.loc["site", "gap_after"] <= 3.0
     after_site = after.associations.set_index("factor").loc["site"]
-    assert after_site["cramers_v"] <= before.association("site") / 2 and after_site["p_adjusted"] >= 0.05
+    assert after_site["p_adjusted"] >= 0.05
     table = before.compare(after).set_index("factor")
     assert table.loc["site", "cramers_v_after"] == pytest.approx(after.association("site"))
     sentences = before.comparison_findings(after)

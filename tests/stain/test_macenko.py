@@ -35,7 +35,9 @@ def test_two_sites_colour_distance_falls_by_70_percent():
 
 def test_maps_source_onto_target_stains_and_intensities():
     rng = np.random.default_rng(5)
-    conc = rng.gamma(2.0, 0.3, (160, 160, 2))
+    # 99th-percentile concentration 1.3 (2.0 in the reference): dark nuclei, no channel at 0 or 1
+    # (pixels clipped there are not read by the estimate, see tilewright.stain.estimate_od)
+    conc = rng.gamma(2.0, 0.2, (160, 160, 2))
     conc[rng.random((160, 160)) < 0.2] = 0
     source = render(SOUTH_STAINS, conc)
     reference = render(NORTH_STAINS, conc * [1.5, 0.8])

@@ -127,7 +127,7 @@ def target():
 
 
 @pytest.mark.parametrize("name", sorted(SLIDES))
-def test_macenko_never_darkens_past_the_darkest_raw_pixel(masks, target, name):
+def test_macenko_darkens_only_a_pale_slide_and_within_the_gain_cap(masks, target, name):
     from tilewright.run.target import slide_glass
 
     rgb, mask, _ = masks[name]
@@ -136,9 +136,17 @@ def test_macenko_never_darkens_past_the_darkest_raw_pixel(masks, target, name):
     out = bound.transform(sample)
     darkest_raw = sample.astype(np.float32).mean(axis=-1).min()
     darkest_out = out.astype(np.float32).mean(axis=-1).min()
-    # ground truth: the raw pixels themselves; a small margin (24 of 255 levels, under 10 %) for
-    # the target's own density and the capped concentration gain (tilewright.stain.macenko.MAX_GAIN)
-    assert darkest_out >= darkest_raw - 24, (name, note)
+    # ground truth: the raw pixels themselves. A pale slide is brought up to the target's strength
+    # (issue 27: a site stained at 0.7x must reach the others), but never by more than the
+    # concentration gain cap allows: the darkest output optical density is at most MAX_GAIN times
+    # the darkest raw one (Beer–Lambert: OD scales with concentration), plus 0.05 for the target's
+    # own vectors and JPEG noise
+    from tilewright.stain.macenko import MAX_GAIN
+
+    od_raw, od_out = np.log10(255.0 / max(darkest_raw, 1.0)), np.log10(255.0 / max(darkest_out, 1.0))
+    assert od_out <= MAX_GAIN * od_raw + 0.05, (name, note, darkest_raw, darkest_out)
+    if darkest_out < darkest_raw - 24:  # only a slide stained paler than the target is darkened
+        assert np.all(bound.source.max_concentrations < target.max_concentrations), (name, note)
 
 
 @pytest.mark.parametrize("glass", [(232.0, 234.0, 226.0), (241.0, 238.0, 244.0)])

@@ -19,6 +19,7 @@ from tilewright.audit.association import association_table
 from tilewright.audit.embedding import Embedding, embed_slides
 from tilewright.audit.factors import alias_groups, cohort_factors
 from tilewright.audit.findings import audit_findings, comparison_findings, guess_label, quality_findings
+from tilewright.audit.gaps import colour_gaps, gap_sentence, gap_summary
 from tilewright.audit.metric_tests import kruskal_table
 from tilewright.audit.metrics import COLOUR_METRICS, METRICS, QUALITY_METRICS, slide_metrics
 from tilewright.audit.permutation import N_RESAMPLES
@@ -42,6 +43,11 @@ class CohortAudit:
         n_rearrangements, chi2, dof, n_slides, n_levels, n_clusters``: colour clusters × factor,
         strongest first; V bias-corrected (Bergsma 2013), p exact or by permutation,
         adjusted (Benjamini–Hochberg) over the factors.
+    gaps : DataFrame
+        ``factor, level_a, level_b, n_a, n_b, gap, gap_lo, gap_hi``: how far apart each pair of a
+        factor's levels is in mean tissue colour (CIEDE2000, 95 % bootstrap interval over slides;
+        :mod:`tilewright.audit.gaps`). A strong cluster association with a gap below 1 is a
+        difference nobody sees; with a gap of 10 one a model will learn.
     kruskal : DataFrame
         ``factor, metric, section, h, p_value, p_adjusted, exact, n_groups, n_slides``: every
         metric across every factor (Kruskal–Wallis, exact or permutation p, Benjamini–Hochberg
@@ -83,6 +89,7 @@ class CohortAudit:
     source: str
     label: str | None
     folder: Path
+    gaps: pd.DataFrame = field(repr=False, default_factory=pd.DataFrame)
     previews: dict = field(repr=False, default_factory=dict)
     notes: dict = field(repr=False, default_factory=dict)
     findings: list = field(default_factory=list)
@@ -113,10 +120,12 @@ class CohortAudit:
         return float(rows["cramers_v"].iloc[0]) if len(rows) else float("nan")
 
     def compare(self, other: "CohortAudit") -> pd.DataFrame:
-        """This audit (before) against ``other`` (after); see :func:`compare_audits`."""
-        from tilewright.audit.compare import compare_audits
+        """This audit (before) against ``other`` (after): every factor's V and p-values
+        (:func:`~tilewright.audit.compare.compare_audits`) and its largest colour gap before and
+        after (:func:`~tilewright.audit.compare.before_after_table`)."""
+        from tilewright.audit.compare import before_after_table
 
-        return compare_audits(self, other)
+        return before_after_table(self, other)
 
     def write_report(self, folder, *, before: "CohortAudit | None" = None, names=None) -> Path:
         """Write ``audit.parquet``, ``associations.csv``, ``kruskal.csv``, PNG plots and
@@ -151,6 +160,17 @@ class CohortAudit:
         """Sentences on how associations changed from this audit to ``other``."""
         names = names or (_source_name(self), _source_name(other))
         return comparison_findings(self.compare(other), tuple(names), self.notes.get("_aliases"))
+
+
+def _with_gaps(findings: list, audit: CohortAudit) -> list:
+    """The findings with each batch factor's largest colour gap said right after the cluster
+    sentence (the label's gap is not a batch effect; aliases are named with their factor)."""
+    hidden = {m for members in (audit.notes.get("_aliases") or {}).values() for m in members}
+    summary = gap_summary(audit.gaps)
+    lines = [gap_sentence(row, audit.notes.get("_aliases")) for _, row in summary.iterrows()
+             if row["factor"] != audit.label and row["factor"] not in hidden]
+    at = next((i + 1 for i, s in enumerate(findings) if "colour clusters follow" in s.lower()), len(findings))
+    return findings[:at] + lines + findings[at:]
 
 
 def _source_name(audit: CohortAudit) -> str:
@@ -330,7 +350,8 @@ def build_audit(folder, ok, rows: dict, previews: dict, attrs: dict, skipped: li
         previews=previews,
         notes=notes,
     )
-    audit.findings = audit_findings(audit)
+    audit.gaps = colour_gaps(metrics, factors, seed=seed)
+    audit.findings = _with_gaps(audit_findings(audit), audit)
     audit.quality_findings = quality_findings(audit)
     if metadata is None:
         audit.findings.append(

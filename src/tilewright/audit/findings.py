@@ -170,11 +170,24 @@ def audit_findings(audit) -> list[str]:
         normalized = audit.source == "tiles" and audit.normalized
         advice = ("stain normalization did not remove it" if normalized
                   else "normalize stain, re-run this audit on the normalized tiles")
+        gap = _largest_gap(audit, site)
+        if normalized and gap is not None and gap <= 3.0:
+            advice = (f"stain normalization left a {site} colour gap of only {gap:.1f} CIEDE2000, but the colour "
+                      "metrics still separate the levels")
         out.append(
             f"A model trained on these tiles could learn {names} instead of the label: {advice}, and keep {site} "
             f"apart in validation: {split_command(audit, site)}"
         )
     return [s for s in out if s]
+
+
+def _largest_gap(audit, factor: str):
+    """The factor's largest level-pair colour gap (:mod:`tilewright.audit.gaps`), or None."""
+    gaps = getattr(audit, "gaps", None)
+    if gaps is None or len(gaps) == 0 or "gap" not in gaps.columns:
+        return None
+    rows = gaps[gaps["factor"] == factor]
+    return float(rows["gap"].max()) if len(rows) else None
 
 
 def _confounding(audit, found: pd.DataFrame, name) -> list[str]:

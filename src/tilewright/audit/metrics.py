@@ -94,7 +94,7 @@ def slide_metrics(pixels) -> dict:
     if tissue.shape[0] < MIN_PIXELS:
         return out
     out.update(_colour(tissue))
-    out.update(_stain(tissue))
+    out.update(_stain(tissue, getattr(pixels, "tiles", None), getattr(pixels, "glass", None)))
     return out
 
 
@@ -118,14 +118,18 @@ def _colour(tissue: np.ndarray) -> dict:
     return out
 
 
-def _stain(tissue: np.ndarray) -> dict:
+def _stain(tissue: np.ndarray, tiles=None, glass=None) -> dict:
+    """Mean OD of the tissue pixels, and the Macenko estimate of the sampled tiles when there are
+    some (read the way the normalizer reads a slide's sample, against the slide's glass), else of
+    the tissue pixels."""
     from tilewright.errors import StainEstimationError
     from tilewright.stain.density import rgb_to_od
     from tilewright.stain.macenko import estimate_stain_profile
 
     out = {"od_mean": float(rgb_to_od(tissue).mean(dtype=np.float64))}
     try:
-        profile = estimate_stain_profile(tissue[:, None, :])
+        profile = (estimate_stain_profile(tiles, glass=glass) if tiles is not None and len(tiles)
+                   else estimate_stain_profile(tissue[:, None, :]))
     except StainEstimationError:
         return out
     out.update(stain_angles(profile.stain_matrix))

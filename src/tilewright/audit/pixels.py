@@ -45,6 +45,12 @@ class SlidePixels:
         Tiles in the store.
     attrs : dict
         Group attributes of the store.
+    tiles : ndarray, uint8, (T, h, w, 3), optional
+        The sampled tiles themselves, for the stain estimate (which reads tiles the way the
+        normalizer reads a slide's sample: :mod:`tilewright.stain.estimate_od`); None for a
+        thumbnail.
+    glass : ndarray (3,) or None
+        Glass colour the tiles' optical density is measured against (None: white).
     """
 
     slide_id: str
@@ -55,6 +61,8 @@ class SlidePixels:
     preview: np.ndarray
     n_tiles: int
     attrs: dict
+    tiles: np.ndarray | None = None
+    glass: np.ndarray | None = None
 
 
 def raw_glass(attrs: dict, thumbnail: np.ndarray, background: np.ndarray):
@@ -93,7 +101,7 @@ def stored_glass(attrs: dict, thumbnail: np.ndarray, background: np.ndarray):
 
 
 def tile_pixels(slide_id: str, tiles: np.ndarray, masks: np.ndarray, *, pick: np.ndarray | None,
-                tissue_fraction: float, n_tiles: int, attrs: dict) -> SlidePixels:
+                tissue_fraction: float, n_tiles: int, attrs: dict, glass=None) -> SlidePixels:
     """Pixels of sampled tiles, split by per-tile tissue masks.
 
     Parameters
@@ -104,6 +112,8 @@ def tile_pixels(slide_id: str, tiles: np.ndarray, masks: np.ndarray, *, pick: np
     pick : ndarray of int or None
         Flat indices into the tissue pixels to keep (a seeded subsample shared by both sides);
         None keeps all.
+    glass : array_like (3,), optional
+        Glass colour of ``tiles`` (for their stain estimate); None is white.
     """
     tissue = tiles[masks]
     if pick is not None:
@@ -113,7 +123,7 @@ def tile_pixels(slide_id: str, tiles: np.ndarray, masks: np.ndarray, *, pick: np
         background = background[np.linspace(0, background.shape[0] - 1, MAX_PIXELS // 4).astype(np.int64)]
     gray = [(_gray(t), m) for t, m in zip(tiles, masks)]
     preview = _mosaic(tiles, PREVIEW_SIDE) if tiles.shape[0] else np.full((8, 8, 3), 255, np.uint8)
-    return SlidePixels(slide_id, tissue, background, gray, tissue_fraction, preview, n_tiles, attrs)
+    return SlidePixels(slide_id, tissue, background, gray, tissue_fraction, preview, n_tiles, attrs, tiles, glass)
 
 
 def tissue_pick(masks: np.ndarray, rng: np.random.Generator, limit: int = MAX_PIXELS) -> np.ndarray | None:

@@ -18,7 +18,7 @@ import pandas as pd
 from tilewright.location.objpath import as_path
 from tilewright.location.url import is_url
 from tilewright.audit import plots
-from tilewright.audit.compare import compare_audits
+from tilewright.audit.compare import before_after_table, compare_audits, compare_gaps, gap_findings
 from tilewright.audit.findings import comparison_findings
 from tilewright.errors import StoreError
 
@@ -124,8 +124,10 @@ def _html(audit, figures: dict, before, names) -> str:
             f'<section id="before-after"><h2>Before / after: {html.escape(names[0])} → {html.escape(names[1])}</h2>',
             f'<p>{html.escape(pairing)}</p>',
             "<ol class=\"findings\">",
+            *[f"<li>{html.escape(s)}</li>" for s in gap_findings(before, audit, names)],
             *[f"<li>{html.escape(s)}</li>" for s in comparison_findings(table, names, before.notes.get("_aliases"))],
             "</ol>",
+            *[_img(n, a) for n, a in figures.get("before_after", [])],
             _table(table.rename(columns={"cramers_v_before": f"V {names[0]}", "cramers_v_after": f"V {names[1]}",
                                          "p_adjusted_before": f"adj. p {names[0]}",
                                          "p_adjusted_after": f"adj. p {names[1]}",
@@ -142,6 +144,7 @@ def _html(audit, figures: dict, before, names) -> str:
         "over the factors. An association is stated only at adjusted p &lt; 0.05. Clusters are k-means on "
         "principal components of the standardized colour and stain metrics (tissue amount and sharpness are "
         "left out), k chosen by mean silhouette.</p></section>",
+        *_gap_section(audit, before, names),
         '<section id="embedding"><h2>Embedding</h2>',
         *[_img(n, a) for n, a in figures["embedding"]],
         "</section>",
@@ -169,10 +172,43 @@ def _html(audit, figures: dict, before, names) -> str:
         _table(audit.skipped),
         "</section>",
         '<p class="muted">Files: audit.parquet (metrics, cluster, coordinates), associations.csv, kruskal.csv, '
-        "by_level.csv, findings.txt and the PNG figures beside this page.</p>",
+        "by_level.csv, gaps.csv, findings.txt and the PNG figures beside this page.</p>",
         "</main></body></html>",
     ]
     return "\n".join(parts)
+
+
+def _level_tiles(before, after, tmp: Path) -> list:
+    """Raw and normalized tiles of each level of the batch factor with the widest raw colour gap."""
+    from tilewright.audit.gaps import gap_summary
+    from tilewright.audit.level_tiles import level_tiles_picture
+
+    gaps = compare_gaps(before, after)
+    hidden = {m for members in (before.notes.get("_aliases") or {}).values() for m in members}
+    summary = gap_summary(gaps)
+    summary = summary[(summary["factor"] != before.label) & ~summary["factor"].isin(hidden)]
+    if summary.empty:
+        return []
+    factor = str(summary.sort_values("gap_before", ascending=False).iloc[0]["factor"])
+    name = plots.file_name("tiles", factor)
+    if level_tiles_picture(before, after, factor, tmp / name, gaps=gaps) is None:
+        return []
+    return [(name, f"tiles of each {factor}, raw and normalized")]
+
+
+def _gap_section(audit, before, names) -> list:
+    """The colour gaps between each factor's levels (raw and normalized when ``before`` is given)."""
+    if before is not None:
+        table = compare_gaps(before, audit).rename(columns={
+            "gap_before": f"gap {names[0]}", "gap_before_lo": "lo", "gap_before_hi": "hi",
+            "gap_after": f"gap {names[1]}", "gap_after_lo": "lo ", "gap_after_hi": "hi "})
+    else:
+        table = audit.gaps
+    return ['<section id="gaps"><h2>Colour gaps between factor levels</h2>', _table(table, digits=2),
+            '<p class="muted">CIEDE2000 (Sharma et al. 2005) between the mean tissue CIELAB of the slides of each '
+            "level; lo–hi: 95 % percentile bootstrap interval over slides (redrawn within each level, the same "
+            "redraws on both sides). Below 1: not noticeable side by side; 1–3: noticeable on close comparison; "
+            "above 3: visible at a glance (common practice). All pairs in gaps.csv.</p></section>"]
 
 
 def _findings_text(audit, before, names) -> str:
@@ -183,6 +219,7 @@ def _findings_text(audit, before, names) -> str:
         lines += ["", f"Before / after ({names[0]} -> {names[1]}):"]
         if before.notes.get("_pairing"):
             lines.append(before.notes["_pairing"])
+        lines += gap_findings(before, audit, names)
         lines += comparison_findings(table, names, before.notes.get("_aliases"))
     return "\n".join(lines) + "\n"
 
@@ -227,9 +264,13 @@ def write_report(audit, folder, *, before=None, names=None) -> Path:
         audit.by_level.to_csv(tmp / "by_level.csv", index=False)
         (tmp / "findings.txt").write_text(_findings_text(audit, before, names), encoding="utf-8")
         figures = _draw(audit, tmp)
-        (tmp / "report.html").write_text(_html(audit, figures, before, names), encoding="utf-8")
         if before is not None:
-            compare_audits(before, audit).to_csv(tmp / "before_after.csv", index=False)
+            figures["before_after"] = _level_tiles(before, audit, tmp)
+        (tmp / "report.html").write_text(_html(audit, figures, before, names), encoding="utf-8")
+        gaps = audit.gaps if before is None else compare_gaps(before, audit)
+        gaps.to_csv(tmp / "gaps.csv", index=False)
+        if before is not None:
+            before_after_table(before, audit).to_csv(tmp / "before_after.csv", index=False)
         written = sorted(tmp.iterdir(), key=lambda p: p.name == "report.html")
         for path in written:
             os.replace(path, folder / path.name)

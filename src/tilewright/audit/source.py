@@ -203,7 +203,7 @@ def read_slide(folder: Path, slide_id: str, source: str, *, max_tiles: int = 64,
         tiles, glass = _stored(group, index), stored_glass(attrs, thumbnail, background)
     masks = tissue_mask(tiles, glass=glass) if tiles.size else np.zeros(tiles.shape[:3], bool)
     return tile_pixels(slide_id, tiles, masks, pick=tissue_pick(masks, rng), tissue_fraction=fraction,
-                       n_tiles=n_tiles, attrs=attrs)
+                       n_tiles=n_tiles, attrs=attrs, glass=glass)
 
 
 def read_pair(folder: Path, slide_id: str, *, max_tiles: int = 64, seed: int = 0) -> tuple[SlidePixels, SlidePixels]:
@@ -232,9 +232,10 @@ def read_pair(folder: Path, slide_id: str, *, max_tiles: int = 64, seed: int = 0
     rng = np.random.default_rng(stable_seed(seed, slide_id))
     index = _sample(group, max_tiles, rng)
     raw, stored = _source(group, attrs, index, path), _stored(group, index)
-    masks = (tissue_mask(raw, glass=raw_glass(attrs, thumbnail, background)) if raw.size
-             else np.zeros(raw.shape[:3], bool))
+    glass = raw_glass(attrs, thumbnail, background)
+    masks = tissue_mask(raw, glass=glass) if raw.size else np.zeros(raw.shape[:3], bool)
     pick = tissue_pick(masks, rng)
     common = dict(pick=pick, tissue_fraction=float(mask.mean()) if mask.size else float("nan"),
                   n_tiles=int(group["tiles"].shape[0]), attrs=attrs)
-    return tile_pixels(slide_id, raw, masks, **common), tile_pixels(slide_id, stored, masks, **common)
+    return (tile_pixels(slide_id, raw, masks, glass=glass, **common),
+            tile_pixels(slide_id, stored, masks, glass=stored_glass(attrs, thumbnail, background), **common))

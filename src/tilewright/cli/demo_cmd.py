@@ -28,7 +28,7 @@ def run(args) -> int:
     if code not in (0, 3):
         return code
     gap = _colour_gap(slides)
-    report = _audit(tiles, meta, out)
+    report, closing = _audit(tiles, meta, out)
     print("\nWhat was made:")
     print(f"  slides (pyramidal TIFF)     {slides}/")
     print(f"  metadata (site, label)      {meta}")
@@ -38,6 +38,8 @@ def run(args) -> int:
         print(f"  colour audit                {report}")
     if gap is not None:
         print(f"\nScanner-B embeds an ICC profile: {gap.sentence()}.")
+    for line in closing:
+        print(line)
     print("\nRead the tiles lazily:  python -c \"import tilewright as tw; c = tw.open_cohort('%s'); "
           "print(c, c.tiles)\"" % tiles)
     print("Research use only: not for diagnosis or clinical decisions.")
@@ -61,7 +63,10 @@ def _audit(tiles_dir: Path, meta: Path, out: Path):
     try:
         from tilewright.audit.compare import audit_before_after
     except ImportError:  # pragma: no cover - audit not installed in this build
-        return None
+        return None, []
+    from tilewright.audit.compare import compare_gaps
+    from tilewright.audit.gaps import AIM_MAX, AIM_SHARE, gap_aim
+
     before, after = audit_before_after(tiles_dir, metadata=meta)
     folder = out / "audit"
     after.write_report(folder, before=before)
@@ -71,4 +76,13 @@ def _audit(tiles_dir: Path, meta: Path, out: Path):
             if "colour clusters" in line.lower() and "follow" in line:
                 print(f"  {name} {line}")
     print(f"  {before.notes['_pairing']}")
-    return folder / "report.html"
+    met, lines = gap_aim(compare_gaps(before, after), "site")
+    closing = []
+    if lines:
+        closing.append("\nWhat stain normalization did to the sites' colour (CIEDE2000 of mean tissue colour over the "
+                       "same tile positions, raw and stored):")
+        closing += [f"  {line}" for line in lines]
+        aim = f"every site pair's gap after at most {100 * AIM_SHARE:.0f} % of before and at most {AIM_MAX:g}"
+        closing.append(f"  Gap closed: {aim}." if met else
+                       f"  Gap NOT closed ({aim} is not met): see {folder / 'report.html'}.")
+    return folder / "report.html", closing

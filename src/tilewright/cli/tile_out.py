@@ -80,6 +80,10 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--estimate-stains", action="store_true", default=None,
                    help="store un-normalized tiles plus each slide's Macenko and Reinhard stain estimates, to "
                         "normalize when reading (open_store/open_cohort/datasets normalize=...) to any target")
+    g.add_argument("--stain-groups", metavar="META.csv",
+                   help="without --reference: build the cohort's target from an equal share of each group's slides, "
+                        "groups from this CSV (slide_id and --stain-group-column; default: each folder and file format)")
+    g.add_argument("--stain-group-column", metavar="COL", help="column of --stain-groups to balance over (default site)")
     g = p.add_argument_group("regions")
     g.add_argument("--regions", help="region annotations: a GeoJSON/tile-table file, or a folder with one file a slide id")
     g.add_argument("--keep", help="region classes to keep, comma separated (needed with --regions; case and "
@@ -125,7 +129,8 @@ _FIELDS = {"mpp": "mpp", "tile": "tile", "stride": "stride", "min_tissue": "min_
            "class_property": "class_property", "default_class": "default_class", "object_types": "object_types",
            "colour_profile": "colour_profile", "mpp_tolerance": "tolerance",
            "quality": "quality", "source_digest": "source_digest", "from_level0": "from_level0",
-           "max_ink": "max_ink", "estimate_stains": "estimate_stains"}
+           "max_ink": "max_ink", "estimate_stains": "estimate_stains",
+           "stain_groups": "stain_groups", "stain_group_column": "stain_group_column"}
 
 
 def config_from_args(args):

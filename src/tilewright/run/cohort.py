@@ -160,7 +160,8 @@ def stain_target_path(out_dir, method: str) -> Path:
     return as_path(out_dir) / f"stain_target.{method}.json"
 
 
-def _stain_target(paths, out_dir: Path, config: TilingConfig, mpps, compute, reference=None) -> dict | None:
+def _stain_target(paths, out_dir: Path, config: TilingConfig, mpps, compute, reference=None,
+                  ids=None) -> dict | None:
     """The cohort's stain target, computed once and saved in the output folder (``reference``:
     the target already fitted from ``config.reference``)."""
     from tilewright.run.reference import make_target
@@ -177,7 +178,7 @@ def _stain_target(paths, out_dir: Path, config: TilingConfig, mpps, compute, ref
                 return d
     from tilewright.run.target import cohort_target
 
-    d = cohort_target(paths, config, mpps, compute)
+    d = cohort_target(paths, config, mpps, compute, ids)
     if d is None:
         return None
     replace_text(saved, json.dumps(d, indent=1))
@@ -282,7 +283,7 @@ def tile_cohort(paths, out_dir, config: TilingConfig | None = None, *, scheduler
         state = "interrupted"
         try:
             target = _stain_target(paths, out_dir, config, mpps, lambda fn, a: [
-                r for _, r in compute(fn, a, lambda i, exc: None)], reference)  # a slide that fails here fails later
+                r for _, r in compute(fn, a, lambda i, exc: None)], reference, ids)  # a slide that fails here fails later
             tracker(ProgressEvent("start", count=len(paths)))
             with events_from(client, tracker) as report:
                 args = [(p, str(out_dir), config.to_dict(), sid, m, target, overwrite, stop_name, report)

@@ -110,6 +110,12 @@ class TilingConfig:
         sample of its tissue pixels, so readers normalize when reading (``open_store(...,
         normalize=...)``, ``open_cohort``, the datasets) to any target, without re-tiling. Not with
         ``normalizer`` (tiles are normalized once, either way).
+    stain_groups : str or None
+        A CSV with ``slide_id`` and a grouping column (``stain_group_column``, default ``site``):
+        the cohort's default stain target is then built from an equal share of each group's
+        slides. Default: groups by folder and file format (:mod:`tilewright.run.target`).
+    stain_group_column : str
+        The column of ``stain_groups`` to balance the target over.
     threads : int
         Reader threads inside one slide.
     qc_overlay : bool
@@ -163,6 +169,8 @@ class TilingConfig:
     stain_sample: int = 64
     per_tile_stain: bool = False
     estimate_stains: bool = False
+    stain_groups: str | None = None
+    stain_group_column: str = "site"
     threads: int = 2
     qc_overlay: bool = True
     verify_jpeg: bool = True

@@ -106,6 +106,7 @@ def kept_row(final, slide_id: str, path: str, a: dict) -> dict:
     """The manifest row of the complete store ``final`` kept from an earlier run (``a``: its attributes)."""
     from tilewright.run.skip_reason import skip_status
     from tilewright.run.slide import SlideResult
+    from tilewright.run.stain_bind import stain_columns
 
     n = int(a.get("n_tiles") or 0)
     from tilewright.slide.colour import colour_label
@@ -114,7 +115,7 @@ def kept_row(final, slide_id: str, path: str, a: dict) -> dict:
     return SlideResult(slide_id, path, status, reason, n, a.get("mpp_source"), a.get("objective"), a.get("source_level"), None,
                        str(final), colour_label(a.get("colour_profile")), "; ".join(a.get("warnings") or ()),
                        source_sha256=(a.get("source") or {}).get("sha256") or "", mpp_origin=a.get("mpp_origin") or "",
-                       kept=True).to_row()
+                       kept=True, **stain_columns(a)).to_row()
 
 
 def _replace_text(path, text: str) -> None:

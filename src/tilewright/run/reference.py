@@ -126,14 +126,26 @@ def make_target(method: str, reference, config=None):
         raise ConfigError(f"the reference has too little stained tissue for a {method} target "
                           f"({exc.reason if hasattr(exc, 'reason') else exc}); give an H&E image or slide "
                           "with stained tissue", where) from None
-    if method == "macenko":
-        from tilewright.stain.estimate import StainProfile, implausible
-
-        reason = implausible(StainProfile(norm.stain_matrix, norm.max_concentrations, 0))
-        if reason:
-            raise ConfigError(f"the reference does not look like H&E ({reason}); give an H&E image or "
-                              "slide with both stains", where)
+    reason = norm._implausible(norm._target_stats())
+    if reason:
+        raise ConfigError(f"the reference does not look like H&E ({reason}); give an H&E image or "
+                          "slide with both stains", where)
+    norm.target_colour = _own_colour(norm, image, glass)
     return norm
+
+
+def _own_colour(norm, image, glass):
+    """Mean tissue CIELAB of a reference normalized to its own target (rendered on the output glass)."""
+    from tilewright.run.target import _colour_pixels
+    from tilewright.stain.outcome import tissue_colour
+
+    pixels = _colour_pixels(np.asarray(image), glass)
+    if not len(pixels):
+        return None
+    bound = norm.with_glass(glass)
+    bound.source = norm._target_stats()
+    colour = tissue_colour(bound.transform(pixels), np.ones(pixels.shape[:2], bool))
+    return None if colour is None else [round(float(v), 3) for v in colour]
 
 
 def own_target(method: str, sample, glass, path):

@@ -16,6 +16,7 @@ from tilewright.location.objpath import as_path
 from tilewright.location.url import is_url
 from tilewright.run.config import TilingConfig
 from tilewright.run.identity import target_digest
+from tilewright.run.stain_bind import bind_normalizer, stain_columns
 from tilewright.run.stain_record import stain_record
 from tilewright.run.tile_rows import per_tile_arrays
 from tilewright.store.layout import slide_ids
@@ -43,6 +44,9 @@ class SlideResult:
     source_sha256: str = ""  # the source's full SHA-256 (TilingConfig.source_digest = "full"), else ""
     mpp_origin: str = ""  # where mpp_source (the level-0 µm/px) came from: "aperio", "override", ...
     kept: bool = False  # a complete store of an earlier run, kept as it is (seconds: that run's)
+    stain_check: str = ""  # the normalized sample against the target: ok, off-target, not-normalized (run/stain_bind.py)
+    stain_delta_e_raw: float | None = None  # CIEDE2000 of the sample's mean tissue colour to the target's, raw
+    stain_delta_e: float | None = None  # ... and normalized
 
     def to_row(self) -> dict:
         return asdict(self)
@@ -167,7 +171,7 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
                              with_region=attrs["regions"] is not None, overwrite=overwrite) as writer, \
                     ThreadPoolExecutor(2, thread_name_prefix="tilewright-aside") as pool:
                 # the slide's stain estimate is fitted while the first blocks are read and decoded
-                bind = (pool.submit(_bind_normalizer, view, plan, config, target, path, survey.glass)
+                bind = (pool.submit(bind_normalizer, view, plan, config, target, path, survey.glass)
                         if config.normalizer else None)
                 record = (pool.submit(stain_record, view, plan, config, survey.glass)
                           if config.estimate_stains else None)
@@ -177,11 +181,10 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
                                     config.source_digest == "full")
                 survey.maps = survey.draw = survey.mask = None
                 kept = _tile_arrays(view, plan, config, bind, writer, progress)
-                bound, used, stain_note = (None, None, "") if bind is None else bind.result()
+                bound, used, stain_notes, attrs["stain_outcome"] = (None, None, [], None) if bind is None else bind.result()
                 attrs["normalizer"] = None if bound is None else bound.to_dict()
                 attrs["stain_target"] = target_digest(used)  # what a resumed run must match
-                if stain_note:
-                    attrs["warnings"].append(f"stain-replaced: {stain_note}")
+                attrs["warnings"].extend(stain_notes)
                 png, digests = aside.result()
                 attrs["source"].update(digests)
                 arrays = None
@@ -201,7 +204,7 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
                            source_level=int(view.source_level), seconds=round(time.perf_counter() - t0, 3),
                            store=str(final), colour_profile=slide.colour.label,
                            warnings="; ".join(attrs["warnings"]), source_sha256=attrs["source"].get("sha256") or "",
-                           mpp_origin=slide.mpp_origin or "")
+                           mpp_origin=slide.mpp_origin or "", **stain_columns(attrs))
 
 
 def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNamespace:
@@ -291,29 +294,6 @@ def _glass(thumbnail, mask):
     from tilewright.run.target import slide_glass
 
     return slide_glass(thumbnail, mask)
-
-
-def _bind_normalizer(view, plan, config, target, path, glass=None):
-    """Fit the target (if needed) and bind the slide's own stain estimate from a tile sample,
-    optical density measured against the slide's glass colour ``glass``. Returns
-    ``(normalizer or None, shared target or None, note)``: a failed or implausible estimate of the
-    slide is replaced by a documented fallback
-    (:meth:`~tilewright.stain.normalizer.StainNormalizer.fit_source_checked`) and ``note`` says so."""
-    from tilewright.run.reference import make_target, own_target, sample_tiles
-
-    sample = sample_tiles(view, plan.yx, config.tile, config.stain_sample, config.seed, threads=config.threads)
-    if len(sample) == 0:
-        return None, None, ""  # nothing will be stored; no estimate needed
-    if target is None and config.reference is not None:
-        target = make_target(config.normalizer, config.reference, config)
-    used = target  # the shared target (None: the slide's own estimate is its target)
-    note = ""
-    if target is None:
-        target, note = own_target(config.normalizer, sample, glass, path)
-    if config.per_tile_stain:
-        return target.with_glass(glass), used, note
-    bound, replaced = target.fit_source_checked(sample, glass=glass)
-    return bound, used, "; ".join(n for n in (note, replaced) if n)
 
 
 def _regions_for(regions, config, slide_id, slide, path):

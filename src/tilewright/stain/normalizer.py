@@ -85,6 +85,9 @@ class StainNormalizer:
         self.glass = None
         #: Glass colour of the reference the target was fitted on (provenance); None is white.
         self.reference_glass = None
+        #: Mean tissue CIELAB of the target's own normalized sample(s), what each slide's outcome is
+        #: checked against (:mod:`tilewright.stain.outcome`); None when unknown.
+        self.target_colour = None
 
     # -- hooks for subclasses ------------------------------------------------------------------
     def _estimate(self, rgb: np.ndarray, glass=None):  # pragma: no cover - abstract
@@ -302,15 +305,17 @@ class StainNormalizer:
     __call__ = transform
 
     def to_dict(self) -> dict:
-        """JSON-safe description: method, parameters, target, bound source estimate or None, and
-        the glass colours (``glass`` of the images transformed, ``reference_glass`` of the
-        target's reference; None for pure white)."""
+        """JSON-safe description: method, parameters, target, bound source estimate or None, the
+        glass colours (``glass`` of the images transformed, ``reference_glass`` of the target's
+        reference; None for pure white) and, when known, ``target_colour``."""
         self._require_fitted()
         d = {"method": self.method, "version": FORMAT_VERSION, **self._params()}
         d.update(self._target_dict())
         d["reference_glass"] = glass_list(self.reference_glass)
         d["glass"] = glass_list(self.glass)
         d["source"] = None if self.source is None else self._stats_to_dict(self.source)
+        if self.target_colour is not None:  # only when known: targets written without it keep their form
+            d["target_colour"] = [float(v) for v in self.target_colour]
         return d
 
     @classmethod
@@ -340,6 +345,8 @@ class StainNormalizer:
         obj.reference_glass = glass_from_dict(d, "reference_glass")
         if d.get("source") is not None:
             obj.source = cls._stats_from_dict(d["source"])
+        if d.get("target_colour") is not None:
+            obj.target_colour = as_float_list(d["target_colour"], (3,), "target_colour")
         return obj
 
     @classmethod

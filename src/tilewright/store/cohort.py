@@ -13,7 +13,10 @@ from tilewright.location.objpath import ObjectPath, as_path, replace_bytes
 __all__ = ["MANIFEST_COLUMNS", "write_manifest", "read_manifest", "stores_manifest", "Cohort", "open_cohort"]
 
 MANIFEST_COLUMNS = ["slide_id", "source", "status", "error", "n_tiles", "mpp_source", "mpp_origin", "objective",
-                    "source_level", "seconds", "colour_profile", "warnings", "source_sha256"]
+                    "source_level", "seconds", "colour_profile", "warnings", "source_sha256",
+                    # the stain outcome check (tilewright.run.stain_bind): ok / off-target / not-normalized, and
+                    # the CIEDE2000 of the slide's sample's mean tissue colour to the target's, raw and stored
+                    "stain_check", "stain_delta_e_raw", "stain_delta_e"]
 
 
 def write_manifest(out_dir: str | os.PathLike, rows: list[dict]) -> "object":
@@ -31,8 +34,9 @@ def write_manifest(out_dir: str | os.PathLike, rows: list[dict]) -> "object":
     df["warnings"] = df["warnings"].fillna("").astype(str)  # "; "-joined "code: reason" messages
     df["source_sha256"] = df["source_sha256"].fillna("").astype(str)  # "" unless source_digest = "full"
     df["mpp_origin"] = df["mpp_origin"].fillna("").astype(str)  # where mpp_source (a number) was read
+    df["stain_check"] = df["stain_check"].fillna("").astype(str)
     df["n_tiles"] = df["n_tiles"].fillna(0).astype("int64")
-    for col in ("mpp_source", "objective", "seconds"):
+    for col in ("mpp_source", "objective", "seconds", "stain_delta_e_raw", "stain_delta_e"):
         df[col] = pd.to_numeric(df[col], errors="coerce").astype("float64")
     df["source_level"] = pd.to_numeric(df["source_level"], errors="coerce").astype("Int64")
     df = df.sort_values("slide_id", kind="stable").reset_index(drop=True)

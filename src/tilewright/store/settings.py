@@ -17,8 +17,10 @@ __all__ = ["RUN_ONLY", "target_digest", "settings_mismatch", "expected_target", 
 #: Settings that do not change what a store contains. Lossless compression gives the same pixels
 #: whichever codec, and each store names its codec in its metadata, so a cohort may mix them; a
 #: lossy codec and its quality do change the tiles: they count as the field ``compression``
-#: (``tile_identity``: "lossless" or "jpeg quality 90").
-RUN_ONLY = ("threads", "verify_jpeg", "qc_overlay", "compression", "quality", "source_digest")
+#: (``tile_identity``: "lossless" or "jpeg quality 90"). The stain-target groups choose which slides
+#: build the cohort's target; the target itself counts (its digest, ``stain target``).
+RUN_ONLY = ("threads", "verify_jpeg", "qc_overlay", "compression", "quality", "source_digest",
+            "stain_groups", "stain_group_column")
 
 #: Settings compared on their own terms by :func:`settings_mismatch` (the rest: as values).
 _OWN_TERMS = ("mpp", "tile", "stride", "normalizer", "reference", "tolerance")
