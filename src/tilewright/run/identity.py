@@ -16,7 +16,7 @@ import json
 import math
 import os
 
-__all__ = ["RUN_ONLY", "run_identity", "store_identity", "identity_changes", "target_digest"]
+__all__ = ["RUN_ONLY", "run_identity", "RunIdentity", "store_identity", "identity_changes", "target_digest"]
 
 #: Settings that do not change what a store contains. Lossless compression gives the same pixels
 #: whichever codec, and each store names its codec in its metadata, so a cohort may mix them; a
@@ -63,14 +63,39 @@ def run_identity(path, config, mpp: float | None, target) -> dict:
     target : normalizer or dict or None
         The cohort's stain target (None: none, or each slide's own).
     """
-    from tilewright.store.provenance import source_digest, source_size
+    return RunIdentity(config, target).of(path, mpp)
 
-    ident = _settings(config.to_dict())
-    ident[SOURCE_SIZE] = source_size(path)  # a file's bytes, or all files of a DICOM series folder
-    ident[SOURCE_DIGEST] = source_digest(path)
-    ident[LEVEL0_MPP] = float(mpp) if mpp is not None else _file_mpp(path, config)
-    ident[STAIN_TARGET] = target_digest(target)
-    return ident
+
+class RunIdentity:
+    """This run's side of the identity: what all slides share (settings, stain target) computed
+    once, then :meth:`of` a slide (its source's size and digest, its level-0 µm/px)."""
+
+    def __init__(self, config, target):
+        self.config = config
+        self.shared = _settings(config.to_dict())
+        self.shared[STAIN_TARGET] = target_digest(target)
+
+    def of(self, path, mpp: float | None, stored: dict | None = None) -> dict:
+        """The identity of the store this run would write for ``path`` (see :func:`run_identity`).
+
+        ``stored``: the attributes of the complete store being checked. When they say its
+        level-0 µm/px was read from the file (``mpp_source_from``, not given by the run) and the
+        file's digest is unchanged, the file holds the same header, so it is not opened again to
+        read its µm/px: a resumed run then checks a slide with one read of its source's samples.
+        """
+        from tilewright.store.provenance import source_digest, source_size
+
+        ident = dict(self.shared)
+        ident[SOURCE_SIZE] = source_size(path)  # a file's bytes, or all files of a DICOM series folder
+        ident[SOURCE_DIGEST] = source_digest(path)
+        if mpp is not None:
+            ident[LEVEL0_MPP] = float(mpp)
+        elif (stored or {}).get("mpp_source_from") == "file" and \
+                (stored.get("source") or {}).get("digest") == ident[SOURCE_DIGEST]:
+            ident[LEVEL0_MPP] = stored.get("mpp_source")
+        else:
+            ident[LEVEL0_MPP] = _file_mpp(path, self.config)
+        return ident
 
 
 def _file_mpp(path, config) -> float | None:

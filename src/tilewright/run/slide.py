@@ -15,6 +15,7 @@ from tilewright.errors import TilewrightError
 from tilewright.run.config import TilingConfig
 from tilewright.run.identity import target_digest
 from tilewright.store.layout import slide_ids
+from tilewright.store.metadata import folder_bytes
 from tilewright.store.writer import StoreWriter, remove_partials
 
 __all__ = ["SlideResult", "tile_slide"]
@@ -37,6 +38,8 @@ class SlideResult:
     colour_profile: str = ""  # ColourInfo.label: "none", the applied profile, or "... (ignored)"
     warnings: str = ""  # "; "-joined "code: reason" messages (see tissue_mask, fit_source_checked)
     kept: bool = False  # a complete store of an earlier run, kept as it is (seconds: that run's)
+    tissue_mm2: float | None = None  # tissue area the mask found, in mm²
+    bytes: int = 0  # the store's size on disk, when this run wrote it
 
     def to_row(self) -> dict:
         return asdict(self)
@@ -150,6 +153,7 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
         view = slide.at_mpp(config.mpp, tolerance=config.tolerance)
         survey = _survey(slide, view, config, slide_id, path, regions, target)
         plan, attrs = survey.plan, survey.attrs
+        attrs["mpp_source_from"] = "file" if mpp is None else "given"  # a resumed run trusts "file" on an unchanged digest
         release_free()  # the survey's temporaries are gone: start the tile pipeline on a clean heap
         if on_plan is not None:
             on_plan(len(plan), (config.tile * view.scale) ** 2 / 1e6)
@@ -183,7 +187,8 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
                            mpp_source=float(slide.mpp), objective=slide.objective,
                            source_level=int(view.source_level), seconds=round(time.perf_counter() - t0, 3),
                            store=str(final), colour_profile=slide.colour.label,
-                           warnings="; ".join(attrs["warnings"]))
+                           warnings="; ".join(attrs["warnings"]), tissue_mm2=attrs["tissue_mm2"],
+                           bytes=folder_bytes(final))
 
 
 def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNamespace:
@@ -226,6 +231,7 @@ def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNames
         "dimensions": list(slide.dimensions), "shape": list(view.shape),
         "tile": int(config.tile), "stride": int(config.step), "mask_mpp": float(mask.mpp),
         "tissue_fraction": float(mask_arr.mean()) if mask_arr.size else 0.0,
+        "tissue_mm2": round(float(mask_arr.sum()) * float(mask.mpp) ** 2 / 1e6, 4),
         "normalizer": None,  # bound while the first tiles are read (see tile_slide)
         "regions": None if (regions is None or not config.keep) else _region_info(regions, config, absent),
         "tissue_mask": _jsonable(mask.to_dict()),

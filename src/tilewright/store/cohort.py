@@ -9,52 +9,74 @@ import numpy as np
 
 from tilewright.errors import StoreError
 
-__all__ = ["MANIFEST_COLUMNS", "write_manifest", "read_manifest", "stores_manifest", "Cohort", "open_cohort"]
+__all__ = ["MANIFEST_COLUMNS", "manifest_frame", "write_manifest", "read_manifest", "stores_manifest", "Cohort", "open_cohort"]
 
 MANIFEST_COLUMNS = ["slide_id", "source", "status", "error", "n_tiles", "mpp_source", "objective",
-                    "source_level", "seconds", "colour_profile", "warnings"]
+                    "source_level", "seconds", "colour_profile", "warnings", "tissue_mm2"]
 
 
-def write_manifest(out_dir: str | os.PathLike, rows: list[dict]) -> "object":
-    """Write ``manifest.csv`` and ``manifest.parquet`` atomically (temp file + rename)."""
+def manifest_frame(rows: list[dict]):
+    """Manifest rows as the manifest's DataFrame: its columns (:data:`MANIFEST_COLUMNS`) in order,
+    their types, sorted by slide id."""
     import pandas as pd
 
-    out_dir = Path(out_dir)
     df = pd.DataFrame(rows)
     for col in MANIFEST_COLUMNS:
         if col not in df.columns:
             df[col] = None
     df = df[MANIFEST_COLUMNS].copy()
-    df["error"] = df["error"].fillna("").astype(str)
-    df["colour_profile"] = df["colour_profile"].fillna("").astype(str)
-    df["warnings"] = df["warnings"].fillna("").astype(str)  # "; "-joined "code: reason" messages
-    df["n_tiles"] = df["n_tiles"].fillna(0).astype("int64")
-    for col in ("mpp_source", "objective", "seconds"):
+    df["slide_id"] = df["slide_id"].astype(str)
+    for col in ("error", "colour_profile", "warnings"):  # warnings: "; "-joined "code: reason" messages
+        df[col] = df[col].fillna("").astype(str)
+    df["n_tiles"] = pd.to_numeric(df["n_tiles"], errors="coerce").fillna(0).astype("int64")
+    for col in ("mpp_source", "objective", "seconds", "tissue_mm2"):
         df[col] = pd.to_numeric(df[col], errors="coerce").astype("float64")
     df["source_level"] = pd.to_numeric(df["source_level"], errors="coerce").astype("Int64")
-    df = df.sort_values("slide_id", kind="stable").reset_index(drop=True)
-    tmp_csv = out_dir / ".manifest.csv.tmp"
-    tmp_pq = out_dir / ".manifest.parquet.tmp"
-    df.to_csv(tmp_csv, index=False)
-    df.to_parquet(tmp_pq, index=False)
-    os.replace(tmp_csv, out_dir / "manifest.csv")
-    os.replace(tmp_pq, out_dir / "manifest.parquet")
+    return df.sort_values("slide_id", kind="stable").reset_index(drop=True)
+
+
+def write_manifest(out_dir: str | os.PathLike, rows: list[dict]) -> "object":
+    """Write ``manifest.csv`` and ``manifest.parquet``, each replaced atomically (a temporary file,
+    then a rename); returns the DataFrame written."""
+    import io
+
+    from tilewright.store.journal import replace_bytes
+
+    out_dir = Path(out_dir)
+    df = manifest_frame(rows)
+    parquet = io.BytesIO()
+    df.to_parquet(parquet, index=False)
+    replace_bytes(out_dir / "manifest.csv", df.to_csv(index=False).encode("utf-8"))
+    replace_bytes(out_dir / "manifest.parquet", parquet.getvalue())
     return df
 
 
 def read_manifest(out_dir: str | os.PathLike):
-    """The manifest of a cohort folder as a DataFrame (Parquet preferred, CSV as fallback)."""
+    """The manifest of a cohort folder as a DataFrame (Parquet preferred, CSV as fallback), with
+    the rows of its journal (slides a running or killed run finished since it last wrote the
+    manifest; :mod:`tilewright.store.journal`) in place of their older rows."""
     import pandas as pd
 
+    from tilewright.store.journal import read_rows
+
     out_dir = Path(out_dir)
+    journal = read_rows(out_dir)  # before the manifest: a folding in between then loses nothing
     pq = out_dir / "manifest.parquet"
     csv = out_dir / "manifest.csv"
     if pq.exists():
-        return pd.read_parquet(pq)
-    if csv.exists():  # ids and texts stay strings ("001" is not the number 1)
-        return pd.read_csv(csv, keep_default_na=False, na_values=[""],
-                           dtype={"slide_id": str, "source": str, "status": str, "error": str})
-    raise StoreError("no manifest.csv or manifest.parquet; is this a tile-out output folder?", out_dir)
+        df = pd.read_parquet(pq)
+    elif csv.exists():  # ids and texts stay strings ("001" is not the number 1)
+        df = pd.read_csv(csv, keep_default_na=False, na_values=[""],
+                         dtype={"slide_id": str, "source": str, "status": str, "error": str})
+    elif journal:
+        df = None
+    else:
+        raise StoreError("no manifest.csv or manifest.parquet; is this a tile-out output folder?", out_dir)
+    if not journal:
+        return df
+    newer = {str(r["slide_id"]): r for r in journal}
+    rows = [] if df is None else [r for r in df.to_dict("records") if str(r["slide_id"]) not in newer]
+    return manifest_frame(rows + list(newer.values()))
 
 
 def stores_manifest(out_dir: str | os.PathLike):
@@ -73,16 +95,12 @@ def stores_manifest(out_dir: str | os.PathLike):
     import pandas as pd
 
     from tilewright.run.ledger import kept_row
-    from tilewright.store.reader import TileStore, is_complete
+    from tilewright.store.metadata import stores_attrs
 
     out_dir = Path(out_dir)
-    rows = []
-    for p in sorted(out_dir.glob("*.zarr")) if out_dir.is_dir() else []:
-        if not is_complete(p):
-            continue
-        a = TileStore(p).attrs
-        rows.append(kept_row(p, str(a.get("slide_id") or p.name[: -len(".zarr")]),
-                             str((a.get("source") or {}).get("path") or ""), a))
+    paths = sorted(out_dir.glob("*.zarr")) if out_dir.is_dir() else []
+    rows = [kept_row(p, str(a.get("slide_id") or p.name[: -len(".zarr")]), str((a.get("source") or {}).get("path") or ""), a)
+            for p, a in zip(paths, stores_attrs(paths)) if a is not None]  # unfinished stores: left out
     if not rows:
         raise StoreError("no manifest.csv, manifest.parquet or complete <slide_id>.zarr store here; give the "
                          "folder tile-out, tile_cohort or tile_slide wrote", out_dir)
@@ -109,17 +127,21 @@ class Cohort:
     """
 
     def __init__(self, path: str | os.PathLike):
+        from tilewright.store.journal import journal_path
         from tilewright.store.layout import store_path
-        from tilewright.store.reader import TileStore, is_complete
+        from tilewright.store.metadata import stores_attrs
+        from tilewright.store.reader import TileStore
 
         self.path = Path(path)
-        has_manifest = (self.path / "manifest.parquet").exists() or (self.path / "manifest.csv").exists()
+        has_manifest = any(p.exists() for p in (self.path / "manifest.parquet", self.path / "manifest.csv",
+                                                 journal_path(self.path)))
         self.manifest = read_manifest(self.path) if has_manifest else stores_manifest(self.path)
-        self.stores = {}
-        for sid, status in zip(self.manifest["slide_id"], self.manifest["status"]):
-            p = store_path(self.path, str(sid))
-            if status != "skipped" and is_complete(p):
-                self.stores[str(sid)] = TileStore(p)
+        ids = [str(sid) for sid, status in zip(self.manifest["slide_id"], self.manifest["status"])
+               if status != "skipped"]
+        paths = [store_path(self.path, sid) for sid in ids]
+        # one metadata read a store, on a few threads; the stores open nothing more until used
+        self.stores = {sid: TileStore(p, attrs) for sid, p, attrs in zip(ids, paths, stores_attrs(paths))
+                       if attrs is not None}
 
     @property
     def slide_ids(self) -> list[str]:

@@ -9,6 +9,7 @@ import numpy as np
 
 from tilewright.errors import IncompleteStoreError, StoreError
 from tilewright.store.layout import FORMAT_NAME
+from tilewright.store.metadata import array_meta, read_json, read_small_array, store_attrs
 from tilewright.store.shard_reader import ShardReader
 from tilewright.store.shards import ShardLayout
 
@@ -16,17 +17,8 @@ __all__ = ["TileStore", "open_store", "is_complete"]
 
 
 def is_complete(path: str | os.PathLike) -> bool:
-    """True when ``path`` is a tile store whose ``complete`` attribute is set."""
-    import zarr
-
-    path = Path(path)
-    if not (path / "zarr.json").exists():
-        return False
-    try:
-        attrs = zarr.open_group(str(path), mode="r").attrs
-        return bool(attrs.get("complete")) and attrs.get("format") == FORMAT_NAME
-    except Exception:  # unreadable metadata means "not complete", never a crash
-        return False
+    """True when ``path`` is a tile store whose ``complete`` attribute is set (one metadata read)."""
+    return store_attrs(path) is not None
 
 
 class TileStore:
@@ -42,31 +34,46 @@ class TileStore:
     from its path), so it can be handed to dask or DataLoader workers.
     """
 
-    def __init__(self, path: str | os.PathLike):
-        import zarr
-
+    def __init__(self, path: str | os.PathLike, attrs: dict | None = None):
         self.path = Path(path)
-        if not self.path.exists():
-            raise StoreError("no such tile store; run tile-out first", self.path)
-        try:
-            self._group = zarr.open_group(str(self.path), mode="r")
-            attrs = dict(self._group.attrs)
-        except Exception as exc:
-            raise StoreError(f"not a readable zarr v3 tile store ({exc})", self.path) from exc
-        if attrs.get("format") != FORMAT_NAME:
-            raise StoreError(f"not a tilewright tile store (format {attrs.get('format')!r})", self.path)
-        if not attrs.get("complete"):
-            raise IncompleteStoreError("the store was never completed (an interrupted write); "
-                                       "re-run tile-out to rebuild it", self.path)
+        if attrs is None:
+            attrs = _checked_attrs(self.path)
         self.attrs = attrs
-        self.tiles = self._group["tiles"]
         self._cache: dict[str, np.ndarray] = {}
-        layout = ShardLayout.of(self.tiles)
-        self._reader = ShardReader(layout) if layout is not None else None  # None: zarr reads
+        self._zarr = self._tiles = None  # the zarr group and tiles array, opened on first use
+        self._meta = None  # the tiles array's shape, read on first use
+        self._shards = False  # the direct shard reader (None: zarr reads), made on first use
+
+    @property
+    def _group(self):
+        if self._zarr is None:
+            import zarr
+
+            try:
+                self._zarr = zarr.open_group(str(self.path), mode="r")
+            except Exception as exc:
+                raise StoreError(f"not a readable zarr v3 tile store ({exc})", self.path) from exc
+        return self._zarr
+
+    @property
+    def tiles(self):
+        """The zarr array of the tiles (N, T, T, 3), opened on first use."""
+        if self._tiles is None:
+            self._tiles = self._group["tiles"]
+        return self._tiles
+
+    @property
+    def _reader(self):
+        """The direct shard reader, or None when zarr must read this layout."""
+        if self._shards is False:
+            layout = ShardLayout.of(self.tiles)
+            self._shards = ShardReader(layout) if layout is not None else None
+        return self._shards
 
     def _small(self, name: str) -> np.ndarray:
         if name not in self._cache:
-            self._cache[name] = self._group[name][...]
+            data = read_small_array(self.path / name)
+            self._cache[name] = data if data is not None else self._group[name][...]
         return self._cache[name]
 
     @property
@@ -91,7 +98,7 @@ class TileStore:
 
     @property
     def region(self) -> np.ndarray | None:
-        return self._small("region") if "region" in self._group else None
+        return self._small("region") if (self.path / "region" / "zarr.json").exists() else None
 
     @property
     def thumbnail(self) -> np.ndarray:
@@ -103,10 +110,10 @@ class TileStore:
 
     @property
     def tile_size(self) -> int:
-        return int(self.tiles.shape[1])
+        return self.shape[1]
 
     def __len__(self) -> int:
-        return int(self.tiles.shape[0])
+        return self.shape[0]
 
     def __getitem__(self, index):
         """Tiles by position: ``store[i]`` (T, T, 3); ``store[a:b]``, ``store[int_array]`` (any order,
@@ -152,7 +159,13 @@ class TileStore:
 
     @property
     def shape(self) -> tuple:
-        return tuple(int(d) for d in self.tiles.shape)
+        """(N, T, T, 3), from the tiles array's metadata (one small read, kept)."""
+        if self._meta is None:
+            try:
+                self._meta = tuple(int(d) for d in array_meta(self.path / "tiles")["shape"])
+            except (OSError, ValueError, KeyError, TypeError):
+                self._meta = tuple(int(d) for d in self.tiles.shape)
+        return self._meta
 
     @property
     def dtype(self):
@@ -189,6 +202,26 @@ class TileStore:
     def __repr__(self) -> str:
         return (f"TileStore({str(self.path)!r}, tiles={len(self)}, tile={self.tile_size}, "
                 f"mpp={self.attrs.get('mpp')})")
+
+
+def _checked_attrs(path: Path) -> dict:
+    """A complete store's group attributes (one read), or the error that says what is wrong."""
+    if not path.exists():
+        raise StoreError("no such tile store; run tile-out first", path)
+    try:
+        meta = read_json(path / "zarr.json")
+        if meta.get("zarr_format") != 3 or meta.get("node_type") != "group":
+            raise ValueError(f"zarr.json describes a {meta.get('node_type')!r} of zarr format "
+                             f"{meta.get('zarr_format')!r}, not a zarr v3 group")
+        attrs = dict(meta.get("attributes") or {})
+    except (OSError, ValueError, TypeError, AttributeError) as exc:
+        raise StoreError(f"not a readable zarr v3 tile store ({exc})", path) from exc
+    if attrs.get("format") != FORMAT_NAME:
+        raise StoreError(f"not a tilewright tile store (format {attrs.get('format')!r})", path)
+    if not attrs.get("complete"):
+        raise IncompleteStoreError("the store was never completed (an interrupted write); "
+                                   "re-run tile-out to rebuild it", path)
+    return attrs
 
 
 def _is_int(x) -> bool:
