@@ -59,6 +59,14 @@ def test_not_a_terminal_gives_plain_log_lines(slides, tmp_path, capsys):
     assert "\x1b[" not in captured.err  # no control codes in a log
     assert "[1/3]" in captured.err and "[3/3]" in captured.err and "broken: failed" in captured.err
     assert "1 failed" in captured.out  # the summary
+    # bytes written: each store's files counted here with os.walk (the summary reads none)
+    import os
+    import re
+
+    on_disk = sum(os.path.getsize(os.path.join(root, f)) for store in (tmp_path / "out").glob("*.zarr")
+                  for root, _, files in os.walk(store) for f in files)
+    shown = re.search(r"tiles, ([0-9.]+) (kB|MB) written", captured.out)
+    assert float(shown.group(1)) * {"kB": 1e3, "MB": 1e6}[shown.group(2)] == pytest.approx(on_disk, rel=0.06)
 
 
 def test_quiet_prints_nothing(slides, tmp_path, capsys):

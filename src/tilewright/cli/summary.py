@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import os
 import sys
 from pathlib import Path
 
@@ -14,14 +13,10 @@ __all__ = ["print_summary", "FULL_TABLE_UP_TO"]
 FULL_TABLE_UP_TO = 20
 
 
-def _bytes(rows, out) -> int:
-    total = 0
-    for r in rows:
-        if r.get("status") != "ok" or r.get("kept"):
-            continue  # written by this run only (a kept store was written by an earlier one)
-        for root, _, files in os.walk(Path(out) / f"{r['slide_id']}.zarr"):
-            total += sum(os.path.getsize(os.path.join(root, f)) for f in files)
-    return total
+def _bytes(rows) -> int:
+    """Bytes of the stores this run wrote, as each slide measured its own store when it finished
+    (a kept store was written by an earlier run; nothing is read from disk here)."""
+    return sum(int(r.get("bytes") or 0) for r in rows if r.get("status") == "ok" and not r.get("kept"))
 
 
 def _size(n: float) -> str:
@@ -42,7 +37,7 @@ def print_summary(rows, out, *, seconds: float = 0.0, megapixels: float = 0.0, v
     tiles = sum(int(r.get("n_tiles") or 0) for r in rows)
     rate = f", {megapixels / seconds:.0f} MP/s" if seconds > 0 and megapixels > 0 else ""
     stream.write(f"\n{ok} ok, {len(rows) - ok - len(failed)} skipped, {len(failed)} failed; {tiles} tiles, "
-                 f"{_size(_bytes(rows, out))} written in {seconds:.1f} s{rate}\n")
+                 f"{_size(_bytes(rows))} written in {seconds:.1f} s{rate}\n")
     warned = sum(bool(r.get("warnings")) for r in rows)
     if warned:
         stream.write(f"{warned} slide(s) with warnings (no glass, much ink, little tissue, stain estimate "

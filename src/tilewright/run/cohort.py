@@ -285,7 +285,8 @@ def tile_cohort(paths, out_dir, config: TilingConfig | None = None, *, scheduler
                 r for _, r in compute(fn, a, lambda i, exc: None)], reference)  # a slide that fails here fails later
             tracker(ProgressEvent("start", count=len(paths)))
             found, decided = scan(out_dir, paths, ids, config, mpps, target, overwrite)  # one read a store
-            ledger = Ledger(out_dir, paths, ids, config.to_toml(), found=found)
+            ledger = Ledger(out_dir, paths, ids, config.to_toml(), found=found,
+                            on_fold=_qc_page(out_dir) if config.qc_overlay else None)
             ledger.started = True
             for i in sorted(decided):  # kept (or refused) here: no task
                 finish(decided[i])
@@ -316,6 +317,20 @@ def tile_cohort(paths, out_dir, config: TilingConfig | None = None, *, scheduler
                 tracker.close(state)
     rows = ledger.rows()
     return [SlideResult(**{k: r[k] for k in SlideResult.__dataclass_fields__ if k in r}) for r in rows]
+
+
+def _qc_page(out_dir):
+    """What writes ``OUT/qc/index.html`` from the manifest's rows (a failure is logged: a page
+    never stops a run)."""
+    def write(rows):
+        from tilewright.run.qc_page import write_qc_page
+
+        try:
+            write_qc_page(out_dir, rows)
+        except Exception as exc:  # noqa: BLE001 - a picture page must not cost the cohort
+            _log.warning("qc/index.html not written (%s: %s)", type(exc).__name__, exc)
+
+    return write
 
 
 def _mpp_for(mpp, path, slide_id):

@@ -54,15 +54,19 @@ class Ledger:
         Rows of complete stores already in the folder, by slide id (see
         :func:`tilewright.run.resume.scan`): the rows of slides this run does not reach when
         neither the manifest nor the journal has them.
+    on_fold : callable, optional
+        Called with every row of the manifest each time it is written (the QC page is drawn from
+        them; its cost counts in the folding's share of the run).
     """
 
-    def __init__(self, out_dir, paths, ids, config_toml: str, found: dict | None = None):
+    def __init__(self, out_dir, paths, ids, config_toml: str, found: dict | None = None, on_fold=None):
         from tilewright.store.cohort import read_manifest
 
         self.out_dir = Path(out_dir)
         self.paths, self.ids = list(paths), list(ids)
         self.config_toml = config_toml
         self.found = dict(found or {})
+        self.on_fold = on_fold
         self.finished: dict[str, dict] = {}
         self._config_done = False
         self.started = False  # set when the tiling pass begins (after the stain-target pass)
@@ -119,6 +123,8 @@ class Ledger:
         self._write_config()
         write_manifest(self.out_dir, rows)
         clear(self.out_dir)  # every row it held is in the manifest now
+        if self.on_fold is not None:
+            self.on_fold(rows)
         spent = time.monotonic() - t0
         self._next_fold = time.monotonic() + max(FOLD_EVERY, spent / FOLD_SHARE)
 
