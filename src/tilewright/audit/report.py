@@ -92,7 +92,8 @@ def _draw(audit, tmp: Path) -> dict:
     return figures
 
 
-def _html(audit, figures: dict, before, names) -> str:
+def _html(audit, figures: dict, before, names, table=None) -> str:
+    """The page; ``table``: :func:`compare_audits` of ``before`` and ``audit`` (when ``before``)."""
     from tilewright import __version__
 
     when = datetime.now(timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
@@ -114,7 +115,7 @@ def _html(audit, figures: dict, before, names) -> str:
         "</ol></section>",
     ]
     if before is not None:
-        table = compare_audits(before, audit)
+        table = compare_audits(before, audit) if table is None else table
         pairing = before.notes.get("_pairing") or (
             "Caution: these two audits were not computed from the same pixels; differences may come from "
             "resolution, pixels or clustering, not only from normalization.")
@@ -167,11 +168,11 @@ def _html(audit, figures: dict, before, names) -> str:
     return "\n".join(parts)
 
 
-def _findings_text(audit, before, names) -> str:
+def _findings_text(audit, before, names, table=None) -> str:
     lines = list(audit.findings)
     lines += ["", "Tissue amount and sharpness:", *audit.quality_findings]
     if before is not None:
-        table = compare_audits(before, audit)
+        table = compare_audits(before, audit) if table is None else table
         lines += ["", f"Before / after ({names[0]} -> {names[1]}):"]
         if before.notes.get("_pairing"):
             lines.append(before.notes["_pairing"])
@@ -214,11 +215,12 @@ def write_report(audit, folder, *, before=None, names=None) -> Path:
         table.reset_index().to_parquet(tmp / "audit.parquet", index=False)
         audit.associations.to_csv(tmp / "associations.csv", index=False)
         audit.kruskal.to_csv(tmp / "kruskal.csv", index=False)
-        (tmp / "findings.txt").write_text(_findings_text(audit, before, names), encoding="utf-8")
+        compared = None if before is None else compare_audits(before, audit)  # once, for all three uses
+        (tmp / "findings.txt").write_text(_findings_text(audit, before, names, compared), encoding="utf-8")
         figures = _draw(audit, tmp)
-        (tmp / "report.html").write_text(_html(audit, figures, before, names), encoding="utf-8")
-        if before is not None:
-            compare_audits(before, audit).to_csv(tmp / "before_after.csv", index=False)
+        (tmp / "report.html").write_text(_html(audit, figures, before, names, compared), encoding="utf-8")
+        if compared is not None:
+            compared.to_csv(tmp / "before_after.csv", index=False)
         written = sorted(tmp.iterdir(), key=lambda p: p.name == "report.html")
         for path in written:
             os.replace(path, folder / path.name)

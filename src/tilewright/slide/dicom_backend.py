@@ -141,8 +141,8 @@ class DicomBackend(GridReader):
                 "two VOLUME instances of one size (a concatenation, or focal planes or optical paths "
                 "stored apart): which frames make the level is not decided here", self.path)
         self._levels, head = [], None
-        for inst in series.volumes:
-            ds, position = _header(inst.path)
+        for inst in series.volumes:  # headers parsed when the series was found, not again
+            ds, position = (inst.dataset, inst.header_end) if inst.dataset is not None else _header(inst.path)
             head = head or ds
             self._levels.append(self._level(ds, position, inst.path))
         self.resolution = _resolution(head)

@@ -38,31 +38,31 @@ def _group_attrs(path: Path) -> dict:
     return dict(meta.get("attributes") or {})
 
 
-def store_attrs(path: str | os.PathLike, *, complete_only: bool = True) -> dict | None:
+def store_attrs(path: str | os.PathLike, *, complete_only: bool = True, any_format: bool = False) -> dict | None:
     """The group attributes of the tile store at ``path`` (one read), or None.
 
-    None when there is no store, it cannot be read, it is not a tilewright store, or (with
-    ``complete_only``) its ``complete`` attribute is not set: never raises.
+    None when there is no store, it cannot be read, it is not a tilewright store (unless
+    ``any_format``: any zarr v3 group), or (with ``complete_only``) its ``complete`` attribute is
+    not set: never raises.
     """
     try:
         attrs = _group_attrs(Path(path))
     except (OSError, ValueError, TypeError):
         return None
-    if attrs.get("format") != FORMAT_NAME or (complete_only and not attrs.get("complete")):
+    if (not any_format and attrs.get("format") != FORMAT_NAME) or (complete_only and not attrs.get("complete")):
         return None
     return attrs
 
 
-def stores_attrs(paths, *, complete_only: bool = True, threads: int = READ_THREADS) -> list:
-    """:func:`store_attrs` of every path, read on ``threads`` threads, in the order given."""
+def stores_attrs(paths, *, threads: int = READ_THREADS, **kw) -> list:
+    """:func:`store_attrs` (with ``kw``) of every path, read on ``threads`` threads, in the order given."""
     paths = list(paths)
     if len(paths) < 2 * threads:
-        return [store_attrs(p, complete_only=complete_only) for p in paths]
+        return [store_attrs(p, **kw) for p in paths]
     from concurrent.futures import ThreadPoolExecutor
 
     with ThreadPoolExecutor(threads, thread_name_prefix="tilewright-meta") as pool:
-        return list(pool.map(lambda p: store_attrs(p, complete_only=complete_only), paths,
-                             chunksize=64))
+        return list(pool.map(lambda p: store_attrs(p, **kw), paths, chunksize=64))
 
 
 def array_meta(path: str | os.PathLike) -> dict:

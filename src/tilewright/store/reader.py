@@ -13,7 +13,7 @@ from tilewright.store.metadata import array_meta, read_json, read_small_array, s
 from tilewright.store.shard_reader import ShardReader
 from tilewright.store.shards import ShardLayout
 
-__all__ = ["TileStore", "open_store", "is_complete"]
+__all__ = ["TileStore", "open_store", "is_complete", "read_complete_attrs"]
 
 
 def is_complete(path: str | os.PathLike) -> bool:
@@ -37,7 +37,7 @@ class TileStore:
     def __init__(self, path: str | os.PathLike, attrs: dict | None = None):
         self.path = Path(path)
         if attrs is None:
-            attrs = _checked_attrs(self.path)
+            attrs = read_complete_attrs(self.path)
         self.attrs = attrs
         self._cache: dict[str, np.ndarray] = {}
         self._zarr = self._tiles = None  # the zarr group and tiles array, opened on first use
@@ -204,7 +204,7 @@ class TileStore:
                 f"mpp={self.attrs.get('mpp')})")
 
 
-def _checked_attrs(path: Path) -> dict:
+def read_complete_attrs(path: Path) -> dict:
     """A complete store's group attributes (one read), or the error that says what is wrong."""
     if not path.exists():
         raise StoreError("no such tile store; run tile-out first", path)

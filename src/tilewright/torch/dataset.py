@@ -12,18 +12,23 @@ __all__ = ["TileStoreDataset", "store_paths", "to_tensor"]
 
 def store_paths(source) -> list[str]:
     """Store paths of a ``*.zarr`` path, a ``tile-out`` output folder, a TileStore, a Cohort or a list."""
+    return [str(s.path) for s in _stores(source)]
+
+
+def _stores(source) -> list:
+    """The TileStores of ``source`` (see :func:`store_paths`), each opened once."""
     from tilewright.store.cohort import Cohort, open_cohort
     from tilewright.store.reader import TileStore
 
     if isinstance(source, Cohort):
-        return [str(s.path) for s in source.stores.values()]
+        return list(source.stores.values())
     if isinstance(source, TileStore):
-        return [str(source.path)]
+        return [source]
     if isinstance(source, (str, os.PathLike)):
         if str(source).rstrip("/\\").endswith(".zarr"):
-            return [os.fspath(source)]
-        return [str(s.path) for s in open_cohort(source).stores.values()]
-    return [str(getattr(p, "path", p)) for p in source]
+            return [TileStore(source)]
+        return list(open_cohort(source).stores.values())  # one metadata read a store
+    return [p if isinstance(p, TileStore) else TileStore(getattr(p, "path", p)) for p in source]
 
 
 def to_tensor(tiles: np.ndarray):
@@ -67,10 +72,7 @@ class TileStoreDataset:
 
     def __init__(self, source, *, labels=None, label_column: str = "label", missing: str = "error",
                  transform=None, augment=None, with_info: bool = False):
-        from tilewright.store.reader import TileStore
-
-        paths = store_paths(source)
-        stores = [TileStore(p) for p in paths]
+        stores = _stores(source)
         self.classes = None
         self.slide_labels = None
         if labels is not None:
