@@ -181,10 +181,14 @@ def test_a_rerun_reads_each_store_once_and_sends_no_task(slide, tmp_path, fast_c
     out = tmp_path / "out"
     first = tw.tile_cohort(srcs, out, fast_config, progress=False)
     assert all(r.status == "ok" for r in first)
-    reads, opened = [], []
+    reads, opened, digested = [], [], []
     real = metadata.read_json
     monkeypatch.setattr(metadata, "read_json", lambda p: reads.append(str(p)) or real(p))
     monkeypatch.setattr(identity, "_file_mpp", lambda *a: opened.append(a) or 0.2428)
+    import tilewright.store.provenance as provenance
+
+    real_digest = provenance.source_digest
+    monkeypatch.setattr(provenance, "source_digest", lambda p: digested.append(p) or real_digest(p))
 
     def no_task(*a, **k):
         raise AssertionError("a kept slide became a task")
@@ -196,12 +200,14 @@ def test_a_rerun_reads_each_store_once_and_sends_no_task(slide, tmp_path, fast_c
     assert [r.status for r in again] == ["ok"] * 5 and all(r.kept for r in again)
     assert sorted(reads) == sorted(str(out / f"r{i}.zarr" / "zarr.json") for i in range(5))
     assert opened == []  # level-0 µm/px from the stores: same digest, read from the file
+    assert digested == []  # unchanged size and modification time: the recorded digest stands
     # a changed source is noticed (its digest), and then the file is opened for its µm/px
     monkeypatch.setattr(batches, "run_batch", lambda *a, **k: [])
     with open(srcs[2], "ab") as fh:
         fh.write(b"\0" * 16)
     rows = {r.slide_id: r for r in tw.tile_cohort(srcs, out, fast_config, progress=False)}
     assert rows["r2"].status == "failed" and "source size" in rows["r2"].error and len(opened) == 1
+    assert [str(p) for p in digested] == [str(srcs[2])]  # only the changed file is read
     assert all(rows[f"r{i}"].kept for i in (0, 1, 3, 4))
 
 

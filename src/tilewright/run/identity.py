@@ -78,16 +78,23 @@ class RunIdentity:
     def of(self, path, mpp: float | None, stored: dict | None = None) -> dict:
         """The identity of the store this run would write for ``path`` (see :func:`run_identity`).
 
-        ``stored``: the attributes of the complete store being checked. When they say its
-        level-0 µm/px was read from the file (``mpp_source_from``, not given by the run) and the
-        file's digest is unchanged, the file holds the same header, so it is not opened again to
-        read its µm/px: a resumed run then checks a slide with one read of its source's samples.
+        ``stored``: the attributes of the complete store being checked. When the source's stat
+        stamp (bytes, modification time, files; :func:`~tilewright.store.provenance.source_stamp`)
+        equals the one the store recorded, the store's digest stands for the source's (it is not
+        read again); when the store's level-0 µm/px was read from the file (``mpp_source_from``,
+        not given by the run) and the digest is unchanged, the file is not opened again for it
+        either: a resumed run checks an unchanged slide with a ``stat``.
         """
-        from tilewright.store.provenance import source_digest, source_size
+        from tilewright.store.provenance import source_digest, source_size, source_stamp
 
         ident = dict(self.shared)
-        ident[SOURCE_SIZE] = source_size(path)  # a file's bytes, or all files of a DICOM series folder
-        ident[SOURCE_DIGEST] = source_digest(path)
+        source = (stored or {}).get("source") or {}
+        stamp = source_stamp(path) if source.get("stamp") else None
+        if stamp is not None and stamp == source["stamp"] and source.get("digest"):
+            ident[SOURCE_SIZE], ident[SOURCE_DIGEST] = stamp["size"], source["digest"]
+        else:
+            ident[SOURCE_SIZE] = source_size(path)  # a file's bytes, or all files of a DICOM series folder
+            ident[SOURCE_DIGEST] = source_digest(path)
         if mpp is not None:
             ident[LEVEL0_MPP] = float(mpp)
         elif (stored or {}).get("mpp_source_from") == "file" and \

@@ -224,7 +224,7 @@ def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNames
     mask_arr = np.asarray(mask.array, dtype=bool)
     attrs = {
         "slide_id": slide_id,
-        "source": {"path": str(path.resolve()), "size": _source_size(path),
+        "source": {"path": str(path.resolve()), "size": _source_size(path), "stamp": _source_stamp(path),
                    "digest": None, "backend": slide.backend},  # digest: computed aside (see _aside)
         "mpp": float(view.mpp), "mpp_source": float(slide.mpp), "objective": slide.objective,
         "source_level": int(view.source_level), "scale": float(view.scale),
@@ -372,6 +372,12 @@ def _source_size(path):
     from tilewright.store.provenance import source_size
 
     return source_size(path)
+
+
+def _source_stamp(path):
+    from tilewright.store.provenance import source_stamp
+
+    return source_stamp(path)
 
 
 def _digest(path):
