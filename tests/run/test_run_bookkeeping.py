@@ -260,3 +260,37 @@ def test_store_metadata_without_zarr_matches_zarr(slide, tmp_path, fast_config):
         ref = group[name][...]
         assert mine.dtype == ref.dtype and np.array_equal(mine, ref), name
     assert store_attrs(tmp_path / "missing.zarr") is None
+
+
+def test_a_worker_slide_sends_events_only_when_it_lasts(monkeypatch):
+    """On a worker (a topic name as ``report``), a slide sends its plan and per-block counts once
+    it has lasted SEND_EVERY seconds; a shorter one sends nothing and ``finish`` returns what it
+    read, for its row. Ground truth: the counts the test feeds, and the clock it drives."""
+    import distributed
+
+    import tilewright.run.reporting as reporting
+
+    sent = []
+
+    class Worker:
+        def log_event(self, topic, msg):
+            sent.append((topic, msg["kind"], msg["slide_id"], msg["count"]))
+
+    clock = _Clock()
+    monkeypatch.setattr(distributed, "get_worker", lambda: Worker())
+    monkeypatch.setattr(reporting.time, "monotonic", clock)
+    on_plan, on_tiles, finish = reporting.slide_reporter("topic-x", "short")
+    on_plan(5, 0.25)
+    on_tiles(3)
+    clock.now += reporting.SEND_EVERY / 2
+    on_tiles(2)
+    assert sent == [] and finish() == (5, 5 * 0.25)
+    on_plan, on_tiles, finish = reporting.slide_reporter("topic-x", "long")
+    on_plan(40, 0.25)
+    on_tiles(10)
+    clock.now += reporting.SEND_EVERY
+    on_tiles(10)  # lasted SEND_EVERY: the plan, then the 20 tiles read so far
+    clock.now += 0.1
+    on_tiles(5)  # within SEND_EVERY of the last message: held
+    assert sent == [("topic-x", "plan", "long", 40), ("topic-x", "tiles", "long", 20)]
+    assert finish() == (0, 0.0) and sent[-1] == ("topic-x", "tiles", "long", 5)

@@ -232,6 +232,7 @@ def run(args, config) -> int:
         results = tile_cohort(paths, out, config, scheduler=args.scheduler, workers=args.workers,
                               overwrite=args.overwrite, mpp=mpp, progress=False, on_progress=totals)
     rows = [r.to_row() for r in results]
+    del results
     if not args.quiet:
         print_summary(rows, out, seconds=time.perf_counter() - t0, megapixels=totals.megapixels,
                       verbose=args.verbose)

@@ -241,6 +241,9 @@ def tile_cohort(paths, out_dir, config: TilingConfig | None = None, *, scheduler
     from tilewright.run.resume import scan
     from tilewright.run.sources import unique_paths
 
+    from tilewright.run.allocator import steady_heap
+
+    steady_heap()  # this process runs a cohort: large buffers mmapped and returned, heaps trimmed
     config = config or TilingConfig()
     if on_result is None and callable(progress):
         on_result = progress
@@ -286,7 +289,7 @@ def tile_cohort(paths, out_dir, config: TilingConfig | None = None, *, scheduler
             tracker(ProgressEvent("start", count=len(paths)))
             found, decided = scan(out_dir, paths, ids, config, mpps, target, overwrite)  # one read a store
             ledger = Ledger(out_dir, paths, ids, config.to_toml(), found=found,
-                            on_fold=_qc_page(out_dir) if config.qc_overlay else None)
+                            on_fold=_after_fold(out_dir, config.qc_overlay))
             ledger.started = True
             for i in sorted(decided):  # kept (or refused) here: no task
                 finish(decided[i])
@@ -295,10 +298,12 @@ def tile_cohort(paths, out_dir, config: TilingConfig | None = None, *, scheduler
             sent = []  # the batches, in the order execute numbers them
 
             def tasks():  # taken as tasks are submitted: a few per worker thread at a time
-                settings = config.to_dict()  # one dict shared by every task's arguments
+                settings, shared_target = config.to_dict(), target
+                if client is not None:  # sent to the workers once, not with every task
+                    settings, shared_target = client.scatter([settings, target], broadcast=True, hash=False)
                 for batch in sizer.batches(todo):
                     sent.append(batch)
-                    yield batch, str(out_dir), settings, target, overwrite, stop_name, report
+                    yield batch, str(out_dir), settings, shared_target, overwrite, stop_name, report
 
             with events_from(client, tracker) as report:
                 results = compute(run_batch, tasks(), lambda k, exc: lost_rows(sent[k], out_dir, exc, overwrite))
@@ -319,18 +324,22 @@ def tile_cohort(paths, out_dir, config: TilingConfig | None = None, *, scheduler
     return [SlideResult(**{k: r[k] for k in SlideResult.__dataclass_fields__ if k in r}) for r in rows]
 
 
-def _qc_page(out_dir):
-    """What writes ``OUT/qc/index.html`` from the manifest's rows (a failure is logged: a page
-    never stops a run)."""
-    def write(rows):
+def _after_fold(out_dir, qc_page: bool):
+    """What runs after each folding of the manifest: ``OUT/qc/index.html`` written from its rows
+    (a failure is logged: a page never stops a run), then the heap's free pages given back (a
+    folding's buffers grow with the cohort; :mod:`tilewright.run.allocator`)."""
+    def after(rows):
+        from tilewright.run.allocator import release_free
         from tilewright.run.qc_page import write_qc_page
 
-        try:
-            write_qc_page(out_dir, rows)
-        except Exception as exc:  # noqa: BLE001 - a picture page must not cost the cohort
-            _log.warning("qc/index.html not written (%s: %s)", type(exc).__name__, exc)
+        if qc_page:
+            try:
+                write_qc_page(out_dir, rows)
+            except Exception as exc:  # noqa: BLE001 - a picture page must not cost the cohort
+                _log.warning("qc/index.html not written (%s: %s)", type(exc).__name__, exc)
+        release_free()
 
-    return write
+    return after
 
 
 def _mpp_for(mpp, path, slide_id):

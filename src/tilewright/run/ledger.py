@@ -19,6 +19,7 @@
 from __future__ import annotations
 
 import math
+import sys
 import time
 from pathlib import Path
 
@@ -87,7 +88,7 @@ class Ledger:
         if row.get("kept"):
             before = self.previous.get(str(row["slide_id"])) or {}
             row = {**row, "seconds": before.get("seconds") if before.get("status") in ("ok", "skipped") else None}
-        self.finished[str(row["slide_id"])] = row
+        self.finished[str(row["slide_id"])] = _compact(row)
         self._write_config()
         append_rows(self.out_dir, [row])
         if time.monotonic() >= self._next_fold:
@@ -145,6 +146,14 @@ class Ledger:
 
             replace_bytes(self.out_dir / "config.toml", self.config_toml.encode("utf-8"))
             self._config_done = True
+
+
+def _compact(row: dict) -> dict:
+    """The row, its keys and short texts (status, codes, empty strings) shared with every other
+    row: rows from workers arrive with their own copies of each key, ~1 KB a row held for the
+    whole run."""
+    return {sys.intern(str(k)): (sys.intern(v) if isinstance(v, str) and len(v) <= 16 else v)
+            for k, v in row.items()}
 
 
 def kept_row(final, slide_id: str, path: str, a: dict) -> dict:

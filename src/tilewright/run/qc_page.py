@@ -65,11 +65,11 @@ def write_qc_page(out_dir, rows, *, title: str | None = None) -> Path:
     folder = Path(out_dir) / "qc"
     folder.mkdir(parents=True, exist_ok=True)
     data = json.dumps(page_rows(rows), ensure_ascii=False, separators=(",", ":"))
-    data = data.replace("</", "<\\/")  # the rows sit inside a <script> element
+    data = data.replace("</", "<\\/").encode("utf-8")  # the rows sit inside a <script> element
     name = title or Path(out_dir).resolve().name
-    html = (_TEMPLATE.replace("{{TITLE}}", _escape(name)).replace("{{DATA}}", data))
+    head, tail = _TEMPLATE.replace("{{TITLE}}", _escape(name)).split("{{DATA}}")
     path = folder / QC_PAGE
-    replace_bytes(path, html.encode("utf-8"))
+    replace_bytes(path, b"".join((head.encode("utf-8"), data, tail.encode("utf-8"))))
     return path
 
 

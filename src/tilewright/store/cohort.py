@@ -20,11 +20,7 @@ def manifest_frame(rows: list[dict]):
     their types, sorted by slide id."""
     import pandas as pd
 
-    df = pd.DataFrame(rows)
-    for col in MANIFEST_COLUMNS:
-        if col not in df.columns:
-            df[col] = None
-    df = df[MANIFEST_COLUMNS].copy()
+    df = pd.DataFrame.from_records([{c: r.get(c) for c in MANIFEST_COLUMNS} for r in rows], columns=MANIFEST_COLUMNS)
     df["slide_id"] = df["slide_id"].astype(str)
     for col in ("error", "colour_profile", "warnings"):  # warnings: "; "-joined "code: reason" messages
         df[col] = df[col].fillna("").astype(str)
