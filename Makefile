@@ -4,7 +4,7 @@ VENV := .venv
 PY := $(VENV)/bin/python
 STAMP := $(VENV)/.installed
 
-.PHONY: demo test bench install clean
+.PHONY: demo test bench bench-scale install clean
 
 $(PY):
 	@command -v $(PYTHON) >/dev/null 2>&1 || { echo "Python 3.11 not found as '$(PYTHON)'; run: make PYTHON=/path/to/python3.11 $(MAKECMDGOALS)"; exit 2; }
@@ -29,6 +29,11 @@ test: $(STAMP)
 
 bench: $(STAMP)
 	$(PY) benchmarks/run_all.py
+	$(PY) benchmarks/scale.py --sizes 100 1000
+
+# the scale benchmark with a 10,000-slide cohort too: ~45 min and ~12 GB in bench-out/scale on 2 cores
+bench-scale: $(STAMP)
+	$(PY) benchmarks/scale.py --sizes 100 1000 10000
 
 clean:
 	rm -rf $(VENV) demo-out .pytest_cache
