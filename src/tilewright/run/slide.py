@@ -193,7 +193,7 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
                 attrs["source"].update(digests)
                 arrays = None
                 if record is not None:  # the slide's stain estimates, for normalizing when reading
-                    pixels, attrs["stain_estimates"], attrs["stain_glass"] = record.result()
+                    pixels, attrs["stain_estimates"], attrs["stain_glass"], attrs["stain_sample_yx"] = record.result()
                     arrays = {"stain_sample": pixels}
                 writer.commit(attrs, overwrite=overwrite, expected=kept, arrays=arrays,
                               per_tile=per_tile_arrays(plan, writer.stored_yx, attrs.get("regions")))
