@@ -104,7 +104,7 @@ def bind_to_store(store, method: str, target) -> ReadNormalization:
         raise StoreError(f"the tiles are stain-normalized already ({attrs['normalizer'].get('method')}); open the "
                          "store without normalize=, or tile with --estimate-stains to normalize when reading",
                          store.path)
-    if "stain_sample" not in store._group:
+    if not store._has("stain_sample"):
         raise StoreError("the store holds no stain estimate; tile with --estimate-stains (TilingConfig("
                          "estimate_stains=True)) to normalize when reading", store.path)
     from tilewright.stain.registry import normalizer_from_dict
