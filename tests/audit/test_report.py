@@ -151,11 +151,11 @@ def test_cli_default_folder_and_bad_arguments(raw_cohort, tmp_path, capsys):
 
 def test_report_compares_the_two_audits_once(audits, tmp_path, monkeypatch):
     """One before/after table feeds findings.txt, the page and before_after.csv (was computed three
-    times); the file holds the table compare_audits gives."""
+    times); the file holds the table compare_audits gives, with the colour gaps beside it."""
     import pandas as pd
 
     import tilewright.audit.report as report
-    from tilewright.audit.compare import compare_audits
+    from tilewright.audit.compare import before_after_table, compare_audits
 
     before, after = audits
     calls = []
@@ -163,5 +163,5 @@ def test_report_compares_the_two_audits_once(audits, tmp_path, monkeypatch):
     after.write_report(tmp_path / "r", before=before)
     assert len(calls) == 1
     written = pd.read_csv(tmp_path / "r" / "before_after.csv")
-    expected = compare_audits(before, after).reset_index(drop=True)
+    expected = before_after_table(before, after).reset_index(drop=True)
     assert list(written.columns) == list(expected.columns) and list(written["factor"]) == list(expected["factor"])

@@ -272,7 +272,7 @@ def write_report(audit, folder, *, before=None, names=None) -> Path:
         gaps = audit.gaps if before is None else compare_gaps(before, audit)
         gaps.to_csv(tmp / "gaps.csv", index=False)
         if before is not None:
-            before_after_table(before, audit).to_csv(tmp / "before_after.csv", index=False)
+            before_after_table(before, audit, compared).to_csv(tmp / "before_after.csv", index=False)
         written = sorted(tmp.iterdir(), key=lambda p: p.name == "report.html")
         for path in written:
             os.replace(path, folder / path.name)
