@@ -41,6 +41,10 @@ N_BOOTSTRAP = 2000
 SMALL = 1.0
 VISIBLE = 3.0
 _COLUMNS = ["factor", "level_a", "level_b", "n_a", "n_b", "gap", "gap_lo", "gap_hi"]
+#: Factors with more levels than this get no gap table: batch factors (site, scanner, stain batch)
+#: have a few levels, while a factor with a level a patient has O(levels²) pairs of one or two
+#: slides each, none of them a batch (500 patients: 125,000 pairs x the bootstrap).
+MAX_GAP_LEVELS = 24
 
 
 def _deltae(a: np.ndarray, b: np.ndarray) -> np.ndarray:
@@ -54,6 +58,12 @@ def _pairs(factors: pd.DataFrame, labs: pd.DataFrame):
     for factor in factors.columns:
         values = factors[factor].reindex(labs.index)
         levels = sorted(v for v in values.dropna().unique())
+        if len(levels) > MAX_GAP_LEVELS:
+            import logging
+
+            logging.getLogger("tilewright").info("colour gaps: %s left out (%d levels; pairs are measured for "
+                                                 "factors of at most %d)", factor, len(levels), MAX_GAP_LEVELS)
+            continue
         positions = {lv: np.flatnonzero((values == lv).to_numpy()) for lv in levels}
         for i, a in enumerate(levels):
             for b in levels[i + 1:]:
@@ -75,6 +85,8 @@ def _valid(metrics: pd.DataFrame) -> pd.DataFrame:
 def colour_gaps(metrics: pd.DataFrame, factors: pd.DataFrame, *, n_bootstrap: int = N_BOOTSTRAP,
                 seed: int = 0) -> pd.DataFrame:
     """The CIEDE2000 gap between every pair of levels of every factor, with a bootstrap interval.
+
+    A factor with more than :data:`MAX_GAP_LEVELS` levels (a level a patient, say) is left out.
 
     Parameters
     ----------
