@@ -26,7 +26,7 @@ def _rows(n, seed=3):
     rng = np.random.default_rng(seed)
     rows = []
     for i in range(n):
-        status = "failed" if i % 37 == 5 else "skipped" if i % 53 == 7 else "ok"
+        status = "failed" if i % 37 == 5 else "skipped" if i % 53 == 7 else "all-ink" if i % 71 == 9 else "ok"
         warnings = "; ".join(["little-tissue: only 0.07 mm² of tissue found"] * (i % 11 == 0)
                              + ["ink: 31 % of the tissue is marker ink"] * (i % 23 == 0))
         rows.append({"slide_id": f"case-{i:05d}", "source": f"/slides/case-{i:05d}.svs", "status": status,
@@ -103,6 +103,7 @@ def test_ten_thousand_slides_draw_only_what_is_in_view(page):
 @pytest.mark.parametrize("name, keep", [
     ("failed", lambda r: r["status"] == "failed"),
     ("skipped", lambda r: r["status"] == "skipped"),
+    ("all-ink", lambda r: r["status"] == "all-ink"),
     ("warnings", lambda r: bool(r["warnings"])),
 ])
 def test_filters_show_exactly_their_rows(page, name, keep):

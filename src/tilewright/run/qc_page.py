@@ -3,7 +3,7 @@
 At a thousand slides nobody opens a thousand PNGs. The page is a grid of every slide's QC
 picture (``qc/<slide_id>.png``: tissue outline, ink, kept tiles) with its status, tiles, tissue
 area, warnings and any other figures its manifest row holds (stain outcomes, for example),
-sortable (fewest tiles first, least tissue, slowest, ...) and filterable (failed, skipped, with
+sortable (fewest tiles first, least tissue, slowest, ...) and filterable (failed, skipped, all ink, with
 warnings, a text search). A card opens the full picture with every figure of its row.
 
 It is one self-contained file (styles, script and the rows inline; no network), opened offline
@@ -110,7 +110,7 @@ select, input[type=search] { font:inherit; border-radius:6px; border:1px solid #
         font:inherit; color:inherit; }
 .card:focus-visible { outline:3px solid var(--focus); }
 .card.ok { border-top-color:var(--ok); } .card.skipped { border-top-color:var(--skipped); }
-.card.failed { border-top-color:var(--failed); }
+.card.failed { border-top-color:var(--failed); } .card.all-ink { border-top-color:var(--warn); }
 .pic { height:150px; background:#ebe7de; display:flex; align-items:center; justify-content:center; }
 .pic img { max-width:100%; max-height:150px; object-fit:contain; display:block; }
 .pic .none { color:var(--muted); font-size:12px; padding:8px; text-align:center; }
@@ -119,7 +119,7 @@ select, input[type=search] { font:inherit; border-radius:6px; border:1px solid #
 .line { color:var(--muted); font-size:12px; white-space:nowrap; overflow:hidden; text-overflow:ellipsis; }
 .tag { display:inline-block; font-size:11px; border-radius:3px; padding:0 5px; margin-right:4px; color:#fff; }
 .tag.ok { background:var(--ok); } .tag.skipped { background:var(--skipped); } .tag.failed { background:var(--failed); }
-.tag.warn { background:var(--warn); }
+.tag.warn, .tag.all-ink { background:var(--warn); }
 #empty { margin:40px 18px; color:var(--muted); display:none; }
 dialog { border:none; border-radius:8px; padding:0; max-width:min(1300px, 96vw); max-height:94vh; width:96vw; }
 dialog::backdrop { background:rgba(20,24,34,.72); }
@@ -144,6 +144,7 @@ footer { margin:0 18px 24px; color:var(--muted); font-size:12px; }
     <button class="chip" data-filter="all" aria-pressed="true">all<span class="n"></span></button>
     <button class="chip" data-filter="failed" aria-pressed="false">failed<span class="n"></span></button>
     <button class="chip" data-filter="skipped" aria-pressed="false">skipped<span class="n"></span></button>
+    <button class="chip" data-filter="all-ink" aria-pressed="false">all ink<span class="n"></span></button>
     <button class="chip" data-filter="warnings" aria-pressed="false">with warnings<span class="n"></span></button>
     <label>sort <select id="sort">
       <option value="id">slide id</option><option value="tiles">fewest tiles</option>
@@ -169,13 +170,14 @@ let CARD_W = MIN_W;
 const grid = document.getElementById("grid"), viewer = document.getElementById("viewer");
 const state = { filter: "all", sort: "id", text: "" };
 let shown = ROWS.slice(), columns = 1, drawn = "";
-const ORDER = { failed: 0, skipped: 1, ok: 2 };
+const ORDER = { failed: 0, "all-ink": 1, skipped: 2, ok: 3 };
 const picture = r => encodeURIComponent(r.id) + ".png";
 const esc = s => String(s).replace(/[&<>"']/g, c => ({"&":"&amp;","<":"&lt;",">":"&gt;","\"":"&quot;","'":"&#39;"}[c]));
 const num = (v, d) => v === null || v === undefined ? "–" : Number(v).toLocaleString(undefined, {maximumFractionDigits: d});
 function matches(r) {
   if (state.filter === "failed" && r.status !== "failed") return false;
   if (state.filter === "skipped" && r.status !== "skipped") return false;
+  if (state.filter === "all-ink" && r.status !== "all-ink") return false;
   if (state.filter === "warnings" && !r.warnings.length) return false;
   if (state.text) {
     const t = state.text;
@@ -274,8 +276,8 @@ const redraw = () => { if (!pending) { pending = true; requestAnimationFrame(() 
 window.addEventListener("scroll", redraw, {passive: true});
 window.addEventListener("resize", () => { drawn = ""; layout(); });
 grid.style.setProperty("--h", CARD_H + "px");
-const counts = {all: ROWS.length, failed: 0, skipped: 0, warnings: 0};
-for (const r of ROWS) { if (r.status === "failed") counts.failed++; if (r.status === "skipped") counts.skipped++;
+const counts = {all: ROWS.length, failed: 0, skipped: 0, "all-ink": 0, warnings: 0};
+for (const r of ROWS) { if (r.status in counts && r.status !== "all") counts[r.status]++;
   if (r.warnings.length) counts.warnings++; }
 document.querySelectorAll(".chip").forEach(b => b.querySelector(".n").textContent = counts[b.dataset.filter].toLocaleString());
 apply();
