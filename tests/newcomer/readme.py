@@ -72,7 +72,7 @@ def is_synopsis(argv: list[str]) -> bool:
 def option_list(text: str | None = None) -> list[str]:
     """The options the README lists after "Options in plain words", up to the end of that sentence."""
     text = README.read_text(encoding="utf-8") if text is None else text
-    start = text.index("Options in plain words")
+    start = re.search(r"Options\s+in\s+plain\s+words", text).start()
     options, pos = [], start
     for m in _SPAN.finditer(text, start):
         if "." in text[pos:m.start()].replace("e.g.", ""):  # the sentence ended before this span

@@ -52,9 +52,9 @@ def run_one(path: str, out_dir: str, config: dict, slide_id: str, mpp: float | N
         stop()
         normalizer = None
         if target is not None:
-            from tilewright.stain.registry import normalizer_from_dict
+            from tilewright.stain.registry import transfer_from_dict
 
-            normalizer = normalizer_from_dict(target)
+            normalizer = transfer_from_dict(target)
         done = None if overwrite else _complete_row(final, path, slide_id, cfg, mpp, normalizer)
         if done is not None:
             return done

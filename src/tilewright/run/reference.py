@@ -101,10 +101,10 @@ def make_target(method: str, reference, config=None):
         not plausible H&E (:func:`tilewright.stain.estimate.implausible`).
     """
     from tilewright.errors import StainEstimationError
-    from tilewright.stain.registry import make_normalizer, normalizer_from_dict
+    from tilewright.stain.registry import make_transfer, transfer_from_dict
 
     if isinstance(reference, dict):
-        norm = normalizer_from_dict(reference)
+        norm = transfer_from_dict(reference)
         if norm.to_dict().get("method") != method:
             raise ConfigError(f"the reference was fitted for {reference.get('method')!r}, not {method!r}")
         return norm
@@ -121,7 +121,7 @@ def make_target(method: str, reference, config=None):
     else:
         image = np.asarray(reference)
     try:
-        norm = make_normalizer(method).fit(image, glass=glass)
+        norm = make_transfer(method).fit(image, glass=glass)
     except StainEstimationError as exc:
         raise ConfigError(f"the reference has too little stained tissue for a {method} target "
                           f"({exc.reason if hasattr(exc, 'reason') else exc}); give an H&E image or slide "
@@ -156,9 +156,9 @@ def own_target(method: str, sample, glass, path):
     :class:`~tilewright.errors.StainEstimationError` when the sample has too little tissue.
     """
     from tilewright.errors import StainEstimationError
-    from tilewright.stain.registry import make_normalizer
+    from tilewright.stain.registry import make_transfer
 
-    norm = make_normalizer(method)
+    norm = make_transfer(method)
     try:
         norm.fit(sample, glass=glass)
         reason = norm._implausible(norm._target_stats())

@@ -310,7 +310,7 @@ def _regions_for(regions, config, slide_id, slide, path):
 
         regions = load_regions(config.regions, slide_id, slide.mpp, slide_shape=tuple(slide.dimensions),
                                class_property=config.class_property, default_class=config.default_class,
-                               object_types=config.object_types, warn=False)
+                               feature_kinds=config.feature_kinds, warn=False)
         if regions is None and os.path.isdir(config.regions):
             raise RegionError(f"no region file for slide {slide_id!r} in {config.regions}; add "
                               f"{slide_id}.geojson there or run without --keep", path)

@@ -68,7 +68,7 @@ def slide_estimate(path: str, config: dict, mpp: float | None) -> dict | None:
     implausible: :func:`tilewright.stain.estimate.implausible`)."""
     from tilewright.run.reference import sample_tiles
     from tilewright.slide.open import open as open_slide
-    from tilewright.stain.registry import make_normalizer
+    from tilewright.stain.registry import make_transfer
     from tilewright.tissue.mask import tissue_mask
     from tilewright.tissue.plan import plan_tiles
 
@@ -84,7 +84,7 @@ def slide_estimate(path: str, config: dict, mpp: float | None) -> dict | None:
             glass = slide_glass(thumbnail, mask)
         if len(sample) == 0:
             return None
-        fitted = make_normalizer(cfg.normalizer).fit(sample, glass=glass)
+        fitted = make_transfer(cfg.normalizer).fit(sample, glass=glass)
         if fitted._implausible(fitted._target_stats()):
             return None  # a failed estimate does not pull the cohort's median
         return {"fitted": fitted.to_dict(), "pixels": _colour_pixels(sample, glass), "glass": glass}
@@ -171,7 +171,7 @@ def cohort_target(paths, config: TilingConfig, mpps, compute, ids=None) -> dict 
 
     ``compute(fn, args_list)`` runs the estimates (in this process or on the cluster).
     """
-    from tilewright.stain.registry import normalizer_from_dict
+    from tilewright.stain.registry import transfer_from_dict
     from tilewright.store.layout import slide_ids
 
     paths = [str(p) for p in paths]
@@ -183,7 +183,7 @@ def cohort_target(paths, config: TilingConfig, mpps, compute, ids=None) -> dict 
     used = [(i, est) for i, est in zip(order, results) if est is not None]
     if not used:
         return None
-    fitted = [normalizer_from_dict(est["fitted"]) for _, est in used]
+    fitted = [transfer_from_dict(est["fitted"]) for _, est in used]
     target = type(fitted[0]).from_median(fitted)
     target.target_colour = target_colour(target, [est for _, est in used])
     d = target.to_dict()

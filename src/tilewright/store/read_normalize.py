@@ -3,7 +3,7 @@
 A store written with ``estimate_stains`` holds un-normalized tiles, the slide's stain estimates
 (``attrs["stain_estimates"]``), its glass colour and a sample of its tissue pixels
 (``stain_sample``). :func:`bind_to_store` binds a target (Macenko or Reinhard) to that slide the
-way a normalizing run binds it (:meth:`StainNormalizer.fit_source_checked` on the stored sample,
+way a normalizing run binds it (:meth:`StainTransfer.fit_source_checked` on the stored sample,
 with the same fallback for an implausible estimate); every tile read is then normalized with it.
 :func:`median_target` builds a cohort's own target from the stores' estimates, without reading a
 pixel (the median a normalizing run computes from its slides).
@@ -39,7 +39,7 @@ class ReadNormalization:
 def resolve_target(target, method: str) -> dict:
     """A target as a fitted normalizer dictionary: from a normalizer, its dict, or a JSON file of
     one (``OUT/stain_target.macenko.json``, a ``--reference`` fitted and saved)."""
-    from tilewright.stain.registry import normalizer_from_dict
+    from tilewright.stain.registry import transfer_from_dict
 
     if isinstance(target, (str, os.PathLike)):
         path = Path(target)
@@ -53,7 +53,7 @@ def resolve_target(target, method: str) -> dict:
         raise ConfigError(f"target= must be a fitted normalizer, its dict or a JSON file of one, got {target!r}")
     if target.get("method") != method:
         raise ConfigError(f"the target is for {target.get('method')!r}, not {method!r}")
-    d = normalizer_from_dict(target).to_dict()
+    d = transfer_from_dict(target).to_dict()
     d["source"], d["glass"] = None, None  # a target: no slide's source bound to it
     return d
 
@@ -67,13 +67,13 @@ def median_target(stores, method: str) -> dict:
     StoreError
         No store holds a usable estimate (none was tiled with ``estimate_stains``).
     """
-    from tilewright.stain.registry import normalizer_from_dict
+    from tilewright.stain.registry import transfer_from_dict
 
     fitted = []
     for store in stores:
         est = (store.attrs.get("stain_estimates") or {}).get(method) or {}
         if "error" not in est and est.get("method") == method:
-            fitted.append(normalizer_from_dict(est))
+            fitted.append(transfer_from_dict(est))
     if not fitted:
         raise StoreError(f"no store holds a usable {method} stain estimate; tile with --estimate-stains "
                          "(TilingConfig(estimate_stains=True)), or give target=")
@@ -103,10 +103,10 @@ def bind_to_store(store, method: str, target) -> ReadNormalization:
     if "stain_sample" not in store._group:
         raise StoreError("the store holds no stain estimate; tile with --estimate-stains (TilingConfig("
                          "estimate_stains=True)) to normalize when reading", store.path)
-    from tilewright.stain.registry import normalizer_from_dict
+    from tilewright.stain.registry import transfer_from_dict
 
     target = resolve_target(target, method)
     pixels = store._small("stain_sample")
-    bound, note = normalizer_from_dict(target).fit_source_checked(pixels.reshape(1, -1, 3),
+    bound, note = transfer_from_dict(target).fit_source_checked(pixels.reshape(1, -1, 3),
                                                                   glass=attrs.get("stain_glass"))
     return ReadNormalization(method, target, bound, note)
