@@ -181,16 +181,8 @@ def _table_fits(checked, level0_mpp, slide_shape, path):
 
 
 def _table_map(checked, path, warn):
-    import warnings
-
-    from tilewright.regions.digest import table_digest
-    from tilewright.regions.geojson import RegionRepairWarning
     from tilewright.regions.regionmap import RegionMap
 
     if warn:
-        for note in checked.notes:
-            warnings.warn(f"{path}: {note}", RegionRepairWarning, stacklevel=3)
-    provenance = {"kind": "tiles", "path": path, "tile": checked.tile, "mpp": checked.mpp,
-                  "n_tiles": int(len(checked.yx)), "soft": checked.soft, "repairs": list(checked.notes),
-                  "digest": table_digest(checked)}
-    return RegionMap._from_checked_table(checked, provenance)
+        checked.warn_notes(path)
+    return RegionMap._from_checked_table(checked, checked.provenance("tiles", path, repairs=list(checked.notes)))

@@ -215,12 +215,8 @@ class RegionMap:
         """
         from tilewright.regions.tiletable import read_tile_table
 
-        from tilewright.regions.digest import table_digest
-
         checked = read_tile_table(table, tile, mpp, classes=classes, soft=soft)
-        provenance = {"kind": "tiles", "path": checked.path, "tile": checked.tile, "mpp": checked.mpp,
-                      "n_tiles": int(len(checked.yx)), "soft": checked.soft, "digest": table_digest(checked)}
-        return cls._from_checked_table(checked, provenance)
+        return cls._from_checked_table(checked, checked.provenance("tiles", checked.path))
 
     @classmethod
     def _from_checked_table(cls, checked, provenance) -> "RegionMap":
