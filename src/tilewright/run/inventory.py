@@ -10,7 +10,6 @@ batches, so a 10,000-slide cohort costs what its thumbnails cost.
 
 from __future__ import annotations
 
-import math
 import os
 import time
 
@@ -18,11 +17,9 @@ import numpy as np
 
 from tilewright.errors import TilewrightError
 from tilewright.run.config import TilingConfig
+from tilewright.run.inventory_summary import CODECS, COLUMNS, human_bytes  # noqa: F401 - public here too
 
 __all__ = ["plan_cohort", "survey_slide", "BYTES_PER_RAW", "CODECS"]
-
-#: Codecs whose bytes are estimated (the lossy one at the configuration's quality).
-CODECS = ("lz4", "zstd", "zlib", "none", "webp", "jpeg")
 
 #: Bytes a stored tile takes, as a share of its raw bytes (T x T x 3), by codec: measured on H&E
 #: tiles at 0.5 µm/px (the bench slide and the demo tiles, `make bench`; README, Store layout). JPEG
@@ -31,11 +28,6 @@ BYTES_PER_RAW = {"lz4": 0.86, "zstd": 0.77, "zlib": 0.69, "none": 1.0, "webp": 0
 
 #: Slides a dask task surveys (few tasks of a few slides keep the scheduler's cost per slide small).
 BATCH = 16
-
-#: Row columns, in order (the codec byte columns ``bytes_<codec>`` follow).
-COLUMNS = ["slide_id", "source", "status", "error", "backend", "format", "file_bytes", "width", "height",
-           "level0_mpp", "mpp_origin", "objective", "levels", "downsamples", "colour_profile", "source_level",
-           "resampled", "tissue_mm2", "tissue_fraction", "planned_tiles", "warnings", "seconds"]
 
 
 def _format(path: str) -> str:
@@ -206,13 +198,3 @@ def _failed(item, exc) -> dict:
     path, sid, _ = item
     return {"slide_id": sid, "source": path, "status": "failed",
             "error": f"{path}: the worker surveying this slide died ({type(exc).__name__}); run again"}
-
-
-def human_bytes(n: float | None) -> str:
-    """``n`` bytes as B, kB, MB, GB, TB (powers of 1000)."""
-    if n is None or (isinstance(n, float) and math.isnan(n)):
-        return "-"
-    for unit in ("B", "kB", "MB", "GB", "TB", "PB"):
-        if abs(n) < 1000 or unit == "PB":
-            return f"{n:.0f} {unit}" if unit == "B" else f"{n:.1f} {unit}"
-        n /= 1000.0

@@ -71,7 +71,7 @@ def _slide_sample(path: Path, config) -> tuple[np.ndarray, list | None]:
     """A sample of tissue tiles of a reference slide and its glass colour (see module doc)."""
     from tilewright.errors import TilewrightError
     from tilewright.run.config import TilingConfig
-    from tilewright.run.target import slide_glass
+    from tilewright.stain.density import slide_glass
     from tilewright.slide.open import open as open_slide
     from tilewright.tissue.mask import tissue_mask
     from tilewright.tissue.plan import plan_tiles
@@ -136,10 +136,10 @@ def make_target(method: str, reference, config=None):
 
 def _own_colour(norm, image, glass):
     """Mean tissue CIELAB of a reference normalized to its own target (rendered on the output glass)."""
-    from tilewright.run.target import _colour_pixels
+    from tilewright.stain.tissue_pixels import colour_pixels
     from tilewright.stain.outcome import tissue_colour
 
-    pixels = _colour_pixels(np.asarray(image), glass)
+    pixels = colour_pixels(np.asarray(image), glass)
     if not len(pixels):
         return None
     bound = norm.with_glass(glass)

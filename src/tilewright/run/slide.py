@@ -291,7 +291,7 @@ def _aside(writer, maps, draw, mask, plan, path, slide_id, full_digest=False):
 
 
 def _glass(thumbnail, mask):
-    from tilewright.run.target import slide_glass
+    from tilewright.stain.density import slide_glass
 
     return slide_glass(thumbnail, mask)
 

@@ -8,16 +8,11 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from tilewright.errors import ConfigError
-from tilewright.store.layout import SLIDE_SUFFIXES
+from tilewright.store.layout import is_slide_name  # noqa: F401 - public here too
 
 __all__ = ["find_slides", "slide_list", "SlideList", "read_mpp_table", "is_slide_name", "unique_paths"]
 
 _LIST_SUFFIXES = (".txt", ".csv", ".lst", ".list", ".tsv")
-
-
-def is_slide_name(path: str | os.PathLike) -> bool:
-    """True when the file name ends with a suffix one of the backends reads."""
-    return Path(path).name.lower().endswith(SLIDE_SUFFIXES)
 
 
 def unique_paths(paths) -> list[Path]:

@@ -99,7 +99,7 @@ def fit_hne_plane(od, *, min_od: float = 0.15, keep: float = 0.8, iterations: in
     .. [1] A. C. Ruifrok and D. A. Johnston, Anal. Quant. Cytol. Histol. 23(4):291-299, 2001.
     .. [2] M. Macenko et al., ISBI 2009, 1107-1110.
     """
-    from .ink import black_ink
+    from .density import black_ink
 
     x = np.asarray(od).reshape(-1, 3)
     if x.shape[0] > 1_000_000:  # bounded memory whatever the slide size: a strided subsample first
