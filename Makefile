@@ -26,6 +26,8 @@ demo: $(STAMP)
 	$(VENV)/bin/tilewright demo demo-out
 
 test: $(STAMP)
+	@# the layers and cycles contracts of pyproject.toml: a wrong-way import fails here, named
+	$(VENV)/bin/lint-imports --no-cache
 	$(PY) -m pytest -q
 
 bench: $(STAMP)
