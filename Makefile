@@ -5,7 +5,7 @@ VENV := .venv
 PY := $(VENV)/bin/python
 STAMP := $(VENV)/.installed
 
-.PHONY: demo test bench docs install clean
+.PHONY: demo test bench bench-scale docs install clean
 
 $(PY):
 	@command -v $(PYTHON) >/dev/null 2>&1 || { echo "Python 3.11 not found as '$(PYTHON)'; run: make PYTHON=/path/to/python3.11 $(MAKECMDGOALS)"; exit 2; }
@@ -32,6 +32,11 @@ test: $(STAMP)
 
 bench: $(STAMP)
 	$(PY) benchmarks/run_all.py
+	$(PY) benchmarks/scale.py --sizes 100 1000
+
+# the scale benchmark with a 10,000-slide cohort too: ~45 min and ~12 GB in bench-out/scale on 2 cores
+bench-scale: $(STAMP)
+	$(PY) benchmarks/scale.py --sizes 100 1000 10000
 
 docs: $(STAMP)
 	$(PY) -m sphinx -W --keep-going -q -b html docs docs/_build/html

@@ -74,8 +74,9 @@ def _fast_renderer(lay, mpp):
 
 def bench_slide(width: int = 24576, height: int = 20480, *, mpp: float = 0.25, seed: int = 7,
                 tile: int = 256, quality: int = 90, islands: int = 4,
-                island_um: float | None = None, jpeg_colours: str = "ycbcr420") -> Path:
-    """A synthetic H&E slide of ``width x height`` level-0 px, JPEG tiles, SVS pyramid (cached).
+                island_um: float | None = None, jpeg_colours: str = "ycbcr420", root: Path | None = None) -> Path:
+    """A synthetic H&E slide of ``width x height`` level-0 px, JPEG tiles, SVS pyramid (cached in
+    ``root``, default :data:`ROOT`).
 
     ``island_um`` (radius of tissue islands in µm) makes a mostly-glass slide with small islands;
     by default the islands scale with the slide (about 40 % tissue). ``jpeg_colours="rgb"`` or
@@ -84,10 +85,11 @@ def bench_slide(width: int = 24576, height: int = 20480, *, mpp: float = 0.25, s
     """
     from tilewright.demo.pyramid import write_pyramid
 
-    ROOT.mkdir(parents=True, exist_ok=True)
+    root = Path(root) if root is not None else ROOT
+    root.mkdir(parents=True, exist_ok=True)
     tag = ("" if island_um is None else f"_i{int(island_um)}") + \
         {"ycbcr420": "", "rgb": "_rgb", "ycbcr444": "_444"}[jpeg_colours]
-    path = ROOT / f"synthetic_{width}x{height}_{mpp}_{seed}_q{quality}_f4{tag}.svs"
+    path = root / f"synthetic_{width}x{height}_{mpp}_{seed}_q{quality}_f4{tag}.svs"
     if path.exists():
         return path
     lay = _layout(width, height, mpp, seed, islands, island_um)

@@ -147,3 +147,21 @@ def test_cli_default_folder_and_bad_arguments(raw_cohort, tmp_path, capsys):
     with pytest.raises(SystemExit) as exit_info:
         parser.parse_args(["audit", str(out), "--source", "pixels"])
     assert exit_info.value.code == 2
+
+
+def test_report_compares_the_two_audits_once(audits, tmp_path, monkeypatch):
+    """One before/after table feeds findings.txt, the page and before_after.csv (was computed three
+    times); the file holds the table compare_audits gives, with the colour gaps beside it."""
+    import pandas as pd
+
+    import tilewright.audit.report as report
+    from tilewright.audit.compare import before_after_table, compare_audits
+
+    before, after = audits
+    calls = []
+    monkeypatch.setattr(report, "compare_audits", lambda a, b: calls.append(1) or compare_audits(a, b))
+    after.write_report(tmp_path / "r", before=before)
+    assert len(calls) == 1
+    written = pd.read_csv(tmp_path / "r" / "before_after.csv")
+    expected = before_after_table(before, after).reset_index(drop=True)
+    assert list(written.columns) == list(expected.columns) and list(written["factor"]) == list(expected["factor"])

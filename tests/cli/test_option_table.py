@@ -1,4 +1,4 @@
-"""The README's table of every option lists every tile-out option and TilingConfig key with the
+"""The table of every option (docs/guide/tiling.md, "Every option and its default") lists every tile-out option and TilingConfig key with the
 default the code has (ground truth: argparse's actions and the dataclass's fields)."""
 
 import argparse
@@ -9,11 +9,11 @@ from tilewright.cli.tile_out import _FIELDS, build_parser
 from tilewright.run.config import TilingConfig
 from tilewright.store.settings import RUN_ONLY
 
-README = Path(__file__).resolve().parents[2] / "README.md"
+PAGE = Path(__file__).resolve().parents[2] / "docs" / "guide" / "tiling.md"
 
 
 def _table() -> list[list[str]]:
-    text = README.read_text(encoding="utf-8")
+    text = PAGE.read_text(encoding="utf-8")
     start = text.index("**Every option and its default**")
     rows = []
     for line in text[start:].splitlines()[5:]:  # after the header and its rule

@@ -60,8 +60,10 @@ def test_manifest_is_current_after_each_slide(slide, tmp_path, fast_config):
     out = tmp_path / "out"
     seen = []
 
-    def on_result(row):  # reads the manifest the moment each slide finished
-        m = pd.read_csv(out / "manifest.csv", dtype={"slide_id": str}, keep_default_na=False)
+    def on_result(row):  # reads the manifest (with its journal) the moment each slide finished
+        from tilewright.store.cohort import read_manifest
+
+        m = read_manifest(out)
         seen.append(dict(zip(m.slide_id, m.status)))
 
     tile_cohort(srcs, out, fast_config, progress=False, on_result=on_result)

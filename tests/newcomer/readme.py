@@ -85,9 +85,13 @@ def is_synopsis(argv: list[str]) -> bool:
     return any(re.fullmatch(r"[A-Z][A-Z0-9_]*", w) or "[" in w or "|" in w or "..." in w for w in argv[1:])
 
 
+#: The page that lists every tile-out option ("Options in plain words", "Every option and its default").
+OPTIONS_PAGE = DOCS / "guide" / "tiling.md"
+
+
 def option_list(text: str | None = None) -> list[str]:
-    """The options the README lists after "Options in plain words", up to the end of that sentence."""
-    text = README.read_text(encoding="utf-8") if text is None else text
+    """The options the tiling page lists after "Options in plain words", up to the end of that sentence."""
+    text = OPTIONS_PAGE.read_text(encoding="utf-8") if text is None else text
     start = re.search(r"Options\s+in\s+plain\s+words", text).start()
     options, pos = [], start
     for m in _SPAN.finditer(text, start):

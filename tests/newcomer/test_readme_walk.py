@@ -117,9 +117,9 @@ def test_readme_option_list_matches_tile_out_help():
             known.add(frozenset(longs))
     missing = sorted(min(o) for o in known if not o & set(listed))
     unknown = sorted(o for o in listed if o not in either)
-    assert not missing, f"README's option list lacks {missing} (tile-out --help has them)"
-    assert not unknown, f"README lists {unknown}, which tile-out does not have"
-    assert len(listed) == len(set(listed)), "README lists an option twice"
+    assert not missing, f"{readme.OPTIONS_PAGE.name}'s option list lacks {missing} (tile-out --help has them)"
+    assert not unknown, f"{readme.OPTIONS_PAGE.name} lists {unknown}, which tile-out does not have"
+    assert len(listed) == len(set(listed)), f"{readme.OPTIONS_PAGE.name} lists an option twice"
 
 
 def test_demo_report_names_the_blank_slide_as_skipped(demo_workspace):

@@ -286,3 +286,23 @@ def test_tiff_tiles_stored_as_frames_read_the_same(write, tmp_path, layout):
         for i, lv in enumerate(a.levels):  # ground truth: the same JPEG streams, so the same pixels
             np.testing.assert_array_equal(a.read_level(i, 0, 0, lv.height, lv.width),
                                           b.read_level(i, 0, 0, lv.height, lv.width))
+
+
+@pytest.mark.parametrize("open_by", ["folder", "level-0 file", "thumbnail file"])
+def test_each_instance_header_is_parsed_once(series, monkeypatch, open_by):
+    """Opening a series parses each instance's header once (was two or three times: once to find
+    the series, again for its folder, again for the frame reader); the pixels are the same."""
+    import pydicom
+
+    folder, files = series("jpeg-sparse")
+    target = {"folder": folder, "level-0 file": files[0],
+              "thumbnail file": [f for f in files if f.name.startswith("thumbnail")][0]}[open_by]
+    with tw.open(target) as s:
+        before = s.at_mpp(s.mpp).read(100, 200, 300, 400)
+    parsed = []
+    real = pydicom.dcmread
+    monkeypatch.setattr(pydicom, "dcmread", lambda fp, *a, **k: parsed.append(getattr(fp, "name", fp)) or real(fp, *a, **k))
+    with tw.open(target) as s:
+        assert np.array_equal(s.at_mpp(s.mpp).read(100, 200, 300, 400), before)
+    # ground truth: the files the writer made, each read once (levels and the thumbnail instance)
+    assert sorted(str(p) for p in parsed) == sorted(str(f) for f in files)

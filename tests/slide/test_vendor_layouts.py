@@ -119,3 +119,24 @@ def test_ome_other_images_are_not_levels(corpus):
     with tw.open(case.path) as s:
         assert s.mpp == pytest.approx(0.2265) and s.mpp_origin == "ome"  # 226.5 nm written
         assert s.dimensions == (vc.H0, vc.W0)
+
+
+def test_ome_xml_is_parsed_once(corpus, monkeypatch):
+    """Opening an OME-TIFF parses its OME-XML once in tilewright (was once an image plus twice
+    more); the levels and µm/px found are the same as the corpus records."""
+    import sys
+    import xml.etree.ElementTree as ET
+
+    case = corpus("ome_two_scenes")
+    ours = []
+    real = ET.fromstring
+
+    def counted(text, *a, **k):
+        if sys._getframe(1).f_globals.get("__name__", "").startswith("tilewright"):
+            ours.append(len(text))
+        return real(text, *a, **k)
+
+    monkeypatch.setattr(ET, "fromstring", counted)
+    with tw.open(case.path) as s:
+        assert s.mpp == pytest.approx(0.2428) and s.dimensions == (vc.H0, vc.W0)
+    assert len(ours) == 1

@@ -32,7 +32,8 @@ import pandas as pd
 from scipy import special, stats
 
 from tilewright.audit.fdr import bh_adjust
-from tilewright.audit.permutation import EXACT_LIMIT, N_RESAMPLES, rearrangements, stable_seed, upper_tail
+from tilewright.audit.permutation import (BLOCK_VALUES, EXACT_LIMIT, N_RESAMPLES, reaching, rearrangements, stable_seed,
+                                          tail_p)
 
 __all__ = [
     "ChiSquare",
@@ -280,14 +281,18 @@ def association_test(rows, columns, *, statistic: str = "chi2", exact_limit: int
         return AssociationTest(float("nan"), float("nan"), 1.0, True, 1, 0.0, 0, n, r, c)
     null = rearrangements(col_codes, exact_limit=exact_limit, n_resamples=n_resamples, seed=seed)
     observed = _tables(row_codes, col_codes[None, :], r, c)
-    tables = _tables(row_codes, null.codes, r, c)
     row_sums = np.bincount(row_codes, minlength=r).astype(np.float64)
     col_sums = np.bincount(col_codes, minlength=c).astype(np.float64)
     chi2 = _pearson(observed, row_sums, col_sums, n)[0]
-    if statistic == "chi2":
-        p = upper_tail(_pearson(tables, row_sums, col_sums, n), chi2, null.exact)
-    else:  # less probable is more extreme: compare minus the log-probability's variable part
-        p = upper_tail(_log_cells(tables), _log_cells(observed)[0], null.exact)
+    reached = 0
+    # blocks of rearrangements: memory bounded whatever the slides and levels (r x c cells a row)
+    for block in null.blocks(max(n, BLOCK_VALUES * n // max(n, r * c * 2))):
+        tables = _tables(row_codes, block, r, c)
+        if statistic == "chi2":
+            reached += int(reaching(_pearson(tables, row_sums, col_sums, n), chi2))
+        else:  # less probable is more extreme: compare minus the log-probability's variable part
+            reached += int(reaching(_log_cells(tables), _log_cells(observed)[0]))
+    p = tail_p(reached, null.count, null.exact)
     return AssociationTest(
         cramers_v=bergsma_v(chi2, n, r, c), cramers_v_uncorrected=cramers_v(chi2, n, r, c), p_value=float(p),
         exact=null.exact, n_rearrangements=null.count, chi2=float(chi2), dof=(r - 1) * (c - 1), n=n, rows=r,

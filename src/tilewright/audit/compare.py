@@ -73,12 +73,13 @@ def compare_gaps(before, after) -> pd.DataFrame:
     return paired_gaps(before.metrics, after.metrics, before.factors, seed=seed)
 
 
-def before_after_table(before, after) -> pd.DataFrame:
-    """:func:`compare_audits` with each factor's largest colour gap before and after beside its V
-    (``gap_levels``, ``gap_before`` ... ``change``; the pair is the largest before)."""
+def before_after_table(before, after, table=None) -> pd.DataFrame:
+    """:func:`compare_audits` (or ``table``, its result already computed) with each factor's
+    largest colour gap before and after beside its V (``gap_levels``, ``gap_before`` ...
+    ``change``; the pair is the largest before)."""
     from tilewright.audit.gaps import gap_summary
 
-    table = compare_audits(before, after)
+    table = compare_audits(before, after) if table is None else table
     summary = gap_summary(compare_gaps(before, after))
     if summary.empty:
         return table

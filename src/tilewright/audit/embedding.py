@@ -31,6 +31,12 @@ __all__ = ["Embedding", "embed_slides", "standardize"]
 MAX_CLUSTERS = 8
 SLIDES_PER_CLUSTER = 5
 VARIANCE_KEPT = 0.90
+#: Above this many slides the mean silhouette of a clustering is taken over a seeded sample of
+#: this many slides (Rousseeuw's silhouette costs n² distances: 10,000 slides, 10^8 a k).
+SILHOUETTE_SAMPLE = 2000
+#: t-SNE coordinates (for the plots only) are computed up to this many slides; above, the plots
+#: show the first two principal components (t-SNE of 10,000 slides takes minutes).
+TSNE_MAX_SLIDES = 5000
 
 
 @dataclass
@@ -101,7 +107,8 @@ def embed_slides(metrics: pd.DataFrame, *, seed: int = 0, tsne: bool = True,
     seed : int
         Seed of k-means and t-SNE (results are reproducible).
     tsne : bool
-        Compute t-SNE coordinates (for plots); otherwise they repeat the first two components.
+        Compute t-SNE coordinates (for plots; up to :data:`TSNE_MAX_SLIDES` slides); otherwise
+        they repeat the first two components.
     n_clusters : int, optional
         Use this k instead of choosing it by silhouette (lowered to what the slides allow:
         at most ``n - 1`` and the number of distinct points).
@@ -149,7 +156,8 @@ def embed_slides(metrics: pd.DataFrame, *, seed: int = 0, tsne: bool = True,
         fit = KMeans(n_clusters=k, n_init=10, random_state=seed).fit(pcs)
         if len(np.unique(fit.labels_)) < 2:
             continue
-        silhouette[k] = float(silhouette_score(pcs, fit.labels_))
+        silhouette[k] = float(silhouette_score(pcs, fit.labels_, sample_size=SILHOUETTE_SAMPLE if n > SILHOUETTE_SAMPLE
+                                               else None, random_state=seed))
         labels[k] = fit.labels_
     if silhouette:
         best = max(silhouette, key=lambda k: (round(silhouette[k], 6), -k))
@@ -157,7 +165,7 @@ def embed_slides(metrics: pd.DataFrame, *, seed: int = 0, tsne: bool = True,
     else:
         best = 1
         coords["cluster"] = 0
-    coords["tsne1"], coords["tsne2"] = _tsne(pcs, seed) if tsne else (pcs[:, 0], pcs[:, 1])
+    coords["tsne1"], coords["tsne2"] = _tsne(pcs, seed) if tsne and n <= TSNE_MAX_SLIDES else (pcs[:, 0], pcs[:, 1])
     return Embedding(coords, list(z.columns), pca.explained_variance_ratio_[:kept], silhouette, best)
 
 

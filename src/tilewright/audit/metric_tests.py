@@ -24,7 +24,7 @@ import pandas as pd
 from scipy import stats
 
 from tilewright.audit.fdr import bh_adjust
-from tilewright.audit.permutation import EXACT_LIMIT, N_RESAMPLES, rearrangements, stable_seed, upper_tail
+from tilewright.audit.permutation import EXACT_LIMIT, N_RESAMPLES, reaching, rearrangements, stable_seed, tail_p
 
 __all__ = ["kruskal_h", "kruskal_test", "kruskal_table"]
 
@@ -66,16 +66,35 @@ def kruskal_h(values, codes) -> np.ndarray:
     sizes = np.bincount(codes[0], minlength=g).astype(np.float64)
     used = sizes > 0
     h = np.empty((codes.shape[0], k))
-    step = max(1, 4_000_000 // (g * n))  # rank sums as one matrix product a chunk of groupings
+    step = max(1, 4_000_000 // (min(g, ONE_HOT_GROUPS) * n))
     for start in range(0, codes.shape[0], step):
         block = codes[start:start + step]
-        onehot = (block[:, None, :] == np.arange(g)[None, :, None]).astype(np.float64)
-        sums = (onehot.reshape(-1, n) @ ranks).reshape(block.shape[0], g, k)
+        sums = _rank_sums(block, ranks, g)
         h[start:start + step] = (12.0 / (n * (n + 1)) * (sums[:, used, :] ** 2 / sizes[used][None, :, None]).sum(axis=1)
                                  - 3.0 * (n + 1))
     with np.errstate(divide="ignore", invalid="ignore"):
         h = np.where(correction > 0, h / np.where(correction > 0, correction, 1.0), np.nan)
     return h[:, 0] if single else h
+
+
+#: Up to this many groups the rank sums are one matrix product with one-hot group indicators;
+#: with more (a factor with a level a patient) they are counted, at a cost that does not grow
+#: with the number of groups.
+ONE_HOT_GROUPS = 16
+
+
+def _rank_sums(block: np.ndarray, ranks: np.ndarray, g: int) -> np.ndarray:
+    """(m, g, K) sums of ``ranks`` (n, K) over each group of each row of ``block`` (m, n)."""
+    m, n = block.shape
+    k = ranks.shape[1]
+    if g <= ONE_HOT_GROUPS:
+        onehot = (block[:, None, :] == np.arange(g)[None, :, None]).astype(np.float64)
+        return (onehot.reshape(-1, n) @ ranks).reshape(m, g, k)
+    flat = (np.arange(m, dtype=np.int64)[:, None] * g + block).ravel()
+    sums = np.empty((m, g, k))
+    for j in range(k):
+        sums[:, :, j] = np.bincount(flat, weights=np.tile(ranks[:, j], m), minlength=m * g).reshape(m, g)
+    return sums
 
 
 def kruskal_test(values, groups, *, exact_limit: int = EXACT_LIMIT, n_resamples: int = N_RESAMPLES,
@@ -120,10 +139,12 @@ def _tests(table: np.ndarray, codes: np.ndarray, null) -> tuple[np.ndarray, np.n
         return nan, nan.copy(), True
     rearranged = null(codes)
     observed = kruskal_h(table[:, varies], codes)[0]
-    under_null = kruskal_h(table[:, varies], rearranged.codes)
+    reached = np.zeros(observed.size, dtype=np.int64)
+    for block in rearranged.blocks():  # memory bounded whatever the number of slides
+        reached += reaching(kruskal_h(table[:, varies], block), observed)
     h, p = nan.copy(), nan.copy()
     h[varies] = observed
-    p[varies] = [upper_tail(under_null[:, j], observed[j], rearranged.exact) for j in range(observed.size)]
+    p[varies] = [tail_p(reached[j], rearranged.count, rearranged.exact) for j in range(observed.size)]
     return h, p, rearranged.exact
 
 

@@ -30,8 +30,8 @@ from itertools import combinations
 
 import numpy as np
 
-__all__ = ["EXACT_LIMIT", "N_RESAMPLES", "Rearrangements", "rearrangements", "count_rearrangements",
-           "upper_tail", "stable_seed"]
+__all__ = ["EXACT_LIMIT", "N_RESAMPLES", "BLOCK_VALUES", "Rearrangements", "rearrangements",
+           "count_rearrangements", "upper_tail", "reaching", "tail_p", "stable_seed"]
 
 #: Enumerate every distinct rearrangement when there are at most this many.
 EXACT_LIMIT = 50_000
@@ -42,26 +42,55 @@ N_RESAMPLES = 10_000
 REL_TOL = 1e-9
 
 
+#: Most code values held at once while a null distribution is computed (a block of
+#: rearrangements): 10,000 rearrangements of 10,000 slides would otherwise take 800 MB.
+BLOCK_VALUES = 4_000_000
+
+
 @dataclass(frozen=True)
 class Rearrangements:
-    """Group codes of the slides under the null hypothesis.
+    """Group codes of the slides under the null hypothesis, one rearrangement a row.
+
+    Rows are produced in blocks (:meth:`blocks`) so that memory stays bounded whatever the
+    number of slides; :attr:`codes` gathers them all (small cohorts, tests).
 
     Attributes
     ----------
-    codes : ndarray, int, shape (M, n)
-        One rearrangement of the observed codes a row (every distinct one when ``exact``).
     exact : bool
         True when the rows are all distinct rearrangements (each equally likely), False for
         a seeded random sample.
+    count : int
+        Number of rearrangements (rows).
     """
 
-    codes: np.ndarray
     exact: bool
+    count: int
+    _enumerated: np.ndarray | None = None  # every rearrangement (exact)
+    _base: np.ndarray | None = None  # the observed codes, shuffled block by block (random)
+    _seed: object = None
+
+    def blocks(self, values: int = BLOCK_VALUES):
+        """Yield the rows in order, in blocks of about ``values`` codes. The random sample is the
+        same whatever the block size (one generator, drawn row after row)."""
+        n = int(self._enumerated.shape[1] if self.exact else self._base.size)
+        rows = max(1, int(values) // max(1, n))
+        if self.exact:
+            for start in range(0, self.count, rows):
+                yield self._enumerated[start:start + rows]
+            return
+        rng = np.random.default_rng(self._seed)
+        for start in range(0, self.count, rows):
+            k = min(rows, self.count - start)
+            yield rng.permuted(np.broadcast_to(self._base, (k, self._base.size)), axis=1)
 
     @property
-    def count(self) -> int:
-        """Number of rearrangements (rows)."""
-        return int(self.codes.shape[0])
+    def codes(self) -> np.ndarray:
+        """Every row at once, shape (M, n)."""
+        return np.concatenate(list(self.blocks(max(1, self.count) * max(1, self._n))), axis=0)
+
+    @property
+    def _n(self) -> int:
+        return int(self._enumerated.shape[1] if self.exact else self._base.size)
 
 
 def count_rearrangements(codes) -> int:
@@ -99,10 +128,10 @@ def rearrangements(codes, *, exact_limit: int = EXACT_LIMIT, n_resamples: int = 
         raise ValueError(f"codes must be one-dimensional, got shape {codes.shape}")
     if count_rearrangements(codes) <= exact_limit:
         # the set of rearrangements depends on the group sizes only
-        return Rearrangements(_enumerate(tuple(int(k) for k in np.bincount(codes))), True)
-    rng = np.random.default_rng(seed)
-    drawn = rng.permuted(np.broadcast_to(codes, (int(n_resamples), codes.size)), axis=1)
-    return Rearrangements(drawn, False)
+        every = _enumerate(tuple(int(k) for k in np.bincount(codes)))
+        return Rearrangements(True, int(every.shape[0]), _enumerated=every)
+    small = codes.astype(np.int16 if codes.max(initial=0) < 2**15 else np.int64)  # same shuffles, less memory
+    return Rearrangements(False, int(n_resamples), _base=small, _seed=seed)
 
 
 @lru_cache(maxsize=32)
@@ -133,6 +162,23 @@ def _enumerate(counts: tuple) -> np.ndarray:
     return partial
 
 
+def reaching(null: np.ndarray, observed) -> np.ndarray:
+    """How many values of ``null`` (shape (M,) or (M, K)) reach ``observed`` (scalar or (K,)),
+    the tolerance of :func:`upper_tail` included: counts of a null computed block by block add
+    up to the count of the whole."""
+    null = np.asarray(null, dtype=np.float64)
+    observed = np.asarray(observed, dtype=np.float64)
+    return np.count_nonzero(null >= observed - REL_TOL * np.maximum(1.0, np.abs(observed)), axis=0)
+
+
+def tail_p(reached: int, total: int, exact: bool) -> float:
+    """The p-value of :func:`upper_tail` from a count of rearrangements reaching the observed
+    statistic among ``total``."""
+    if exact:
+        return min(1.0, int(reached) / total)
+    return (int(reached) + 1) / (total + 1)
+
+
 def upper_tail(null: np.ndarray, observed: float, exact: bool) -> float:
     """p-value of an upper-tail test from the statistic under every (or sampled) rearrangement.
 
@@ -151,10 +197,7 @@ def upper_tail(null: np.ndarray, observed: float, exact: bool) -> float:
     float
     """
     null = np.asarray(null, dtype=np.float64)
-    reached = int(np.count_nonzero(null >= observed - REL_TOL * max(1.0, abs(observed))))
-    if exact:
-        return min(1.0, reached / null.size)
-    return (reached + 1) / (null.size + 1)
+    return tail_p(int(reaching(null, observed)), null.size, exact)
 
 
 def stable_seed(*parts) -> list[int]:

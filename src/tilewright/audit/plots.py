@@ -70,7 +70,10 @@ def plot_embedding(coords: pd.DataFrame, values: pd.Series, title: str, path: Pa
     plt = _pyplot()
     levels, order = _levels(values.reindex(coords.index))
     fig, axes = plt.subplots(1, 2, figsize=(9.0, 4.0), dpi=100)
-    for ax, (x, y, name) in zip(axes, (("tsne1", "tsne2", "t-SNE"), ("pc1", "pc2", "PCA"))):
+    # without t-SNE coordinates (not asked, or too many slides) the first panel would repeat PCA
+    same = np.allclose(coords["tsne1"], coords["pc1"]) and np.allclose(coords["tsne2"], coords.get("pc2", 0.0))
+    first = ("tsne1", "tsne2", "PCA (no t-SNE)" if same else "t-SNE")
+    for ax, (x, y, name) in zip(axes, (first, ("pc1", "pc2", "PCA"))):
         for i, level in enumerate(order):
             sel = (levels == level).to_numpy()
             ax.scatter(

@@ -94,7 +94,8 @@ def _draw(audit, tmp: Path) -> dict:
     return figures
 
 
-def _html(audit, figures: dict, before, names) -> str:
+def _html(audit, figures: dict, before, names, table=None) -> str:
+    """The page; ``table``: :func:`compare_audits` of ``before`` and ``audit`` (when ``before``)."""
     from tilewright import __version__
 
     when = datetime.now(timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
@@ -116,7 +117,7 @@ def _html(audit, figures: dict, before, names) -> str:
         "</ol></section>",
     ]
     if before is not None:
-        table = compare_audits(before, audit)
+        table = compare_audits(before, audit) if table is None else table
         pairing = before.notes.get("_pairing") or (
             "Caution: these two audits were not computed from the same pixels; differences may come from "
             "resolution, pixels or clustering, not only from normalization.")
@@ -211,11 +212,11 @@ def _gap_section(audit, before, names) -> list:
             "above 3: visible at a glance (common practice). All pairs in gaps.csv.</p></section>"]
 
 
-def _findings_text(audit, before, names) -> str:
+def _findings_text(audit, before, names, table=None) -> str:
     lines = list(audit.findings)
     lines += ["", "Tissue amount and sharpness:", *audit.quality_findings]
     if before is not None:
-        table = compare_audits(before, audit)
+        table = compare_audits(before, audit) if table is None else table
         lines += ["", f"Before / after ({names[0]} -> {names[1]}):"]
         if before.notes.get("_pairing"):
             lines.append(before.notes["_pairing"])
@@ -262,15 +263,16 @@ def write_report(audit, folder, *, before=None, names=None) -> Path:
         audit.associations.to_csv(tmp / "associations.csv", index=False)
         audit.kruskal.to_csv(tmp / "kruskal.csv", index=False)
         audit.by_level.to_csv(tmp / "by_level.csv", index=False)
-        (tmp / "findings.txt").write_text(_findings_text(audit, before, names), encoding="utf-8")
+        compared = None if before is None else compare_audits(before, audit)  # once, for all three uses
+        (tmp / "findings.txt").write_text(_findings_text(audit, before, names, compared), encoding="utf-8")
         figures = _draw(audit, tmp)
         if before is not None:
             figures["before_after"] = _level_tiles(before, audit, tmp)
-        (tmp / "report.html").write_text(_html(audit, figures, before, names), encoding="utf-8")
+        (tmp / "report.html").write_text(_html(audit, figures, before, names, compared), encoding="utf-8")
         gaps = audit.gaps if before is None else compare_gaps(before, audit)
         gaps.to_csv(tmp / "gaps.csv", index=False)
         if before is not None:
-            before_after_table(before, audit).to_csv(tmp / "before_after.csv", index=False)
+            before_after_table(before, audit, compared).to_csv(tmp / "before_after.csv", index=False)
         written = sorted(tmp.iterdir(), key=lambda p: p.name == "report.html")
         for path in written:
             os.replace(path, folder / path.name)

@@ -25,7 +25,6 @@ import os
 from pathlib import Path
 
 from tilewright.location.objpath import ObjectPath, as_path
-from tilewright.store.backing import zarr_store
 
 import numpy as np
 import pandas as pd
@@ -34,6 +33,7 @@ from tilewright.audit.pixels import (SlidePixels, raw_glass, stored_glass, thumb
                                      tissue_pick)
 from tilewright.audit.permutation import stable_seed
 from tilewright.errors import IncompleteStoreError, StoreError
+from tilewright.store.journal import JOURNAL_NAME
 
 __all__ = ["SlidePixels", "resolve_folder", "read_manifest", "read_slide", "read_pair", "SOURCES"]
 
@@ -72,7 +72,7 @@ def resolve_folder(cohort_or_dir) -> Path:
             )
     if not folder.is_dir():
         raise StoreError("output folder not found; give the folder tile-out wrote", folder)
-    if not (folder / "manifest.csv").is_file() and not (folder / "manifest.parquet").is_file():
+    if not any((folder / name).is_file() for name in ("manifest.csv", "manifest.parquet", JOURNAL_NAME)):
         raise StoreError("no manifest.csv here; is this a tile-out output folder? run tile-out first", folder)
     return folder
 
@@ -85,12 +85,11 @@ def read_manifest(folder: Path) -> pd.DataFrame:
     StoreError
         When the manifest cannot be read or lacks the ``slide_id`` / ``status`` columns.
     """
+    from tilewright.store.cohort import read_manifest as manifest_with_journal
+
     csv = folder / "manifest.csv"
-    try:
-        if csv.is_file():
-            manifest = pd.read_csv(_readable(csv), dtype={"slide_id": str, "status": str, "error": str})
-        else:
-            manifest = pd.read_parquet(_readable(folder / "manifest.parquet"))
+    try:  # with the rows a running (or killed) run has not folded into it yet
+        manifest = manifest_with_journal(folder)
     except (ValueError, OSError) as exc:
         raise StoreError(f"cannot read the manifest ({exc}); re-run tile-out to rewrite it", csv) from exc
     missing = {"slide_id", "status"} - set(manifest.columns)
@@ -100,63 +99,60 @@ def read_manifest(folder: Path) -> pd.DataFrame:
     return manifest.drop_duplicates("slide_id", keep="last").set_index("slide_id")
 
 
-def _readable(path):
-    """What pandas reads: a local path, or the object's bytes."""
-    import io
-
-    return io.BytesIO(path.read_bytes()) if isinstance(path, ObjectPath) else path
-
-
 def _open(folder: Path, slide_id: str, needs_tiles: bool):
-    """Group, attributes, thumbnail, mask and ink of a complete store."""
-    import zarr
+    """Store, attributes, thumbnail, mask and background of a complete store.
+
+    The store's metadata is one read of its ``zarr.json`` and its small arrays are read straight
+    from their chunk files (:mod:`tilewright.store.metadata`); tiles are read through the store's
+    shard reader. At 10,000 slides zarr's own opens cost more than the metrics."""
+    from tilewright.store.metadata import read_json
+    from tilewright.store.reader import TileStore
 
     path = folder / f"{slide_id}.zarr"
     if not path.is_dir():
         raise StoreError("store listed as ok in the manifest is missing; re-run tile-out", path)
     try:
-        group = zarr.open_group(zarr_store(path), mode="r")
-    except Exception as exc:  # zarr raises several types for a damaged group
+        meta = read_json(path / "zarr.json")
+        if meta.get("zarr_format") != 3 or meta.get("node_type") != "group":
+            raise ValueError("zarr.json is not a zarr v3 group's")
+        attrs = dict(meta.get("attributes") or {})
+    except (OSError, ValueError, TypeError, AttributeError) as exc:
         raise StoreError(f"cannot open the store ({exc}); re-run tile-out with --overwrite", path) from exc
-    attrs = dict(group.attrs)
     if not attrs.get("complete", False):
         raise IncompleteStoreError("store was never marked complete (interrupted run); re-run tile-out", path)
-    names = set(group.array_keys())
+    store = TileStore(path, attrs)
+    names = {n for n in ("thumbnail", "mask", "ink", "tiles", "yx") if (path / n / "zarr.json").is_file()}
     needed = {"thumbnail", "mask"} | ({"tiles", "yx"} if needs_tiles else set())
     if needed - names:
         raise StoreError(f"store lacks array(s) {sorted(needed - names)}; re-run tile-out", path)
-    thumbnail = np.asarray(group["thumbnail"][...], dtype=np.uint8)
-    mask = np.asarray(group["mask"][...], dtype=bool)
+    thumbnail = np.asarray(store.thumbnail, dtype=np.uint8)
+    mask = np.asarray(store.mask, dtype=bool)
     if thumbnail.ndim != 3 or thumbnail.shape[-1] != 3 or mask.shape != thumbnail.shape[:2]:
         raise StoreError(f"thumbnail {thumbnail.shape} and mask {mask.shape} do not match; re-run tile-out", path)
-    ink = np.asarray(group["ink"][...], dtype=bool) if "ink" in names else np.zeros_like(mask)
+    ink = np.asarray(store._small("ink"), dtype=bool) if "ink" in names else np.zeros_like(mask)
     background = ~mask & (~ink if ink.shape == mask.shape else True)
-    return path, group, attrs, thumbnail, mask, background
+    return path, store, attrs, thumbnail, mask, background
 
 
-def _sample(group, max_tiles: int, rng: np.random.Generator) -> np.ndarray:
+def _sample(store, max_tiles: int, rng: np.random.Generator) -> np.ndarray:
     """Sorted indices of at most ``max_tiles`` stored tiles (all when fewer)."""
-    n = int(group["tiles"].shape[0])
+    n = len(store)
     if n <= max_tiles:
         return np.arange(n)
     return np.sort(rng.choice(n, size=max_tiles, replace=False))
 
 
-def _stored(group, index: np.ndarray) -> np.ndarray:
-    tiles = group["tiles"]
+def _stored(store, index: np.ndarray) -> np.ndarray:
     if index.size == 0:
-        return np.zeros((0,) + tuple(tiles.shape[1:]), np.uint8)
-    if index.size == tiles.shape[0]:
-        return np.asarray(tiles[...], dtype=np.uint8)
-    return np.asarray(tiles.get_orthogonal_selection((index,)), dtype=np.uint8)
+        return np.zeros((0,) + tuple(store.shape[1:]), np.uint8)
+    return np.asarray(store[index], dtype=np.uint8)
 
 
-def _source(group, attrs, index: np.ndarray, path: Path) -> np.ndarray:
+def _source(store, attrs, index: np.ndarray, path: Path) -> np.ndarray:
     from tilewright.audit.source_tiles import read_source_tiles
 
-    tile = int(group["tiles"].shape[1])
-    yx = np.asarray(group["yx"][...], dtype=np.int64)[index]
-    return read_source_tiles(attrs, yx, tile, path)
+    yx = np.asarray(store.yx, dtype=np.int64)[index]
+    return read_source_tiles(attrs, yx, store.tile_size, path)
 
 
 def read_slide(folder: Path, slide_id: str, source: str, *, max_tiles: int = 64, seed: int = 0) -> SlidePixels:
@@ -187,20 +183,20 @@ def read_slide(folder: Path, slide_id: str, source: str, *, max_tiles: int = 64,
     IncompleteStoreError
         When the store was never marked complete.
     """
-    path, group, attrs, thumbnail, mask, background = _open(folder, slide_id, source != "thumbnail")
+    path, store, attrs, thumbnail, mask, background = _open(folder, slide_id, source != "thumbnail")
     rng = np.random.default_rng(stable_seed(seed, slide_id))
-    n_tiles = int(group["tiles"].shape[0]) if "tiles" in set(group.array_keys()) else 0
+    n_tiles = len(store) if (path / "tiles" / "zarr.json").is_file() else 0
     fraction = float(mask.mean()) if mask.size else float("nan")
     if source == "thumbnail":
         glass = raw_glass(attrs, thumbnail, background)
         return thumbnail_pixels(slide_id, thumbnail, mask, glass, n_tiles=n_tiles, attrs=attrs, rng=rng)
     from tilewright.stain.tissue_pixels import tissue_mask
 
-    index = _sample(group, max_tiles, rng)
+    index = _sample(store, max_tiles, rng)
     if source == "source":
-        tiles, glass = _source(group, attrs, index, path), raw_glass(attrs, thumbnail, background)
+        tiles, glass = _source(store, attrs, index, path), raw_glass(attrs, thumbnail, background)
     else:
-        tiles, glass = _stored(group, index), stored_glass(attrs, thumbnail, background)
+        tiles, glass = _stored(store, index), stored_glass(attrs, thumbnail, background)
     masks = tissue_mask(tiles, glass=glass) if tiles.size else np.zeros(tiles.shape[:3], bool)
     return tile_pixels(slide_id, tiles, masks, pick=tissue_pick(masks, rng), tissue_fraction=fraction,
                        n_tiles=n_tiles, attrs=attrs, glass=glass)
@@ -228,14 +224,14 @@ def read_pair(folder: Path, slide_id: str, *, max_tiles: int = 64, seed: int = 0
     """
     from tilewright.stain.tissue_pixels import tissue_mask
 
-    path, group, attrs, thumbnail, mask, background = _open(folder, slide_id, True)
+    path, store, attrs, thumbnail, mask, background = _open(folder, slide_id, True)
     rng = np.random.default_rng(stable_seed(seed, slide_id))
-    index = _sample(group, max_tiles, rng)
-    raw, stored = _source(group, attrs, index, path), _stored(group, index)
+    index = _sample(store, max_tiles, rng)
+    raw, stored = _source(store, attrs, index, path), _stored(store, index)
     glass = raw_glass(attrs, thumbnail, background)
     masks = tissue_mask(raw, glass=glass) if raw.size else np.zeros(raw.shape[:3], bool)
     pick = tissue_pick(masks, rng)
     common = dict(pick=pick, tissue_fraction=float(mask.mean()) if mask.size else float("nan"),
-                  n_tiles=int(group["tiles"].shape[0]), attrs=attrs)
+                  n_tiles=len(store), attrs=attrs)
     return (tile_pixels(slide_id, raw, masks, glass=glass, **common),
             tile_pixels(slide_id, stored, masks, glass=stored_glass(attrs, thumbnail, background), **common))

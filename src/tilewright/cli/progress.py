@@ -75,7 +75,7 @@ class RichProgress:
 
     def _update(self) -> None:
         c = self.counts
-        read = sum(c.read.values()) + c.settled
+        read = c.read_total + c.settled
         planned = max(c.planned_estimate(), read)
         elapsed = max(1e-9, time.time() - c.started)
         eta = c.eta_seconds()

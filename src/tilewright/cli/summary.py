@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import os
 import sys
 from pathlib import Path
 
@@ -15,21 +14,10 @@ __all__ = ["print_summary", "FULL_TABLE_UP_TO"]
 FULL_TABLE_UP_TO = 20
 
 
-def _bytes(rows, out) -> int:
-    from tilewright.location.url import is_url
-
-    total = 0
-    for r in rows:
-        if r.get("status") != "ok" or r.get("kept"):
-            continue  # written by this run only (a kept store was written by an earlier one)
-        if is_url(out):
-            from tilewright.location.objects import list_prefix
-
-            total += sum(size for _, size in list_prefix(f"{str(out).rstrip('/')}/{r['slide_id']}.zarr"))
-            continue
-        for root, _, files in os.walk(Path(out) / f"{r['slide_id']}.zarr"):
-            total += sum(os.path.getsize(os.path.join(root, f)) for f in files)
-    return total
+def _bytes(rows) -> int:
+    """Bytes of the stores this run wrote, as each slide measured its own store when it finished
+    (a kept store was written by an earlier run; nothing is read from disk here)."""
+    return sum(int(r.get("bytes") or 0) for r in rows if r.get("status") == "ok" and not r.get("kept"))
 
 
 def _size(n: float) -> str:
@@ -52,7 +40,7 @@ def print_summary(rows, out, *, seconds: float = 0.0, megapixels: float = 0.0, v
     rate = f", {megapixels / seconds:.0f} MP/s" if seconds > 0 and megapixels > 0 else ""
     all_ink = f", {len(inked)} ALL INK" if inked else ""
     stream.write(f"\n{ok} ok, {len(rows) - ok - len(failed) - len(inked)} skipped{all_ink}, {len(failed)} failed; "
-                 f"{tiles} tiles, {_size(_bytes(rows, out))} written in {seconds:.1f} s{rate}\n")
+                 f"{tiles} tiles, {_size(_bytes(rows))} written in {seconds:.1f} s{rate}\n")
     if inked:  # not blank slides: their tissue (or what was taken for it) went to the ink filter
         stream.write(f"{len(inked)} slide(s) lost all their tissue to marker ink or the dark-region filter (status "
                      f"all-ink: {', '.join(str(r['slide_id']) for r in inked[:5])}{', ...' if len(inked) > 5 else ''}): "

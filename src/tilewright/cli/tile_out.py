@@ -266,6 +266,7 @@ def _run(args, config, found, mpp, out, log_file) -> int:
                               overwrite=args.overwrite, mpp=mpp, progress=False, on_progress=totals,
                               ids=found.ids, root=found.root)
     rows = [r.to_row() for r in results]
+    del results
     if not args.quiet:
         print_summary(rows, out, seconds=time.perf_counter() - t0, megapixels=totals.megapixels,
                       verbose=args.verbose)

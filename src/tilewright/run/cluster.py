@@ -6,7 +6,7 @@ from pathlib import Path
 
 from tilewright.store.layout import store_path
 
-__all__ = ["run_cluster"]
+__all__ = ["run_cluster", "worker_threads"]
 
 
 def _sweep_partials(out_dir: Path, ids) -> None:
@@ -14,6 +14,16 @@ def _sweep_partials(out_dir: Path, ids) -> None:
     from tilewright.store.writer import remove_partials
 
     remove_partials(*(store_path(out_dir, sid) for sid in ids))
+
+
+def worker_threads(client) -> int:
+    """Worker threads of the cluster behind ``client`` (0 without one: slides run in this process)."""
+    if client is None:
+        return 0
+    try:
+        return sum(int(n) for n in client.nthreads().values())
+    except Exception:  # noqa: BLE001 - a busy or vanishing scheduler: size as for a small cluster
+        return 2
 
 
 class run_cluster:

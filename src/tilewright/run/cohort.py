@@ -24,16 +24,19 @@ _log = logging.getLogger("tilewright")
 
 
 def run_one(path: str, out_dir: str, config: dict, slide_id: str, mpp: float | None,
-            target: dict | None, overwrite: bool, stop_name: str | None = None, report=None) -> dict:
+            target: dict | None, overwrite: bool, stop_name: str | None = None, report=None, *,
+            stop=None) -> dict:
     """Tile one slide and return its manifest row; never raises for a bad slide.
 
-    This is the unit of work sent to dask workers (arguments are plain, picklable values).
-    ``stop_name`` names a ``distributed.Event``: once set, the slide stops at its next block
-    (its temporary store removed) and its row says it was interrupted. ``report`` gets the slide's
-    progress events: a callable (in this process) or the name of a dask event topic (on a worker;
-    see :func:`tilewright.run.reporting.slide_reporter`).
+    The work done for each slide on dask workers (arguments are plain, picklable values; a run
+    sends them in batches, :func:`tilewright.run.batches.run_batch`). ``stop_name`` names a
+    ``distributed.Event``: once set, the slide stops at its next block (its temporary store
+    removed) and its row says it was interrupted (``stop``: that event's check, shared by the
+    slides of a batch). ``report`` gets the slide's progress events: a callable (in this process)
+    or the name of a dask event topic (on a worker; see
+    :func:`tilewright.run.reporting.slide_reporter`).
     """
-    from tilewright.run.reporting import slide_reporter
+    from tilewright.run.reporting import UNREPORTED, slide_reporter
 
     from tilewright.run.allocator import steady_heap
 
@@ -41,8 +44,8 @@ def run_one(path: str, out_dir: str, config: dict, slide_id: str, mpp: float | N
     t0 = time.perf_counter()
     cfg = TilingConfig.from_dict(config)
     final = store_path(out_dir, slide_id)
-    stop = _stop_check(stop_name)
-    on_plan, on_tiles, flush = slide_reporter(report, slide_id)
+    stop = stop or stop_check(stop_name)
+    on_plan, on_tiles, finish = slide_reporter(report, slide_id)
 
     def on_block(n):
         on_tiles(n)
@@ -72,13 +75,16 @@ def run_one(path: str, out_dir: str, config: dict, slide_id: str, mpp: float | N
         res = SlideResult(slide_id, path, "failed", f"{path}: unexpected {type(exc).__name__}: "
                           + " ".join(str(exc).split())[:300])
     res.seconds = round(time.perf_counter() - t0, 3)
-    flush()
-    return res.to_row()
+    row = res.to_row()
+    tiles, megapixels = finish()
+    if tiles:  # no event reported them (a short slide on a worker): they travel with the row
+        row[UNREPORTED] = {"tiles": tiles, "megapixels": megapixels}
+    return row
 
 
-def _stop_check(stop_name):
+def stop_check(stop_name):
     """A callable raising :class:`~tilewright.interrupts.Stopped` once the run's stop event is set
-    (polled at most once a second); a no-op without one."""
+    (polled at most once a second, then raising at every call); a no-op without one."""
     if stop_name is None:
         return lambda *_: None
     from distributed import Event
@@ -86,14 +92,15 @@ def _stop_check(stop_name):
     from tilewright.interrupts import Stopped
 
     event = Event(stop_name)
-    last = [0.0]
+    state = {"last": 0.0, "stopped": False}
 
     def check(*_):
         now = time.monotonic()
-        if now - last[0] >= 1.0:
-            last[0] = now
-            if event.is_set():
-                raise Stopped()
+        if not state["stopped"] and now - state["last"] >= 1.0:
+            state["last"] = now
+            state["stopped"] = event.is_set()
+        if state["stopped"]:
+            raise Stopped()
 
     return check
 
@@ -127,31 +134,18 @@ def _complete_row(final: Path, path: str, slide_id: str, cfg: TilingConfig, mpp,
 
     "The same" is the resume identity (:mod:`tilewright.run.identity`): settings, source file,
     level-0 µm/px, stain target. A complete store that differs is not silently kept or replaced:
-    the slide fails with a reason saying how to proceed, and the store stays as it is.
+    the slide fails with a reason saying how to proceed, and the store stays as it is
+    (:func:`tilewright.run.resume.resume_row`; a cohort run decides most slides before they become
+    tasks, :func:`tilewright.run.resume.scan`).
     """
-    from tilewright.errors import ConfigError
-    from tilewright.run.identity import identity_changes, run_identity, store_identity
-    from tilewright.run.ledger import kept_row
-    from tilewright.store.reader import is_complete, open_store
+    from tilewright.run.identity import RunIdentity
+    from tilewright.run.resume import resume_row
+    from tilewright.store.metadata import store_attrs
 
-    if not is_complete(final):
+    attrs = store_attrs(final)
+    if attrs is None:
         return None
-    attrs = open_store(final).attrs
-    changed = identity_changes(store_identity(attrs), run_identity(path, cfg, mpp, target))
-    if changed and not int(attrs.get("n_tiles") or 0):
-        return None  # a skipped slide's store holds no tile: nothing to keep, tiled anew with these settings
-    if changed:
-        raise ConfigError(f"a complete store made with other settings or another source exists "
-                          f"({', '.join(changed[:4])}); it is kept as it is; pass --overwrite to re-tile "
-                          "or choose another output folder", final)
-    if cfg.keep:  # region files are part of a store's identity: edited annotations are re-tiled
-        from tilewright.regions.load import region_change
-
-        why = region_change(attrs.get("regions"), cfg.regions, slide_id)
-        if why:
-            raise ConfigError(f"a complete store made with other settings exists ({why}); it is kept as it "
-                              "is; pass --overwrite to re-tile or choose another output folder", final)
-    return kept_row(final, slide_id, path, attrs)
+    return resume_row(final, attrs, path, slide_id, cfg, mpp, RunIdentity(cfg, target))
 
 
 def stain_target_path(out_dir, method: str) -> Path:
@@ -234,22 +228,31 @@ def tile_cohort(paths, out_dir, config: TilingConfig | None = None, *, scheduler
 
     Notes
     -----
-    The manifest is rewritten (atomically) each time a slide finishes and keeps the rows of
-    slides this run did not reach and of earlier runs into the same folder; a run that stops
-    before any slide finished leaves the manifest and ``config.toml`` as they were
+    Each finished slide's row is appended to ``manifest.journal.jsonl`` at once and folded into
+    the manifest (rewritten atomically) every few seconds and at the end; the manifest keeps the
+    rows of slides this run did not reach and of earlier runs into the same folder; a run that
+    stops before any slide finished leaves the manifest and ``config.toml`` as they were
     (:mod:`tilewright.run.ledger`). A complete store is kept only when this run would write the
-    same one (:mod:`tilewright.run.identity`). A slide the folder already holds keeps its id
-    (:func:`tilewright.run.naming.cohort_ids`): adding slides never renames a store.
+    same one (:mod:`tilewright.run.identity`); that is decided for every store before any task is
+    sent, with one metadata read a store (:mod:`tilewright.run.resume`). A few slides per worker
+    thread are submitted at a time, so memory and the scheduler's load do not grow with the
+    cohort. A slide the folder already holds keeps its id (:func:`tilewright.run.naming.cohort_ids`):
+    adding slides never renames a store.
     """
-    from tilewright.run.cluster import run_cluster
+    from tilewright.run.batches import BatchSizer, lost_rows, run_batch
+    from tilewright.run.cluster import run_cluster, worker_threads
     from tilewright.run.events import LogProgress, ProgressEvent, ProgressTracker
     from tilewright.run.execute import execute
     from tilewright.run.ledger import Ledger
     from tilewright.run.lock import output_lock
     from tilewright.run.naming import cohort_ids, given_ids
-    from tilewright.run.reporting import events_from
+    from tilewright.run.reporting import UNREPORTED, events_from
+    from tilewright.run.resume import scan
     from tilewright.run.sources import unique_paths
 
+    from tilewright.run.allocator import steady_heap
+
+    steady_heap()  # this process runs a cohort: large buffers mmapped and returned, heaps trimmed
     config = config or TilingConfig()
     if on_result is None and callable(progress):
         on_result = progress
@@ -273,40 +276,82 @@ def tile_cohort(paths, out_dir, config: TilingConfig | None = None, *, scheduler
     with output_lock(out_dir) as held, run_cluster(scheduler, workers, paths, out_dir, ids := cohort_ids(
             paths, out_dir, root=root, given=given(paths))) as (client, stop_name):
         mpps = [_mpp_for(mpp, p, i) for p, i in zip(paths, ids)]
-        ledger = Ledger(out_dir, paths, ids, config.to_toml())
         tracker = ProgressTracker(out_dir, len(paths), [on_progress, plain])
+        ledger = None
 
         def compute(fn, args_list, on_error):
             return execute(fn, args_list, scheduler=scheduler, workers=workers, on_error=on_error,
                            stop_name=stop_name, client=client)
+
+        def finish(row):
+            extra = row.pop(UNREPORTED, None) or {}  # counts no progress event carried
+            ledger.record(row)
+            getattr(held, "check", _nothing)()  # a lease in a bucket lost to another run stops here
+            for note in filter(None, str(row.get("warnings") or "").split("; ")):
+                _log.warning("%s: %s", row.get("slide_id"), note)  # reaches tile-out.log
+            tracker(ProgressEvent("slide", row["slide_id"], int(extra.get("tiles") or 0),
+                                  float(extra.get("megapixels") or 0.0), row=row))
+            if on_result is not None:
+                on_result(row)
 
         state = "interrupted"
         try:
             target = _stain_target(paths, out_dir, config, mpps, lambda fn, a: [
                 r for _, r in compute(fn, a, lambda i, exc: None)], reference, ids)  # a slide that fails here fails later
             tracker(ProgressEvent("start", count=len(paths)))
+            found, decided = scan(out_dir, paths, ids, config, mpps, target, overwrite)  # one read a store
+            ledger = Ledger(out_dir, paths, ids, config.to_toml(), found=found,
+                            on_fold=_after_fold(out_dir, config.qc_overlay))
+            ledger.started = True
+            for i in sorted(decided):  # kept (or refused) here: no task
+                finish(decided[i])
+            todo = [(paths[i], ids[i], mpps[i]) for i in range(len(paths)) if i not in decided]
+            sizer = BatchSizer(worker_threads(client))
+            sent = []  # the batches, in the order execute numbers them
+
+            def tasks():  # taken as tasks are submitted: a few per worker thread at a time
+                settings, shared_target = config.to_dict(), target
+                if client is not None:  # sent to the workers once, not with every task
+                    settings, shared_target = client.scatter([settings, target], broadcast=True, hash=False)
+                for batch in sizer.batches(todo):
+                    sent.append(batch)
+                    yield batch, str(out_dir), settings, shared_target, overwrite, stop_name, report
+
             with events_from(client, tracker) as report:
-                args = [(p, str(out_dir), config.to_dict(), sid, m, target, overwrite, stop_name, report)
-                        for p, sid, m in zip(paths, ids, mpps)]
-                ledger.started = True
-                results = compute(run_one, args, lambda i, exc: failure_row(paths[i], ids[i], exc))
+                results = compute(run_batch, tasks(), lambda k, exc: lost_rows(sent[k], out_dir, exc, overwrite))
                 try:
-                    for i, row in results:
-                        ledger.record(row)
-                        getattr(held, "check", _nothing)()  # a lease in a bucket lost to another run stops here
-                        for note in filter(None, str(row.get("warnings") or "").split("; ")):
-                            _log.warning("%s: %s", row.get("slide_id"), note)  # reaches tile-out.log
-                        tracker(ProgressEvent("slide", row["slide_id"], row=row))
-                        if on_result is not None:
-                            on_result(row)
+                    for k, rows in results:
+                        sent[k] = None  # done: its slides are recorded below
+                        for row in rows:
+                            sizer.note(row)
+                            finish(row)
                 finally:
                     results.close()  # running tasks stopped and waited for before the sweep
             state = "finished"
         finally:
-            ledger.write()
-            if ledger.started:
+            if ledger is not None:
+                ledger.write(last=True)
                 tracker.close(state)
-    return [SlideResult(**{k: r[k] for k in SlideResult.__dataclass_fields__ if k in r}) for r in ledger.rows()]
+    rows = ledger.rows()
+    return [SlideResult(**{k: r[k] for k in SlideResult.__dataclass_fields__ if k in r}) for r in rows]
+
+
+def _after_fold(out_dir, qc_page: bool):
+    """What runs after each folding of the manifest: ``OUT/qc/index.html`` written from its rows
+    (a failure is logged: a page never stops a run), then the heap's free pages given back (a
+    folding's buffers grow with the cohort; :mod:`tilewright.run.allocator`)."""
+    def after(rows):
+        from tilewright.run.allocator import release_free
+        from tilewright.run.qc_page import write_qc_page
+
+        if qc_page:
+            try:
+                write_qc_page(out_dir, rows)
+            except Exception as exc:  # noqa: BLE001 - a picture page must not cost the cohort
+                _log.warning("qc/index.html not written (%s: %s)", type(exc).__name__, exc)
+        release_free()
+
+    return after
 
 
 def _nothing() -> None:

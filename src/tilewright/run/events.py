@@ -5,10 +5,13 @@ planned tiles, before any is read), ``"tiles"`` (tiles read in a slide since its
 per block of tiles, so progress moves within a slide), ``"slide"`` (a slide finished: its manifest
 row) and ``"end"``. ``tile_cohort(..., on_progress=callable)`` receives every event; the events
 come from this process, from local worker processes and from a remote cluster alike (workers send
-them as dask worker events, see :mod:`tilewright.run.cohort`).
+them as dask worker events, see :mod:`tilewright.run.reporting`; a slide on a worker that
+finishes within half a second sends no "plan" or "tiles" event: its "slide" event carries its
+counts).
 
 :class:`ProgressTracker` folds the events into counts (slides done/failed, tiles written/planned,
-source megapixels, slides in flight, an end estimated from planned tiles) and rewrites
+source megapixels, slides in flight, an end estimated from planned tiles and finished slides),
+each event at a cost that does not grow with the cohort, and rewrites
 ``OUT/progress.json`` atomically (temporary name, then rename) at most every
 :data:`WRITE_EVERY` seconds, and once at the end. ``tilewright status OUT`` reads that file.
 """
@@ -45,9 +48,11 @@ class ProgressEvent:
         The slide concerned ("plan", "tiles", "slide").
     count : int
         "start": slides in the run; "plan": tiles planned for the slide; "tiles": tiles read
-        since the slide's previous event.
+        since the slide's previous event; "slide": tiles the slide read that no "tiles" event
+        reported (a slide on a worker that finished within a moment sends no event of its own).
     megapixels : float
-        "tiles": source megapixels those tiles cover (level-0 pixels read, in millions).
+        "tiles" and "slide": source megapixels those tiles cover (level-0 pixels read, in
+        millions).
     row : dict or None
         "slide": the slide's manifest row (``status`` ok/skipped/failed, ``error``, ``n_tiles``, ...).
     time : float
@@ -74,6 +79,9 @@ class ProgressEvent:
 class ProgressTracker:
     """Counts of a run, kept from its events; writes ``progress.json`` (see the module docstring).
 
+    Every event costs the same whatever the cohort's size: totals are kept as running sums, and
+    per-slide counts only for the slides in flight (planned or being read, not yet finished).
+
     Parameters
     ----------
     out_dir : path or None
@@ -90,12 +98,17 @@ class ProgressTracker:
         self.listeners = [f for f in listeners if f is not None]
         self.lock = threading.Lock()
         self.started = time.time()
+        self.working = None  # time.time() of the first plan: when tiling began (after any resume check)
         self.done = self.failed = self.skipped = 0
+        self.tiled = 0  # finished slides this run planned (not kept from an earlier run)
         self.written = 0  # tiles stored by finished slides
         self.megapixels = 0.0
-        self.planned: dict[str, int] = {}  # slide -> planned tiles (slides planned so far)
-        self.read: dict[str, int] = {}  # slide -> tiles read so far
-        self.in_flight: set[str] = set()
+        self.planned_total = 0  # tiles planned by every slide planned so far
+        self.planned_slides = 0
+        self.unplanned_done = 0  # slides finished without a plan (kept, or failed before planning)
+        self.read_total = 0  # tiles read so far
+        self.in_flight: dict[str, list] = {}  # slide -> [planned tiles or None, tiles read]
+        self.finished: set[str] = set()
         self.settled = 0  # planned tiles that will not be read (their slide failed)
         self.state = "running"
         self._last_write = 0.0
@@ -114,13 +127,24 @@ class ProgressTracker:
         if e.kind == "start":
             self.total = int(e.count)
         elif e.kind == "plan":
-            self.planned[sid] = int(e.count)
-            self.read.setdefault(sid, 0)
-            self.in_flight.add(sid)
+            if sid in self.finished:
+                return  # a late message of a slide already recorded
+            entry = self.in_flight.setdefault(sid, [None, 0])
+            if entry[0] is None:
+                self.planned_slides += 1
+            else:
+                self.planned_total -= entry[0]
+            entry[0] = int(e.count)
+            self.planned_total += entry[0]
+            self.working = self.working or e.time
         elif e.kind == "tiles":
-            self.read[sid] = self.read.get(sid, 0) + int(e.count)
+            n = int(e.count)
+            self.read_total += n
             self.megapixels += float(e.megapixels)
-            self.in_flight.add(sid)
+            if sid in self.finished:  # sent before the slide finished, arrived after its row
+                self.settled -= min(n, self.settled)
+                return
+            self.in_flight.setdefault(sid, [None, 0])[1] += n
         elif e.kind == "slide":
             row = e.row or {}
             self.done += 1
@@ -128,33 +152,52 @@ class ProgressTracker:
             self.failed += status == "failed"
             self.skipped += status in ("skipped", "all-ink")
             self.written += int(row.get("n_tiles") or 0)
-            self.in_flight.discard(sid)
-            # a slide kept from an earlier run was not planned here; a failed one reads no more
-            read = self.read.setdefault(sid, 0)
-            self.planned[sid] = read if sid not in self.planned else self.planned[sid]
-            self.settled += max(0, self.planned[sid] - read)
+            self.finished.add(sid)
+            planned, read = self.in_flight.pop(sid, [None, 0])
+            if e.count:  # read by a slide too short to send events of its own
+                self.read_total += int(e.count)
+                self.megapixels += float(e.megapixels)
+                read += int(e.count)
+                if planned is None:
+                    planned = read
+                    self.planned_slides += 1
+                    self.planned_total += planned
+            if planned is None:
+                self.unplanned_done += 1
+            else:
+                self.tiled += 1
+                self.settled += max(0, planned - read)  # a failed slide reads no more
         elif e.kind == "end":
             self.state = e.row.get("state", "finished") if e.row else "finished"
             self.in_flight.clear()
 
     # -- derived figures ------------------------------------------------------------------
+    @property
+    def read(self) -> dict:
+        """Tiles read so far by each slide in flight."""
+        return {sid: v[1] for sid, v in self.in_flight.items()}
+
     def planned_estimate(self) -> int:
         """Tiles the whole run will read: planned so far, plus the mean of the planned slides for
-        each slide not planned yet."""
-        known = sum(self.planned.values())
-        n_known = len(self.planned)
-        rest = max(0, self.total - max(n_known, self.done))
-        mean = known / n_known if n_known else 0.0
-        return int(round(known + rest * mean))
+        each slide neither planned nor finished yet."""
+        rest = max(0, self.total - self.planned_slides - self.unplanned_done)
+        mean = self.planned_total / self.planned_slides if self.planned_slides else 0.0
+        return int(round(self.planned_total + rest * mean))
 
     def eta_seconds(self) -> float | None:
-        """Seconds left, from the tiles still to read at the rate so far (None before any tile)."""
-        elapsed = time.time() - self.started
-        done = sum(self.read.values())
-        if done <= 0 or elapsed <= 0:
+        """Seconds left (None before any tile was read): the larger of two estimates at the rate
+        since tiling began, one from the tiles still to read, one from the slides still to finish.
+        The second counts what a slide costs besides its tiles (opening, mask, store), which
+        dominates on small slides, and the last slides' commit once all their tiles are read."""
+        now = time.time()
+        elapsed = now - (self.working or self.started)
+        if self.read_total <= 0 or elapsed <= 0:
             return None
-        left = max(0, self.planned_estimate() - done - self.settled)
-        return left * elapsed / done
+        left = max(0, self.planned_estimate() - self.read_total - self.settled)
+        by_tiles = left * elapsed / self.read_total
+        slides_left = max(0, self.total - self.done)
+        by_slides = slides_left * elapsed / self.tiled if self.tiled else 0.0
+        return max(by_tiles, by_slides)
 
     def snapshot(self) -> dict:
         eta = self.eta_seconds()
@@ -162,7 +205,7 @@ class ProgressTracker:
         return {
             "state": self.state, "slides_total": self.total, "slides_done": self.done,
             "slides_failed": self.failed, "slides_skipped": self.skipped,
-            "tiles_read": int(sum(self.read.values())), "tiles_written": int(self.written),
+            "tiles_read": int(self.read_total), "tiles_written": int(self.written),
             "tiles_planned_estimate": self.planned_estimate(), "source_megapixels": round(self.megapixels, 3),
             "started": _iso(self.started), "updated": _iso(now),
             "estimated_end": None if eta is None or self.state != "running" else _iso(now + eta),
@@ -217,6 +260,8 @@ class LogProgress:
             self.planned[e.slide_id], self.read[e.slide_id] = e.count, 0
             self.last[e.slide_id] = time.monotonic()
         elif e.kind == "tiles":
+            if e.slide_id not in self.planned:
+                return  # a late message of a slide already finished
             self.read[e.slide_id] = self.read.get(e.slide_id, 0) + e.count
             now = time.monotonic()
             if now - self.last.setdefault(e.slide_id, now) >= self.every:
@@ -225,6 +270,8 @@ class LogProgress:
                               self.planned.get(e.slide_id, 0))
         elif e.kind == "slide":
             self.done += 1
+            for seen in (self.planned, self.read, self.last):  # only slides in flight are kept
+                seen.pop(e.slide_id, None)
             row = e.row or {}
             from tilewright.run.row_text import row_progress  # "complete, kept" for a kept store
 

@@ -67,14 +67,26 @@ def connect(scheduler):
                           "address") from None
 
 
-def execute(fn, args_list, *, scheduler=None, workers=None, on_error=None, stop_name=None, client=None):
+#: Tasks kept submitted per worker thread: enough that a thread never waits for its next task,
+#: few enough that the scheduler, the client's bookkeeping and "in flight" stay small.
+PER_THREAD = 3
+
+#: Seconds between two looks at how many worker threads the cluster has (it may grow or shrink).
+RECOUNT_EVERY = 10.0
+
+
+def execute(fn, args_list, *, scheduler=None, workers=None, on_error=None, stop_name=None, client=None,
+            per_thread: int = PER_THREAD):
     """Yield ``(index, fn(*args))`` for every ``args`` in ``args_list``, in completion order.
 
     Parameters
     ----------
     fn : callable
         A picklable function (sent to dask workers).
-    args_list : list of tuple
+    args_list : iterable of tuple
+        Taken lazily: on dask, at most ``per_thread`` tasks a worker thread are submitted at a
+        time, the next one as soon as one finishes, so a cohort of any size costs the scheduler
+        and this process the same few tasks at a time.
     scheduler, workers :
         Where to run (see the module docstring).
     on_error : callable, optional
@@ -87,12 +99,18 @@ def execute(fn, args_list, *, scheduler=None, workers=None, on_error=None, stop_
         waited for (up to :data:`STOP_WAIT` seconds) before the cluster is let go.
     client : distributed.Client, optional
         A client already connected (then ``scheduler`` is ignored and the client is not closed).
+    per_thread : int
+        Tasks submitted at a time per worker thread (:data:`PER_THREAD`).
     """
-    args_list = list(args_list)
-    if not args_list:
+    import itertools
+
+    args_iter = iter(args_list)
+    first = next(args_iter, None)
+    if first is None:
         return
+    args_iter = itertools.chain([first], args_iter)
     if client is None and scheduler is None and (workers or 1) <= 1:
-        for i, args in enumerate(args_list):
+        for i, args in enumerate(args_iter):
             try:
                 value = fn(*args)
             except Exception as exc:  # noqa: BLE001 - on_error decides; Ctrl-C passes through
@@ -101,6 +119,9 @@ def execute(fn, args_list, *, scheduler=None, workers=None, on_error=None, stop_
                 value = on_error(i, exc)
             yield i, value
         return
+    import time
+    import uuid
+
     from distributed import as_completed
 
     own_cluster = own_client = None
@@ -110,23 +131,51 @@ def execute(fn, args_list, *, scheduler=None, workers=None, on_error=None, stop_
         else:
             own_cluster = local_cluster(workers)
             client = own_client = _client(own_cluster)
-    futures = []
+    tag = uuid.uuid4().hex[:12]
+    running: dict = {}  # key -> (index, future): submitted and not yet yielded
+    numbered = enumerate(args_iter)
+    window, counted = _window(client, per_thread), time.monotonic()
+
+    def submit_more(done):
+        nonlocal window, counted
+        if time.monotonic() - counted >= RECOUNT_EVERY:
+            window, counted = _window(client, per_thread), time.monotonic()
+        while len(running) < window:
+            item = next(numbered, None)
+            if item is None:
+                return
+            i, args = item
+            fut = client.submit(fn, *args, key=f"tilewright-{fn.__name__}-{i}-{tag}", pure=False)
+            running[fut.key] = (i, fut)
+            done.add(fut)
+
     try:
-        futures = [client.submit(fn, *args, key=f"tilewright-{fn.__name__}-{i}-{id(args_list)}", pure=False)
-                   for i, args in enumerate(args_list)]
-        index = {f.key: i for i, f in enumerate(futures)}
-        for fut in as_completed(futures):
+        done = as_completed()
+        submit_more(done)
+        for fut in done:
+            i, _ = running.pop(fut.key)
+            submit_more(done)  # before this result is handled: the workers keep busy meanwhile
             try:
                 value = fut.result()
             except Exception as exc:  # noqa: BLE001 - e.g. KilledWorker: the worker died mid-task
                 if on_error is None:
                     raise
-                value = on_error(index[fut.key], exc)
-            yield index[fut.key], value
+                value = on_error(i, exc)
+            del fut
+            yield i, value
     finally:
-        if futures and any(not f.done() for f in futures):
-            _stop(client, futures, stop_name)
+        pending = [f for _, f in running.values()]
+        if pending and any(not f.done() for f in pending):
+            _stop(client, pending, stop_name)
         _let_go(own_client, own_cluster)
+
+
+def _window(client, per_thread: int) -> int:
+    """Tasks to keep submitted: ``per_thread`` for every worker thread of the cluster (at least
+    two threads' worth, for a cluster whose workers have not joined yet)."""
+    from tilewright.run.cluster import worker_threads
+
+    return max(1, int(per_thread)) * max(2, worker_threads(client))
 
 
 #: Seconds a stopped run waits for running tasks to reach a safe point and clean up.

@@ -15,7 +15,7 @@ import os
 
 from tilewright.store.settings import RUN_ONLY, _same, _short, current_names, target_digest  # noqa: F401 - public here too
 
-__all__ = ["RUN_ONLY", "run_identity", "store_identity", "identity_changes", "target_digest"]
+__all__ = ["RUN_ONLY", "run_identity", "RunIdentity", "store_identity", "identity_changes", "target_digest"]
 
 #: Field names (they appear in the messages of refused resumes).
 SOURCE_SIZE, SOURCE_DIGEST, LEVEL0_MPP, STAIN_TARGET = (
@@ -43,14 +43,46 @@ def run_identity(path, config, mpp: float | None, target) -> dict:
     target : normalizer or dict or None
         The cohort's stain target (None: none, or each slide's own).
     """
-    from tilewright.store.provenance import source_digest, source_size
+    return RunIdentity(config, target).of(path, mpp)
 
-    ident = _settings(config.to_dict())
-    ident[SOURCE_SIZE] = source_size(path)  # a file's bytes, or all files of a DICOM series folder
-    ident[SOURCE_DIGEST] = source_digest(path)
-    ident[LEVEL0_MPP] = float(mpp) if mpp is not None else _file_mpp(path, config)
-    ident[STAIN_TARGET] = target_digest(target)
-    return ident
+
+class RunIdentity:
+    """This run's side of the identity: what all slides share (settings, stain target) computed
+    once, then :meth:`of` a slide (its source's size and digest, its level-0 µm/px)."""
+
+    def __init__(self, config, target):
+        self.config = config
+        self.shared = _settings(config.to_dict())
+        self.shared[STAIN_TARGET] = target_digest(target)
+
+    def of(self, path, mpp: float | None, stored: dict | None = None) -> dict:
+        """The identity of the store this run would write for ``path`` (see :func:`run_identity`).
+
+        ``stored``: the attributes of the complete store being checked. When the source's stat
+        stamp (bytes, modification time, files; :func:`~tilewright.store.provenance.source_stamp`)
+        equals the one the store recorded, the store's digest stands for the source's (it is not
+        read again); when the store's level-0 µm/px was read from the file (``mpp_source_from``,
+        not given by the run) and the digest is unchanged, the file is not opened again for it
+        either: a resumed run checks an unchanged slide with a ``stat``.
+        """
+        from tilewright.store.provenance import source_digest, source_size, source_stamp
+
+        ident = dict(self.shared)
+        source = (stored or {}).get("source") or {}
+        stamp = source_stamp(path) if source.get("stamp") else None
+        if stamp is not None and stamp == source["stamp"] and source.get("digest"):
+            ident[SOURCE_SIZE], ident[SOURCE_DIGEST] = stamp["size"], source["digest"]
+        else:
+            ident[SOURCE_SIZE] = source_size(path)  # a file's bytes, or all files of a DICOM series folder
+            ident[SOURCE_DIGEST] = source_digest(path)
+        if mpp is not None:
+            ident[LEVEL0_MPP] = float(mpp)
+        elif (stored or {}).get("mpp_source_from") == "file" and \
+                (stored.get("source") or {}).get("digest") == ident[SOURCE_DIGEST]:
+            ident[LEVEL0_MPP] = stored.get("mpp_source")
+        else:
+            ident[LEVEL0_MPP] = _file_mpp(path, self.config)
+        return ident
 
 
 def _file_mpp(path, config) -> float | None:

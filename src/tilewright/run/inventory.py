@@ -22,7 +22,7 @@ from tilewright.run.inventory_summary import CODECS, COLUMNS, human_bytes  # noq
 __all__ = ["plan_cohort", "survey_slide", "BYTES_PER_RAW", "CODECS"]
 
 #: Bytes a stored tile takes, as a share of its raw bytes (T x T x 3), by codec: measured on H&E
-#: tiles at 0.5 µm/px (the bench slide and the demo tiles, `make bench`; README, Store layout). JPEG
+#: tiles at 0.5 µm/px (the bench slide and the demo tiles, `make bench`; docs/guide/formats.md, Store layout). JPEG
 #: is for quality 90; other qualities need ``sample_tiles`` (measured on the slide's own tiles).
 BYTES_PER_RAW = {"lz4": 0.86, "zstd": 0.77, "zlib": 0.69, "none": 1.0, "webp": 0.48, "jpeg": 0.145}
 

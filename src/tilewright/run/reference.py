@@ -180,13 +180,20 @@ def own_target(method: str, sample, glass, path):
                   f"stain vectors with {'its own' if profile.n_tissue_pixels else 'unit'} concentration maxima")
 
 
-def sample_tiles(view, yx: np.ndarray, tile: int, count: int, seed: int, *, threads: int = 1) -> np.ndarray:
-    """Read a reproducible sample of ``count`` planned tiles (all of them when fewer), on
-    ``threads`` threads (view reads are thread-safe and release the GIL while decoding)."""
+def sample_positions(yx: np.ndarray, count: int, seed: int) -> np.ndarray:
+    """The positions of the reproducible sample :func:`sample_tiles` reads: ``count`` of the planned
+    positions ``yx`` (all of them when fewer), in plan order."""
     yx = np.asarray(yx)
     if len(yx) > count:
         pick = np.sort(np.random.default_rng(seed).choice(len(yx), size=count, replace=False))
         yx = yx[pick]
+    return yx
+
+
+def sample_tiles(view, yx: np.ndarray, tile: int, count: int, seed: int, *, threads: int = 1) -> np.ndarray:
+    """Read a reproducible sample of ``count`` planned tiles (all of them when fewer), on
+    ``threads`` threads (view reads are thread-safe and release the GIL while decoding)."""
+    yx = sample_positions(yx, count, seed)
     out = np.empty((len(yx), tile, tile, 3), np.uint8)
     if len(yx) == 0:
         return out

@@ -3,7 +3,10 @@
 In the run's own process the events go straight to a callable. On a dask worker they are sent as
 dask worker events (``Worker.log_event`` on a topic the client subscribed to), gathered so that a
 slide sends at most one ``"tiles"`` event every :data:`SEND_EVERY` seconds: progress costs a few
-small messages a second per worker, whatever the block size.
+small messages a second per worker, whatever the block size. A slide that finishes within
+:data:`SEND_EVERY` seconds of its plan sends none: each message costs the scheduler and the run's
+process about as much as a small slide's whole row, so its counts travel with its row instead
+(``"progress"``, see :func:`slide_reporter`) and the run folds them into its ``"slide"`` event.
 """
 
 from __future__ import annotations
@@ -12,14 +15,21 @@ import time
 
 from tilewright.run.events import ProgressEvent
 
-__all__ = ["slide_reporter", "events_from", "SEND_EVERY"]
+__all__ = ["slide_reporter", "events_from", "SEND_EVERY", "UNREPORTED"]
 
-#: Seconds between two "tiles" events of one slide sent from a worker.
+#: Seconds between two "tiles" events of one slide sent from a worker (and before its first).
 SEND_EVERY = 0.5
+
+#: Key of a row's progress counts that no event reported (removed before the row is recorded).
+UNREPORTED = "progress"
 
 
 def slide_reporter(report, slide_id: str):
-    """``(on_plan, on_tiles, flush)`` callables for one slide.
+    """``(on_plan, on_tiles, finish)`` callables for one slide.
+
+    ``finish()`` ends the slide's reporting and returns ``(tiles, megapixels)`` read that no
+    event reported (on a worker: everything read by a slide that finished within
+    :data:`SEND_EVERY` seconds; otherwise nothing).
 
     Parameters
     ----------
@@ -32,7 +42,7 @@ def slide_reporter(report, slide_id: str):
         def nothing(*_):
             return None
 
-        return nothing, nothing, nothing
+        return nothing, nothing, lambda: (0, 0.0)
     if isinstance(report, str):
         from distributed import get_worker
 
@@ -44,24 +54,39 @@ def slide_reporter(report, slide_id: str):
         every = SEND_EVERY
     else:
         send, every = report, 0.0
-    state = {"mp": 0.0, "n": 0, "mp_tile": 0.0, "last": time.monotonic()}
+    state = {"n": 0, "mp_tile": 0.0, "planned": None, "sent": False, "last": time.monotonic()}
 
-    def on_plan(planned: int, mp_per_tile: float) -> None:
-        state["mp_tile"] = float(mp_per_tile)
-        send(ProgressEvent("plan", slide_id, int(planned)))
+    def start() -> None:  # the plan goes first, once the slide has lasted long enough to be shown
+        if not state["sent"] and state["planned"] is not None:
+            state["sent"] = True
+            send(ProgressEvent("plan", slide_id, state["planned"]))
 
     def flush() -> None:
+        start()
         if state["n"]:
             send(ProgressEvent("tiles", slide_id, state["n"], state["n"] * state["mp_tile"]))
             state["n"] = 0
         state["last"] = time.monotonic()
+
+    def on_plan(planned: int, mp_per_tile: float) -> None:
+        state["mp_tile"], state["planned"] = float(mp_per_tile), int(planned)
+        state["last"] = time.monotonic()
+        if not every:
+            start()
 
     def on_tiles(n: int) -> None:
         state["n"] += int(n)
         if time.monotonic() - state["last"] >= every:
             flush()
 
-    return on_plan, on_tiles, flush
+    def finish():
+        if state["sent"] or not every:
+            flush()
+            return 0, 0.0
+        n, state["n"] = state["n"], 0
+        return n, n * state["mp_tile"]
+
+    return on_plan, on_tiles, finish
 
 
 class events_from:

@@ -20,6 +20,7 @@ from tilewright.run.stain_bind import bind_normalizer, stain_columns
 from tilewright.run.stain_record import stain_record
 from tilewright.run.tile_rows import per_tile_arrays
 from tilewright.store.layout import slide_ids
+from tilewright.store.metadata import folder_bytes
 from tilewright.store.writer import StoreWriter, remove_partials
 
 __all__ = ["SlideResult", "tile_slide"]
@@ -47,6 +48,8 @@ class SlideResult:
     stain_check: str = ""  # the normalized sample against the target: ok, off-target, not-normalized (run/stain_bind.py)
     stain_delta_e_raw: float | None = None  # CIEDE2000 of the sample's mean tissue colour to the target's, raw
     stain_delta_e: float | None = None  # ... and normalized
+    tissue_mm2: float | None = None  # tissue area the mask found, in mm²
+    bytes: int = 0  # the store's size on disk, when this run wrote it
 
     def to_row(self) -> dict:
         return asdict(self)
@@ -162,6 +165,7 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
         view = config.view(slide)
         survey = _survey(slide, view, config, slide_id, path, regions, target)
         plan, attrs = survey.plan, survey.attrs
+        attrs["mpp_source_from"] = "file" if mpp is None else "given"  # a resumed run trusts "file" on an unchanged digest
         release_free()  # the survey's temporaries are gone: start the tile pipeline on a clean heap
         if on_plan is not None:
             on_plan(len(plan), (config.tile * view.scale) ** 2 / 1e6)
@@ -189,7 +193,7 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
                 attrs["source"].update(digests)
                 arrays = None
                 if record is not None:  # the slide's stain estimates, for normalizing when reading
-                    pixels, attrs["stain_estimates"], attrs["stain_glass"] = record.result()
+                    pixels, attrs["stain_estimates"], attrs["stain_glass"], attrs["stain_sample_yx"] = record.result()
                     arrays = {"stain_sample": pixels}
                 writer.commit(attrs, overwrite=overwrite, expected=kept, arrays=arrays,
                               per_tile=per_tile_arrays(plan, writer.stored_yx, attrs.get("regions")))
@@ -204,7 +208,8 @@ def tile_slide(path, out, config: TilingConfig | None = None, *, slide_id: str |
                            source_level=int(view.source_level), seconds=round(time.perf_counter() - t0, 3),
                            store=str(final), colour_profile=slide.colour.label,
                            warnings="; ".join(attrs["warnings"]), source_sha256=attrs["source"].get("sha256") or "",
-                           mpp_origin=slide.mpp_origin or "", **stain_columns(attrs))
+                           mpp_origin=slide.mpp_origin or "", tissue_mm2=attrs["tissue_mm2"],
+                           bytes=folder_bytes(final), **stain_columns(attrs))
 
 
 def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNamespace:
@@ -242,6 +247,7 @@ def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNames
     attrs = {
         "slide_id": slide_id,
         "source": {"path": str(path) if is_url(path) else str(path.resolve()), "size": _source_size(path),
+                   "stamp": _source_stamp(path),
                    "digest": None, "backend": slide.backend},  # digest: computed aside (see _aside)
         "mpp": float(view.mpp), "mpp_source": float(slide.mpp), "mpp_origin": slide.mpp_origin,
         "objective": slide.objective,
@@ -250,6 +256,7 @@ def _survey(slide, view, config, slide_id, path, regions, target) -> SimpleNames
         "dimensions": list(slide.dimensions), "shape": list(view.shape),
         "tile": int(config.tile), "stride": int(config.step), "mask_mpp": float(mask.mpp),
         "tissue_fraction": float(mask_arr.mean()) if mask_arr.size else 0.0,
+        "tissue_mm2": round(float(mask_arr.sum()) * float(mask.mpp) ** 2 / 1e6, 4),
         "normalizer": None,  # bound while the first tiles are read (see tile_slide)
         "regions": None if (regions is None or not config.keep) else _region_info(regions, config, absent),
         "tissue_mask": _jsonable(mask.to_dict()),
@@ -367,6 +374,12 @@ def _source_size(path):
     from tilewright.store.provenance import source_size
 
     return source_size(path)
+
+
+def _source_stamp(path):
+    from tilewright.store.provenance import source_stamp
+
+    return source_stamp(path)
 
 
 def _digest(path, full=False) -> dict:

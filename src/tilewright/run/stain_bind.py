@@ -13,7 +13,7 @@ warning. The measures go to the store (``stain_outcome``) and the manifest (``st
 
 from __future__ import annotations
 
-import numpy as np
+from tilewright.stain.checked import checked_binding
 
 __all__ = ["bind_normalizer", "stain_columns", "CHECKS"]
 
@@ -21,60 +21,6 @@ __all__ = ["bind_normalizer", "stain_columns", "CHECKS"]
 #: ``uncertain`` is within the limits but from an estimate flagged by
 #: :func:`tilewright.stain.estimate.uncertain` (the reason is in the store's ``stain_outcome``).
 CHECKS = ("ok", "uncertain", "off-target", "not-normalized")
-
-
-#: Tiles of the sample the outcome is measured on (every k-th tile; the estimate reads them all).
-OUTCOME_TILES = 16
-
-
-def _measure(target, bound, sample, glass) -> dict:
-    from tilewright.stain.outcome import measure_outcome
-
-    sample = sample[:: max(1, len(sample) // OUTCOME_TILES)]
-    stains = getattr(target, "stain_matrix", None)
-    maxima = getattr(target, "max_concentrations", None)
-    return measure_outcome(sample, bound.transform(sample), glass=glass, target_colour=target.target_colour,
-                           target_stains=stains, target_maxima=maxima)
-
-
-def _fallback(target, sample, glass):
-    bound = target.with_glass(glass)
-    bound.source, how = bound._fallback_source(np.asarray(sample), bound.glass)
-    return bound, how
-
-
-def _checked(target, bound, replaced: str, sample, glass):
-    """``(normalizer or None, outcome, notes)`` after the never-worse rule (see the module notes)."""
-    from tilewright.stain.outcome import off_target_reason, pushed_away
-
-    outcome = _measure(target, bound, sample, glass)
-    notes = [f"stain-replaced: {replaced}"] if replaced else []
-    if pushed_away(outcome) and not replaced:
-        alt, how = _fallback(target, sample, glass)
-        alt_outcome = _measure(target, alt, sample, glass)
-        if not pushed_away(alt_outcome):
-            notes.append(f"stain-replaced: the slide's own stain estimate moved its tissue colour away from the "
-                         f"target (CIEDE2000 {outcome['delta_e_raw']:.1f} -> {outcome['delta_e']:.1f}); "
-                         f"replaced by {how}")
-            bound, outcome = alt, alt_outcome
-    if pushed_away(outcome):
-        notes.append(f"stain-not-normalized: normalizing moved the slide's tissue colour away from the target "
-                     f"(CIEDE2000 {outcome['delta_e_raw']:.1f} -> {outcome['delta_e']:.1f}); its tiles are stored "
-                     "as scanned")
-        return None, {**outcome, "check": "not-normalized"}, notes
-    reason = off_target_reason(outcome)
-    if reason:
-        notes.append(f"stain-off-target: {reason}")
-    doubt = _uncertain(bound.source)
-    check = "off-target" if reason else ("uncertain" if doubt else "ok")
-    return bound, {**outcome, "uncertain": doubt or None, "check": check}, notes
-
-
-def _uncertain(source) -> str:
-    """Why the bound Macenko estimate may be off (:func:`tilewright.stain.estimate.uncertain`)."""
-    from tilewright.stain.estimate import StainProfile, uncertain
-
-    return uncertain(source) if isinstance(source, StainProfile) else ""
 
 
 def bind_normalizer(view, plan, config, target, path, glass=None):
@@ -103,7 +49,7 @@ def bind_normalizer(view, plan, config, target, path, glass=None):
     if config.per_tile_stain:
         return target.with_glass(glass), used, notes, None
     bound, replaced = target.fit_source_checked(sample, glass=glass)
-    bound, outcome, more = _checked(target, bound, replaced, sample, glass)
+    bound, outcome, more = checked_binding(target, bound, replaced, sample, glass)
     return bound, used, notes + more, outcome
 
 

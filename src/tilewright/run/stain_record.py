@@ -18,8 +18,12 @@ __all__ = ["stain_record", "SAMPLE_PIXELS"]
 SAMPLE_PIXELS = 65_536
 
 
-def stain_record(view, plan, config, glass) -> tuple[np.ndarray, dict, list | None]:
-    """``(pixels (n, 3) uint8, {method: estimate dict or {"method", "error"}}, glass)`` of a slide.
+def stain_record(view, plan, config, glass) -> tuple[np.ndarray, dict, list | None, list]:
+    """``(pixels (n, 3) uint8, {method: estimate dict or {"method", "error"}}, glass, positions)`` of a slide.
+
+    ``positions``: the ``[y, x]`` of the sampled tiles; their stored tiles (un-normalized) are the
+    very sample the estimates and a normalizing run's checks read, so a reader binds a target on
+    them (the pixels serve stores whose sampled tiles were not all kept).
 
     Each estimate is a normalizer fitted on the slide's sample (``to_dict()``): its target is the
     slide's own stain (the input of a cohort's median target). A method whose estimate fails or,
@@ -27,7 +31,7 @@ def stain_record(view, plan, config, glass) -> tuple[np.ndarray, dict, list | No
     falls back as a normalizing run would.
     """
     from tilewright.errors import StainEstimationError
-    from tilewright.run.reference import sample_tiles
+    from tilewright.run.reference import sample_positions, sample_tiles
     from tilewright.stain.registry import METHODS, make_transfer
 
     sample = sample_tiles(view, plan.yx, config.tile, config.stain_sample, config.seed, threads=config.threads)
@@ -47,4 +51,5 @@ def stain_record(view, plan, config, glass) -> tuple[np.ndarray, dict, list | No
         except StainEstimationError as exc:
             estimates[method] = {"method": method, "error": getattr(exc, "reason", str(exc))}
     glass_out = None if glass is None else [float(v) for v in glass]
-    return np.ascontiguousarray(flat, dtype=np.uint8), estimates, glass_out
+    positions = sample_positions(plan.yx, config.stain_sample, config.seed).astype(int).tolist()
+    return np.ascontiguousarray(flat, dtype=np.uint8), estimates, glass_out, positions

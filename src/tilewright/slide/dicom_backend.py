@@ -143,9 +143,10 @@ class DicomBackend(GridReader):
                 "stored apart): which frames make the level is not decided here", self.path)
         self._levels, head, sources = [], None, {}
         try:
-            for inst in series.volumes:
+            for inst in series.volumes:  # headers parsed when the series was found, not again
                 src = sources[str(inst.path)] = open_source(str(inst.path))
-                ds, position = _header(src, inst.path)
+                ds, position = ((inst.dataset, inst.header_end) if inst.dataset is not None
+                                else _header(src, inst.path))
                 head = head or ds
                 self._levels.append(self._level(ds, position, inst.path, src))
         except BaseException:

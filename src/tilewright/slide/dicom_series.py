@@ -51,6 +51,8 @@ class DicomInstance(NamedTuple):
     pixel_spacing: tuple[float, float] | None  # mm (row spacing = y, column spacing = x)
     focal_planes: int
     optical_paths: int
+    dataset: object = None  # the parsed header (pydicom Dataset, up to the pixel data), kept for the reader
+    header_end: int = 0  # file offset where the header stops: the Pixel Data element starts there
 
 
 class DicomSeries(NamedTuple):
@@ -88,6 +90,9 @@ def is_dicom_file(path: str | os.PathLike) -> bool:
 def read_instance(path: str | os.PathLike) -> DicomInstance | None:
     """Header of one file; None when it is not a VL Whole Slide Microscopy instance.
 
+    The file is parsed once: the parsed header (``dataset``) and where it ends (``header_end``)
+    go with the instance, so a reader of its frames does not parse it again.
+
     Raises
     ------
     DamagedSlideError
@@ -99,6 +104,7 @@ def read_instance(path: str | os.PathLike) -> DicomInstance | None:
     try:
         with open_binary(path) as fh:
             ds = pydicom.dcmread(fh, stop_before_pixels=True)
+            header_end = fh.tell()
     except TilewrightError:
         raise  # an object-store failure says why
     except Exception as exc:  # pydicom raises several types on malformed headers
@@ -125,7 +131,8 @@ def read_instance(path: str | os.PathLike) -> DicomInstance | None:
             organization=str(ds.get("DimensionOrganizationType", "")),
             pixel_spacing=spacing,
             focal_planes=int(ds.get("TotalPixelMatrixFocalPlanes", 1) or 1),
-            optical_paths=int(ds.get("NumberOfOpticalPaths", 1) or 1))
+            optical_paths=int(ds.get("NumberOfOpticalPaths", 1) or 1),
+            dataset=ds if kind == "VOLUME" else None, header_end=header_end)
     except (AttributeError, TypeError, ValueError) as exc:
         raise DamagedSlideError(f"the DICOM WSI header lacks a required attribute ({exc})", path) from exc
 
@@ -148,16 +155,18 @@ def _candidates(folder: Path) -> list[Path]:
     return out
 
 
-def series_in_folder(folder: str | os.PathLike) -> list[DicomSeries]:
+def series_in_folder(folder: str | os.PathLike, *, known: dict | None = None) -> list[DicomSeries]:
     """Every WSI series with at least one VOLUME instance among the folder's files (not recursive).
 
     Series holding only THUMBNAIL, LABEL or OVERVIEW instances are not slides and are left out,
     as are DICOM files of other kinds (CT, reports, ...). Sorted by their level-0 file name.
+    ``known``: instances already read, by path (not parsed again).
     """
     folder = as_path(folder)
     groups: dict[str, list[DicomInstance]] = {}
+    known = known or {}
     for path in _candidates(folder):
-        inst = read_instance(path)
+        inst = known[path] if path in known else read_instance(path)
         if inst is not None:
             groups.setdefault(inst.series_uid, []).append(inst)
     slides = [(uid, items) for uid, items in groups.items() if any(i.kind == "VOLUME" for i in items)]
@@ -210,7 +219,7 @@ def find_series(path: str | os.PathLike) -> DicomSeries:
     if inst is None:
         raise UnsupportedSlideError(
             "a DICOM file that is not a whole-slide image (VL Whole Slide Microscopy)", path)
-    for series in series_in_folder(path.parent):
+    for series in series_in_folder(path.parent, known={path: inst}):
         if series.series_uid == inst.series_uid:
             return series
     raise UnsupportedSlideError(

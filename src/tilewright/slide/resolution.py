@@ -41,6 +41,7 @@ __all__ = [
     "mpp_xy_from_imagej",
     "mpp_xy_from_tiff_tags",
     "mpp_xy_from_ome",
+    "ome_root",
     "ANISOTROPY_LIMIT",
     "mpp_from_openslide",
     "checked_mpp",
@@ -137,20 +138,32 @@ def _ome_ns(root) -> str:
     return root.tag[: root.tag.index("}") + 1] if root.tag.startswith("{") else ""
 
 
+def ome_root(xml):
+    """The parsed OME-XML (an ``ElementTree`` element), or None when it does not parse.
+
+    The OME readers below take either the XML text or this element: a file's XML, which can run
+    to megabytes with many images, is then parsed once for all of them."""
+    if isinstance(xml, ET.Element):
+        return xml
+    try:
+        return ET.fromstring(xml)
+    except ET.ParseError:
+        return None
+
+
 def mpp_from_ome(xml: str, image_index: int = 0) -> float | None:
     """µm/px of one OME ``Image``: the mean of :func:`mpp_xy_from_ome`."""
     return _mean_xy(*mpp_xy_from_ome(xml, image_index))
 
 
-def mpp_xy_from_ome(xml: str, image_index: int = 0) -> tuple[float | None, float | None]:
+def mpp_xy_from_ome(xml, image_index: int = 0) -> tuple[float | None, float | None]:
     """(x, y) µm/px of one OME ``Image`` (``PhysicalSizeX``/``Y`` converted from their units).
 
     (None, None) when the image records no physical size or uses an unknown unit; a single
     recorded axis is returned as x.
     """
-    try:
-        root = ET.fromstring(xml)
-    except ET.ParseError:
+    root = ome_root(xml)
+    if root is None:
         return None, None
     ns = _ome_ns(root)
     images = root.findall(f"{ns}Image")
@@ -173,11 +186,10 @@ def mpp_xy_from_ome(xml: str, image_index: int = 0) -> tuple[float | None, float
     return (sizes + [None, None])[0], (sizes + [None, None])[1]
 
 
-def objective_from_ome(xml: str, image_index: int = 0) -> float | None:
+def objective_from_ome(xml, image_index: int = 0) -> float | None:
     """Nominal magnification of the objective used by one OME ``Image`` (or the only one)."""
-    try:
-        root = ET.fromstring(xml)
-    except ET.ParseError:
+    root = ome_root(xml)
+    if root is None:
         return None
     ns = _ome_ns(root)
     objectives = {o.get("ID"): o for o in root.iter(f"{ns}Objective")}

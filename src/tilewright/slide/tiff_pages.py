@@ -39,6 +39,7 @@ from tilewright.slide.resolution import (
     mpp_xy_from_ome,
     mpp_xy_from_tiff_tags,
     objective_from_ome,
+    ome_root,
     resolution_from_xy,
 )
 from tilewright.slide.tiff_pixels import page_problem
@@ -160,9 +161,9 @@ def discover(tf, path) -> Pyramid:
     return Pyramid(levels, associated, _resolution(tf, level0, pages[0]))
 
 
-def _ome_index(tf, k: int, series) -> int:
-    """Index of the OME ``Image`` behind a tifffile series (by unique name, else position)."""
-    names = re.findall(r"<Image\b[^>]*?\bName=\"([^\"]*)\"", tf.ome_metadata)
+def _ome_index(names: list, k: int, series) -> int:
+    """Index of the OME ``Image`` behind a tifffile series (by unique name, else position);
+    ``names``: the ``Name`` of every OME ``Image``, in order."""
     name = getattr(series, "name", None)
     if name and names.count(name) == 1:
         return names.index(name)
@@ -199,13 +200,16 @@ def _discover_ome(tf, path) -> Pyramid:
     k, series, pages = max(images, key=lambda item: _area(item[2][0]))
     level0 = pages[0]
     _check_orientation(level0, path)
-    resolution = _resolution(tf, level0, tf.pages[0], _ome_index(tf, k, series))
+    xml = tf.ome_metadata
+    ome = ome_root(xml)  # parsed once for every image (was: once an image, and twice more)
+    names = re.findall(r"<Image\b[^>]*?\bName=\"([^\"]*)\"", xml)
+    resolution = _resolution(tf, level0, tf.pages[0], _ome_index(names, k, series), ome)
     candidates = list(pages[1:])
     h0, w0 = int(level0.imagelength), int(level0.imagewidth)
     for j, other, other_pages in images:
         if other is series or resolution.mpp is None:
             continue
-        mpp = _mean_xy(*mpp_xy_from_ome(tf.ome_metadata, _ome_index(tf, j, other)))
+        mpp = _mean_xy(*mpp_xy_from_ome(ome, _ome_index(names, j, other))) if ome is not None else None
         p = other_pages[0]
         if mpp is not None and abs(mpp * int(p.imagewidth) - resolution.mpp * w0) <= mpp and \
                 abs(mpp * int(p.imagelength) - resolution.mpp * h0) <= mpp:
@@ -213,12 +217,13 @@ def _discover_ome(tf, path) -> Pyramid:
     return Pyramid(_levels_from(level0, candidates), associated, resolution)
 
 
-def _resolution(tf, level0, first, ome_image: int | None = None) -> Resolution:
-    """µm/px and objective: OME physical size, then Aperio MPP, then TIFF tags (ImageJ units)."""
+def _resolution(tf, level0, first, ome_image: int | None = None, ome=None) -> Resolution:
+    """µm/px and objective: OME physical size, then Aperio MPP, then TIFF tags (ImageJ units);
+    ``ome``: the parsed OME-XML (None: it does not parse)."""
     objective = None
-    if ome_image is not None:
-        objective = objective_from_ome(tf.ome_metadata, ome_image)
-        xy = mpp_xy_from_ome(tf.ome_metadata, ome_image)
+    if ome_image is not None and ome is not None:
+        objective = objective_from_ome(ome, ome_image)
+        xy = mpp_xy_from_ome(ome, ome_image)
         if xy[0] is not None:
             return resolution_from_xy(xy, objective, "ome")
     for page in (level0, first):

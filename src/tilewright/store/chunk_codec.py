@@ -15,12 +15,12 @@ from typing import Callable
 
 import numpy as np
 
-__all__ = ["ChunkCodec"]
+__all__ = ["ChunkCodec", "numcodec"]
 
 _SHUFFLE = {"noshuffle": 0, "shuffle": 1, "bitshuffle": 2}
 
 
-def _numcodec(spec: dict):
+def numcodec(spec: dict):
     """The numcodecs codec zarr uses for a zarr v3 bytes-to-bytes codec spec (KeyError if none)."""
     import numcodecs
 
@@ -90,7 +90,7 @@ class ChunkCodec:
                 return None
             if len(chain) == 1:
                 return cls("raw", lambda tile: np.ascontiguousarray(tile).tobytes(), _copy_into, raw=True)
-            inner = _numcodec(chain[1])
+            inner = numcodec(chain[1])
         except (KeyError, TypeError, ValueError, ImportError):
             return None
         decode = _blosc_into if names[1] == "blosc" else _copy_decoded(inner)

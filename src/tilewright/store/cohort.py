@@ -10,37 +10,41 @@ import numpy as np
 from tilewright.errors import StoreError
 from tilewright.location.objpath import ObjectPath, as_path, replace_bytes
 
-__all__ = ["MANIFEST_COLUMNS", "write_manifest", "read_manifest", "stores_manifest", "Cohort", "open_cohort"]
+__all__ = ["MANIFEST_COLUMNS", "manifest_frame", "write_manifest", "read_manifest", "stores_manifest", "Cohort", "open_cohort"]
 
 MANIFEST_COLUMNS = ["slide_id", "source", "status", "error", "n_tiles", "mpp_source", "mpp_origin", "objective",
-                    "source_level", "seconds", "colour_profile", "warnings", "source_sha256",
+                    "source_level", "seconds", "colour_profile", "warnings", "source_sha256", "tissue_mm2",
                     # the stain outcome check (tilewright.run.stain_bind): ok / off-target / not-normalized, and
                     # the CIEDE2000 of the slide's sample's mean tissue colour to the target's, raw and stored
                     "stain_check", "stain_delta_e_raw", "stain_delta_e"]
 
+#: Text columns ("" for none): warnings are "; "-joined "code: reason" messages; source_sha256 is ""
+#: unless source_digest = "full"; mpp_origin says where mpp_source (a number) was read.
+_TEXT = ("error", "colour_profile", "warnings", "source_sha256", "mpp_origin", "stain_check")
 
-def write_manifest(out_dir: str | os.PathLike, rows: list[dict]) -> "object":
-    """Write ``manifest.csv`` and ``manifest.parquet`` atomically (a local folder: temporary file and
-    rename; a bucket: one request each, which replaces the object whole)."""
+
+def manifest_frame(rows: list[dict]):
+    """Manifest rows as the manifest's DataFrame: its columns (:data:`MANIFEST_COLUMNS`) in order,
+    their types, sorted by slide id."""
     import pandas as pd
 
-    df = pd.DataFrame(rows)
-    for col in MANIFEST_COLUMNS:
-        if col not in df.columns:
-            df[col] = None
-    df = df[MANIFEST_COLUMNS].copy()
-    df["error"] = df["error"].fillna("").astype(str)
-    df["colour_profile"] = df["colour_profile"].fillna("").astype(str)
-    df["warnings"] = df["warnings"].fillna("").astype(str)  # "; "-joined "code: reason" messages
-    df["source_sha256"] = df["source_sha256"].fillna("").astype(str)  # "" unless source_digest = "full"
-    df["mpp_origin"] = df["mpp_origin"].fillna("").astype(str)  # where mpp_source (a number) was read
-    df["stain_check"] = df["stain_check"].fillna("").astype(str)
-    df["n_tiles"] = df["n_tiles"].fillna(0).astype("int64")
-    for col in ("mpp_source", "objective", "seconds", "stain_delta_e_raw", "stain_delta_e"):
+    df = pd.DataFrame.from_records([{c: r.get(c) for c in MANIFEST_COLUMNS} for r in rows], columns=MANIFEST_COLUMNS)
+    df["slide_id"] = df["slide_id"].astype(str)
+    for col in _TEXT:
+        df[col] = df[col].fillna("").astype(str)
+    df["n_tiles"] = pd.to_numeric(df["n_tiles"], errors="coerce").fillna(0).astype("int64")
+    for col in ("mpp_source", "objective", "seconds", "tissue_mm2", "stain_delta_e_raw", "stain_delta_e"):
         df[col] = pd.to_numeric(df[col], errors="coerce").astype("float64")
     df["source_level"] = pd.to_numeric(df["source_level"], errors="coerce").astype("Int64")
-    df = df.sort_values("slide_id", kind="stable").reset_index(drop=True)
+    return df.sort_values("slide_id", kind="stable").reset_index(drop=True)
+
+
+def write_manifest(out_dir: str | os.PathLike, rows: list[dict]) -> "object":
+    """Write ``manifest.csv`` and ``manifest.parquet``, each replaced atomically (a local folder: a
+    temporary file, then a rename; a bucket: one request each, which replaces the object whole);
+    returns the DataFrame written."""
     out_dir = as_path(out_dir)
+    df = manifest_frame(rows)
     parquet = io.BytesIO()
     df.to_parquet(parquet, index=False)
     replace_bytes(out_dir / "manifest.csv", df.to_csv(index=False).encode("utf-8"))
@@ -49,20 +53,33 @@ def write_manifest(out_dir: str | os.PathLike, rows: list[dict]) -> "object":
 
 
 def read_manifest(out_dir: str | os.PathLike):
-    """The manifest of a cohort folder as a DataFrame (Parquet preferred, CSV as fallback)."""
+    """The manifest of a cohort folder as a DataFrame (Parquet preferred, CSV as fallback), with
+    the rows of its journal (slides a running or killed run finished since it last wrote the
+    manifest; :mod:`tilewright.store.journal`) in place of their older rows."""
     import pandas as pd
 
+    from tilewright.store.journal import read_rows
+
     out_dir = as_path(out_dir)
+    journal = read_rows(out_dir)  # before the manifest: a folding in between then loses nothing
     pq = out_dir / "manifest.parquet"
     csv = out_dir / "manifest.csv"
     if pq.is_file():
-        return pd.read_parquet(io.BytesIO(pq.read_bytes()) if isinstance(pq, ObjectPath) else pq)
-    if csv.is_file():  # ids and texts stay strings ("001" is not the number 1)
-        return pd.read_csv(io.BytesIO(csv.read_bytes()) if isinstance(csv, ObjectPath) else csv,
-                           keep_default_na=False, na_values=[""],
-                           dtype={"slide_id": str, "source": str, "status": str, "error": str,
-                                  "source_sha256": str, "mpp_origin": str})
-    raise StoreError("no manifest.csv or manifest.parquet; is this a tile-out output folder?", out_dir)
+        df = pd.read_parquet(io.BytesIO(pq.read_bytes()) if isinstance(pq, ObjectPath) else pq)
+    elif csv.is_file():  # ids and texts stay strings ("001" is not the number 1)
+        df = pd.read_csv(io.BytesIO(csv.read_bytes()) if isinstance(csv, ObjectPath) else csv,
+                         keep_default_na=False, na_values=[""],
+                         dtype={"slide_id": str, "source": str, "status": str, "error": str,
+                                "source_sha256": str, "mpp_origin": str})
+    elif journal:
+        df = None
+    else:
+        raise StoreError("no manifest.csv or manifest.parquet; is this a tile-out output folder?", out_dir)
+    if not journal:
+        return df
+    newer = {str(r["slide_id"]): r for r in journal}
+    rows = [] if df is None else [r for r in df.to_dict("records") if str(r["slide_id"]) not in newer]
+    return manifest_frame(rows + list(newer.values()))
 
 
 def stores_manifest(out_dir: str | os.PathLike):
@@ -81,16 +98,12 @@ def stores_manifest(out_dir: str | os.PathLike):
     import pandas as pd
 
     from tilewright.run.ledger import kept_row
-    from tilewright.store.reader import TileStore, is_complete
+    from tilewright.store.metadata import stores_attrs
 
     out_dir = as_path(out_dir)
-    rows = []
-    for p in sorted(out_dir.glob("*.zarr")) if out_dir.is_dir() else []:
-        if not is_complete(p):
-            continue
-        a = TileStore(p).attrs
-        rows.append(kept_row(p, str(a.get("slide_id") or p.name[: -len(".zarr")]),
-                             str((a.get("source") or {}).get("path") or ""), a))
+    paths = sorted(out_dir.glob("*.zarr")) if out_dir.is_dir() else []
+    rows = [kept_row(p, str(a.get("slide_id") or p.name[: -len(".zarr")]), str((a.get("source") or {}).get("path") or ""), a)
+            for p, a in zip(paths, stores_attrs(paths)) if a is not None]  # unfinished stores: left out
     if not rows:
         raise StoreError("no manifest.csv, manifest.parquet or complete <slide_id>.zarr store here; give the "
                          "folder tile-out, tile_cohort or tile_slide wrote", out_dir)
@@ -127,12 +140,14 @@ class Cohort:
     """
 
     def __init__(self, path: str | os.PathLike, settings="cohort", normalize: str | None = None, target="cohort"):
+        from tilewright.store.journal import journal_path
         from tilewright.store.selection import LEFT_OUT_COLUMNS, select_stores
 
         import pandas as pd
 
         self.path = as_path(path)
-        has_manifest = (self.path / "manifest.parquet").is_file() or (self.path / "manifest.csv").is_file()
+        has_manifest = any(p.is_file() for p in (self.path / "manifest.parquet", self.path / "manifest.csv",
+                                                  journal_path(self.path)))
         self.manifest = read_manifest(self.path) if has_manifest else stores_manifest(self.path)
         self.stores, left, self.settings = select_stores(self.path, self.manifest, settings)
         self.normalization = None

@@ -28,8 +28,8 @@ from concurrent.futures import ThreadPoolExecutor
 from tilewright.location.byte_source import open_binary
 from tilewright.location.url import is_url
 
-__all__ = ["source_digest", "source_size", "sampled_digest", "file_digest", "file_sha256", "source_sha256",
-           "DIGESTS"]
+__all__ = ["source_digest", "source_size", "source_stamp", "sampled_digest", "file_digest", "file_sha256",
+           "source_sha256", "DIGESTS"]
 
 #: ``TilingConfig.source_digest`` values: the sampled digest only, or the full SHA-256 as well.
 DIGESTS = ("sampled", "full")
@@ -69,6 +69,26 @@ def _size(path: str) -> int:
 def source_size(path: str | os.PathLike) -> int:
     """Bytes of a source file, or of all files of a source folder (a local path or a URL)."""
     return sum(_size(f) for f in _files(path))
+
+
+def source_stamp(path: str | os.PathLike) -> dict:
+    """What ``stat`` says of a source, to tell it unchanged without reading it: its bytes and the
+    latest modification time (ns) of its file, or of a folder's files and how many there are (an
+    object in a bucket: its bytes and entity tag, which changes whenever the object is replaced).
+
+    A resumed run trusts a store's recorded digest when the source's stamp is unchanged (the
+    quick check file-synchronization tools make by default), so re-checking 10,000 slides reads
+    no slide; a changed stamp has the digest computed again.
+    """
+    files = _files(path)
+    if any(is_url(f) for f in files):  # an object: its size and entity tag (one HEAD request a file)
+        from tilewright.location.objects import head
+
+        heads = [head(str(f)) for f in files]
+        return {"size": sum(h["size"] for h in heads), "etags": [h["e_tag"] for h in heads], "files": len(files)}
+    stats = [os.stat(f) for f in files]
+    return {"size": sum(st.st_size for st in stats), "mtime_ns": max((st.st_mtime_ns for st in stats), default=0),
+            "files": len(files)}
 
 
 def source_digest(path: str | os.PathLike) -> str:

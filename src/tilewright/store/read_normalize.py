@@ -3,8 +3,9 @@
 A store written with ``estimate_stains`` holds un-normalized tiles, the slide's stain estimates
 (``attrs["stain_estimates"]``), its glass colour and a sample of its tissue pixels
 (``stain_sample``). :func:`bind_to_store` binds a target (Macenko or Reinhard) to that slide the
-way a normalizing run binds it (:meth:`StainTransfer.fit_source_checked` on the stored sample,
-with the same fallback for an implausible estimate); every tile read is then normalized with it.
+way a normalizing run binds it: the slide's own recorded estimate (its fallback when that was
+implausible) checked on the stored sample by the same never-worse rule
+(:func:`tilewright.stain.checked.checked_binding`); every tile read is then normalized with it.
 :func:`median_target` builds a cohort's own target from the stores' estimates, without reading a
 pixel (the median a normalizing run computes from its slides).
 """
@@ -22,7 +23,8 @@ __all__ = ["bind_to_store", "median_target", "resolve_target", "ReadNormalizatio
 
 class ReadNormalization:
     """What a store's reads apply: ``method``, the ``target`` dict, the bound normalizer, and the
-    note of a replaced estimate ("" when the slide's own was used)."""
+    notes of the binding ("code: reason" warnings joined by "; "; "" when the slide's own estimate was
+    used as is)."""
 
     def __init__(self, method: str, target: dict, bound, note: str):
         self.method, self.target, self.bound, self.note = method, target, bound, note
@@ -33,6 +35,8 @@ class ReadNormalization:
         return {"method": self.method, "target": target_digest(self.target), "note": self.note}
 
     def __call__(self, tiles):
+        if self.bound is None:  # normalizing moved this slide away from the target: read as stored
+            return tiles
         return self.bound.transform(tiles, out=tiles if tiles.flags.writeable else None)
 
 
@@ -100,13 +104,42 @@ def bind_to_store(store, method: str, target) -> ReadNormalization:
         raise StoreError(f"the tiles are stain-normalized already ({attrs['normalizer'].get('method')}); open the "
                          "store without normalize=, or tile with --estimate-stains to normalize when reading",
                          store.path)
-    if "stain_sample" not in store._group:
+    if not store._has("stain_sample"):
         raise StoreError("the store holds no stain estimate; tile with --estimate-stains (TilingConfig("
                          "estimate_stains=True)) to normalize when reading", store.path)
     from tilewright.stain.registry import transfer_from_dict
 
+    from tilewright.errors import StainEstimationError
+    from tilewright.stain.checked import checked_binding
+
     target = resolve_target(target, method)
-    pixels = store._small("stain_sample")
-    bound, note = transfer_from_dict(target).fit_source_checked(pixels.reshape(1, -1, 3),
-                                                                  glass=attrs.get("stain_glass"))
-    return ReadNormalization(method, target, bound, note)
+    pixels = _sample(store)
+    glass = attrs.get("stain_glass")
+    fitted = transfer_from_dict(target)
+    bound = fitted.with_glass(glass) if glass is not None else transfer_from_dict(target)
+    estimate = (attrs.get("stain_estimates") or {}).get(method) or {}
+    replaced = ""
+    try:  # the slide's own estimate, made at tiling from its whole tile sample (as a normalizing run's)
+        if "error" in estimate or estimate.get("method") != method:
+            raise StainEstimationError(estimate.get("error") or "no estimate recorded")
+        bound.source = transfer_from_dict(estimate)._target_stats()
+    except StainEstimationError as exc:
+        bound.source, how = bound._fallback_source(pixels, bound.glass)
+        replaced = f"the slide's own stain estimate was replaced ({getattr(exc, 'reason', None) or exc}) by {how}"
+    bound, _, notes = checked_binding(fitted, bound, replaced, pixels, glass)
+    return ReadNormalization(method, target, bound, "; ".join(notes))
+
+
+def _sample(store):
+    """The slide's stain sample: the stored (un-normalized) tiles the run sampled, when every one
+    was kept (the pixels a normalizing run binds on, tile structure and all); else the stored
+    65,536 of their pixels, as one row."""
+    import numpy as np
+
+    positions = store.attrs.get("stain_sample_yx")
+    if positions:
+        where = {(int(y), int(x)): i for i, (y, x) in enumerate(np.asarray(store.yx).tolist())}
+        index = [where.get((int(y), int(x))) for y, x in positions]
+        if None not in index:
+            return store[np.asarray(index, dtype=np.int64)]
+    return store._small("stain_sample").reshape(1, -1, 3)

@@ -8,25 +8,18 @@ import numpy as np
 
 from tilewright.errors import IncompleteStoreError, StoreError, TilewrightError
 from tilewright.location.objpath import as_path
-from tilewright.store.backing import has_store, zarr_store
+from tilewright.store.backing import zarr_store
 from tilewright.store.layout import FORMAT_NAME
+from tilewright.store.metadata import array_meta, read_json, read_small_array, store_attrs
 from tilewright.store.shard_reader import ShardReader
 from tilewright.store.shards import ShardLayout
 
-__all__ = ["TileStore", "open_store", "is_complete"]
+__all__ = ["TileStore", "open_store", "is_complete", "read_complete_attrs"]
 
 
 def is_complete(path: str | os.PathLike) -> bool:
-    """True when ``path`` (a folder or a URL) is a tile store whose ``complete`` attribute is set."""
-    import zarr
-
-    if not has_store(path):
-        return False
-    try:
-        attrs = zarr.open_group(zarr_store(path), mode="r").attrs
-        return bool(attrs.get("complete")) and attrs.get("format") == FORMAT_NAME
-    except Exception:  # unreadable metadata means "not complete", never a crash
-        return False
+    """True when ``path`` is a tile store whose ``complete`` attribute is set (one metadata read)."""
+    return store_attrs(path) is not None
 
 
 class TileStore:
@@ -46,29 +39,16 @@ class TileStore:
     ``.normalization`` then says how (None: tiles as stored).
     """
 
-    def __init__(self, path: str | os.PathLike, *, normalize: str | None = None, target=None):
-        import zarr
-
+    def __init__(self, path: str | os.PathLike, attrs: dict | None = None, *, normalize: str | None = None,
+                 target=None):
         self.path = as_path(path)
-        try:
-            self._group = zarr.open_group(zarr_store(self.path), mode="r")
-            attrs = dict(self._group.attrs)
-        except TilewrightError:
-            raise  # an object-store failure says why
-        except Exception as exc:
-            if not self.path.exists():
-                raise StoreError("no such tile store; run tile-out first", self.path) from None
-            raise StoreError(f"not a readable zarr v3 tile store ({exc})", self.path) from exc
-        if attrs.get("format") != FORMAT_NAME:
-            raise StoreError(f"not a tilewright tile store (format {attrs.get('format')!r})", self.path)
-        if not attrs.get("complete"):
-            raise IncompleteStoreError("the store was never completed (an interrupted write); "
-                                       "re-run tile-out to rebuild it", self.path)
+        if attrs is None:
+            attrs = read_complete_attrs(self.path)
         self.attrs = attrs
-        self.tiles = self._group["tiles"]
         self._cache: dict[str, np.ndarray] = {}
-        layout = ShardLayout.of(self.tiles)
-        self._reader = ShardReader(layout) if layout is not None else None  # None: zarr reads
+        self._zarr = self._tiles = None  # the zarr group and tiles array, opened on first use
+        self._meta = None  # the tiles array's shape, read on first use
+        self._shards = False  # the direct shard reader (None: zarr reads), made on first use
         self.normalization = None
         if normalize is not None:
             if target is None:
@@ -80,11 +60,40 @@ class TileStore:
 
     def normalized(self, method: str, target) -> "TileStore":
         """This store read with its tiles normalized to ``target`` by ``method`` (a new reader)."""
-        return TileStore(self.path, normalize=method, target=target)
+        return TileStore(self.path, self.attrs, normalize=method, target=target)
+
+    @property
+    def _group(self):
+        if self._zarr is None:
+            import zarr
+
+            try:
+                self._zarr = zarr.open_group(zarr_store(self.path), mode="r")
+            except TilewrightError:
+                raise  # an object-store failure says why
+            except Exception as exc:
+                raise StoreError(f"not a readable zarr v3 tile store ({exc})", self.path) from exc
+        return self._zarr
+
+    @property
+    def tiles(self):
+        """The zarr array of the tiles (N, T, T, 3), opened on first use."""
+        if self._tiles is None:
+            self._tiles = self._group["tiles"]
+        return self._tiles
+
+    @property
+    def _reader(self):
+        """The direct shard reader, or None when zarr must read this layout."""
+        if self._shards is False:
+            layout = ShardLayout.of(self.tiles)
+            self._shards = ShardReader(layout) if layout is not None else None
+        return self._shards
 
     def _small(self, name: str) -> np.ndarray:
         if name not in self._cache:
-            self._cache[name] = self._group[name][...]
+            data = read_small_array(self.path / name)
+            self._cache[name] = data if data is not None else self._group[name][...]
         return self._cache[name]
 
     @property
@@ -109,18 +118,22 @@ class TileStore:
 
     @property
     def region(self) -> np.ndarray | None:
-        return self._small("region") if "region" in self._group else None
+        return self._small("region") if self._has("region") else None
+
+    def _has(self, name: str) -> bool:
+        """Whether the store holds the small array ``name`` (a metadata file's existence)."""
+        return (self.path / name / "zarr.json").exists()
 
     @property
     def ink_share(self) -> np.ndarray | None:
         """(N,) share of each tile's footprint that is marker ink (None in stores of older versions)."""
-        return self._small("ink_share") if "ink_share" in self._group else None
+        return self._small("ink_share") if self._has("ink_share") else None
 
     @property
     def region_fractions(self):
         """Each tile's fraction inside each kept region class: a DataFrame, one column a class
         (``attrs["regions"]["classes_stored"]``), one row a tile; None without regions."""
-        if "region_fractions" not in self._group:
+        if not self._has("region_fractions"):
             return None
         import pandas as pd
 
@@ -137,10 +150,10 @@ class TileStore:
 
     @property
     def tile_size(self) -> int:
-        return int(self.tiles.shape[1])
+        return self.shape[1]
 
     def __len__(self) -> int:
-        return int(self.tiles.shape[0])
+        return self.shape[0]
 
     def __getitem__(self, index):
         tiles = self._get(index)
@@ -194,7 +207,13 @@ class TileStore:
 
     @property
     def shape(self) -> tuple:
-        return tuple(int(d) for d in self.tiles.shape)
+        """(N, T, T, 3), from the tiles array's metadata (one small read, kept)."""
+        if self._meta is None:
+            try:
+                self._meta = tuple(int(d) for d in array_meta(self.path / "tiles")["shape"])
+            except (OSError, ValueError, KeyError, TypeError):
+                self._meta = tuple(int(d) for d in self.tiles.shape)
+        return self._meta
 
     @property
     def dtype(self):
@@ -234,6 +253,26 @@ class TileStore:
     def __repr__(self) -> str:
         return (f"TileStore({str(self.path)!r}, tiles={len(self)}, tile={self.tile_size}, "
                 f"mpp={self.attrs.get('mpp')})")
+
+
+def read_complete_attrs(path) -> dict:
+    """A complete store's group attributes (one read), or the error that says what is wrong."""
+    if not path.exists():
+        raise StoreError("no such tile store; run tile-out first", path)
+    try:
+        meta = read_json(path / "zarr.json")
+        if meta.get("zarr_format") != 3 or meta.get("node_type") != "group":
+            raise ValueError(f"zarr.json describes a {meta.get('node_type')!r} of zarr format "
+                             f"{meta.get('zarr_format')!r}, not a zarr v3 group")
+        attrs = dict(meta.get("attributes") or {})
+    except (OSError, ValueError, TypeError, AttributeError) as exc:
+        raise StoreError(f"not a readable zarr v3 tile store ({exc})", path) from exc
+    if attrs.get("format") != FORMAT_NAME:
+        raise StoreError(f"not a tilewright tile store (format {attrs.get('format')!r})", path)
+    if not attrs.get("complete"):
+        raise IncompleteStoreError("the store was never completed (an interrupted write); "
+                                   "re-run tile-out to rebuild it", path)
+    return attrs
 
 
 def _is_int(x) -> bool:

@@ -94,13 +94,14 @@ def select_stores(path: Path, manifest, settings="cohort") -> tuple[dict, list[t
         settings (the message names the differences and how to choose).
     """
     from tilewright.store.layout import store_path
-    from tilewright.store.reader import TileStore, is_complete
+    from tilewright.store.metadata import stores_attrs
+    from tilewright.store.reader import TileStore
 
-    stores = {}
-    for sid, status in zip(manifest["slide_id"], manifest["status"]):
-        p = store_path(path, str(sid))
-        if status not in ("skipped", "all-ink") and is_complete(p):  # stores holding tiles
-            stores[str(sid)] = TileStore(p)
+    ids = [str(sid) for sid, status in zip(manifest["slide_id"], manifest["status"])
+           if status not in ("skipped", "all-ink")]  # stores holding tiles
+    paths = [store_path(path, sid) for sid in ids]
+    # one metadata read a store, on a few threads; the stores open nothing more until used
+    stores = {sid: TileStore(p, attrs) for sid, p, attrs in zip(ids, paths, stores_attrs(paths)) if attrs is not None}
     stores, left = one_store_a_source(stores)
     if settings is None or not stores:
         return stores, left, None

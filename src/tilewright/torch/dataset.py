@@ -17,21 +17,26 @@ def store_paths(source, settings="cohort") -> list[str]:
     those made with its ``config.toml``; the others are logged with the reason); stores of a list
     must agree with each other (or with ``settings``; None: unchecked).
     """
+    return [str(s.path) for s in _stores(source, settings)]
+
+
+def _stores(source, settings="cohort") -> list:
+    """The TileStores of ``source`` (see :func:`store_paths`), each opened once."""
     from tilewright.store.cohort import Cohort, open_cohort
     from tilewright.store.reader import TileStore
     from tilewright.store.selection import check_stores
 
     if isinstance(source, Cohort):
-        return [str(s.path) for s in source.stores.values()]
+        return list(source.stores.values())
     if isinstance(source, TileStore):
-        return [str(source.path)]
+        return [source]
     if isinstance(source, (str, os.PathLike)):
         if str(source).rstrip("/\\").endswith(".zarr"):
-            return [os.fspath(source)]
-        return [str(s.path) for s in open_cohort(source, settings=settings).stores.values()]
+            return [TileStore(source)]
+        return list(open_cohort(source, settings=settings).stores.values())  # one metadata read a store
     stores = [p if isinstance(p, TileStore) else TileStore(getattr(p, "path", p)) for p in source]
     check_stores(stores, settings)
-    return [str(s.path) for s in stores]
+    return stores
 
 
 def to_tensor(tiles: np.ndarray):
@@ -87,10 +92,7 @@ class TileStoreDataset:
     def __init__(self, source, *, labels=None, label_column: str = "label", missing: str = "error",
                  transform=None, augment=None, with_info: bool = False, settings="cohort",
                  normalize: str | None = None, target="cohort"):
-        from tilewright.store.reader import TileStore
-
-        paths = store_paths(source, settings)
-        stores = [TileStore(p) for p in paths]
+        stores = _stores(source, settings)
         self._normalize = self._target = None
         if normalize is not None:
             from tilewright.store.read_normalize import median_target, resolve_target
