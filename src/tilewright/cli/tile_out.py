@@ -209,10 +209,10 @@ def _share_cores(config, args):
 
 
 def _check_tiles_fit(paths, ids, config, mpp) -> None:
-    from tilewright.run.cohort import _mpp_for
+    from tilewright.run.sources import mpp_for
     from tilewright.run.feasible import check_tiles_fit
 
-    check_tiles_fit(paths, config, [_mpp_for(mpp, str(p), sid) for p, sid in zip(paths, ids)])
+    check_tiles_fit(paths, config, [mpp_for(mpp, str(p), sid) for p, sid in zip(paths, ids)])
 
 
 def run(args, config) -> int:

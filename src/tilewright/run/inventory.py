@@ -17,7 +17,7 @@ import numpy as np
 
 from tilewright.errors import TilewrightError
 from tilewright.run.config import TilingConfig
-from tilewright.run.inventory_summary import CODECS, COLUMNS, human_bytes  # noqa: F401 - public here too
+from tilewright.run.inventory_summary import CODECS
 
 __all__ = ["plan_cohort", "survey_slide", "BYTES_PER_RAW", "CODECS"]
 
@@ -162,11 +162,10 @@ def plan_cohort(source, config: TilingConfig | None = None, *, out_dir=None, sit
     """
     from pathlib import Path
 
-    from tilewright.run.cohort import _mpp_for
     from tilewright.run.execute import execute
     from tilewright.run.inventory_summary import CohortPlan
     from tilewright.run.naming import cohort_ids
-    from tilewright.run.sources import slide_list, unique_paths
+    from tilewright.run.sources import mpp_for, slide_list, unique_paths
 
     config = config or TilingConfig()
     if isinstance(source, (str, os.PathLike)):
@@ -177,7 +176,7 @@ def plan_cohort(source, config: TilingConfig | None = None, *, out_dir=None, sit
     paths = [str(Path(p).absolute()) for p in unique_paths(paths)]  # slide_list's paths are unique already
     # ids as a run into out_dir would give them (a slide it holds keeps its id)
     ids = cohort_ids(paths, out_dir, root=root, given=given if given is not None and len(given) == len(paths) else None)
-    items = [(p, sid, _mpp_for(mpp, p, sid)) for p, sid in zip(paths, ids)]
+    items = [(p, sid, mpp_for(mpp, p, sid)) for p, sid in zip(paths, ids)]
     batches = [items[i:i + BATCH] for i in range(0, len(items), BATCH)]
     rows: list = [None] * len(batches)
     t0 = time.perf_counter()

@@ -16,7 +16,8 @@ from tilewright.location.objpath import as_path
 from tilewright.location.url import is_url
 from tilewright.run.config import TilingConfig
 from tilewright.run.identity import target_digest
-from tilewright.run.stain_bind import bind_normalizer, stain_columns
+from tilewright.run.stain_bind import bind_normalizer
+from tilewright.store.manifest_row import stain_columns
 from tilewright.run.stain_record import stain_record
 from tilewright.run.tile_rows import per_tile_arrays
 from tilewright.store.layout import slide_ids
@@ -32,7 +33,7 @@ class SlideResult:
 
     slide_id: str
     source: str
-    status: str  # "ok" | "failed" | "skipped" | "all-ink" (no tile: ink took the tissue; run/skip_reason.py)
+    status: str  # "ok" | "failed" | "skipped" | "all-ink" (no tile: ink took the tissue; store/manifest_row.py)
     error: str = ""
     n_tiles: int = 0
     mpp_source: float | None = None
