@@ -93,7 +93,7 @@ def _child(rounds: int, stages: bool) -> dict:
     import tilewright as tw
     from formats import plan_for, read_planned
     from tilewright.slide.tile_pixels import offset_tile_buffer
-    from tilewright.stain.registry import normalizer_from_dict
+    from tilewright.stain.registry import transfer_from_dict
 
     paths = slides()
     yx, scale = plan_for(paths["main"])
@@ -105,7 +105,7 @@ def _child(rounds: int, stages: bool) -> dict:
     base = tw.TilingConfig(mpp=MPP, tile=TILE, threads=1)
     mac = base.replace(normalizer="macenko")
     tw.tile_cohort([str(paths["main"])], tmp / "target", mac, workers=1, progress=False)
-    target = normalizer_from_dict(json.loads((tmp / "target" / "stain_target.macenko.json").read_text()))
+    target = transfer_from_dict(json.loads((tmp / "target" / "stain_target.macenko.json").read_text()))
 
     def raw():
         for _, d in data:

@@ -49,7 +49,7 @@ def main(argv=None) -> int:
     import cv2
 
     import tilewright as tw
-    from tilewright.stain.registry import make_normalizer
+    from tilewright.stain.registry import make_transfer
 
     cv2.setNumThreads(1)
     slide = bench_slide()
@@ -60,7 +60,7 @@ def main(argv=None) -> int:
         sample = plain[np.linspace(0, len(plain) - 1, 64).astype(int)]
         readers = {"read alone": plain}
         for method in ("macenko", "reinhard"):
-            target = make_normalizer(method).fit(sample).to_dict()
+            target = make_transfer(method).fit(sample).to_dict()
             readers[f"read + {method}"] = tw.open_store(res.store, normalize=method, target=target)
         for r in readers.values():
             r[:64]  # shard index and colour tables loaded once

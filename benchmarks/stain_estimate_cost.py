@@ -30,7 +30,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent.parent / "tests"))
 
 from stain.he_draws import draw  # noqa: E402
 
-from tilewright import MacenkoNormalizer  # noqa: E402
+from tilewright import MacenkoTransfer  # noqa: E402
 from tilewright.stain.estimate import _stain_vectors, estimate_stain_profile, max_concentrations  # noqa: E402
 from tilewright.stain.outcome import measure_outcome  # noqa: E402
 from tilewright.stain.tissue_pixels import tissue_od  # noqa: E402
@@ -54,7 +54,7 @@ def main():
         stains = _stain_vectors(od, 1.0)
         return max_concentrations(od, stains)
 
-    target = MacenkoNormalizer().fit(tiles[:16])
+    target = MacenkoTransfer().fit(tiles[:16])
     bound = target.fit_source(tiles)
     out = bound.transform(tiles)
     rows = [("estimate, pixels as they are (earlier reading)", cpu(as_read_before)),

@@ -22,7 +22,7 @@ import numpy as np  # noqa: E402
 
 cv2.setNumThreads(1)
 
-from tilewright import MacenkoNormalizer, ReinhardNormalizer  # noqa: E402
+from tilewright import MacenkoTransfer, ReinhardTransfer  # noqa: E402
 from tilewright.stain.tissue_pixels import tissue_mask  # noqa: E402
 
 HE = np.array([[0.65, 0.70, 0.29], [0.07, 0.99, 0.11]])
@@ -73,7 +73,7 @@ def main():
     mp = batch.shape[0] * batch.shape[1] * batch.shape[2] / 1e6
     print(f"input: {batch.shape} uint8 = {mp:.1f} MP, one thread (cv2.setNumThreads(1), BLAS=1)")
 
-    mac = MacenkoNormalizer().fit(reference)
+    mac = MacenkoTransfer().fit(reference)
     mac_bound = mac.fit_source(batch[:16])
     fast = best_rate(lambda: mac_bound.transform(batch), mp)
     slow = best_rate(lambda: numpy_macenko(batch, mac_bound.source, mac), mp, repeats=1)
@@ -83,7 +83,7 @@ def main():
     est = best_rate(lambda: mac.transform(batch), mp, repeats=1)
     print(f"Macenko  transform (estimate from the batch, then apply): {est:7.1f} MP/s")
 
-    rei = ReinhardNormalizer().fit(reference)
+    rei = ReinhardTransfer().fit(reference)
     rei_bound = rei.fit_source(batch[:16])
     fast = best_rate(lambda: rei_bound.transform(batch), mp)
     src = rei_bound.source

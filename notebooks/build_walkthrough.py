@@ -58,7 +58,7 @@ differently."""),
 other = random_layout(800.0, 800.0, seed=9, n_islands=1, stains=SITES["site-south"]["stains"],
                       concentration=(1.3, 1.3))
 reference = other.render(0.5, 0, 0, *other.shape_at(0.5))
-target = tw.MacenkoNormalizer().fit(reference)
+target = tw.MacenkoTransfer().fit(reference)
 tiles = np.stack([view.read(int(y), int(x), 256, 256) for y, x in plan.yx[:6]])
 bound = target.fit_source(tiles)
 normalized = bound.transform(tiles)

@@ -31,8 +31,8 @@ _PUBLIC = {
     "RegionMap": "tilewright.regions.regionmap",
     "classify_regions": "tilewright.regions.classify",
     # stain
-    "MacenkoNormalizer": "tilewright.stain.macenko",
-    "ReinhardNormalizer": "tilewright.stain.reinhard",
+    "MacenkoTransfer": "tilewright.stain.macenko",
+    "ReinhardTransfer": "tilewright.stain.reinhard",
     "estimate_stains": "tilewright.stain.macenko",
     "StainJitter": "tilewright.stain.augment",
     # store and runs
@@ -61,7 +61,9 @@ def __getattr__(name: str):
     try:
         module = _PUBLIC[name]
     except KeyError:
-        raise AttributeError(f"module 'tilewright' has no attribute {name!r}") from None
+        from tilewright.renamed import old_name
+
+        return old_name(__name__, name)  # an old spelling (DeprecationWarning), else AttributeError
     value = getattr(importlib.import_module(module), name)
     globals()[name] = value
     return value

@@ -30,7 +30,7 @@ def real_cohort(tmp_path_factory):
 @pytest.fixture(scope="session")
 def audits(real_cohort):
     """Before (the sampled tiles read raw from the slides) and after (as stored, normalized)."""
-    from tilewright.audit.compare import audit_before_after
+    from tilewright.audit.before_after import audit_before_after
 
     out, meta = real_cohort
     with warnings.catch_warnings():

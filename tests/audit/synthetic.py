@@ -101,7 +101,7 @@ def make_cohort(out: Path, *, per_cell=4, seed=7, normalize=False, extra_rows=()
     With ``normalize=True`` the stored tiles are Macenko-normalized to a site-north reference
     (the thumbnails stay raw, as tile-out stores them).
     """
-    from tilewright.stain.macenko import MacenkoNormalizer
+    from tilewright.stain.macenko import MacenkoTransfer
 
     out = Path(out)
     out.mkdir(parents=True, exist_ok=True)
@@ -116,7 +116,7 @@ def make_cohort(out: Path, *, per_cell=4, seed=7, normalize=False, extra_rows=()
     if normalize:
         ref_rng = np.random.default_rng(seed + 1000)
         reference = np.concatenate(list(make_slide(ref_rng, "site-north", n_tiles=24)[2]), axis=0)
-        normalizer = MacenkoNormalizer().fit(reference)
+        normalizer = MacenkoTransfer().fit(reference)
     for slide_id, site, label, thumbnail, mask, tiles in slides:
         # the source µm/px is a scanner trait independent of site here (alternating 40x / 20x)
         mpp_source = 0.25 if int(slide_id[-2:]) % 2 == 0 else 0.5

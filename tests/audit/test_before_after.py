@@ -9,7 +9,7 @@ import pytest
 import zarr
 
 import tilewright as tw
-from tilewright.audit.compare import audit_before_after
+from tilewright.audit.before_after import audit_before_after
 from tilewright.audit.source import read_pair
 from tilewright.errors import StoreError
 

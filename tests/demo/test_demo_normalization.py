@@ -18,7 +18,8 @@ pytestmark = pytest.mark.timeout(900)
 
 
 def test_demo_closes_the_site_gap_and_says_so(tmp_path, capsys):
-    from tilewright.audit.compare import audit_before_after, compare_gaps
+    from tilewright.audit.before_after import audit_before_after
+    from tilewright.audit.compare import compare_gaps
     from tilewright.cli.main import main
 
     out = tmp_path / "demo-out"

@@ -75,11 +75,11 @@ def test_manifest_is_current_after_each_slide(slide, tmp_path, fast_config):
 def test_one_bad_slide_never_aborts_the_cohort(slide, tmp_path, fast_config, monkeypatch):
     """MemoryError (or any exception) in the stain-target pass or in tiling: that slide's row fails,
     the others finish (was: MemoryError escaped and every row said "interrupted")."""
-    import tilewright.run.cohort as cohort
+    import tilewright.run.slide_task as slide_task
     import tilewright.run.target as target
 
     srcs = [slide(f"s{i}.tif", seed=i) for i in range(3)]
-    real_estimate, real_row = target.slide_estimate, cohort.tile_slide_row
+    real_estimate, real_row = target.slide_estimate, slide_task.tile_slide_row
 
     def estimate(path, *a):
         if path.endswith("s1.tif"):
@@ -92,7 +92,7 @@ def test_one_bad_slide_never_aborts_the_cohort(slide, tmp_path, fast_config, mon
         return real_row(path, *a, **k)
 
     monkeypatch.setattr(target, "slide_estimate", estimate)
-    monkeypatch.setattr(cohort, "tile_slide_row", row)
+    monkeypatch.setattr(slide_task, "tile_slide_row", row)
     res = {r.slide_id: r for r in tile_cohort(srcs, tmp_path / "out", fast_config.replace(normalizer="macenko"),
                                                  progress=False)}
     assert res["s0"].status == "ok" and res["s1"].status == "ok"  # s1 only missed the target pass
@@ -103,7 +103,7 @@ def test_one_bad_slide_never_aborts_the_cohort(slide, tmp_path, fast_config, mon
 def test_a_dead_worker_is_one_failure_row():
     """A task whose worker process dies (KilledWorker after dask's retries) becomes that task's
     failure value; the other tasks complete."""
-    from tilewright.run.cohort import failure_row
+    from tilewright.run.slide_task import failure_row
     from tilewright.run.execute import execute
 
     def work(x):  # a lambda-like closure: pickled by value to the worker processes

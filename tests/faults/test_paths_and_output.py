@@ -71,7 +71,7 @@ def _failing_put(monkeypatch, when, err):
     real_write = ShardEncoder.write_chunks
 
     def write_chunks(self, shard_index, chunks):
-        path = self.folder / self.key((int(shard_index), 0, 0, 0))
+        path = self.layout.path(shard_index)
         if when(str(path)):
             raise OSError(err, __import__("os").strerror(err), str(path))
         return real_write(self, shard_index, chunks)

@@ -1,7 +1,10 @@
-"""Reading the README as a new user does: its code blocks and the commands written in its text.
+"""Reading the README and the documentation pages as a new user does: their code blocks and the
+commands written in their text.
 
-Parsing (not a fixed list) keeps the walk valid as the README changes: every fenced block and
-every inline command is found again on each run, in the order a reader meets them.
+Parsing (not a fixed list) keeps the walk valid as the pages change: every fenced block and
+every inline command is found again on each run, in the order a reader meets them. The pages are
+the README, then the docs site's Getting started and user-guide pages in their table of contents'
+order (``docs/guide/index.md``).
 """
 
 from __future__ import annotations
@@ -11,7 +14,9 @@ import shlex
 from dataclasses import dataclass
 from pathlib import Path
 
-README = Path(__file__).resolve().parents[2] / "README.md"
+ROOT = Path(__file__).resolve().parents[2]
+README = ROOT / "README.md"
+DOCS = ROOT / "docs"
 
 SHELL = ("", "bash", "sh", "shell", "console")
 PYTHON = ("python", "py", "python3")
@@ -21,31 +26,42 @@ _FENCE = re.compile(r"^```([A-Za-z0-9_+-]*)[ \t]*\n(.*?)^```[ \t]*$", re.S | re.
 _SPAN = re.compile(r"`([^`\n]+(?:\n[^`\n]+)*)`")
 
 
+def pages() -> list[Path]:
+    """The README, Getting started, then the user guide's pages in their table of contents' order."""
+    index = (DOCS / "guide" / "index.md").read_text(encoding="utf-8")
+    toc = re.search(r"```\{toctree\}\n(.*?)```", index, re.S).group(1)
+    guide = [DOCS / "guide" / f"{ln.strip()}.md" for ln in toc.splitlines() if ln.strip() and not ln.startswith(":")]
+    return [README, DOCS / "getting-started.md", *guide]
+
+
 @dataclass
 class Step:
-    line: int           # README line number where the step starts
+    line: int           # line number in its page where the step starts
     kind: str           # "python" or "shell"
     text: str           # the code (python) or one command line (shell)
     inline: bool = False
+    page: str = "README"
 
     def __str__(self):
-        return f"README line {self.line}: {self.text.strip().splitlines()[0][:90]}"
+        return f"{self.page} line {self.line}: {self.text.strip().splitlines()[0][:90]}"
 
 
-def steps(text: str | None = None) -> list[Step]:
-    """Every python block, every shell command line and every inline command, in reading order."""
-    text = README.read_text(encoding="utf-8") if text is None else text
+def steps(text: str | None = None, path: Path = README) -> list[Step]:
+    """Every python block, every shell command line and every inline command of one page (the
+    README by default), in reading order."""
+    text = path.read_text(encoding="utf-8") if text is None else text
+    page = "README" if path == README else str(path.relative_to(ROOT))
     found, fenced = [], []
     for m in _FENCE.finditer(text):
         fenced.append(m.span())
         lang, body = m.group(1).lower(), m.group(2)
         first = text.count("\n", 0, m.start(2)) + 1
         if lang in PYTHON:
-            found.append(Step(first, "python", body))
+            found.append(Step(first, "python", body, page=page))
         elif lang in SHELL:
             for k, ln in enumerate(body.splitlines()):
                 if ln.strip() and not ln.lstrip().startswith("#"):
-                    found.append(Step(first + k, "shell", ln.strip()))
+                    found.append(Step(first + k, "shell", ln.strip(), page=page))
     prose = list(text)
     for a, b in fenced:  # inline commands are read from the prose only
         prose[a:b] = " " * (b - a)
@@ -53,7 +69,7 @@ def steps(text: str | None = None) -> list[Step]:
     for m in _SPAN.finditer(prose):
         span = " ".join(m.group(1).split())
         if span.split(" ", 1)[0] in OUR_COMMANDS or span.startswith("make "):
-            found.append(Step(text.count("\n", 0, m.start()) + 1, "shell", span, inline=True))
+            found.append(Step(text.count("\n", 0, m.start()) + 1, "shell", span, inline=True, page=page))
     return sorted(found, key=lambda s: s.line)
 
 
@@ -69,10 +85,14 @@ def is_synopsis(argv: list[str]) -> bool:
     return any(re.fullmatch(r"[A-Z][A-Z0-9_]*", w) or "[" in w or "|" in w or "..." in w for w in argv[1:])
 
 
+#: The page that lists every tile-out option ("Options in plain words", "Every option and its default").
+OPTIONS_PAGE = DOCS / "guide" / "tiling.md"
+
+
 def option_list(text: str | None = None) -> list[str]:
-    """The options the README lists after "Options in plain words", up to the end of that sentence."""
-    text = README.read_text(encoding="utf-8") if text is None else text
-    start = text.index("Options in plain words")
+    """The options the tiling page lists after "Options in plain words", up to the end of that sentence."""
+    text = OPTIONS_PAGE.read_text(encoding="utf-8") if text is None else text
+    start = re.search(r"Options\s+in\s+plain\s+words", text).start()
     options, pos = [], start
     for m in _SPAN.finditer(text, start):
         if "." in text[pos:m.start()].replace("e.g.", ""):  # the sentence ended before this span

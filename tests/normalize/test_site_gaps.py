@@ -42,7 +42,8 @@ def cohorts(tmp_path_factory):
 
 
 def site_gaps(out, metadata: pd.DataFrame) -> pd.DataFrame:
-    from tilewright.audit.compare import audit_before_after, compare_gaps
+    from tilewright.audit.before_after import audit_before_after
+    from tilewright.audit.compare import compare_gaps
 
     before, after = audit_before_after(out, metadata=metadata, tsne=False, n_resamples=200, max_tiles=32)
     gaps = compare_gaps(before, after)

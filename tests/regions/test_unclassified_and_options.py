@@ -1,4 +1,4 @@
-"""Unclassified features, object types, and the region options of tile-out and TilingConfig."""
+"""Unclassified features, feature kinds (the object-type property), and the region options of tile-out and TilingConfig."""
 
 from __future__ import annotations
 
@@ -55,8 +55,8 @@ def test_detections_are_ignored_unless_asked_for():
     with pytest.warns(RegionRepairWarning, match="ignored 1 feature\\(s\\) of object type 'detection'"):
         regions = RegionMap.from_geojson(data, mpp=MPP0)
     assert _covered(regions, "Tumor") == pytest.approx(shapely.Polygon(A).area, rel=1e-6)  # reference: shapely
-    every = RegionMap.from_geojson(data, mpp=MPP0, object_types="all")
-    both = RegionMap.from_geojson(data, mpp=MPP0, object_types=["Annotation", "detection"])
+    every = RegionMap.from_geojson(data, mpp=MPP0, feature_kinds="all")
+    both = RegionMap.from_geojson(data, mpp=MPP0, feature_kinds=["Annotation", "detection"])
     union = shapely.union_all([shapely.Polygon(r) for r in (A, B, C)])
     assert _covered(every, "Tumor") == pytest.approx(union.area, rel=1e-6)
     assert _covered(both, "Tumor") == pytest.approx(shapely.Polygon(A).area + shapely.Polygon(B).area, rel=1e-6)
@@ -72,13 +72,55 @@ def test_only_unclassified_features_is_a_clear_error(tmp_path):
 
 def test_region_options_on_the_command_line_and_in_toml(tmp_path):
     args = build_parser().parse_args(["s", "o", "--regions", "r", "--keep", "Tumor, Necrosis", "--class-property",
-                                      "tissue_type", "--default-class", "Tumor", "--object-types", "annotation,cell"])
+                                      "tissue_type", "--default-class", "Tumor", "--feature-kinds", "annotation,cell"])
     config = config_from_args(args)
-    assert (config.keep, config.class_property, config.default_class, config.object_types) == \
+    assert (config.keep, config.class_property, config.default_class, config.feature_kinds) == \
         (["Tumor", "Necrosis"], "tissue_type", "Tumor", ["annotation", "cell"])
     toml = tmp_path / "c.toml"
     toml.write_text(config.to_toml())
     assert TilingConfig.from_toml(toml) == config  # the TOML round trip keeps them
+
+
+def test_old_object_types_spelling_is_read_with_a_warning(tmp_path, capsys):
+    """The option, setting and keyword were renamed (issue 31); each old spelling still reads, warns,
+    and gives what the new one gives (ground truth: the new spelling's result)."""
+    data = {"type": "FeatureCollection", "features": [
+        _feature(A, classification="Tumor", objectType="annotation"),
+        _feature(B, classification="Tumor", objectType="detection")]}
+    new = RegionMap.from_geojson(data, mpp=MPP0, feature_kinds="all")
+    with pytest.warns(DeprecationWarning, match=r"object_types=\) is renamed feature_kinds="):
+        old = RegionMap.from_geojson(data, mpp=MPP0, object_types="all")
+    assert _covered(old, "Tumor") == pytest.approx(_covered(new, "Tumor"), rel=1e-12)
+    with pytest.warns(DeprecationWarning), pytest.raises(RegionError, match="feature_kinds= alone"):
+        RegionMap.from_geojson(data, mpp=MPP0, object_types="all", feature_kinds="all")
+    # the command-line option
+    base = ["s", "o", "--regions", "r", "--keep", "Tumor"]
+    config = config_from_args(build_parser().parse_args(base + ["--object-types", "annotation,detection"]))
+    assert config.feature_kinds == ["annotation", "detection"]
+    assert "--object-types is renamed --feature-kinds" in capsys.readouterr().err
+    with pytest.raises(ConfigError, match="give --feature-kinds alone"):
+        config_from_args(build_parser().parse_args(base + ["--object-types", "all", "--feature-kinds", "all"]))
+    # the TOML key and the keyword of TilingConfig
+    toml = tmp_path / "old.toml"
+    toml.write_text('regions = "r"\nkeep = ["Tumor"]\nobject_types = ["all"]\n')
+    with pytest.warns(FutureWarning, match="object_types is renamed feature_kinds"):
+        from_toml = TilingConfig.from_toml(toml)
+    with pytest.warns(FutureWarning, match="object_types is renamed feature_kinds"):
+        from_keyword = TilingConfig(regions="r", keep=["Tumor"], object_types=["all"])
+    assert from_toml == from_keyword == TilingConfig(regions="r", keep=["Tumor"], feature_kinds=["all"])
+    assert "object_types" not in from_toml.to_dict() and "object_types" not in from_toml.to_toml()
+
+
+def test_a_store_recording_the_old_setting_name_still_resumes():
+    """A store made before the rename records ``object_types``; the resume identity reads it as
+    ``feature_kinds``, so an unchanged run keeps the store (ground truth: identical settings)."""
+    from tilewright.run.identity import _settings, identity_changes
+
+    now = TilingConfig(regions="r", keep=["Tumor"], feature_kinds=["all"]).to_dict()
+    before = {("object_types" if k == "feature_kinds" else k): v for k, v in now.items()}
+    assert identity_changes(_settings(before), _settings(now)) == []
+    changed = dict(before, object_types=["annotation"])
+    assert identity_changes(_settings(changed), _settings(now)) == ["feature_kinds ['annotation'] -> ['all']"]
 
 
 @pytest.mark.parametrize("argv,match", [

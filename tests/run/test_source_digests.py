@@ -47,7 +47,7 @@ def test_series_folder_lists_each_file_s_sha256(tmp_path):
 
 
 def test_sampled_digest_is_not_the_file_s_checksum_and_misses_unsampled_bytes(tmp_path):
-    """What the sampled digest can and cannot prove (the README says the same)."""
+    """What the sampled digest can and cannot prove (docs/guide/formats.md, "Source digests", says the same)."""
     size = 17 * (1 << 20) + 12345  # over 16 MiB: sampled
     data = bytearray(np.random.default_rng(7).integers(0, 256, size, dtype=np.uint8).tobytes())
     p = tmp_path / "big.svs"

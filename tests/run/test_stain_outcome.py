@@ -57,7 +57,7 @@ def _target(colour, *, turn=0.0, maxima=(1.4, 0.7)):
     blue absorption, E towards red), with a recorded target colour of our choosing."""
     stains = np.stack([_rotated((0.65, 0.70, 0.29), (0.1, 0.3, 0.9), turn),
                        _rotated((0.07, 0.99, 0.11), (0.9, 0.2, 0.1), turn)])
-    target = tw.MacenkoNormalizer.from_dict({"method": "macenko", "stain_matrix": stains.tolist(),
+    target = tw.MacenkoTransfer.from_dict({"method": "macenko", "stain_matrix": stains.tolist(),
                                              "max_concentrations": list(maxima)})
     target.target_colour = np.asarray(colour, np.float64)
     return target

@@ -93,7 +93,7 @@ def test_plain_zarr_reads_tiles_and_coordinates(slide40, tmp_path):
 def test_macenko_normalized_store_records_normalizer(slide40, tmp_path):
     cfg = tw.TilingConfig(mpp=0.5, tile=128, max_tiles=16, normalizer="macenko")
     store = tw.open_store(tw.tile_slide(slide40, tmp_path, cfg).store)
-    norm = tw.MacenkoNormalizer.from_dict(store.attrs["normalizer"])
+    norm = tw.MacenkoTransfer.from_dict(store.attrs["normalizer"])
     assert norm.stain_matrix.shape == (2, 3)
     assert len(store) == 16
 

@@ -6,7 +6,7 @@ import pytest
 
 from .synthetic import RJ_E, RJ_H, render, unit
 from tilewright.stain.estimate import StainProfile, implausible
-from tilewright.stain.macenko import MacenkoNormalizer
+from tilewright.stain.macenko import MacenkoTransfer
 
 
 def _profile(h, e, maxima=(1.5, 1.2), n=50_000):
@@ -33,7 +33,7 @@ def test_failed_estimate_is_replaced_and_said():
     rng = np.random.default_rng(3)
     stains = unit(np.stack([RJ_H, RJ_E]))
     conc = rng.gamma(2.0, 0.3, (128, 128, 2))
-    target = MacenkoNormalizer().fit(render(stains, conc))
+    target = MacenkoTransfer().fit(render(stains, conc))
     # a sample with almost no hematoxylin: eosin plus noise (a small biopsy with few nuclei)
     pale = conc.copy()
     pale[..., 0] = rng.uniform(0, 0.02, pale.shape[:2])

@@ -5,11 +5,11 @@ import json
 import numpy as np
 import pytest
 
-from tilewright import MacenkoNormalizer, ReinhardNormalizer, estimate_stains
+from tilewright import MacenkoTransfer, ReinhardTransfer, estimate_stains
 from tilewright.errors import ConfigError
 from tilewright.stain.density import glass_od_lut, od_to_rgb, rgb_to_od
 from tilewright.stain.estimate import estimate_stain_profile
-from tilewright.stain.registry import normalizer_from_dict
+from tilewright.stain.registry import transfer_from_dict
 from tilewright.stain.tissue_pixels import tissue_mask
 
 from .synthetic import (NORTH_GLASS, NORTH_SCALE, NORTH_STAINS, SOUTH_GLASS, SOUTH_SCALE, SOUTH_STAINS,
@@ -65,7 +65,7 @@ def test_macenko_two_sites_glass_and_stain():
     reference, north, south, tissue = site_pair()
     before = np.linalg.norm(mean_lab(north, tissue) - mean_lab(south, tissue))
     assert before > 20  # the sites differ visibly (ground truth constructed above)
-    target = MacenkoNormalizer(max_gain=None).fit(reference, glass=NORTH_GLASS)
+    target = MacenkoTransfer(max_gain=None).fit(reference, glass=NORTH_GLASS)
     n_out = target.fit_source(north, glass=NORTH_GLASS).transform(north)
     s_out = target.fit_source(south, glass=SOUTH_GLASS).transform(south)
     after = np.linalg.norm(mean_lab(n_out, tissue) - mean_lab(s_out, tissue))
@@ -74,7 +74,7 @@ def test_macenko_two_sites_glass_and_stain():
         assert np.abs(out[~tissue].astype(int) - 255).max() <= 2  # glass -> white (Beer–Lambert)
     # the same normalization assuming white glass: tinted glass is pushed through the stain
     # map and the tissue keeps more of its site's colour (bias shown, constructed above)
-    plain = MacenkoNormalizer(max_gain=None).fit(reference)
+    plain = MacenkoTransfer(max_gain=None).fit(reference)
     n_plain = plain.fit_source(north).transform(north)
     s_plain = plain.fit_source(south).transform(south)
     after_plain = np.linalg.norm(mean_lab(n_plain, tissue) - mean_lab(s_plain, tissue))
@@ -85,7 +85,7 @@ def test_macenko_two_sites_glass_and_stain():
 def test_reinhard_two_sites_glass_and_stain():
     reference, north, south, tissue = site_pair(seed=4)
     before = np.linalg.norm(mean_lab(north, tissue) - mean_lab(south, tissue))
-    target = ReinhardNormalizer().fit(reference, glass=NORTH_GLASS)
+    target = ReinhardTransfer().fit(reference, glass=NORTH_GLASS)
     n_out = target.fit_source(north, glass=NORTH_GLASS).transform(north)
     s_out = target.fit_source(south, glass=SOUTH_GLASS).transform(south)
     after = np.linalg.norm(mean_lab(n_out, tissue) - mean_lab(s_out, tissue))
@@ -94,7 +94,7 @@ def test_reinhard_two_sites_glass_and_stain():
         assert np.abs(out[~tissue].astype(int) - 255).max() <= 2  # glass divided by itself: white
     # without the glass colour, this tinted glass (OD norm 0.076 against white, inside the
     # beta/2..beta blend band) stays tinted and is even partly recoloured (constructed above)
-    plain = ReinhardNormalizer().fit(reference).fit_source(south).transform(south)
+    plain = ReinhardTransfer().fit(reference).fit_source(south).transform(south)
     assert np.abs(plain[~tissue].astype(int) - 255).min() > 10
 
 
@@ -102,7 +102,7 @@ def test_reinhard_statistics_relative_to_glass():
     from skimage.color import rgb2lab
 
     _, _, south, tissue = site_pair(seed=5)
-    norm = ReinhardNormalizer().fit(south, glass=SOUTH_GLASS)
+    norm = ReinhardTransfer().fit(south, glass=SOUTH_GLASS)
     mask = tissue_mask(south, glass=SOUTH_GLASS)
     # reference: skimage.color.rgb2lab of the pixels divided by the glass (I / I0, Beer–Lambert)
     white_balanced = np.minimum(south[mask] / SOUTH_GLASS, 1.0)
@@ -113,7 +113,7 @@ def test_reinhard_statistics_relative_to_glass():
 
 def test_macenko_with_glass_matches_float64_reference():
     reference, _, south, _ = site_pair(seed=6)
-    norm = MacenkoNormalizer(max_gain=None).fit(reference, glass=NORTH_GLASS).fit_source(south, glass=SOUTH_GLASS)
+    norm = MacenkoTransfer(max_gain=None).fit(reference, glass=NORTH_GLASS).fit_source(south, glass=SOUTH_GLASS)
     s = estimate_stain_profile(south, glass=SOUTH_GLASS)
     # reference: Beer–Lambert OD against the glass, numpy.linalg.lstsq unmixing, Macenko et al.
     # (2009) rescaling, float64 remixing, rendered on white glass
@@ -124,7 +124,7 @@ def test_macenko_with_glass_matches_float64_reference():
     assert np.abs(norm.transform(south).reshape(-1, 3).astype(int) - expected).max() <= 1
 
 
-@pytest.mark.parametrize("cls", [MacenkoNormalizer, ReinhardNormalizer])
+@pytest.mark.parametrize("cls", [MacenkoTransfer, ReinhardTransfer])
 def test_output_glass_and_self_normalization(cls):
     _, reference, _, tissue = site_pair(seed=7)  # north: tissue is its ground truth
     norm = cls(output_glass=NORTH_GLASS).fit(reference, glass=NORTH_GLASS)
@@ -135,42 +135,42 @@ def test_output_glass_and_self_normalization(cls):
     assert np.abs(glass - np.rint(NORTH_GLASS)).max() <= 1  # OD 0 renders as I0_out (Beer–Lambert)
 
 
-@pytest.mark.parametrize("cls", [MacenkoNormalizer, ReinhardNormalizer])
+@pytest.mark.parametrize("cls", [MacenkoTransfer, ReinhardTransfer])
 def test_dict_round_trip_with_glass(cls):
     reference, _, south, _ = site_pair(seed=8)
     norm = cls(output_glass=(250, 249, 251)).fit(reference, glass=NORTH_GLASS)
     bound = norm.fit_source(south, glass=SOUTH_GLASS)
     d = json.loads(json.dumps(bound.to_dict()))
     assert d["glass"] == SOUTH_GLASS.tolist() and d["reference_glass"] == NORTH_GLASS.tolist()
-    back = normalizer_from_dict(d)
+    back = transfer_from_dict(d)
     np.testing.assert_array_equal(back.glass, SOUTH_GLASS)
     np.testing.assert_array_equal(back.output_glass, (250, 249, 251))
     np.testing.assert_array_equal(back.transform(south), bound.transform(south))  # constructed above
     # a dictionary written before glass colours existed (version 1) still loads, as white glass
     old = {k: v for k, v in d.items() if k not in ("glass", "reference_glass", "output_glass")}
     old["version"] = 1
-    legacy = normalizer_from_dict(old)
+    legacy = transfer_from_dict(old)
     assert legacy.glass is None and legacy.output_glass is None and legacy.is_bound
     with pytest.raises(ConfigError):
-        normalizer_from_dict({**d, "glass": [300, 0, 1]})
+        transfer_from_dict({**d, "glass": [300, 0, 1]})
     with pytest.raises(ConfigError):
-        normalizer_from_dict({**d, "version": 99})
+        transfer_from_dict({**d, "version": 99})
 
 
 def test_with_glass_per_tile_and_defaults():
     reference, north, south, _ = site_pair(seed=9)
-    target = MacenkoNormalizer(per_tile=True, max_gain=None).fit(reference, glass=NORTH_GLASS)
+    target = MacenkoTransfer(per_tile=True, max_gain=None).fit(reference, glass=NORTH_GLASS)
     tinted = target.with_glass(SOUTH_GLASS)
     assert target.glass is None  # with_glass returns a copy
     tiles = np.stack([south[:64, :64], south[64:, 64:]])
     out = tinted.transform(tiles)
     for i in range(2):  # per tile: each tile's own estimate, against the glass set above
-        single = MacenkoNormalizer(max_gain=None).fit(reference, glass=NORTH_GLASS).fit_source(tiles[i], glass=SOUTH_GLASS)
+        single = MacenkoTransfer(max_gain=None).fit(reference, glass=NORTH_GLASS).fit_source(tiles[i], glass=SOUTH_GLASS)
         np.testing.assert_array_equal(out[i], single.transform(tiles[i]))
     # fit_source without a glass keeps the one set by with_glass
     np.testing.assert_array_equal(tinted.fit_source(south).glass, SOUTH_GLASS)
     # pure white is the default and is stored as None (exactly the old behaviour)
-    assert MacenkoNormalizer(max_gain=None).fit(north, glass=(255, 255, 255)).reference_glass is None
+    assert MacenkoTransfer(max_gain=None).fit(north, glass=(255, 255, 255)).reference_glass is None
 
 
 def test_invalid_glass():
@@ -179,9 +179,9 @@ def test_invalid_glass():
         with pytest.raises(ValueError):
             estimate_stains(img, glass=bad)
     with pytest.raises(ValueError):
-        MacenkoNormalizer(max_gain=None).fit(img).with_glass([0, 0, 0])
+        MacenkoTransfer(max_gain=None).fit(img).with_glass([0, 0, 0])
     with pytest.raises(ValueError):
-        ReinhardNormalizer(output_glass=[300, 1, 1])
+        ReinhardTransfer(output_glass=[300, 1, 1])
 
 
 def test_estimate_glass_ignores_bright_tissue_edges_and_dark_labels():

@@ -5,7 +5,7 @@ import numpy as np
 import pytest
 from skimage import data
 
-from tilewright import MacenkoNormalizer
+from tilewright import MacenkoTransfer
 from tilewright.errors import ConfigError
 from tilewright.stain.density import rgb_to_od
 from tilewright.stain.estimate import estimate_stain_profile
@@ -17,13 +17,13 @@ from .synthetic import (NORTH_STAINS, SOUTH_STAINS, angle_deg, mean_lab, render,
 
 def test_self_normalization_changes_little():
     for img in (site_image(0, "north"), data.immunohistochemistry()):
-        out = MacenkoNormalizer(max_gain=None).fit(img).transform(img)
+        out = MacenkoTransfer(max_gain=None).fit(img).transform(img)
         # issue 4 acceptance: normalizing a reference to itself moves pixels <= 2 levels on average
         assert np.abs(out.astype(int) - img).mean() <= 2.0
 
 
 def test_two_sites_colour_distance_falls_by_70_percent():
-    target = MacenkoNormalizer(max_gain=None).fit(site_image(1, "north"))
+    target = MacenkoTransfer(max_gain=None).fit(site_image(1, "north"))
     north, south = site_image(2, "north"), site_image(3, "south")
     before = np.linalg.norm(mean_lab(north, tissue_mask(north)) - mean_lab(south, tissue_mask(south)))
     n_out, s_out = target.transform(north), target.transform(south)
@@ -41,7 +41,7 @@ def test_maps_source_onto_target_stains_and_intensities():
     conc[rng.random((160, 160)) < 0.2] = 0
     source = render(SOUTH_STAINS, conc)
     reference = render(NORTH_STAINS, conc * [1.5, 0.8])
-    norm = MacenkoNormalizer(max_gain=None).fit(reference)
+    norm = MacenkoTransfer(max_gain=None).fit(reference)
     out = norm.transform(source)
     # Ground truth constructed above: same concentrations, target stains, target intensity
     expected = render(NORTH_STAINS, conc * [1.5, 0.8])
@@ -53,7 +53,7 @@ def test_maps_source_onto_target_stains_and_intensities():
 
 def test_matches_float64_numpy_reference():
     ref, src = site_image(6, "north"), site_image(7, "south")
-    norm = MacenkoNormalizer(max_gain=None).fit(ref)
+    norm = MacenkoTransfer(max_gain=None).fit(ref)
     s = estimate_stain_profile(src)
     od = rgb_to_od(src).reshape(-1, 3).astype(np.float64)
     # reference: numpy.linalg.lstsq unmixing, Macenko et al. (2009) rescaling, float64 remixing
@@ -67,13 +67,13 @@ def test_matches_float64_numpy_reference():
 def test_background_stays_white():
     img = site_image(8, "south")
     img[:16] = 255
-    out = MacenkoNormalizer(max_gain=None).fit(site_image(9, "north")).transform(img)
+    out = MacenkoTransfer(max_gain=None).fit(site_image(9, "north")).transform(img)
     assert np.all(out[:16] == 255)  # OD 0 maps to OD 0: Beer–Lambert law
 
 
 def test_batch_shapes_and_bound_source():
     tiles = np.stack([site_image(s, "south", (64, 64)) for s in range(4)])
-    norm = MacenkoNormalizer(max_gain=None).fit(site_image(10, "north"))
+    norm = MacenkoTransfer(max_gain=None).fit(site_image(10, "north"))
     bound = norm.fit_source(tiles)
     assert not norm.is_bound and bound.is_bound  # fit_source returns a copy
     whole = bound.transform(tiles)
@@ -90,24 +90,24 @@ def test_batch_shapes_and_bound_source():
 def test_per_tile_mode_and_glass_tiles():
     tiles = np.stack([site_image(11, "south", (64, 64)), np.full((64, 64, 3), 247, np.uint8)])
     ref = site_image(12, "north")
-    per_tile = MacenkoNormalizer(per_tile=True, max_gain=None).fit(ref)
+    per_tile = MacenkoTransfer(per_tile=True, max_gain=None).fit(ref)
     out = per_tile.transform(tiles)  # the glass tile must not raise
     np.testing.assert_array_equal(out[1], tiles[1])  # unbound: glass left unchanged (documented)
-    single = MacenkoNormalizer(max_gain=None).fit(ref).transform(tiles[0])
+    single = MacenkoTransfer(max_gain=None).fit(ref).transform(tiles[0])
     np.testing.assert_array_equal(out[0], single)  # per-image estimate = its own estimate
     bound = per_tile.fit_source(site_image(13, "south"))
     out_b = bound.transform(tiles)
-    fallback = MacenkoNormalizer(max_gain=None).fit(ref).fit_source(site_image(13, "south")).transform(tiles[1])
+    fallback = MacenkoTransfer(max_gain=None).fit(ref).fit_source(site_image(13, "south")).transform(tiles[1])
     np.testing.assert_array_equal(out_b[1], fallback)  # glass tile uses the bound slide estimate
 
 
 def test_dict_round_trip_through_json():
-    norm = MacenkoNormalizer(beta=0.2, alpha=2.0).fit(site_image(14, "north"))
+    norm = MacenkoTransfer(beta=0.2, alpha=2.0).fit(site_image(14, "north"))
     bound = norm.fit_source(site_image(15, "south"))
     for obj in (norm, bound):
         d = json.loads(json.dumps(obj.to_dict()))
         assert d["method"] == "macenko"
-        back = MacenkoNormalizer.from_dict(d)
+        back = MacenkoTransfer.from_dict(d)
         assert (back.beta, back.alpha, back.is_bound) == (0.2, 2.0, obj.is_bound)
         np.testing.assert_allclose(back.stain_matrix, obj.stain_matrix, rtol=1e-6)
         img = site_image(16, "south")
@@ -115,35 +115,35 @@ def test_dict_round_trip_through_json():
 
 
 def test_from_median_target():
-    fitted = [MacenkoNormalizer(max_gain=None).fit(site_image(s, site)) for s, site in
+    fitted = [MacenkoTransfer(max_gain=None).fit(site_image(s, site)) for s, site in
               [(20, "north"), (21, "south"), (22, "north")]]
-    med = MacenkoNormalizer.from_median(fitted)
+    med = MacenkoTransfer.from_median(fitted)
     # reference: numpy.median of the stacked fits, rows renormalized (constructed here)
     expected = np.median([f.stain_matrix for f in fitted], axis=0)
     np.testing.assert_allclose(med.stain_matrix, unit(expected), rtol=1e-5)
     np.testing.assert_allclose(med.max_concentrations,
                                np.median([f.max_concentrations for f in fitted], axis=0), rtol=1e-5)
     assert not med.is_bound
-    again = MacenkoNormalizer.from_median([f.to_dict() for f in fitted])
+    again = MacenkoTransfer.from_median([f.to_dict() for f in fitted])
     np.testing.assert_allclose(again.stain_matrix, med.stain_matrix, rtol=1e-6)
 
 
 def test_errors():
     with pytest.raises(ConfigError):
-        MacenkoNormalizer(max_gain=None).transform(site_image(0, "north"))  # not fitted
+        MacenkoTransfer(max_gain=None).transform(site_image(0, "north"))  # not fitted
     with pytest.raises(ConfigError):
-        MacenkoNormalizer.from_dict({"method": "reinhard"})
+        MacenkoTransfer.from_dict({"method": "reinhard"})
     with pytest.raises(ConfigError):
-        MacenkoNormalizer.from_dict({"method": "macenko", "stain_matrix": [[1, 0, 0]],
+        MacenkoTransfer.from_dict({"method": "macenko", "stain_matrix": [[1, 0, 0]],
                                      "max_concentrations": [1, 1]})
     with pytest.raises(ConfigError):
-        MacenkoNormalizer.from_median([])
+        MacenkoTransfer.from_median([])
     with pytest.raises(ValueError):
-        MacenkoNormalizer(alpha=70)
+        MacenkoTransfer(alpha=70)
 
 
 def test_strided_input_and_in_place_output():
-    norm = MacenkoNormalizer(max_gain=None).fit(site_image(90, "north")).fit_source(site_image(91, "south"))
+    norm = MacenkoTransfer(max_gain=None).fit(site_image(90, "north")).fit_source(site_image(91, "south"))
     img = site_image(92, "south", (64, 128))
     view = img[:, ::2]  # non-contiguous input
     expected = norm.transform(np.ascontiguousarray(view))

@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 from skimage.color import lab2rgb, rgb2lab
 
-from tilewright import ReinhardNormalizer
+from tilewright import ReinhardTransfer
 from tilewright.errors import ConfigError, StainEstimationError
 from tilewright.stain.lab import lab_to_rgb, rgb_to_lab
 from tilewright.stain.reinhard import lab_statistics
@@ -25,7 +25,7 @@ def test_lab_matches_skimage():
 
 def test_tissue_statistics_match_target_after_transform():
     reference, source = site_image(30, "north"), site_image(31, "south")
-    norm = ReinhardNormalizer().fit(reference)
+    norm = ReinhardTransfer().fit(reference)
     mask = tissue_mask(reference)
     ref_lab = rgb2lab(reference)[mask]  # reference: skimage.color.rgb2lab
     np.testing.assert_allclose(norm.target_mean, ref_lab.mean(0), atol=0.5)
@@ -39,12 +39,12 @@ def test_tissue_statistics_match_target_after_transform():
 
 def test_self_normalization_changes_little():
     img = site_image(32, "north")
-    out = ReinhardNormalizer().fit(img).transform(img)
+    out = ReinhardTransfer().fit(img).transform(img)
     assert np.abs(out.astype(int) - img).mean() <= 2.0  # issue 4 acceptance
 
 
 def test_two_sites_get_closer():
-    target = ReinhardNormalizer().fit(site_image(33, "north"))
+    target = ReinhardTransfer().fit(site_image(33, "north"))
     north, south = site_image(34, "north"), site_image(35, "south")
     mn, ms = tissue_mask(north), tissue_mask(south)
     before = np.linalg.norm(mean_lab(north, mn) - mean_lab(south, ms))
@@ -56,35 +56,35 @@ def test_glass_kept_with_tissue_only_and_changed_without():
     src = site_image(36, "south")
     src[:8] = (242, 240, 245)  # off-white glass (OD norm < 0.15/2: common practice)
     ref = site_image(37, "north")
-    out = ReinhardNormalizer().fit(ref).transform(src)
+    out = ReinhardTransfer().fit(ref).transform(src)
     np.testing.assert_array_equal(out[:8], src[:8])  # documented: glass unchanged
-    classic = ReinhardNormalizer(tissue_only=False).fit(ref).transform(src)
+    classic = ReinhardTransfer(tissue_only=False).fit(ref).transform(src)
     assert np.abs(classic[:8].astype(int) - src[:8]).mean() > 1  # all pixels transformed
 
 
 def test_bound_source_batch_and_dict_round_trip():
     tiles = np.stack([site_image(s, "south", (64, 64)) for s in range(40, 43)])
-    norm = ReinhardNormalizer().fit(site_image(44, "north"))
+    norm = ReinhardTransfer().fit(site_image(44, "north"))
     bound = norm.fit_source(tiles)
     whole = bound.transform(tiles)
     np.testing.assert_array_equal(bound.transform(tiles[1]), whole[1])
     d = json.loads(json.dumps(bound.to_dict()))
     assert d["method"] == "reinhard" and d["source"] is not None
-    back = ReinhardNormalizer.from_dict(d)
+    back = ReinhardTransfer.from_dict(d)
     np.testing.assert_array_equal(back.transform(tiles), whole)
     np.testing.assert_allclose(back.target_mean, norm.target_mean)
 
 
 def test_per_tile_glass_does_not_crash():
     tiles = np.stack([site_image(45, "south", (64, 64)), np.full((64, 64, 3), 250, np.uint8)])
-    out = ReinhardNormalizer(per_tile=True).fit(site_image(46, "north")).transform(tiles)
+    out = ReinhardTransfer(per_tile=True).fit(site_image(46, "north")).transform(tiles)
     np.testing.assert_array_equal(out[1], tiles[1])  # documented: unbound glass tile unchanged
 
 
 def test_from_median():
-    fitted = [ReinhardNormalizer().fit(site_image(s, site)) for s, site in
+    fitted = [ReinhardTransfer().fit(site_image(s, site)) for s, site in
               [(50, "north"), (51, "south"), (52, "south")]]
-    med = ReinhardNormalizer.from_median(fitted)
+    med = ReinhardTransfer.from_median(fitted)
     # reference: numpy.median over the fits (constructed here)
     np.testing.assert_allclose(med.target_mean, np.median([f.target_mean for f in fitted], 0))
     np.testing.assert_allclose(med.target_std, np.median([f.target_std for f in fitted], 0))
@@ -94,7 +94,7 @@ def test_errors():
     with pytest.raises(StainEstimationError):
         lab_statistics(np.full((32, 32, 3), 250, np.uint8))
     with pytest.raises(ConfigError):
-        ReinhardNormalizer().transform(site_image(0, "north"))
+        ReinhardTransfer().transform(site_image(0, "north"))
     with pytest.raises(ConfigError):
-        ReinhardNormalizer.from_dict({"method": "reinhard", "target_mean": [1, 2, 3],
+        ReinhardTransfer.from_dict({"method": "reinhard", "target_mean": [1, 2, 3],
                                       "target_std": [1, 0, 1]})

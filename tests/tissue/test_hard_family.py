@@ -3,7 +3,7 @@ shares of draws (tests/tissue/family_scores.py): in at least 95 % of the draws, 
 kept >= 0.9 with at most 5 % of the mask on ink; red cells kept >= 0.9; faint tissue (>= 0.03 OD
 above glass in green) kept >= 0.8.
 
-``make test`` runs the first 30 draws. The full run (README, "Tissue masks on hard slides"):
+``make test`` runs the first 30 draws. The full run (docs/guide/tissue.md, "Tissue masks on hard slides"):
 ``TILEWRIGHT_FAMILY_DRAWS=160 .venv/bin/python -m pytest -q tests/tissue/test_hard_family.py -s``.
 The summary (shares, quantiles, the worst draws) is printed and the worst draws' QC pictures are
 written to ``test-artefacts/hard-family/`` (gitignored; ``TILEWRIGHT_ARTEFACTS`` moves it).

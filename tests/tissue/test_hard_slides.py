@@ -120,10 +120,10 @@ def _tiles(slide, mask, n=8, size=192, mpp=2.0):
 
 @pytest.fixture(scope="module")
 def target():
-    from tilewright.stain.macenko import MacenkoNormalizer
+    from tilewright.stain.macenko import MacenkoTransfer
 
     clean = HardSlide("clean", 6000, 8000, (Piece(3000, 2300, 2300, 1900), Piece(3000, 5900, 2200, 1800)), seed=11)
-    return MacenkoNormalizer().fit(_tiles(clean, tissue_mask(clean.render(MPP), mpp=MPP), n=12))
+    return MacenkoTransfer().fit(_tiles(clean, tissue_mask(clean.render(MPP), mpp=MPP), n=12))
 
 
 @pytest.mark.parametrize("name", sorted(SLIDES))

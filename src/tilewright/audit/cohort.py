@@ -76,7 +76,7 @@ class CohortAudit:
         factor -> factors splitting the slides exactly like it), ``"_dropped"`` (one level),
         ``"_unmatched"``, ``"_missing"``, ``"_attrs"`` (store attributes by slide),
         ``"_metadata"`` (the metadata file, when given as one) and, for the two sides of
-        :func:`tilewright.audit.compare.audit_before_after`, ``"_pairing"`` (what the sides share
+        :func:`tilewright.audit.before_after.audit_before_after`, ``"_pairing"`` (what the sides share
         and what differs).
     """
 
@@ -136,7 +136,7 @@ class CohortAudit:
         folder : str or os.PathLike
             Report folder; created when missing, files in it replaced.
         before : CohortAudit, optional
-            The "before" side of :func:`tilewright.audit.compare.audit_before_after` (this audit
+            The "before" side of :func:`tilewright.audit.before_after.audit_before_after` (this audit
             being its "after"), shown as a before/after section; its table is also written as
             ``before_after.csv``.
         names : (str, str), optional
@@ -156,9 +156,19 @@ class CohortAudit:
         """Whether any audited slide's store holds stain-normalized tiles."""
         return any(bool(a.get("normalizer")) for a in self.notes.get("_attrs", {}).values())
 
+    @property
+    def source_name(self) -> str:
+        """What this audit measured, in a report's words: raw thumbnails, raw tiles, tiles or
+        normalized tiles."""
+        if self.source == "thumbnail":
+            return "raw thumbnails"
+        if self.source == "source":
+            return "raw tiles"
+        return "normalized tiles" if self.normalized else "tiles"
+
     def comparison_findings(self, other: "CohortAudit", names=None) -> list[str]:
         """Sentences on how associations changed from this audit to ``other``."""
-        names = names or (_source_name(self), _source_name(other))
+        names = names or (self.source_name, other.source_name)
         return comparison_findings(self.compare(other), tuple(names), self.notes.get("_aliases"))
 
 
@@ -171,14 +181,6 @@ def _with_gaps(findings: list, audit: CohortAudit) -> list:
              if row["factor"] != audit.label and row["factor"] not in hidden]
     at = next((i + 1 for i, s in enumerate(findings) if "colour clusters follow" in s.lower()), len(findings))
     return findings[:at] + lines + findings[at:]
-
-
-def _source_name(audit: CohortAudit) -> str:
-    if audit.source == "thumbnail":
-        return "raw thumbnails"
-    if audit.source == "source":
-        return "raw tiles"
-    return "normalized tiles" if audit.normalized else "tiles"
 
 
 def normalized_run(cohort_or_dir) -> bool:
@@ -219,7 +221,7 @@ def audit_cohort(
     permutation p-value) and how each metric differs across factor levels (Kruskal–Wallis,
     exact or permutation p-value), adjusting p-values for multiple testing (Benjamini–Hochberg).
     Findings state an association only at adjusted p < 0.05. To compare colour before and after
-    stain normalization, use :func:`tilewright.audit.compare.audit_before_after`.
+    stain normalization, use :func:`tilewright.audit.before_after.audit_before_after`.
 
     Parameters
     ----------

@@ -35,7 +35,7 @@ def level_tiles_picture(before, after, factor: str, path, *, gaps=None, side: in
     Parameters
     ----------
     before, after : tilewright.audit.cohort.CohortAudit
-        The two sides of :func:`tilewright.audit.compare.audit_before_after`.
+        The two sides of :func:`tilewright.audit.before_after.audit_before_after`.
     factor : str
         The factor whose levels make the rows (for example ``site``).
     path : path

@@ -70,7 +70,7 @@ def match_suffixed_ids(table: pd.DataFrame, slide_ids) -> tuple[pd.DataFrame, di
     Parameters
     ----------
     table : DataFrame
-        Metadata indexed by ``slide_id`` (see :func:`tilewright.audit.factors.read_metadata`).
+        Metadata indexed by ``slide_id`` (see :func:`tilewright.store.tables.read_metadata`).
     slide_ids : iterable of str
         The cohort's slide ids.
 
@@ -108,7 +108,7 @@ def match_metadata(metadata, manifest: pd.DataFrame) -> MetadataMatch:
     Parameters
     ----------
     metadata : DataFrame, str or os.PathLike
-        See :func:`tilewright.audit.factors.read_metadata`.
+        See :func:`tilewright.store.tables.read_metadata`.
     manifest : DataFrame
         The cohort manifest indexed by slide id, every status (``status`` and ``error`` columns).
 
@@ -122,7 +122,7 @@ def match_metadata(metadata, manifest: pd.DataFrame) -> MetadataMatch:
         For a missing or unreadable table, a table without ``slide_id``, repeated ids, or a
         table none of whose ids names a slide of the cohort.
     """
-    from tilewright.audit.factors import read_metadata
+    from tilewright.store.tables import read_metadata
 
     table = read_metadata(metadata)
     table, renamed = match_suffixed_ids(table, manifest.index)

@@ -47,6 +47,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from tilewright.tissue.plane import RUIFROK_E, RUIFROK_H
+
 __all__ = ["METRICS", "COLOUR_METRICS", "QUALITY_METRICS", "slide_metrics", "stain_angles"]
 
 #: Colour and stain metrics: the colour clusters are built from these only.
@@ -64,9 +66,6 @@ COLOUR_METRICS = (
 QUALITY_METRICS = ("tissue_fraction", "n_tiles", "sharpness")
 METRICS = COLOUR_METRICS + QUALITY_METRICS
 
-#: Ruifrok & Johnston (2001) optical-density vectors of hematoxylin and eosin.
-RUIFROK_H = np.array([0.65, 0.70, 0.29])
-RUIFROK_E = np.array([0.07, 0.99, 0.11])
 GREY_AXIS = np.ones(3) / np.sqrt(3.0)
 #: Fewer tissue pixels than this give NaN colour metrics.
 MIN_PIXELS = 16
@@ -156,7 +155,7 @@ def stain_angles(stains) -> dict:
     out = {}
     for name, vector, reference in (("h", stains[0], RUIFROK_H), ("e", stains[1], RUIFROK_E)):
         out[f"{name}_polar_deg"] = _angle(vector, GREY_AXIS)
-        out[f"{name}_azimuth_deg"] = _azimuth(vector, reference / np.linalg.norm(reference))
+        out[f"{name}_azimuth_deg"] = _azimuth(vector, reference)  # unit vectors
     out["he_angle_deg"] = _angle(stains[0], stains[1])
     return out
 

@@ -247,9 +247,7 @@ def write_report(audit, folder, *, before=None, names=None) -> Path:
         return _report_to_bucket(audit, as_path(folder), before, names)
     folder = Path(folder)
     if before is not None and names is None:
-        from tilewright.audit.cohort import _source_name
-
-        names = (_source_name(before), _source_name(audit))
+        names = (before.source_name, audit.source_name)
         if names[0] == names[1]:
             names = ("before", "after")
     try:

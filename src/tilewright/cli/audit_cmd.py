@@ -86,7 +86,7 @@ def run(args: argparse.Namespace) -> int:
         0 on success, 2 for bad arguments, 1 for other failures.
     """
     from tilewright.audit.cohort import audit_cohort, normalized_run
-    from tilewright.audit.compare import audit_before_after
+    from tilewright.audit.before_after import audit_before_after
     from tilewright.errors import ConfigError, StoreError, TilewrightError
 
     out = as_path(args.out)  # a folder, or a prefix in a bucket

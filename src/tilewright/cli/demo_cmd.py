@@ -61,7 +61,7 @@ def _colour_gap(slides: Path):
 
 def _audit(tiles_dir: Path, meta: Path, out: Path):
     try:
-        from tilewright.audit.compare import audit_before_after
+        from tilewright.audit.before_after import audit_before_after
     except ImportError:  # pragma: no cover - audit not installed in this build
         return None, []
     from tilewright.audit.compare import compare_gaps

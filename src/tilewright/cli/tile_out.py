@@ -93,8 +93,10 @@ def build_parser() -> argparse.ArgumentParser:
                    help="GeoJSON feature property holding the class (default: classification, class, label)")
     g.add_argument("--default-class", metavar="NAME",
                    help="class of GeoJSON features that have none (default: such features are skipped, warned)")
-    g.add_argument("--object-types", metavar="TYPES",
-                   help="GeoJSON object types to read, comma separated (default annotation; 'all' for every feature)")
+    g.add_argument("--feature-kinds", metavar="KINDS",
+                   help="kinds of GeoJSON feature to read, as their objectType property names them, comma separated "
+                        "(default annotation; 'all' for every feature)")
+    g.add_argument("--object-types", dest="old_feature_kinds", help=argparse.SUPPRESS)  # old name, one release
     g = p.add_argument_group("input resolution")
     g.add_argument("--source-mpp", type=float, help="level-0 µm/px for slides that lack or misstate it")
     g.add_argument("--mpp-table", help="CSV with slide_id (or path) and mpp columns: per-slide level-0 µm/px")
@@ -126,7 +128,7 @@ _FIELDS = {"mpp": "mpp", "tile": "tile", "stride": "stride", "min_tissue": "min_
            "threads": "threads", "compression": "compression", "verify_jpeg": "verify_jpeg",
            "tissue_sensitivity": "tissue_sensitivity", "min_piece_um2": "min_piece_um2",
            "exclude_dark": "exclude_dark", "dark_od": "dark_od", "ink_margin_um": "ink_margin_um",
-           "class_property": "class_property", "default_class": "default_class", "object_types": "object_types",
+           "class_property": "class_property", "default_class": "default_class", "feature_kinds": "feature_kinds",
            "colour_profile": "colour_profile", "mpp_tolerance": "tolerance",
            "quality": "quality", "source_digest": "source_digest", "from_level0": "from_level0",
            "max_ink": "max_ink", "estimate_stains": "estimate_stains",
@@ -143,6 +145,12 @@ def config_from_args(args):
         changes["normalizer"] = None if args.normalize == "none" else args.normalize
     if args.keep is not None:
         changes["keep"] = args.keep  # split on commas by TilingConfig
+    if args.old_feature_kinds is not None:
+        if args.feature_kinds is not None:
+            raise ConfigError("--object-types is the old name of --feature-kinds; give --feature-kinds alone")
+        print("tile-out: warning: --object-types is renamed --feature-kinds; the old name will be removed in the "
+              "next release", file=sys.stderr)
+        changes["feature_kinds"] = args.old_feature_kinds
     if isinstance(changes.get("reference"), str) and changes["reference"].lower().endswith(".json"):
         import json
 
@@ -201,10 +209,10 @@ def _share_cores(config, args):
 
 
 def _check_tiles_fit(paths, ids, config, mpp) -> None:
-    from tilewright.run.cohort import _mpp_for
+    from tilewright.run.sources import mpp_for
     from tilewright.run.feasible import check_tiles_fit
 
-    check_tiles_fit(paths, config, [_mpp_for(mpp, str(p), sid) for p, sid in zip(paths, ids)])
+    check_tiles_fit(paths, config, [mpp_for(mpp, str(p), sid) for p, sid in zip(paths, ids)])
 
 
 def run(args, config) -> int:

@@ -19,6 +19,8 @@ from functools import lru_cache
 
 import numpy as np
 
+from tilewright.tissue.plane import RUIFROK_E, RUIFROK_H  # Ruifrok & Johnston (2001), unit length
+
 __all__ = [
     "RUIFROK_H",
     "RUIFROK_E",
@@ -28,15 +30,6 @@ __all__ = [
     "random_layout",
 ]
 
-
-def _unit(v) -> np.ndarray:
-    v = np.asarray(v, dtype=np.float64)
-    return v / np.linalg.norm(v)
-
-
-#: Hematoxylin and eosin OD vectors of Ruifrok & Johnston (2001), normalized to unit length.
-RUIFROK_H = _unit((0.65, 0.70, 0.29))
-RUIFROK_E = _unit((0.07, 0.99, 0.11))
 
 #: Transmission (fraction of light passed) of marker inks, per RGB channel (invented values).
 PEN_INKS = {

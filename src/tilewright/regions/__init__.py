@@ -1,7 +1,7 @@
 """Tissue-type regions: keep only chosen classes of tissue, and two-stage tiling.
 
 Modules: ``regionmap`` (:class:`RegionMap`), ``classify`` (:func:`classify_regions`, the first
-pass), ``geojson`` (reading GeoJSON annotations: classes, object types, repairs) and
+pass), ``geojson`` (reading GeoJSON annotations: classes, feature kinds, repairs) and
 ``geojson_structure`` (the GeoJSON objects themselves), ``repair`` (ring-by-ring polygon repair,
 the slide-bounds check), ``polygons`` (exact box coverage by polygons), ``tiletable``
 (first-pass tile tables), ``labels`` (label rasters), ``classnames`` (class spellings and keep

@@ -67,7 +67,6 @@ def classify_regions(slide, fn, *, mpp=0.5, tile=128, batch=64, min_tissue=0.5, 
         Bad arguments, no tile with enough tissue, or ``fn`` returning the wrong shape, ids
         outside ``classes`` or probabilities outside [0, 1].
     """
-    from tilewright.regions.digest import table_digest
     from tilewright.regions.regionmap import RegionMap
     from tilewright.regions.tiletable import read_tile_table
 
@@ -95,10 +94,9 @@ def classify_regions(slide, fn, *, mpp=0.5, tile=128, batch=64, min_tissue=0.5, 
     outputs = _run(view, fn, yx, tile, batch)
     frame, names = _table(outputs, yx, tissue[chosen], classes, fn)
     checked = read_tile_table(frame, tile, float(view.mpp), classes=names, soft=soft)
-    provenance = {"kind": "classifier", "path": None if path is None else str(path),
-                  "fn": getattr(fn, "__qualname__", None) or type(fn).__name__,
-                  "tile": tile, "mpp": float(view.mpp), "n_tiles": int(len(yx)),
-                  "min_tissue": float(min_tissue), "soft": checked.soft, "digest": table_digest(checked)}
+    provenance = checked.provenance("classifier", None if path is None else str(path),
+                                    fn=getattr(fn, "__qualname__", None) or type(fn).__name__,
+                                    min_tissue=float(min_tissue))
     return RegionMap._from_checked_table(checked, provenance)
 
 

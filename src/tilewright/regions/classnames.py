@@ -15,6 +15,7 @@ of names; everywhere (``plan_tiles``, ``RegionMap.fractions``, ``TilingConfig.ke
 from __future__ import annotations
 
 from tilewright.errors import RegionError
+from tilewright.tissue.plan import keep_names  # noqa: F401 - public here too (defined by plan_tiles' keep=)
 
 __all__ = ["class_key", "keep_names", "match_keep", "none_kept", "ClassNames"]
 
@@ -22,30 +23,6 @@ __all__ = ["class_key", "keep_names", "match_keep", "none_kept", "ClassNames"]
 def class_key(name) -> str:
     """The comparison key of a class name: whitespace collapsed and stripped, case folded."""
     return " ".join(str(name).split()).casefold()
-
-
-def keep_names(keep) -> tuple:
-    """A keep list as a tuple of names (strings split on commas; blanks and repeats dropped).
-
-    Parameters
-    ----------
-    keep : str or iterable of str or None
-
-    Returns
-    -------
-    tuple of str
-        Empty for None or an empty selection.
-
-    Raises
-    ------
-    TypeError
-        ``keep`` is neither a string nor an iterable.
-    """
-    if keep is None:
-        return ()
-    items = keep.split(",") if isinstance(keep, str) else [str(k) for k in keep]
-    names = [" ".join(k.split()) for k in items]
-    return tuple(dict.fromkeys(n for n in names if n))
 
 
 def match_keep(classes, keep, path=None) -> tuple:

@@ -26,7 +26,7 @@ origin at the top-left corner of the slide). What is accepted and what is repair
   a file in which no feature has a class is refused. A feature's ``name`` is not a class.
 * Features with an object-type property (``objectType``/``object_type``) other than
   ``"annotation"`` (for example exported cell detections) are skipped (warned) unless their type
-  is asked for with ``object_types``. Features without that property are annotations.
+  is asked for with ``feature_kinds``. Features without that property are annotations.
 * Class names differing only in case or spacing are one class (warned; see
   :mod:`tilewright.regions.classnames`).
 * Anything that cannot be read as the standard describes (non-numeric or non-finite
@@ -49,8 +49,8 @@ from tilewright.regions.classnames import ClassNames, class_key
 from tilewright.regions.geojson_structure import Where, features_of, is_number, load_json, polygons_of, short
 from tilewright.regions.repair import fit_to_slide, polygonal, repair_polygon
 
-__all__ = ["RegionRepairWarning", "DEFAULT_CLASS_PROPERTIES", "OBJECT_TYPE_PROPERTIES", "ParsedRegions",
-           "read_geojson"]
+__all__ = ["RegionRepairWarning", "DEFAULT_CLASS_PROPERTIES", "OBJECT_TYPE_PROPERTIES", "DEFAULT_FEATURE_KINDS",
+           "ParsedRegions", "read_geojson", "kinds_option"]
 
 #: Feature properties searched, in order, for the class name when none is named. A feature's
 #: ``name`` is its own label (for example "Annotation 3"), not a class: it is never read as one
@@ -58,8 +58,9 @@ __all__ = ["RegionRepairWarning", "DEFAULT_CLASS_PROPERTIES", "OBJECT_TYPE_PROPE
 DEFAULT_CLASS_PROPERTIES = ("classification", "class", "label")
 #: Feature properties that say what kind of object a feature is (an annotation, a detected cell ...).
 OBJECT_TYPE_PROPERTIES = ("objectType", "object_type")
-#: Object types read by default; features of other types (detections, cells, tiles) are skipped.
-DEFAULT_OBJECT_TYPES = ("annotation",)
+#: Feature kinds (the object-type property's values) read by default; features of other kinds
+#: (detections, cells, tiles) are skipped.
+DEFAULT_FEATURE_KINDS = ("annotation",)
 
 
 
@@ -77,7 +78,7 @@ class ParsedRegions:
 
 
 def read_geojson(source, *, class_property=None, classes=None, default_class=None,
-                 slide_shape=None, object_types=None, warn=True) -> ParsedRegions:
+                 slide_shape=None, feature_kinds=None, warn=True, object_types=None) -> ParsedRegions:
     """Parse GeoJSON into per-class shapely geometries in level-0 pixel coordinates.
 
     Parameters
@@ -97,12 +98,14 @@ def read_geojson(source, *, class_property=None, classes=None, default_class=Non
     slide_shape : (int, int), optional
         Level-0 (height, width) of the slide; parts beyond are clipped away, and a file mostly
         outside it is refused.
-    object_types : str or sequence of str, optional
-        Object types to read (``objectType``/``object_type`` property, compared ignoring case);
-        default ``("annotation",)``; ``"all"`` reads every feature.
+    feature_kinds : str or sequence of str, optional
+        Kinds of feature to read, as named by their ``objectType``/``object_type`` property
+        (compared ignoring case); default ``("annotation",)``; ``"all"`` reads every feature.
     warn : bool
         Issue each repair as a :class:`RegionRepairWarning` (True) or only return it in
         ``ParsedRegions.repairs`` (False; a cohort run logs them instead).
+    object_types : str or sequence of str, optional
+        Old name of ``feature_kinds`` (DeprecationWarning; removed in the next release).
 
     Returns
     -------
@@ -120,18 +123,32 @@ def read_geojson(source, *, class_property=None, classes=None, default_class=Non
     """
     from tilewright.regions.source import parse_source
 
+    feature_kinds = kinds_option(feature_kinds, object_types, "read_geojson")
     return parse_source(source, load_json,
                         lambda data, path: _parse(data, path, class_property, classes, default_class, slide_shape,
-                                                   object_types, warn))
+                                                   feature_kinds, warn))
 
 
-def _parse(data, path, class_property, classes, default_class, slide_shape, object_types, warn):
+def kinds_option(feature_kinds, object_types, where: str):
+    """``feature_kinds``, or its old name ``object_types`` given instead (with a DeprecationWarning)."""
+    if object_types is None:
+        return feature_kinds
+    import warnings
+
+    warnings.warn(f"{where}(object_types=) is renamed feature_kinds=; the old keyword will be removed in the next "
+                  "release", DeprecationWarning, stacklevel=3)
+    if feature_kinds is not None:
+        raise RegionError(f"{where}: give feature_kinds= alone (object_types= is its old name)")
+    return object_types
+
+
+def _parse(data, path, class_property, classes, default_class, slide_shape, feature_kinds, warn):
     where = Where(path)
     features = features_of(data, where)
     allowed = None if classes is None else [" ".join(str(c).split()) for c in classes]
     if allowed is not None and len({class_key(c) for c in allowed}) != len(allowed):
         raise RegionError(f"classes= has duplicate names {allowed}; give each class once", path)
-    wanted = _wanted_objects(object_types)
+    wanted = _wanted_kinds(feature_kinds)
     names = ClassNames(allowed or ())
     parts: dict[str, list] = {name: [] for name in (allowed or [])}
     skipped_empty, skipped_no_area, closed, unclassified, named = [], [], [], [], []
@@ -181,7 +198,7 @@ def _parse(data, path, class_property, classes, default_class, slide_shape, obje
         repairs.append(f"skipped features with null or empty geometry: {short(skipped_empty)}")
     for kind, idx in other_objects.items():
         repairs.append(f"ignored {len(idx)} feature(s) of object type {kind!r} (features {short(idx)}); object "
-                       f"types read: {', '.join(sorted(wanted))} (choose with --object-types / object_types=)")
+                       f"types read: {', '.join(sorted(wanted))} (choose with --feature-kinds / feature_kinds=)")
     if unclassified:
         repairs.append(_unclassified_note(unclassified, named, class_property))
 
@@ -264,16 +281,16 @@ def _object_type(properties):
     return None
 
 
-def _wanted_objects(object_types):
-    """Case-folded object types to read, or None for every feature."""
-    if object_types is None:
-        return {t.casefold() for t in DEFAULT_OBJECT_TYPES}
-    if isinstance(object_types, str):
-        object_types = object_types.split(",")
-    wanted = {str(t).strip().casefold() for t in object_types if str(t).strip()}
+def _wanted_kinds(feature_kinds):
+    """Case-folded feature kinds to read, or None for every feature."""
+    if feature_kinds is None:
+        return {t.casefold() for t in DEFAULT_FEATURE_KINDS}
+    if isinstance(feature_kinds, str):
+        feature_kinds = feature_kinds.split(",")
+    wanted = {str(t).strip().casefold() for t in feature_kinds if str(t).strip()}
     if "all" in wanted:
         return None
     if not wanted:
-        raise RegionError("object_types= is empty; name the object types to read (for example 'annotation') "
+        raise RegionError("feature_kinds= is empty; name the kinds of feature to read (for example 'annotation') "
                           "or 'all'")
     return wanted

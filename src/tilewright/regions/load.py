@@ -55,7 +55,7 @@ def region_file(path, slide_id):
 
 
 def load_regions(path, slide_id, level0_mpp, *, slide_shape=None, class_property=None, default_class=None,
-                 object_types=None, warn=True):
+                 feature_kinds=None, warn=True):
     """The RegionMap of one slide from a region file or a folder of them.
 
     Parameters
@@ -70,7 +70,7 @@ def load_regions(path, slide_id, level0_mpp, *, slide_shape=None, class_property
     slide_shape : (int, int), optional
         Level-0 (height, width); GeoJSON parts beyond it are clipped (with a warning), and
         annotations or table tiles lying outside it are refused.
-    class_property, default_class, object_types : optional
+    class_property, default_class, feature_kinds : optional
         GeoJSON options (see :meth:`RegionMap.from_geojson`).
     warn : bool
         Issue repairs as warnings (True), or only record them in ``to_dict()["repairs"]``.
@@ -95,7 +95,7 @@ def load_regions(path, slide_id, level0_mpp, *, slide_shape=None, class_property
     ext = os.path.splitext(path)[1].lower()
     if ext in _GEOJSON:
         return RegionMap._geojson(path, mpp=level0_mpp, slide_shape=slide_shape, class_property=class_property,
-                                  default_class=default_class, object_types=object_types, warn=warn)
+                                  default_class=default_class, feature_kinds=feature_kinds, warn=warn)
     if ext in _TABLES:
         checked = _slide_table(path, slide_id)
         if checked is None:
@@ -181,16 +181,8 @@ def _table_fits(checked, level0_mpp, slide_shape, path):
 
 
 def _table_map(checked, path, warn):
-    import warnings
-
-    from tilewright.regions.digest import table_digest
-    from tilewright.regions.geojson import RegionRepairWarning
     from tilewright.regions.regionmap import RegionMap
 
     if warn:
-        for note in checked.notes:
-            warnings.warn(f"{path}: {note}", RegionRepairWarning, stacklevel=3)
-    provenance = {"kind": "tiles", "path": path, "tile": checked.tile, "mpp": checked.mpp,
-                  "n_tiles": int(len(checked.yx)), "soft": checked.soft, "repairs": list(checked.notes),
-                  "digest": table_digest(checked)}
-    return RegionMap._from_checked_table(checked, provenance)
+        checked.warn_notes(path)
+    return RegionMap._from_checked_table(checked, checked.provenance("tiles", path, repairs=list(checked.notes)))

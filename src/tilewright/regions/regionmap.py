@@ -79,7 +79,7 @@ class RegionMap:
     # construction ---------------------------------------------------------------------------
     @classmethod
     def from_geojson(cls, source, *, mpp=None, class_property=None, classes=None, default_class=None,
-                     slide_shape=None, object_types=None) -> "RegionMap":
+                     slide_shape=None, feature_kinds=None, object_types=None) -> "RegionMap":
         """Regions from GeoJSON polygons in level-0 pixel coordinates.
 
         Parameters
@@ -105,10 +105,10 @@ class RegionMap:
             Level-0 (height, width); polygon parts beyond it are clipped away with a warning,
             and a file with more than half of its area outside is refused. Parts at negative
             coordinates are always clipped.
-        object_types : str or sequence of str, optional
-            Object types to read from an ``objectType``/``object_type`` feature property;
+        feature_kinds : str or sequence of str, optional
+            Kinds of feature to read, as named by an ``objectType``/``object_type`` property;
             default ``("annotation",)`` (detections and other objects are skipped, warned);
-            ``"all"`` reads every feature.
+            ``"all"`` reads every feature. (``object_types=``: its old name, deprecated.)
 
         Returns
         -------
@@ -132,8 +132,11 @@ class RegionMap:
         ----------
         .. [1] H. Butler et al., "The GeoJSON Format", IETF RFC 7946, 2016.
         """
+        from tilewright.regions.geojson import kinds_option
+
+        kinds = kinds_option(feature_kinds, object_types, "RegionMap.from_geojson")
         return cls._geojson(source, mpp=mpp, class_property=class_property, classes=classes,
-                            default_class=default_class, slide_shape=slide_shape, object_types=object_types)
+                            default_class=default_class, slide_shape=slide_shape, feature_kinds=kinds)
 
     @classmethod
     def _geojson(cls, source, *, mpp=None, warn=True, **options) -> "RegionMap":
@@ -212,12 +215,8 @@ class RegionMap:
         """
         from tilewright.regions.tiletable import read_tile_table
 
-        from tilewright.regions.digest import table_digest
-
         checked = read_tile_table(table, tile, mpp, classes=classes, soft=soft)
-        provenance = {"kind": "tiles", "path": checked.path, "tile": checked.tile, "mpp": checked.mpp,
-                      "n_tiles": int(len(checked.yx)), "soft": checked.soft, "digest": table_digest(checked)}
-        return cls._from_checked_table(checked, provenance)
+        return cls._from_checked_table(checked, checked.provenance("tiles", checked.path))
 
     @classmethod
     def _from_checked_table(cls, checked, provenance) -> "RegionMap":

@@ -46,6 +46,23 @@ class TileTable:
     path: str | None = None
     notes: tuple = ()  # what reading changed (class spellings merged)
 
+    def provenance(self, kind: str, path, **more) -> dict:
+        """The region map's provenance record of this table (JSON-safe): ``kind``, ``path``, tile,
+        µm/px, tile count, soft, the entries of ``more``, and the table's content digest."""
+        from tilewright.regions.digest import table_digest
+
+        return {"kind": kind, "path": path, "tile": self.tile, "mpp": self.mpp, "n_tiles": int(len(self.yx)),
+                "soft": self.soft, **more, "digest": table_digest(self)}
+
+    def warn_notes(self, path=None, stacklevel: int = 4) -> None:
+        """Issue each of :attr:`notes` as a :class:`~tilewright.regions.geojson.RegionRepairWarning`."""
+        import warnings
+
+        from tilewright.regions.geojson import RegionRepairWarning
+
+        for note in self.notes:
+            warnings.warn(f"{path or self.path or 'tile table'}: {note}", RegionRepairWarning, stacklevel=stacklevel)
+
     def frame(self):
         """The table as a pandas DataFrame: y, x, tile, mpp, then ``class`` (hard) or one
         probability column per class (soft), so that it reads back the same way."""
@@ -158,12 +175,7 @@ def read_tile_table(table, tile=None, mpp=None, *, classes=None, soft=False) -> 
 
     checked = parse_source(table, read_table_file,
                            lambda frame, path: check_table(frame, tile, mpp, classes, soft, path, api=True))
-    for note in checked.notes:
-        import warnings
-
-        from tilewright.regions.geojson import RegionRepairWarning
-
-        warnings.warn(f"{checked.path or 'tile table'}: {note}", RegionRepairWarning, stacklevel=3)
+    checked.warn_notes()
     return checked
 
 

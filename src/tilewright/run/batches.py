@@ -30,8 +30,8 @@ MAX_BATCH = 32
 def run_batch(items, out_dir: str, config: dict, target: dict | None, overwrite: bool,
               stop_name: str | None = None, report=None) -> list[dict]:
     """Tile the slides ``items`` (``(path, slide_id, mpp)`` tuples) one after the other and return
-    their manifest rows in order (:func:`tilewright.run.cohort.run_one` each)."""
-    from tilewright.run.cohort import run_one, stop_check
+    their manifest rows in order (:func:`tilewright.run.slide_task.run_one` each)."""
+    from tilewright.run.slide_task import run_one, stop_check
 
     stop = stop_check(stop_name)  # polled at most once a second for the whole batch
     return [run_one(path, out_dir, config, slide_id, mpp, target, overwrite, stop_name, report, stop=stop)
@@ -83,8 +83,8 @@ def lost_rows(items, out_dir, exc, overwrite: bool = False) -> list[dict]:
     """Rows of a batch whose task raised outside :func:`run_batch` (its worker died): a slide whose
     store is complete keeps that store's row (unless ``overwrite``: then that store may be the one
     the run meant to replace), the others fail with the reason."""
-    from tilewright.run.cohort import failure_row
-    from tilewright.run.ledger import kept_row
+    from tilewright.run.slide_task import failure_row
+    from tilewright.store.manifest_row import kept_row
     from tilewright.store.layout import store_path
     from tilewright.store.metadata import store_attrs
 

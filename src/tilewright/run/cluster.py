@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
+from tilewright.run.execute import worker_threads  # noqa: F401 - public here too
 from tilewright.store.layout import store_path
 
 __all__ = ["run_cluster", "worker_threads"]
@@ -14,16 +15,6 @@ def _sweep_partials(out_dir: Path, ids) -> None:
     from tilewright.store.writer import remove_partials
 
     remove_partials(*(store_path(out_dir, sid) for sid in ids))
-
-
-def worker_threads(client) -> int:
-    """Worker threads of the cluster behind ``client`` (0 without one: slides run in this process)."""
-    if client is None:
-        return 0
-    try:
-        return sum(int(n) for n in client.nthreads().values())
-    except Exception:  # noqa: BLE001 - a busy or vanishing scheduler: size as for a small cluster
-        return 2
 
 
 class run_cluster:

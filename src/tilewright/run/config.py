@@ -5,7 +5,7 @@ from __future__ import annotations
 import dataclasses
 import math
 import os
-from dataclasses import dataclass, field
+from dataclasses import InitVar, dataclass, field
 from pathlib import Path
 
 from tilewright.errors import ConfigError
@@ -88,9 +88,10 @@ class TilingConfig:
         ``label``; a feature's ``name`` only when named here).
     default_class : str or None
         Class of GeoJSON features without one (default: such features are skipped, warned).
-    object_types : list of str or None
-        GeoJSON object types read (``objectType``/``object_type`` property); default
-        annotations only, ``["all"]`` for every feature.
+    feature_kinds : list of str or None
+        Kinds of GeoJSON feature read, as their ``objectType``/``object_type`` property names
+        them; default annotations only, ``["all"]`` for every feature. Its old name
+        ``object_types`` (keyword or TOML key) is still read, with a warning, for one release.
     compression : {"lz4", "zstd", "zlib", "none", "webp", "jpeg"}
         Compression of stored tiles (see :mod:`tilewright.store.compression`): lossless Blosc lz4
         (default), Blosc zstd, zlib, none or lossless WebP; or lossy JPEG, which changes the tiles.
@@ -161,7 +162,7 @@ class TilingConfig:
     min_region: float = 0.5
     class_property: str | None = None
     default_class: str | None = None
-    object_types: list | None = None
+    feature_kinds: list | None = None
     compression: str = "lz4"
     quality: int = 90
     shard_tiles: int = 64
@@ -177,8 +178,11 @@ class TilingConfig:
     colour_profile: str = "apply"
     source_digest: str = "sampled"
     extra: dict = field(default_factory=dict, repr=False)
+    object_types: InitVar[list | None] = None  # old name of feature_kinds (warns; next release: gone)
 
-    def __post_init__(self):
+    def __post_init__(self, object_types=None):
+        if object_types is not None:
+            self.feature_kinds = _renamed_setting("object_types", object_types, "feature_kinds", self.feature_kinds)
         self.validate()
 
     def validate(self) -> "TilingConfig":
@@ -271,14 +275,14 @@ class TilingConfig:
             if not isinstance(self.keep, (str, list, tuple)):
                 raise ConfigError(f"keep must be class names (a list or a comma-separated string), got {self.keep!r}")
             self.keep = list(keep_names(self.keep)) or None
-        if isinstance(self.object_types, str):
-            self.object_types = [t.strip() for t in self.object_types.split(",") if t.strip()] or None
+        if isinstance(self.feature_kinds, str):
+            self.feature_kinds = [t.strip() for t in self.feature_kinds.split(",") if t.strip()] or None
         if self.keep and not self.regions:
             raise ConfigError("keep= needs regions= (a region file or folder)")
         if self.regions and not self.keep:
             raise ConfigError("regions= needs keep= (the region classes whose tiles to keep, e.g. keep=['tumour']); "
                               "without it the regions would be ignored")
-        for name in ("class_property", "default_class", "object_types"):
+        for name in ("class_property", "default_class", "feature_kinds"):
             if getattr(self, name) is not None and not self.regions:
                 raise ConfigError(f"{name}= reads region files: it needs regions= and keep=")
 
@@ -296,6 +300,10 @@ class TilingConfig:
     @classmethod
     def from_dict(cls, d: dict) -> "TilingConfig":
         names = {f.name for f in dataclasses.fields(cls)} - {"extra"}
+        d = dict(d)
+        if "object_types" in d:  # the old key: read (warned) for one release
+            d["feature_kinds"] = _renamed_setting("object_types", d.pop("object_types"), "feature_kinds",
+                                                  d.get("feature_kinds"))
         unknown = sorted(set(d) - names)
         if unknown:
             raise ConfigError(f"unknown configuration keys: {', '.join(unknown)}; known: {', '.join(sorted(names))}")
@@ -324,3 +332,14 @@ class TilingConfig:
         body = tomli_w.dumps({k: v for k, v in d.items() if v is not None})
         unset = "".join(f"# {k} = (unset)\n" for k, v in d.items() if v is None)
         return "# tilewright tiling configuration\n" + body + unset
+
+
+def _renamed_setting(old: str, value, new: str, current):
+    """The value of a setting given under its old name, with a warning; ConfigError when both are given."""
+    import warnings
+
+    if current is not None:
+        raise ConfigError(f"{old}= is the old name of {new}=; give {new}= alone")
+    warnings.warn(f"the setting {old} is renamed {new} (--{new.replace('_', '-')}); the old name will be removed in "
+                  "the next release", FutureWarning, stacklevel=4)
+    return value

@@ -13,7 +13,7 @@ import logging
 
 from tilewright.errors import ConfigError
 
-__all__ = ["execute", "local_cluster", "connect"]
+__all__ = ["execute", "local_cluster", "connect", "worker_threads"]
 
 log = logging.getLogger("tilewright")
 
@@ -173,7 +173,6 @@ def execute(fn, args_list, *, scheduler=None, workers=None, on_error=None, stop_
 def _window(client, per_thread: int) -> int:
     """Tasks to keep submitted: ``per_thread`` for every worker thread of the cluster (at least
     two threads' worth, for a cluster whose workers have not joined yet)."""
-    from tilewright.run.cluster import worker_threads
 
     return max(1, int(per_thread)) * max(2, worker_threads(client))
 
@@ -222,3 +221,13 @@ def _client(cluster):
     from distributed import Client
 
     return Client(cluster)
+
+
+def worker_threads(client) -> int:
+    """Worker threads of the cluster behind ``client`` (0 without one: slides run in this process)."""
+    if client is None:
+        return 0
+    try:
+        return sum(int(n) for n in client.nthreads().values())
+    except Exception:  # noqa: BLE001 - a busy or vanishing scheduler: size as for a small cluster
+        return 2

@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import os
 
-from tilewright.store.settings import RUN_ONLY, _same, _short, target_digest  # noqa: F401 - public here too
+from tilewright.store.settings import RUN_ONLY, _same, _short, current_names, target_digest  # noqa: F401 - public here too
 
 __all__ = ["RUN_ONLY", "run_identity", "RunIdentity", "store_identity", "identity_changes", "target_digest"]
 
@@ -25,7 +25,7 @@ SOURCE_SIZE, SOURCE_DIGEST, LEVEL0_MPP, STAIN_TARGET = (
 def _settings(config: dict) -> dict:
     from tilewright.store.compression import tile_identity
 
-    out = {k: v for k, v in (config or {}).items() if k not in RUN_ONLY}
+    out = {k: v for k, v in current_names(config).items() if k not in RUN_ONLY}
     out["compression"] = tile_identity(config or {})
     return out
 

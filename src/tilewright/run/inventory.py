@@ -10,7 +10,6 @@ batches, so a 10,000-slide cohort costs what its thumbnails cost.
 
 from __future__ import annotations
 
-import math
 import os
 import time
 
@@ -18,24 +17,17 @@ import numpy as np
 
 from tilewright.errors import TilewrightError
 from tilewright.run.config import TilingConfig
+from tilewright.run.inventory_summary import CODECS
 
 __all__ = ["plan_cohort", "survey_slide", "BYTES_PER_RAW", "CODECS"]
 
-#: Codecs whose bytes are estimated (the lossy one at the configuration's quality).
-CODECS = ("lz4", "zstd", "zlib", "none", "webp", "jpeg")
-
 #: Bytes a stored tile takes, as a share of its raw bytes (T x T x 3), by codec: measured on H&E
-#: tiles at 0.5 µm/px (the bench slide and the demo tiles, `make bench`; README, Store layout). JPEG
+#: tiles at 0.5 µm/px (the bench slide and the demo tiles, `make bench`; docs/guide/formats.md, Store layout). JPEG
 #: is for quality 90; other qualities need ``sample_tiles`` (measured on the slide's own tiles).
 BYTES_PER_RAW = {"lz4": 0.86, "zstd": 0.77, "zlib": 0.69, "none": 1.0, "webp": 0.48, "jpeg": 0.145}
 
 #: Slides a dask task surveys (few tasks of a few slides keep the scheduler's cost per slide small).
 BATCH = 16
-
-#: Row columns, in order (the codec byte columns ``bytes_<codec>`` follow).
-COLUMNS = ["slide_id", "source", "status", "error", "backend", "format", "file_bytes", "width", "height",
-           "level0_mpp", "mpp_origin", "objective", "levels", "downsamples", "colour_profile", "source_level",
-           "resampled", "tissue_mm2", "tissue_fraction", "planned_tiles", "warnings", "seconds"]
 
 
 def _format(path: str) -> str:
@@ -170,11 +162,10 @@ def plan_cohort(source, config: TilingConfig | None = None, *, out_dir=None, sit
     """
     from pathlib import Path
 
-    from tilewright.run.cohort import _mpp_for
     from tilewright.run.execute import execute
     from tilewright.run.inventory_summary import CohortPlan
     from tilewright.run.naming import cohort_ids
-    from tilewright.run.sources import slide_list, unique_paths
+    from tilewright.run.sources import mpp_for, slide_list, unique_paths
 
     config = config or TilingConfig()
     if isinstance(source, (str, os.PathLike)):
@@ -185,7 +176,7 @@ def plan_cohort(source, config: TilingConfig | None = None, *, out_dir=None, sit
     paths = [str(Path(p).absolute()) for p in unique_paths(paths)]  # slide_list's paths are unique already
     # ids as a run into out_dir would give them (a slide it holds keeps its id)
     ids = cohort_ids(paths, out_dir, root=root, given=given if given is not None and len(given) == len(paths) else None)
-    items = [(p, sid, _mpp_for(mpp, p, sid)) for p, sid in zip(paths, ids)]
+    items = [(p, sid, mpp_for(mpp, p, sid)) for p, sid in zip(paths, ids)]
     batches = [items[i:i + BATCH] for i in range(0, len(items), BATCH)]
     rows: list = [None] * len(batches)
     t0 = time.perf_counter()
@@ -206,13 +197,3 @@ def _failed(item, exc) -> dict:
     path, sid, _ = item
     return {"slide_id": sid, "source": path, "status": "failed",
             "error": f"{path}: the worker surveying this slide died ({type(exc).__name__}); run again"}
-
-
-def human_bytes(n: float | None) -> str:
-    """``n`` bytes as B, kB, MB, GB, TB (powers of 1000)."""
-    if n is None or (isinstance(n, float) and math.isnan(n)):
-        return "-"
-    for unit in ("B", "kB", "MB", "GB", "TB", "PB"):
-        if abs(n) < 1000 or unit == "PB":
-            return f"{n:.0f} {unit}" if unit == "B" else f"{n:.1f} {unit}"
-        n /= 1000.0

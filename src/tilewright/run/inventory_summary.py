@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 import os
 from pathlib import Path
 
@@ -9,7 +10,16 @@ import pandas as pd
 
 from tilewright.errors import ConfigError
 
-__all__ = ["CohortPlan", "read_sites"]
+__all__ = ["CohortPlan", "read_sites", "CODECS", "COLUMNS", "human_bytes"]
+
+#: Codecs a plan estimates store bytes for (``bytes_<codec>`` columns; the lossy one at the
+#: configuration's quality).
+CODECS = ("lz4", "zstd", "zlib", "none", "webp", "jpeg")
+
+#: Row columns, in order (the codec byte columns ``bytes_<codec>`` follow).
+COLUMNS = ["slide_id", "source", "status", "error", "backend", "format", "file_bytes", "width", "height",
+           "level0_mpp", "mpp_origin", "objective", "levels", "downsamples", "colour_profile", "source_level",
+           "resampled", "tissue_mm2", "tissue_fraction", "planned_tiles", "warnings", "seconds"]
 
 #: Files :meth:`CohortPlan.write` writes (``plan_sites.*`` only with sites).
 PLAN_FILES = ("plan.csv", "plan.parquet", "plan_totals.csv", "plan_totals.parquet", "plan_sites.csv",
@@ -58,7 +68,7 @@ class CohortPlan:
     Attributes
     ----------
     slides : DataFrame
-        One row a slide (see :data:`tilewright.run.inventory.COLUMNS`, then ``bytes_<codec>``
+        One row a slide (see :data:`COLUMNS`, then ``bytes_<codec>``
         and ``site`` when sites were given).
     sites : DataFrame or None
         Per site: slides, failed, planned tiles, tissue mm², level-0 µm/px values, backends,
@@ -72,7 +82,6 @@ class CohortPlan:
     """
 
     def __init__(self, rows: list[dict], config, *, sites=None, site_column: str = "site", seconds: float = 0.0):
-        from tilewright.run.inventory import CODECS, COLUMNS
 
         self.config = config
         self.seconds = float(seconds)
@@ -101,7 +110,6 @@ class CohortPlan:
         return str(self.config.compression)
 
     def _totals(self) -> dict:
-        from tilewright.run.inventory import CODECS
 
         df, ok = self.slides, self.slides[self.slides["status"] == "ok"]
         out = {"slides": int(len(df)), "ok": int(len(ok)), "failed": int((df["status"] != "ok").sum()),
@@ -157,7 +165,6 @@ class CohortPlan:
 
     def summary(self, width: int = 100) -> str:
         """A short text: settings, totals, bytes for each codec, per-site table, failures."""
-        from tilewright.run.inventory import CODECS, human_bytes
 
         t, c = self.totals, self.config
         lines = [f"{t['slides']} slides ({t['ok']} read, {t['failed']} failed) surveyed in {t['seconds']:.1f} s at "
@@ -190,3 +197,13 @@ class CohortPlan:
 
     def __repr__(self) -> str:
         return f"CohortPlan(slides={self.totals['slides']}, planned_tiles={self.totals['planned_tiles']})"
+
+
+def human_bytes(n: float | None) -> str:
+    """``n`` bytes as B, kB, MB, GB, TB (powers of 1000)."""
+    if n is None or (isinstance(n, float) and math.isnan(n)):
+        return "-"
+    for unit in ("B", "kB", "MB", "GB", "TB", "PB"):
+        if abs(n) < 1000 or unit == "PB":
+            return f"{n:.0f} {unit}" if unit == "B" else f"{n:.1f} {unit}"
+        n /= 1000.0

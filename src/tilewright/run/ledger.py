@@ -25,8 +25,9 @@ from pathlib import Path
 
 from tilewright.errors import StoreError
 from tilewright.location.objpath import as_path
+from tilewright.store.manifest_row import kept_row
 
-__all__ = ["Ledger", "INTERRUPTED", "kept_row", "FOLD_EVERY", "FOLD_SHARE"]
+__all__ = ["Ledger", "INTERRUPTED", "FOLD_EVERY", "FOLD_SHARE"]
 
 INTERRUPTED = "interrupted before this slide finished; run again to resume"
 
@@ -155,31 +156,3 @@ def _compact(row: dict) -> dict:
     whole run."""
     return {sys.intern(str(k)): (sys.intern(v) if isinstance(v, str) and len(v) <= 16 else v)
             for k, v in row.items()}
-
-
-def kept_row(final, slide_id: str, path: str, a: dict) -> dict:
-    """The manifest row of the complete store ``final`` kept from an earlier run (``a``: its attributes)."""
-    from tilewright.run.skip_reason import skip_status
-    from tilewright.run.slide import SlideResult
-    from tilewright.run.stain_bind import stain_columns
-    from tilewright.slide.colour import colour_label
-
-    n = int(a.get("n_tiles") or 0)
-    status, reason = ("ok", "") if n else skip_status(a)
-    return SlideResult(slide_id, path, status, reason, n, a.get("mpp_source"),
-                       a.get("objective"), a.get("source_level"), None, str(final),
-                       colour_label(a.get("colour_profile")), "; ".join(a.get("warnings") or ()),
-                       source_sha256=(a.get("source") or {}).get("sha256") or "", mpp_origin=a.get("mpp_origin") or "",
-                       kept=True, tissue_mm2=tissue_mm2(a), **stain_columns(a)).to_row()
-
-
-def tissue_mm2(a: dict) -> float | None:
-    """Tissue area in mm² from a store's attributes (stores made before it was recorded: from the
-    tissue fraction of the slide's area at level 0)."""
-    if a.get("tissue_mm2") is not None:
-        return float(a["tissue_mm2"])
-    try:
-        h, w = a["dimensions"]
-        return round(float(a["tissue_fraction"]) * h * w * float(a["mpp_source"]) ** 2 / 1e6, 4)
-    except (KeyError, TypeError, ValueError):
-        return None

@@ -71,7 +71,7 @@ def _slide_sample(path: Path, config) -> tuple[np.ndarray, list | None]:
     """A sample of tissue tiles of a reference slide and its glass colour (see module doc)."""
     from tilewright.errors import TilewrightError
     from tilewright.run.config import TilingConfig
-    from tilewright.run.target import slide_glass
+    from tilewright.stain.density import slide_glass
     from tilewright.slide.open import open as open_slide
     from tilewright.tissue.mask import tissue_mask
     from tilewright.tissue.plan import plan_tiles
@@ -101,10 +101,10 @@ def make_target(method: str, reference, config=None):
         not plausible H&E (:func:`tilewright.stain.estimate.implausible`).
     """
     from tilewright.errors import StainEstimationError
-    from tilewright.stain.registry import make_normalizer, normalizer_from_dict
+    from tilewright.stain.registry import make_transfer, transfer_from_dict
 
     if isinstance(reference, dict):
-        norm = normalizer_from_dict(reference)
+        norm = transfer_from_dict(reference)
         if norm.to_dict().get("method") != method:
             raise ConfigError(f"the reference was fitted for {reference.get('method')!r}, not {method!r}")
         return norm
@@ -121,7 +121,7 @@ def make_target(method: str, reference, config=None):
     else:
         image = np.asarray(reference)
     try:
-        norm = make_normalizer(method).fit(image, glass=glass)
+        norm = make_transfer(method).fit(image, glass=glass)
     except StainEstimationError as exc:
         raise ConfigError(f"the reference has too little stained tissue for a {method} target "
                           f"({exc.reason if hasattr(exc, 'reason') else exc}); give an H&E image or slide "
@@ -136,10 +136,10 @@ def make_target(method: str, reference, config=None):
 
 def _own_colour(norm, image, glass):
     """Mean tissue CIELAB of a reference normalized to its own target (rendered on the output glass)."""
-    from tilewright.run.target import _colour_pixels
+    from tilewright.stain.tissue_pixels import colour_pixels
     from tilewright.stain.outcome import tissue_colour
 
-    pixels = _colour_pixels(np.asarray(image), glass)
+    pixels = colour_pixels(np.asarray(image), glass)
     if not len(pixels):
         return None
     bound = norm.with_glass(glass)
@@ -156,9 +156,9 @@ def own_target(method: str, sample, glass, path):
     :class:`~tilewright.errors.StainEstimationError` when the sample has too little tissue.
     """
     from tilewright.errors import StainEstimationError
-    from tilewright.stain.registry import make_normalizer
+    from tilewright.stain.registry import make_transfer
 
-    norm = make_normalizer(method)
+    norm = make_transfer(method)
     try:
         norm.fit(sample, glass=glass)
         reason = norm._implausible(norm._target_stats())

@@ -50,7 +50,7 @@ def resume_row(final, attrs: dict, path: str, slide_id: str, cfg, mpp, identity)
         the message says how to proceed.
     """
     from tilewright.run.identity import identity_changes, store_identity
-    from tilewright.run.ledger import kept_row
+    from tilewright.store.manifest_row import kept_row
 
     changed = identity_changes(store_identity(attrs), identity.of(path, mpp, attrs))
     if changed and not int(attrs.get("n_tiles") or 0):
@@ -96,7 +96,7 @@ def scan(out_dir, paths, ids, config, mpps, target, overwrite: bool, *,
         (a store made otherwise, refused). The other slides are to be tiled.
     """
     from tilewright.run.identity import RunIdentity
-    from tilewright.run.ledger import kept_row
+    from tilewright.store.manifest_row import kept_row
     from tilewright.run.slide import SlideResult
 
     finals = [store_path(out_dir, sid) for sid in ids]

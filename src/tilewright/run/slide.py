@@ -16,7 +16,8 @@ from tilewright.location.objpath import as_path
 from tilewright.location.url import is_url
 from tilewright.run.config import TilingConfig
 from tilewright.run.identity import target_digest
-from tilewright.run.stain_bind import bind_normalizer, stain_columns
+from tilewright.run.stain_bind import bind_normalizer
+from tilewright.store.manifest_row import stain_columns
 from tilewright.run.stain_record import stain_record
 from tilewright.run.tile_rows import per_tile_arrays
 from tilewright.store.layout import slide_ids
@@ -32,7 +33,7 @@ class SlideResult:
 
     slide_id: str
     source: str
-    status: str  # "ok" | "failed" | "skipped" | "all-ink" (no tile: ink took the tissue; run/skip_reason.py)
+    status: str  # "ok" | "failed" | "skipped" | "all-ink" (no tile: ink took the tissue; store/manifest_row.py)
     error: str = ""
     n_tiles: int = 0
     mpp_source: float | None = None
@@ -298,7 +299,7 @@ def _aside(writer, maps, draw, mask, plan, path, slide_id, full_digest=False):
 
 
 def _glass(thumbnail, mask):
-    from tilewright.run.target import slide_glass
+    from tilewright.stain.density import slide_glass
 
     return slide_glass(thumbnail, mask)
 
@@ -317,7 +318,7 @@ def _regions_for(regions, config, slide_id, slide, path):
 
         regions = load_regions(config.regions, slide_id, slide.mpp, slide_shape=tuple(slide.dimensions),
                                class_property=config.class_property, default_class=config.default_class,
-                               object_types=config.object_types, warn=False)
+                               feature_kinds=config.feature_kinds, warn=False)
         if regions is None and os.path.isdir(config.regions):
             raise RegionError(f"no region file for slide {slide_id!r} in {config.regions}; add "
                               f"{slide_id}.geojson there or run without --keep", path)

@@ -8,16 +8,11 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from tilewright.errors import ConfigError
-from tilewright.store.layout import SLIDE_SUFFIXES
+from tilewright.store.layout import is_slide_name  # noqa: F401 - public here too
 
-__all__ = ["find_slides", "slide_list", "SlideList", "read_mpp_table", "is_slide_name", "unique_paths"]
+__all__ = ["find_slides", "slide_list", "SlideList", "read_mpp_table", "mpp_for", "is_slide_name", "unique_paths"]
 
 _LIST_SUFFIXES = (".txt", ".csv", ".lst", ".list", ".tsv")
-
-
-def is_slide_name(path: str | os.PathLike) -> bool:
-    """True when the file name ends with a suffix one of the backends reads."""
-    return Path(path).name.lower().endswith(SLIDE_SUFFIXES)
 
 
 def unique_paths(paths) -> list[Path]:
@@ -216,3 +211,18 @@ def read_mpp_table(path: str | os.PathLike) -> dict[str, float]:
             raise ConfigError(f"mpp for {k!r} is implausible ({v}); expected 0.05-20 µm/px", path)
         out[str(k)] = v
     return out
+
+
+def mpp_for(mpp, path, slide_id):
+    """The level-0 µm/px override of one slide: ``mpp`` itself when it is a number (or None), else
+    its entry for the slide's id, path or file name in a per-slide table (``--mpp-table``,
+    :func:`read_mpp_table`; a path key may be relative to the working folder); None without one."""
+    if mpp is None or isinstance(mpp, (int, float)):
+        return mpp
+    for key in (slide_id, path, os.path.basename(path)):
+        if key in mpp:
+            return float(mpp[key])
+    for key, value in mpp.items():  # a path given relative to the working folder
+        if os.path.abspath(str(key)) == path:
+            return float(value)
+    return None

@@ -14,6 +14,7 @@ warning. The measures go to the store (``stain_outcome``) and the manifest (``st
 from __future__ import annotations
 
 from tilewright.stain.checked import checked_binding
+from tilewright.store.manifest_row import stain_columns  # noqa: F401 - public here too (its home: the store layer)
 
 __all__ = ["bind_normalizer", "stain_columns", "CHECKS"]
 
@@ -51,10 +52,3 @@ def bind_normalizer(view, plan, config, target, path, glass=None):
     bound, replaced = target.fit_source_checked(sample, glass=glass)
     bound, outcome, more = checked_binding(target, bound, replaced, sample, glass)
     return bound, used, notes + more, outcome
-
-
-def stain_columns(attrs: dict) -> dict:
-    """The manifest's stain columns from a store's attributes (empty when it was not checked)."""
-    outcome = attrs.get("stain_outcome") or {}
-    return {"stain_check": outcome.get("check", ""), "stain_delta_e_raw": outcome.get("delta_e_raw"),
-            "stain_delta_e": outcome.get("delta_e")}

@@ -4,7 +4,7 @@ With ``TilingConfig.estimate_stains`` a run stores the tiles as read (harmonized
 not normalized) and, per slide: the Macenko and Reinhard estimates of the same tissue-tile sample a
 normalizing run would take (``stain_sample`` tiles spread over the plan, optical density against
 the slide's own glass colour), and 65,536 of that sample's pixels. A reader then binds any target
-to the slide exactly as a normalizing run binds it (:meth:`StainNormalizer.fit_source_checked`,
+to the slide exactly as a normalizing run binds it (:meth:`StainTransfer.fit_source_checked`,
 with the same fallbacks for an implausible estimate), from the stored pixels.
 """
 
@@ -32,7 +32,7 @@ def stain_record(view, plan, config, glass) -> tuple[np.ndarray, dict, list | No
     """
     from tilewright.errors import StainEstimationError
     from tilewright.run.reference import sample_positions, sample_tiles
-    from tilewright.stain.registry import METHODS, make_normalizer
+    from tilewright.stain.registry import METHODS, make_transfer
 
     sample = sample_tiles(view, plan.yx, config.tile, config.stain_sample, config.seed, threads=config.threads)
     flat = sample.reshape(-1, 3)
@@ -45,7 +45,7 @@ def stain_record(view, plan, config, glass) -> tuple[np.ndarray, dict, list | No
             estimates[method] = {"method": method, "error": "no tile planned"}
             continue
         try:
-            fitted = make_normalizer(method).fit(sample, glass=glass)
+            fitted = make_transfer(method).fit(sample, glass=glass)
             why = fitted._implausible(fitted._target_stats())
             estimates[method] = fitted.to_dict() if not why else {"method": method, "error": why}
         except StainEstimationError as exc:

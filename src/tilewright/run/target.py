@@ -24,41 +24,13 @@ import numpy as np
 
 from tilewright.errors import ConfigError, TilewrightError
 from tilewright.run.config import TilingConfig
+from tilewright.stain.density import slide_glass  # noqa: F401 - public here too (its home: the stain layer)
+from tilewright.stain.tissue_pixels import colour_pixels
 
 __all__ = ["cohort_target", "slide_estimate", "slide_glass", "target_colour", "balanced_pick", "MAX_SLIDES"]
 
 #: Slides estimated (spread over the groups) to build the cohort target.
 MAX_SLIDES = 24
-#: Tissue pixels of each estimated slide kept to measure the target's colour.
-COLOUR_PIXELS = 20_000
-
-
-def slide_glass(thumbnail, mask) -> list[float] | None:
-    """RGB of the slide's blank glass (the incident light of the Beer–Lambert law), or None
-    for white: the median colour of the thumbnail's background away from tissue
-    (:func:`tilewright.stain.density.estimate_glass`; common practice)."""
-    from tilewright.stain.density import estimate_glass
-
-    params = getattr(mask, "params", None) or {}
-    if params.get("glass_found") is False:  # no glass on the slide: the mask's fallback colour
-        glass = [float(v) for v in params.get("glass", (255.0, 255.0, 255.0))]
-        return None if min(glass) >= 255.0 else glass
-    background = ~np.asarray(mask.array, bool)
-    for extra in ("ink", "dark"):
-        if getattr(mask, extra, None) is not None:
-            background &= ~np.asarray(getattr(mask, extra), bool)
-    glass = estimate_glass(thumbnail, background)
-    return None if glass is None else [float(v) for v in glass]
-
-
-def _colour_pixels(sample: np.ndarray, glass) -> np.ndarray:
-    """An evenly strided subset of the sample's tissue pixels, (K, 1, 3) uint8."""
-    from tilewright.stain.tissue_pixels import tissue_mask
-
-    pixels = sample[tissue_mask(sample, glass=glass)]
-    if pixels.shape[0] > COLOUR_PIXELS:
-        pixels = pixels[np.linspace(0, pixels.shape[0] - 1, COLOUR_PIXELS).astype(np.int64)]
-    return np.ascontiguousarray(pixels.reshape(-1, 1, 3))
 
 
 def slide_estimate(path: str, config: dict, mpp: float | None) -> dict | None:
@@ -68,7 +40,7 @@ def slide_estimate(path: str, config: dict, mpp: float | None) -> dict | None:
     implausible: :func:`tilewright.stain.estimate.implausible`)."""
     from tilewright.run.reference import sample_tiles
     from tilewright.slide.open import open as open_slide
-    from tilewright.stain.registry import make_normalizer
+    from tilewright.stain.registry import make_transfer
     from tilewright.tissue.mask import tissue_mask
     from tilewright.tissue.plan import plan_tiles
 
@@ -84,10 +56,10 @@ def slide_estimate(path: str, config: dict, mpp: float | None) -> dict | None:
             glass = slide_glass(thumbnail, mask)
         if len(sample) == 0:
             return None
-        fitted = make_normalizer(cfg.normalizer).fit(sample, glass=glass)
+        fitted = make_transfer(cfg.normalizer).fit(sample, glass=glass)
         if fitted._implausible(fitted._target_stats()):
             return None  # a failed estimate does not pull the cohort's median
-        return {"fitted": fitted.to_dict(), "pixels": _colour_pixels(sample, glass), "glass": glass}
+        return {"fitted": fitted.to_dict(), "pixels": colour_pixels(sample, glass), "glass": glass}
     except TilewrightError:
         return None  # the slide's own run will report why
 
@@ -171,7 +143,7 @@ def cohort_target(paths, config: TilingConfig, mpps, compute, ids=None) -> dict 
 
     ``compute(fn, args_list)`` runs the estimates (in this process or on the cluster).
     """
-    from tilewright.stain.registry import normalizer_from_dict
+    from tilewright.stain.registry import transfer_from_dict
     from tilewright.store.layout import slide_ids
 
     paths = [str(p) for p in paths]
@@ -183,7 +155,7 @@ def cohort_target(paths, config: TilingConfig, mpps, compute, ids=None) -> dict 
     used = [(i, est) for i, est in zip(order, results) if est is not None]
     if not used:
         return None
-    fitted = [normalizer_from_dict(est["fitted"]) for _, est in used]
+    fitted = [transfer_from_dict(est["fitted"]) for _, est in used]
     target = type(fitted[0]).from_median(fitted)
     target.target_colour = target_colour(target, [est for _, est in used])
     d = target.to_dict()

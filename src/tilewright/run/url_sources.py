@@ -35,7 +35,7 @@ def find_url_slides(source: str) -> list[str]:
     ObjectStoreError
         The bucket cannot be read (credentials, access, missing bucket, connection), one line.
     """
-    from tilewright.run.sources import is_slide_name
+    from tilewright.store.layout import is_slide_name
 
     source = str(source)
     scheme = split_url(source)[0]
@@ -63,7 +63,7 @@ def find_url_slides(source: str) -> list[str]:
 
 def _search(prefix: str) -> list[str]:
     """Slides under ``prefix``: slide-suffixed objects and one entry a DICOM series."""
-    from tilewright.run.sources import is_slide_name
+    from tilewright.store.layout import is_slide_name
     from tilewright.slide.dicom_series import series_in_folder
 
     listed = objects.list_prefix(prefix)
@@ -92,7 +92,7 @@ def _read_list(url: str) -> list[str]:
     import csv
 
     from tilewright.location.url import is_url
-    from tilewright.run.sources import is_slide_name
+    from tilewright.store.layout import is_slide_name
 
     try:
         text = objects.get_bytes(url).decode("utf-8-sig")

@@ -120,7 +120,7 @@ def open(path: str | os.PathLike, *, mpp: float | None = None,
         reader.close()
         raise
     return WholeSlide(path, reader, resolution, mpp_override=mpp, requested_backend=backend, verify=verify,
-                      colour=colour, colour_mode=colour_profile)
+                      colour=colour, colour_mode=colour_profile, reopen=_reopen)
 
 
 def _url_kind(url: str) -> str:

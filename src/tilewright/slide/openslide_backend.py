@@ -42,7 +42,7 @@ import numpy as np
 
 from tilewright.errors import DamagedSlideError, UnsupportedSlideError
 from tilewright.slide.colour import openslide_profile
-from tilewright.slide.resolution import Resolution, mpp_from_openslide
+from tilewright.slide.resolution import Resolution, level_downsample, mpp_from_openslide
 
 __all__ = ["OpenSlideBackend", "WHOLE_LEVEL_PIXELS"]
 
@@ -105,8 +105,6 @@ class OpenSlideBackend:
     def _integer_step(self, level: int) -> int | None:
         """``k`` when OpenSlide's downsample of ``level`` is the whole number ``k`` and the
         level's size is level 0's over ``k``; else None."""
-        from tilewright.slide.wholeslide import level_downsample
-
         ds = self._downsamples[level]
         h0, w0 = self.level_shapes[0]
         h, w = self.level_shapes[level]

@@ -31,6 +31,7 @@ from tilewright.errors import ImplausibleResolutionError, MissingResolutionError
 
 __all__ = [
     "Resolution",
+    "level_downsample",
     "resolution_from_xy",
     "MPP_RANGE",
     "mpp_from_tiff_tags",
@@ -309,3 +310,20 @@ def checked_mpp(found: Resolution, override: float | None, path) -> Resolution:
     if objective is not None and not (math.isfinite(objective) and objective > 0):
         objective = None
     return Resolution(float(found.mpp), objective, found.source)
+
+
+def level_downsample(h0: int, w0: int, h: int, w: int) -> float:
+    """Level-0 pixels per level pixel, one number for both axes.
+
+    When the level's size is the floor or ceiling of level 0's size over an integer ``k`` in
+    both axes (how scanners build pyramids: only the last row and column are partial), the
+    downsample is ``k`` exactly. Otherwise it is the mean of the two axes' ratios: for a level
+    whose size was rounded from a non-whole downsample, the position error this leaves is about
+    one level pixel at most, at the far edge of a slide up to 3:1; a view never reads past the
+    level's own last row or column (see :class:`~tilewright.slide.view.ResampledView`).
+    """
+    ratio = (w0 / w + h0 / h) / 2.0
+    k = round(ratio)
+    if k >= 1 and w in (w0 // k, -(-w0 // k)) and h in (h0 // k, -(-h0 // k)):
+        return float(k)
+    return ratio

@@ -10,7 +10,7 @@ import numpy as np
 
 from tilewright.errors import ResolutionUnavailableError, SlideError  # noqa: F401 (re-exported)
 from tilewright.slide.colour import ColourInfo
-from tilewright.slide.resolution import Resolution
+from tilewright.slide.resolution import Resolution, level_downsample  # noqa: F401 - also public here
 
 __all__ = ["WholeSlide", "Level", "ResolutionUnavailableError", "level_downsample",
            "VIEW_TOLERANCE", "THUMBNAIL_TOLERANCE"]
@@ -31,23 +31,6 @@ class Level(NamedTuple):
     width: int
     downsample: float
     mpp: float
-
-
-def level_downsample(h0: int, w0: int, h: int, w: int) -> float:
-    """Level-0 pixels per level pixel, one number for both axes.
-
-    When the level's size is the floor or ceiling of level 0's size over an integer ``k`` in
-    both axes (how scanners build pyramids: only the last row and column are partial), the
-    downsample is ``k`` exactly. Otherwise it is the mean of the two axes' ratios: for a level
-    whose size was rounded from a non-whole downsample, the position error this leaves is about
-    one level pixel at most, at the far edge of a slide up to 3:1; a view never reads past the
-    level's own last row or column (see :class:`~tilewright.slide.view.ResampledView`).
-    """
-    ratio = (w0 / w + h0 / h) / 2.0
-    k = round(ratio)
-    if k >= 1 and w in (w0 // k, -(-w0 // k)) and h in (h0 // k, -(-h0 // k)):
-        return float(k)
-    return ratio
 
 
 class WholeSlide:
@@ -88,7 +71,7 @@ class WholeSlide:
 
     def __init__(self, path: str, reader, resolution: Resolution, *,
                  mpp_override: float | None = None, requested_backend: str = "auto", verify: bool = True,
-                 colour=None, colour_mode: str = "apply"):
+                 colour=None, colour_mode: str = "apply", reopen=None):
         self.path = path
         self._reader = reader
         self.backend = reader.name
@@ -96,6 +79,7 @@ class WholeSlide:
         self.objective = resolution.objective
         self.mpp_origin = resolution.source
         self._open_args = (mpp_override, requested_backend, verify, colour_mode)
+        self._reopen = reopen
         self.colour, self.colour_transform = colour if colour is not None else (ColourInfo(), None)
         self.colour_profile = self.colour.description if self.colour.embedded else None
         h0, w0 = reader.level_shapes[0]
@@ -126,9 +110,11 @@ class WholeSlide:
         self.close()
 
     def __reduce__(self):
-        from tilewright.slide.open import _reopen
-
-        return _reopen, (self.path, *self._open_args)
+        # ``reopen`` is tilewright.slide.open's module-level function, passed in by it (pickled by
+        # name), so this module needs no import of the module that builds it
+        if self._reopen is None:
+            raise TypeError("this WholeSlide was not made by tilewright.open and cannot be pickled")
+        return self._reopen, (self.path, *self._open_args)
 
     def __repr__(self) -> str:
         h, w = self.dimensions

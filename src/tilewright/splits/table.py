@@ -31,7 +31,7 @@ def read_table(metadata) -> tuple[pd.DataFrame, Path | None]:
     ConfigError
         When the file is missing or unreadable.
     """
-    from tilewright.audit.factors import read_table_file
+    from tilewright.store.tables import read_table_file
 
     path = None
     if isinstance(metadata, (str, os.PathLike)):

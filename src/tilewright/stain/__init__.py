@@ -7,9 +7,11 @@ Modules (nothing is imported here, so ``import tilewright.stain`` does no work):
 - ``estimate``: Macenko stain vectors and 99th-percentile concentrations (``estimate_stains``).
 - ``od_transform``: fast float32 affine maps in optical-density space.
 - ``lab``: CIE L*a*b* (D65) conversions with OpenCV float32 kernels.
-- ``normalizer``: fitting, source binding, per-tile mode and dictionaries shared by both methods.
-- ``macenko``: ``MacenkoNormalizer`` (and ``estimate_stains``).
-- ``reinhard``: ``ReinhardNormalizer``.
+- ``transfer``: ``StainTransfer``, the base of both methods: fitting, source binding, per-tile mode
+  and dictionaries.
+- ``macenko``: ``MacenkoTransfer`` (and ``estimate_stains``).
+- ``reinhard``: ``ReinhardTransfer``.
 - ``augment``: ``StainJitter`` (random H and E concentration scale and shift).
-- ``registry``: ``make_normalizer(name)`` and ``normalizer_from_dict(d)``.
+- ``registry``: ``make_transfer(name)`` and ``transfer_from_dict(d)``.
+- ``normalizer``: old home of the base class (its old name warns; removed in the next release).
 """

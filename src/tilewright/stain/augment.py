@@ -17,11 +17,13 @@ import numpy as np
 
 from .density import check_rgb
 from .od_transform import apply_od_affine
+from ..tissue.plane import RUIFROK_DAB, RUIFROK_E, RUIFROK_H
 
 __all__ = ["StainJitter", "RUIFROK_JOHNSTON_HED"]
 
-#: Hematoxylin, eosin and DAB optical-density vectors of Ruifrok & Johnston (2001), rows R,G,B.
-RUIFROK_JOHNSTON_HED = np.array([[0.65, 0.70, 0.29], [0.07, 0.99, 0.11], [0.27, 0.57, 0.78]])
+#: Hematoxylin, eosin and DAB optical-density vectors of Ruifrok & Johnston (2001), one a row (R, G,
+#: B), unit length (:mod:`tilewright.tissue.plane` holds the published values).
+RUIFROK_JOHNSTON_HED = np.stack([RUIFROK_H, RUIFROK_E, RUIFROK_DAB])
 
 
 class StainJitter:
@@ -70,7 +72,7 @@ class StainJitter:
         self.sigma_beta = sigma_beta
         self.seed = seed
         self._rng = np.random.default_rng(seed)
-        stains = RUIFROK_JOHNSTON_HED / np.linalg.norm(RUIFROK_JOHNSTON_HED, axis=1, keepdims=True)
+        stains = RUIFROK_JOHNSTON_HED.copy()
         self.stain_matrix = stains
         self._unmix = np.linalg.inv(stains)
 

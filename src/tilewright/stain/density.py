@@ -43,6 +43,7 @@ __all__ = [
     "glass_key",
     "glass_od",
     "estimate_glass",
+    "slide_glass",
     "rgb_to_od",
     "od_to_rgb",
     "check_rgb",
@@ -324,3 +325,28 @@ def od_to_rgb(od, *, glass=None) -> np.ndarray:
     intensity = np.exp(np.nan_to_num(od, nan=0.0) * np.float32(-LN10)) * i0
     np.clip(intensity, 0, WHITE, out=intensity)
     return np.rint(intensity).astype(np.uint8)
+
+
+def slide_glass(thumbnail, mask) -> list[float] | None:
+    """RGB of a slide's blank glass (the incident light of the Beer–Lambert law), or None for
+    white: the median colour of the thumbnail's background away from tissue, marker ink and dark
+    debris (:func:`estimate_glass`; common practice).
+
+    Parameters
+    ----------
+    thumbnail : ndarray (H, W, 3) uint8
+        The slide's thumbnail, at the mask's µm/px.
+    mask : TissueMask
+        Its tissue mask (:func:`tilewright.tissue.mask.tissue_mask`); when the mask saw no glass,
+        its fallback colour is the answer.
+    """
+    params = getattr(mask, "params", None) or {}
+    if params.get("glass_found") is False:  # no glass on the slide: the mask's fallback colour
+        glass = [float(v) for v in params.get("glass", (255.0, 255.0, 255.0))]
+        return None if min(glass) >= 255.0 else glass
+    background = ~np.asarray(mask.array, bool)
+    for extra in ("ink", "dark"):
+        if getattr(mask, extra, None) is not None:
+            background &= ~np.asarray(getattr(mask, extra), bool)
+    glass = estimate_glass(thumbnail, background)
+    return None if glass is None else [float(v) for v in glass]

@@ -16,7 +16,7 @@ from .estimate import (PLAUSIBLE_MAX_RANGE, StainProfile, estimate_stain_profile
                        sample_maxima, MIN_TISSUE_PIXELS)
 from .estimate_od import estimate_od
 from .density import glass_od
-from .normalizer import StainNormalizer, as_float_list, glass_list
+from .transfer import StainTransfer, as_float_list, glass_list
 from .od_transform import apply_od_affine
 from .tissue_pixels import DEFAULT_BETA, MAX_STAT_PIXELS
 
@@ -29,14 +29,14 @@ from .tissue_pixels import DEFAULT_BETA, MAX_STAT_PIXELS
 #: per-slide outcome check (tilewright.run.outcome) rather than by this cap.
 MAX_GAIN = 3.0
 
-__all__ = ["MacenkoNormalizer", "estimate_stains", "estimate_stain_profile", "StainProfile"]
+__all__ = ["MacenkoTransfer", "estimate_stains", "estimate_stain_profile", "StainProfile"]
 
 
 def _unit_rows(matrix: np.ndarray) -> np.ndarray:
     return matrix / np.linalg.norm(matrix, axis=1, keepdims=True)
 
 
-class MacenkoNormalizer(StainNormalizer):
+class MacenkoTransfer(StainTransfer):
     """Map an image's stain vectors and concentration range onto a target's (Macenko 2009).
 
     Each pixel's optical density is unmixed with the source stain matrix into hematoxylin and
@@ -96,7 +96,7 @@ class MacenkoNormalizer(StainNormalizer):
     --------
     >>> from skimage import data
     >>> img = data.immunohistochemistry()
-    >>> norm = MacenkoNormalizer().fit(img)
+    >>> norm = MacenkoTransfer().fit(img)
     >>> norm.transform(img).shape
     (512, 512, 3)
     """
@@ -210,12 +210,12 @@ class MacenkoNormalizer(StainNormalizer):
         return StainProfile(_unit_rows(matrix).astype(np.float32), maxima, 0)
 
     @classmethod
-    def from_median(cls, fitted, **params) -> MacenkoNormalizer:
+    def from_median(cls, fitted, **params) -> MacenkoTransfer:
         """Target = elementwise median of several fitted normalizers (a cohort's own centre).
 
         Parameters
         ----------
-        fitted : sequence of MacenkoNormalizer, StainProfile or dict
+        fitted : sequence of MacenkoTransfer, StainProfile or dict
             Fitted normalizers (for example one fitted on a sample of each slide), their
             profiles, or their ``to_dict()`` output.
         **params
@@ -224,7 +224,7 @@ class MacenkoNormalizer(StainNormalizer):
 
         Returns
         -------
-        MacenkoNormalizer
+        MacenkoTransfer
             Unbound, with white input glass; stain rows are renormalized to unit length after
             the median. Each fit's stains are relative to its own reference glass, so a median
             over slides with different glass colours is not biased by them.
@@ -236,7 +236,7 @@ class MacenkoNormalizer(StainNormalizer):
         """
         profiles, first = [], None
         for item in fitted:
-            if isinstance(item, MacenkoNormalizer):
+            if isinstance(item, MacenkoTransfer):
                 item._require_fitted()
                 first = first or item
                 profiles.append(StainProfile(item.stain_matrix, item.max_concentrations, 0))
@@ -253,3 +253,9 @@ class MacenkoNormalizer(StainNormalizer):
         obj = cls(**params)
         obj._set_target(StainProfile(_unit_rows(matrix), maxima, 0))
         return obj
+
+
+def __getattr__(name: str):  # old spellings, one release (tilewright.renamed)
+    from tilewright.renamed import old_name
+
+    return old_name(__name__, name)

@@ -1,10 +1,10 @@
-"""Build stain normalizers by name or from their recorded dictionaries."""
+"""Build stain transfers (the stain-normalization classes) by name or from their recorded dictionaries."""
 
 from __future__ import annotations
 
 from ..errors import ConfigError
 
-__all__ = ["METHODS", "make_normalizer", "normalizer_from_dict"]
+__all__ = ["METHODS", "make_transfer", "transfer_from_dict"]
 
 #: Normalization methods by name.
 METHODS = ("macenko", "reinhard")
@@ -12,31 +12,31 @@ METHODS = ("macenko", "reinhard")
 
 def _class_for(name):
     if name == "macenko":
-        from .macenko import MacenkoNormalizer
+        from .macenko import MacenkoTransfer
 
-        return MacenkoNormalizer
+        return MacenkoTransfer
     if name == "reinhard":
-        from .reinhard import ReinhardNormalizer
+        from .reinhard import ReinhardTransfer
 
-        return ReinhardNormalizer
+        return ReinhardTransfer
     raise ConfigError(
         f"unknown stain normalization method {name!r}; choose one of {', '.join(METHODS)}"
     )
 
 
-def make_normalizer(name: str, **params):
-    """A new, unfitted normalizer of the named method.
+def make_transfer(name: str, **params):
+    """A new, unfitted stain transfer of the named method.
 
     Parameters
     ----------
     name : {"macenko", "reinhard"}
         Method name (case-insensitive).
     **params
-        Keyword arguments of the normalizer class.
+        Keyword arguments of the method's class.
 
     Returns
     -------
-    MacenkoNormalizer or ReinhardNormalizer
+    MacenkoTransfer or ReinhardTransfer
 
     Raises
     ------
@@ -52,8 +52,8 @@ def make_normalizer(name: str, **params):
         raise ConfigError(f"invalid {name} parameters: {exc}") from None
 
 
-def normalizer_from_dict(d: dict):
-    """Rebuild a fitted normalizer from the dictionary its ``to_dict()`` wrote.
+def transfer_from_dict(d: dict):
+    """Rebuild a fitted stain transfer from the dictionary its ``to_dict()`` wrote.
 
     Parameters
     ----------
@@ -62,7 +62,7 @@ def normalizer_from_dict(d: dict):
 
     Returns
     -------
-    MacenkoNormalizer or ReinhardNormalizer
+    MacenkoTransfer or ReinhardTransfer
 
     Raises
     ------
@@ -72,3 +72,9 @@ def normalizer_from_dict(d: dict):
     if not isinstance(d, dict) or "method" not in d:
         raise ConfigError("a normalizer dictionary needs a 'method' key ('macenko' or 'reinhard')")
     return _class_for(d["method"]).from_dict(d)
+
+
+def __getattr__(name: str):  # old spellings, one release (tilewright.renamed)
+    from tilewright.renamed import old_name
+
+    return old_name(__name__, name)

@@ -21,11 +21,11 @@ import numpy as np
 from ..errors import ConfigError, StainEstimationError
 from .density import WHITE, check_glass, check_rgb, glass_key, glass_od_lut, od_lut
 from .lab import _unit_lut
-from .normalizer import StainNormalizer, as_float_list, glass_list
+from .transfer import StainTransfer, as_float_list, glass_list
 from .od_transform import BLOCK_PIXELS
 from .tissue_pixels import DEFAULT_BETA, MAX_STAT_PIXELS, tissue_od
 
-__all__ = ["ReinhardNormalizer", "LabStats", "lab_statistics"]
+__all__ = ["ReinhardTransfer", "LabStats", "lab_statistics"]
 
 #: Fewer pixels than this and colour statistics are not trusted.
 MIN_PIXELS = 500
@@ -125,7 +125,7 @@ def lab_statistics(rgb, *, tissue_only: bool = True, beta: float = DEFAULT_BETA,
     return LabStats(mean, std)
 
 
-class ReinhardNormalizer(StainNormalizer):
+class ReinhardTransfer(StainTransfer):
     """Match each CIE L*a*b* channel's mean and standard deviation to a target (Reinhard 2001).
 
     The Lab space is CIE L*a*b* of sRGB under D65, as ``skimage.color.rgb2lab`` (computed with
@@ -167,7 +167,7 @@ class ReinhardNormalizer(StainNormalizer):
     --------
     >>> from skimage import data
     >>> img = data.immunohistochemistry()
-    >>> ReinhardNormalizer().fit(img).transform(img).dtype
+    >>> ReinhardTransfer().fit(img).transform(img).dtype
     dtype('uint8')
     """
 
@@ -259,12 +259,12 @@ class ReinhardNormalizer(StainNormalizer):
         return LabStats(mean, std)
 
     @classmethod
-    def from_median(cls, fitted, **params) -> ReinhardNormalizer:
+    def from_median(cls, fitted, **params) -> ReinhardTransfer:
         """Target = per-channel median of several fitted normalizers' means and deviations.
 
         Parameters
         ----------
-        fitted : sequence of ReinhardNormalizer, LabStats or dict
+        fitted : sequence of ReinhardTransfer, LabStats or dict
             Fitted normalizers, their statistics, or their ``to_dict()`` output.
         **params
             ``tissue_only``, ``per_tile``, ``beta``, ``output_glass`` of the result (defaults: those of the first
@@ -272,7 +272,7 @@ class ReinhardNormalizer(StainNormalizer):
 
         Returns
         -------
-        ReinhardNormalizer
+        ReinhardTransfer
 
         Raises
         ------
@@ -281,7 +281,7 @@ class ReinhardNormalizer(StainNormalizer):
         """
         stats, first = [], None
         for item in fitted:
-            if isinstance(item, ReinhardNormalizer):
+            if isinstance(item, ReinhardTransfer):
                 item._require_fitted()
                 first = first or item
                 stats.append(LabStats(item.target_mean, item.target_std))
@@ -297,3 +297,9 @@ class ReinhardNormalizer(StainNormalizer):
         obj._set_target(LabStats(np.median([s.mean for s in stats], 0),
                                  np.median([s.std for s in stats], 0)))
         return obj
+
+
+def __getattr__(name: str):  # old spellings, one release (tilewright.renamed)
+    from tilewright.renamed import old_name
+
+    return old_name(__name__, name)

@@ -35,7 +35,7 @@ import numpy as np
 
 from .density import check_glass, check_rgb, glass_od_lut, od_lut
 
-__all__ = ["DEFAULT_BETA", "MAX_STAT_PIXELS", "tissue_od", "tissue_mask"]
+__all__ = ["DEFAULT_BETA", "MAX_STAT_PIXELS", "COLOUR_PIXELS", "tissue_od", "tissue_mask", "colour_pixels"]
 
 #: OD threshold of Macenko et al. (2009), applied to the OD vector's norm (our reading).
 DEFAULT_BETA = 0.15
@@ -114,3 +114,15 @@ def tissue_od(rgb, *, beta: float = DEFAULT_BETA, max_pixels: int = MAX_STAT_PIX
     if check_glass(glass) is None:
         return od_lut()[pixels], pixels
     return glass_od_lut(glass)[pixels, np.arange(3)], pixels
+
+
+#: Tissue pixels of a stain sample kept to measure its colour (a slide's, a target's).
+COLOUR_PIXELS = 20_000
+
+
+def colour_pixels(sample: np.ndarray, glass=None, n: int = COLOUR_PIXELS) -> np.ndarray:
+    """An evenly strided subset of at most ``n`` of the sample's tissue pixels, (K, 1, 3) uint8."""
+    pixels = np.asarray(sample)[tissue_mask(sample, glass=glass)]
+    if pixels.shape[0] > n:
+        pixels = pixels[np.linspace(0, pixels.shape[0] - 1, n).astype(np.int64)]
+    return np.ascontiguousarray(pixels.reshape(-1, 1, 3))

@@ -97,7 +97,7 @@ def stores_manifest(out_dir: str | os.PathLike):
     """
     import pandas as pd
 
-    from tilewright.run.ledger import kept_row
+    from tilewright.store.manifest_row import kept_row
     from tilewright.store.metadata import stores_attrs
 
     out_dir = as_path(out_dir)

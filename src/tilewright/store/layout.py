@@ -27,6 +27,7 @@ __all__ = [
     "FORMAT_VERSION",
     "REQUIRED_ATTRS",
     "SLIDE_SUFFIXES",
+    "is_slide_name",
     "slide_stem",
     "slide_ids",
     "store_path",
@@ -48,6 +49,13 @@ SLIDE_SUFFIXES = (
     ".ome.tiff", ".ome.tif", ".tiff", ".tif", ".svs", ".ndpi", ".scn", ".mrxs", ".vms", ".vmu",
     ".bif", ".svslide", ".qptiff", ".dcm",
 )
+
+
+def is_slide_name(path) -> bool:
+    """True when the file name (or a URL's last part) ends with a suffix one of the backends reads."""
+    import os
+
+    return os.path.basename(str(path).rstrip("/")).lower().endswith(SLIDE_SUFFIXES)
 
 _COMPOUND = (".ome.tiff", ".ome.tif", ".ome.zarr")
 

@@ -43,7 +43,7 @@ class ReadNormalization:
 def resolve_target(target, method: str) -> dict:
     """A target as a fitted normalizer dictionary: from a normalizer, its dict, or a JSON file of
     one (``OUT/stain_target.macenko.json``, a ``--reference`` fitted and saved)."""
-    from tilewright.stain.registry import normalizer_from_dict
+    from tilewright.stain.registry import transfer_from_dict
 
     if isinstance(target, (str, os.PathLike)):
         path = Path(target)
@@ -57,7 +57,7 @@ def resolve_target(target, method: str) -> dict:
         raise ConfigError(f"target= must be a fitted normalizer, its dict or a JSON file of one, got {target!r}")
     if target.get("method") != method:
         raise ConfigError(f"the target is for {target.get('method')!r}, not {method!r}")
-    d = normalizer_from_dict(target).to_dict()
+    d = transfer_from_dict(target).to_dict()
     d["source"], d["glass"] = None, None  # a target: no slide's source bound to it
     return d
 
@@ -71,13 +71,13 @@ def median_target(stores, method: str) -> dict:
     StoreError
         No store holds a usable estimate (none was tiled with ``estimate_stains``).
     """
-    from tilewright.stain.registry import normalizer_from_dict
+    from tilewright.stain.registry import transfer_from_dict
 
     fitted = []
     for store in stores:
         est = (store.attrs.get("stain_estimates") or {}).get(method) or {}
         if "error" not in est and est.get("method") == method:
-            fitted.append(normalizer_from_dict(est))
+            fitted.append(transfer_from_dict(est))
     if not fitted:
         raise StoreError(f"no store holds a usable {method} stain estimate; tile with --estimate-stains "
                          "(TilingConfig(estimate_stains=True)), or give target=")
@@ -107,7 +107,7 @@ def bind_to_store(store, method: str, target) -> ReadNormalization:
     if not store._has("stain_sample"):
         raise StoreError("the store holds no stain estimate; tile with --estimate-stains (TilingConfig("
                          "estimate_stains=True)) to normalize when reading", store.path)
-    from tilewright.stain.registry import normalizer_from_dict
+    from tilewright.stain.registry import transfer_from_dict
 
     from tilewright.errors import StainEstimationError
     from tilewright.stain.checked import checked_binding
@@ -115,14 +115,14 @@ def bind_to_store(store, method: str, target) -> ReadNormalization:
     target = resolve_target(target, method)
     pixels = _sample(store)
     glass = attrs.get("stain_glass")
-    fitted = normalizer_from_dict(target)
-    bound = fitted.with_glass(glass) if glass is not None else normalizer_from_dict(target)
+    fitted = transfer_from_dict(target)
+    bound = fitted.with_glass(glass) if glass is not None else transfer_from_dict(target)
     estimate = (attrs.get("stain_estimates") or {}).get(method) or {}
     replaced = ""
     try:  # the slide's own estimate, made at tiling from its whole tile sample (as a normalizing run's)
         if "error" in estimate or estimate.get("method") != method:
             raise StainEstimationError(estimate.get("error") or "no estimate recorded")
-        bound.source = normalizer_from_dict(estimate)._target_stats()
+        bound.source = transfer_from_dict(estimate)._target_stats()
     except StainEstimationError as exc:
         bound.source, how = bound._fallback_source(pixels, bound.glass)
         replaced = f"the slide's own stain estimate was replaced ({getattr(exc, 'reason', None) or exc}) by {how}"

@@ -12,7 +12,8 @@ import hashlib
 import json
 import math
 
-__all__ = ["RUN_ONLY", "target_digest", "settings_mismatch", "expected_target", "read_settings_toml"]
+__all__ = ["RUN_ONLY", "RENAMED_SETTINGS", "current_names", "target_digest", "settings_mismatch", "expected_target",
+           "read_settings_toml"]
 
 #: Settings that do not change what a store contains. Lossless compression gives the same pixels
 #: whichever codec, and each store names its codec in its metadata, so a cohort may mix them; a
@@ -21,6 +22,21 @@ __all__ = ["RUN_ONLY", "target_digest", "settings_mismatch", "expected_target", 
 #: build the cohort's target; the target itself counts (its digest, ``stain target``).
 RUN_ONLY = ("threads", "verify_jpeg", "qc_overlay", "compression", "quality", "source_digest",
             "stain_groups", "stain_group_column")
+
+#: Settings recorded under an older name by stores of earlier versions: old name -> current name.
+RENAMED_SETTINGS = {"object_types": "feature_kinds"}
+
+
+def current_names(settings: dict | None) -> dict:
+    """``settings`` with every old setting name (:data:`RENAMED_SETTINGS`) read as its current
+    one, so a store made before a rename compares as it was made (a current name wins)."""
+    out = dict(settings or {})
+    for old, new in RENAMED_SETTINGS.items():
+        if old in out:
+            value = out.pop(old)
+            out.setdefault(new, value)
+    return out
+
 
 #: Settings compared on their own terms by :func:`settings_mismatch` (the rest: as values).
 _OWN_TERMS = ("mpp", "tile", "stride", "normalizer", "reference", "tolerance")
@@ -31,9 +47,9 @@ def target_digest(target) -> str | None:
     if target is None:
         return None
     if isinstance(target, dict):  # through the normalizer, as a run binds it: one form per target
-        from tilewright.stain.registry import normalizer_from_dict
+        from tilewright.stain.registry import transfer_from_dict
 
-        target = normalizer_from_dict(target)
+        target = transfer_from_dict(target)
     d = target.to_dict()
     text = json.dumps(d, sort_keys=True, separators=(",", ":"), default=float)
     return "sha256:" + hashlib.sha256(text.encode()).hexdigest()
@@ -75,7 +91,7 @@ def settings_mismatch(attrs: dict, settings: dict, target=...) -> list[str]:
     """
     from tilewright.store.compression import tile_identity
 
-    mine = attrs.get("config") or {}
+    mine, settings = current_names(attrs.get("config")), current_names(settings)
     out = []
     if settings.get("mpp") is not None:  # settings that do not say (a store of an old version): not compared
         want_mpp = float(settings["mpp"])

@@ -34,11 +34,10 @@ from pathlib import Path
 import numpy as np
 
 from tilewright.errors import StoreError
-from tilewright.store.shards import ShardLayout
+from tilewright.store.shards import ABSENT, ShardLayout
 
 __all__ = ["ShardReader"]
 
-_ABSENT = 2**64 - 1
 _WHOLE = 0.5  # read a shard file whole when a request needs at least this share of its chunks
 
 
@@ -74,18 +73,8 @@ class ShardReader:
     def _keep_index(self, s: int, raw, path) -> None:
         """Parse a shard's index bytes (with their CRC-32C, when the layout has one) into the cache."""
         lay = self.layout
-        raw = memoryview(raw)
-        if len(raw) != lay.index_size:
-            raise StoreError(f"shard file too short for its index ({len(raw)} of {lay.index_size} bytes); "
-                             "the store is damaged: re-run tile-out with --overwrite for this slide", path)
-        table = np.frombuffer(raw[:16 * lay.shard], "<u8").reshape(lay.shard, 2)
-        if lay.index_crc:
-            import google_crc32c
-
-            if google_crc32c.value(bytes(raw[:16 * lay.shard])) != int.from_bytes(raw[16 * lay.shard:], "little"):
-                raise StoreError("shard index fails its CRC-32C check; the store is damaged: re-run tile-out "
-                                 "with --overwrite for this slide", path)
-        absent = table[:, 0] == _ABSENT
+        table = lay.index_table(raw, path)
+        absent = table[:, 0] == ABSENT
         offsets = np.where(absent, 0, table[:, 0])
         lengths = np.where(absent, 0, table[:, 1])
         if offsets.max(initial=0) + lengths.max(initial=0) >= 2**32 and self._offset.dtype == np.uint32:

@@ -31,9 +31,10 @@ import numpy as np
 
 from tilewright.store.chunk_codec import ChunkCodec
 
-__all__ = ["ShardLayout", "ShardEncoder"]
+__all__ = ["ABSENT", "ShardLayout", "ShardEncoder"]
 
-_EMPTY = np.uint64(2**64 - 1)
+#: Offset and length a shard index gives an absent chunk (the sharding codec's ``2**64 - 1``).
+ABSENT = 2**64 - 1
 
 
 class ShardLayout:
@@ -83,6 +84,31 @@ class ShardLayout:
     def path(self, shard_index: int):
         """The shard's file (a ``Path``) or object (an ``ObjectPath``)."""
         return self.folder / self.key((int(shard_index),) + (0,) * len(self.tile_shape))
+
+    def index_table(self, raw, path=None) -> np.ndarray:
+        """A shard's index bytes (:attr:`index_size` of them) as a ``(shard, 2)`` little-endian uint64
+        table of (offset, length), :data:`ABSENT` for an absent chunk; the CRC-32C is checked
+        when the layout has one.
+
+        Raises
+        ------
+        StoreError
+            When ``raw`` is shorter than the index or fails its checksum (naming ``path``).
+        """
+        from tilewright.errors import StoreError
+
+        raw = memoryview(raw)
+        if len(raw) != self.index_size:
+            raise StoreError(f"shard file too short for its index ({len(raw)} of {self.index_size} bytes); "
+                             "the store is damaged: re-run tile-out with --overwrite for this slide", path)
+        body = raw[:16 * self.shard]
+        if self.index_crc:
+            import google_crc32c
+
+            if google_crc32c.value(bytes(body)) != int.from_bytes(raw[16 * self.shard:], "little"):
+                raise StoreError("shard index fails its CRC-32C check; the store is damaged: re-run tile-out "
+                                 "with --overwrite for this slide", path)
+        return np.frombuffer(body, "<u8").reshape(self.shard, 2)
 
     @classmethod
     def of(cls, arr) -> "ShardLayout | None":
@@ -134,8 +160,6 @@ class ShardEncoder:
 
     def __init__(self, layout: ShardLayout):
         self.layout = layout
-        self.folder = layout.folder  # the array's folder and its shard-key function
-        self.key = layout.key
         self.shard = layout.shard
         self.codec = layout.codec
 
@@ -158,7 +182,7 @@ class ShardEncoder:
 
         if len(chunks) > self.shard:
             raise ValueError(f"{len(chunks)} chunks do not fit a shard of {self.shard}")
-        index = np.full((self.shard, 2), _EMPTY, dtype="<u8")
+        index = np.full((self.shard, 2), ABSENT, dtype="<u8")
         sizes = np.fromiter((len(c) for c in chunks), dtype=np.int64, count=len(chunks))
         index[: len(chunks), 0] = np.cumsum(sizes) - sizes
         index[: len(chunks), 1] = sizes

@@ -11,13 +11,10 @@ from __future__ import annotations
 
 from pathlib import Path
 
-import numpy as np
-
 from tilewright.errors import StoreError
+from tilewright.store.shards import ABSENT, ShardLayout
 
 __all__ = ["check_store"]
-
-_EMPTY = 2**64 - 1
 
 
 def check_store(folder, final, *, n_tiles: int, arrays, shard_index: bool = True, marked: bool = True) -> None:
@@ -75,7 +72,7 @@ def check_store(folder, final, *, n_tiles: int, arrays, shard_index: bool = True
     if tiles.shape[0] != n_tiles:
         fail(f"tiles array holds {tiles.shape[0]} tiles, {n_tiles} were written")
     if shard_index:
-        _check_shards(folder / "tiles", tiles, n_tiles, fail)
+        _check_shards(tiles, n_tiles, fail)
     elif tiles.nchunks_initialized != -(-n_tiles // int(tiles.shards[0] if tiles.shards else 1)):
         fail("tile shard files missing")
 
@@ -83,27 +80,27 @@ def check_store(folder, final, *, n_tiles: int, arrays, shard_index: bool = True
 _PER_TILE = ("yx", "yx_level0", "tissue", "sharpness", "region")
 
 
-def _check_shards(folder: Path, tiles, n: int, fail) -> None:
-    """Every shard file of ``tiles`` exists and its index (checksum verified) lists its tiles."""
-    import google_crc32c
-
-    shard = int(tiles.shards[0]) if tiles.shards is not None else 1
-    key = tiles.metadata.encode_chunk_key
-    index_bytes = shard * 16 + 4
+def _check_shards(tiles, n: int, fail) -> None:
+    """Every shard file of ``tiles`` exists and its index (checksum verified) lists its tiles; the
+    layout (folder, shard keys, index size) is the one the writer and the reader use."""
+    layout = ShardLayout.of(tiles)
+    if layout is None or layout.index_at_start or not layout.index_crc:
+        fail("tile shards are not in the layout the tile writer uses")
+    shard, index_bytes = layout.shard, layout.index_size
     for s in range(-(-n // shard)):
-        path = folder / key((s, 0, 0, 0))
+        path = layout.path(s)
         try:
             raw, size = _tail(path, index_bytes)
         except FileNotFoundError:
             fail(f"shard file of tiles {s * shard}-{min(n, (s + 1) * shard) - 1} missing")
         if size < index_bytes:
             fail(f"shard file {path.name} of shard {s} is truncated")
-        body, crc = raw[:-4], int.from_bytes(raw[-4:], "little")
-        if google_crc32c.value(body) != crc:
+        try:
+            index = layout.index_table(raw, path)
+        except StoreError:
             fail(f"shard {s} index checksum does not match")
-        index = np.frombuffer(body, dtype="<u8").reshape(shard, 2)
         present = min(n - s * shard, shard)
-        if (index[:present, 0] == _EMPTY).any() or (index[:present, 0] + index[:present, 1] > size - index_bytes).any():
+        if (index[:present, 0] == ABSENT).any() or (index[:present, 0] + index[:present, 1] > size - index_bytes).any():
             fail(f"shard {s} lacks some of its tiles")
 
 

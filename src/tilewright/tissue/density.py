@@ -17,7 +17,8 @@ from typing import NamedTuple
 
 import numpy as np
 
-__all__ = ["GlassSurvey", "find_glass", "glass_colour", "optical_density", "od_lookup", "od_tables", "channel_mean", "channel_max", "channel_min"]
+__all__ = ["GlassSurvey", "find_glass", "glass_colour", "optical_density", "od_lookup", "od_tables", "channel_mean", "channel_max", "channel_min",
+           "black_ink", "dark_debris"]
 
 #: Glass colours darker than this (mean of RGB) are not trusted; the slide is probably all tissue.
 _MIN_GLASS_LEVEL = 180.0
@@ -230,3 +231,31 @@ def find_glass(rgb: np.ndarray, *, fallback=None, max_saturation: float = GLASS_
     if colour.mean() < _MIN_GLASS_LEVEL:
         return GlassSurvey(white, False, candidates, n)
     return GlassSurvey(colour, True, candidates, n)
+
+
+def black_ink(od: np.ndarray, *, min_od: float = 0.3, grey: float = 1.0) -> np.ndarray:
+    """Pixels of black marker (or grey debris): dense and nearly grey.
+
+    Parameters
+    ----------
+    od : ndarray (..., 3)
+        Optical density.
+    min_od : float
+        Smallest channel OD must exceed this (0.3 passes half the light in every channel).
+    grey : float
+        The smallest channel OD must be at least ``grey`` times the spread (max - min) over the
+        channels. A flat absorber over tissue keeps a small spread and a large minimum; H&E alone
+        has a minimum under half its spread (Ruifrok & Johnston hematoxylin: 0.29 vs 0.41).
+
+    Returns
+    -------
+    ndarray (...) bool
+    """
+    od = np.asarray(od, dtype=np.float32)
+    low = channel_min(od)
+    return (low > min_od) & (low >= grey * (channel_max(od) - low))
+
+
+def dark_debris(od: np.ndarray, *, min_od: float = 0.9) -> np.ndarray:
+    """Very dense pixels of any colour (folds, debris, bubbles' edges), mean OD above ``min_od``."""
+    return channel_mean(np.asarray(od, dtype=np.float32)) > min_od

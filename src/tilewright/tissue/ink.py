@@ -29,7 +29,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .density import channel_max, channel_mean, channel_min
+from .density import black_ink, dark_debris  # noqa: F401 - dark_debris: public here too
 from .plane import RUIFROK_PLANE_NORMAL, fit_hne_plane, plane_basis
 
 __all__ = ["RUIFROK_PLANE_NORMAL", "hne_plane_normal", "ink_residual", "ink_classes", "stroke_pieces",
@@ -63,34 +63,6 @@ def ink_residual(od: np.ndarray, normal=None) -> np.ndarray:
     if normal is None:
         normal = hne_plane_normal(od)
     return od @ np.asarray(normal, dtype=np.float32)
-
-
-def black_ink(od: np.ndarray, *, min_od: float = 0.3, grey: float = 1.0) -> np.ndarray:
-    """Pixels of black marker (or grey debris): dense and nearly grey.
-
-    Parameters
-    ----------
-    od : ndarray (..., 3)
-        Optical density.
-    min_od : float
-        Smallest channel OD must exceed this (0.3 passes half the light in every channel).
-    grey : float
-        The smallest channel OD must be at least ``grey`` times the spread (max - min) over the
-        channels. A flat absorber over tissue keeps a small spread and a large minimum; H&E alone
-        has a minimum under half its spread (Ruifrok & Johnston hematoxylin: 0.29 vs 0.41).
-
-    Returns
-    -------
-    ndarray (...) bool
-    """
-    od = np.asarray(od, dtype=np.float32)
-    low = channel_min(od)
-    return (low > min_od) & (low >= grey * (channel_max(od) - low))
-
-
-def dark_debris(od: np.ndarray, *, min_od: float = 0.9) -> np.ndarray:
-    """Very dense pixels of any colour (folds, debris, bubbles' edges), mean OD above ``min_od``."""
-    return channel_mean(np.asarray(od, dtype=np.float32)) > min_od
 
 
 def ink_classes(od: np.ndarray, normal, *, residual: float = 0.04, relative: float = 0.03,

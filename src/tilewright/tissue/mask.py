@@ -22,7 +22,7 @@ from .morphology import drop_small, fill_holes, morph, px
 from .threshold import _LOG_FLOOR, METHODS, density_threshold, tissue_feature  # noqa: F401 (_LOG_FLOOR re-exported)
 from .raster import box_fractions, summed_area_table
 
-__all__ = ["TissueMask", "tissue_mask", "tissue_feature", "METHODS"]
+__all__ = ["TissueMask", "tissue_mask", "tissue_feature", "thumbnail_rgb", "METHODS"]
 
 
 #: Warnings: marker ink (``high-ink``) or the dark-region filter (``dark-removed``) removed more
@@ -140,12 +140,14 @@ class TissueMask:
                 f"tissue_fraction={self.tissue_fraction:.3f})")
 
 
-def _thumbnail(slide, mpp):
-    """RGB uint8 thumbnail at about ``mpp``, the true µm/px of its pixels, and the source path.
+def thumbnail_rgb(slide, mpp, who: str = "tissue_mask"):
+    """RGB uint8 thumbnail at about ``mpp``, the true µm/px of its pixels, and the source path:
+    the first step of the tissue mask and of its QC picture (:mod:`tilewright.tissue.overlay`).
 
     A slide's thumbnail (and any array with an ``mpp`` attribute, such as
     :class:`tilewright.slide.thumbnail.Thumbnail`) carries the µm/px of its pixels, which may
-    differ from the request by the thumbnail tolerance: that value is the mask's.
+    differ from the request by the thumbnail tolerance: that value is the mask's. ``who`` names
+    the caller in the error for a wrong argument.
     """
     if isinstance(slide, np.ndarray):
         rgb, path = slide, None
@@ -153,7 +155,7 @@ def _thumbnail(slide, mpp):
         path = getattr(slide, "path", None)
         rgb = slide.thumbnail(mpp=mpp)
     else:
-        raise TypeError(f"tissue_mask needs a slide (with .thumbnail) or an RGB ndarray, got {type(slide).__name__}")
+        raise TypeError(f"{who} needs a slide (with .thumbnail) or an RGB ndarray, got {type(slide).__name__}")
     mpp = float(getattr(rgb, "mpp", None) or mpp)
     rgb = np.asarray(rgb)
     if rgb.ndim == 3 and rgb.shape[2] == 4:
@@ -325,7 +327,7 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-noise", sensitivit
             raise ValueError(f"{name} must be a positive number, got {value!r}")
     if method not in METHODS:
         raise ValueError(f"unknown tissue method {method!r}; choose one of {METHODS}")
-    rgb, mpp, path = _thumbnail(slide, mpp)  # mpp: the true µm/px of the thumbnail's pixels
+    rgb, mpp, path = thumbnail_rgb(slide, mpp)  # mpp: the true µm/px of the thumbnail's pixels
     survey = find_glass(rgb, fallback=glass_fallback)
     warnings = []
     glass_given = glass

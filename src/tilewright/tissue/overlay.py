@@ -218,13 +218,11 @@ def overlay_png(slide, mask, plan, *, mpp: float | None = None, title: str | Non
     """
     import cv2
 
-    mpp = float(mask.mpp if mpp is None else mpp)
-    if isinstance(slide, np.ndarray):
-        rgb, name = slide, None
-    else:
-        rgb, name = slide.thumbnail(mpp=mpp), getattr(slide, "path", None)
-    mpp = float(getattr(rgb, "mpp", None) or mpp)  # a slide's thumbnail carries its true µm/px
-    rgb, mpp = overlay_base(np.asarray(rgb)[..., :3], mpp)
+    from tilewright.tissue.mask import thumbnail_rgb
+
+    # the mask's own first step: a slide's thumbnail carries its true µm/px
+    rgb, mpp, name = thumbnail_rgb(slide, float(mask.mpp if mpp is None else mpp), "render_overlay")
+    rgb, mpp = overlay_base(rgb, mpp)
     h, w = rgb.shape[:2]
     mpp_yx = (mpp, mpp)
     grow = min(MIN_WIDTH / max(w, 1), MAX_SIDE / max(h, w, 1))

@@ -12,7 +12,7 @@ import math
 
 import numpy as np
 
-__all__ = ["TilePlan", "plan_tiles", "grid_positions", "spread_sample"]
+__all__ = ["TilePlan", "plan_tiles", "grid_positions", "spread_sample", "keep_names"]
 
 
 class TilePlan:
@@ -227,8 +227,6 @@ def plan_tiles(view, mask, *, tile: int = 256, stride: int | None = None, min_ti
     if max_tiles is not None and int(max_tiles) < 0:
         raise ValueError(f"max_tiles must be >= 0, got {max_tiles}")
     if isinstance(keep, str):  # "A,B" is two classes, as in RegionMap.fractions and --keep
-        from tilewright.regions.classnames import keep_names
-
         keep = keep_names(keep)
     mpp = float(view.mpp)
     shape = tuple(int(v) for v in view.shape[:2])
@@ -296,3 +294,29 @@ def _bound_to_slide(regions, view):
     if level0 is None and getattr(view, "scale", None):
         level0 = float(view.mpp) / float(view.scale)
     return regions if level0 is None else regions.with_mpp(float(level0))
+
+
+def keep_names(keep) -> tuple:
+    """A keep list as a tuple of names (strings split on commas; blanks and repeats dropped): the
+    syntax of :func:`plan_tiles`' ``keep``, which the regions (:mod:`tilewright.regions.classnames`),
+    ``TilingConfig.keep`` and ``tile-out --keep`` share.
+
+    Parameters
+    ----------
+    keep : str or iterable of str or None
+
+    Returns
+    -------
+    tuple of str
+        Empty for None or an empty selection.
+
+    Raises
+    ------
+    TypeError
+        ``keep`` is neither a string nor an iterable.
+    """
+    if keep is None:
+        return ()
+    items = keep.split(",") if isinstance(keep, str) else [str(k) for k in keep]
+    names = [" ".join(k.split()) for k in items]
+    return tuple(dict.fromkeys(n for n in names if n))

@@ -23,7 +23,7 @@ from typing import NamedTuple
 
 import numpy as np
 
-__all__ = ["RUIFROK_H", "RUIFROK_E", "RUIFROK_PLANE_NORMAL", "PlaneFit", "fit_hne_plane", "plane_basis"]
+__all__ = ["RUIFROK_H", "RUIFROK_E", "RUIFROK_DAB", "RUIFROK_PLANE_NORMAL", "PlaneFit", "fit_hne_plane", "plane_basis"]
 
 
 def _unit(v) -> np.ndarray:
@@ -31,9 +31,13 @@ def _unit(v) -> np.ndarray:
     return v / np.linalg.norm(v)
 
 
-#: Ruifrok & Johnston (2001) hematoxylin and eosin optical-density vectors, unit length.
+#: Ruifrok & Johnston (2001) hematoxylin, eosin and DAB optical-density vectors (R, G, B), unit
+#: length: Anal Quant Cytol Histol 23:291-299, the values ``skimage.color.hed_from_rgb`` inverts.
+#: The one home of these published values (stain estimation, augmentation, the audit and the demo
+#: read them from here).
 RUIFROK_H = _unit((0.65, 0.70, 0.29))
 RUIFROK_E = _unit((0.07, 0.99, 0.11))
+RUIFROK_DAB = _unit((0.27, 0.57, 0.78))
 #: Unit normal of the plane spanned by the Ruifrok & Johnston (2001) H and E vectors.
 RUIFROK_PLANE_NORMAL = _unit(np.cross(RUIFROK_H, RUIFROK_E))
 
@@ -95,7 +99,7 @@ def fit_hne_plane(od, *, min_od: float = 0.15, keep: float = 0.8, iterations: in
     .. [1] A. C. Ruifrok and D. A. Johnston, Anal. Quant. Cytol. Histol. 23(4):291-299, 2001.
     .. [2] M. Macenko et al., ISBI 2009, 1107-1110.
     """
-    from .ink import black_ink
+    from .density import black_ink
 
     x = np.asarray(od).reshape(-1, 3)
     if x.shape[0] > 1_000_000:  # bounded memory whatever the slide size: a strided subsample first

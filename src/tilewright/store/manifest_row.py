@@ -1,9 +1,17 @@
-"""Why a slide's store holds no tile: the filter that removed the last tiles, in the manifest's words,
-and the manifest status that says so (``skipped``, or ``all-ink`` when ink took the tissue)."""
+"""The manifest row a complete store stands for, read from its attributes alone.
+
+A run writes a row for each slide it tiles; a store kept from an earlier run, or found in a folder
+without a manifest, gets its row from what the store recorded (:func:`kept_row`). Here too: why a
+store holds no tile (the filter that removed the last tiles, in the manifest's words) and the
+status that says so (``skipped``, or ``all-ink`` when ink took the tissue), the stain outcome
+columns and the tissue area. The row's fields are those of
+:class:`tilewright.run.slide.SlideResult` (a test checks they agree).
+"""
 
 from __future__ import annotations
 
-__all__ = ["skip_reason", "skip_status", "NO_TILE_STATUSES", "ALL_INK_SHARE"]
+__all__ = ["kept_row", "skip_reason", "skip_status", "stain_columns", "tissue_mm2", "NO_TILE_STATUSES",
+           "ALL_INK_SHARE"]
 
 #: Statuses of a slide whose store holds no tile: ``skipped`` (blank, too little tissue, filters)
 #: and ``all-ink`` (marker ink or the dark-region filter removed what was found: not a blank slide).
@@ -69,3 +77,37 @@ def skip_reason(attrs: dict) -> str:
         return (f"the sharpness filter removed all {n_planned} planned tiles (variance of the Laplacian below "
                 f"--min-sharpness {config.get('min_sharpness')}): lower it or check the scan's focus")
     return "no tile was stored"
+
+
+def stain_columns(attrs: dict) -> dict:
+    """The manifest's stain columns from a store's attributes (empty when it was not checked)."""
+    outcome = attrs.get("stain_outcome") or {}
+    return {"stain_check": outcome.get("check", ""), "stain_delta_e_raw": outcome.get("delta_e_raw"),
+            "stain_delta_e": outcome.get("delta_e")}
+
+
+def tissue_mm2(a: dict) -> float | None:
+    """Tissue area in mm² from a store's attributes (stores made before it was recorded: from the
+    tissue fraction of the slide's area at level 0)."""
+    if a.get("tissue_mm2") is not None:
+        return float(a["tissue_mm2"])
+    try:
+        h, w = a["dimensions"]
+        return round(float(a["tissue_fraction"]) * h * w * float(a["mpp_source"]) ** 2 / 1e6, 4)
+    except (KeyError, TypeError, ValueError):
+        return None
+
+
+def kept_row(final, slide_id: str, path: str, a: dict) -> dict:
+    """The manifest row of the complete store ``final`` kept from an earlier run (``a``: its
+    attributes): the fields of a run's :class:`~tilewright.run.slide.SlideResult`, ``kept`` true."""
+    from tilewright.slide.colour import colour_label
+
+    n = int(a.get("n_tiles") or 0)
+    status, reason = ("ok", "") if n else skip_status(a)
+    return {"slide_id": slide_id, "source": path, "status": status, "error": reason, "n_tiles": n,
+            "mpp_source": a.get("mpp_source"), "objective": a.get("objective"), "source_level": a.get("source_level"),
+            "seconds": None, "store": str(final), "colour_profile": colour_label(a.get("colour_profile")),
+            "warnings": "; ".join(a.get("warnings") or ()), "source_sha256": (a.get("source") or {}).get("sha256") or "",
+            "mpp_origin": a.get("mpp_origin") or "", "kept": True, **stain_columns(a), "tissue_mm2": tissue_mm2(a),
+            "bytes": 0}
