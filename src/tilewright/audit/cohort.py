@@ -11,7 +11,6 @@ import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from tilewright.store.backing import zarr_store
 
 import pandas as pd
 

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import sys
-from pathlib import Path
 
 from tilewright.location.objpath import as_path
 from tilewright.run.row_text import row_note, row_seconds, wrapped

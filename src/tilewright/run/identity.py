@@ -11,7 +11,6 @@ more field in both builders.
 
 from __future__ import annotations
 
-import os
 
 from tilewright.store.settings import RUN_ONLY, _same, _short, current_names, target_digest  # noqa: F401 - public here too
 

@@ -21,7 +21,6 @@ from __future__ import annotations
 import math
 import sys
 import time
-from pathlib import Path
 
 from tilewright.errors import StoreError
 from tilewright.location.objpath import as_path

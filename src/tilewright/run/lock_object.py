@@ -21,7 +21,6 @@ import json
 import os
 import socket
 import threading
-import time
 import uuid
 from datetime import datetime, timezone
 

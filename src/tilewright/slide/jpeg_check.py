@@ -41,8 +41,7 @@ from collections.abc import Callable
 
 import numpy as np
 
-__all__ = ["SentinelPlan", "entropy_bounds", "jpeg_in_sync", "header_length", "reduced_sentinel_intact", "sentinel_intact",
-           "sentinel_plan",            "sentinel_stream"]
+__all__ = ["entropy_bounds", "jpeg_in_sync"]
 
 _PROBE_TAIL = 2          # bytes of entropy data inverted by the "used to the end" probe
 _PROBE_PAD = b"\x55\xaa" * 8  # appended by the "not past the end" probe (never 0xFF)

@@ -16,7 +16,6 @@ from __future__ import annotations
 
 import contextlib
 import threading
-from pathlib import Path
 
 from zarr.storage import LocalStore
 
