@@ -24,7 +24,7 @@ import numpy as np
 
 from . import ink as _ink
 from .density import od_lookup, od_tables
-from .pieces import GrainMap, ink_over_cells, lying_on_glass, split_pieces
+from .pieces import GrainMap, ink_over_cells, lying_on_glass, smooth_films, split_pieces
 from .plane import RUIFROK_PLANE_NORMAL, PlaneFit, fit_hne_plane
 
 __all__ = ["find_exclusions", "BAND_ROWS"]
@@ -91,19 +91,28 @@ def _fit_exclusions(split, glassy):
     return sure | reddish.grains | lying_on_glass(coloured.compact | reddish.compact, glassy | sure), 0.0
 
 
-def _resolve(split, glassy, rgb, tables, normal, sigma_px):
+def _resolve(split, glassy, rgb, tables, normal, sigma_px, grains_of, mpp):
     """Ink from pixel classes (see :mod:`.pieces`): grey pixels; strokes of either off-plane
     class, and the red cells a reddish stroke runs across; compact coloured pieces (blue, green:
-    never blood); compact reddish pieces lying on glass. Other red cells (granular cores) and
-    compact reddish pieces in or against tissue are tissue. Returns (ink, ink by greyness or
-    shape, compact pieces taken for ink by colour and place, reddish pixels kept)."""
+    never blood); compact reddish pieces lying on glass, and those in tissue that are smooth
+    films away from red cells. Other red cells (granular cores) and compact reddish pieces
+    beside them are tissue. Returns (ink, ink by greyness or shape, compact pieces taken for ink
+    by colour, place and texture, reddish pixels kept)."""
     grey, coloured, reddish = split
     sure = grey | coloured.strokes | reddish.strokes
     sure |= ink_over_cells(reddish.grains, reddish.strokes, rgb, tables, normal, sigma_px)
     blobs = coloured.compact | lying_on_glass(reddish.compact, glassy | sure | coloured.compact)
+    rest = reddish.compact & ~blobs
+    if rest.any():
+        grains_of(rest)  # the texture over the box of what is asked about
+        blobs |= smooth_films(rest, reddish.grains, grains_of.smooth, min_px=FILM_UM2 / (mpp * mpp))
     ink = sure | blobs
     return ink, sure, blobs, (reddish.grains | reddish.compact) & ~(blobs | sure)
 
+
+#: Smallest smooth reddish film in tissue taken for marker (µm², a disc of about 70 µm: a pen tap
+#: is larger, a lone capillary smaller); see :func:`.pieces.smooth_films`.
+FILM_UM2 = 4000.0
 
 #: Compact off-plane pieces taken for ink by colour over at least this share of the stained area
 #: (all but glass, grey ink and strokes) mean the H&E plane is not the slide's: they are read as
@@ -180,8 +189,9 @@ def find_exclusions(rgb, glass, sigma_px: float, mpp: float, glassy, *, exclude_
             _ink.ink_classes(od, plane.normal, residual=ink_residual, out=classes[r0:r1])
             del od
         split = _split(classes, mpp, stroke_kw, grains_of)
-    del classes, grains_of
-    ink, sure, blobs, blood = _resolve(split, glassy, rgb, tables, plane.normal, sigma_px)
+    del classes
+    ink, sure, blobs, blood = _resolve(split, glassy, rgb, tables, plane.normal, sigma_px, grains_of, mpp)
+    del grains_of
     del split
     stained = int((~(glassy | sure)).sum())  # the stained area that is not ink by shape or greyness
     share = float(blobs.sum()) / max(1, stained)
