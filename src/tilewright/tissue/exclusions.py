@@ -110,6 +110,29 @@ def _resolve(split, glassy, rgb, tables, normal, sigma_px, grains_of, mpp):
     return ink, sure, blobs, (reddish.grains | reddish.compact) & ~(blobs | sure)
 
 
+#: The off-plane limit after a plane fit: this many robust standard deviations of the slide's own
+#: H&E pixels about their plane, never above the given ``ink_residual`` (the limit against a prior
+#: plane that may not be the slide's) nor under :data:`RESIDUAL_FLOOR` (JPEG and sensor noise).
+SPREAD_LIMIT = 8.0
+RESIDUAL_FLOOR = 0.02
+#: OD norm of the pixels a plane is fitted to (:func:`.plane.fit_hne_plane`'s ``min_od``): the
+#: slide's spread is measured there; fainter pixels, noisier in colour, get a limit rising to
+#: ``ink_residual`` at no density.
+FIT_MIN_OD = 0.15
+
+
+def residual_limit(plane: PlaneFit, ink_residual: float) -> float:
+    """The OD distance from a fitted plane past which a pixel is off it (see :data:`SPREAD_LIMIT`).
+
+    A fixed limit wide enough for any slide's scatter about the Ruifrok & Johnston plane hides
+    light or faded marker over tissue (0.02-0.04 OD off the plane) on a slide whose own H&E
+    pixels lie within 0.01 of their fitted plane; the limit follows the slide's own scatter
+    (at pixels as dense as those it was measured on: see :data:`FIT_MIN_OD`)."""
+    if not plane.fitted or not math.isfinite(plane.spread):
+        return ink_residual
+    return float(min(ink_residual, max(RESIDUAL_FLOOR, SPREAD_LIMIT * plane.spread)))
+
+
 #: Smallest smooth reddish film in tissue taken for marker (µm², a disc of about 70 µm: a pen tap
 #: is larger, a lone capillary smaller); see :func:`.pieces.smooth_films`.
 FILM_UM2 = 4000.0
@@ -167,7 +190,7 @@ def find_exclusions(rgb, glass, sigma_px: float, mpp: float, glassy, *, exclude_
         del od
     if not exclude_ink:
         return SimpleNamespace(ink=np.zeros((h, w), bool), dark=dark, blood=np.zeros((h, w), bool), plane=None,
-                               reread=0.0)
+                               reread=0.0, residual=ink_residual)
     # the plane is fitted to sampled pixels that are neither stroke-shaped ink nor glass nor dark
     grains_of = GrainMap(rgb, tables, noise_od)  # texture is measured once, where it is asked about
     split = _split(classes, mpp, stroke_kw, grains_of)
@@ -183,10 +206,11 @@ def find_exclusions(rgb, glass, sigma_px: float, mpp: float, glassy, *, exclude_
         if retry.fitted:
             plane = retry
     del sample
-    if plane.fitted and plane.tilt_deg > 1.0:  # the prior was not the slide's plane: class again
+    residual = residual_limit(plane, ink_residual)
+    if plane.fitted and (plane.tilt_deg > 1.0 or residual < ink_residual):  # class again against the slide's plane
         for r0, r1, a0, a1 in bands(h, sigma_px):
             od = _smoothed_od(rgb[a0:a1], tables, sigma_px)[r0 - a0:r1 - a0]
-            _ink.ink_classes(od, plane.normal, residual=ink_residual, out=classes[r0:r1])
+            _ink.ink_classes(od, plane.normal, residual=residual, faint=(ink_residual, FIT_MIN_OD), out=classes[r0:r1])
             del od
         split = _split(classes, mpp, stroke_kw, grains_of)
     del classes
@@ -198,7 +222,7 @@ def find_exclusions(rgb, glass, sigma_px: float, mpp: float, glassy, *, exclude_
     if share >= REREAD_SHARE:  # "ink" over most of the stained area: the stain, not ink
         ink &= ~blobs
         reread = max(reread, share)
-    return SimpleNamespace(ink=ink, dark=dark, blood=blood, plane=plane, reread=reread)
+    return SimpleNamespace(ink=ink, dark=dark, blood=blood, plane=plane, reread=reread, residual=residual)
 
 
 __all__ += ["bands", "smooth", "PlaneFit"]
