@@ -44,6 +44,14 @@ def slides():
     pale = HardSlide("pale", H_UM, W_UM, (Piece(H_UM / 2, W_UM / 2, 0.55 * H_UM, 0.55 * W_UM),),
                      glass=(232.0, 230.0, 235.0), hema=0.055, eosin=0.08, noise=2.0, seed=8)
     yield "faint tissue over most of the slide", pale.render(MPP)
+    from marker_marks import Mark, dot_paths, glyph_paths
+
+    rng = np.random.default_rng(9)
+    marks = tuple(Mark(glyph_paths(rng, list("2A7"), H_UM / 2 - 2000.0, (k + 0.3) * W_UM / 6, 1800.0), 380.0,
+                       (0.85, 0.22, 0.31), (1.0, 0.8), 0.1, k, "label", "red") for k in range(6))
+    marks += (Mark(dot_paths(rng, H_UM / 2 + 3000.0, W_UM / 2, 6000.0, 30), 400.0, (0.88, 0.38, 0.68), seed=7),)
+    labelled = HardSlide("labelled", H_UM, W_UM, pieces, areas=blood, inks=marks, seed=9)
+    yield "red labels and pen taps over tissue, haemorrhage", labelled.render(MPP)
 
 
 def main(argv=None) -> int:

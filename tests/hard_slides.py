@@ -138,7 +138,10 @@ class HardSlide:
         return rr < 1.0
 
     def _ink_cover(self, ink, yy, xx, mpp):
-        """Fraction of each pixel covered by a stroke or ring (antialiased edge)."""
+        """Fraction of each pixel covered by a stroke or ring (antialiased edge); a mark with its
+        own ``paint`` (tests/marker_marks.py) gives its cover and pressure-driven density."""
+        if hasattr(ink, "paint"):
+            return ink.paint(yy, xx, mpp)[0]
         if isinstance(ink, Ring):
             d = np.abs(np.sqrt((yy - ink.cy) ** 2 + (xx - ink.cx) ** 2) - ink.r)
         else:
@@ -244,7 +247,7 @@ class HardSlide:
             d2 = (yy - cy) ** 2 + (xx - cx) ** 2
             od += (np.float32(0.8) * (d2 < r * r))[..., None]
         for ink in self.inks:
-            cover = self._ink_cover(ink, yy, xx, mpp)
+            cover = self._ink_cover(ink, yy, xx, mpp) if not hasattr(ink, "paint") else np.prod(ink.paint(yy, xx, mpp), axis=0)
             if cover.any():
                 thickness = smooth(200.0, 0.85, 1.15)
                 passed = INKS[ink.ink] if isinstance(ink.ink, str) else ink.ink

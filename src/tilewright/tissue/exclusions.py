@@ -24,7 +24,7 @@ import numpy as np
 
 from . import ink as _ink
 from .density import od_lookup, od_tables
-from .pieces import GrainMap, ink_over_cells, lying_on_glass, split_pieces
+from .pieces import GrainMap, ink_over_cells, lying_on_glass, smooth_films, split_pieces
 from .plane import RUIFROK_PLANE_NORMAL, PlaneFit, fit_hne_plane
 
 __all__ = ["find_exclusions", "BAND_ROWS"]
@@ -91,19 +91,51 @@ def _fit_exclusions(split, glassy):
     return sure | reddish.grains | lying_on_glass(coloured.compact | reddish.compact, glassy | sure), 0.0
 
 
-def _resolve(split, glassy, rgb, tables, normal, sigma_px):
+def _resolve(split, glassy, rgb, tables, normal, sigma_px, grains_of, mpp):
     """Ink from pixel classes (see :mod:`.pieces`): grey pixels; strokes of either off-plane
     class, and the red cells a reddish stroke runs across; compact coloured pieces (blue, green:
-    never blood); compact reddish pieces lying on glass. Other red cells (granular cores) and
-    compact reddish pieces in or against tissue are tissue. Returns (ink, ink by greyness or
-    shape, compact pieces taken for ink by colour and place, reddish pixels kept)."""
+    never blood); compact reddish pieces lying on glass, and those in tissue that are smooth
+    films away from red cells. Other red cells (granular cores) and compact reddish pieces
+    beside them are tissue. Returns (ink, ink by greyness or shape, compact pieces taken for ink
+    by colour, place and texture, reddish pixels kept)."""
     grey, coloured, reddish = split
     sure = grey | coloured.strokes | reddish.strokes
     sure |= ink_over_cells(reddish.grains, reddish.strokes, rgb, tables, normal, sigma_px)
     blobs = coloured.compact | lying_on_glass(reddish.compact, glassy | sure | coloured.compact)
+    rest = reddish.compact & ~blobs
+    if rest.any():
+        grains_of(rest)  # the texture over the box of what is asked about
+        blobs |= smooth_films(rest, reddish.grains, grains_of.smooth, min_px=FILM_UM2 / (mpp * mpp))
     ink = sure | blobs
     return ink, sure, blobs, (reddish.grains | reddish.compact) & ~(blobs | sure)
 
+
+#: The off-plane limit after a plane fit: this many robust standard deviations of the slide's own
+#: H&E pixels about their plane, never above the given ``ink_residual`` (the limit against a prior
+#: plane that may not be the slide's) nor under :data:`RESIDUAL_FLOOR` (JPEG and sensor noise).
+SPREAD_LIMIT = 8.0
+RESIDUAL_FLOOR = 0.02
+#: OD norm of the pixels a plane is fitted to (:func:`.plane.fit_hne_plane`'s ``min_od``): the
+#: slide's spread is measured there; fainter pixels, noisier in colour, get a limit rising to
+#: ``ink_residual`` at no density.
+FIT_MIN_OD = 0.15
+
+
+def residual_limit(plane: PlaneFit, ink_residual: float) -> float:
+    """The OD distance from a fitted plane past which a pixel is off it (see :data:`SPREAD_LIMIT`).
+
+    A fixed limit wide enough for any slide's scatter about the Ruifrok & Johnston plane hides
+    light or faded marker over tissue (0.02-0.04 OD off the plane) on a slide whose own H&E
+    pixels lie within 0.01 of their fitted plane; the limit follows the slide's own scatter
+    (at pixels as dense as those it was measured on: see :data:`FIT_MIN_OD`)."""
+    if not plane.fitted or not math.isfinite(plane.spread):
+        return ink_residual
+    return float(min(ink_residual, max(RESIDUAL_FLOOR, SPREAD_LIMIT * plane.spread)))
+
+
+#: Smallest smooth reddish film in tissue taken for marker (µm², a disc of about 70 µm: a pen tap
+#: is larger, a lone capillary smaller); see :func:`.pieces.smooth_films`.
+FILM_UM2 = 4000.0
 
 #: Compact off-plane pieces taken for ink by colour over at least this share of the stained area
 #: (all but glass, grey ink and strokes) mean the H&E plane is not the slide's: they are read as
@@ -158,7 +190,7 @@ def find_exclusions(rgb, glass, sigma_px: float, mpp: float, glassy, *, exclude_
         del od
     if not exclude_ink:
         return SimpleNamespace(ink=np.zeros((h, w), bool), dark=dark, blood=np.zeros((h, w), bool), plane=None,
-                               reread=0.0)
+                               reread=0.0, residual=ink_residual)
     # the plane is fitted to sampled pixels that are neither stroke-shaped ink nor glass nor dark
     grains_of = GrainMap(rgb, tables, noise_od)  # texture is measured once, where it is asked about
     split = _split(classes, mpp, stroke_kw, grains_of)
@@ -174,21 +206,23 @@ def find_exclusions(rgb, glass, sigma_px: float, mpp: float, glassy, *, exclude_
         if retry.fitted:
             plane = retry
     del sample
-    if plane.fitted and plane.tilt_deg > 1.0:  # the prior was not the slide's plane: class again
+    residual = residual_limit(plane, ink_residual)
+    if plane.fitted and (plane.tilt_deg > 1.0 or residual < ink_residual):  # class again against the slide's plane
         for r0, r1, a0, a1 in bands(h, sigma_px):
             od = _smoothed_od(rgb[a0:a1], tables, sigma_px)[r0 - a0:r1 - a0]
-            _ink.ink_classes(od, plane.normal, residual=ink_residual, out=classes[r0:r1])
+            _ink.ink_classes(od, plane.normal, residual=residual, faint=(ink_residual, FIT_MIN_OD), out=classes[r0:r1])
             del od
         split = _split(classes, mpp, stroke_kw, grains_of)
-    del classes, grains_of
-    ink, sure, blobs, blood = _resolve(split, glassy, rgb, tables, plane.normal, sigma_px)
+    del classes
+    ink, sure, blobs, blood = _resolve(split, glassy, rgb, tables, plane.normal, sigma_px, grains_of, mpp)
+    del grains_of
     del split
     stained = int((~(glassy | sure)).sum())  # the stained area that is not ink by shape or greyness
     share = float(blobs.sum()) / max(1, stained)
     if share >= REREAD_SHARE:  # "ink" over most of the stained area: the stain, not ink
         ink &= ~blobs
         reread = max(reread, share)
-    return SimpleNamespace(ink=ink, dark=dark, blood=blood, plane=plane, reread=reread)
+    return SimpleNamespace(ink=ink, dark=dark, blood=blood, plane=plane, reread=reread, residual=residual)
 
 
 __all__ += ["bands", "smooth", "PlaneFit"]

@@ -66,7 +66,7 @@ def ink_residual(od: np.ndarray, normal=None) -> np.ndarray:
 
 
 def ink_classes(od: np.ndarray, normal, *, residual: float = 0.04, relative: float = 0.03,
-                out=None) -> np.ndarray:
+                faint: tuple | None = None, out=None) -> np.ndarray:
     """Class of each pixel: 0 H&E or glass, :data:`GREY`, :data:`COLOURED` or :data:`REDDISH`.
 
     Parameters
@@ -78,6 +78,10 @@ def ink_classes(od: np.ndarray, normal, *, residual: float = 0.04, relative: flo
     residual, relative : float
         A pixel is off the plane when its residual exceeds ``residual + relative * |OD|`` (the
         relative part absorbs a plane that fits dense tissue slightly less well).
+    faint : (float, float), optional
+        ``(loose, od)``: the absolute limit rises linearly from ``residual`` at an OD norm of
+        ``od`` to ``loose`` at 0. A limit measured on a slide's dense pixels does not hold for
+        faint ones, whose colour direction is noisier (JPEG, sensor noise).
 
     Returns
     -------
@@ -88,6 +92,9 @@ def ink_classes(od: np.ndarray, normal, *, residual: float = 0.04, relative: flo
     coords = od @ unmix  # hematoxylin-like, eosin-like, off-plane
     norm = np.sqrt(np.einsum("...c,...c->...", od, od))
     limit = np.float32(residual) + np.float32(relative) * norm
+    if faint is not None and faint[0] > residual:
+        loose, at = faint
+        limit += np.float32(loose - residual) * np.clip(np.float32(1.0) - norm / np.float32(at), 0, 1)
     res = coords[..., 2]
     out = np.zeros(od.shape[:-1], np.uint8) if out is None else out
     out[...] = 0

@@ -362,7 +362,9 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-noise", sensitivit
                             stroke_kw={"min_stroke_um": min_stroke_um}, noise_od=pixel_noise)
     ink, dark = found.ink, found.dark
     if exclude_ink:
-        ink = morph(ink, "dilate", px(ink_margin_um, mpp))
+        # the margin covers the stroke's blurred rim below the off-plane limit; a limit narrowed
+        # to the slide's own scatter already reaches into that rim, so the margin shrinks with it
+        ink = morph(ink, "dilate", px(ink_margin_um * min(1.0, found.residual / ink_residual), mpp))
     covered = tissue | ink  # what the density threshold found, and ink beyond it
     tissue = drop_small(tissue & ~ink & ~dark, min_component_um2 / area)
     # the pieces are decided at the detection threshold; only then are their edges placed
@@ -397,7 +399,7 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-noise", sensitivit
               "min_saturation": min_saturation, "smooth_um": smooth_um, "close_um": close_um,
               "open_um": open_um, "fill_holes_um2": fill_holes_um2,
               "min_component_um2": min_component_um2, "exclude_ink": exclude_ink,
-              "ink_residual": ink_residual, "ink_margin_um": ink_margin_um, "min_stroke_um": min_stroke_um,
+              "ink_residual": ink_residual, "ink_residual_used": float(found.residual), "ink_margin_um": ink_margin_um, "min_stroke_um": min_stroke_um,
               "exclude_dark": exclude_dark, "dark_od": dark_od,
               "glass": [float(v) for v in glass], "glass_found": bool(survey.found or glass is not survey.colour),
               "blood_fraction": float((found.blood & tissue).sum()) / max(1, int(tissue.sum())),

@@ -45,7 +45,9 @@ RUIFROK_PLANE_NORMAL = _unit(np.cross(RUIFROK_H, RUIFROK_E))
 class PlaneFit(NamedTuple):
     """A fitted H&E plane: unit ``normal`` (oriented like the prior), whether the fit was accepted
     (``fitted``; False means the Ruifrok & Johnston plane is used), the number of pixels it used,
-    its tilt from the prior in degrees and the fraction of its pixels lying close to it."""
+    its tilt from the prior in degrees, the fraction of its pixels lying close to it, and
+    ``spread``: the robust standard deviation of their distances from it (1.4826 times the
+    median absolute distance; NaN when no fit was made), the slide's own scatter about its plane."""
 
     normal: np.ndarray
     fitted: bool
@@ -53,6 +55,7 @@ class PlaneFit(NamedTuple):
     tilt_deg: float
     inliers: float
     reason: str = ""
+    spread: float = float("nan")
 
 
 def _tilt(normal) -> float:
@@ -136,13 +139,15 @@ def fit_hne_plane(od, *, min_od: float = 0.15, keep: float = 0.8, iterations: in
         normal = v if v @ prior >= 0 else -v
     tilt = _tilt(normal)
     norm = np.sqrt((x * x).sum(axis=1))
-    inliers = float(np.mean(np.abs(x @ normal) <= inlier_od + 0.05 * norm))
+    distance = np.abs(x @ normal)
+    inliers = float(np.mean(distance <= inlier_od + 0.05 * norm))
+    spread = 1.4826 * float(np.median(distance))
     if tilt > max_tilt_deg:
         return PlaneFit(prior, False, len(x), tilt, inliers, f"fitted plane tilted {tilt:.0f} degrees from H&E")
     if inliers < min_inliers:
         return PlaneFit(prior, False, len(x), tilt, inliers,
                         f"only {inliers:.0%} of the stained pixels lie on the fitted plane")
-    return PlaneFit(normal, True, len(x), tilt, inliers)
+    return PlaneFit(normal, True, len(x), tilt, inliers, "", spread)
 
 
 def plane_basis(normal) -> np.ndarray:
