@@ -109,6 +109,8 @@ def _unrelated(pixels: np.ndarray, mean: np.ndarray) -> bool:
     """Whether neighbouring pixels are unrelated: the residual of the window mean holds more than
     :data:`UNRELATED` of the pixels' intensity variance (both (K, 3))."""
     values = pixels.astype(np.float32)
+    if not len(values):  # no usable pixel in any window: nothing to compare (and no empty-mean warning)
+        return False
     spread = float(np.square(values - values.mean(axis=0)).sum())
     return spread > 0 and float(np.square(values - mean).sum()) > UNRELATED * spread
 
