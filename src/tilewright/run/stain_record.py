@@ -34,7 +34,8 @@ def stain_record(view, plan, config, glass) -> tuple[np.ndarray, dict, list | No
     from tilewright.run.reference import sample_positions, sample_tiles
     from tilewright.stain.registry import METHODS, make_transfer
 
-    sample = sample_tiles(view, plan.yx, config.tile, config.stain_sample, config.seed, threads=config.threads)
+    positions = sample_positions(plan.yx, config.stain_sample, config.seed)  # what a normalizing run samples
+    sample = sample_tiles(view, positions, config.tile, len(positions), config.seed, threads=config.threads)
     flat = sample.reshape(-1, 3)
     if len(flat) > SAMPLE_PIXELS:
         pick = np.sort(np.random.default_rng(config.seed).choice(len(flat), SAMPLE_PIXELS, replace=False))
@@ -51,5 +52,4 @@ def stain_record(view, plan, config, glass) -> tuple[np.ndarray, dict, list | No
         except StainEstimationError as exc:
             estimates[method] = {"method": method, "error": getattr(exc, "reason", str(exc))}
     glass_out = None if glass is None else [float(v) for v in glass]
-    positions = sample_positions(plan.yx, config.stain_sample, config.seed).astype(int).tolist()
-    return np.ascontiguousarray(flat, dtype=np.uint8), estimates, glass_out, positions
+    return np.ascontiguousarray(flat, dtype=np.uint8), estimates, glass_out, positions.astype(int).tolist()

@@ -94,7 +94,10 @@ def bind_to_store(store, method: str, target) -> ReadNormalization:
     ConfigError
         An unknown method or a target of another method.
     """
-    from tilewright.stain.registry import METHODS
+    import copy
+
+    from tilewright.stain.checked import checked_binding
+    from tilewright.stain.registry import METHODS, transfer_from_dict
 
     method = str(method).lower()
     if method not in METHODS:
@@ -107,25 +110,20 @@ def bind_to_store(store, method: str, target) -> ReadNormalization:
     if not store._has("stain_sample"):
         raise StoreError("the store holds no stain estimate; tile with --estimate-stains (TilingConfig("
                          "estimate_stains=True)) to normalize when reading", store.path)
-    from tilewright.stain.registry import transfer_from_dict
-
-    from tilewright.errors import StainEstimationError
-    from tilewright.stain.checked import checked_binding
-
     target = resolve_target(target, method)
     pixels = _sample(store)
     glass = attrs.get("stain_glass")
     fitted = transfer_from_dict(target)
-    bound = fitted.with_glass(glass) if glass is not None else transfer_from_dict(target)
+    bound = fitted.with_glass(glass) if glass is not None else copy.deepcopy(fitted)
+    # the slide's own estimate, made at tiling from its whole tile sample (as a normalizing run's)
     estimate = (attrs.get("stain_estimates") or {}).get(method) or {}
+    reason = estimate.get("error") or ("" if estimate.get("method") == method else "no estimate recorded")
     replaced = ""
-    try:  # the slide's own estimate, made at tiling from its whole tile sample (as a normalizing run's)
-        if "error" in estimate or estimate.get("method") != method:
-            raise StainEstimationError(estimate.get("error") or "no estimate recorded")
-        bound.source = transfer_from_dict(estimate)._target_stats()
-    except StainEstimationError as exc:
+    if reason:
         bound.source, how = bound._fallback_source(pixels, bound.glass)
-        replaced = f"the slide's own stain estimate was replaced ({getattr(exc, 'reason', None) or exc}) by {how}"
+        replaced = f"the slide's own stain estimate was replaced ({reason}) by {how}"
+    else:
+        bound.source = transfer_from_dict(estimate)._target_stats()
     bound, _, notes = checked_binding(fitted, bound, replaced, pixels, glass)
     return ReadNormalization(method, target, bound, "; ".join(notes))
 
