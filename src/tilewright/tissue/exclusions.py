@@ -74,8 +74,10 @@ def _split(classes, mpp, stroke_kw, grains_of):
 
 def _fit_exclusions(split, glassy):
     """Pass 1 (against the prior plane, which may not be the slide's): the pixels left out of the
-    plane fit, and the share of the stained area re-read as tissue (0 when none). Grey pixels, strokes, red cells (granular cores: blood should not pull the plane)
-    and compact off-plane pieces lying on glass (marker dots). But when what is off the prior
+    plane fit, the share of the stained area re-read as tissue (0 when none), and the grey pixels
+    and strokes (with their rims) among them. Left out: grey pixels, strokes, red cells (granular
+    cores: blood should not pull the plane) and compact off-plane pieces lying on glass (marker
+    dots). But when what is off the prior
     plane and not a stroke is most of the stained area, the prior is not this slide's plane: that
     is its tissue (textured, and granular for all we know), and only grey pixels and strokes are
     left out (see :data:`REREAD_SHARE`)."""
@@ -87,8 +89,8 @@ def _fit_exclusions(split, glassy):
     sure = grey | cv2.dilate((coloured.strokes | reddish.strokes).view(np.uint8), rims).view(bool)
     share = float((coloured.compact | reddish.compact | reddish.grains).sum()) / max(1, int((~(glassy | sure)).sum()))
     if share >= REREAD_SHARE:
-        return sure, share
-    return sure | reddish.grains | lying_on_glass(coloured.compact | reddish.compact, glassy | sure), 0.0
+        return sure, share, sure
+    return sure | reddish.grains | lying_on_glass(coloured.compact | reddish.compact, glassy | sure), 0.0, sure
 
 
 def _resolve(split, glassy, rgb, tables, normal, sigma_px, grains_of, mpp):
@@ -136,6 +138,10 @@ def residual_limit(plane: PlaneFit, ink_residual: float) -> float:
 #: Smallest smooth reddish film in tissue taken for marker (µm², a disc of about 70 µm: a pen tap
 #: is larger, a lone capillary smaller); see :func:`.pieces.smooth_films`.
 FILM_UM2 = 4000.0
+
+#: A refused plane fit is retried with the compact off-plane pieces pass 1 left out only when
+#: they are at least this share of the stained area (they may be the slide's stain, not ink).
+RETRY_SHARE = 0.5
 
 #: Compact off-plane pieces taken for ink by colour over at least this share of the stained area
 #: (all but glass, grey ink and strokes) mean the H&E plane is not the slide's: they are read as
@@ -194,17 +200,22 @@ def find_exclusions(rgb, glass, sigma_px: float, mpp: float, glassy, *, exclude_
     # the plane is fitted to sampled pixels that are neither stroke-shaped ink nor glass nor dark
     grains_of = GrainMap(rgb, tables, noise_od)  # texture is measured once, where it is asked about
     split = _split(classes, mpp, stroke_kw, grains_of)
-    left_out, reread = _fit_exclusions(split, glassy)
+    left_out, reread, sure = _fit_exclusions(split, glassy)
     usable = ~(left_out | glassy | dark).reshape(-1)[::step][:at]
     del left_out
     plane = fit_hne_plane(sample[:at][usable])
     if not plane.fitted and plane.n_pixels > 0:
         # a fit was made and refused: what pass 1 left out (off the prior and not on tissue) may be
-        # the slide's own stain; a fit to every stained pixel but grey ones holds when it is H&E
-        # (trimmed, and refused again when most pixels do not lie close to it)
-        retry = fit_hne_plane(sample[:at][~(split[0] | glassy | dark).reshape(-1)[::step][:at]])
-        if retry.fitted:
-            plane = retry
+        # the slide's own stain; a fit to every stained pixel but grey ones and strokes holds when
+        # it is H&E (trimmed, and refused again when most pixels do not lie close to it). Strokes
+        # stay out: on a slide of faint tissue a marker ring is most of the density, and a plane
+        # through it would make the ring tissue. And the pieces brought back must be most of what
+        # is stained: a few marker dots on a slide of faint tissue are not its stain
+        again = ~(sure | glassy | dark).reshape(-1)[::step][:at]
+        if (again & ~usable).sum() >= RETRY_SHARE * max(1, int(again.sum())):
+            retry = fit_hne_plane(sample[:at][again])
+            if retry.fitted:
+                plane = retry
     del sample
     residual = residual_limit(plane, ink_residual)
     if plane.fitted and (plane.tilt_deg > 1.0 or residual < ink_residual):  # class again against the slide's plane
