@@ -1,5 +1,5 @@
-"""A seeded, parameterized family of hard slides (the TUNING family; tests/heldback_slides.py is
-the held-back one): each draw picks, from its seed, everything a cohort varies in.
+"""A seeded, parameterized family of hard slides (the first TUNING family; tests/second_family.py,
+written apart, is the second): each draw picks, from its seed, everything a cohort varies in.
 
 - stain vectors: the Ruifrok & Johnston (2001) H and E turned by up to 8 degrees each, stain
   strengths 0.15-1.6 times (hematoxylin and eosin apart), texture;

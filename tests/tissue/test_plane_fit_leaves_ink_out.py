@@ -8,12 +8,12 @@ when the compact pieces it brings back are most of the stained area (the case it
 whose own stain lies off the Ruifrok & Johnston plane, read as "ink" against it); a few marker dots
 are not.
 
-Ground truth: the layout drawn by the second hard-slide family (tests/heldback_slides.py, draw 65:
+Ground truth: the layout drawn by the second hard-slide family (tests/second_family.py, draw 65:
 faint tissue, a red ring of marker and red dots on glass), at its thumbnail's 7.6-8.4 µm/px.
 """
 
 from family_scores import ON_INK, score
-from heldback_slides import draw
+from second_family import draw
 from tilewright.tissue.mask import tissue_mask
 
 

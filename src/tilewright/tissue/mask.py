@@ -16,8 +16,9 @@ import os
 
 import numpy as np
 
-from .density import find_glass
-from .exclusions import find_exclusions
+from .density import find_glass, od_tables
+from .exclusions import FILM_UM2, find_exclusions
+from .films import on_plane_films
 from .morphology import drop_small, fill_holes, morph, px
 from .threshold import _LOG_FLOOR, METHODS, density_threshold, tissue_feature  # noqa: F401 (_LOG_FLOOR re-exported)
 from .raster import box_fractions, summed_area_table
@@ -361,10 +362,16 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-noise", sensitivit
                             ink_residual=ink_residual, exclude_dark=exclude_dark, dark_od=dark_od,
                             stroke_kw={"min_stroke_um": min_stroke_um}, noise_od=pixel_noise)
     ink, dark = found.ink, found.dark
+    film_share = 0.0
     if exclude_ink:
         # the margin covers the stroke's blurred rim below the off-plane limit; a limit narrowed
         # to the slide's own scatter already reaches into that rim, so the margin shrinks with it
         ink = morph(ink, "dilate", px(ink_margin_um * min(1.0, found.residual / ink_residual), mpp))
+        # marker whose colour lies on the H&E plane (violet, pink): by texture and shape
+        films = on_plane_films(rgb, tissue & ~ink & ~dark, glassy | ink, od_tables(glass), mpp, blood=found.blood,
+                               noise_od=pixel_noise, min_px=FILM_UM2 / (mpp * mpp), min_stroke_um=min_stroke_um)
+        ink |= morph(films, "dilate", 1)
+        film_share = float(films.sum()) / max(1, int(tissue.sum()))
     covered = tissue | ink  # what the density threshold found, and ink beyond it
     tissue = drop_small(tissue & ~ink & ~dark, min_component_um2 / area)
     # the pieces are decided at the detection threshold; only then are their edges placed
@@ -406,5 +413,5 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-noise", sensitivit
               "hne_plane_normal": None if plane is None else [float(v) for v in plane.normal],
               "hne_plane_fitted": None if plane is None else bool(plane.fitted),
               "ink_share": ink_share, "dark_share": dark_share, "removed_share": ink_share + dark_share,
-              "reread_share": float(found.reread), "tissue_mm2": tissue_mm2}
+              "reread_share": float(found.reread), "film_share": film_share, "tissue_mm2": tissue_mm2}
     return TissueMask(tissue, mpp, ink=ink, dark=dark, threshold=threshold, params=params, warnings=warnings)

@@ -1,0 +1,172 @@
+"""Marker whose colour lies on the H&E plane (violet, pink, some reds), found by texture and shape.
+
+Colour tells most marker from tissue (:mod:`.ink`), but a violet marker is a mixture of about
+equal parts of hematoxylin-like and eosin-like absorption, and a pink one is close to eosin: their
+optical densities lie on or near the slide's H&E plane, and over glass they look like a dense
+piece of tissue. What still tells them apart is what a marker is: a film of dye on the cover
+glass, smooth from pixel to pixel, drawn with a tip as a band of even width. Tissue at a
+thumbnail's 8 µm/px is textured: each pixel holds a different share of nuclei, stroma and fibres.
+
+So, on a slide whose own tissue is textured (:data:`MIN_TEXTURE`; the cue is not used where
+tissue looks smooth, as after heavy JPEG compression):
+
+1. the slide's tissue texture ``T`` is the median :func:`.pieces.granularity` of its tissue
+   (dense enough, red cells left out);
+2. *films* are connected pieces of dense (:data:`MIN_FILM_OD`) pixels smoother than
+   :data:`SMOOTH_SHARE` x ``T`` that are stroke-shaped (:func:`.pieces.band_shape`: at least
+   ``min_stroke_um`` wide and ``elongation`` times longer) or lie on glass (a dot, a label);
+3. a film is grown into connected pixels smoother than :data:`LOOSE_SHARE` x ``T`` (its rims,
+   where it starts to cross tissue), and into the tissue it crosses: connected pixels whose
+   density exceeds the tissue's local level (a normalized convolution over the tissue around,
+   Knutsson & Westin 1993, 1.5 stroke widths) by :data:`EXCESS` of the film's own density
+   (optical densities add: Beer-Lambert); both only into pixels of :data:`MIN_FILM_OD`;
+4. films over most of the tissue are not marker: the slide's tissue is smooth, and nothing is
+   taken (:data:`MAX_SHARE`).
+
+Marker over tissue far from any film over glass is not found this way (its texture is the
+tissue's beneath it).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .density import od_lookup
+from .pieces import band_shape, granularity, lying_on_glass
+
+__all__ = ["on_plane_films", "MIN_TEXTURE", "SMOOTH_SHARE", "LOOSE_SHARE", "MIN_FILM_OD", "EXCESS", "MAX_SHARE"]
+
+#: Median tissue granularity under which the slide's tissue is too smooth for the texture cue.
+MIN_TEXTURE = 0.02
+#: A film's fine detail is under this share of the slide's tissue texture ...
+SMOOTH_SHARE = 0.3
+#: ... and it grows into connected pixels under this share.
+LOOSE_SHARE = 0.5
+#: Median mean optical density of a film (faint tissue is smooth too, but not dense).
+MIN_FILM_OD = 0.1
+#: Over tissue, a film lifts the density above the tissue's local median by this share of its own.
+EXCESS = 0.5
+#: Films over this share of the tissue are not marker but the slide's smooth tissue.
+MAX_SHARE = 0.7
+
+
+def _measure(rgb, tables, noise_od, box):
+    """Granularity and mean optical density over ``box`` (y0, y1, x0, x1), band by band."""
+    y0, y1, x0, x1 = box
+    h, w = rgb.shape[:2]
+    halo = 16  # the granularity's median and Gaussians reach 14 px
+    cx0, cx1 = max(0, x0 - halo), min(w, x1 + halo)
+    grain = np.empty((y1 - y0, x1 - x0), np.float32)
+    dens = np.empty((y1 - y0, x1 - x0), np.float32)
+    for r0 in range(y0, y1, 256):
+        r1 = min(y1, r0 + 256)
+        a0, a1 = max(0, r0 - halo), min(h, r1 + halo)
+        part = np.ascontiguousarray(rgb[a0:a1, cx0:cx1])
+        grain[r0 - y0:r1 - y0] = granularity(part, tables, noise_od)[r0 - a0:r1 - a0, x0 - cx0:x1 - cx0]
+        dens[r0 - y0:r1 - y0] = od_lookup(part[r0 - a0:r1 - a0, x0 - cx0:x1 - cx0], tables).mean(axis=2)
+    return grain, dens
+
+
+def _seeds(smooth, away, dens, mpp, min_px, min_stroke_um, elongation):
+    """The smooth pieces that are films: dense, stroke-shaped or lying on glass."""
+    import cv2
+
+    n, labels, stats, _ = cv2.connectedComponentsWithStats(smooth.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
+    out = np.zeros_like(smooth)
+    widths = []
+    stroke_px = max(min_stroke_um / mpp, 1.0)
+    for k in np.flatnonzero(stats[1:, cv2.CC_STAT_AREA] >= min_px) + 1:
+        x, y, bw, bh, _ = stats[k]
+        part = labels[y:y + bh, x:x + bw] == k
+        if np.median(dens[y:y + bh, x:x + bw][part]) < MIN_FILM_OD:
+            continue
+        width, stretch = band_shape(part)
+        film = width >= stroke_px and stretch >= elongation
+        if not film:
+            one = np.zeros_like(smooth)
+            one[y:y + bh, x:x + bw] = part
+            film = bool(lying_on_glass(one, away).any())
+        if film:
+            out[y:y + bh, x:x + bw] |= part
+            widths.append(width)
+    return out, max(widths, default=0.0)
+
+
+def _connected_to(candidates, seeds, grow=2):
+    """The connected pieces of ``candidates`` touching ``seeds`` (grown by ``grow`` px)."""
+    import cv2
+
+    n, labels, _, _ = cv2.connectedComponentsWithStats(candidates.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
+    touch = cv2.dilate(seeds.view(np.uint8), np.ones((2 * grow + 1, 2 * grow + 1), np.uint8)).view(bool)
+    keep = np.zeros(n, bool)
+    keep[np.unique(labels[touch & candidates])] = True
+    keep[0] = False
+    return keep[labels]
+
+
+def on_plane_films(rgb: np.ndarray, tissue: np.ndarray, away: np.ndarray, tables: np.ndarray, mpp: float, *,
+                   blood: np.ndarray | None = None, noise_od: float = 0.0, min_px: float = 60.0,
+                   min_stroke_um: float = 100.0, elongation: float = 3.0) -> np.ndarray:
+    """Marker films among the pixels of ``tissue`` (see the module's text for the steps).
+
+    Parameters
+    ----------
+    rgb : ndarray (H, W, 3) uint8
+        The thumbnail.
+    tissue : ndarray (H, W) bool
+        What is taken for tissue so far (ink of other kinds already left out).
+    away : ndarray (H, W) bool
+        Pixels that are not tissue: glass, and ink found by colour.
+    tables : ndarray (3, 256)
+        Optical-density tables of the glass (:func:`tilewright.tissue.density.od_tables`).
+    mpp : float
+        µm per pixel.
+    blood : ndarray (H, W) bool, optional
+        Red cells (left out of the slide's tissue texture: they are granular).
+    noise_od : float
+        The glass's pixel noise in one channel's OD (:func:`.pieces.granularity`).
+    min_px : float
+        Smallest film, pixels.
+    min_stroke_um, elongation : float
+        A stroke's narrowest width (µm) and least length over width.
+
+    Returns
+    -------
+    ndarray (H, W) bool
+        Film pixels (all False when the slide's tissue is smooth or none is found).
+    """
+    import cv2
+
+    out = np.zeros_like(tissue)
+    rows, cols = np.flatnonzero(tissue.any(axis=1)), np.flatnonzero(tissue.any(axis=0))
+    if rows.size == 0:
+        return out
+    box = (int(rows[0]), int(rows[-1]) + 1, int(cols[0]), int(cols[-1]) + 1)
+    grain, dens = _measure(rgb, tables, noise_od, box)
+    sub = (slice(box[0], box[1]), slice(box[2], box[3]))
+    t = tissue[sub]
+    ref = t & (dens >= MIN_FILM_OD) & (True if blood is None else ~blood[sub])
+    if ref.sum() < max(100, min_px):
+        return out
+    texture = float(np.median(grain[ref]))
+    if texture < MIN_TEXTURE:
+        return out
+    disc = cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (5, 5))
+    smooth = cv2.morphologyEx((t & (grain < SMOOTH_SHARE * texture)).view(np.uint8), cv2.MORPH_OPEN, disc).view(bool)
+    films, width = _seeds(smooth, away[sub], dens, mpp, min_px, min_stroke_um, elongation)
+    if not films.any():
+        return out
+    level = float(np.median(dens[films]))
+    dense = t & (dens >= MIN_FILM_OD)
+    films |= _connected_to(dense & (grain < LOOSE_SHARE * texture), films)
+    # over tissue: density above the tissue's local level (its mean over a Gaussian of 1.5 stroke
+    # widths, over tissue pixels only, the films left out) by a share of the film's own
+    sigma = max(5.0, 1.5 * width)
+    weight = (t & ~films).astype(np.float32)
+    den = cv2.GaussianBlur(weight, (0, 0), sigma)
+    local = cv2.GaussianBlur(dens * weight, (0, 0), sigma) / np.maximum(den, np.float32(1e-3))
+    films |= _connected_to(dense & (den > 0.05) & (dens - local >= EXCESS * level), films)
+    if films.sum() >= MAX_SHARE * t.sum():
+        return out
+    out[sub] = films
+    return out
