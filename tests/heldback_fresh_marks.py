@@ -4,12 +4,15 @@ with a felt-tip marker, as strokes with a width, a pressure and fading along the
 Held back: confirmation only, never tune the tissue mask on these marks (see heldback_fresh.py).
 
 Kinds (odds per mark): an outline circling a piece, a group of pieces or a region inside a large
-piece, following the tissue's contour at an offset, solid or dashed, with a gap or an overshoot
-(0.32); a hand-written label of 1-3 characters from the stroke font below (0.16); an arrow
-pointing at a tissue edge (0.14); a dot of 0.3-1.2 mm pressed on glass or tissue (0.12); a line crossing the
-field through tissue (0.10); a tick (0.08); a wipe of a few broad, pale, wavy strokes (0.08).
-Tips: fine 0.2-0.6 mm (70 %, and every label) or broad 0.6-1.5 mm, log-uniform in each;; pressure 0.35-1 of the dye's full density and
-fading along the stroke by up to half of it.
+piece, following the tissue's contour 0.15-1.2 mm out, solid or dashed (a quarter), with a gap or
+an overshoot (0.32); a hand-written label of 1-3 characters from the stroke font below, 1.2-3 mm
+high, slanted and shaky (0.16); an arrow pointing at a tissue edge (0.14); a dot of 0.3-1.2 mm
+pressed on glass or tissue (0.12); a line crossing the field through tissue (0.10); a tick or a
+dash at a tissue edge (0.08); a wipe of 3-6 broad, pale, wavy strokes (0.08). Tips: fine
+0.2-0.6 mm (70 %, and every label) or broad 0.6-1.5 mm, log-uniform in each; pressure 0.35-1 of
+the dye's full density; half the pens fade along the stroke by up to half of it. Strokes of a
+mark that cross add their ink. Dyes (odds): black 0.30, blue 0.25, green 0.18, red 0.14, violet
+0.08, brown 0.05.
 """
 
 from __future__ import annotations

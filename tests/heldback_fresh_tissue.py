@@ -180,7 +180,7 @@ def _place(rng, t, layout, H, W):
                 p = polar_piece(rng, t.shape, t.px, c, r, aspect=rng.uniform(1, 2.5),
                                 rough=rng.uniform(0.1, 0.25), jag=rng.uniform(0.02, 0.06))
                 if p is not None and (t.cov[p[0]] * p[1]).sum() < 0.2 * p[1].sum():
-                    k = t.add(p, "fragment")
+                    t.add(p, "fragment")
                     t.epi[p[0]] = np.maximum(t.epi[p[0]], p[1] * rng.uniform(0.2, 0.8))
                     break
     elif layout == "tma":
