@@ -9,7 +9,7 @@ an overshoot (0.32); a hand-written label of 1-3 characters from the stroke font
 high, slanted and shaky (0.16); an arrow pointing at a tissue edge (0.14); a dot of 0.3-1.2 mm
 pressed on glass or tissue (0.12); a line crossing the field through tissue (0.10); a tick or a
 dash at a tissue edge (0.08); a wipe of 3-6 broad, pale, wavy strokes (0.08). Tips: fine
-0.2-0.6 mm (70 %, and every label) or broad 0.6-1.5 mm, log-uniform in each; pressure 0.35-1 of
+0.2-0.6 mm, or for outlines, lines and dots broad 0.6-1.5 mm (30 %), log-uniform in each; pressure 0.35-1 of
 the dye's full density; half the pens fade along the stroke by up to half of it. Strokes of a
 mark that cross add their ink. Dyes (odds): black 0.30, blue 0.25, green 0.18, red 0.14, violet
 0.08, brown 0.05.
@@ -206,7 +206,9 @@ def _text(rng, scene, pen):
     text = "".join(rng.choice(list(LABELS), rng.integers(1, 4)))
     h = rng.uniform(1200, 3000)
     slant, turn = np.tan(np.radians(rng.uniform(0, 20))), rng.uniform(-15, 15)
-    at = _glass_point(rng, scene) - np.array([h / 2, 0.6 * h * len(text) / 2])
+    size = np.array([h, 0.8 * h * len(text)])
+    field = np.array(scene["labels"].shape) * scene["mpp"]
+    at = np.clip(_glass_point(rng, scene) - size / 2, 0, np.maximum(field - size, 0))
     out = []
     for i, ch in enumerate(text):
         s = h * rng.uniform(0.85, 1.1)
@@ -265,7 +267,7 @@ def draw_marks(rng, scene, shape, px):
     for _ in range(n):
         kind = rng.choice(list(KIND_ODDS), p=list(KIND_ODDS.values()))
         d = dye if same else rng.choice(dyes, p=dodds)
-        broad = kind != "text" and rng.random() < 0.3
+        broad = kind in ("circle", "line", "dot") and rng.random() < 0.3
         tip = np.exp(rng.uniform(np.log(600), np.log(1500)) if broad else rng.uniform(np.log(200), np.log(600)))
         strokes = KINDS[kind](rng, scene, Pen(rng, d, tip))
         cov = np.zeros(shape, np.float32)

@@ -158,7 +158,7 @@ def _strip(rng, t, theta, y, x, length, width, skin):
         if len(seg) < 3:
             continue
         p = pts[seg]
-        w = width * (1 + 0.12 * smooth_noise(rng, (len(p), 1), 3)[:, 0])
+        w = width * (1 + 0.06 * smooth_noise(rng, (len(p), 1), 6)[:, 0])
         w[[0, -1]] *= rng.uniform(0.3, 0.8, 2)
         cov, _ = stroke_cover(t.shape, p / t.px, w / t.px)
         k = t.add(((slice(None), slice(None)), cov), "strip")
@@ -242,8 +242,9 @@ def _red_cells(rng, t, cell_od):
     ys, xs = np.nonzero(t.blood)
     if ys.size == 0:
         return np.zeros(t.shape, np.float32)
-    gy, gx = np.mgrid[ys.min() / s:ys.max() / s + 1, xs.min() / s:xs.max() / s + 1].astype(np.float32)
-    py = gy * s * 0.866 + rng.normal(0, 0.22 * s, gy.shape)
+    row = 0.866 * s  # rows of a triangular lattice
+    gy, gx = np.mgrid[ys.min() // row:ys.max() // row + 2, xs.min() // s - 1:xs.max() // s + 2].astype(np.float32)
+    py = gy * row + rng.normal(0, 0.22 * s, gy.shape)
     px_ = gx * s + 0.5 * s * (np.rint(gy) % 2) + rng.normal(0, 0.22 * s, gx.shape)
     keep = (py >= 0) & (py < t.shape[0] - 1) & (px_ >= 0) & (px_ < t.shape[1] - 1)
     py, px_ = py[keep], px_[keep]
@@ -333,8 +334,9 @@ def finish(rng, t, *, green_he, strength):
         edge = rng.random() < 0.6
         sl, m, d, r = _quantile_region(rng, t, k, rng.uniform(0.05, 0.6), edge)
         reach = min(120.0, rng.uniform(0.02, 0.12) * np.sqrt(t.area_mm2(k)) * 1000) if edge else 0.0
-        out = ndimage.distance_transform_edt(~m) * t.px < reach
-        reg = (d < r) & (m | out) & ~spared[sl]
+        inner = (d < r) & m & ~spared[sl]
+        near = ndimage.distance_transform_edt(~inner) * t.px < reach  # protruding from the red part only
+        reg = inner | ((d < r) & near & (ndimage.distance_transform_edt(~m) * t.px < reach) & ~spared[sl])
         t.blood[sl] |= reg
         t.cov[sl][reg] = 1.0
         t.lab[sl][reg] = k
@@ -348,7 +350,7 @@ def finish(rng, t, *, green_he, strength):
                 t.blood[p[0]] |= (p[1] > 0.5) & (t.lab[p[0]] > 0) & ~spared[p[0]]
     ce[t.blood] *= 0.25
     ch[t.blood] = H0 * 0.05 + 0.2 * ch[t.blood]
-    cb = _red_cells(rng, t, rng.uniform(0.35, 0.75))
+    cb = _red_cells(rng, t, rng.uniform(0.45, 0.9))
     for k in [k for k in big if k not in faint_ids and t.area_mm2(k) > 0.3][:1] if rng.random() < 0.25 else []:
         ys, xs = np.nonzero(t.lab == k)
         i = rng.integers(0, ys.size)
