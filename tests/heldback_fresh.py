@@ -144,6 +144,7 @@ def draw(seed: int) -> Drawn:
     ch, ce, cb, tinfo = finish(rng, t, green_he=(hv[1], ev[1]), strength=(sh, se))
     scene = {"labels": t.lab[FINE // 2:: FINE, FINE // 2:: FINE][:h, :w], "mpp": mpp}
     marks = draw_marks(rng, scene, shape, px) if rng.random() < 0.7 else []
+    marks = [m for m in marks if (shrink(m["cov"]) >= 0.5).any()]  # marks that reach a pixel
     art, told = _artefacts(rng, shape, px, H, W)
     tint = str(rng.choice(list(TINTS)))
     glass = np.clip(rng.uniform(222, 248) + np.array(TINTS[tint]) * rng.uniform(0.5, 1.5)
