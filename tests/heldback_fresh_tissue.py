@@ -10,8 +10,8 @@ with fat lobules of empty adipocytes (cells 45-110 µm, thin membranes) over 25-
 2-5 thin strips 0.25-1.2 mm wide, torn in pieces, some with a dense epidermis-like edge (0.20).
 Stroma carries wavy eosin fibres and sparse nuclei, epithelium dense nuclei; nuclei are ~6 µm
 spots of haematoxylin. Haemorrhage (half the draws): packed red cells (one ~7-8 µm disc a cell,
-with a paler centre) over 5-60 % of 1-3 pieces, from the edge (protruding up to 0.12 mm) or
-inside; vessels full of red cells in the large layouts. Faint tissue (a third of the draws):
+with a paler centre) over 5-60 % of 1-3 pieces (a little more counting what protrudes), from
+the edge (protruding up to 0.12 mm) or inside; vessels full of red cells in the large layouts. Faint tissue (a third of the draws):
 1-2 regions, a whole small piece or a sector at a large piece's edge, whose mean optical density
 above glass in green is 0.03-0.12. Folds (a quarter): a band of a large piece at twice the
 density with a darker crease.
