@@ -116,6 +116,9 @@ def _resolve(split, glassy, rgb, tables, normal, sigma_px, grains_of, mpp):
 #: H&E pixels about their plane, never above the given ``ink_residual`` (the limit against a prior
 #: plane that may not be the slide's) nor under :data:`RESIDUAL_FLOOR` (JPEG and sensor noise).
 SPREAD_LIMIT = 8.0
+#: The limit's part proportional to the density (of :func:`.ink.ink_classes`) against the prior;
+#: after a fit it narrows with the absolute part (the plane is the slide's own).
+RELATIVE = 0.03
 RESIDUAL_FLOOR = 0.02
 #: OD norm of the pixels a plane is fitted to (:func:`.plane.fit_hne_plane`'s ``min_od``): the
 #: slide's spread is measured there; fainter pixels, noisier in colour, get a limit rising to
@@ -221,7 +224,7 @@ def find_exclusions(rgb, glass, sigma_px: float, mpp: float, glassy, *, exclude_
     if plane.fitted and (plane.tilt_deg > 1.0 or residual < ink_residual):  # class again against the slide's plane
         for r0, r1, a0, a1 in bands(h, sigma_px):
             od = _smoothed_od(rgb[a0:a1], tables, sigma_px)[r0 - a0:r1 - a0]
-            _ink.ink_classes(od, plane.normal, residual=residual, faint=(ink_residual, FIT_MIN_OD), out=classes[r0:r1])
+            _ink.ink_classes(od, plane.normal, residual=residual, relative=RELATIVE * residual / ink_residual, faint=(ink_residual, FIT_MIN_OD), out=classes[r0:r1])
             del od
         split = _split(classes, mpp, stroke_kw, grains_of)
     del classes
