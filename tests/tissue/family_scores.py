@@ -83,3 +83,32 @@ def write_qc(folder: str, name: str, rgb, mask) -> Path:
     out = ARTEFACTS / folder
     out.mkdir(parents=True, exist_ok=True)
     return Path(write_png(out / f"{name}.png", overlay_png(rgb, mask, None, mpp=mask.mpp, title=name)))
+
+
+def run_family(name: str, draw, seeds, folder: str, describe=None) -> list[dict]:
+    """Mask and score the draws ``seeds`` of a family whose ``draw(seed)`` gives ``rgb``, ``mpp``,
+    ``truth`` and ``info`` (with ``faint_od``: faint tissue under 0.03 OD above glass is left out
+    of the faint aim); print the summary (and ``describe(info)`` of each draw missing the ink aim)
+    and write the worst draws' QC pictures to ``test-artefacts/<folder>/``."""
+    from tilewright.tissue.mask import tissue_mask
+
+    scores, pictures, infos = [], {}, {}
+    for seed in seeds:
+        d = draw(seed)
+        mask = tissue_mask(d.rgb, mpp=d.mpp)
+        truth = dict(d.truth)
+        if any(v < 0.03 for v in d.info["faint_od"]):  # the aim covers faint tissue >= 0.03 OD above glass
+            truth.pop("faint")
+        s = score(mask, truth)
+        s["name"] = f"{folder}-{seed:03d}"
+        scores.append(s)
+        pictures[s["name"]], infos[s["name"]] = (d.rgb, mask), d.info
+    print("\n" + summary(name, scores))
+    if describe is not None:
+        for s in scores:
+            if passes(s)["tissue"] is False:
+                print(f"  ink aim missed: {s['name']} (kept {s['kept']:.3f}, on ink {s['on_ink']:.3f}): "
+                      f"{describe(infos[s['name']])}")
+    for s in worst(scores):
+        write_qc(folder, s["name"], *pictures[s["name"]])
+    return scores

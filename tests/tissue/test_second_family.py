@@ -13,9 +13,8 @@ import os
 
 import pytest
 
-from family_scores import SHARE, score, shares, summary, worst, write_qc
+from family_scores import SHARE, run_family, shares, summary
 from second_family import draw
-from tilewright.tissue.mask import tissue_mask
 
 DRAWS = int(os.environ.get("TILEWRIGHT_SECOND_DRAWS", "20"))
 pytestmark = pytest.mark.timeout(max(600, 30 * DRAWS))
@@ -26,21 +25,7 @@ INK_FLOOR = 0.75
 
 @pytest.fixture(scope="module")
 def scores():
-    out, pictures = [], {}
-    for seed in range(DRAWS):
-        d = draw(seed)
-        mask = tissue_mask(d.rgb, mpp=d.mpp)
-        truth = dict(d.truth)
-        if any(v < 0.03 for v in d.info["faint_od"]):  # the aim covers faint tissue >= 0.03 OD above glass
-            truth.pop("faint")
-        s = score(mask, truth)
-        s["name"] = f"second-{seed:03d}"
-        out.append(s)
-        pictures[s["name"]] = (d.rgb, mask)
-    print("\n" + summary("second family", out))
-    for s in worst(out):
-        write_qc("second-family", s["name"], *pictures[s["name"]])
-    return out
+    return run_family("second family", draw, range(DRAWS), "second-family")
 
 
 @pytest.mark.parametrize("aim", ["blood", "faint"])

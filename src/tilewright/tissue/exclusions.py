@@ -93,6 +93,22 @@ def _fit_exclusions(split, glassy):
     return sure | reddish.grains | lying_on_glass(coloured.compact | reddish.compact, glassy | sure), 0.0, sure
 
 
+def _keep_cells(split, cells):
+    """Red cells found against the prior plane stay red cells against the slide's fitted plane.
+
+    The reddish-or-coloured side of an off-plane pixel is read in the plane's own axes; a plane
+    tilted from the prior turns them, and packed red cells (haemoglobin absorbs blue as well as
+    green) can then read as hematoxylin-like, the class of green marker, which is never blood.
+    Their granular cores, found in the reddish class against the prior, are kept as red cells:
+    taken out of the coloured class's pieces and added to the reddish class's cores."""
+    grey, coloured, reddish = split
+    if not (cells.any() and (coloured.compact | coloured.strokes).any()):
+        return split
+    moved = cells & (coloured.compact | coloured.strokes)
+    return (grey, coloured._replace(compact=coloured.compact & ~moved, strokes=coloured.strokes & ~moved),
+            reddish._replace(grains=reddish.grains | moved))
+
+
 def _resolve(split, glassy, rgb, tables, normal, sigma_px, grains_of, mpp):
     """Ink from pixel classes (see :mod:`.pieces`): grey pixels; strokes of either off-plane
     class, and the red cells a reddish stroke runs across; compact coloured pieces (blue, green:
@@ -226,7 +242,9 @@ def find_exclusions(rgb, glass, sigma_px: float, mpp: float, glassy, *, exclude_
             od = _smoothed_od(rgb[a0:a1], tables, sigma_px)[r0 - a0:r1 - a0]
             _ink.ink_classes(od, plane.normal, residual=residual, relative=RELATIVE * residual / ink_residual, faint=(ink_residual, FIT_MIN_OD), out=classes[r0:r1])
             del od
+        cells = split[2].grains  # red cells against the prior
         split = _split(classes, mpp, stroke_kw, grains_of)
+        split = _keep_cells(split, cells)
     del classes
     ink, sure, blobs, blood = _resolve(split, glassy, rgb, tables, plane.normal, sigma_px, grains_of, mpp)
     del grains_of

@@ -122,7 +122,8 @@ def on_plane_films(rgb: np.ndarray, tissue: np.ndarray, away: np.ndarray, tables
     mpp : float
         µm per pixel.
     blood : ndarray (H, W) bool, optional
-        Red cells (left out of the slide's tissue texture: they are granular).
+        Red cells (left out of the slide's tissue texture, granular, and of what a film grows into,
+        dense).
     noise_od : float
         The glass's pixel noise in one channel's OD (:func:`.pieces.granularity`).
     min_px : float
@@ -157,7 +158,7 @@ def on_plane_films(rgb: np.ndarray, tissue: np.ndarray, away: np.ndarray, tables
     if not films.any():
         return out
     level = float(np.median(dens[films]))
-    dense = t & (dens >= MIN_FILM_OD)
+    dense = t & (dens >= MIN_FILM_OD) & (True if blood is None else ~blood[sub])  # red cells are dense too
     films |= _connected_to(dense & (grain < LOOSE_SHARE * texture), films)
     # over tissue: density above the tissue's local level (its mean over a Gaussian of 1.5 stroke
     # widths, over tissue pixels only, the films left out) by a share of the film's own

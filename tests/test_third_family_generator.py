@@ -1,4 +1,4 @@
-"""Checks of the fresh held-back family's GENERATOR (tests/heldback_fresh.py), not of the tissue mask:
+"""Checks of the third hard-slide family's GENERATOR (tests/third_family.py), not of the tissue mask:
 what each draw's thumbnail shows must agree with what the draw says it drew. Ground truth: the
 glass colour, light, stain vectors, faint-region densities and layouts recorded in each draw's
 ``info`` and ``truth``; the physics is Beer–Lambert (I = glass · light · 10^-OD)."""
@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 from scipy import ndimage
 
-from heldback_fresh import FINE, draw, light
+from third_family import FINE, draw, light
 
 SEEDS = (8, 12, 2, 29)  # curettage, resection, resection, strips: faint tissue, red cells, marks
 

@@ -1,7 +1,7 @@
-"""Marker marks of the fresh held-back family (tests/heldback_fresh.py): what people draw on slides
+"""Marker marks of the third hard-slide family (tests/third_family.py): what people draw on slides
 with a felt-tip marker, as strokes with a width, a pressure and fading along them.
 
-Held back: confirmation only, never tune the tissue mask on these marks (see heldback_fresh.py).
+Written apart from the tissue mask and the other families (see third_family.py).
 
 Kinds (odds per mark): an outline circling a piece, a group of pieces or a region inside a large
 piece, following the tissue's contour 0.15-1.2 mm out, solid or dashed (a quarter), with a gap or

@@ -1,7 +1,7 @@
-"""Tissue of the fresh held-back family (tests/heldback_fresh.py): layouts, texture, red cells,
+"""Tissue of the third hard-slide family (tests/third_family.py): layouts, texture, red cells,
 faint regions and folds, drawn on a fine grid (a third of the thumbnail's pixel).
 
-Held back: confirmation only, never tune the tissue mask on it (see heldback_fresh.py).
+Written apart from the tissue mask and the other families (see third_family.py).
 
 Layouts (odds): fragmented curettage pieces, 6-22 of 0.12-0.6 mm radius with torn edges (0.22);
 TMA-like round cores of 0.6-1.2 mm in a slightly turned grid, some missing or broken (0.18);
@@ -22,7 +22,7 @@ from __future__ import annotations
 import numpy as np
 from scipy import ndimage
 
-from heldback_fresh_marks import resample, stroke_cover
+from third_family_marks import resample, stroke_cover
 
 LAYOUTS = {"curettage": 0.22, "tma": 0.18, "resection": 0.25, "fatty": 0.15, "strips": 0.20}
 E0, H0 = 0.26, 0.6  # stromal eosin and nuclear haematoxylin concentrations at strength 1

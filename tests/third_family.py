@@ -1,7 +1,7 @@
-"""A FRESH held-back family of hard H&E slides (issue 28): written apart from the tuning family and
-from the older held-back one, run only to confirm the tissue mask's aims. Never tune the mask on
-it, never adjust the family to the mask's results (tests/tissue/test_heldback_fresh.py runs it;
-opt-in).
+"""The THIRD tuning family of hard H&E slides (issue 28): written apart from the other two, held
+back and run once to confirm the mask (round 3), then opened for tuning (its red cells were cut
+out as marker); tests/tissue/test_third_family.py asserts the aims on it. The family itself was
+never adjusted to the mask's results. The held-back family now is tests/confirm_family.py.
 
 ``draw(seed)`` gives a thumbnail as a scanner's pyramid level near 8 µm/px would: drawn on a fine
 grid (a third of the thumbnail's pixel), each channel I = glass · light · mean(10^-OD) over the
@@ -15,9 +15,9 @@ Distributions (each draw, all independent unless said):
 - stains: H and E from Ruifrok & Johnston (2001), each turned by 0-8° about a random axis, redrawn
   until at least 25° apart; strengths of H and of E, apart: 80 % log-normal about 1 (sd 0.3 in
   ln), 20 % log-uniform, all clipped to 0.15-1.6x;
-- layout, red cells, faint tissue, folds: tests/heldback_fresh_tissue.py;
+- layout, red cells, faint tissue, folds: tests/third_family_tissue.py;
 - marker in 70 % of draws, 1-4 marks, one dye for all (65 %) or a dye per mark:
-  tests/heldback_fresh_marks.py;
+  tests/third_family_marks.py;
 - bubbles (20 %): 1-3 of 0.15-1.2 mm radius, grey rims 8-25 µm wide; dust (50 %): 3-40 specks of
   3-25 µm, grey or brown, and 0-2 fibres; uneven light: gradients up to ±2 % across and a
   vignette up to 3 % darker at the corners;
@@ -39,8 +39,8 @@ from dataclasses import dataclass
 import numpy as np
 from PIL import Image
 
-from heldback_fresh_marks import DYES, draw_marks, stroke_cover
-from heldback_fresh_tissue import LAYOUTS, Tissue, _place, finish, polar_piece
+from third_family_marks import DYES, draw_marks, stroke_cover
+from third_family_tissue import LAYOUTS, Tissue, _place, finish, polar_piece
 
 FINE = 3
 RJ_H, RJ_E = (0.65, 0.70, 0.29), (0.07, 0.99, 0.11)  # Ruifrok & Johnston (2001), before normalizing
