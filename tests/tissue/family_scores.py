@@ -27,13 +27,23 @@ def score(mask, truth, spare=None) -> dict:
     m, ink = mask.array, truth["ink"]
     free = truth["tissue"] & ~ink & (True if spare is None else ~spare)
     out = {"kept": float(m[free].mean()) if free.any() else float("nan"),
-           "on_ink": float((m & ink).sum()) / max(1, int(m.sum()))}
+           "on_ink": float((m & ink).sum()) / max(1, int(m.sum())),
+           "on_glass": on_glass(m, truth)}
     for key in ("blood", "faint"):
         t = truth.get(key)
         t = None if t is None else t & ~ink
         out[key] = float(m[t].mean()) if t is not None and t.sum() >= 20 else float("nan")
     out["warnings"] = list(mask.warnings)
     return out
+
+
+def on_glass(m, truth) -> float:
+    """Share of the mask on blank glass: more than 4 pixels from any drawn tissue or ink (no aim
+    asks for it; reported: tiles cut there show nothing)."""
+    import cv2
+
+    near = cv2.dilate((truth["tissue"] | truth["ink"]).astype(np.uint8), np.ones((9, 9), np.uint8)).astype(bool)
+    return float((m & ~near).sum()) / max(1, int(m.sum()))
 
 
 def passes(s: dict) -> dict:
@@ -65,9 +75,14 @@ def summary(name: str, scores: list[dict]) -> str:
     lines = [f"{name}: {len(scores)} draws"]
     for aim, (share, n) in shares(scores).items():
         lines.append(f"  {aim}: {share:.3f} of {n} draws meet the aim")
-    for key in ("kept", "on_ink", "blood", "faint"):
-        v = np.array([s[key] for s in scores if s[key] == s[key]])
+    for key in ("kept", "on_ink", "blood", "faint", "on_glass"):
+        v = np.array([s[key] for s in scores if s.get(key, np.nan) == s.get(key, np.nan)])
         if v.size:
+            if key == "on_glass":  # the high end matters: median, 95th percentile, max, draws over 5 %
+                q = np.quantile(v, [0.5, 0.95, 1.0])
+                lines.append(f"  {key}: median {q[0]:.3f}, 95th percentile {q[1]:.3f}, max {q[2]:.3f}, "
+                             f"{int((v > 0.05).sum())} draws over 0.05")
+                continue
             q = np.quantile(v, [0.0, 0.05, 0.5])
             lines.append(f"  {key}: min {q[0]:.3f}, 5th percentile {q[1]:.3f}, median {q[2]:.3f}")
     for s in worst(scores):

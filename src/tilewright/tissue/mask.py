@@ -19,6 +19,7 @@ import numpy as np
 from .density import find_glass, od_tables
 from .exclusions import FILM_UM2, find_exclusions
 from .films import on_plane_films
+from .flatfield import flatten_light
 from .morphology import drop_small, fill_holes, morph, px
 from .threshold import _LOG_FLOOR, METHODS, density_threshold, tissue_feature  # noqa: F401 (_LOG_FLOOR re-exported)
 from .raster import box_fractions, summed_area_table
@@ -330,6 +331,12 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-noise", sensitivit
         raise ValueError(f"unknown tissue method {method!r}; choose one of {METHODS}")
     rgb, mpp, path = thumbnail_rgb(slide, mpp)  # mpp: the true µm/px of the thumbnail's pixels
     survey = find_glass(rgb, fallback=glass_fallback)
+    light = 0.0
+    if glass is None and survey.found:  # uneven light divided out, measured on the glass itself
+        flat, light = flatten_light(rgb, survey.candidates)
+        if flat is not rgb:
+            rgb = flat
+            survey = find_glass(rgb, fallback=glass_fallback)
     warnings = []
     glass_given = glass
     if glass is not None:
@@ -413,5 +420,5 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-noise", sensitivit
               "hne_plane_normal": None if plane is None else [float(v) for v in plane.normal],
               "hne_plane_fitted": None if plane is None else bool(plane.fitted),
               "ink_share": ink_share, "dark_share": dark_share, "removed_share": ink_share + dark_share,
-              "reread_share": float(found.reread), "film_share": film_share, "tissue_mm2": tissue_mm2}
+              "reread_share": float(found.reread), "film_share": film_share, "light_variation": light, "tissue_mm2": tissue_mm2}
     return TissueMask(tissue, mpp, ink=ink, dark=dark, threshold=threshold, params=params, warnings=warnings)
