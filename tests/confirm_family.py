@@ -253,6 +253,4 @@ def draw(seed: int) -> Drawn:
              "ink": _reduce(foot.astype(np.float32), f) >= 0.5,
              "blood": _reduce(cv.blood.astype(np.float32), f) >= 0.5,
              "faint": _reduce(faint_map.astype(np.float32), f) >= 0.5}
-    truth["blood"] &= truth["tissue"]
-    truth["faint"] &= truth["tissue"]
     return Drawn(rgb, float(mpp), truth, info, light.astype(np.float32), _reduce(dirt.astype(np.float32), f) > 0)

@@ -39,7 +39,8 @@ def star_piece(shape, centre, radius, rng, lobes=5, rough=0.18, aspect=1.0, angl
     c0, c1 = max(0, int(centre[1] - reach)), min(shape[1], int(centre[1] + reach) + 1)
     if r1 <= r0 or c1 <= c0:
         return out
-    yy, xx = np.mgrid[r0:r1, c0:c1].astype(np.float32)
+    st = max(1, int(reach / 80))  # the smooth ratio r / edge on a coarse grid, interpolated
+    yy, xx = np.mgrid[r0 : r1 + st : st, c0 : c1 + st : st].astype(np.float32)
     dy, dx = yy - centre[0], xx - centre[1]
     c, s = np.cos(angle), np.sin(angle)
     u, v = (dx * c + dy * s) / aspect, -dx * s + dy * c
@@ -47,7 +48,10 @@ def star_piece(shape, centre, radius, rng, lobes=5, rough=0.18, aspect=1.0, angl
     edge = np.ones_like(r)
     for k, (a, p) in enumerate(zip(amps, phases), start=2):
         edge += a * np.cos(k * th + p)
-    out[r0:r1, c0:c1] = r <= radius * edge
+    q = r / (radius * edge)
+    if st > 1:
+        q = ndi.zoom(q, st, order=1, grid_mode=False)
+    out[r0:r1, c0:c1] = q[: r1 - r0, : c1 - c0] <= 1
     return out
 
 
