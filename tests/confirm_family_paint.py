@@ -80,7 +80,7 @@ def tube(shape, pts, half, pad=4):
     polyline, and the index of the nearest sample. ``half``: half width per sample.
 
     Returns (box slices, distance map, nearest-sample index map, inside map)."""
-    pts, _ = np.asarray(pts, float), None
+    pts = np.asarray(pts, float)
     hw = np.broadcast_to(np.asarray(half, float), (len(pts),))
     m = int(np.ceil(hw.max())) + pad
     r0, c0 = max(0, int(pts[:, 0].min()) - m), max(0, int(pts[:, 1].min()) - m)
