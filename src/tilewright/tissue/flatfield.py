@@ -24,10 +24,13 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["flatten_light", "MIN_VARIATION", "MAX_GAIN"]
+__all__ = ["flatten_light", "MIN_VARIATION", "MIN_EXPLAINED", "MAX_GAIN"]
 
 #: Light varying by less than this share over the slide's glass is left as it is.
 MIN_VARIATION = 0.01
+#: The fitted light must explain at least this share of the variance of the glass samples it kept
+#: in every channel (else the glass differs by noise, tints and rims, not by light).
+MIN_EXPLAINED = 0.4
 #: The correction never brightens or darkens a pixel by more than this share (a fit extrapolated
 #: over a slide mostly covered by tissue).
 MAX_GAIN = 0.08
@@ -69,10 +72,12 @@ def flatten_light(rgb: np.ndarray, glass: np.ndarray, *, min_fraction: float = 0
              glass[h // 2:, w // 2:].any()]
     if sum(quads) < 3:
         return rgb, 0.0
-    # block samples: the bright part (75th percentile) of the glass in each block of B x B pixels
+    # block samples: the bright part (90th percentile) of the glass in each block of B x B pixels
     # that is mostly glass; faint tissue among the candidates lowers a block's sample less
     b = _BLOCK
     hb, wb = h // b, w // b
+    # glass away from anything else: the blurred rims of ink and tissue are bright and grey too
+    glass = cv2.erode(glass.view(np.uint8), cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (9, 9))).view(bool)
     if hb < 3 or wb < 3:
         return rgb, 0.0
     cut = glass[:hb * b, :wb * b].reshape(hb, b, wb, b)
@@ -84,7 +89,7 @@ def flatten_light(rgb: np.ndarray, glass: np.ndarray, *, min_fraction: float = 0
 
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", RuntimeWarning)
-            level75 = np.nanpercentile(px.transpose(0, 2, 1, 3, 4).reshape(hb, wb, b * b, 3), 75, axis=2)
+            level75 = np.nanpercentile(px.transpose(0, 2, 1, 3, 4).reshape(hb, wb, b * b, 3), 90, axis=2)
     use = share >= 0.5
     if use.sum() < 12:
         return rgb, 0.0
@@ -93,6 +98,7 @@ def flatten_light(rgb: np.ndarray, glass: np.ndarray, *, min_fraction: float = 0
     a = _terms(2.0 * ys / max(h - 1, 1) - 1.0, 2.0 * xs / max(w - 1, 1) - 1.0)
     logi = np.log(np.maximum(level75[by, bx].astype(np.float64), 1.0))
     coef = np.zeros((a.shape[1], 3))
+    explained = np.zeros(3)
     for c in range(3):
         keep = np.ones(len(ys), bool)
         for _ in range(5):  # tissue among the glass lies below the light: trimmed from below
@@ -102,6 +108,9 @@ def flatten_light(rgb: np.ndarray, glass: np.ndarray, *, min_fraction: float = 0
             keep = res > -2.0 * 1.4826 * mad
             if keep.sum() < a.shape[1] * 2:
                 return rgb, 0.0
+        explained[c] = 1.0 - float(np.var(res[keep])) / max(float(np.var(logi[keep, c])), 1e-12)
+    if explained.min() < MIN_EXPLAINED:  # no smooth light across the glass: blocks differ by noise or rims
+        return rgb, 0.0
     gy, gx = np.mgrid[0:h:_COARSE, 0:w:_COARSE].astype(np.float64)
     field = _terms(2.0 * gy / max(h - 1, 1) - 1.0, 2.0 * gx / max(w - 1, 1) - 1.0) @ coef  # log light
     level = np.quantile(a @ coef, 0.9, axis=0)  # the light on the brightest glass: the reference
