@@ -8,10 +8,11 @@ tiles of blank glass are cut. Flat-field correction divides an image by the imag
 illumination; with no blank frame at hand, the illumination is fitted to the slide's own glass
 pixels (bright and nearly grey, :func:`.density.find_glass`): per channel, a smooth surface in
 ``log I`` over the slide (a quadratic in x and y and a fourth-power radial term, the shape of
-lens fall-off), fitted by least squares to the bright part of the glass in blocks of 16 x 16
-pixels with the darkest residuals trimmed again and again (faint tissue is bright and nearly grey
-too, but lies below the light), and divided out where it varies by more than
-:data:`MIN_VARIATION`.
+lens fall-off), fitted by least squares to the mean glass of blocks of 16 x 16 pixels (glass
+pixels away from the blurred rims of ink and tissue) with the darkest residuals trimmed again and
+again (faint tissue is bright and nearly grey too, but lies below the light), and divided out
+where it varies by more than :data:`MIN_VARIATION` and explains most of the glass's variation
+(:data:`MIN_EXPLAINED`).
 
 References
 ----------
@@ -72,31 +73,30 @@ def flatten_light(rgb: np.ndarray, glass: np.ndarray, *, min_fraction: float = 0
              glass[h // 2:, w // 2:].any()]
     if sum(quads) < 3:
         return rgb, 0.0
-    # block samples: the bright part (90th percentile) of the glass in each block of B x B pixels
-    # that is mostly glass; faint tissue among the candidates lowers a block's sample less
+    # block samples: the mean of the glass pixels in each block of B x B pixels that is mostly glass
     b = _BLOCK
     hb, wb = h // b, w // b
     # glass away from anything else: the blurred rims of ink and tissue are bright and grey too
     glass = cv2.erode(glass.view(np.uint8), cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (9, 9))).view(bool)
     if hb < 3 or wb < 3:
         return rgb, 0.0
-    cut = glass[:hb * b, :wb * b].reshape(hb, b, wb, b)
-    share = cut.mean(axis=(1, 3))
-    px = rgb[:hb * b, :wb * b].reshape(hb, b, wb, b, 3).astype(np.float32)
-    px = np.where(cut[..., None], px, np.nan)
-    with np.errstate(all="ignore"):
-        import warnings
-
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", RuntimeWarning)
-            level75 = np.nanpercentile(px.transpose(0, 2, 1, 3, 4).reshape(hb, wb, b * b, 3), 90, axis=2)
+    share = np.empty((hb, wb), np.float32)
+    level = np.empty((hb, wb, 3), np.float32)
+    for r0 in range(0, hb * b, 256):  # block means of the glass pixels, a band of rows at a time
+        r1 = min(hb * b, r0 + 256)
+        g = glass[r0:r1, :wb * b].astype(np.float32)
+        sums = cv2.resize(rgb[r0:r1, :wb * b].astype(np.float32) * g[..., None], (wb, (r1 - r0) // b),
+                          interpolation=cv2.INTER_AREA)
+        frac = cv2.resize(g, (wb, (r1 - r0) // b), interpolation=cv2.INTER_AREA)
+        share[r0 // b:r1 // b] = frac
+        level[r0 // b:r1 // b] = sums / np.maximum(frac, 1e-6)[..., None]
     use = share >= 0.5
     if use.sum() < 12:
         return rgb, 0.0
     by, bx = np.nonzero(use)
     ys, xs = (by + 0.5) * b, (bx + 0.5) * b
     a = _terms(2.0 * ys / max(h - 1, 1) - 1.0, 2.0 * xs / max(w - 1, 1) - 1.0)
-    logi = np.log(np.maximum(level75[by, bx].astype(np.float64), 1.0))
+    logi = np.log(np.maximum(level[by, bx].astype(np.float64), 1.0))
     coef = np.zeros((a.shape[1], 3))
     explained = np.zeros(3)
     for c in range(3):
