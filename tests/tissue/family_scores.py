@@ -103,7 +103,7 @@ def write_qc(folder: str, name: str, rgb, mask) -> Path:
 def run_family(name: str, draw, seeds, folder: str, describe=None) -> list[dict]:
     """Mask and score the draws ``seeds`` of a family whose ``draw(seed)`` gives ``rgb``, ``mpp``,
     ``truth`` and ``info`` (with ``faint_od``: faint tissue under 0.03 OD above glass is left out
-    of the faint aim); print the summary (and ``describe(info)`` of each draw missing the ink aim)
+    of the faint aim); print the summary (and ``describe(info)`` of each draw missing an aim)
     and write the worst draws' QC pictures to ``test-artefacts/<folder>/``."""
     from tilewright.tissue.mask import tissue_mask
 
@@ -121,8 +121,9 @@ def run_family(name: str, draw, seeds, folder: str, describe=None) -> list[dict]
     print("\n" + summary(name, scores))
     if describe is not None:
         for s in scores:
-            if passes(s)["tissue"] is False:
-                print(f"  ink aim missed: {s['name']} (kept {s['kept']:.3f}, on ink {s['on_ink']:.3f}): "
+            missed = [{"tissue": "ink"}.get(aim, aim) for aim, ok in passes(s).items() if ok is False]
+            if missed:
+                print(f"  missed {'/'.join(missed)}: {s['name']} (kept {s['kept']:.3f}, on ink {s['on_ink']:.3f}): "
                       f"{describe(infos[s['name']])}")
     for s in worst(scores):
         write_qc(folder, s["name"], *pictures[s["name"]])

@@ -28,7 +28,8 @@ DRAWS = int(os.environ.get("TILEWRIGHT_FAMILY_DRAWS", "30"))
 pytestmark = pytest.mark.timeout(max(600, 30 * DRAWS))  # the full run renders each draw
 FAINT_OD = 0.03
 #: Share of all draws meeting the ink aim below which the test fails: the aim (0.95) is not met on
-#: the widened family (0.80 of the first 30 draws and 0.88 of 160 after round 2; 0.82 of 160 before it).
+#: the widened family (0.80 of the first 30 draws and 0.88 of 160 after round 2, 0.90 of 160 after round 3;
+#: 0.82 of 160 before round 2).
 INK_FLOOR = 0.75
 
 
