@@ -102,7 +102,9 @@ def flatten_light(rgb: np.ndarray, glass: np.ndarray, *, min_fraction: float = 0
     for c in range(3):
         keep = np.ones(len(ys), bool)
         for _ in range(5):  # tissue among the glass lies below the light: trimmed from below
-            coef[:, c] = np.linalg.lstsq(a[keep], logi[keep, c], rcond=None)[0]
+            k = a[keep]  # normal equations summed in a fixed order (see plane.py), 7 x 7
+            coef[:, c] = np.linalg.solve(np.einsum("ij,ik->jk", k, k, optimize=False) + 1e-12 * np.eye(k.shape[1]),
+                                         np.einsum("ij,i->j", k, logi[keep, c], optimize=False))
             res = logi[:, c] - a @ coef[:, c]
             mad = float(np.median(np.abs(res[keep] - np.median(res[keep])))) + 1e-4
             keep = res > -2.0 * 1.4826 * mad

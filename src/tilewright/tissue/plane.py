@@ -129,7 +129,10 @@ def fit_hne_plane(od, *, min_od: float = 0.15, keep: float = 0.8, iterations: in
         sub = x[res <= np.quantile(res, keep)]
         if sub.shape[0] < min_pixels:
             break
-        vals, vecs = np.linalg.eigh(sub.T @ sub)
+        # the 3 x 3 scatter summed in one fixed order (a threaded BLAS splits the sum over pixels
+        # by its thread count: the same slide gave a plane differing in the last bits, and pixels
+        # at a limit flipped between a one-process and a worker-process run)
+        vals, vecs = np.linalg.eigh(np.einsum("ij,ik->jk", sub, sub, optimize=False))
         if vals[1] < flat * vals[0]:  # one colour only: the plane nearest the prior that holds it
             d = vecs[:, 2]
             v = prior - (prior @ d) * d
