@@ -32,7 +32,7 @@ from __future__ import annotations
 import numpy as np
 
 from .density import od_lookup
-from .pieces import band_shape, granularity, lying_on_glass
+from .pieces import band_shape, granularity_bands, lying_on_glass
 
 __all__ = ["on_plane_films", "MIN_TEXTURE", "SMOOTH_SHARE", "LOOSE_SHARE", "MIN_FILM_OD", "EXCESS"]
 
@@ -51,17 +51,11 @@ EXCESS = 0.5
 def _measure(rgb, tables, noise_od, box):
     """Granularity and mean optical density over ``box`` (y0, y1, x0, x1), band by band."""
     y0, y1, x0, x1 = box
-    h, w = rgb.shape[:2]
-    halo = 16  # the granularity's median and Gaussians reach 14 px
-    cx0, cx1 = max(0, x0 - halo), min(w, x1 + halo)
     grain = np.empty((y1 - y0, x1 - x0), np.float32)
     dens = np.empty((y1 - y0, x1 - x0), np.float32)
-    for r0 in range(y0, y1, 256):
-        r1 = min(y1, r0 + 256)
-        a0, a1 = max(0, r0 - halo), min(h, r1 + halo)
-        part = np.ascontiguousarray(rgb[a0:a1, cx0:cx1])
-        grain[r0 - y0:r1 - y0] = granularity(part, tables, noise_od)[r0 - a0:r1 - a0, x0 - cx0:x1 - cx0]
-        dens[r0 - y0:r1 - y0] = od_lookup(part[r0 - a0:r1 - a0, x0 - cx0:x1 - cx0], tables).mean(axis=2)
+    for r0, r1, g in granularity_bands(rgb, tables, noise_od, box):
+        grain[r0 - y0:r1 - y0] = g
+        dens[r0 - y0:r1 - y0] = od_lookup(np.ascontiguousarray(rgb[r0:r1, x0:x1]), tables).mean(axis=2)
     return grain, dens
 
 
@@ -71,7 +65,8 @@ def _seeds(smooth, away, dens, mpp, min_px, min_stroke_um, elongation):
 
     n, labels, stats, _ = cv2.connectedComponentsWithStats(smooth.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
     out = np.zeros_like(smooth)
-    widths = []
+    compact = np.zeros_like(smooth)  # dense smooth pieces that are not strokes: films if on glass
+    widths, others = [], []
     stroke_px = max(min_stroke_um / mpp, 1.0)
     for k in np.flatnonzero(stats[1:, cv2.CC_STAT_AREA] >= min_px) + 1:
         x, y, bw, bh, _ = stats[k]
@@ -79,14 +74,18 @@ def _seeds(smooth, away, dens, mpp, min_px, min_stroke_um, elongation):
         if np.median(dens[y:y + bh, x:x + bw][part]) < MIN_FILM_OD:
             continue
         width, stretch = band_shape(part)
-        film = width >= stroke_px and stretch >= elongation
-        if not film:
-            one = np.zeros_like(smooth)
-            one[y:y + bh, x:x + bw] = part
-            film = bool(lying_on_glass(one, away).any())
-        if film:
+        if width >= stroke_px and stretch >= elongation:
             out[y:y + bh, x:x + bw] |= part
             widths.append(width)
+        else:
+            compact[y:y + bh, x:x + bw] |= part
+            others.append((y, x, bh, bw, part, width))
+    if others:  # one pass over all of them (each piece is judged by its own ring)
+        on_glass = lying_on_glass(compact, away)
+        for y, x, bh, bw, part, width in others:
+            if on_glass[y:y + bh, x:x + bw][part].any():
+                out[y:y + bh, x:x + bw] |= part
+                widths.append(width)
     return out, max(widths, default=0.0)
 
 

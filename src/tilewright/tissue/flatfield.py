@@ -115,8 +115,8 @@ def flatten_light(rgb: np.ndarray, glass: np.ndarray, *, min_fraction: float = 0
         return rgb, 0.0
     gy, gx = np.mgrid[0:h:_COARSE, 0:w:_COARSE].astype(np.float64)
     field = _terms(2.0 * gy / max(h - 1, 1) - 1.0, 2.0 * gx / max(w - 1, 1) - 1.0) @ coef  # log light
-    level = np.quantile(a @ coef, 0.9, axis=0)  # the light on the brightest glass: the reference
     fitted = a @ coef
+    level = np.quantile(fitted, 0.9, axis=0)  # the light on the brightest glass: the reference
     variation = float(np.max(np.exp(fitted.max(axis=0) - fitted.min(axis=0))) - 1.0)
     if variation < MIN_VARIATION:
         return rgb, variation

@@ -29,6 +29,7 @@ import numpy as np
 from .density import od_lookup
 
 __all__ = ["OffPlane", "GrainMap", "split_pieces", "lying_on_glass", "smooth_films", "ink_over_cells", "granularity",
+           "granularity_bands",
            "band_shape", "GRANULAR", "SMOOTH"]
 
 #: Fine-detail spread of at least this share of the density: granular (red cells), not a film of dye.
@@ -133,15 +134,24 @@ class GrainMap:
         return self.map
 
     def _compute(self, y0, y1, x0, x1):
-        h, w = self.map.shape
-        halo = 16  # a 3 x 3 median and two Gaussians of 1.5 px reach 14 px
-        cx0, cx1 = max(0, x0 - halo), min(w, x1 + halo)
-        for r0 in range(y0, y1, 256):
-            r1 = min(y1, r0 + 256)
-            a0, a1 = max(0, r0 - halo), min(h, r1 + halo)
-            g = granularity(self.rgb[a0:a1, cx0:cx1], self.tables, self.noise_od)[r0 - a0:r1 - a0, x0 - cx0:x1 - cx0]
+        for r0, r1, g in granularity_bands(self.rgb, self.tables, self.noise_od, (y0, y1, x0, x1)):
             self.map[r0:r1, x0:x1] = g >= GRANULAR
             self.smooth[r0:r1, x0:x1] = g < SMOOTH
+
+
+def granularity_bands(rgb: np.ndarray, tables: np.ndarray, noise_od: float, box):
+    """:func:`granularity` over ``box`` (y0, y1, x0, x1) of a thumbnail, a band of 256 rows at a
+    time (float temporaries stay a few MB): yields ``(r0, r1, g)``, ``g`` the granularity of rows
+    ``[r0, r1)`` and columns ``[x0, x1)``, each band read with a halo wide enough that it equals
+    the whole image's."""
+    y0, y1, x0, x1 = box
+    h, w = rgb.shape[:2]
+    halo = 16  # a 3 x 3 median and two Gaussians of 1.5 px reach 14 px
+    cx0, cx1 = max(0, x0 - halo), min(w, x1 + halo)
+    for r0 in range(y0, y1, 256):
+        r1 = min(y1, r0 + 256)
+        a0, a1 = max(0, r0 - halo), min(h, r1 + halo)
+        yield r0, r1, granularity(rgb[a0:a1, cx0:cx1], tables, noise_od)[r0 - a0:r1 - a0, x0 - cx0:x1 - cx0]
 
 
 def split_pieces(candidates: np.ndarray, mpp: float, *, grains_of=None, min_stroke_um: float = 100.0,
