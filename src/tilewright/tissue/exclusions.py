@@ -87,7 +87,8 @@ def _fit_exclusions(split, glassy):
     # strokes with their blurred rims: mixtures of ink and tissue lie off every plane
     rims = cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (5, 5))
     sure = grey | cv2.dilate((coloured.strokes | reddish.strokes).view(np.uint8), rims).view(bool)
-    share = float((coloured.compact | reddish.compact | reddish.grains).sum()) / max(1, int((~(glassy | sure)).sum()))
+    pieces = coloured.compact | reddish.compact | reddish.grains
+    share = float(pieces.sum()) / max(1, int((pieces | ~(glassy | sure)).sum()))  # a share, never over 1
     if share >= REREAD_SHARE:
         return sure, share, sure
     return sure | reddish.grains | lying_on_glass(coloured.compact | reddish.compact, glassy | sure), 0.0, sure
@@ -249,8 +250,9 @@ def find_exclusions(rgb, glass, sigma_px: float, mpp: float, glassy, *, exclude_
     ink, sure, blobs, blood = _resolve(split, glassy, rgb, tables, plane.normal, sigma_px, grains_of, mpp)
     del grains_of
     del split
-    stained = int((~(glassy | sure)).sum())  # the stained area that is not ink by shape or greyness
-    share = float(blobs.sum()) / max(1, stained)
+    # the stained area that is not ink by shape or greyness (with the pieces below the tissue
+    # threshold that were taken for ink by colour: a share, never over 1)
+    share = float(blobs.sum()) / max(1, int((blobs | ~(glassy | sure)).sum()))
     if share >= REREAD_SHARE:  # "ink" over most of the stained area: the stain, not ink
         ink &= ~blobs
         reread = max(reread, share)

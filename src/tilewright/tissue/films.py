@@ -150,12 +150,15 @@ def on_plane_films(rgb: np.ndarray, tissue: np.ndarray, away: np.ndarray, tables
     if texture < MIN_TEXTURE:
         return out
     disc = cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (5, 5))
-    smooth = cv2.morphologyEx((t & (grain < SMOOTH_SHARE * texture)).view(np.uint8), cv2.MORPH_OPEN, disc).view(bool)
+    cells = np.zeros_like(t) if blood is None else blood[sub]
+    # red cells are off the plane (haemoglobin), found by colour: never a film on it, however smooth
+    # (packed sheets of cells 7 µm across are smooth at a thumbnail's 8 µm/px)
+    smooth = cv2.morphologyEx((t & ~cells & (grain < SMOOTH_SHARE * texture)).view(np.uint8), cv2.MORPH_OPEN, disc).view(bool)
     films, width = _seeds(smooth, away[sub], dens, mpp, min_px, min_stroke_um, elongation)
     if not films.any():
         return out
     level = float(np.median(dens[films]))
-    dense = t & (dens >= MIN_FILM_OD) & (True if blood is None else ~blood[sub])  # red cells are dense too
+    dense = t & (dens >= MIN_FILM_OD) & ~cells  # red cells are dense too
     films |= _connected_to(dense & (grain < LOOSE_SHARE * texture), films)
     # over tissue: density above the tissue's local level (its mean over a Gaussian of 1.5 stroke
     # widths, over tissue pixels only, the films left out) by a share of the film's own

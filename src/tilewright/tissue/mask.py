@@ -20,7 +20,7 @@ from .density import find_glass, od_tables
 from .exclusions import FILM_UM2, find_exclusions
 from .films import on_plane_films
 from .flatfield import flatten_light
-from .morphology import drop_small, fill_holes, morph, px
+from .morphology import drop_small, enclosed, fill_holes, morph, px
 from .threshold import _LOG_FLOOR, METHODS, density_threshold, tissue_feature  # noqa: F401 (_LOG_FLOOR re-exported)
 from .raster import box_fractions, summed_area_table
 
@@ -220,7 +220,7 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-noise", sensitivit
                 min_component_um2: float = 25_000.0, exclude_ink: bool = True,
                 ink_residual: float = 0.04, ink_margin_um: float = 16.0, min_stroke_um: float = 100.0,
                 exclude_dark: bool = False, dark_od: float = 0.9, glass=None,
-                glass_fallback=None) -> TissueMask:
+                glass_fallback=None, mesh_um: float = 80.0) -> TissueMask:
     """Find usable H&E tissue on a slide thumbnail.
 
     Steps: (1) a thumbnail at ``mpp`` µm/px; (2) the glass: bright, nearly grey pixels
@@ -289,6 +289,10 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-noise", sensitivit
     glass_fallback : array_like (3,), optional
         Glass colour of a slide without visible glass (for example the cohort's median glass);
         white when None.
+    mesh_um : float
+        Glass with a pixel above the threshold within this many µm along each of 8 directions is
+        tissue (:func:`~tilewright.tissue.morphology.enclosed`): the empty cells of fat, walled by
+        membranes that the threshold finds only in part at a thumbnail's µm/px; 0 turns it off.
 
     Returns
     -------
@@ -352,6 +356,8 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-noise", sensitivit
         sensitivity=sensitivity, min_od_floor=min_od_floor, max_od_ceiling=max_od_ceiling,
         min_saturation=min_saturation)
     raw = feature > threshold
+    if mesh_um > 0:  # the empty cells of fat, walled by membranes the threshold finds in part
+        raw |= enclosed(raw, px(mesh_um, mpp))
     glassy = ~raw
     survey = survey._replace(candidates=None)  # not needed past the threshold
     raw = morph(raw, "close", px(close_um, mpp))
@@ -410,7 +416,7 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-noise", sensitivit
     params = {"method": method, "source": path, "otsu": None if math.isnan(otsu) else float(otsu),
               "sensitivity": sensitivity, "floor": float(floor), "glass_noise_od": None if math.isnan(noise) else noise,
               "min_od_floor": min_od_floor, "max_od_ceiling": max_od_ceiling,
-              "min_saturation": min_saturation, "smooth_um": smooth_um, "close_um": close_um,
+              "min_saturation": min_saturation, "smooth_um": smooth_um, "close_um": close_um, "mesh_um": mesh_um,
               "open_um": open_um, "fill_holes_um2": fill_holes_um2,
               "min_component_um2": min_component_um2, "exclude_ink": exclude_ink,
               "ink_residual": ink_residual, "ink_residual_used": float(found.residual), "ink_margin_um": ink_margin_um, "min_stroke_um": min_stroke_um,

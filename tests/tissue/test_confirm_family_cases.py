@@ -1,0 +1,68 @@
+"""Draws of the confirmation family (tests/confirm_family.py) that round 4 of issue 28 opened: each
+lost tissue to a cause found and fixed there. Ground truth: what the generator drew (its truth
+maps and its illumination, ``Drawn.light``); figures before the fix in each test's text.
+"""
+
+import re
+
+import numpy as np
+import pytest
+
+from confirm_family import draw
+from family_scores import score
+from tilewright.tissue.density import find_glass
+from tilewright.tissue.flatfield import flatten_light
+from tilewright.tissue.mask import tissue_mask
+
+
+@pytest.fixture(scope="module")
+def drawn():
+    cache = {}
+
+    def get(seed):
+        if seed not in cache:
+            d = draw(seed)
+            cache[seed] = (d, tissue_mask(d.rgb, mpp=d.mpp))
+        return cache[seed]
+    return get
+
+
+def test_faint_tissue_over_most_of_the_slide_is_not_taken_for_uneven_light(drawn):
+    """Pale tissue over most of the glass (draw 20): the light fit bent into it (fitted variation
+    11 %, drawn 2 %) and brightened it away, 24 % of the tissue kept. Faint eosin dims green far
+    more than red, light dims all channels alike: the fit keeps to glass-coloured blocks."""
+    d, mask = drawn(20)
+    assert score(mask, d.truth)["kept"] >= 0.9
+    out, variation = flatten_light(d.rgb, find_glass(d.rgb).candidates)
+    g = d.rgb[..., 1].astype(float)
+    ok = g > 100
+    ratio = out[..., 1][ok] / g[ok] * d.light[ok]  # constant when the drawn light is divided out
+    err = np.abs(ratio / np.median(ratio) - 1)
+    assert np.quantile(err, 0.95) < 0.01, np.quantile(err, 0.95)
+
+
+def test_fat_walled_by_faint_membranes_is_tissue(drawn):
+    """Fat (draw 90): empty cells 50-100 µm across walled by membranes the density threshold finds
+    only in part; the open cells were glass, 71 % of the tissue kept. The generator's truth counts
+    gaps a 100 µm disc does not fit into as tissue."""
+    d, mask = drawn(90)
+    assert d.info["layout"].startswith("fat")
+    assert score(mask, d.truth)["kept"] >= 0.9
+
+
+def test_a_smooth_sheet_of_red_cells_is_not_a_film_of_marker(drawn):
+    """Packed red cells at the edge of a needle core, spilling onto the glass (draw 68, no red
+    marker on the slide): smooth at 8 µm/px, they were taken for a film of on-plane marker lying
+    on glass, 0.6 % of the blood kept."""
+    d, mask = drawn(68)
+    assert not any(m["dye"] == "red" for m in d.info["marks"])
+    assert score(mask, d.truth)["blood"] >= 0.9
+
+
+def test_shares_in_warnings_are_shares(drawn):
+    """A share of the stained area over 100 % (draw 4 said 362 %): off-plane pieces lying on glass
+    were counted over the stained area that leaves glass out."""
+    d, mask = drawn(4)
+    for w in mask.warnings:
+        for pct in re.findall(r"(\d+)% of", w):
+            assert int(pct) <= 100, w
