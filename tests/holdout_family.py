@@ -30,8 +30,9 @@ Truth maps, (H, W) bool at the thumbnail; a pixel is in a map when at least half
 its 3 × 3 fine pixels) is covered:
 
 - ``tissue``: every piece's outline filled. Empty spaces inside a piece (gland and crypt lumens,
-  vessel lumens, adipocytes, cartilage lacunae, chatter bands) are tissue; fat (at most a lobule
-  of the submucosa in the colon layout) and mucin lakes are tissue. A haemorrhage at an edge
+  cribriform holes, vessel lumens, adipocytes, cartilage lacunae) are tissue; fat (at most one
+  lobule, enclosed by tissue: in the colon's submucosa or in a carcinoma's stroma at least
+  150 µm inside the outline) and mucin lakes are tissue. A haemorrhage at an edge
   widens the piece: it is tissue. Dust, lint and bubbles are not tissue.
 - ``blood``: the regions drawn as red cells (a haemorrhage, the filled part of a vessel's lumen);
   a subset of ``tissue``.

@@ -104,7 +104,7 @@ def colon(rng, sh: Sheet) -> dict:
     c = bend * np.sin(2 * np.pi * u / per + phase)
     wid = half * (1 + 0.15 * np.sin(2 * np.pi * u / (0.6 * per) + 2 * phase))
     t = (v - c + wid) / (2 * wid)  # 0 at the luminal surface, 1 at the serosa
-    ends = rng.uniform(0.3, 0.45) * span
+    ends = rng.uniform(0.28, 0.4) * span
     rough = smooth(rng, sh.shape, sh.px(250)) * 0.03
     strip = (t > 0 + rough) & (t < 1 + rough) & (np.abs(u) < ends + sh.px(200) * smooth(rng, sh.shape, sh.px(400)))
     strip = _largest(strip)
@@ -172,7 +172,17 @@ def carcinoma(rng, sh: Sheet) -> dict:
         lake = tissue & (smooth(rng, sh.shape, sh.px(250)) > 1.6)
         sh.label[lake] = K["mucin"]
         mucin = bool(lake.any())
-    return {"pieces": pieces, "kinds": ["carcinoma"] * len(pieces), "necrosis": necrosis, "mucin": mucin,
+    fat = False
+    if rng.random() < 0.3:  # fat the tumour has grown into, enclosed by tissue
+        deep = cv2.distanceTransform(np.pad(tissue, 1).astype(np.uint8), cv2.DIST_L2, 5)[1:-1, 1:-1] > sh.px(150)
+        ys, xs = np.nonzero((deep & (sh.label == K["stroma"]))[::8, ::8])
+        if ys.size:
+            i = rng.integers(ys.size)
+            lob = blob(rng, sh.shape, ys[i] * 8, xs[i] * 8, sh.px(rng.uniform(150, 400)), sh.px(rng.uniform(250, 600)),
+                       rng.uniform(0, np.pi), rough=0.3) & (sh.label == K["stroma"]) & deep
+            sh.label[lob] = K["fat"]
+            fat = bool(lob.any())
+    return {"pieces": pieces, "kinds": ["carcinoma"] * len(pieces), "necrosis": necrosis, "mucin": mucin, "fat": fat,
             "vessel_zone": tissue & (sh.label == K["stroma"])}
 
 

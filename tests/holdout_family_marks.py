@@ -98,8 +98,10 @@ def marks(rng, tissue, faint_zone, pieces_boxes, p, ink_od, ink_fp) -> list[dict
         kind = str(rng.choice(list(KIND_ODDS), p=list(KIND_ODDS.values())))
         where = str(rng.choice(["glass", "tissue", "across"], p=[0.4, 0.3, 0.3]))
         dye = str(rng.choice(list(DYE_ODDS), p=list(DYE_ODDS.values())))
-        width = rng.uniform(200, 500) if kind in ("writing", "hatch", "arrow") else rng.uniform(250, 1300)
-        if kind == "dot":
+        width = rng.uniform(200, 500) if kind in ("writing", "hatch", "arrow") else rng.uniform(250, 1100)
+        if kind == "ring":
+            width = rng.uniform(200, 700)
+        elif kind == "dot":
             width = rng.uniform(300, 1200)
         size = {"ring": 3000, "stroke": rng.uniform(1200, 4000), "hatch": rng.uniform(700, 1600),
                 "arrow": rng.uniform(800, 2000), "writing": rng.uniform(700, 1500), "dot": 0}[kind] / p
