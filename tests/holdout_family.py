@@ -66,6 +66,9 @@ TINTS = {"neutral": (0, 0, 0), "blue": (-6, -2, 5), "yellow": (3, 2, -9), "pink"
 
 @dataclass
 class Drawn:
+    """One draw: ``rgb`` (H, W, 3) uint8 after JPEG, ``mpp`` its µm/px, ``truth`` the maps above,
+    ``info`` what was drawn (with ``faint_od``), ``layers`` the generator's own extra maps."""
+
     rgb: np.ndarray
     mpp: float
     truth: dict
