@@ -94,20 +94,28 @@ def _fit_exclusions(split, glassy):
     return sure | reddish.grains | lying_on_glass(coloured.compact | reddish.compact, glassy | sure), 0.0, sure
 
 
-def _keep_cells(split, cells):
+def _keep_cells(split, cells, was_red=None):
     """Red cells found against the prior plane stay red cells against the slide's fitted plane.
 
     The reddish-or-coloured side of an off-plane pixel is read in the plane's own axes; a plane
     tilted from the prior turns them, and packed red cells (haemoglobin absorbs blue as well as
     green) can then read as hematoxylin-like, the class of green marker, which is never blood.
     Their granular cores, found in the reddish class against the prior, are kept as red cells:
-    taken out of the coloured class's pieces and added to the reddish class's cores."""
+    taken out of the coloured class's pieces and added to the reddish class's cores. The other
+    pixels that were reddish against the prior (``was_red``; smooth sheets of packed cells are not
+    granular at a thumbnail's 8 µm/px) and are coloured against the fitted plane go back to the
+    reddish class's compact pieces, judged there by place and texture (blue and green marker are
+    coloured against both planes)."""
     grey, coloured, reddish = split
-    if not (cells.any() and (coloured.compact | coloured.strokes).any()):
+    if not (coloured.compact | coloured.strokes).any():
         return split
     moved = cells & (coloured.compact | coloured.strokes)
-    return (grey, coloured._replace(compact=coloured.compact & ~moved, strokes=coloured.strokes & ~moved),
-            reddish._replace(grains=reddish.grains | moved))
+    flipped = np.zeros_like(moved) if was_red is None else was_red & coloured.compact & ~moved
+    if not (moved.any() or flipped.any()):
+        return split
+    gone = moved | flipped
+    return (grey, coloured._replace(compact=coloured.compact & ~gone, strokes=coloured.strokes & ~moved),
+            reddish._replace(grains=reddish.grains | moved, compact=reddish.compact | flipped))
 
 
 def _resolve(split, glassy, rgb, tables, normal, sigma_px, grains_of, mpp):
@@ -239,13 +247,14 @@ def find_exclusions(rgb, glass, sigma_px: float, mpp: float, glassy, *, exclude_
     del sample
     residual = residual_limit(plane, ink_residual)
     if plane.fitted and (plane.tilt_deg > 1.0 or residual < ink_residual):  # class again against the slide's plane
+        was_red = classes == _ink.REDDISH  # what was reddish against the prior
         for r0, r1, a0, a1 in bands(h, sigma_px):
             od = _smoothed_od(rgb[a0:a1], tables, sigma_px)[r0 - a0:r1 - a0]
             _ink.ink_classes(od, plane.normal, residual=residual, relative=RELATIVE * residual / ink_residual, faint=(ink_residual, FIT_MIN_OD), out=classes[r0:r1])
             del od
         cells = split[2].grains  # red cells against the prior
         split = _split(classes, mpp, stroke_kw, grains_of)
-        split = _keep_cells(split, cells)
+        split = _keep_cells(split, cells, was_red)
     del classes
     ink, sure, blobs, blood = _resolve(split, glassy, rgb, tables, plane.normal, sigma_px, grains_of, mpp)
     del grains_of

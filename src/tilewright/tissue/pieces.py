@@ -192,13 +192,60 @@ def split_pieces(candidates: np.ndarray, mpp: float, *, grains_of=None, min_stro
     rest = candidates & ~grains
     n, labels, stats, _ = cv2.connectedComponentsWithStats(rest.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
     min_px = max(min_stroke_um / mpp, 1.0)
+    whole = None  # labels of the whole off-plane pieces, cores and all (made when needed)
+    made = []
+
+    def cores():  # the granular cores labelled, and their areas (made when needed)
+        if not made:
+            n, lab, st, _ = cv2.connectedComponentsWithStats(grains.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
+            made.append((lab, st[:, cv2.CC_STAT_AREA].astype(np.int64)))
+        return made[0]
     for k in np.flatnonzero(stats[1:, cv2.CC_STAT_AREA] >= elongation * min_px ** 2) + 1:
         x, y, bw, bh, _ = stats[k]
         part = labels[y:y + bh, x:x + bw] == k
         width, stretch = band_shape(part)
-        if width >= min_px and stretch >= elongation:
-            strokes[y:y + bh, x:x + bw] |= part
+        if width < min_px or stretch < elongation:
+            continue
+        if _carved(part, grains, (y, x), cores):  # a band cut out by granular cores: a stroke only if the
+            if whole is None:  # whole piece, cores and all, is one too (grainy marker)
+                whole = cv2.connectedComponents(candidates.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)[1]
+            iy, ix = np.argwhere(part)[0]
+            one = whole == whole[y + iy, x + ix]
+            rows, cols = np.flatnonzero(one.any(axis=1)), np.flatnonzero(one.any(axis=0))
+            w2, s2 = band_shape(one[rows[0]:rows[-1] + 1, cols[0]:cols[-1] + 1])
+            if w2 < min_px or s2 < elongation:
+                continue
+        strokes[y:y + bh, x:x + bw] |= part
     return OffPlane(strokes, rest & ~strokes, grains)
+
+
+#: A part of off-plane pixels whose outline runs along granular cores over at least this share,
+#: cores at least :data:`CARVED_CORES` times its own area, is the smooth rest of a haemorrhage cut
+#: into a band by its cores, not a stroke of marker (a stroke that crosses red cells touches them
+#: where it crosses only; grainy bits of a stroke are small beside it).
+CARVED_SHARE = 0.5
+CARVED_CORES = 0.5
+
+
+def _carved(part, grains, at, cores) -> bool:
+    """Whether the outline of ``part`` (a box of the slide at ``at``) runs along ``grains`` whose
+    connected cores (labelled ``cores()``) are large beside it."""
+    import cv2
+
+    if not grains.any():
+        return False
+    y, x = at
+    h, w = part.shape
+    y0, x0 = max(0, y - 1), max(0, x - 1)
+    box = np.zeros((min(grains.shape[0], y + h + 1) - y0, min(grains.shape[1], x + w + 1) - x0), np.uint8)
+    box[y - y0:y - y0 + h, x - x0:x - x0 + w] = part
+    rim = cv2.dilate(box, np.ones((3, 3), np.uint8)).view(bool) & ~box.view(bool)
+    near = grains[y0:y0 + box.shape[0], x0:x0 + box.shape[1]][rim]
+    if not rim.any() or float(near.mean()) < CARVED_SHARE:
+        return False
+    labels, areas = cores()
+    touched = np.unique(labels[y0:y0 + box.shape[0], x0:x0 + box.shape[1]][rim])
+    return float(areas[touched[touched > 0]].sum()) >= CARVED_CORES * float(part.sum())
 
 
 def lying_on_glass(compact: np.ndarray, away: np.ndarray, *, share: float = 0.5) -> np.ndarray:
