@@ -90,3 +90,15 @@ def test_a_haemorrhage_cut_into_bands_by_its_granular_cores_is_not_a_stroke(draw
     assert not d.info["marks"]
     s = score(mask, d.truth)
     assert s["blood"] >= 0.9 and s["kept"] >= 0.9, s
+
+
+@pytest.mark.parametrize("seed", [13, 35])
+def test_glass_rounded_into_bands_is_not_tissue(drawn, seed):
+    """Glass under a drawn vignette, rounded to 8 bits and JPEG-compressed (draws 13 and 35): once
+    the light is divided out its values below their mode sat within a hundredth of a grey level of
+    it, the measured noise collapsed (4e-5 OD), and 71 % and 79 % of the mask lay on blank glass.
+    The noise is never under half a grey level of the glass's colour: 5 % on glass now (dust and
+    the walls of fat, not the glass's bands). Ground truth: the drawn tissue and ink (``on_glass``:
+    mask more than 4 px from any of them)."""
+    d, mask = drawn(seed)
+    assert score(mask, d.truth)["on_glass"] <= 0.1

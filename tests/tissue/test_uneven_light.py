@@ -52,3 +52,11 @@ def test_even_light_is_left_as_it_is():
     glass = (rgb.min(axis=2) >= 200)
     out, variation = flatten_light(rgb, glass)
     assert out is rgb and variation < 0.01  # rendered under even light: nothing to divide out
+
+
+def test_one_grey_level_of_glass_in_optical_density():
+    """``grey_level_od``: mean over R, G, B of log10(g / (g - 1)), by hand for (240, 200, 250):
+    log10(240/239) = 0.0018134, log10(200/199) = 0.0021769, log10(250/249) = 0.0017406."""
+    from tilewright.tissue.threshold import grey_level_od
+
+    assert grey_level_od((240, 200, 250)) == pytest.approx((0.0018134 + 0.0021769 + 0.0017406) / 3, rel=1e-4)

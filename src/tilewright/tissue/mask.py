@@ -21,7 +21,7 @@ from .exclusions import FILM_UM2, find_exclusions
 from .films import on_plane_films
 from .flatfield import flatten_light
 from .morphology import drop_small, enclosed, fill_holes, morph, px
-from .threshold import _LOG_FLOOR, METHODS, density_threshold, tissue_feature  # noqa: F401 (_LOG_FLOOR re-exported)
+from .threshold import _LOG_FLOOR, METHODS, MIN_FLOOR_OD, density_threshold, tissue_feature  # noqa: F401 (_LOG_FLOOR re-exported)
 from .raster import box_fractions, summed_area_table
 
 __all__ = ["TissueMask", "tissue_mask", "tissue_feature", "thumbnail_rgb", "METHODS"]
@@ -35,6 +35,9 @@ HIGH_INK_FRACTION = 0.25
 HIGH_DARK_FRACTION = 0.25
 LITTLE_TISSUE_MM2 = 1.0
 LITTLE_TISSUE_SHARE = 0.02
+#: The membranes that wall in the empty cells of fat (``mesh_um``) are found this many robust standard
+#: deviations of the glass's noise below the density threshold (thin and pale; found in part at it).
+MESH_SIGMAS = 3.0
 
 
 class TissueMask:
@@ -290,9 +293,10 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-noise", sensitivit
         Glass colour of a slide without visible glass (for example the cohort's median glass);
         white when None.
     mesh_um : float
-        Glass with a pixel above the threshold within this many µm along each of 8 directions is
-        tissue (:func:`~tilewright.tissue.morphology.enclosed`): the empty cells of fat, walled by
-        membranes that the threshold finds only in part at a thumbnail's µm/px; 0 turns it off.
+        Glass with a wall within this many µm along each of 8 directions is tissue
+        (:func:`~tilewright.tissue.morphology.enclosed`): the empty cells of fat, walled by
+        membranes that the threshold finds only in part at a thumbnail's µm/px (walls: density
+        :data:`MESH_SIGMAS` noise deviations under the threshold); 0 turns it off.
 
     Returns
     -------
@@ -357,7 +361,9 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-noise", sensitivit
         min_saturation=min_saturation)
     raw = feature > threshold
     if mesh_um > 0:  # the empty cells of fat, walled by membranes the threshold finds in part
-        raw |= enclosed(raw, px(mesh_um, mpp))
+        walls = raw if noise != noise else feature > max(MIN_FLOOR_OD / sensitivity, threshold - MESH_SIGMAS * noise)
+        raw |= enclosed(walls, px(mesh_um, mpp))
+        del walls
     glassy = ~raw
     survey = survey._replace(candidates=None)  # not needed past the threshold
     raw = morph(raw, "close", px(close_um, mpp))

@@ -19,7 +19,7 @@ from .density import channel_max, channel_min, find_glass, od_lookup, od_tables
 from .exclusions import bands as _bands, smooth as _smooth
 from .otsu import otsu_threshold
 
-__all__ = ["tissue_feature", "density_threshold", "glass_noise", "METHODS", "NOISE_SIGMAS", "MIN_FLOOR_OD", "NO_GLASS_FLOOR_OD"]
+__all__ = ["tissue_feature", "density_threshold", "glass_noise", "METHODS", "NOISE_SIGMAS", "MIN_FLOOR_OD", "QUANT_NOISE_LEVELS", "grey_level_od", "NO_GLASS_FLOOR_OD"]
 
 METHODS = ("od-noise", "od-otsu", "saturation-otsu")
 _LOG_FLOOR = 1e-3  # OD below this is glass noise; keeps log10 finite
@@ -27,6 +27,13 @@ _LOG_FLOOR = 1e-3  # OD below this is glass noise; keeps log10 finite
 #: standard deviations of it (its noise), and never below MIN_FLOOR_OD (mean OD).
 NOISE_SIGMAS = 6.0
 MIN_FLOOR_OD = 0.008
+#: The glass's noise is never taken below this share of one grey level of its own colour (mean OD of
+#: one 8-bit step down from the glass). Rounding to 8 bits alone leaves 0.29 of a level (1/sqrt(12));
+#: a light gradient divided out leaves a sawtooth of rounding bands, and JPEG flattens whole blocks to
+#: one value, so the values below the glass's mode can sit within a hundredth of a level of it and
+#: the measured noise collapse (the glass itself then crossed the threshold). 0.5: measured on the
+#: tuning families of issue 28 (round 4).
+QUANT_NOISE_LEVELS = 0.5
 #: Threshold used on a slide that shows no glass (mean OD against the fallback glass colour).
 NO_GLASS_FLOOR_OD = 0.02
 
@@ -64,6 +71,13 @@ def tissue_feature(rgb: np.ndarray, mpp: float, *, method: str = "od-noise", smo
             f /= np.maximum(top, np.float32(1.0))
         feature[r0:r1] = _smooth(f, sigma)[r0 - a0:r1 - a0]
     return feature
+
+
+def grey_level_od(colour) -> float:
+    """Mean optical density, over R, G, B, of one 8-bit grey level below the glass colour
+    (``log10(g / (g - 1))`` a channel): the finest density step a thumbnail can show on that glass."""
+    g = np.clip(np.asarray(colour, dtype=np.float64), 2.0, 255.0)
+    return float(np.mean(np.log10(g / (g - 1.0))))
 
 
 def glass_noise(values) -> tuple[float, float]:
@@ -108,7 +122,8 @@ def density_threshold(feature: np.ndarray, survey, *, method: str = "od-noise", 
 
     ``"od-noise"`` (default): the mean optical density over glass must clear the glass's own
     noise: the floor is the glass candidates' density level plus :data:`NOISE_SIGMAS` robust
-    standard deviations of it (:func:`glass_noise`), at least :data:`MIN_FLOOR_OD` (or
+    standard deviations of it (:func:`glass_noise`; the deviation never under
+    :data:`QUANT_NOISE_LEVELS` of a grey level, :func:`grey_level_od`), at least :data:`MIN_FLOOR_OD` (or
     ``min_od_floor`` when given). Pale tissue on clean glass is kept (light eosin about 0.04 OD
     above glass in green is a mean OD of about 0.02), grainy glass is not split. ``"od-otsu"``:
     Otsu's threshold on the log10 of the mean optical density (glass is a narrow peak near zero
@@ -144,6 +159,7 @@ def density_threshold(feature: np.ndarray, survey, *, method: str = "od-noise", 
     found = bool(survey.found)
     if found and survey.candidates.any():  # the glass's own density: its level and noise (robust)
         level, noise = glass_noise(feature[survey.candidates])
+        noise = max(0.0 if math.isnan(noise) else noise, QUANT_NOISE_LEVELS * grey_level_od(survey.colour))
     if min_od_floor is not None:
         floor = min_od_floor
     elif found:
