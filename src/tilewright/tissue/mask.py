@@ -20,8 +20,8 @@ from .density import find_glass, od_tables
 from .exclusions import FILM_UM2, find_exclusions
 from .films import on_plane_films
 from .flatfield import flatten_light
-from .morphology import drop_small, enclosed, fill_holes, hysteresis, morph, px
-from .threshold import _LOG_FLOOR, METHODS, MIN_FLOOR_OD, density_threshold, tissue_feature  # noqa: F401 (_LOG_FLOOR re-exported)
+from .morphology import drop_small, enclosed, fill_holes, morph, px
+from .threshold import _LOG_FLOOR, METHODS, density_threshold, tissue_feature  # noqa: F401 (_LOG_FLOOR re-exported)
 from .raster import box_fractions, summed_area_table
 
 __all__ = ["TissueMask", "tissue_mask", "tissue_feature", "thumbnail_rgb", "METHODS"]
@@ -35,10 +35,6 @@ HIGH_INK_FRACTION = 0.25
 HIGH_DARK_FRACTION = 0.25
 LITTLE_TISSUE_MM2 = 1.0
 LITTLE_TISSUE_SHARE = 0.02
-#: The membranes that wall in the empty cells of fat (``mesh_um``) are followed this many robust standard
-#: deviations of the glass's noise below the density threshold from where it found them (thin and pale;
-#: found in part at it), by hysteresis: weak pixels apart from the found ones are noise and wall in nothing.
-MESH_SIGMAS = 3.0
 
 
 class TissueMask:
@@ -294,11 +290,9 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-noise", sensitivit
         Glass colour of a slide without visible glass (for example the cohort's median glass);
         white when None.
     mesh_um : float
-        Glass with a wall within this many µm along each of 8 directions is tissue
-        (:func:`~tilewright.tissue.morphology.enclosed`): the empty cells of fat, walled by
-        membranes that the threshold finds only in part at a thumbnail's µm/px (walls: what it
-        found, continued :data:`MESH_SIGMAS` noise deviations under it by hysteresis,
-        :func:`~tilewright.tissue.morphology.hysteresis`); 0 turns it off.
+        Glass with a pixel above the threshold within this many µm along each of 8 directions is
+        tissue (:func:`~tilewright.tissue.morphology.enclosed`): the empty cells of fat, walled by
+        membranes that the threshold finds only in part at a thumbnail's µm/px; 0 turns it off.
 
     Returns
     -------
@@ -363,10 +357,7 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-noise", sensitivit
         min_saturation=min_saturation)
     raw = feature > threshold
     if mesh_um > 0:  # the empty cells of fat, walled by membranes the threshold finds in part
-        walls = raw if noise != noise else hysteresis(
-            feature, max(MIN_FLOOR_OD / sensitivity, threshold - MESH_SIGMAS * noise), raw)
-        raw |= enclosed(walls, px(mesh_um, mpp))
-        del walls
+        raw |= enclosed(raw, px(mesh_um, mpp))
     glassy = ~raw
     survey = survey._replace(candidates=None)  # not needed past the threshold
     raw = morph(raw, "close", px(close_um, mpp))

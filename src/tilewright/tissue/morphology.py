@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["px", "morph", "drop_small", "fill_holes", "enclosed", "hysteresis"]
+__all__ = ["px", "morph", "drop_small", "fill_holes", "enclosed"]
 
 
 def px(um: float, mpp: float) -> int:
@@ -90,16 +90,3 @@ def enclosed(mask: np.ndarray, radius: int, directions: int = 8) -> np.ndarray:
             break
     return out
 
-
-def hysteresis(values: np.ndarray, low: float, strong: np.ndarray) -> np.ndarray:
-    """Pixels over ``low`` connected (8-neighbour) to a ``strong`` pixel: hysteresis thresholding
-    (J. Canny, "A computational approach to edge detection", IEEE PAMI 8(6):679-698, 1986). Weak
-    pixels continue what the strong threshold found in part; isolated ones (noise) are dropped."""
-    import cv2
-
-    weak = (values > low) | strong
-    n, labels = cv2.connectedComponents(weak.astype(np.uint8), connectivity=8)
-    keep = np.zeros(n, bool)
-    keep[np.unique(labels[strong])] = True
-    keep[0] = False
-    return keep[labels]
