@@ -62,6 +62,14 @@ def shares(scores: list[dict]) -> dict:
     return out
 
 
+def check_floor(name: str, scores: list[dict], aim: str, floor: float, *, min_count: int = 3) -> None:
+    """Fail unless ``aim`` applied to at least ``min_count`` draws and at least ``floor`` of them
+    meet it (the message carries the family's summary)."""
+    share, count = shares(scores)[aim]
+    assert count >= min_count, (aim, count)
+    assert share >= floor, (aim, share, count, summary(name, scores))
+
+
 def worst(scores: list[dict], n: int = 5) -> list[dict]:
     """The ``n`` draws farthest below an aim (by the largest shortfall of any aim)."""
     def shortfall(s):

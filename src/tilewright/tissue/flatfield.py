@@ -61,15 +61,21 @@ def _neutral(logi, floor=0.004):
     return np.all(dev <= np.maximum(4.0 * mad, floor), axis=1)
 
 
+def _least_squares(a, y, wts=None):
+    """Coefficients of the (weighted) least-squares surface: normal equations summed in a fixed
+    order (see plane.py), so that the result does not depend on the BLAS's threads."""
+    aw = a if wts is None else a * wts[:, None]
+    return np.linalg.solve(np.einsum("ij,ik->jk", aw, a, optimize=False) + 1e-12 * np.eye(a.shape[1]),
+                           np.einsum("ij,i->j", aw, y, optimize=False))
+
+
 def _upper_fit(a, y, tau=0.9, rounds=12):
     """Least asymmetrically weighted squares (an expectile regression, Newey & Powell 1987) at
     ``tau``: residuals above the surface weigh ``tau``, below it ``1 - tau``, so the surface keeps
     to the upper envelope of the samples (glass) when faint tissue is many of them."""
     wts = np.full(len(y), 0.5)
     for _ in range(rounds):
-        aw = a * wts[:, None]
-        coef = np.linalg.solve(np.einsum("ij,ik->jk", aw, a, optimize=False) + 1e-12 * np.eye(a.shape[1]),
-                               np.einsum("ij,i->j", aw, y, optimize=False))
+        coef = _least_squares(a, y, wts)
         wts = np.where(y - a @ coef > 0, tau, 1.0 - tau)
     return coef
 
@@ -142,9 +148,7 @@ def flatten_light(rgb: np.ndarray, glass: np.ndarray, *, min_fraction: float = 0
             keep = res > -2.5 * spread
             if keep.sum() < a.shape[1] * 2:
                 return rgb, 0.0
-            k = a[keep]  # normal equations summed in a fixed order (see plane.py), 5 x 5
-            coef[:, c] = np.linalg.solve(np.einsum("ij,ik->jk", k, k, optimize=False) + 1e-12 * np.eye(k.shape[1]),
-                                         np.einsum("ij,i->j", k, logi[keep, c], optimize=False))
+            coef[:, c] = _least_squares(a[keep], logi[keep, c])
             res = logi[:, c] - a @ coef[:, c]
         explained[c] = 1.0 - float(np.var(res[keep])) / max(float(np.var(logi[keep, c])), 1e-12)
     if explained.min() < MIN_EXPLAINED:  # no smooth light across the glass: blocks differ by noise or rims

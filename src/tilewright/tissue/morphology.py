@@ -89,4 +89,3 @@ def enclosed(mask: np.ndarray, radius: int, directions: int = 8) -> np.ndarray:
         if not out.any():
             break
     return out
-
