@@ -70,6 +70,19 @@ def check_floor(name: str, scores: list[dict], aim: str, floor: float, *, min_co
     assert share >= floor, (aim, share, count, summary(name, scores))
 
 
+def confirm_family(name: str, module: str, folder: str, draws_env: str) -> None:
+    """Run a held-back family (``module`` with ``draw`` and ``describe``) on as many draws as the
+    environment variable ``draws_env`` says (100 by default, see :func:`run_family`) and fail
+    unless each aim holds in at least :data:`SHARE` of the draws it applies to."""
+    import importlib
+
+    family = importlib.import_module(module)
+    scores = run_family(name, family.draw, range(int(os.environ.get(draws_env, "100"))), folder, family.describe)
+    for aim, (share, count) in shares(scores).items():
+        if count:
+            assert share >= SHARE, f"{aim}: {share:.3f} of {count} draws meet the aim (aim {SHARE})"
+
+
 def worst(scores: list[dict], n: int = 5) -> list[dict]:
     """The ``n`` draws farthest below an aim (by the largest shortfall of any aim)."""
     def shortfall(s):

@@ -44,6 +44,8 @@ SMOOTH_SHARE = 0.3
 LOOSE_SHARE = 0.5
 #: Median mean optical density of a film (faint tissue is smooth too, but not dense).
 MIN_FILM_OD = 0.1
+#: Tissue beside films set aside that is enough to measure the slide's texture on (a share of it).
+REST_SHARE = 0.2
 #: Over tissue, a film lifts the density above the tissue's local median by this share of its own.
 EXCESS = 0.5
 
@@ -87,6 +89,25 @@ def _seeds(smooth, away, dens, mpp, min_px, min_stroke_um, elongation):
                 out[y:y + bh, x:x + bw] |= part
                 widths.append(width)
     return out, max(widths, default=0.0)
+
+
+def _texture_beside_films(grain, dens, tissue, away, disc, mpp, min_px, min_stroke_um, elongation):
+    """The tissue's texture left beside what would be films at any texture: a broad smooth marker
+    that is most of the dense area makes the median texture that of the marker. The pieces with
+    no fine detail at all (under :data:`SMOOTH_SHARE` x :data:`MIN_TEXTURE`) that would be films
+    are set aside; the median texture of the rest of the tissue is the slide's, when the rest is
+    at least :data:`REST_SHARE` of the tissue (a slide of smooth tissue stays smooth: its pieces
+    on glass would all be set aside)."""
+    import cv2
+
+    flat = cv2.morphologyEx((tissue & (grain < SMOOTH_SHARE * MIN_TEXTURE)).view(np.uint8), cv2.MORPH_OPEN, disc).view(bool)
+    films, _ = _seeds(flat, away, dens, mpp, min_px, min_stroke_um, elongation)
+    if not films.any():
+        return 0.0
+    rest = tissue & ~cv2.dilate(films.view(np.uint8), disc).view(bool)
+    if rest.sum() < max(100, min_px) or rest.sum() < REST_SHARE * tissue.sum():
+        return 0.0
+    return float(np.median(grain[rest]))
 
 
 def _connected_to(candidates, seeds, grow=2):
@@ -146,11 +167,13 @@ def on_plane_films(rgb: np.ndarray, tissue: np.ndarray, away: np.ndarray, tables
     ref = t & (dens >= MIN_FILM_OD) & (True if blood is None else ~blood[sub])
     if ref.sum() < max(100, min_px):
         return out
-    texture = float(np.median(grain[ref]))
-    if texture < MIN_TEXTURE:
-        return out
     disc = cv2.getStructuringElement(cv2.MORPH_ELLIPSE, (5, 5))
     cells = np.zeros_like(t) if blood is None else blood[sub]
+    texture = float(np.median(grain[ref]))
+    if texture < MIN_TEXTURE:
+        texture = _texture_beside_films(grain, dens, t & ~cells, away[sub], disc, mpp, min_px, min_stroke_um, elongation)
+        if texture < MIN_TEXTURE:
+            return out
     # red cells are off the plane (haemoglobin), found by colour: never a film on it, however smooth
     # (packed sheets of cells 7 µm across are smooth at a thumbnail's 8 µm/px)
     smooth = cv2.morphologyEx((t & ~cells & (grain < SMOOTH_SHARE * texture)).view(np.uint8), cv2.MORPH_OPEN, disc).view(bool)

@@ -18,6 +18,7 @@ import numpy as np
 
 from .density import find_glass, od_tables
 from .exclusions import FILM_UM2, find_exclusions
+from .crossings import strokes_over_tissue
 from .films import on_plane_films
 from .flatfield import flatten_light
 from .morphology import drop_small, enclosed, fill_holes, morph, px
@@ -235,7 +236,8 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-noise", sensitivit
     grown by ``ink_margin_um`` (:mod:`~tilewright.tissue.exclusions` and
     :mod:`~tilewright.tissue.pieces`: black and grey, blue and green by colour, red by shape,
     texture and context so that blood stays tissue; compact "ink" over most of the stained
-    area is read as tissue of an unusual colour), and optionally dense debris, removed; (8)
+    area is read as tissue of an unusual colour; strokes found on glass followed into the tissue
+    they cross, :mod:`~tilewright.tissue.crossings`), and optionally dense debris, removed; (8)
     pieces smaller than ``min_component_um2`` dropped; (9) their edges placed half-way up the
     density step.
 
@@ -375,7 +377,7 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-noise", sensitivit
                             ink_residual=ink_residual, exclude_dark=exclude_dark, dark_od=dark_od,
                             stroke_kw={"min_stroke_um": min_stroke_um}, noise_od=pixel_noise)
     ink, dark = found.ink, found.dark
-    film_share = 0.0
+    film_share = crossed_share = 0.0
     if exclude_ink:
         # the margin covers the stroke's blurred rim below the off-plane limit; a limit narrowed
         # to the slide's own scatter already reaches into that rim, so the margin shrinks with it
@@ -385,6 +387,10 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-noise", sensitivit
                                noise_od=pixel_noise, min_px=FILM_UM2 / (mpp * mpp), min_stroke_um=min_stroke_um)
         ink |= morph(films, "dilate", 1)
         film_share = float(films.sum()) / max(1, int(tissue.sum()))
+        # strokes found on the glass, followed into the tissue they cross (optical densities add)
+        crossed = strokes_over_tissue(rgb, od_tables(glass), sigma, ink, tissue & ~ink & ~dark, found.blood)
+        ink |= crossed
+        crossed_share = float(crossed.sum()) / max(1, int(tissue.sum()))
     covered = tissue | ink  # what the density threshold found, and ink beyond it
     tissue = drop_small(tissue & ~ink & ~dark, min_component_um2 / area)
     # the pieces are decided at the detection threshold; only then are their edges placed
@@ -426,5 +432,5 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-noise", sensitivit
               "hne_plane_normal": None if plane is None else [float(v) for v in plane.normal],
               "hne_plane_fitted": None if plane is None else bool(plane.fitted),
               "ink_share": ink_share, "dark_share": dark_share, "removed_share": ink_share + dark_share,
-              "reread_share": float(found.reread), "film_share": film_share, "light_variation": light, "tissue_mm2": tissue_mm2}
+              "reread_share": float(found.reread), "film_share": film_share, "crossed_share": crossed_share, "light_variation": light, "tissue_mm2": tissue_mm2}
     return TissueMask(tissue, mpp, ink=ink, dark=dark, threshold=threshold, params=params, warnings=warnings)
