@@ -10,6 +10,9 @@ the same colour, must stay (red marker over textured tissue that reads as red ce
 followed: left to the red cells).
 """
 
+import numpy as np
+import pytest
+
 from family_scores import BLOOD, KEPT, ON_INK, score
 from tilewright.tissue.mask import tissue_mask
 
@@ -45,3 +48,28 @@ def test_a_haemorrhage_beside_a_red_stroke_stays():
     mask = tissue_mask(d.thumbnail(), mpp=d.thumb_mpp)
     s = score(mask, d.truth())
     assert s["blood"] >= BLOOD and s["kept"] >= KEPT, s
+
+
+@pytest.mark.parametrize("sigma", [5.0, 9.5, 31.0, 120.0])
+def test_wide_blur_matches_a_direct_gaussian(sigma):
+    # reference: OpenCV's direct Gaussian (cv2.GaussianBlur, its default border, as the level was
+    # blurred before round 6) of the same weighted image, read back band by band at odd band
+    # edges. Tolerance: 0.005 OD inside (3 sigma from the edges), 0.015 OD at the edges; the
+    # smallest excess the crossings look for is CARRIED x 0.05 = 0.025 OD
+    import cv2
+
+    from tilewright.tissue.crossings import WideBlur
+
+    rng = np.random.default_rng(int(sigma))
+    m = int(3 * sigma)
+    h, w = 613 + 2 * m, 1001 + 2 * m
+    img = np.zeros((h, w, 3), np.float32)
+    img[m + 200:m + 420, m + 300:m + 380] = (0.9, 0.2, 0.5)  # a bar: sharp edges the blur must place right
+    img += cv2.GaussianBlur(rng.random((h, w, 3)).astype(np.float32), (0, 0), 4.0)
+    weight = (rng.random((h, w)) < 0.7).astype(np.float32)
+    blur = WideBlur(img, sigma, weight)
+    got = np.vstack([blur.rows(r, r + 97) for r in range(0, h, 97)])
+    want = cv2.GaussianBlur(img * weight[..., None], (0, 0), sigma)
+    assert got.shape == want.shape
+    err = np.abs(got - want)
+    assert err[m:-m, m:-m].max() <= 0.005 and err.max() <= 0.015, (err[m:-m, m:-m].max(), err.max())

@@ -12,7 +12,9 @@ with enough of it lying on glass:
    (away from the tissue left in the mask);
 2. near the piece, the tissue's local level ``L`` is the normalized convolution (Knutsson &
    Westin, CVPR 1993) of the OD over the tissue around, over a Gaussian of 1.5 stroke widths,
-   with the pixels taken for the stroke left out (two rounds);
+   with the pixels taken for the stroke left out (two rounds); the Gaussian is taken on blocks
+   of a quarter of its sigma and read back a band of rows at a time (:class:`WideBlur`: a wide
+   stroke's blur costs no more than a thin one's, and no full-size level is held);
 3. a tissue pixel lies under the stroke when its excess ``e = OD - L`` carries at least
    :data:`CARRIED` of the dye's density along ``d`` and points along ``d`` within
    :data:`SPREAD` of it (tissue denser than its surroundings adds H&E, not this dye);
@@ -24,13 +26,14 @@ with enough of it lying on glass:
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 from .density import od_lookup
-from .exclusions import smooth
 from .films import _connected_to
 
-__all__ = ["strokes_over_tissue", "CARRIED", "SPREAD", "WIDER", "MIN_GLASS_PX"]
+__all__ = ["strokes_over_tissue", "WideBlur", "CARRIED", "SPREAD", "WIDER", "MIN_GLASS_PX"]
 
 #: Share of the dye's own density that the excess over the tissue's local level must carry.
 CARRIED = 0.5
@@ -45,14 +48,46 @@ WIDER = 1.5
 CELL_SHARE = 0.5
 #: A piece of ink needs this many pixels lying on glass for its dye to be measured.
 MIN_GLASS_PX = 20
+#: A wide blur is computed on blocks of sigma / PER_BLOCK pixels (:class:`WideBlur`).
+PER_BLOCK = 4
+#: Rows of a box handled at a time where the excess over the level is measured.
+ROWS = 256
 
 
-def _local_level(od, weight, sigma):
-    import cv2
+class WideBlur:
+    """Gaussian blur of ``sigma`` pixels at a cost and memory that do not grow with ``sigma``:
+    the image is averaged over blocks of about ``f`` pixels (``f`` = sigma / :data:`PER_BLOCK`,
+    at least 2), blurred there, and read back at full resolution a band of rows at a time by
+    bilinear interpolation (as ``cv2.resize`` places pixel centres); the blur is made narrower by
+    what the block average (variance f²/12) and the interpolation (f²/6) add. A smooth level
+    sampled at a quarter of its sigma loses nothing a threshold can see.
 
-    den = cv2.GaussianBlur(weight, (0, 0), sigma)
-    num = cv2.GaussianBlur(od * weight[..., None], (0, 0), sigma)
-    return num / np.maximum(den, np.float32(1e-3))[..., None], den
+    ``a`` is (H, W) or (H, W, C) float32; a 3-channel image is shrunk a channel at a time,
+    ``weight`` (H, W), optional, multiplies it first (no full-size product is made)."""
+
+    def __init__(self, a: np.ndarray, sigma: float, weight: np.ndarray | None = None):
+        import cv2
+
+        h, w = a.shape[:2]
+        f = max(2, int(sigma // PER_BLOCK))
+        size = (max(1, round(w / f)), max(1, round(h / f)))
+        planes = [a] if a.ndim == 2 else [a[..., c] for c in range(a.shape[2])]
+        small = [cv2.resize(p if weight is None else p * weight, size, interpolation=cv2.INTER_AREA) for p in planes]
+        small = np.dstack(small) if a.ndim == 3 else small[0]
+        self.small = cv2.GaussianBlur(small, (0, 0), math.sqrt(max(sigma * sigma - f * f / 4.0, 0.25)) / f)
+        self.shape = (h, w)
+        self._x = ((np.arange(w, dtype=np.float32) + 0.5) * (size[0] / w) - 0.5).astype(np.float32)
+
+    def rows(self, r0: int, r1: int) -> np.ndarray:
+        """The blurred image's rows ``r0:r1`` at full resolution."""
+        import cv2
+
+        h, w = self.shape
+        ys = ((np.arange(r0, min(r1, h), dtype=np.float32) + 0.5) * (self.small.shape[0] / h) - 0.5).astype(np.float32)
+        mx = np.broadcast_to(self._x, (ys.size, w))
+        my = np.broadcast_to(ys[:, None], (ys.size, w))
+        return cv2.remap(self.small, np.ascontiguousarray(mx), np.ascontiguousarray(my), cv2.INTER_LINEAR,
+                         borderMode=cv2.BORDER_REPLICATE)
 
 
 def strokes_over_tissue(rgb: np.ndarray, tables: np.ndarray, sigma_px: float, ink: np.ndarray,
@@ -88,6 +123,8 @@ def strokes_over_tissue(rgb: np.ndarray, tables: np.ndarray, sigma_px: float, in
     h, w = ink.shape
     near_tissue = cv2.dilate(tissue.view(np.uint8), np.ones((7, 7), np.uint8)).view(bool)
     n, labels, stats, _ = cv2.connectedComponentsWithStats(ink.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
+    # what is taken is connected to the piece: it lies in the pieces of tissue the piece touches
+    nt, tlabels = cv2.connectedComponents(tissue.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
     for k in range(1, n):
         x, y, bw, bh, area = stats[k]
         if area < MIN_GLASS_PX:
@@ -96,12 +133,17 @@ def strokes_over_tissue(rgb: np.ndarray, tables: np.ndarray, sigma_px: float, in
         on_glass = piece & ~near_tissue[y:y + bh, x:x + bw]
         if on_glass.sum() < MIN_GLASS_PX:
             continue
+        touched = _touched(tlabels, piece, y, x, 2)
+        if not touched.size:
+            continue
         width = 2.0 * float(cv2.distanceTransform(np.pad(piece, 1).view(np.uint8), cv2.DIST_L2, 5).max())
-        reach = int(np.ceil(3 * max(5.0, 1.5 * width)))
+        sigma = max(5.0, 1.5 * width)
+        reach = int(np.ceil(3 * sigma))
         y0, x0, y1, x1 = max(0, y - reach), max(0, x - reach), min(h, y + bh + reach), min(w, x + bw + reach)
         t = tissue[y0:y1, x0:x1]
-        if not t.any():
-            continue
+        keep = np.zeros(nt, bool)
+        keep[touched] = True
+        reached = keep[tlabels[y0:y1, x0:x1]]
         box_od = _smoothed_od(rgb, tables, sigma_px, (y0, y1, x0, x1))
         seed = np.zeros(t.shape, bool)
         seed[y - y0:y - y0 + bh, x - x0:x - x0 + bw] = piece
@@ -112,12 +154,20 @@ def strokes_over_tissue(rgb: np.ndarray, tables: np.ndarray, sigma_px: float, in
         u = dye / np.float32(strength)
         under = np.zeros_like(t)
         for _ in range(2):  # the level without the stroke's own pixels, then again without those found
-            level, den = _local_level(box_od, (t & ~under).astype(np.float32), max(5.0, 1.5 * width))
-            e = box_od - level
-            along = e @ u
-            across = np.linalg.norm(e - along[..., None] * u, axis=-1)
-            match = t & (den > 0.05) & (along >= CARRIED * strength) & (across <= SPREAD * along + SLACK)
+            weight = (t & ~under).astype(np.float32)
+            num, den = WideBlur(box_od, sigma, weight), WideBlur(weight, sigma)
+            del weight
+            match = np.zeros_like(t)
+            for r in range(0, t.shape[0], ROWS):  # in bands of rows: the temporaries stay small
+                rows = slice(r, r + ROWS)
+                d = den.rows(r, r + ROWS)
+                where = reached[rows] & (d > 0.05)
+                e = box_od[rows][where] - num.rows(r, r + ROWS)[where] / d[where][:, None]  # excess over the level
+                along = e @ u
+                across = np.sqrt(np.maximum(np.einsum("ij,ij->i", e, e) - along * along, 0.0))
+                match[rows][where] = (along >= CARRIED * strength) & (across <= SPREAD * along + SLACK)
             under = _connected_to(match, seed)
+        del box_od
         if cells is not None:  # red cells under the stroke: a band as wide as the stroke at most
             red = under & cells[y0:y1, x0:x1]
             if red.sum() > CELL_SHARE * under.sum():  # mostly red cells: a haemorrhage beside the stroke
@@ -126,6 +176,20 @@ def strokes_over_tissue(rgb: np.ndarray, tables: np.ndarray, sigma_px: float, in
                 under &= ~(red & ~_no_wider(red, WIDER * _band_width(piece) + 2.0))
         out[y0:y1, x0:x1] |= under
     return out
+
+
+def _touched(labels, piece, y, x, grow):
+    """The labels (not 0) within ``grow`` px (a square) of ``piece``, placed at (y, x)."""
+    import cv2
+
+    h, w = labels.shape
+    y0, x0 = max(0, y - grow), max(0, x - grow)
+    y1, x1 = min(h, y + piece.shape[0] + grow), min(w, x + piece.shape[1] + grow)
+    around = np.zeros((y1 - y0, x1 - x0), np.uint8)
+    around[y - y0:y - y0 + piece.shape[0], x - x0:x - x0 + piece.shape[1]] = piece
+    around = cv2.dilate(around, np.ones((2 * grow + 1, 2 * grow + 1), np.uint8)).view(bool)
+    found = np.unique(labels[y0:y1, x0:x1][around])
+    return found[found > 0]
 
 
 def _band_width(piece):
@@ -161,5 +225,9 @@ def _smoothed_od(rgb, tables, sigma_px, box):
     h, w = rgb.shape[:2]
     halo = int(np.ceil(4 * sigma_px)) + 2 if sigma_px > 0 else 0
     a0, a1, b0, b1 = max(0, y0 - halo), min(h, y1 + halo), max(0, x0 - halo), min(w, x1 + halo)
-    od = smooth(od_lookup(np.ascontiguousarray(rgb[a0:a1, b0:b1]), tables), sigma_px)
+    od = od_lookup(np.ascontiguousarray(rgb[a0:a1, b0:b1]), tables)
+    if sigma_px > 0:  # as exclusions.smooth, in place
+        import cv2
+
+        cv2.GaussianBlur(od, (0, 0), sigma_px, dst=od, borderType=cv2.BORDER_REPLICATE)
     return od[y0 - a0:y1 - a0, x0 - b0:x1 - b0]
