@@ -67,7 +67,7 @@ def build_parser() -> argparse.ArgumentParser:
                    help="cut out folds and dense debris denser than --dark-od (default off)")
     g.add_argument("--dark-od", type=float,
                    help="mean optical density above which --exclude-dark cuts a pixel out (default 0.9; a fold ~0.3-0.6)")
-    g.add_argument("--ink-margin-um", type=float, help="grow marker ink by this many µm before cutting it out (default 16)")
+    g.add_argument("--ink-margin-um", type=float, help="grow marker ink by this many µm before cutting it out (default 8)")
     g.add_argument("--max-ink", type=float,
                    help="drop tiles more than this share marker ink (0-1; default: no cap; each store keeps every "
                         "tile's ink share)")

@@ -74,7 +74,8 @@ class TilingConfig:
         is above this are removed as folds and debris (default 0.9; a fold of two layers of
         ordinary tissue is about 0.3-0.6).
     ink_margin_um : float
-        Marker ink is grown by this many µm before it is cut out (default 16).
+        Marker ink is grown by this many µm before it is cut out (default 8, the mask's smoothing
+        width; other marker is looked for beyond twice it).
     keep : list of str or None
         Region classes to keep (requires regions; a string is split on commas). Names match
         the file's classes ignoring case and spacing; a kept class a slide's file lacks covers
@@ -156,7 +157,7 @@ class TilingConfig:
     tissue_sensitivity: float = 1.0
     min_piece_um2: float = 25_000.0
     dark_od: float = 0.9
-    ink_margin_um: float = 16.0
+    ink_margin_um: float = 8.0
     keep: list | None = None
     regions: str | None = None
     min_region: float = 0.5

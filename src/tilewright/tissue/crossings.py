@@ -31,7 +31,7 @@ import math
 import numpy as np
 
 from .density import od_lookup
-from .films import _connected_to
+from .morphology import touching
 
 __all__ = ["strokes_over_tissue", "WideBlur", "CARRIED", "SPREAD", "WIDER", "MIN_GLASS_PX"]
 
@@ -166,7 +166,7 @@ def strokes_over_tissue(rgb: np.ndarray, tables: np.ndarray, sigma_px: float, in
                 along = e @ u
                 across = np.sqrt(np.maximum(np.einsum("ij,ij->i", e, e) - along * along, 0.0))
                 match[rows][where] = (along >= CARRIED * strength) & (across <= SPREAD * along + SLACK)
-            under = _connected_to(match, seed)
+            under = touching(match, seed)
         del box_od
         if cells is not None:  # red cells under the stroke: a band as wide as the stroke at most
             red = under & cells[y0:y1, x0:x1]

@@ -32,6 +32,7 @@ from __future__ import annotations
 import numpy as np
 
 from .density import od_lookup
+from .morphology import touching
 from .pieces import band_shape, granularity_bands, lying_on_glass
 
 __all__ = ["on_plane_films", "MIN_TEXTURE", "SMOOTH_SHARE", "LOOSE_SHARE", "MIN_FILM_OD", "EXCESS"]
@@ -110,18 +111,6 @@ def _texture_beside_films(grain, dens, tissue, away, disc, mpp, min_px, min_stro
     return float(np.median(grain[rest]))
 
 
-def _connected_to(candidates, seeds, grow=2):
-    """The connected pieces of ``candidates`` touching ``seeds`` (grown by ``grow`` px)."""
-    import cv2
-
-    n, labels, _, _ = cv2.connectedComponentsWithStats(candidates.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
-    touch = cv2.dilate(seeds.view(np.uint8), np.ones((2 * grow + 1, 2 * grow + 1), np.uint8)).view(bool)
-    keep = np.zeros(n, bool)
-    keep[np.unique(labels[touch & candidates])] = True
-    keep[0] = False
-    return keep[labels]
-
-
 def on_plane_films(rgb: np.ndarray, tissue: np.ndarray, away: np.ndarray, tables: np.ndarray, mpp: float, *,
                    blood: np.ndarray | None = None, noise_od: float = 0.0, min_px: float = 60.0,
                    min_stroke_um: float = 100.0, elongation: float = 3.0) -> np.ndarray:
@@ -182,13 +171,13 @@ def on_plane_films(rgb: np.ndarray, tissue: np.ndarray, away: np.ndarray, tables
         return out
     level = float(np.median(dens[films]))
     dense = t & (dens >= MIN_FILM_OD) & ~cells  # red cells are dense too
-    films |= _connected_to(dense & (grain < LOOSE_SHARE * texture), films)
+    films |= touching(dense & (grain < LOOSE_SHARE * texture), films)
     # over tissue: density above the tissue's local level (its mean over a Gaussian of 1.5 stroke
     # widths, over tissue pixels only, the films left out) by a share of the film's own
     sigma = max(5.0, 1.5 * width)
     weight = (t & ~films).astype(np.float32)
     den = cv2.GaussianBlur(weight, (0, 0), sigma)
     local = cv2.GaussianBlur(dens * weight, (0, 0), sigma) / np.maximum(den, np.float32(1e-3))
-    films |= _connected_to(dense & (den > 0.05) & (dens - local >= EXCESS * level), films)
+    films |= touching(dense & (den > 0.05) & (dens - local >= EXCESS * level), films)
     out[sub] = films
     return out

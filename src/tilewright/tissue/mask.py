@@ -21,13 +21,16 @@ from .exclusions import FILM_UM2, find_exclusions
 from .crossings import strokes_over_tissue
 from .films import on_plane_films
 from .flatfield import flatten_light
-from .morphology import drop_small, enclosed, fill_holes, morph, px
+from .morphology import drop_small, enclosed, fill_holes, morph, px, touching
 from .threshold import _LOG_FLOOR, METHODS, density_threshold, tissue_feature  # noqa: F401 (_LOG_FLOOR re-exported)
 from .raster import box_fractions, summed_area_table
 
 __all__ = ["TissueMask", "tissue_mask", "tissue_feature", "thumbnail_rgb", "METHODS"]
 
 
+#: Marker is looked for among what is left once ink is grown by this many margins (see
+#: :func:`_cut_at_margin`); only the margin itself is cut from tissue.
+RIM_WIDTH = 2.0
 #: Warnings: marker ink (``high-ink``) or the dark-region filter (``dark-removed``) removed more
 #: than this share of what the density threshold found (tissue, and ink lying on glass); less
 #: tissue than this area (mm²) *and* than this share of the scanned area (a speck on a large scan,
@@ -214,12 +217,23 @@ def _edges_at_half_step(feature: np.ndarray, tissue: np.ndarray, sigma: float, g
     return tissue & ~(band & (f < half))
 
 
+def _cut_at_margin(tissue, wide, cut, dark, min_px):
+    """The ink cut out of ``tissue``: ``cut`` (ink grown by the margin), and the pixels between
+    ``cut`` and ``wide`` (ink grown by :data:`RIM_WIDTH` margins) whose piece of the tissue left
+    touches no piece of at least ``min_px`` left outside ``wide``. Tissue beside a stroke keeps
+    the pixels of its own up to the margin; a thin line's rim (a coverslip's edge, a pen's
+    outline) left on both sides of it, with no tissue beyond, stays cut."""
+    left = tissue & ~cut
+    beyond = drop_small(tissue & ~wide & ~dark, min_px)
+    return cut | (left & wide & ~touching(left, beyond, grow=1))
+
+
 def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-noise", sensitivity: float = 1.0,
                 min_od_floor: float | None = None, max_od_ceiling: float = 0.15,
                 min_saturation: float = 0.08, smooth_um: float = 8.0, close_um: float = 24.0,
                 open_um: float = 16.0, fill_holes_um2: float = 20_000.0,
                 min_component_um2: float = 25_000.0, exclude_ink: bool = True,
-                ink_residual: float = 0.04, ink_margin_um: float = 16.0, min_stroke_um: float = 100.0,
+                ink_residual: float = 0.04, ink_margin_um: float = 8.0, min_stroke_um: float = 100.0,
                 exclude_dark: bool = False, dark_od: float = 0.9, glass=None,
                 glass_fallback=None, mesh_um: float = 80.0) -> TissueMask:
     """Find usable H&E tissue on a slide thumbnail.
@@ -278,7 +292,10 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-noise", sensitivit
     ink_residual : float
         OD distance from the H&E plane above which a pixel is coloured (plus 3 % of its OD).
     ink_margin_um : float
-        Ink is grown by this many µm (the blurred rims of strokes and rings are ink too).
+        Ink is grown by this many µm before it is cut (the blurred rims of strokes and rings are
+        ink too; the default is the smoothing's ``smooth_um``, over which the density that found
+        the ink's edge was spread). Marker of other kinds is looked for among what lies beyond
+        :data:`RIM_WIDTH` margins, and the rims of lines with no tissue beyond are cut there.
     min_stroke_um : float
         Narrowest red marker stroke, µm; narrower long red pieces (small vessels) stay tissue.
     exclude_dark : bool
@@ -381,7 +398,12 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-noise", sensitivit
     if exclude_ink:
         # the margin covers the stroke's blurred rim below the off-plane limit; a limit narrowed
         # to the slide's own scatter already reaches into that rim, so the margin shrinks with it
-        ink = morph(ink, "dilate", px(ink_margin_um * min(1.0, found.residual / ink_residual), mpp))
+        narrow = min(1.0, found.residual / ink_residual)
+        cut = morph(ink, "dilate", px(ink_margin_um * narrow, mpp))
+        # what comes next looks for marker among what is left: a stroke's faint outer rim left in
+        # would be a smooth piece on glass, the seed of a "film" that grows into the tissue beside
+        # it. It looks with the ink grown by RIM_WIDTH margins
+        ink = morph(ink, "dilate", px(RIM_WIDTH * ink_margin_um * narrow, mpp))
         # marker whose colour lies on the H&E plane (violet, pink): by texture and shape
         films = on_plane_films(rgb, tissue & ~ink & ~dark, glassy | ink, od_tables(glass), mpp, blood=found.blood,
                                noise_od=pixel_noise, min_px=FILM_UM2 / (mpp * mpp), min_stroke_um=min_stroke_um)
@@ -390,6 +412,7 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-noise", sensitivit
         # strokes found on the glass, followed into the tissue they cross (optical densities add)
         crossed = strokes_over_tissue(rgb, od_tables(glass), sigma, ink, tissue & ~ink & ~dark, found.blood)
         ink |= crossed
+        ink = _cut_at_margin(tissue, ink, cut | morph(films, "dilate", 1) | crossed, dark, min_component_um2 / area)
         crossed_share = float(crossed.sum()) / max(1, int(tissue.sum()))
     covered = tissue | ink  # what the density threshold found, and ink beyond it
     tissue = drop_small(tissue & ~ink & ~dark, min_component_um2 / area)

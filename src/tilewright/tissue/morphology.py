@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["px", "morph", "drop_small", "fill_holes", "enclosed"]
+__all__ = ["px", "morph", "drop_small", "fill_holes", "enclosed", "touching"]
 
 
 def px(um: float, mpp: float) -> int:
@@ -89,3 +89,15 @@ def enclosed(mask: np.ndarray, radius: int, directions: int = 8) -> np.ndarray:
         if not out.any():
             break
     return out
+
+
+def touching(candidates: np.ndarray, seeds: np.ndarray, grow: int = 2) -> np.ndarray:
+    """The connected pieces (8-connected) of ``candidates`` touching ``seeds`` grown by ``grow`` px."""
+    import cv2
+
+    n, labels, _, _ = cv2.connectedComponentsWithStats(candidates.view(np.uint8), connectivity=8, ltype=cv2.CV_32S)
+    touch = cv2.dilate(seeds.view(np.uint8), np.ones((2 * grow + 1, 2 * grow + 1), np.uint8)).view(bool)
+    keep = np.zeros(n, bool)
+    keep[np.unique(labels[touch & candidates])] = True
+    keep[0] = False
+    return keep[labels]
