@@ -173,7 +173,8 @@ def thumbnail_rgb(slide, mpp, who: str = "tissue_mask"):
     return np.ascontiguousarray(rgb), mpp, None if path is None else os.fspath(path)
 
 
-def _edges_at_half_step(feature: np.ndarray, tissue: np.ndarray, sigma: float, glassy: np.ndarray) -> np.ndarray:
+def _edges_at_half_step(feature: np.ndarray, tissue: np.ndarray, sigma: float, glassy: np.ndarray,
+                        cut: np.ndarray | None = None) -> np.ndarray:
     """Put the edges of ``tissue`` where the smoothed density is half-way from glass to the tissue.
 
     The threshold is low so that pale tissue is found, but a Gaussian-blurred step crosses a
@@ -188,6 +189,8 @@ def _edges_at_half_step(feature: np.ndarray, tissue: np.ndarray, sigma: float, g
     the density over the mask's core (eroded by ``3 sigma``, where the blur has reached the
     plateau), or over the whole mask for pieces too thin to have a core. Which pieces are found
     does not change (it is applied last, after small pieces are dropped): a piece's core stays.
+    Borders cut at ``cut`` (ink, dense regions) are left where the cut put them, but within
+    ``3 sigma`` of glass.
     """
     if sigma < 0.5 or not tissue.any() or not glassy.any():
         return tissue
@@ -197,6 +200,11 @@ def _edges_at_half_step(feature: np.ndarray, tissue: np.ndarray, sigma: float, g
     glass = float(np.median(feature[glassy]))
     inner = morph(tissue, "erode", r)
     band = tissue & ~inner
+    if cut is not None and cut.any():
+        # where ink or a dense region was cut out the border is no blurred step from glass, and
+        # textured tissue's pale pixels beside it would be carved away: near a cut, only pixels
+        # near glass are placed
+        band &= morph(glassy & ~tissue, "dilate", r) | ~morph(cut, "dilate", r)
     if not band.any():
         return tissue
     f = np.ascontiguousarray(feature, dtype=np.float32)
@@ -417,7 +425,7 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-noise", sensitivit
     covered = tissue | ink  # what the density threshold found, and ink beyond it
     tissue = drop_small(tissue & ~ink & ~dark, min_component_um2 / area)
     # the pieces are decided at the detection threshold; only then are their edges placed
-    tissue = _edges_at_half_step(feature, tissue, smooth_um / mpp, glassy)
+    tissue = _edges_at_half_step(feature, tissue, smooth_um / mpp, glassy, ink | dark)
     del feature, glassy
     plane = found.plane
     if plane is not None and not plane.fitted and plane.n_pixels >= 200:
