@@ -21,8 +21,10 @@ DRAWS = int(os.environ.get("TILEWRIGHT_CONFIRM_DRAWS", "20"))
 pytestmark = pytest.mark.timeout(max(600, 30 * DRAWS))
 #: Shares below which the test fails; the aims are 0.95. Measured on 100 draws in round 4:
 #: ink 0.69 -> 0.72, red cells 0.65 -> 0.83, faint 0.92 -> 0.92 (ink 0.78 before the glass's noise
-#: got its floor: fat in five draws was kept only because the whole glass was).
-FLOORS = {"tissue": 0.7, "blood": 0.65, "faint": 0.8}
+#: got its floor: fat in five draws was kept only because the whole glass was). Round 7 (ink margin
+#: of one smoothing width, edges cut at ink left in place): 100 draws 0.79 / 0.90 / 0.95, the 20
+#: drawn here 0.80 / 1.00 / 1.00; the floors were raised to hold that.
+FLOORS = {"tissue": 0.75, "blood": 0.8, "faint": 0.8}
 
 
 def _marks(info) -> str:

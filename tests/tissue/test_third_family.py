@@ -19,8 +19,9 @@ from third_family import draw
 DRAWS = int(os.environ.get("TILEWRIGHT_THIRD_DRAWS", "20"))
 pytestmark = pytest.mark.timeout(max(600, 30 * DRAWS))
 #: Shares below which the test fails; the aims are 0.95. Measured on 100 draws after round 3:
-#: ink 0.84, red cells 0.86 (0.65 before), faint 0.93.
-FLOORS = {"tissue": 0.75, "blood": 0.75, "faint": 0.8}
+#: ink 0.84, red cells 0.86 (0.65 before), faint 0.93. Round 7: 100 draws 0.89 / 0.91 / 1.00, the
+#: 20 drawn here 0.90 / 0.94 / 1.00; the red-cell floor was raised to hold that.
+FLOORS = {"tissue": 0.75, "blood": 0.85, "faint": 0.8}
 
 
 def _marks(info) -> str:
