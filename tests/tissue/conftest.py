@@ -15,3 +15,20 @@ def he_layout():
 @pytest.fixture(scope="session")
 def he_slide(he_layout):
     return FakeSlide(he_layout, 0.5, direct=True)
+
+
+@pytest.fixture(scope="module")
+def confirm_drawn():
+    """``get(seed)``: a draw of the confirmation family (tests/confirm_family.py) and its tissue
+    mask at the draw's µm/px, each made once per test module."""
+    from confirm_family import draw
+    from tilewright.tissue.mask import tissue_mask
+
+    cache = {}
+
+    def get(seed):
+        if seed not in cache:
+            d = draw(seed)
+            cache[seed] = (d, tissue_mask(d.rgb, mpp=d.mpp))
+        return cache[seed]
+    return get

@@ -415,12 +415,13 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-noise", sensitivit
         # marker whose colour lies on the H&E plane (violet, pink): by texture and shape
         films = on_plane_films(rgb, tissue & ~ink & ~dark, glassy | ink, od_tables(glass), mpp, blood=found.blood,
                                noise_od=pixel_noise, min_px=FILM_UM2 / (mpp * mpp), min_stroke_um=min_stroke_um)
-        ink |= morph(films, "dilate", 1)
+        films_cut = morph(films, "dilate", 1)
+        ink |= films_cut
         film_share = float(films.sum()) / max(1, int(tissue.sum()))
         # strokes found on the glass, followed into the tissue they cross (optical densities add)
         crossed = strokes_over_tissue(rgb, od_tables(glass), sigma, ink, tissue & ~ink & ~dark, found.blood)
         ink |= crossed
-        ink = _cut_at_margin(tissue, ink, cut | morph(films, "dilate", 1) | crossed, dark, min_component_um2 / area)
+        ink = _cut_at_margin(tissue, ink, cut | films_cut | crossed, dark, min_component_um2 / area)
         crossed_share = float(crossed.sum()) / max(1, int(tissue.sum()))
     covered = tissue | ink  # what the density threshold found, and ink beyond it
     tissue = drop_small(tissue & ~ink & ~dark, min_component_um2 / area)
