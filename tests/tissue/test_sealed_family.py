@@ -4,6 +4,10 @@ tuning, and never change the family after seeing its results. It was written apa
 internals and from every other family of the project (its own shapes, absorbers and noise model);
 once it has been run and opened, it is spent: write a new one apart.
 
+SPENT (round 8, 2026-12-05): after its sixth run its draws were opened to find why it puts more
+than 5 % of the mask on glass in 47 of 100 draws; it is a tuning family from then on. The new
+held-back family is tests/veiled_family.py (tests/tissue/test_veiled_family.py).
+
 Opt-in, so that nobody runs it by accident: ``TILEWRIGHT_SEALED=1 .venv/bin/python -m pytest -q -s
 tests/tissue/test_sealed_family.py`` (``TILEWRIGHT_SEALED_DRAWS``, default 100). It prints the
 shares of draws meeting each aim, the quantiles, the draws missing an aim with what they hold, and
