@@ -21,8 +21,9 @@ from .exclusions import FILM_UM2, find_exclusions
 from .crossings import strokes_over_tissue
 from .films import on_plane_films
 from .flatfield import flatten_light
+from .membranes import fat_mesh
 from .morphology import drop_small, enclosed, fill_holes, morph, px, touching
-from .threshold import _LOG_FLOOR, METHODS, density_threshold, tissue_feature  # noqa: F401 (_LOG_FLOOR re-exported)
+from .threshold import _LOG_FLOOR, METHODS, density_threshold, grey_level_od, tissue_feature  # noqa: F401 (_LOG_FLOOR re-exported)
 from .raster import box_fractions, summed_area_table
 
 __all__ = ["TissueMask", "tissue_mask", "tissue_feature", "thumbnail_rgb", "METHODS"]
@@ -39,6 +40,9 @@ HIGH_INK_FRACTION = 0.25
 HIGH_DARK_FRACTION = 0.25
 LITTLE_TISSUE_MM2 = 1.0
 LITTLE_TISSUE_SHARE = 0.02
+#: The line masks' noise on glass is never taken under this share of one grey level of the glass
+#: (8-bit glass is often flat over many pixels: see :data:`.threshold.QUANT_NOISE_LEVELS`).
+MESH_NOISE_LEVELS = 0.5
 
 
 class TissueMask:
@@ -317,9 +321,11 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-noise", sensitivit
         Glass colour of a slide without visible glass (for example the cohort's median glass);
         white when None.
     mesh_um : float
-        Glass with a pixel above the threshold within this many µm along each of 8 directions is
-        tissue (:func:`~tilewright.tissue.morphology.enclosed`): the empty cells of fat, walled by
-        membranes that the threshold finds only in part at a thumbnail's µm/px; 0 turns it off.
+        Fat: regions of glass-level density holding a mesh of thin lines in many directions round
+        closed cells are tissue (:func:`~tilewright.tissue.membranes.fat_mesh`), and so is glass
+        with a pixel of tissue within this many µm along each of 8 directions
+        (:func:`~tilewright.tissue.morphology.enclosed`): the empty cells of fat, walled by
+        membranes that the threshold finds only in part at a thumbnail's µm/px; 0 turns both off.
 
     Returns
     -------
@@ -383,7 +389,9 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-noise", sensitivit
         sensitivity=sensitivity, min_od_floor=min_od_floor, max_od_ceiling=max_od_ceiling,
         min_saturation=min_saturation)
     raw = feature > threshold
-    if mesh_um > 0:  # the empty cells of fat, walled by membranes the threshold finds in part
+    if mesh_um > 0:  # fat: a mesh of membranes round empty cells, which the threshold finds in part
+        if survey.found and survey.candidates is not None:
+            raw |= fat_mesh(rgb, od_tables(glass), mpp, raw, survey.candidates, MESH_NOISE_LEVELS * grey_level_od(glass))
         raw |= enclosed(raw, px(mesh_um, mpp))
     glassy = ~raw
     survey = survey._replace(candidates=None)  # not needed past the threshold
