@@ -390,7 +390,7 @@ def tissue_mask(slide, *, mpp: float = 8.0, method: str = "od-noise", sensitivit
         min_saturation=min_saturation)
     raw = feature > threshold
     if mesh_um > 0:  # fat: a mesh of membranes round empty cells, which the threshold finds in part
-        if survey.found and survey.candidates is not None:
+        if survey.found:
             raw |= fat_mesh(rgb, od_tables(glass), mpp, raw, survey.candidates, MESH_NOISE_LEVELS * grey_level_od(glass))
         raw |= enclosed(raw, px(mesh_um, mpp))
     glassy = ~raw

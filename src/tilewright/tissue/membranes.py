@@ -37,8 +37,8 @@ import math
 
 import numpy as np
 
-from .density import od_lookup
-from .exclusions import bands, smooth
+from .density import channel_mean, od_lookup
+from .exclusions import BAND_ROWS, bands, smooth
 
 __all__ = ["line_masks", "line_pixels", "fat_mesh", "LINE_PX", "OFFSET_PX", "ORIENTATIONS", "LINE_SIGMAS",
            "CLEAR_UM", "SOLID_PX", "WINDOW_UM", "MESH_DENSITY", "MIN_CELLS", "MIN_CELL_UM", "MAX_CELL_UM"]
@@ -86,14 +86,6 @@ def line_masks(length: int = LINE_PX, offset: int = OFFSET_PX, n: int = ORIENTAT
     return out
 
 
-def _mean_od(rgb, tables):
-    od = od_lookup(np.ascontiguousarray(rgb), tables)
-    f = od[..., 0] + od[..., 1]
-    f += od[..., 2]
-    f /= np.float32(3)
-    return f
-
-
 def line_pixels(rgb: np.ndarray, tables: np.ndarray, glass: np.ndarray, min_noise: float) -> tuple[np.ndarray, np.ndarray]:
     """Pixels on thin lines and the direction of each (see the module's text, step 1).
 
@@ -122,10 +114,10 @@ def line_pixels(rgb: np.ndarray, tables: np.ndarray, glass: np.ndarray, min_nois
     at = np.flatnonzero(glass.reshape(-1))
     at = at[:: max(1, at.size // 50_000)]
     samples = [[] for _ in masks]
-    for r0 in range(0, h, 256):
-        r1 = min(h, r0 + 256)
+    for r0 in range(0, h, BAND_ROWS):
+        r1 = min(h, r0 + BAND_ROWS)
         a0, a1 = max(0, r0 - _HALO), min(h, r1 + _HALO)
-        f = _mean_od(rgb[a0:a1], tables)
+        f = channel_mean(od_lookup(np.ascontiguousarray(rgb[a0:a1]), tables))  # mean OD, not smoothed
         here = at[(at >= r0 * w) & (at < r1 * w)] - r0 * w
         top, idx = best[r0:r1], which[r0:r1]
         for k, m in enumerate(masks):
