@@ -37,9 +37,9 @@ def _curve(shape, rng, y0, x0, steps, width):
     return out
 
 
-def draw(seed):
-    """One slide: (thumbnail RGB, its µm/px, truth fat region, truth of every tissue, the bubble's rim
-    and the coverslip edge). The fibre starts at random and may run into the fat."""
+def scene(seed):
+    """One slide drawn at FINE µm/px: (RGB float, fat region, every tissue, the bubble's rim and the
+    coverslip edge, the generator left at the draw's thumbnail µm/px)."""
     rng = np.random.default_rng(seed)
     h, w = 1400, 1800  # 2.8 x 3.6 mm
     cell_um = rng.uniform(60, 130)
@@ -72,13 +72,23 @@ def draw(seed):
     cy, cx = rng.uniform(0.3, 0.7) * h, rng.uniform(0.3, 0.7) * w
     light = 1.0 - rng.uniform(0.03, 0.12) * (((yy - cy) / h) ** 2 + ((xx - cx) / w) ** 2) / 0.5
     fine = glass * light[..., None] * 10.0 ** (-od)
+    return fine, fat, fat | solid, ring | edge, rng
+
+
+def draw(seed):
+    """One slide: (thumbnail RGB, its µm/px, truth fat region, truth of every tissue, the bubble's rim
+    and the coverslip edge). The fibre starts at random and may run into the fat."""
+    import cv2
+
+    fine, fat, tissue, things, rng = scene(seed)
+    h, w = fat.shape
     mpp = rng.uniform(7.3, 10.7)
     size = (int(w * FINE / mpp), int(h * FINE / mpp))
     thumb = cv2.resize(fine.astype(np.float32), size, interpolation=cv2.INTER_AREA)
     thumb = np.clip(thumb + rng.normal(0, rng.uniform(1.0, 3.5), thumb.shape) + 0.5, 0, 255).astype(np.uint8)
     down = lambda m: cv2.resize(m.astype(np.float32), size, interpolation=cv2.INTER_AREA) >= 0.5
-    things = cv2.resize((ring | edge).astype(np.float32), size, interpolation=cv2.INTER_AREA) > 0  # never near fat
-    return thumb, mpp, down(fat), down(fat | solid), things
+    things = cv2.resize(things.astype(np.float32), size, interpolation=cv2.INTER_AREA) > 0  # never near fat
+    return thumb, mpp, down(fat), down(tissue), things
 
 
 SEEDS = range(16)
