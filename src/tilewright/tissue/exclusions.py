@@ -72,7 +72,7 @@ def _split(classes, mpp, stroke_kw, grains_of):
     return grey, coloured, reddish
 
 
-def _fit_exclusions(split, glassy):
+def _fit_exclusions(split, glassy, rgb, tables):
     """Pass 1 (against the prior plane, which may not be the slide's): the pixels left out of the
     plane fit, the share of the stained area re-read as tissue (0 when none), and the grey pixels
     and strokes (with their rims) among them. Left out: grey pixels, strokes, red cells (granular
@@ -89,7 +89,7 @@ def _fit_exclusions(split, glassy):
     sure = grey | cv2.dilate((coloured.strokes | reddish.strokes).view(np.uint8), rims).view(bool)
     pieces = coloured.compact | reddish.compact | reddish.grains
     share = float(pieces.sum()) / max(1, int((pieces | ~(glassy | sure)).sum()))  # a share, never over 1
-    if share >= REREAD_SHARE:
+    if share >= REREAD_SHARE and not off_own_stain(rgb, tables, pieces, ~(glassy | sure | pieces)):
         return sure, share, sure
     return sure | reddish.grains | lying_on_glass(coloured.compact | reddish.compact, glassy | sure), 0.0, sure
 
@@ -177,6 +177,54 @@ RETRY_SHARE = 0.5
 REREAD_SHARE = 0.7
 
 
+#: Compact off-plane pieces whose optical densities lie at least this far (a median, per unit of
+#: their own OD norm: the sine of the angle, about 6 degrees) from the H&E plane fitted to the
+#: rest of the slide's stained pixels are not its stain, however much of the slide they cover.
+OFF_STAIN = 0.1
+#: ... or this far (about 14 degrees) when the rest is of one colour: its plane is then only the
+#: prior turned to hold that colour, and an eosin off the prior (the magenta of issue 28's third
+#: case lies 0.22 from the Ruifrok & Johnston plane) must not be taken for marker.
+OFF_STAIN_ONE_COLOUR = 0.25
+#: ... over the pixels of both dense enough to carry a direction (Macenko et al. 2009's 0.15).
+STAIN_MIN_OD = 0.15
+#: A rest whose colours spread in one direction only (the middle eigenvalue of their scatter under
+#: this many times the smallest, as in :func:`~.plane.fit_hne_plane`) fixes one stain, not a plane.
+ONE_COLOUR = 4.0
+_FIT_SAMPLE = 20000
+
+
+def off_own_stain(rgb, tables, pieces, rest) -> bool:
+    """Whether ``pieces`` lie far from the H&E plane of the ``rest`` of the slide's stained pixels.
+
+    A slide is stained in one run, so all its tissue lies on one stain plane (spanned by its two
+    stain vectors, Ruifrok & Johnston 2001, whatever their colour). When compact pieces off the
+    prior plane cover most of the stained area, they may be tissue of an unusual colour (the
+    slide's own stain) or marker over most of a slide whose own tissue is the rest. The rest
+    decides: when it holds a plausible plane (:func:`~.plane.fit_hne_plane`'s checks: enough
+    pixels, a share of those given, a tilt, most pixels near it), pieces lying :data:`OFF_STAIN`
+    or more from it (the median of distance over OD norm) are not the slide's stain; when the
+    rest's colours spread in one direction only (:data:`ONE_COLOUR`: one stain, the plane's second
+    direction taken from the prior), the limit is :data:`OFF_STAIN_ONE_COLOUR`. Without such a
+    rest (all the tissue off the prior plane) nothing is decided here: False.
+    """
+    if not rest.any() or not pieces.any():
+        return False
+    od = od_lookup(np.ascontiguousarray(rgb[rest]), tables)
+    od = od[::max(1, len(od) // _FIT_SAMPLE)]
+    fit = fit_hne_plane(od)
+    if not fit.fitted:
+        return False
+    dense = od[np.linalg.norm(od, axis=1) >= STAIN_MIN_OD].astype(np.float64)
+    vals = np.linalg.eigvalsh(dense.T @ dense)
+    limit = OFF_STAIN_ONE_COLOUR if vals[1] < ONE_COLOUR * vals[0] else OFF_STAIN
+    od = od_lookup(np.ascontiguousarray(rgb[pieces]), tables)
+    norm = np.linalg.norm(od, axis=1)
+    dense = norm >= STAIN_MIN_OD
+    if not dense.any():
+        return False
+    return float(np.median(np.abs(od[dense] @ fit.normal) / norm[dense])) >= limit
+
+
 def find_exclusions(rgb, glass, sigma_px: float, mpp: float, glassy, *, exclude_ink: bool = True,
                     ink_residual: float = 0.04, exclude_dark: bool = False, dark_od: float = 0.9,
                     stroke_kw: dict | None = None, noise_od: float = 0.0) -> SimpleNamespace:
@@ -228,7 +276,7 @@ def find_exclusions(rgb, glass, sigma_px: float, mpp: float, glassy, *, exclude_
     # the plane is fitted to sampled pixels that are neither stroke-shaped ink nor glass nor dark
     grains_of = GrainMap(rgb, tables, noise_od)  # texture is measured once, where it is asked about
     split = _split(classes, mpp, stroke_kw, grains_of)
-    left_out, reread, sure = _fit_exclusions(split, glassy)
+    left_out, reread, sure = _fit_exclusions(split, glassy, rgb, tables)
     usable = ~(left_out | glassy | dark).reshape(-1)[::step][:at]
     del left_out
     plane = fit_hne_plane(sample[:at][usable])
@@ -262,7 +310,9 @@ def find_exclusions(rgb, glass, sigma_px: float, mpp: float, glassy, *, exclude_
     # the stained area that is not ink by shape or greyness (with the pieces below the tissue
     # threshold that were taken for ink by colour: a share, never over 1)
     share = float(blobs.sum()) / max(1, int((blobs | ~(glassy | sure)).sum()))
-    if share >= REREAD_SHARE:  # "ink" over most of the stained area: the stain, not ink
+    if share >= REREAD_SHARE and not off_own_stain(rgb, tables, blobs, ~(glassy | sure | blobs)):
+        # "ink" over most of the stained area, and no H&E of the slide's own that it lies far
+        # from: the stain, not ink
         ink &= ~blobs
         reread = max(reread, share)
     return SimpleNamespace(ink=ink, dark=dark, blood=blood, plane=plane, reread=reread, residual=residual)
