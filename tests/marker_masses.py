@@ -1,6 +1,6 @@
 """Slides on which broad masses of marker cover most of what is stained (a family of draws), and
 slides whose tissue is all of an unusual stain (tests/tissue/test_marker_masses.py,
-tests/cli/test_marker_mass_run.py).
+tests/cli/test_marker_runs.py).
 
 A marker mass is a disc of ink (a :class:`hard_slides.Ring` of radius 0) several millimetres
 across, blue, brown or green, lying on glass and partly over one of two H&E pieces (Ruifrok &
