@@ -70,6 +70,15 @@ def check_floor(name: str, scores: list[dict], aim: str, floor: float, *, min_co
     assert share >= floor, (aim, share, count, summary(name, scores))
 
 
+def opt_in(env: str, label: str) -> list:
+    """Marks of a held-back family's confirmation test: skipped unless ``env`` is "1" (never run
+    by ``make test``), and a long timeout (100 draws take a few minutes)."""
+    import pytest
+
+    return [pytest.mark.skipif(os.environ.get(env) != "1", reason=f"{label}: confirmation only, set {env}=1"),
+            pytest.mark.timeout(7200)]
+
+
 def confirm_family(name: str, module: str, folder: str, draws_env: str) -> None:
     """Run a held-back family (``module`` with ``draw`` and ``describe``) on as many draws as the
     environment variable ``draws_env`` says (100 by default, see :func:`run_family`) and fail

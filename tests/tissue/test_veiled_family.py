@@ -11,13 +11,11 @@ kept >= 0.9, faint tissue (>= 0.03 OD above glass in green) kept >= 0.8, each in
 draws it applies to.
 """
 from __future__ import annotations
-import os
-import pytest
-from family_scores import confirm_family
 
-pytestmark = [pytest.mark.skipif(os.environ.get("TILEWRIGHT_VEILED") != "1",
-                                 reason="veiled held-back family: confirmation only, set TILEWRIGHT_VEILED=1"),
-              pytest.mark.timeout(7200)]
+from family_scores import confirm_family, opt_in
+
+pytestmark = opt_in("TILEWRIGHT_VEILED", "veiled held-back family")
+
 
 def test_veiled_family_meets_the_aims():
     confirm_family("veiled family", "veiled_family", "veiled-family", "TILEWRIGHT_VEILED_DRAWS")
