@@ -4,11 +4,10 @@ flat tissue stained off the H&E plane. Each was silently lost before (cut out as
 blank, taken for red marker over all of its tissue); each must now be tiled, its tissue mask
 checked against the layout drawn, at an odd real-world scan resolution and from JPEG tiles."""
 
-import numpy as np
 import pandas as pd
 import pytest
 
-import tilewright as tw
+from drawn_runs import mask_and_truth, tiles_on
 from reported_slides import REPORTED
 from tilewright.cli.tile_out import main as tile_out
 
@@ -32,11 +31,7 @@ def run(tmp_path_factory):
 
 def _mask_and_truth(out, name):
     """The store's tissue mask and the layout's truth at the mask's µm/px, same shape."""
-    store = tw.open_store(out / f"{name}.zarr")
-    mask = np.asarray(store.mask, bool)
-    truth = REPORTED[name]().truth(float(store.attrs["mask_mpp"]))
-    h, w = min(mask.shape[0], truth["tissue"].shape[0]), min(mask.shape[1], truth["tissue"].shape[1])
-    return store, mask[:h, :w], {k: v[:h, :w] for k, v in truth.items()}
+    return mask_and_truth(out, name, REPORTED[name]())
 
 
 def test_every_reported_slide_is_tiled(run):
@@ -54,10 +49,7 @@ def test_haemorrhage_at_the_tissue_edge_is_kept(run):
     assert mask[truth["tissue"]].mean() >= 0.9  # was 0.59 (the red region cut out as ink)
     assert mask[truth["blood"]].mean() >= 0.9
     assert not any(w.startswith("high-ink") for w in store.attrs["warnings"])
-    f = store.attrs["mpp"] / store.attrs["mask_mpp"]  # tiles are planned over the red cells too
-    centres = ((np.asarray(store.yx) + store.attrs["tile"] / 2) * f).astype(int)
-    inside = [truth["blood"][y, x] for y, x in centres if y < mask.shape[0] and x < mask.shape[1]]
-    assert sum(inside) >= 3
+    assert sum(tiles_on(store, truth["blood"])) >= 3  # tiles are planned over the red cells too
 
 
 def test_faint_tissue_over_most_of_the_slide_is_found(run):

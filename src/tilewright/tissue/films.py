@@ -42,6 +42,7 @@ import numpy as np
 from .density import od_lookup
 from .morphology import touching
 from .pieces import band_shape, granularity_bands, lying_on_glass
+from .plane import RUIFROK_PLANE_NORMAL
 
 __all__ = ["on_plane_films", "dark_films", "MIN_TEXTURE", "SMOOTH_SHARE", "LOOSE_SHARE", "MIN_FILM_OD", "EXCESS",
            "DARK_MEDIAN", "DARK_STEP", "DARK_TEXTURE", "DARK_OFF_PLANE"]
@@ -100,8 +101,6 @@ def dark_films(rgb: np.ndarray, dens: np.ndarray, tissue: np.ndarray, tables: np
     ndarray (H, W) bool
     """
     import cv2
-
-    from .plane import RUIFROK_PLANE_NORMAL
 
     out = np.zeros_like(tissue)
     d = cv2.GaussianBlur(dens, (0, 0), 1.0)
@@ -238,7 +237,8 @@ def on_plane_films(rgb: np.ndarray, tissue: np.ndarray, away: np.ndarray, tables
     Returns
     -------
     ndarray (H, W) bool
-        Film pixels (all False when the slide's tissue is smooth or none is found).
+        Film pixels: smooth films (none when the slide's tissue is smooth) and dark films (found
+        on any slide).
     """
     out = np.zeros_like(tissue)
     rows, cols = np.flatnonzero(tissue.any(axis=1)), np.flatnonzero(tissue.any(axis=0))
